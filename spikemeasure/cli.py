@@ -1,0 +1,155 @@
+"""The ``spikemeasure`` command: a thin layer over the Python API.
+
+Exit codes: 0 everything was measured; 1 nothing could be measured, or an error; 2 a usage
+error (from click); 3 some files or sweeps failed and the rest were measured.
+"""
+from __future__ import annotations
+
+import sys
+
+import click
+
+from . import __version__
+from .columns import columns_markdown, SPIKE_COLUMNS
+from .detection import THRESHOLD_METHODS, DetectionSettings
+from .errors import SpikemeasureError
+
+EXIT_PARTIAL = 3
+
+
+def _settings_options(func):
+    """The detection and measurement options shared by `measure` and `inspect`."""
+    d = DetectionSettings()
+    options = [
+        click.option("--onset-rate", "onset_rate_v_per_s", type=click.FloatRange(min=0, min_open=True),
+                     default=d.onset_rate_v_per_s, show_default=True, metavar="V/S",
+                     help="dV/dt whose upward crossing starts a spike (and defines threshold by "
+                          "default), in V/s."),
+        click.option("--min-rise", "min_rise_mv", type=click.FloatRange(min=0, min_open=True),
+                     default=d.min_rise_mv, show_default=True, metavar="MV",
+                     help="The peak must be at least this far above the onset voltage, in mV."),
+        click.option("--min-peak", "min_peak_mv", type=float, default=d.min_peak_mv,
+                     show_default=True, metavar="MV", help="The peak must be above this voltage, in mV."),
+        click.option("--peak-window", "peak_window_ms", type=click.FloatRange(min=0, min_open=True),
+                     default=d.peak_window_ms, show_default=True, metavar="MS",
+                     help="The peak must come within this time of the onset, in ms."),
+        click.option("--smoothing", "smoothing_ms", type=click.FloatRange(min=0, min_open=True),
+                     default=d.smoothing_ms, show_default=True, metavar="MS",
+                     help="Savitzky-Golay window for dV/dt and the smoothed voltage, in ms."),
+        click.option("--threshold-method", type=click.Choice(THRESHOLD_METHODS),
+                     default=d.threshold_method, show_default=True,
+                     help="Threshold definition (see docs/measurements.md)."),
+        click.option("--threshold-fraction", type=click.FloatRange(0, 1, min_open=True, max_open=True),
+                     default=d.threshold_fraction, show_default=True,
+                     help="Fraction of the maximum dV/dt, for --threshold-method max_rate_fraction."),
+        click.option("--min-samples-across-width", type=click.IntRange(min=1),
+                     default=d.min_samples_across_width, show_default=True,
+                     help="Leave the half-width empty when fewer samples lie above half amplitude."),
+        click.option("--step", "step_times", type=(float, float), default=None,
+                     metavar="START END",
+                     help="The current step's start and end in s, for files without a "
+                          "command-current channel."),
+        click.option("--sampling-rate", "sampling_rate_hz", type=click.FloatRange(min=0, min_open=True),
+                     default=None, metavar="HZ",
+                     help="Sampling rate for text files without a time column, in Hz."),
+    ]
+    for option in reversed(options):
+        func = option(func)
+    return func
+
+
+def _make_settings(kw: dict) -> DetectionSettings:
+    names = DetectionSettings.__dataclass_fields__
+    return DetectionSettings(**{k: kw.pop(k) for k in list(kw) if k in names})
+
+
+class _Context:
+    def __init__(self, debug: bool):
+        self.debug = debug
+
+
+def _fail(ctx: click.Context, exc: Exception) -> None:
+    """Library errors become one 'Error:' line, unless --debug asks for the traceback."""
+    if ctx.find_object(_Context).debug:
+        raise exc
+    raise click.ClickException(str(exc)) from exc
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, prog_name="spikemeasure")
+@click.option("--debug", is_flag=True, help="Show tracebacks for errors.")
+@click.pass_context
+def main(ctx: click.Context, debug: bool) -> None:
+    """Measure action potentials in whole-cell current-clamp recordings.
+
+    Reads NWB, NIX, plain text and other formats neo reads; writes CSV tables. Results need
+    review by a qualified person; not for clinical decisions.
+    """
+    ctx.obj = _Context(debug)
+
+
+@main.command()
+@click.argument("paths", nargs=-1, required=True, type=click.Path())
+@click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False),
+              help="Folder for spikes.csv and run.json (created if missing).")
+@click.option("--quiet", is_flag=True, help="Print only the final summary.")
+@_settings_options
+@click.pass_context
+def measure(ctx: click.Context, paths, out_dir, quiet, step_times, sampling_rate_hz, **kw):
+    """Measure every spike in PATHS (files or folders) into --out."""
+    from .runner import measure_paths
+
+    try:
+        settings = _make_settings(kw)
+        progress = None if quiet else (lambda line: click.echo(line, err=True))
+        summary = measure_paths(list(paths), out_dir, settings, step_times=step_times,
+                                sampling_rate_hz=sampling_rate_hz, progress=progress)
+    except SpikemeasureError as exc:
+        _fail(ctx, exc)
+        return
+    click.echo(f"{summary.files_measured} files, {summary.sweeps_measured} sweeps, "
+               f"{summary.spikes} spikes -> {summary.spikes_path}", err=True)
+    if summary.failures:
+        click.echo(f"{len(summary.failures)} problems (also in {summary.record_path}):", err=True)
+        for f in summary.failures:
+            click.echo(f"  {f['message']}", err=True)
+    if summary.nothing_measured:
+        click.echo("Error: nothing could be measured", err=True)
+        ctx.exit(1)
+    if summary.failures:
+        ctx.exit(EXIT_PARTIAL)
+
+
+@main.command()
+@click.argument("file", type=click.Path(dir_okay=False))
+@_settings_options
+@click.pass_context
+def inspect(ctx: click.Context, file, step_times, sampling_rate_hz, **kw):
+    """Show what FILE holds: format, sweeps, channels, steps and spikes per sweep."""
+    from .inspection import describe_file
+
+    try:
+        settings = _make_settings(kw)
+        text, ok = describe_file(file, settings, step_times=step_times,
+                                 sampling_rate_hz=sampling_rate_hz)
+    except SpikemeasureError as exc:
+        _fail(ctx, exc)
+        return
+    click.echo(text)
+    if not ok:
+        ctx.exit(1)
+
+
+@main.command()
+@click.option("--markdown", is_flag=True, help="Print docs/measurements.md.")
+def columns(markdown: bool) -> None:
+    """List the output columns with their units and definitions."""
+    if markdown:
+        click.echo(columns_markdown(), nl=False)
+        return
+    for c in SPIKE_COLUMNS:
+        click.echo(f"{c.name:<18} {c.unit or '-':<5} {c.definition}")
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,62 @@
+"""A plain-text summary of one file: what a person checks before trusting the numbers."""
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+from .detection import DetectionSettings
+from .reading import read_recording
+from .tables import measure_recording
+
+__all__ = ["describe_file"]
+
+
+def _fmt(value: float, unit: str, digits: int = 1) -> str:
+    return "-" if value is None or math.isnan(value) else f"{value:.{digits}f} {unit}"
+
+
+def describe_file(path: str, settings: DetectionSettings = DetectionSettings(), *,
+                  step_times: tuple[float, float] | None = None,
+                  sampling_rate_hz: float | None = None) -> tuple[str, bool]:
+    """Describe a recording: format, channels, sweeps, steps and spike counts.
+
+    Returns (text, ok) where ok is False when no sweep could be measured.
+    Raises :class:`~spikemeasure.errors.UnreadableInputError` when the file cannot be read.
+    """
+    recording = read_recording(path, sampling_rate_hz=sampling_rate_hz)
+    results = measure_recording(recording, settings, step_times)
+    rates = sorted({s.sampling_rate_hz for s in recording.sweeps})
+    lines = [
+        f"file:          {path} ({Path(path).stat().st_size / 1e6:.2f} MB)",
+        f"format:        {recording.format}",
+        f"sweeps:        {len(recording.sweeps)}",
+        "sampling rate: " + ", ".join(f"{r / 1e3:g} kHz" for r in rates),
+        "channels:      " + (", ".join(f"{c.name} [{c.units}] as {c.role}"
+                                       for c in recording.channels) or "-"),
+        "",
+        f"{'sweep':>5}  {'duration':>9}  {'holding':>10}  {'step':>10}  {'step from':>9}  "
+        f"{'to':>7}  {'spikes':>6}  note",
+    ]
+    measured = 0
+    for r in results:
+        s = r.sweep
+        step = r.step
+        if r.error is None:
+            measured += 1
+        note = r.error.split(": ", 1)[-1] if r.error else ""
+        spikes = "-" if r.spikes is None else str(len(r.spikes))
+        if step is None:
+            hold = size = start = stop = "-"
+            if r.error is None:
+                note = note or ("no command channel: give --step START END"
+                                if s.command_pa is None else "no current step")
+        else:
+            hold, size = _fmt(step.holding_pa, "pA"), _fmt(step.size_pa, "pA")
+            start, stop = _fmt(step.onset_s, "s", 3), _fmt(step.offset_s, "s", 3)
+        lines.append(f"{s.index:>5}  {s.duration_s:>7.3f} s  {hold:>10}  {size:>10}  "
+                     f"{start:>9}  {stop:>7}  {spikes:>6}  {note}")
+    if recording.problems:
+        lines += ["", "skipped:"] + [f"  {p}" for p in recording.problems]
+    total = sum(len(r.spikes) for r in results if r.spikes is not None)
+    lines += ["", f"{measured} of {len(results)} sweeps measured, {total} spikes"]
+    return "\n".join(lines), measured > 0

@@ -1,0 +1,52 @@
+"""Write tables and run records to files, atomically: a result is complete or absent.
+
+Each file is written to a temporary name in the same folder, flushed to disk, then renamed
+over the final name, so an interrupted run never leaves a half-written table.
+"""
+from __future__ import annotations
+
+import csv
+import io
+import json
+import os
+import tempfile
+from pathlib import Path
+
+from .columns import SPIKE_COLUMNS, Column
+from .tables import format_rows
+
+__all__ = ["write_text_atomic", "write_table_csv", "write_json"]
+
+
+def write_text_atomic(path: str | os.PathLike, text: str) -> Path:
+    """Write `text` to `path` through a temporary file and a rename."""
+    target = Path(path)
+    target.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
+            fh.write(text)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, target)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except FileNotFoundError:
+            pass
+        raise
+    return target
+
+
+def write_table_csv(path: str | os.PathLike, table: dict[str, list],
+                    columns: tuple[Column, ...] = SPIKE_COLUMNS) -> Path:
+    """Write a table (dict of column lists) as CSV with the declared header and formats."""
+    buffer = io.StringIO()
+    writer = csv.writer(buffer, lineterminator="\n")
+    writer.writerow([c.name for c in columns])
+    writer.writerows(format_rows(table, columns))
+    return write_text_atomic(path, buffer.getvalue())
+
+
+def write_json(path: str | os.PathLike, record: dict) -> Path:
+    return write_text_atomic(path, json.dumps(record, indent=2, default=str) + "\n")

@@ -1,0 +1,541 @@
+"""Read current-clamp recordings into :class:`~spikemeasure.sweeps.Sweep` objects.
+
+This is the only module that imports neo. Formats:
+
+- NWB (``.nwb``): current-clamp series paired with their stimulus series by sweep number.
+- NIX (``.nix``): one sweep per neo segment.
+- Plain text (``.txt``, ``.csv``, ``.tsv``): columns under a header row naming units, one sweep
+  per file, parsed with numpy in float64.
+- Anything else neo reads, found by neo's own extension table.
+
+Units are converted by the units each channel declares, never assumed. Readers that would
+unpickle or evaluate file content are refused.
+"""
+from __future__ import annotations
+
+import inspect
+import os
+import re
+import sys
+import warnings
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from .errors import UnreadableInputError
+from .sweeps import Sweep
+
+__all__ = ["Recording", "ChannelInfo", "read_recording", "find_recordings", "TEXT_SUFFIXES",
+           "RECORDING_SUFFIXES"]
+
+TEXT_SUFFIXES = (".txt", ".csv", ".tsv")
+#: Suffixes a folder search picks up without question; other suffixes neo knows are added
+#: at run time, less those that more often hold something else (see `_GENERIC_SUFFIXES`).
+RECORDING_SUFFIXES = (".nwb", ".nix") + TEXT_SUFFIXES
+_GENERIC_SUFFIXES = {".json", ".xml", ".npy", ".mat", ".h5", ".ini", ".meta", ".dat", ".bin",
+                     ".raw", ".pkl", ".pickle", ".set", ".txt", ".md"}
+_PICKLE_SUFFIXES = {".pkl", ".pickle", ".pck", ".joblib"}
+_HDF5_SIGNATURE = b"\x89HDF\r\n\x1a\n"
+
+_VOLT_TO_MV = {"v": 1e3, "mv": 1.0, "uv": 1e-3, "µv": 1e-3}
+_AMP_TO_PA = {"a": 1e12, "ma": 1e9, "ua": 1e6, "µa": 1e6, "na": 1e3, "pa": 1.0, "fa": 1e-3}
+_SECOND_TO_S = {"s": 1.0, "ms": 1e-3, "us": 1e-6, "µs": 1e-6}
+
+
+@dataclass(frozen=True)
+class ChannelInfo:
+    """A channel as the file declares it, and the role spikemeasure gave it."""
+
+    name: str
+    units: str
+    role: str  # "voltage", "command", or "ignored"
+
+
+@dataclass(frozen=True)
+class Recording:
+    """The sweeps of one file and what the file said about itself.
+
+    Attributes
+    ----------
+    path : str
+        The path as given.
+    format : str
+        Which reader read it.
+    sweeps : list of Sweep
+    channels : list of ChannelInfo
+        Channels of the first sweep.
+    problems : list of str
+        Parts of the file that were skipped, each naming the sweep and why.
+    """
+
+    path: str
+    format: str
+    sweeps: list[Sweep]
+    channels: list[ChannelInfo] = field(default_factory=list)
+    problems: list[str] = field(default_factory=list)
+
+
+# --------------------------------------------------------------------------- safety checks
+
+def _refuse_code_formats(path: Path) -> None:
+    if path.suffix.lower() in _PICKLE_SUFFIXES:
+        raise UnreadableInputError(
+            f"{path}: pickle files can run code when loaded, so spikemeasure does not open "
+            "them; export the recording to NWB, NIX or text")
+    with open(path, "rb") as fh:
+        head = fh.read(2)
+    if len(head) == 2 and head[0] == 0x80 and 2 <= head[1] <= 5:
+        raise UnreadableInputError(
+            f"{path}: the file is a Python pickle, which can run code when loaded; "
+            "spikemeasure does not open it. Export the recording to NWB, NIX or text")
+
+
+_UNSAFE_CALLS = re.compile(r"\bpickle\.loads?\(|\bjoblib\.load\(|(?<![\w.])eval\(|\bexec\(")
+_unsafe_cache: dict[type, bool] = {}
+
+
+def _reader_runs_file_content(cls: type) -> bool:
+    """True when a neo reader's own source unpickles or evaluates what it reads.
+
+    The check reads the source of the reader's modules (its class and its raw-reading base
+    classes, not neo's shared base, whose optional cache is never switched on here).
+    """
+    if cls not in _unsafe_cache:
+        unsafe = False
+        for klass in inspect.getmro(cls):
+            module = sys.modules.get(klass.__module__)
+            name = getattr(module, "__name__", "")
+            if not name.startswith("neo.") or name.endswith(("baseio", "baserawio",
+                                                            "basefromrawio")):
+                continue
+            try:
+                source = inspect.getsource(module)
+            except (OSError, TypeError):
+                unsafe = True  # cannot check it, so do not trust it
+                break
+            if _UNSAFE_CALLS.search(source):
+                unsafe = True
+                break
+        _unsafe_cache[cls] = unsafe
+    return _unsafe_cache[cls]
+
+
+# --------------------------------------------------------------------------- units
+
+def _unit_text(signal) -> str:
+    return signal.units.dimensionality.string
+
+
+def _scale_to(signal, target: str) -> float | None:
+    """Factor turning the signal's declared units into `target` ('mV' or 'pA'), or None."""
+    import quantities as pq
+
+    try:
+        return float(signal.units.rescale(getattr(pq, target)).magnitude)
+    except ValueError:
+        return None
+
+
+def _looks_like_command(voltage_mv: np.ndarray) -> bool:
+    """A voltage channel made of a few flat levels is a voltage-clamp command, not a response."""
+    if voltage_mv.size < 100:
+        return False
+    changes = np.count_nonzero(np.diff(voltage_mv))
+    return changes < 0.01 * voltage_mv.size
+
+
+# --------------------------------------------------------------------------- neo blocks
+
+def _columns(signal):
+    """Yield (name, 1-D float64 column, signal) for every channel of a neo AnalogSignal."""
+    data = np.asarray(signal.magnitude, dtype=np.float64)
+    if data.ndim == 1:
+        data = data[:, None]
+    names = list(signal.array_annotations.get("channel_names", [])) if hasattr(
+        signal, "array_annotations") else []
+    base = signal.name or "signal"
+    for c in range(data.shape[1]):
+        name = str(names[c]) if c < len(names) else (base if data.shape[1] == 1 else f"{base}[{c}]")
+        yield name, data[:, c], signal
+
+
+def _sweep_from_signals(signals, path: str, index: int, label: str) -> tuple[Sweep | None, list[ChannelInfo], str | None]:
+    """Make one sweep from the analog signals of a segment by their declared units.
+
+    Returns (sweep or None, channels, problem or None).
+    """
+    voltage = command = None
+    channels: list[ChannelInfo] = []
+    for signal in signals:
+        to_mv, to_pa = _scale_to(signal, "mV"), _scale_to(signal, "pA")
+        for name, column, sig in _columns(signal):
+            role = "ignored"
+            if to_mv is not None and voltage is None:
+                voltage, role = (column * to_mv, float(sig.sampling_rate.rescale("Hz"))), "voltage"
+            elif to_pa is not None and command is None:
+                command, role = (column * to_pa, float(sig.sampling_rate.rescale("Hz"))), "command"
+            channels.append(ChannelInfo(name, _unit_text(sig), role))
+    where = f"{path}, sweep {index}" + (f" ({label})" if label else "")
+    if voltage is None:
+        units = ", ".join(f"{c.name} [{c.units}]" for c in channels) or "none"
+        return None, channels, (f"{where}: no channel in volts (channels: {units}); "
+                                "spikemeasure needs the membrane voltage")
+    v, rate = voltage
+    if command is not None and _looks_like_command(v) and not _looks_like_command(command[0]):
+        return None, channels, (f"{where}: this looks like a voltage-clamp recording (the voltage "
+                                "channel is a few flat command levels); spikemeasure measures "
+                                "current clamp")
+    cmd = None
+    problem = None
+    if command is not None:
+        c, c_rate = command
+        if abs(c_rate - rate) > 1e-6 * rate or c.size != v.size:
+            problem = (f"{where}: the current channel ({c.size} samples at {c_rate:g} Hz) does "
+                       f"not match the voltage ({v.size} samples at {rate:g} Hz); it was not "
+                       "used as the command")
+        else:
+            cmd = c
+    return Sweep(voltage_mv=v, sampling_rate_hz=rate, command_pa=cmd, file=path, index=index,
+                 label=label, channel_info=tuple(channels)), channels, problem
+
+
+def _segments_to_recording(segments, path: str, format_name: str) -> Recording:
+    sweeps, problems, first_channels = [], [], []
+    for index, segment in enumerate(segments):
+        sweep, channels, problem = _sweep_from_signals(segment.analogsignals, path, index,
+                                                       segment.name or "")
+        if index == 0:
+            first_channels = channels
+        if problem:
+            problems.append(problem)
+        if sweep is not None:
+            sweeps.append(sweep)
+    if not sweeps:
+        detail = problems[0] if problems else f"{path}: the file holds no analog signals"
+        raise UnreadableInputError(detail if len(problems) <= 1 else
+                                   f"{detail} (and {len(problems) - 1} more sweeps alike)")
+    return Recording(path, format_name, sweeps, first_channels, problems)
+
+
+# --------------------------------------------------------------------------- NWB
+
+_CC_RESPONSE = {"CurrentClampSeries", "IZeroClampSeries"}
+_CC_STIMULUS = {"CurrentClampStimulusSeries"}
+_VC_TYPES = {"VoltageClampSeries", "VoltageClampStimulusSeries"}
+
+
+def _nwb_type(signal) -> str:
+    kind = signal.annotations.get("nwb_neurodata_type", ("", ""))
+    return kind[-1] if isinstance(kind, (tuple, list)) else str(kind)
+
+
+def _read_nwb(path: Path, shown: str) -> Recording:
+    import neo
+
+    with open(path, "rb") as fh:
+        if fh.read(8) != _HDF5_SIGNATURE:
+            raise UnreadableInputError(
+                f"{shown}: not an NWB file (NWB files are HDF5, and this one does not start "
+                "with the HDF5 signature; it may be truncated or of another format)")
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            io = neo.io.NWBIO(str(path), mode="r")
+            block = io.read_block(lazy=False)
+    except Exception as exc:  # the NWB stack raises many types; keep the cause
+        raise UnreadableInputError(
+            f"{shown}: cannot be read as NWB ({type(exc).__name__}: {exc}); the file may be "
+            "truncated or damaged") from exc
+    signals = [s for seg in block.segments for s in seg.analogsignals]
+    by_sweep: dict[int, dict[str, list]] = {}
+    types = {_nwb_type(s) for s in signals}
+    if not types & _CC_RESPONSE:
+        if types & _VC_TYPES:
+            raise UnreadableInputError(
+                f"{shown}: a voltage-clamp recording (it holds VoltageClampSeries and no "
+                "CurrentClampSeries); spikemeasure measures current clamp")
+        # not written with the intracellular types: fall back to declared units per segment
+        return _segments_to_recording(block.segments, shown, "NWB (by channel units)")
+    for order, s in enumerate(signals):
+        kind = _nwb_type(s)
+        if kind not in _CC_RESPONSE | _CC_STIMULUS:
+            continue
+        number = s.annotations.get("nwb:sweep_number")
+        key = int(number) if number is not None else order
+        slot = by_sweep.setdefault(key, {"response": [], "stimulus": []})
+        slot["response" if kind in _CC_RESPONSE else "stimulus"].append(s)
+    sweeps, problems, first_channels = [], [], []
+    for index, number in enumerate(sorted(by_sweep)):
+        slot = by_sweep[number]
+        label = f"sweep_number {number}"
+        if not slot["response"]:
+            problems.append(f"{shown}, sweep {index} ({label}): a stimulus with no voltage "
+                            "response; skipped")
+            continue
+        response = slot["response"][0]
+        stimulus = slot["stimulus"][0] if slot["stimulus"] else None
+        label = f"sweep_number {number}, {response.name}"
+        parts = [response] + ([stimulus] if stimulus is not None else [])
+        sweep, channels, problem = _sweep_from_signals(parts, shown, index, label)
+        if stimulus is not None and sweep is not None and sweep.command_pa is None and problem:
+            # align a stimulus that starts later or is longer than the response
+            sweep, problem = _align_stimulus(sweep, response, stimulus, problem)
+        if not first_channels:
+            first_channels = channels
+        if problem:
+            problems.append(problem)
+        if len(slot["response"]) > 1:
+            problems.append(f"{shown}, sweep {index} ({label}): {len(slot['response'])} responses "
+                            "share this sweep number; the first was used")
+        if sweep is not None:
+            sweeps.append(sweep)
+    if not sweeps:
+        raise UnreadableInputError(problems[0] if problems else
+                                   f"{shown}: no current-clamp sweeps found")
+    return Recording(shown, "NWB (intracellular series paired by sweep number)", sweeps,
+                     first_channels, problems)
+
+
+def _align_stimulus(sweep: Sweep, response, stimulus, problem: str) -> tuple[Sweep, str | None]:
+    """Cut a stimulus to the response's time span when both share a sampling rate."""
+    rate = sweep.sampling_rate_hz
+    s_rate = float(stimulus.sampling_rate.rescale("Hz"))
+    if abs(s_rate - rate) > 1e-6 * rate:
+        return sweep, problem
+    offset = int(round((float(response.t_start.rescale("s")) -
+                        float(stimulus.t_start.rescale("s"))) * rate))
+    to_pa = _scale_to(stimulus, "pA")
+    column = np.asarray(stimulus.magnitude, dtype=np.float64).reshape(-1) * to_pa
+    if offset < 0 or offset + sweep.n_samples > column.size:
+        return sweep, problem
+    aligned = column[offset:offset + sweep.n_samples]
+    return Sweep(sweep.voltage_mv, rate, aligned, sweep.file, sweep.index, sweep.label,
+                 sweep.channel_info), None
+
+
+# --------------------------------------------------------------------------- NIX and others
+
+def _read_nix(path: Path, shown: str) -> Recording:
+    import neo
+
+    with open(path, "rb") as fh:
+        if fh.read(8) != _HDF5_SIGNATURE:
+            raise UnreadableInputError(
+                f"{shown}: not a NIX file (NIX files are HDF5, and this one does not start with "
+                "the HDF5 signature; it may be truncated or of another format)")
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            with neo.io.NixIO(str(path), mode="ro") as io:
+                blocks = io.read_all_blocks(lazy=False)
+    except Exception as exc:  # nixio raises many types; keep the cause
+        raise UnreadableInputError(
+            f"{shown}: cannot be read as NIX ({type(exc).__name__}: {exc}); the file may be "
+            "truncated or damaged") from exc
+    segments = [seg for blk in blocks for seg in blk.segments]
+    return _segments_to_recording(segments, shown, "NIX (one sweep per segment)")
+
+
+def _read_other(path: Path, shown: str) -> Recording:
+    import neo.io
+
+    try:
+        candidates = neo.io.list_candidate_ios(str(path))
+    except ValueError:
+        candidates = []
+    if not candidates:
+        raise UnreadableInputError(
+            f"{shown}: no reader for '{path.suffix or 'no suffix'}' files; spikemeasure reads "
+            "NWB, NIX, text (.txt/.csv/.tsv) and the formats neo recognizes by suffix")
+    reasons = []
+    for cls in candidates:
+        if _reader_runs_file_content(cls):
+            reasons.append(f"{cls.__name__}: refused, it unpickles or evaluates file content")
+            continue
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                io = cls(str(path))
+                blocks = io.read(lazy=False)
+        except Exception as exc:  # each neo reader raises its own types; keep every cause
+            reasons.append(f"{cls.__name__}: {type(exc).__name__}: {exc}")
+            continue
+        segments = [seg for blk in blocks for seg in blk.segments]
+        return _segments_to_recording(segments, shown, f"neo {cls.__name__}")
+    raise UnreadableInputError(f"{shown}: no reader could open it ({'; '.join(reasons)})")
+
+
+# --------------------------------------------------------------------------- text
+
+def _split_unit(column_name: str) -> tuple[str, str]:
+    """'voltage_mV' -> ('voltage', 'mv'); also accepts 'voltage (mV)' and 'voltage [mV]'."""
+    name = column_name.strip().strip('"').strip("'")
+    m = re.match(r"^(.*?)[\s_]*[\(\[]\s*([^\)\]]+)\s*[\)\]]$", name)
+    if m:
+        return m.group(1).strip(), m.group(2).strip().lower()
+    if "_" in name:
+        base, unit = name.rsplit("_", 1)
+        return base, unit.lower()
+    return name, ""
+
+
+def _read_text(path: Path, shown: str, sampling_rate_hz: float | None) -> Recording:
+    with open(path, "r", encoding="utf-8", errors="replace") as fh:
+        header = fh.readline()
+        second = fh.readline()
+    if not header.strip():
+        raise UnreadableInputError(f"{shown}: the file is empty")
+    delimiter = "\t" if "\t" in header else ("," if "," in header else None)
+    names = [n.strip() for n in (header.split(delimiter) if delimiter else header.split())]
+    if all(re.fullmatch(r"[-+0-9.eE]+", n or "x") for n in names):
+        raise UnreadableInputError(
+            f"{shown}: no header row; the first line must name each column with its unit, "
+            "e.g. time_s, voltage_mV, current_pA")
+    if not second.strip():
+        raise UnreadableInputError(f"{shown}: a header row but no data rows")
+    roles: dict[str, tuple[int, float]] = {}
+    channels = []
+    for col, raw in enumerate(names):
+        _, unit = _split_unit(raw)
+        role = "ignored"
+        for kind, table in (("time", _SECOND_TO_S), ("voltage", _VOLT_TO_MV),
+                            ("command", _AMP_TO_PA)):
+            if unit in table and kind not in roles:
+                roles[kind] = (col, table[unit])
+                role = kind
+                break
+        channels.append(ChannelInfo(raw, unit or "?", role))
+    if "voltage" not in roles:
+        raise UnreadableInputError(
+            f"{shown}: no voltage column; the header ({', '.join(names)}) must name one with a "
+            "unit suffix such as voltage_mV or voltage_V")
+    try:
+        data = np.loadtxt(path, delimiter=delimiter, skiprows=1, dtype=np.float64, ndmin=2,
+                          comments="#")
+    except ValueError as exc:
+        raise UnreadableInputError(
+            f"{shown}: cannot parse the data rows ({exc}); the file may be truncated or have "
+            "text where numbers belong") from exc
+    if data.shape[1] != len(names):
+        raise UnreadableInputError(
+            f"{shown}: the header names {len(names)} columns but rows have {data.shape[1]}")
+    if data.shape[0] < 3:
+        raise UnreadableInputError(f"{shown}: only {data.shape[0]} data rows")
+    if "time" in roles:
+        col, scale = roles["time"]
+        t = data[:, col] * scale
+        steps = np.diff(t)
+        dt = float(np.median(steps))
+        if not dt > 0 or np.max(np.abs(steps - dt)) > 0.01 * dt:
+            bad = int(np.argmax(np.abs(steps - dt))) + 3  # +1 header, +1 diff, 1-based lines
+            raise UnreadableInputError(
+                f"{shown}: the time column is not evenly spaced (around line {bad}); "
+                "spikemeasure needs a constant sampling rate")
+        rate = 1.0 / dt
+        if sampling_rate_hz is not None and abs(rate - sampling_rate_hz) > 1e-3 * rate:
+            raise UnreadableInputError(
+                f"{shown}: the time column gives {rate:g} Hz but --sampling-rate says "
+                f"{sampling_rate_hz:g} Hz; drop the option or fix the file")
+    elif sampling_rate_hz is not None:
+        rate = float(sampling_rate_hz)
+    else:
+        raise UnreadableInputError(
+            f"{shown}: no time column (such as time_s or time_ms), so the sampling rate is "
+            "unknown; give it with --sampling-rate HZ")
+    v_col, v_scale = roles["voltage"]
+    command = None
+    if "command" in roles:
+        c_col, c_scale = roles["command"]
+        command = data[:, c_col] * c_scale
+    voltage = data[:, v_col] * v_scale
+    sweep = Sweep(voltage_mv=voltage, sampling_rate_hz=rate, command_pa=command, file=shown,
+                  index=0, label="", channel_info=tuple(channels))
+    problems = []
+    if command is not None and _looks_like_command(voltage) and not _looks_like_command(command):
+        raise UnreadableInputError(
+            f"{shown}: this looks like a voltage-clamp recording (the voltage column is a few "
+            "flat command levels); spikemeasure measures current clamp")
+    return Recording(shown, "plain text (numpy, float64)", [sweep], channels, problems)
+
+
+# --------------------------------------------------------------------------- entry points
+
+def read_recording(path: str | os.PathLike, *, shown_as: str | None = None,
+                   sampling_rate_hz: float | None = None) -> Recording:
+    """Read one file into sweeps.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The file.
+    shown_as : str, optional
+        How to name the file in sweeps and messages (default: the path as given).
+    sampling_rate_hz : float, optional
+        For text files without a time column.
+
+    Returns
+    -------
+    Recording
+
+    Raises
+    ------
+    UnreadableInputError
+        The file does not exist, is empty, truncated, of an unknown or unsafe format, or holds
+        no current-clamp voltage. The message names the file and, where it applies, the sweep.
+    """
+    p = Path(path)
+    shown = shown_as if shown_as is not None else str(path)
+    if not p.exists():
+        raise UnreadableInputError(f"{shown}: no such file")
+    if p.is_dir():
+        raise UnreadableInputError(f"{shown}: is a folder; pass it to find_recordings")
+    if p.stat().st_size == 0:
+        raise UnreadableInputError(f"{shown}: the file is empty")
+    if sampling_rate_hz is not None and not sampling_rate_hz > 0:
+        raise UnreadableInputError(f"{shown}: the sampling rate must be positive")
+    _refuse_code_formats(p)
+    suffix = p.suffix.lower()
+    if suffix == ".nwb":
+        return _read_nwb(p, shown)
+    if suffix == ".nix":
+        return _read_nix(p, shown)
+    if suffix in TEXT_SUFFIXES:
+        return _read_text(p, shown, sampling_rate_hz)
+    return _read_other(p, shown)
+
+
+def _folder_suffixes() -> set[str]:
+    import neo.io
+
+    known = {"." + ext.lower() for cls in neo.io.iolist for ext in cls.extensions if ext}
+    return (known - _GENERIC_SUFFIXES) | set(RECORDING_SUFFIXES)
+
+
+def find_recordings(paths, *, exclude: str | os.PathLike | None = None
+                    ) -> list[tuple[Path, str]]:
+    """Expand files and folders into (path, name to show) pairs, in a stable order.
+
+    A file is taken as given and shown by its file name; a folder is searched recursively for
+    files with a recording suffix (hidden files, README files and `exclude`, typically the
+    output folder, are skipped) and each is shown by its path relative to that folder.
+    """
+    found: list[tuple[Path, str]] = []
+    suffixes = None
+    skip = Path(exclude).resolve() if exclude is not None else None
+    for given in paths:
+        g = Path(given)
+        if g.is_dir():
+            suffixes = suffixes or _folder_suffixes()
+            for f in sorted(g.rglob("*")):
+                rel = f.relative_to(g)
+                if any(part.startswith(".") for part in rel.parts) or not f.is_file():
+                    continue
+                if skip is not None and (skip == f.resolve() or skip in f.resolve().parents):
+                    continue
+                if f.name.lower().startswith("readme") or f.suffix.lower() not in suffixes:
+                    continue
+                found.append((f, rel.as_posix()))
+        else:
+            found.append((g, g.name))
+    return found

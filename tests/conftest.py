@@ -1,0 +1,202 @@
+"""Known-answer signals and file writers shared by the tests.
+
+Every signal here has its answer from outside the code under test: a closed form, a
+published model, or a general-purpose library.
+"""
+from __future__ import annotations
+
+import datetime
+from dataclasses import dataclass
+
+import numpy as np
+import pytest
+from scipy.special import lambertw
+
+
+@dataclass(frozen=True)
+class GaussianSpike:
+    """V(t) = base + A exp(-(t - tp)^2 / (2 sigma^2)), t in ms, V in mV (mV/ms = V/s).
+
+    Closed forms, with u = (tp - t) / sigma on the rising side:
+    - dV/dt = (A / sigma) u exp(-u^2 / 2); its maximum A / sigma * exp(-1/2) is at u = 1.
+    - The upward crossing of rate r (before the maximum rate, u > 1) solves
+      u exp(-u^2/2) = r sigma / A, i.e. u^2 = -W_{-1}(-(r sigma / A)^2) (Lambert W, lower branch).
+    - d2V/dt2 = (A / sigma^2) (u^2 - 1) exp(-u^2 / 2) peaks at u = sqrt(3).
+    - Half-width at level L above base: 2 sigma sqrt(2 ln(A / L)).
+    """
+
+    base_mv: float = -65.0
+    amplitude_mv: float = 100.0
+    sigma_ms: float = 0.4
+    peak_ms: float = 10.0
+
+    def voltage(self, t_ms: np.ndarray) -> np.ndarray:
+        return self.base_mv + self.amplitude_mv * np.exp(
+            -(t_ms - self.peak_ms) ** 2 / (2 * self.sigma_ms ** 2))
+
+    def u_at_rate(self, rate_v_per_s: float) -> float:
+        z = -(rate_v_per_s * self.sigma_ms / self.amplitude_mv) ** 2
+        return float(np.sqrt(-lambertw(z, k=-1).real))
+
+    def time_at_u(self, u: float) -> float:
+        return self.peak_ms - u * self.sigma_ms
+
+    def voltage_at_u(self, u: float) -> float:
+        return self.base_mv + self.amplitude_mv * np.exp(-u * u / 2)
+
+    def max_rate(self) -> float:
+        return self.amplitude_mv / self.sigma_ms * np.exp(-0.5)
+
+    def u_at_fraction_of_max_rate(self, fraction: float) -> float:
+        # u exp(-u^2/2) = fraction * exp(-1/2)
+        z = -(fraction * np.exp(-0.5)) ** 2
+        return float(np.sqrt(-lambertw(z, k=-1).real))
+
+    def half_width_ms(self, threshold_mv: float) -> float:
+        peak = self.base_mv + self.amplitude_mv
+        level = threshold_mv + (peak - threshold_mv) / 2 - self.base_mv
+        return 2 * self.sigma_ms * np.sqrt(2 * np.log(self.amplitude_mv / level))
+
+
+def sampled(spike: GaussianSpike, rate_hz: float, duration_ms: float = 20.0,
+            offset_fraction: float = 0.37) -> tuple[np.ndarray, np.ndarray]:
+    """(t_ms, v) on a grid that does not hit the peak sample exactly."""
+    dt = 1e3 / rate_hz
+    t = np.arange(0.0, duration_ms, dt) + offset_fraction * dt
+    return t, spike.voltage(t)
+
+
+def textbook_trace(rate_hz: float = 50_000.0) -> tuple[np.ndarray, dict]:
+    """A spike with the round numbers of common practice: rest -70 mV, threshold -55 mV,
+    peak +30 mV, AHP trough -90 mV.
+
+    Construction (t in ms, V in mV):
+    - a Gaussian of amplitude 100 mV on -70 mV; its 20 V/s crossing lies at -55 mV when
+      exp(-u^2/2) = 0.15 and (100 / sigma) u 0.15 = 20, so u^2 = 2 ln(1/0.15) and
+      sigma = 0.75 u ms;
+    - minus an AHP bump 20 B(t) with B = (s^4) exp(4 (1 - s)), s = (t - tp) / 8 ms, for t > tp
+      only: B and its first three derivatives vanish at the peak, and B reaches 1 at 8 ms
+      after it, where the Gaussian has decayed below 1e-5 mV, so the trough is -90 mV.
+    Answers: threshold -55 mV (onset rate 20 V/s), peak +30 mV, ahp_depth 35 mV.
+    """
+    u = np.sqrt(2 * np.log(1 / 0.15))
+    sigma = 0.75 * u
+    tp = 20.0
+    dt = 1e3 / rate_hz
+    t = np.arange(0.0, 60.0, dt) + 0.41 * dt
+    v = -70.0 + 100.0 * np.exp(-(t - tp) ** 2 / (2 * sigma ** 2))
+    s = np.clip((t - tp) / 8.0, 0.0, None)
+    v -= 20.0 * s ** 4 * np.exp(4 * (1 - s))
+    return v, {"threshold_mv": -55.0, "peak_mv": 30.0, "trough_mv": -90.0,
+               "ahp_depth_mv": 35.0, "threshold_ms": tp - u * sigma, "t0_ms": t[0]}
+
+
+@pytest.fixture
+def gaussian_spike() -> GaussianSpike:
+    return GaussianSpike()
+
+
+# --------------------------------------------------------------------------- file writers
+
+def write_nwb(path, sweeps, *, rate_hz=20_000.0, voltage_unit_scale=1e-3, current_scale=1e-12,
+              voltage_clamp=False, stimulus_offset_s=0.0):
+    """Write sweeps [(voltage_mv, command_pa), ...] with pynwb's intracellular API.
+
+    Data are stored in mV and pA with NWB's `conversion` factors to volts and amperes
+    (`voltage_unit_scale`, `current_scale`), so readers must apply them.
+    """
+    from pynwb import NWBHDF5IO, NWBFile
+    from pynwb.icephys import (CurrentClampSeries, CurrentClampStimulusSeries,
+                               VoltageClampSeries, VoltageClampStimulusSeries)
+
+    nwb = NWBFile(session_description="test cell", identifier="test-cell",
+                  session_start_time=datetime.datetime(2026, 1, 1, tzinfo=datetime.timezone.utc))
+    device = nwb.create_device(name="amplifier")
+    electrode = nwb.create_icephys_electrode(name="electrode", description="test",
+                                             device=device)
+    v_factor = 1e-3 / voltage_unit_scale
+    i_factor = 1e-12 / current_scale
+    for number, (v_mv, i_pa) in enumerate(sweeps):
+        if voltage_clamp:
+            response = VoltageClampSeries(name=f"current_{number}", data=np.asarray(i_pa) * i_factor,
+                                          electrode=electrode, gain=1.0, rate=rate_hz,
+                                          starting_time=float(number), sweep_number=number,
+                                          conversion=current_scale)
+            stimulus = VoltageClampStimulusSeries(
+                name=f"command_{number}", data=np.asarray(v_mv) * v_factor, electrode=electrode,
+                gain=1.0, rate=rate_hz, starting_time=float(number), sweep_number=number,
+                conversion=voltage_unit_scale)
+        else:
+            response = CurrentClampSeries(name=f"voltage_{number}", data=np.asarray(v_mv) * v_factor,
+                                          electrode=electrode, gain=1.0, rate=rate_hz,
+                                          starting_time=float(number), sweep_number=number,
+                                          conversion=voltage_unit_scale)
+            stimulus = CurrentClampStimulusSeries(
+                name=f"command_{number}", data=np.asarray(i_pa) * i_factor, electrode=electrode,
+                gain=1.0, rate=rate_hz, starting_time=float(number) + stimulus_offset_s,
+                sweep_number=number, conversion=current_scale)
+        nwb.add_intracellular_recording(electrode=electrode, stimulus=stimulus, response=response)
+    import warnings
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        with NWBHDF5IO(str(path), "w") as io:
+            io.write(nwb)
+    return path
+
+
+def write_nix(path, sweeps, *, rate_hz=20_000.0, voltage_units="mV", current_units="pA",
+              include_current=True):
+    """Write sweeps [(voltage_mv, command_pa), ...] as NIX through neo, in the given units."""
+    import neo
+    import quantities as pq
+
+    v_scale = float((1 * pq.mV).rescale(voltage_units).magnitude)
+    i_scale = float((1 * pq.pA).rescale(current_units).magnitude)
+    block = neo.Block(name="cell")
+    for number, (v_mv, i_pa) in enumerate(sweeps):
+        segment = neo.Segment(name=f"sweep {number}")
+        segment.analogsignals.append(neo.AnalogSignal(
+            np.asarray(v_mv)[:, None] * v_scale, units=voltage_units,
+            sampling_rate=rate_hz * pq.Hz, name="membrane voltage"))
+        if include_current:
+            segment.analogsignals.append(neo.AnalogSignal(
+                np.asarray(i_pa)[:, None] * i_scale, units=current_units,
+                sampling_rate=rate_hz * pq.Hz, name="command current"))
+        block.segments.append(segment)
+    with neo.io.NixIO(str(path), mode="ow") as io:
+        io.write_block(block)
+    return path
+
+
+def write_text(path, voltage_mv, command_pa=None, *, rate_hz=20_000.0, delimiter="\t",
+               time_unit="s", voltage_unit="mV", current_unit="pA", with_time=True):
+    """Write one sweep as delimited text with unit-suffixed headers."""
+    to_unit = {"s": 1.0, "ms": 1e3, "mV": 1.0, "V": 1e-3, "pA": 1.0, "nA": 1e-3}
+    cols, names = [], []
+    if with_time:
+        names.append(f"time_{time_unit}")
+        cols.append(np.arange(len(voltage_mv)) / rate_hz * to_unit[time_unit])
+    names.append(f"voltage_{voltage_unit}")
+    cols.append(np.asarray(voltage_mv) * to_unit[voltage_unit])
+    if command_pa is not None:
+        names.append(f"current_{current_unit}")
+        cols.append(np.asarray(command_pa) * to_unit[current_unit])
+    np.savetxt(path, np.column_stack(cols), delimiter=delimiter, header=delimiter.join(names),
+               comments="", fmt="%.10g")
+    return path
+
+
+def step_command(n_samples: int, rate_hz: float, amplitude_pa: float, start_s: float = 0.02,
+                 end_s: float = 0.07, holding_pa: float = 0.0) -> np.ndarray:
+    cmd = np.full(n_samples, holding_pa, dtype=float)
+    cmd[int(round(start_s * rate_hz)):int(round(end_s * rate_hz))] += amplitude_pa
+    return cmd
+
+
+def gaussian_train(rate_hz: float, peaks_ms, duration_ms: float, spike: GaussianSpike = GaussianSpike()):
+    """Several Gaussian spikes on a flat base (each far enough from the others)."""
+    t = np.arange(0.0, duration_ms, 1e3 / rate_hz)
+    v = np.full(t.size, spike.base_mv)
+    for p in peaks_ms:
+        v += spike.amplitude_mv * np.exp(-(t - p) ** 2 / (2 * spike.sigma_ms ** 2))
+    return t, v

@@ -1,0 +1,93 @@
+"""Detection: every spike found, none extra, also in recording noise."""
+import numpy as np
+import pytest
+
+from conftest import GaussianSpike, gaussian_train
+from spikemeasure.detection import (DetectionSettings, detect_spikes, smoothed_trace,
+                                    smoothing_window_samples)
+from spikemeasure.errors import InvalidSettingError
+from spikemeasure.measurement import measure_trace
+
+
+class TestSettings:
+    def test_defaults_are_the_documented_ones(self):
+        d = DetectionSettings()
+        assert (d.onset_rate_v_per_s, d.min_rise_mv, d.min_peak_mv, d.peak_window_ms) == (
+            20.0, 20.0, -20.0, 5.0)
+
+    @pytest.mark.parametrize("kwargs, text", [
+        ({"onset_rate_v_per_s": 0}, "onset_rate_v_per_s"),
+        ({"min_rise_mv": -1}, "min_rise_mv"),
+        ({"peak_window_ms": float("nan")}, "peak_window_ms"),
+        ({"threshold_method": "guess"}, "threshold_method"),
+        ({"threshold_fraction": 1.5}, "threshold_fraction"),
+        ({"smoothing_ms": 6.0}, "shorter than"),
+    ])
+    def test_invalid(self, kwargs, text):
+        with pytest.raises(InvalidSettingError, match=text):
+            DetectionSettings(**kwargs)
+
+    def test_window_samples(self):
+        assert smoothing_window_samples(0.1, 50_000) == 5
+        assert smoothing_window_samples(0.1, 10_000) == 3
+        assert smoothing_window_samples(0.2, 100_000) == 21
+
+
+class TestCriteria:
+    """Source: analytic waveforms that meet or miss each criterion by construction."""
+
+    def test_small_fast_event_is_not_a_spike(self):
+        # 15 mV rise at > 20 V/s: fails the 20 mV rise criterion
+        spike = GaussianSpike(amplitude_mv=15.0, sigma_ms=0.2)
+        t = np.arange(0, 20, 0.05)
+        assert len(detect_spikes(smoothed_trace(spike.voltage(t), 20_000.0))) == 0
+
+    def test_spike_that_stays_below_minus_20_is_not_counted(self):
+        spike = GaussianSpike(base_mv=-80.0, amplitude_mv=50.0, sigma_ms=0.3)  # peaks at -30
+        t = np.arange(0, 20, 0.05)
+        tr = smoothed_trace(spike.voltage(t), 20_000.0)
+        assert len(detect_spikes(tr)) == 0
+        assert len(detect_spikes(tr, DetectionSettings(min_peak_mv=-40.0))) == 1
+
+    def test_slow_depolarization_is_not_a_spike(self):
+        # a 60 mV ramp at 25 V/s keeps rising for 2.4 ms > ... but a 10 ms ramp is too slow
+        t = np.arange(0, 30, 0.05)
+        v = -70 + np.clip((t - 5) * 6.0, 0, 60)   # 6 V/s: below the onset rate
+        assert len(detect_spikes(smoothed_trace(v, 20_000.0))) == 0
+        v2 = -70 + 60 / (1 + np.exp(-(t - 15) / 1.5))  # sigmoid, peak rate 10 V/s
+        assert len(detect_spikes(smoothed_trace(v2, 20_000.0))) == 0
+        v3 = -70 + 60 / (1 + np.exp(-(t - 15) / 0.5))  # 30 V/s, but rising for > 5 ms
+        assert len(detect_spikes(smoothed_trace(v3, 20_000.0))) == 0
+
+    def test_train_count(self):
+        peaks = [10.0, 30.0, 36.0, 60.0]
+        t, v = gaussian_train(20_000.0, peaks, 80.0)
+        d = detect_spikes(smoothed_trace(v, 20_000.0))
+        assert len(d) == 4
+
+
+class TestNoise:
+    """0.3 mV white noise at 50 kHz (the level in the issue): no false spikes on a flat trace,
+    thresholds within 1.5 mV of the noise-free values (Source: the noise-free analytic train)."""
+
+    RATE = 50_000.0
+
+    def test_flat_trace_has_no_spikes(self):
+        rng = np.random.default_rng(7)
+        v = -70.0 + rng.normal(0.0, 0.3, int(5 * self.RATE))
+        assert len(measure_trace(v, self.RATE)) == 0
+
+    def test_thresholds_within_1_5_mv(self):
+        rng = np.random.default_rng(11)
+        peaks = list(np.arange(20.0, 400.0, 25.0))
+        t, clean = gaussian_train(self.RATE, peaks, 420.0, GaussianSpike(sigma_ms=0.35))
+        ref = measure_trace(clean, self.RATE)
+        assert len(ref) == len(peaks)
+        for seed in range(3):
+            noisy = clean + np.random.default_rng(seed + 100).normal(0.0, 0.3, clean.size)
+            m = measure_trace(noisy, self.RATE)
+            assert len(m) == len(peaks)
+            assert np.max(np.abs(m.threshold_mv - ref.threshold_mv)) < 1.5
+            np.testing.assert_allclose(m.peak_mv, ref.peak_mv, atol=1.5)
+            np.testing.assert_allclose(m.half_width_ms, ref.half_width_ms, atol=0.05)
+        del rng

@@ -1,0 +1,198 @@
+"""Spike measurements against closed forms, scipy, and the round numbers of common practice."""
+import numpy as np
+import pytest
+from scipy.signal import peak_widths
+
+from conftest import GaussianSpike, gaussian_train, sampled, textbook_trace
+from spikemeasure.detection import DetectionSettings, detect_spikes, smoothed_trace
+from spikemeasure.errors import InvalidSettingError
+from spikemeasure.measurement import half_widths, interpolated_peaks, measure_trace
+from spikemeasure.sweeps import CurrentStep
+
+RATES = [10_000.0, 20_000.0, 50_000.0, 100_000.0]
+
+
+class TestAnalyticGaussianSpike:
+    """Source: closed forms of a Gaussian waveform (derivations in conftest.GaussianSpike)."""
+
+    @pytest.mark.parametrize("rate", RATES)
+    def test_threshold_peak_half_width_within_one_percent(self, gaussian_spike, rate):
+        t, v = sampled(gaussian_spike, rate)
+        m = measure_trace(v, rate)
+        assert len(m) == 1
+        u = gaussian_spike.u_at_rate(20.0)
+        thr_ms = gaussian_spike.time_at_u(u)
+        thr_mv = gaussian_spike.voltage_at_u(u)
+        dt_ms = 1e3 / rate
+        # threshold time: within one sample interval of the closed form (the smoothing and
+        # linear interpolation error), threshold voltage within 1 % of the amplitude
+        assert abs(m.threshold_s[0] * 1e3 + t[0] - thr_ms) < dt_ms
+        assert abs(m.threshold_mv[0] - thr_mv) < 0.01 * gaussian_spike.amplitude_mv
+        peak = gaussian_spike.base_mv + gaussian_spike.amplitude_mv
+        assert m.peak_mv[0] == pytest.approx(peak, rel=0.01)
+        assert m.peak_s[0] * 1e3 + t[0] == pytest.approx(gaussian_spike.peak_ms, abs=dt_ms / 2)
+        expected_width = gaussian_spike.half_width_ms(m.threshold_mv[0])
+        assert m.half_width_ms[0] == pytest.approx(expected_width, rel=0.01)
+        assert m.amplitude_mv[0] == pytest.approx(m.peak_mv[0] - m.threshold_mv[0])
+        assert m.rise_time_ms[0] == pytest.approx((m.peak_s[0] - m.threshold_s[0]) * 1e3)
+
+    @pytest.mark.parametrize("rate", [20_000.0, 50_000.0, 100_000.0])
+    def test_max_and_min_rate(self, gaussian_spike, rate):
+        t, v = sampled(gaussian_spike, rate)
+        m = measure_trace(v, rate)
+        # closed form: +-A/sigma*exp(-1/2); Savitzky-Golay bias below 1 % at these rates
+        assert m.max_dvdt_v_per_s[0] == pytest.approx(gaussian_spike.max_rate(), rel=0.01)
+        assert m.min_dvdt_v_per_s[0] == pytest.approx(-gaussian_spike.max_rate(), rel=0.01)
+
+    def test_peak_between_samples_at_10_khz(self):
+        # A 0.15 ms wide spike sampled at 10 kHz: the largest sample misses the peak by up to
+        # 5 mV; the interpolated peak must come within 1 % of the amplitude of the closed form.
+        spike = GaussianSpike(sigma_ms=0.15)
+        t, v = sampled(spike, 10_000.0, offset_fraction=0.5)
+        true_peak = spike.base_mv + spike.amplitude_mv
+        assert true_peak - v.max() > 1.0
+        idx, value, edge = interpolated_peaks(v, np.array([int(np.argmax(v))]))
+        assert value[0] == pytest.approx(true_peak, abs=0.01 * spike.amplitude_mv)
+        assert not edge[0]
+
+    @pytest.mark.parametrize("rate", [20_000.0, 50_000.0])
+    def test_max_rate_fraction_threshold(self, gaussian_spike, rate):
+        t, v = sampled(gaussian_spike, rate)
+        s = DetectionSettings(threshold_method="max_rate_fraction", threshold_fraction=0.1)
+        m = measure_trace(v, rate, s)
+        u = gaussian_spike.u_at_fraction_of_max_rate(0.1)
+        assert m.threshold_s[0] * 1e3 + t[0] == pytest.approx(gaussian_spike.time_at_u(u),
+                                                              abs=1e3 / rate)
+        assert m.threshold_mv[0] == pytest.approx(gaussian_spike.voltage_at_u(u), abs=0.5)
+
+    @pytest.mark.parametrize("rate", [20_000.0, 50_000.0])
+    def test_second_derivative_peak_threshold(self, gaussian_spike, rate):
+        t, v = sampled(gaussian_spike, rate)
+        m = measure_trace(v, rate, DetectionSettings(threshold_method="second_derivative_peak"))
+        u = np.sqrt(3.0)  # closed form: d2V/dt2 of a Gaussian peaks at u = sqrt(3)
+        assert m.threshold_s[0] * 1e3 + t[0] == pytest.approx(gaussian_spike.time_at_u(u),
+                                                              abs=1e3 / rate)
+        assert m.threshold_mv[0] == pytest.approx(gaussian_spike.voltage_at_u(u), abs=1.0)
+
+
+class TestHalfWidthAgainstScipy:
+    """Source: scipy.signal.peak_widths, which interpolates crossings linearly as we do."""
+
+    @pytest.mark.parametrize("rate", RATES)
+    @pytest.mark.parametrize("sigma", [0.2, 0.5])
+    def test_same_level_same_width(self, rate, sigma):
+        spike = GaussianSpike(sigma_ms=sigma, base_mv=-60.0, amplitude_mv=90.0)
+        t, v = sampled(spike, rate)
+        p = int(np.argmax(v))
+        threshold_mv = -50.0
+        level = threshold_mv + (v[p] - threshold_mv) / 2
+        # peak_widths measures at x[peak] - prominence * rel_height: give it our level
+        prominence = 2 * (v[p] - level)
+        ref = peak_widths(v, [p], rel_height=0.5,
+                          prominence_data=(np.array([prominence]), np.array([0]),
+                                           np.array([v.size - 1])))
+        width, up, down, _ = half_widths(v, rate, np.array([0.0]), np.array([threshold_mv]),
+                                         np.array([p]), np.array([v[p]]), np.array([v.size]))
+        assert width[0] == pytest.approx(ref[0][0] / rate * 1e3, rel=1e-9)
+        assert up[0] == pytest.approx(ref[2][0], rel=1e-9)
+        assert down[0] == pytest.approx(ref[3][0], rel=1e-9)
+
+
+class TestTextbookSpike:
+    """Source: the round figures of common practice (rest -70 mV, threshold -55 mV,
+    peak +30 mV, AHP to -90 mV), built into a smooth trace (conftest.textbook_trace)."""
+
+    @pytest.mark.parametrize("rate", [20_000.0, 50_000.0])
+    def test_threshold_peak_and_ahp(self, rate):
+        v, answer = textbook_trace(rate)
+        m = measure_trace(v, rate)
+        assert len(m) == 1
+        assert m.threshold_mv[0] == pytest.approx(answer["threshold_mv"], abs=0.1)
+        assert m.peak_mv[0] == pytest.approx(answer["peak_mv"], abs=0.05)
+        assert m.trough_mv[0] == pytest.approx(answer["trough_mv"], abs=0.05)
+        assert m.ahp_depth_mv[0] == pytest.approx(answer["ahp_depth_mv"], abs=0.15)
+        assert m.flags[0] == ()
+
+
+class TestTrainsAndTroughs:
+    """Source: a train of Gaussians with known peak times (closed-form intervals)."""
+
+    def test_isi_and_counts(self):
+        rate = 20_000.0
+        peaks = [20.0, 45.0, 75.0, 110.0]
+        t, v = gaussian_train(rate, peaks, 150.0)
+        m = measure_trace(v, rate)
+        assert len(m) == 4
+        assert np.isnan(m.isi_ms[0])
+        # equal shapes: threshold-to-threshold intervals equal peak-to-peak ones
+        np.testing.assert_allclose(m.isi_ms[1:], np.diff(peaks), atol=1e3 / rate)
+        np.testing.assert_allclose(m.peak_s * 1e3, peaks, atol=0.5e3 / rate)
+
+    def test_last_spike_trough_stops_at_step_end(self):
+        rate = 20_000.0
+        t, v = gaussian_train(rate, [20.0], 100.0)
+        v = v.copy()
+        # a smooth 10 mV dip after the step ends must not count as the AHP
+        v -= 5.0 * (1 + np.tanh((t - 70.0) / 2.0))
+        inside = measure_trace(v, rate, step=CurrentStep(onset_s=0.01, offset_s=0.05))
+        assert inside.trough_s[0] < 0.05
+        assert inside.trough_mv[0] > -66.0
+        whole = measure_trace(v, rate)
+        assert whole.trough_mv[0] == pytest.approx(-75.0, abs=0.01)
+
+
+class TestFlags:
+    def test_trace_ends_before_repolarization(self):
+        rate = 20_000.0
+        spike = GaussianSpike(peak_ms=10.0)
+        # ends 0.3 ms after the peak, still above half amplitude (closed form: 100 exp(-u^2/2)
+        # with u = 0.75 gives +10.5 mV, above the -13.5 mV half level)
+        t = np.arange(0.0, 10.3, 1e3 / rate)
+        m = measure_trace(spike.voltage(t), rate)
+        assert len(m) == 1
+        assert "no_repolarization" in m.flags[0]
+        assert np.isnan(m.half_width_ms[0]) and np.isnan(m.trough_mv[0])
+        assert np.isnan(m.ahp_depth_mv[0]) and np.isnan(m.min_dvdt_v_per_s[0])
+        assert np.isfinite(m.peak_mv[0]) and np.isfinite(m.threshold_mv[0])
+
+    def test_too_few_samples_across_spike(self):
+        # a 0.1 ms sigma spike at 10 kHz: ~2 samples above half amplitude
+        spike = GaussianSpike(sigma_ms=0.1)
+        t, v = sampled(spike, 10_000.0, offset_fraction=0.5)
+        m = measure_trace(v, 10_000.0)
+        assert len(m) == 1
+        assert "too_few_samples_across_spike" in m.flags[0]
+        assert np.isnan(m.half_width_ms[0])
+        relaxed = measure_trace(v, 10_000.0, DetectionSettings(min_samples_across_width=1))
+        assert np.isfinite(relaxed.half_width_ms[0])
+
+    def test_no_spikes_gives_empty_arrays(self):
+        m = measure_trace(np.full(1000, -70.0), 20_000.0)
+        assert len(m) == 0
+        assert m.threshold_mv.shape == (0,) and m.flags == ()
+
+    def test_rejects_nan(self):
+        v = np.full(1000, -70.0)
+        v[10] = np.nan
+        with pytest.raises(InvalidSettingError, match="NaN"):
+            measure_trace(v, 20_000.0)
+
+
+def test_smoothing_is_zero_phase():
+    """Source: a Savitzky-Golay filter is exact for polynomials up to its order
+    (Savitzky & Golay 1964), so the derivative of a quadratic is exact and unshifted."""
+    rate = 20_000.0
+    t_ms = np.arange(2000) / rate * 1e3
+    v = 3.0 * t_ms ** 2 - 2.0 * t_ms - 60.0
+    tr = smoothed_trace(v, rate, 0.3)
+    np.testing.assert_allclose(tr.dvdt_v_per_s, 6.0 * t_ms - 2.0, atol=1e-6)
+    np.testing.assert_allclose(tr.d2vdt2_v_per_s2, 6.0e3, rtol=1e-6)
+    np.testing.assert_allclose(tr.smooth_mv, v, atol=1e-8)
+
+
+def test_detected_indices_are_aligned(gaussian_spike):
+    t, v = sampled(gaussian_spike, 20_000.0)
+    tr = smoothed_trace(v, 20_000.0)
+    d = detect_spikes(tr)
+    assert d.onset_index.shape == d.peak_index.shape == (1,)
+    assert tr.dvdt_v_per_s[d.onset_index[0]] >= 20.0 > tr.dvdt_v_per_s[d.onset_index[0] - 1]

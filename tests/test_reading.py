@@ -1,0 +1,205 @@
+"""Reading NWB, NIX and text files into sweeps, and refusing what cannot be read."""
+import pickle
+
+import numpy as np
+import pytest
+
+from conftest import gaussian_train, step_command, write_nix, write_nwb, write_text
+from spikemeasure.errors import UnreadableInputError
+from spikemeasure.reading import find_recordings, read_recording
+from spikemeasure.tables import measure_recording, spike_table
+
+RATE = 20_000.0
+
+
+def _sweeps(n=3, n_samples=2000):
+    """Distinct sweeps: sweep k has a (k + 1) * 10 pA step and k spikes."""
+    out = []
+    for k in range(n):
+        _, v = gaussian_train(RATE, [25.0 + 15.0 * j for j in range(k)], n_samples / RATE * 1e3)
+        out.append((v, step_command(n_samples, RATE, (k + 1) * 10.0, 0.02, 0.08, -5.0)))
+    return out
+
+
+class TestNWB:
+    """Source: files written in the test with pynwb's intracellular API (the NWB standard)."""
+
+    def test_sweeps_paired_with_their_own_stimulus(self, tmp_path):
+        sweeps = _sweeps()
+        rec = read_recording(write_nwb(tmp_path / "cell.nwb", sweeps, rate_hz=RATE))
+        assert len(rec.sweeps) == 3
+        for k, s in enumerate(rec.sweeps):
+            assert s.index == k
+            assert s.sampling_rate_hz == pytest.approx(RATE)
+            np.testing.assert_allclose(s.voltage_mv, sweeps[k][0], rtol=1e-6, atol=1e-4)
+            np.testing.assert_allclose(s.command_pa, sweeps[k][1], atol=1e-3)
+        results = measure_recording(rec)
+        assert [len(r.spikes) for r in results] == [0, 1, 2]
+        assert [round(r.step.size_pa) for r in results] == [10, 20, 30]
+        assert [round(r.step.holding_pa) for r in results] == [-5, -5, -5]
+
+    def test_sweep_number_order_not_name_order(self, tmp_path):
+        # twelve sweeps: names sort as 0, 1, 10, 11, 2 ... but sweep numbers are 0..11
+        sweeps = _sweeps(12, 1200)
+        rec = read_recording(write_nwb(tmp_path / "cell.nwb", sweeps, rate_hz=RATE))
+        sizes = [round(measure_recording(rec)[k].step.size_pa) for k in range(12)]
+        assert sizes == [10 * (k + 1) for k in range(12)]
+
+    def test_units_volts_and_millivolts_picoamps_and_nanoamps_agree(self, tmp_path):
+        sweeps = _sweeps()
+        a = write_nwb(tmp_path / "mv_pa.nwb", sweeps, rate_hz=RATE)
+        b = write_nwb(tmp_path / "v_na.nwb", sweeps, rate_hz=RATE, voltage_unit_scale=1.0,
+                      current_scale=1e-9)
+        ta = spike_table(measure_recording(read_recording(a)))
+        tb = spike_table(measure_recording(read_recording(b)))
+        for name in ("threshold_mv", "peak_mv", "half_width_ms", "trough_mv"):
+            np.testing.assert_allclose(ta[name], tb[name], rtol=1e-5, atol=1e-4)
+
+    def test_voltage_clamp_is_refused(self, tmp_path):
+        path = write_nwb(tmp_path / "vc.nwb", _sweeps(1), rate_hz=RATE, voltage_clamp=True)
+        with pytest.raises(UnreadableInputError, match=r"vc\.nwb: a voltage-clamp recording"):
+            read_recording(path)
+
+    def test_truncated_file(self, tmp_path):
+        path = write_nwb(tmp_path / "cell.nwb", _sweeps(), rate_hz=RATE)
+        data = path.read_bytes()
+        path.write_bytes(data[: len(data) // 3])
+        with pytest.raises(UnreadableInputError, match=r"cell\.nwb: cannot be read as NWB"):
+            read_recording(path)
+
+    def test_not_hdf5(self, tmp_path):
+        path = tmp_path / "fake.nwb"
+        path.write_text("not a recording")
+        with pytest.raises(UnreadableInputError, match="HDF5 signature"):
+            read_recording(path)
+
+
+class TestNIX:
+    """Source: files written with neo's NixIO (the NIX open format)."""
+
+    def test_one_sweep_per_segment_any_units(self, tmp_path):
+        sweeps = _sweeps()
+        a = read_recording(write_nix(tmp_path / "a.nix", sweeps, rate_hz=RATE))
+        b = read_recording(write_nix(tmp_path / "b.nix", sweeps, rate_hz=RATE,
+                                     voltage_units="V", current_units="nA"))
+        assert len(a.sweeps) == len(b.sweeps) == 3
+        for sa, sb, (v, i) in zip(a.sweeps, b.sweeps, sweeps):
+            np.testing.assert_allclose(sa.voltage_mv, v, rtol=1e-12)
+            np.testing.assert_allclose(sb.voltage_mv, v, rtol=1e-12)
+            np.testing.assert_allclose(sb.command_pa, i, rtol=1e-12, atol=1e-9)
+        assert [c.role for c in a.channels] == ["voltage", "command"]
+
+    def test_no_voltage_channel(self, tmp_path):
+        import neo
+        import quantities as pq
+
+        block = neo.Block()
+        seg = neo.Segment()
+        seg.analogsignals.append(neo.AnalogSignal(np.zeros((100, 1)), units="pA",
+                                                  sampling_rate=RATE * pq.Hz, name="current"))
+        block.segments.append(seg)
+        path = tmp_path / "current_only.nix"
+        with neo.io.NixIO(str(path), mode="ow") as io:
+            io.write_block(block)
+        with pytest.raises(UnreadableInputError,
+                           match=r"current_only\.nix, sweep 0: no channel in volts"):
+            read_recording(path)
+
+
+class TestText:
+    """Source: numpy.savetxt files with unit-suffixed headers."""
+
+    def test_tab_and_comma_and_units(self, tmp_path):
+        (v, i), = _sweeps(1)
+        a = read_recording(write_text(tmp_path / "a.tsv", v, i, rate_hz=RATE))
+        b = read_recording(write_text(tmp_path / "b.csv", v, i, rate_hz=RATE, delimiter=",",
+                                      time_unit="ms", voltage_unit="V", current_unit="nA"))
+        for rec in (a, b):
+            s, = rec.sweeps
+            assert s.sampling_rate_hz == pytest.approx(RATE, rel=1e-6)
+            np.testing.assert_allclose(s.voltage_mv, v, rtol=1e-8)
+            np.testing.assert_allclose(s.command_pa, i, atol=1e-6)
+            assert s.voltage_mv.dtype == np.float64
+
+    def test_without_time_needs_rate(self, tmp_path):
+        (v, i), = _sweeps(1)
+        path = write_text(tmp_path / "no_time.txt", v, i, with_time=False)
+        with pytest.raises(UnreadableInputError, match="--sampling-rate"):
+            read_recording(path)
+        rec = read_recording(path, sampling_rate_hz=RATE)
+        assert rec.sweeps[0].sampling_rate_hz == RATE
+
+    def test_no_header(self, tmp_path):
+        path = tmp_path / "bare.txt"
+        path.write_text("0\t-70\n0.00005\t-70\n0.0001\t-70\n")
+        with pytest.raises(UnreadableInputError, match="no header row"):
+            read_recording(path)
+
+    def test_truncated_rows(self, tmp_path):
+        path = tmp_path / "cut.txt"
+        path.write_text("time_s\tvoltage_mV\n0\t-70\n0.00005\t-70\n0.0001\n")
+        with pytest.raises(UnreadableInputError, match=r"cut\.txt: cannot parse the data rows"):
+            read_recording(path)
+
+    def test_uneven_time(self, tmp_path):
+        path = tmp_path / "uneven.txt"
+        path.write_text("time_s,voltage_mV\n0,-70\n0.001,-70\n0.002,-70\n0.005,-70\n")
+        with pytest.raises(UnreadableInputError, match="not evenly spaced"):
+            read_recording(path)
+
+    def test_no_voltage_column(self, tmp_path):
+        path = tmp_path / "current.csv"
+        path.write_text("time_s,current_pA\n0,0\n0.001,0\n0.002,0\n")
+        with pytest.raises(UnreadableInputError, match="no voltage column"):
+            read_recording(path)
+
+
+class TestRefusals:
+    def test_empty_file(self, tmp_path):
+        for name in ("empty.nwb", "empty.txt", "empty.nix"):
+            (tmp_path / name).write_bytes(b"")
+            with pytest.raises(UnreadableInputError, match=rf"{name}: the file is empty"):
+                read_recording(tmp_path / name)
+
+    def test_missing_file(self, tmp_path):
+        with pytest.raises(UnreadableInputError, match="no such file"):
+            read_recording(tmp_path / "absent.nwb")
+
+    def test_pickle_by_suffix_and_by_content(self, tmp_path):
+        marker = tmp_path / "ran"
+        payload = pickle.dumps({"voltage": [1, 2, 3]})
+        (tmp_path / "data.pkl").write_bytes(payload)
+        (tmp_path / "data.txt").write_bytes(payload)
+        for name in ("data.pkl", "data.txt"):
+            with pytest.raises(UnreadableInputError, match="pickle"):
+                read_recording(tmp_path / name)
+        assert not marker.exists()
+
+    def test_unknown_suffix(self, tmp_path):
+        path = tmp_path / "cell.unknownformat"
+        path.write_text("x")
+        with pytest.raises(UnreadableInputError, match="no reader"):
+            read_recording(path)
+
+    def test_neo_pickle_reader_refused_by_source_check(self):
+        import neo.io
+        from spikemeasure.reading import _reader_runs_file_content
+
+        assert _reader_runs_file_content(neo.io.PickleIO)
+        assert not _reader_runs_file_content(neo.io.NixIO)
+
+
+def test_find_recordings_relative_names_and_skips(tmp_path):
+    (v, i), = _sweeps(1)
+    (tmp_path / "cells" / "a").mkdir(parents=True)
+    write_text(tmp_path / "cells" / "a" / "one.txt", v, i)
+    write_text(tmp_path / "cells" / "two.csv", v, i, delimiter=",")
+    (tmp_path / "cells" / "README.txt").write_text("notes")
+    (tmp_path / "cells" / "notes.md").write_text("notes")
+    (tmp_path / "cells" / ".hidden.txt").write_text("x")
+    (tmp_path / "cells" / "out").mkdir()
+    write_text(tmp_path / "cells" / "out" / "old.txt", v, i)
+    found = find_recordings([tmp_path / "cells"], exclude=tmp_path / "cells" / "out")
+    assert [name for _, name in found] == ["a/one.txt", "two.csv"]
+    single = find_recordings([tmp_path / "cells" / "two.csv"])
+    assert [name for _, name in single] == ["two.csv"]
