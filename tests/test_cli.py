@@ -1,0 +1,136 @@
+"""The command line: messages and exit codes as a user meets them."""
+import csv
+import hashlib
+import json
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+
+from conftest import gaussian_train, step_command, write_nix, write_nwb, write_text
+from spikemeasure.cli import main
+from spikemeasure.columns import spike_column_names
+
+RATE = 20_000.0
+
+
+@pytest.fixture
+def folder(tmp_path):
+    """Two good cells (3 and 2 spikes), a truncated NWB file, and a NaN sweep."""
+    d = tmp_path / "cells"
+    (d / "region_a").mkdir(parents=True)
+    _, v = gaussian_train(RATE, [30.0, 50.0, 70.0], 100.0)
+    cmd = step_command(v.size, RATE, 100.0, 0.02, 0.08)
+    write_nwb(d / "region_a" / "good.nwb", [(np.full(v.size, -65.0), cmd * 0), (v, cmd)],
+              rate_hz=RATE)
+    _, v2 = gaussian_train(RATE, [30.0, 60.0], 100.0)
+    bad_sweep = v2.copy()
+    bad_sweep[500:700] = np.nan
+    write_nix(d / "good.nix", [(v2, cmd), (bad_sweep, cmd)], rate_hz=RATE)
+    truncated = d / "broken.nwb"
+    data = (d / "region_a" / "good.nwb").read_bytes()
+    truncated.write_bytes(data[: len(data) // 4])
+    return d
+
+
+def run(args):
+    return CliRunner().invoke(main, args)
+
+
+def test_measure_folder_reports_failures_and_goes_on(folder, tmp_path):
+    out = tmp_path / "results"
+    r = run(["measure", str(folder), "--out", str(out)])
+    assert r.exit_code == 3, r.output
+    assert "broken.nwb: cannot be read as NWB" in r.output
+    assert "good.nix, sweep 1" in r.output and "NaN" in r.output
+    assert "Traceback" not in r.output
+    with open(out / "spikes.csv", newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    assert list(rows[0].keys()) == spike_column_names()
+    files = [(row["file"], row["sweep"], row["spike"]) for row in rows]
+    assert files == [("good.nix", "0", "0"), ("good.nix", "0", "1"),
+                     ("region_a/good.nwb", "1", "0"), ("region_a/good.nwb", "1", "1"),
+                     ("region_a/good.nwb", "1", "2")]
+    assert rows[0]["isi_ms"] == "" and float(rows[1]["isi_ms"]) == pytest.approx(30.0, abs=0.1)
+    record = json.loads((out / "run.json").read_text())
+    assert record["versions"]["neo"] and record["versions"]["numpy"]
+    assert record["parameters"]["onset_rate_v_per_s"] == 20.0
+    by_name = {i["file"]: i for i in record["inputs"]}
+    good = folder / "region_a" / "good.nwb"
+    assert by_name["region_a/good.nwb"]["sha256"] == hashlib.sha256(good.read_bytes()).hexdigest()
+    assert by_name["region_a/good.nwb"]["size_bytes"] == good.stat().st_size
+    assert by_name["broken.nwb"]["status"] == "failed"
+    messages = [f["message"] for f in record["failures"]]
+    assert any("broken.nwb" in m for m in messages)
+    assert any(f["file"] == "good.nix" and f["sweep"] == 1 for f in record["failures"])
+    assert not list(out.glob(".*.part"))
+
+
+def test_nothing_measured_exits_1(tmp_path):
+    bad = tmp_path / "empty.nwb"
+    bad.write_bytes(b"")
+    r = run(["measure", str(bad), "--out", str(tmp_path / "out")])
+    assert r.exit_code == 1
+    assert "empty.nwb: the file is empty" in r.output
+    assert "nothing could be measured" in r.output
+    assert "Traceback" not in r.output
+
+
+def test_missing_path_is_reported(tmp_path):
+    r = run(["measure", str(tmp_path / "nowhere"), "--out", str(tmp_path / "out")])
+    assert r.exit_code == 1
+    assert "nowhere: no such file or folder" in r.output
+
+
+def test_usage_errors_exit_2(tmp_path):
+    assert run(["measure", "--out", str(tmp_path)]).exit_code == 2
+    r = run(["measure", str(tmp_path), "--out", str(tmp_path / "o"), "--onset-rate", "-3"])
+    assert r.exit_code == 2 and "--onset-rate" in r.output
+    r = run(["measure", str(tmp_path), "--out", str(tmp_path / "o"),
+             "--threshold-method", "guess"])
+    assert r.exit_code == 2
+
+
+def test_inspect(folder):
+    r = run(["inspect", str(folder / "region_a" / "good.nwb")])
+    assert r.exit_code == 0, r.output
+    assert "NWB" in r.output and "20 kHz" in r.output
+    # stored in mV and pA with NWB conversion factors, as neo reports them
+    assert "[mV] as voltage" in r.output and "[pA] as command" in r.output
+    lines = [ln.split() for ln in r.output.splitlines() if ln.strip().startswith(("0 ", "1 "))]
+    assert lines[0][-1] == "0" or "no current step" in " ".join(lines[0])
+    assert "100.0" in lines[1] and lines[1][-1] == "3"
+    assert "2 of 2 sweeps measured, 3 spikes" in r.output
+
+
+def test_inspect_bad_file_and_debug(folder):
+    r = run(["inspect", str(folder / "broken.nwb")])
+    assert r.exit_code == 1
+    assert r.output.startswith("Error: ") and "broken.nwb" in r.output
+    r = CliRunner().invoke(main, ["--debug", "inspect", str(folder / "broken.nwb")])
+    assert r.exit_code == 1 and r.exception is not None  # the traceback is kept
+
+
+def test_text_without_time_and_step_option(tmp_path):
+    _, v = gaussian_train(RATE, [30.0, 50.0], 100.0)
+    path = write_text(tmp_path / "cell.txt", v, with_time=False)
+    r = run(["measure", str(path), "--out", str(tmp_path / "o")])
+    assert r.exit_code == 1 and "--sampling-rate" in r.output
+    r = run(["measure", str(path), "--out", str(tmp_path / "o"), "--sampling-rate", "20000",
+             "--step", "0.02", "0.04"])
+    assert r.exit_code == 0, r.output
+    with open(tmp_path / "o" / "spikes.csv", newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    assert len(rows) == 2
+    # the last spike lies after the step, so its trough is searched to the sweep's end
+    assert float(rows[1]["trough_s"]) > 0.05
+
+
+def test_columns_command():
+    r = run(["columns"])
+    assert r.exit_code == 0 and "half_width_ms" in r.output
+
+
+def test_help_mentions_caution():
+    r = run(["--help"])
+    assert "qualified person" in r.output and "clinical" in r.output
