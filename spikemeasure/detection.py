@@ -85,19 +85,24 @@ class DetectionSettings:
     def as_dict(self) -> dict:
         return asdict(self)
 
+    @property
+    def needs_second_derivative(self) -> bool:
+        return self.threshold_method == "second_derivative_peak"
+
 
 @dataclass(frozen=True)
 class SmoothedTrace:
     """A voltage trace with its zero-phase smoothed version and derivatives.
 
     ``voltage_mv`` is the raw trace; ``smooth_mv``, ``dvdt_v_per_s`` and ``d2vdt2_v_per_s2``
-    come from one Savitzky-Golay fit of ``window`` samples. (mV/ms equals V/s.)
+    come from one Savitzky-Golay fit of ``window`` samples (mV/ms equals V/s);
+    ``d2vdt2_v_per_s2`` is None unless it was asked for.
     """
 
     voltage_mv: np.ndarray
     smooth_mv: np.ndarray
     dvdt_v_per_s: np.ndarray
-    d2vdt2_v_per_s2: np.ndarray
+    d2vdt2_v_per_s2: np.ndarray | None
     sampling_rate_hz: float
     window: int
 
@@ -130,7 +135,8 @@ def smoothing_window_samples(smoothing_ms: float, sampling_rate_hz: float) -> in
 
 
 def smoothed_trace(voltage_mv: np.ndarray, sampling_rate_hz: float,
-                   smoothing_ms: float = 0.1) -> SmoothedTrace:
+                   smoothing_ms: float = 0.1, *, second_derivative: bool = False
+                   ) -> SmoothedTrace:
     """Smooth a voltage trace and take its first and second time derivatives.
 
     Parameters
@@ -141,6 +147,8 @@ def smoothed_trace(voltage_mv: np.ndarray, sampling_rate_hz: float,
         Samples per second.
     smoothing_ms : float, optional
         Window length in ms, default 0.1 (rounded to an odd number of samples, at least 3).
+    second_derivative : bool, optional
+        Also compute d2V/dt2 (needed only by the ``second_derivative_peak`` threshold).
 
     Returns
     -------
@@ -178,7 +186,7 @@ def smoothed_trace(voltage_mv: np.ndarray, sampling_rate_hz: float,
     smooth = savgol_filter(v, **kwargs)
     dvdt = savgol_filter(v, deriv=1, delta=dt_ms, **kwargs)
     # d2V/dt2 in mV/ms^2 is 1e3 V/s^2
-    d2 = savgol_filter(v, deriv=2, delta=dt_ms, **kwargs) * 1e3
+    d2 = savgol_filter(v, deriv=2, delta=dt_ms, **kwargs) * 1e3 if second_derivative else None
     return SmoothedTrace(v, smooth, dvdt, d2, float(sampling_rate_hz), window)
 
 
@@ -187,11 +195,21 @@ def _upward_crossings(x: np.ndarray, level: float) -> np.ndarray:
     return np.flatnonzero((x[:-1] < level) & (x[1:] >= level)) + 1
 
 
-def _forward_max(x: np.ndarray, width: int) -> np.ndarray:
-    """out[i] = max(x[i : i + width]) (shorter at the end)."""
-    # maximum_filter1d centres the window at i - origin; shifting by -(width // 2) makes it
-    # start at i (the last windows are padded with the edge value, which is in the window).
-    return maximum_filter1d(x, size=width, origin=-(width // 2), mode="nearest")
+def _forward_max_at(x: np.ndarray, starts: np.ndarray, width: int,
+                    chunk_elements: int = 4_000_000) -> np.ndarray:
+    """max(x[i : i + width]) for each i in `starts` (shorter windows at the end of x)."""
+    if starts.size * width > 4 * x.size:
+        # many candidates (a low onset rate in noise): one running maximum over the trace is
+        # cheaper; maximum_filter1d centres its window at i - origin, so shift it to start at i
+        full = maximum_filter1d(x, size=width, origin=-(width // 2), mode="nearest")
+        return full[starts]
+    out = np.empty(starts.size, dtype=x.dtype)
+    offsets = np.arange(width)
+    step = max(1, chunk_elements // width)
+    for lo in range(0, starts.size, step):
+        idx = np.minimum(starts[lo:lo + step, None] + offsets, x.size - 1)
+        out[lo:lo + step] = x[idx].max(axis=1)
+    return out
 
 
 def detect_spikes(trace: SmoothedTrace, settings: DetectionSettings = DetectionSettings()
@@ -233,7 +251,7 @@ def detect_spikes(trace: SmoothedTrace, settings: DetectionSettings = DetectionS
     crossings = _upward_crossings(dvdt, settings.onset_rate_v_per_s)
     if crossings.size == 0:
         return empty
-    reach = _forward_max(v, window + 1)[crossings]
+    reach = _forward_max_at(v, crossings, window + 1)
     base = trace.smooth_mv[crossings]
     keep = (reach - base >= settings.min_rise_mv) & (reach > settings.min_peak_mv)
     crossings = crossings[keep]

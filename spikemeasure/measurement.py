@@ -92,23 +92,54 @@ def _vertex(x: np.ndarray, i: int) -> tuple[float, float]:
     return i + delta, b - 0.25 * (a - c) * delta
 
 
-def _spline_peak(x: np.ndarray, i: int, half: int = 3) -> tuple[float, float]:
-    """Maximum near sample i of the cubic spline through samples i-half .. i+half.
+_SPLINE_HALF = 3
+_SPLINE_STEPS = 400
+_spline_weights_cache: list[np.ndarray] = []
 
-    Returns (fractional index, value), searched within one sample of i; falls back to the
-    parabola vertex when fewer than 5 samples are available.
+
+def _spline_weights() -> np.ndarray:
+    """Weights W (steps+1, 7): W @ y is the not-a-knot cubic spline through samples y[-3..3]
+    (unit spacing) evaluated on a fine grid from -1 to +1 sample.
+
+    The spline is linear in the samples, so the weights are the splines of the unit vectors.
     """
-    lo, hi = max(0, i - half), min(x.size, i + half + 1)
-    if hi - lo < 5 or i <= 0 or i >= x.size - 1:
-        return _vertex(x, i)
-    grid = np.arange(lo, hi, dtype=float)
-    spline = CubicSpline(grid, x[lo:hi])
-    candidates = [float(i - 1), float(i), float(i + 1)]
-    candidates += [r for r in spline.derivative().roots(extrapolate=False)
-                   if i - 1 <= r <= i + 1]
-    values = spline(np.asarray(candidates))
-    best = int(np.argmax(values))
-    return candidates[best], float(values[best])
+    if not _spline_weights_cache:
+        nodes = np.arange(-_SPLINE_HALF, _SPLINE_HALF + 1, dtype=float)
+        grid = np.linspace(-1.0, 1.0, _SPLINE_STEPS + 1)
+        eye = np.eye(nodes.size)
+        _spline_weights_cache.append(
+            np.stack([CubicSpline(nodes, eye[k])(grid) for k in range(nodes.size)], axis=1))
+    return _spline_weights_cache[0]
+
+
+def _spline_peaks(x: np.ndarray, index: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Maxima near samples `index` of the cubic splines through each index +- 3 samples.
+
+    Vectorized over spikes: each spline is evaluated on a grid of 1/200 sample within one
+    sample of its index, and the best grid point is refined with a parabola. Indices too close
+    to an end of `x` fall back to the 3-point parabola.
+    """
+    index = np.asarray(index, dtype=np.int64)
+    frac = index.astype(float)
+    value = x[index].astype(float) if index.size else np.zeros(0)
+    inner = (index >= _SPLINE_HALF) & (index < x.size - _SPLINE_HALF)
+    for k in np.flatnonzero(~inner):
+        frac[k], value[k] = _vertex(x, int(index[k]))
+    if inner.any():
+        offsets = np.arange(-_SPLINE_HALF, _SPLINE_HALF + 1)
+        samples = x[index[inner, None] + offsets]            # (n, 7)
+        curve = samples @ _spline_weights().T                # (n, steps + 1)
+        best = np.clip(np.argmax(curve, axis=1), 1, _SPLINE_STEPS - 1)
+        rows = np.arange(best.size)
+        a, b, c = curve[rows, best - 1], curve[rows, best], curve[rows, best + 1]
+        curvature = a - 2 * b + c
+        with np.errstate(divide="ignore", invalid="ignore"):
+            delta = np.where(curvature < 0, 0.5 * (a - c) / curvature, 0.0)
+        delta = np.clip(delta, -0.5, 0.5)
+        step = 2.0 / _SPLINE_STEPS
+        frac[inner] = index[inner] - 1.0 + (best + delta) * step
+        value[inner] = b - 0.25 * (a - c) * delta
+    return frac, value
 
 
 def _last_upward_crossing(x: np.ndarray, level: float, lo: int, hi: int) -> float:
@@ -170,6 +201,9 @@ def spike_thresholds(trace: SmoothedTrace, detected: DetectedSpikes,
        IEEE Trans. Biomed. Eng. 51(9):1665-1672, 2004.
     """
     dvdt, d2 = trace.dvdt_v_per_s, trace.d2vdt2_v_per_s2
+    if settings.needs_second_derivative and d2 is None:
+        raise InvalidSettingError("the second_derivative_peak threshold needs a trace made with "
+                                  "smoothed_trace(..., second_derivative=True)")
     n_spikes = len(detected)
     index = np.full(n_spikes, np.nan)
     one_ms = max(1, int(round(1e-3 * trace.sampling_rate_hz)))
@@ -223,9 +257,7 @@ def interpolated_peaks(voltage_mv: np.ndarray, peak_index: np.ndarray
     10 kHz the largest sample is up to 5.4 mV low, a 3-point parabola 1.2 mV, this spline
     0.3 mV.
     """
-    out = [_spline_peak(voltage_mv, int(p)) for p in peak_index]
-    index = np.array([o[0] for o in out], dtype=float)
-    value = np.array([o[1] for o in out], dtype=float)
+    index, value = _spline_peaks(voltage_mv, peak_index)
     at_edge = (peak_index <= 0) | (peak_index >= voltage_mv.size - 1)
     return index, value, at_edge
 
@@ -324,9 +356,11 @@ def extreme_rates(dvdt: np.ndarray, start_index: np.ndarray, stop_index: np.ndar
         a, b = int(np.floor(start_index[k])), int(np.ceil(stop_index[k]))
         if b < a:
             continue
-        seg = sign * dvdt[a:b + 1]
-        j = a + int(np.argmax(seg))
-        out[k] = sign * _vertex(sign * dvdt, j)[1] if a < j < b else dvdt[j]
+        j = a + int(np.argmax(sign * dvdt[a:b + 1]))
+        if a < j < b:
+            out[k] = sign * _vertex(sign * dvdt[j - 1:j + 2], 1)[1]
+        else:
+            out[k] = dvdt[j]
     return out
 
 
@@ -452,5 +486,6 @@ def measure_trace(voltage_mv: np.ndarray, sampling_rate_hz: float,
         raise InvalidSettingError("`voltage_mv` must be a 1-D array")
     if not np.all(np.isfinite(v)):
         raise InvalidSettingError("`voltage_mv` contains NaN or infinite samples")
-    trace = smoothed_trace(v, sampling_rate_hz, settings.smoothing_ms)
+    trace = smoothed_trace(v, sampling_rate_hz, settings.smoothing_ms,
+                           second_derivative=settings.needs_second_derivative)
     return measure_spikes(trace, detect_spikes(trace, settings), settings, step)

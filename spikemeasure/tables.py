@@ -4,7 +4,6 @@ Nothing here reads or writes files; :mod:`spikemeasure.output` writes the tables
 """
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
 from .columns import SPIKE_COLUMNS, Column
@@ -45,7 +44,8 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
     try:
         check_sweep(sweep)
         step = sweep_step(sweep, step_times)
-        trace = smoothed_trace(sweep.voltage_mv, sweep.sampling_rate_hz, settings.smoothing_ms)
+        trace = smoothed_trace(sweep.voltage_mv, sweep.sampling_rate_hz, settings.smoothing_ms,
+                               second_derivative=settings.needs_second_derivative)
     except SpikemeasureError as exc:
         msg = str(exc)
         if not msg.startswith(sweep.file):
@@ -80,24 +80,31 @@ def spike_table(results: list[SweepResult]) -> dict[str, list]:
 
 
 def format_value(column: Column, value) -> str:
-    """Text of one CSV cell: empty for a missing value, fixed decimals for numbers."""
-    if value is None:
-        return ""
+    """Text of one CSV cell: empty for a missing value, fixed decimals for numbers, no '-0'."""
+    return _format_column(column, [value])[0]
+
+
+def _format_column(column: Column, values: list) -> list[str]:
     if column.decimals is None:
-        return str(value)
-    value = float(value)
-    if math.isnan(value) or math.isinf(value):
-        return ""
-    text = f"{value:.{column.decimals}f}"
-    return "0." + "0" * column.decimals if text.startswith("-") and float(text) == 0 else text
+        return ["" if v is None else str(v) for v in values]
+    spec = f".{column.decimals}f"
+    zero = format(0.0, spec)
+    out = []
+    for v in values:
+        v = float(v)
+        if v != v or v in (float("inf"), float("-inf")):
+            out.append("")
+        else:
+            text = format(v, spec)
+            out.append(zero if text == "-" + zero else text)
+    return out
 
 
 def format_rows(table: dict[str, list], columns: tuple[Column, ...] = SPIKE_COLUMNS
                 ) -> list[list[str]]:
-    """The table as rows of text cells, header excluded."""
-    n = len(table[columns[0].name]) if columns else 0
-    cols = [(c, table[c.name]) for c in columns]
-    return [[format_value(c, values[i]) for c, values in cols] for i in range(n)]
+    """The table as rows of text cells (see :func:`format_value`), header excluded."""
+    formatted = [_format_column(c, table[c.name]) for c in columns]
+    return [list(row) for row in zip(*formatted)]
 
 
 def count_spikes(results: list[SweepResult]) -> int:

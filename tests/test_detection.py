@@ -91,3 +91,15 @@ class TestNoise:
             np.testing.assert_allclose(m.peak_mv, ref.peak_mv, atol=1.5)
             np.testing.assert_allclose(m.half_width_ms, ref.half_width_ms, atol=0.05)
         del rng
+
+
+def test_forward_max_paths_agree():
+    """Source: numpy's max over explicit windows, for both the gather and running-max paths."""
+    from spikemeasure.detection import _forward_max_at
+
+    x = np.random.default_rng(0).normal(size=5000)
+    starts = np.array([0, 17, 4990, 4999])
+    expected = [x[i:i + 25].max() for i in starts]
+    np.testing.assert_array_equal(_forward_max_at(x, starts, 25), expected)
+    many = np.arange(0, 5000, 2)
+    np.testing.assert_array_equal(_forward_max_at(x, many, 25), [x[i:i + 25].max() for i in many])

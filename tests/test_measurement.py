@@ -184,7 +184,7 @@ def test_smoothing_is_zero_phase():
     rate = 20_000.0
     t_ms = np.arange(2000) / rate * 1e3
     v = 3.0 * t_ms ** 2 - 2.0 * t_ms - 60.0
-    tr = smoothed_trace(v, rate, 0.3)
+    tr = smoothed_trace(v, rate, 0.3, second_derivative=True)
     np.testing.assert_allclose(tr.dvdt_v_per_s, 6.0 * t_ms - 2.0, atol=1e-6)
     np.testing.assert_allclose(tr.d2vdt2_v_per_s2, 6.0e3, rtol=1e-6)
     np.testing.assert_allclose(tr.smooth_mv, v, atol=1e-8)
