@@ -66,30 +66,141 @@ class SpikeMeasurements:
         return out
 
 
-def _interp(x: np.ndarray, frac_index: float) -> float:
-    """Linear interpolation of x at a fractional sample index."""
-    i = int(np.floor(frac_index))
-    if i >= x.size - 1:
-        return float(x[-1])
-    w = frac_index - i
-    return float(x[i] + w * (x[i + 1] - x[i]))
+_GATHER_CAP = 256           # spans longer than this are searched one by one
+_GATHER_ELEMENTS = 2_000_000  # samples gathered at once, to bound memory
+_FIRST_BELOW_HEAD = 128     # a spike falls through half amplitude within this many samples
 
 
-def _vertex(x: np.ndarray, i: int) -> tuple[float, float]:
-    """Sub-sample extremum of x near sample i: the vertex of the parabola through i-1, i, i+1.
+def _interp_many(x: np.ndarray, frac_index: np.ndarray) -> np.ndarray:
+    """Linear interpolation of x at fractional indices (NaN stays NaN)."""
+    frac_index = np.asarray(frac_index, dtype=float)
+    out = np.full(frac_index.shape, np.nan)
+    ok = np.isfinite(frac_index)
+    if ok.any():
+        f = np.clip(frac_index[ok], 0, x.size - 1)
+        i = np.minimum(np.floor(f).astype(np.int64), x.size - 2) if x.size > 1 else np.zeros(
+            f.size, dtype=np.int64)
+        nxt = np.minimum(i + 1, x.size - 1)
+        out[ok] = x[i] + (f - i) * (x[nxt] - x[i])
+    return out
 
-    Returns (fractional index, value); falls back to the sample itself at the edges or when
-    the three points are collinear.
+
+def _vertices(x: np.ndarray, index: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Sub-sample extrema near integer indices: the vertex of the parabola through i-1, i, i+1.
+
+    Returns (fractional indices, values), the vertex kept within half a sample of i; the
+    sample itself at the ends of x or where the three points are collinear.
     """
-    if i <= 0 or i >= x.size - 1:
-        return float(i), float(x[i])
-    a, b, c = float(x[i - 1]), float(x[i]), float(x[i + 1])
-    curvature = a - 2.0 * b + c
-    if curvature == 0.0:
-        return float(i), b
-    delta = 0.5 * (a - c) / curvature
-    delta = min(0.5, max(-0.5, delta))
-    return i + delta, b - 0.25 * (a - c) * delta
+    index = np.asarray(index, dtype=np.int64)
+    frac = index.astype(float)
+    value = x[index].astype(float) if index.size else np.zeros(0)
+    inner = (index > 0) & (index < x.size - 1)
+    if inner.any():
+        i = index[inner]
+        a, b, c = x[i - 1], x[i], x[i + 1]
+        curvature = a - 2.0 * b + c
+        with np.errstate(divide="ignore", invalid="ignore"):
+            delta = np.where(curvature != 0.0, 0.5 * (a - c) / curvature, 0.0)
+        delta = np.clip(delta, -0.5, 0.5)
+        frac[inner] = i + delta
+        value[inner] = b - 0.25 * (a - c) * delta
+    return frac, value
+
+
+def _span_blocks(lo: np.ndarray, length: np.ndarray):
+    """Yield (rows, offsets-matrix validity, index matrix) for spans lo .. lo+length-1 that are
+    at most _GATHER_CAP long, in blocks of bounded size."""
+    rows = np.flatnonzero((length > 0) & (length <= _GATHER_CAP))
+    if rows.size == 0:
+        return
+    width = int(length[rows].max())
+    offsets = np.arange(width)
+    per_block = max(1, _GATHER_ELEMENTS // width)
+    for start in range(0, rows.size, per_block):
+        r = rows[start:start + per_block]
+        yield r, offsets[None, :] < length[r, None], lo[r, None] + offsets[None, :]
+
+
+def _span_argmax(x: np.ndarray, lo: np.ndarray, hi: np.ndarray, largest: bool = True
+                 ) -> np.ndarray:
+    """Index of the largest (or smallest) x in each inclusive span [lo, hi]; -1 if empty.
+
+    Short spans are gathered into one array; long ones (where gathering would move more memory
+    than a loop costs in calls) are searched one by one.
+    """
+    lo = np.asarray(lo, dtype=np.int64)
+    hi = np.minimum(np.asarray(hi, dtype=np.int64), x.size - 1)
+    length = hi - lo + 1
+    out = np.full(lo.size, -1, dtype=np.int64)
+    for r, valid, idx in _span_blocks(lo, length):
+        vals = x[np.minimum(idx, x.size - 1)]
+        if largest:
+            out[r] = lo[r] + np.argmax(np.where(valid, vals, -np.inf), axis=1)
+        else:
+            out[r] = lo[r] + np.argmin(np.where(valid, vals, np.inf), axis=1)
+    pick = np.argmax if largest else np.argmin
+    for k in np.flatnonzero(length > _GATHER_CAP):
+        out[k] = lo[k] + int(pick(x[lo[k]:hi[k] + 1]))
+    return out
+
+
+def _first_below(x: np.ndarray, level: np.ndarray, lo: np.ndarray, hi: np.ndarray
+                 ) -> np.ndarray:
+    """First index j in [lo, hi) with x[j] < level, per span; -1 where there is none.
+
+    Searches the first _FIRST_BELOW_HEAD samples of every span at once, then the rest of the few
+    spans not settled there one by one.
+    """
+    lo = np.asarray(lo, dtype=np.int64)
+    hi = np.minimum(np.asarray(hi, dtype=np.int64), x.size)
+    length = np.clip(hi - lo, 0, None)
+    out = np.full(lo.size, -1, dtype=np.int64)
+    head = np.minimum(length, _FIRST_BELOW_HEAD)
+    for r, valid, idx in _span_blocks(lo, head):
+        below = valid & (x[np.minimum(idx, x.size - 1)] < level[r, None])
+        hit = below.any(axis=1)
+        out[r[hit]] = lo[r[hit]] + np.argmax(below[hit], axis=1)
+    for k in np.flatnonzero((out < 0) & (length > _FIRST_BELOW_HEAD)):
+        rest = np.flatnonzero(x[lo[k] + _FIRST_BELOW_HEAD:hi[k]] < level[k])
+        if rest.size:
+            out[k] = lo[k] + _FIRST_BELOW_HEAD + int(rest[0])
+    return out
+
+
+def _last_below(x: np.ndarray, level: np.ndarray, lo: np.ndarray, hi: np.ndarray
+                ) -> np.ndarray:
+    """Last index j in [lo, hi) with x[j] < level, per span (spans <= _GATHER_CAP long are
+    vectorized, longer ones searched one by one); -1 where there is none."""
+    lo = np.asarray(lo, dtype=np.int64)
+    hi = np.minimum(np.asarray(hi, dtype=np.int64), x.size)
+    length = np.clip(hi - lo, 0, None)
+    out = np.full(lo.size, -1, dtype=np.int64)
+    for r, valid, idx in _span_blocks(lo, length):
+        below = valid & (x[np.minimum(idx, x.size - 1)] < level[r, None])
+        hit = below.any(axis=1)
+        last = below.shape[1] - 1 - np.argmax(below[:, ::-1], axis=1)
+        out[r[hit]] = lo[r[hit]] + last[hit]
+    for k in np.flatnonzero(length > _GATHER_CAP):
+        found = np.flatnonzero(x[lo[k]:hi[k]] < level[k])
+        if found.size:
+            out[k] = lo[k] + int(found[-1])
+    return out
+
+
+def _upward_crossings_before(x: np.ndarray, level: np.ndarray, lo: np.ndarray, hi: np.ndarray
+                             ) -> np.ndarray:
+    """Fractional index of the last upward crossing of `level` by x within [lo, hi], NaN where
+    there is none: j = the last sample below the level, then linear interpolation to j + 1."""
+    j = _last_below(x, level, lo, hi)
+    out = np.full(lo.size, np.nan)
+    ok = (j >= 0) & (j + 1 <= np.asarray(hi)) & (j + 1 < x.size)
+    if ok.any():
+        jj = j[ok]
+        nxt = x[jj + 1]
+        ok_rise = nxt >= level[ok]
+        frac = jj + (level[ok] - x[jj]) / np.where(nxt != x[jj], nxt - x[jj], 1.0)
+        out[np.flatnonzero(ok)[ok_rise]] = frac[ok_rise]
+    return out
 
 
 _SPLINE_HALF = 3
@@ -117,14 +228,14 @@ def _spline_peaks(x: np.ndarray, index: np.ndarray) -> tuple[np.ndarray, np.ndar
 
     Vectorized over spikes: each spline is evaluated on a grid of 1/200 sample within one
     sample of its index, and the best grid point is refined with a parabola. Indices too close
-    to an end of `x` fall back to the 3-point parabola.
+    to an end of `x` fall back to the 3-point parabola (:func:`_vertices`).
     """
     index = np.asarray(index, dtype=np.int64)
     frac = index.astype(float)
     value = x[index].astype(float) if index.size else np.zeros(0)
     inner = (index >= _SPLINE_HALF) & (index < x.size - _SPLINE_HALF)
-    for k in np.flatnonzero(~inner):
-        frac[k], value[k] = _vertex(x, int(index[k]))
+    if (~inner).any():
+        frac[~inner], value[~inner] = _vertices(x, index[~inner])
     if inner.any():
         offsets = np.arange(-_SPLINE_HALF, _SPLINE_HALF + 1)
         samples = x[index[inner, None] + offsets]            # (n, 7)
@@ -140,24 +251,6 @@ def _spline_peaks(x: np.ndarray, index: np.ndarray) -> tuple[np.ndarray, np.ndar
         frac[inner] = index[inner] - 1.0 + (best + delta) * step
         value[inner] = b - 0.25 * (a - c) * delta
     return frac, value
-
-
-def _last_upward_crossing(x: np.ndarray, level: float, lo: int, hi: int) -> float:
-    """Fractional index of the last upward crossing of `level` by x in [lo, hi], or NaN.
-
-    The crossing lies between samples j-1 and j with x[j-1] < level <= x[j].
-    """
-    lo = max(lo, 0)
-    if hi <= lo:
-        return float("nan")
-    below = np.flatnonzero(x[lo:hi] < level)
-    if below.size == 0:
-        return float("nan")
-    j0 = lo + int(below[-1])
-    j = j0 + 1
-    if j > hi or j >= x.size or x[j] < level:
-        return float("nan")
-    return j0 + (level - x[j0]) / (x[j] - x[j0])
 
 
 def spike_thresholds(trace: SmoothedTrace, detected: DetectedSpikes,
@@ -204,28 +297,23 @@ def spike_thresholds(trace: SmoothedTrace, detected: DetectedSpikes,
     if settings.needs_second_derivative and d2 is None:
         raise InvalidSettingError("the second_derivative_peak threshold needs a trace made with "
                                   "smoothed_trace(..., second_derivative=True)")
-    n_spikes = len(detected)
-    index = np.full(n_spikes, np.nan)
-    one_ms = max(1, int(round(1e-3 * trace.sampling_rate_hz)))
-    for k, (onset, peak) in enumerate(zip(detected.onset_index.tolist(),
-                                          detected.peak_index.tolist())):
-        floor = int(detected.peak_index[k - 1]) + 1 if k > 0 else 0
-        method = settings.threshold_method
-        if method == "onset_rate":
-            a, b = dvdt[onset - 1], dvdt[onset]
-            level = settings.onset_rate_v_per_s
-            index[k] = (onset - 1) + (level - a) / (b - a) if onset >= 1 and b != a else onset
-            continue
-        top = onset + int(np.argmax(dvdt[onset:peak + 1]))
+    onset, peak = detected.onset_index, detected.peak_index
+    floor = np.concatenate([[0], peak[:-1] + 1]) if peak.size else peak
+    method = settings.threshold_method
+    if method == "onset_rate":
+        # the detector guarantees dvdt[onset - 1] < rate <= dvdt[onset]
+        a, b = dvdt[onset - 1], dvdt[onset]
+        index = (onset - 1) + (settings.onset_rate_v_per_s - a) / (b - a)
+    else:
+        top = _span_argmax(dvdt, onset, peak)
         if method == "max_rate_fraction":
             level = settings.threshold_fraction * dvdt[top]
-            index[k] = _last_upward_crossing(dvdt, level, floor, top)
+            index = _upward_crossings_before(dvdt, level, floor, top)
         else:  # second_derivative_peak
-            lo = max(floor, onset - one_ms)
-            j = lo + int(np.argmax(d2[lo:top + 1]))
-            index[k] = _vertex(d2, j)[0]
-    voltage = np.array([_interp(trace.smooth_mv, i) if np.isfinite(i) else np.nan for i in index])
-    return index, voltage
+            one_ms = max(1, int(round(1e-3 * trace.sampling_rate_hz)))
+            lo = np.maximum(floor, onset - one_ms)
+            index = _vertices(d2, _span_argmax(d2, lo, top))[0]
+    return index, _interp_many(trace.smooth_mv, index)
 
 
 def interpolated_peaks(voltage_mv: np.ndarray, peak_index: np.ndarray
@@ -296,25 +384,27 @@ def half_widths(voltage_mv: np.ndarray, sampling_rate_hz: float, threshold_index
     last one before the peak, the downward crossing the first one after it; each is linearly
     interpolated between the samples either side, as ``scipy.signal.peak_widths`` does.
     """
+    peak_index = np.asarray(peak_index, dtype=np.int64)
     n = peak_index.size
     width = np.full(n, np.nan)
     up = np.full(n, np.nan)
     down = np.full(n, np.nan)
     above = np.zeros(n, dtype=np.int64)
+    ok = np.isfinite(threshold_mv) & np.isfinite(threshold_index)
+    if not ok.any():
+        return width, up, down, above
     v = voltage_mv
-    for k in range(n):
-        if not (np.isfinite(threshold_mv[k]) and np.isfinite(threshold_index[k])):
-            continue
-        level = threshold_mv[k] + 0.5 * (peak_mv[k] - threshold_mv[k])
-        p = int(peak_index[k])
-        up[k] = _last_upward_crossing(v, level, int(np.floor(threshold_index[k])), p)
-        after = np.flatnonzero(v[p:int(end_index[k])] < level)
-        if after.size:
-            j = p + int(after[0])
-            down[k] = (j - 1) + (v[j - 1] - level) / (v[j - 1] - v[j])
-        if np.isfinite(up[k]) and np.isfinite(down[k]):
-            width[k] = (down[k] - up[k]) / sampling_rate_hz * 1e3
-            above[k] = int(np.floor(down[k]) - np.ceil(up[k]) + 1)
+    level = threshold_mv + 0.5 * (peak_mv - threshold_mv)
+    k = np.flatnonzero(ok)
+    p = peak_index[k]
+    up[k] = _upward_crossings_before(v, level[k], np.floor(threshold_index[k]).astype(np.int64), p)
+    j = _first_below(v, level[k], p, np.asarray(end_index, dtype=np.int64)[k])
+    found = j > 0
+    jj = j[found]
+    down[k[found]] = (jj - 1) + (v[jj - 1] - level[k][found]) / (v[jj - 1] - v[jj])
+    both = np.isfinite(up) & np.isfinite(down)
+    width[both] = (down[both] - up[both]) / sampling_rate_hz * 1e3
+    above[both] = (np.floor(down[both]) - np.ceil(up[both]) + 1).astype(np.int64)
     return width, up, down, above
 
 
@@ -326,18 +416,19 @@ def troughs(smooth_mv: np.ndarray, peak_index: np.ndarray, end_index: np.ndarray
     lies inside the span. The smoothed trace is used so that recording noise does not pull the
     minimum down.
     """
-    n = peak_index.size
-    index = np.full(n, np.nan)
-    value = np.full(n, np.nan)
-    for k in range(n):
-        p, e = int(peak_index[k]), int(end_index[k])
-        if e <= p + 1:
-            continue
-        j = p + int(np.argmin(smooth_mv[p:e]))
-        if p < j < e - 1:
-            index[k], value[k] = _vertex(smooth_mv, j)
-        else:
-            index[k], value[k] = float(j), float(smooth_mv[j])
+    peak_index = np.asarray(peak_index, dtype=np.int64)
+    end_index = np.asarray(end_index, dtype=np.int64)
+    index = np.full(peak_index.size, np.nan)
+    value = np.full(peak_index.size, np.nan)
+    ok = end_index > peak_index + 1
+    if not ok.any():
+        return index, value
+    p, e = peak_index[ok], end_index[ok]
+    j = _span_argmax(smooth_mv, p, e - 1, largest=False)
+    inside = (j > p) & (j < e - 1)
+    frac, val = _vertices(smooth_mv, j)
+    index[ok] = np.where(inside, frac, j)
+    value[ok] = np.where(inside, val, smooth_mv[j])
     return index, value
 
 
@@ -347,20 +438,19 @@ def extreme_rates(dvdt: np.ndarray, start_index: np.ndarray, stop_index: np.ndar
 
     NaN where a bound is NaN or the span is empty.
     """
-    n = start_index.size
-    out = np.full(n, np.nan)
-    sign = 1.0 if largest else -1.0
-    for k in range(n):
-        if not (np.isfinite(start_index[k]) and np.isfinite(stop_index[k])):
-            continue
-        a, b = int(np.floor(start_index[k])), int(np.ceil(stop_index[k]))
-        if b < a:
-            continue
-        j = a + int(np.argmax(sign * dvdt[a:b + 1]))
-        if a < j < b:
-            out[k] = sign * _vertex(sign * dvdt[j - 1:j + 2], 1)[1]
-        else:
-            out[k] = dvdt[j]
+    out = np.full(np.asarray(start_index).size, np.nan)
+    ok = np.isfinite(start_index) & np.isfinite(stop_index)
+    if not ok.any():
+        return out
+    a = np.floor(np.asarray(start_index)[ok]).astype(np.int64)
+    b = np.ceil(np.asarray(stop_index)[ok]).astype(np.int64)
+    j = _span_argmax(dvdt, a, b, largest)
+    good = j >= 0
+    safe = np.where(good, j, 0)
+    inside = good & (j > a) & (j < b)
+    refined = _vertices(dvdt, safe)[1]  # the parabola vertex is a max or a min alike
+    result = np.where(inside, refined, dvdt[safe])
+    out[np.flatnonzero(ok)] = np.where(good, result, np.nan)
     return out
 
 
