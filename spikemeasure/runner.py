@@ -18,7 +18,7 @@ from .detection import DetectionSettings
 from .errors import SpikemeasureError
 from .output import write_json, write_table_csv
 from .reading import find_recordings, read_recording
-from .tables import count_spikes, measure_recording, spike_table
+from .tables import count_spikes, flag_counts, measure_recording, spike_table
 
 __all__ = ["RunSummary", "measure_paths", "file_sha256", "SPIKES_FILE", "RUN_RECORD_FILE"]
 
@@ -131,8 +131,9 @@ def measure_paths(paths: list[str], out_dir: str | Path,
                 summary.failures.append({"file": shown, "sweep": r.sweep.index,
                                          "message": r.error})
         n_spikes = count_spikes(results)
+        flagged = flag_counts(results)
         entry.update(format=recording.format, sweeps=len(recording.sweeps),
-                     sweeps_measured=len(measured), spikes=n_spikes,
+                     sweeps_measured=len(measured), spikes=n_spikes, spike_flags=flagged,
                      status="measured" if measured else "failed")
         summary.inputs.append(entry)
         if measured:
@@ -141,8 +142,10 @@ def measure_paths(paths: list[str], out_dir: str | Path,
             summary.spikes += n_spikes
         all_results.extend(results)
         skipped = len(results) - len(measured) + len(recording.problems)
+        notes = [f"{skipped} sweeps skipped"] if skipped else []
+        notes += [f"{count} spikes {flag}" for flag, count in sorted(flagged.items())]
         say(f"measured {shown}: {len(measured)} sweeps, {n_spikes} spikes"
-            + (f" ({skipped} sweeps skipped)" if skipped else ""))
+            + (f" ({'; '.join(notes)})" if notes else ""))
     record = {
         "tool": "spikemeasure",
         "versions": _versions(),

@@ -13,7 +13,11 @@ from scipy.ndimage import median_filter
 
 from .errors import InvalidSettingError, UnmeasurableDataError
 
-__all__ = ["Sweep", "CurrentStep", "find_current_step", "step_from_times", "check_sweep"]
+__all__ = ["Sweep", "CurrentStep", "find_current_step", "step_from_times", "check_sweep",
+           "MIN_SAMPLING_RATE_HZ"]
+
+#: Below this an action potential (about 1 ms) spans two samples or fewer: not measurable.
+MIN_SAMPLING_RATE_HZ = 2_000.0
 
 
 @dataclass(frozen=True)
@@ -86,10 +90,15 @@ class Sweep:
 def check_sweep(sweep: Sweep) -> None:
     """Raise :class:`UnmeasurableDataError` if a sweep cannot be measured at all.
 
-    Catches NaN or infinite samples (reporting the stretch), traces too short to hold a spike,
-    and a command channel whose length differs from the voltage.
+    Catches a sampling rate below :data:`MIN_SAMPLING_RATE_HZ`, NaN or infinite samples
+    (reporting the stretch), traces too short to hold a spike, and a command channel whose
+    length differs from the voltage.
     """
     v = sweep.voltage_mv
+    if not sweep.sampling_rate_hz >= MIN_SAMPLING_RATE_HZ:
+        raise UnmeasurableDataError(
+            f"{sweep.where()}: sampled at {sweep.sampling_rate_hz:g} Hz, too slow to resolve "
+            f"action potentials (at least {MIN_SAMPLING_RATE_HZ:g} Hz; 10 kHz or more is usual)")
     if v.ndim != 1 or v.size < 3:
         raise UnmeasurableDataError(
             f"{sweep.where()}: only {v.size} voltage samples; a sweep needs at least 3")

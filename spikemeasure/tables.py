@@ -14,7 +14,7 @@ from .reading import Recording
 from .sweeps import CurrentStep, Sweep, check_sweep, find_current_step, step_from_times
 
 __all__ = ["SweepResult", "measure_sweep", "measure_recording", "spike_table", "format_value",
-           "format_rows", "count_spikes", "sweep_errors", "sweep_step"]
+           "format_rows", "count_spikes", "flag_counts", "sweep_errors", "sweep_step"]
 
 
 @dataclass(frozen=True)
@@ -109,6 +109,18 @@ def format_rows(table: dict[str, list], columns: tuple[Column, ...] = SPIKE_COLU
 
 def count_spikes(results: list[SweepResult]) -> int:
     return int(sum(len(r.spikes) for r in results if r.spikes is not None))
+
+
+def flag_counts(results: list[SweepResult]) -> dict[str, int]:
+    """How many spikes carry each flag."""
+    counts: dict[str, int] = {}
+    for r in results:
+        if r.spikes is None:
+            continue
+        for flags in r.spikes.flags:
+            for f in flags:
+                counts[f] = counts.get(f, 0) + 1
+    return counts
 
 
 def sweep_errors(results: list[SweepResult]) -> list[str]:

@@ -134,3 +134,18 @@ def test_columns_command():
 def test_help_mentions_caution():
     r = run(["--help"])
     assert "qualified person" in r.output and "clinical" in r.output
+
+
+def test_coarse_sampling_is_said_per_spike(tmp_path):
+    """A narrow spike at 10 kHz: the flag is in the CSV and in the progress line."""
+    from conftest import GaussianSpike, sampled
+
+    _, v = sampled(GaussianSpike(sigma_ms=0.1), 10_000.0, duration_ms=40.0, offset_fraction=0.5)
+    path = write_text(tmp_path / "fast.txt", v, rate_hz=10_000.0)
+    r = run(["measure", str(path), "--out", str(tmp_path / "o")])
+    assert r.exit_code == 0, r.output
+    assert "1 spikes too_few_samples_across_spike" in r.output
+    with open(tmp_path / "o" / "spikes.csv", newline="") as fh:
+        row, = list(csv.DictReader(fh))
+    assert row["half_width_ms"] == "" and row["flags"] == "too_few_samples_across_spike"
+    assert row["peak_mv"] != ""

@@ -66,3 +66,8 @@ class TestCheckSweep:
     def test_command_length_mismatch(self):
         with pytest.raises(UnmeasurableDataError, match="command has 10 samples"):
             check_sweep(Sweep(np.zeros(20), RATE, command_pa=np.zeros(10), file="x.txt"))
+
+
+def test_too_slow_sampling_is_refused():
+    with pytest.raises(UnmeasurableDataError, match=r"x\.txt, sweep 0: sampled at 1000 Hz"):
+        check_sweep(Sweep(np.zeros(100), 1000.0, file="x.txt"))
