@@ -67,7 +67,9 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
            "between samples with a parabola.", 3),
     Column("trough_s", "s", "Time of the minimum of the smoothed voltage after the peak and "
            "before the next spike's threshold; for a sweep's last spike, up to the end of the "
-           "current step when the spike lies inside one, else to the end of the sweep.", 7),
+           "current step when the spike lies inside one, else to the end of the sweep. (A last "
+           "spike that falls through half amplitude only after the step ends is searched to the "
+           "end of the sweep and flagged `trough_after_step_end`.)", 7),
     Column("trough_mv", "mV", "Smoothed voltage at trough_s.", 4),
     Column("ahp_depth_mv", "mV", "Depth of the afterhyperpolarization: threshold_mv - trough_mv "
            "(positive when the trough lies below threshold).", 4),

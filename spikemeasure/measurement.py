@@ -30,6 +30,8 @@ FLAG_TEXT = {
     "no_repolarization": "the voltage does not fall back below half amplitude before the next "
                          "spike or the end of the search span (often: the trace ends first); "
                          "half-width, trough, AHP and fall rate are empty",
+    "trough_after_step_end": "the sweep's last spike repolarized only after the current step "
+                             "ended, so its trough was searched to the end of the sweep",
     "too_few_samples_across_spike": "fewer samples than `min_samples_across_width` lie above the "
                                     "half-amplitude level: the sampling rate is too low to "
                                     "measure the width, which is left empty",
@@ -509,7 +511,9 @@ def measure_spikes(trace: SmoothedTrace, detected: DetectedSpikes,
     - half-width: :func:`half_widths`; rise time = peak time - threshold time.
     - max dV/dt: the largest smoothed dV/dt from threshold to peak; min dV/dt: the most negative
       from peak to trough (each refined between samples with a parabola).
-    - trough: :func:`troughs`, searched up to :func:`search_ends`; AHP depth = threshold - trough.
+    - trough: :func:`troughs`, searched up to :func:`search_ends` (to the end of the sweep
+      instead when the last spike repolarizes only after the step ends); AHP depth =
+      threshold - trough.
     - ISI: threshold time minus the previous spike's threshold time.
     """
     rate = trace.sampling_rate_hz
@@ -517,10 +521,14 @@ def measure_spikes(trace: SmoothedTrace, detected: DetectedSpikes,
     v = trace.voltage_mv
     thr_i, thr_mv = spike_thresholds(trace, detected, settings)
     peak_i, peak_mv, at_edge = interpolated_peaks(v, detected.peak_index)
-    ends = search_ends(v.size, rate, thr_i, detected.onset_index, step)
+    # the step end bounds only the trough of a sweep's last spike, not its repolarization
+    width_ends = search_ends(v.size, rate, thr_i, detected.onset_index, None)
     width, _, down_i, above = half_widths(v, rate, thr_i, thr_mv, detected.peak_index, peak_mv,
-                                          ends)
-    trough_i, trough_mv = troughs(trace.smooth_mv, detected.peak_index, ends)
+                                          width_ends)
+    trough_ends = search_ends(v.size, rate, thr_i, detected.onset_index, step)
+    late = np.isfinite(down_i) & (down_i >= trough_ends - 1)
+    trough_ends = np.where(late, width_ends, trough_ends)
+    trough_i, trough_mv = troughs(trace.smooth_mv, detected.peak_index, trough_ends)
     repolarized = np.isfinite(down_i)
     trough_i = np.where(repolarized, trough_i, np.nan)
     trough_mv = np.where(repolarized, trough_mv, np.nan)
@@ -541,6 +549,8 @@ def measure_spikes(trace: SmoothedTrace, detected: DetectedSpikes,
             f.append("peak_at_trace_edge")
         if np.isfinite(thr_i[k]) and not repolarized[k]:
             f.append("no_repolarization")
+        if late[k]:
+            f.append("trough_after_step_end")
         if coarse[k]:
             f.append("too_few_samples_across_spike")
         flags.append(tuple(f))

@@ -58,6 +58,10 @@ def file_sha256(path: Path, chunk: int = 1 << 20) -> str:
     return digest.hexdigest()
 
 
+def _count(n: int, noun: str) -> str:
+    return f"{n} {noun}" + ("" if n == 1 else "s")
+
+
 def _versions() -> dict:
     import numpy
     import scipy
@@ -142,9 +146,9 @@ def measure_paths(paths: list[str], out_dir: str | Path,
             summary.spikes += n_spikes
         all_results.extend(results)
         skipped = len(results) - len(measured) + len(recording.problems)
-        notes = [f"{skipped} sweeps skipped"] if skipped else []
-        notes += [f"{count} spikes {flag}" for flag, count in sorted(flagged.items())]
-        say(f"measured {shown}: {len(measured)} sweeps, {n_spikes} spikes"
+        notes = [_count(skipped, "sweep") + " skipped"] if skipped else []
+        notes += [f"{_count(count, 'spike')} {flag}" for flag, count in sorted(flagged.items())]
+        say(f"measured {shown}: {_count(len(measured), 'sweep')}, {_count(n_spikes, 'spike')}"
             + (f" ({'; '.join(notes)})" if notes else ""))
     record = {
         "tool": "spikemeasure",

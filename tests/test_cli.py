@@ -144,7 +144,7 @@ def test_coarse_sampling_is_said_per_spike(tmp_path):
     path = write_text(tmp_path / "fast.txt", v, rate_hz=10_000.0)
     r = run(["measure", str(path), "--out", str(tmp_path / "o")])
     assert r.exit_code == 0, r.output
-    assert "1 spikes too_few_samples_across_spike" in r.output
+    assert "1 spike too_few_samples_across_spike" in r.output
     with open(tmp_path / "o" / "spikes.csv", newline="") as fh:
         row, = list(csv.DictReader(fh))
     assert row["half_width_ms"] == "" and row["flags"] == "too_few_samples_across_spike"

@@ -196,3 +196,15 @@ def test_detected_indices_are_aligned(gaussian_spike):
     d = detect_spikes(tr)
     assert d.onset_index.shape == d.peak_index.shape == (1,)
     assert tr.dvdt_v_per_s[d.onset_index[0]] >= 20.0 > tr.dvdt_v_per_s[d.onset_index[0] - 1]
+
+
+def test_spike_at_step_end_keeps_its_width():
+    """A spike peaking 0.2 ms before the step ends repolarizes after it: the half-width is
+    still measured (closed form of conftest.GaussianSpike) and the trough is searched on."""
+    rate = 50_000.0
+    spike = GaussianSpike(peak_ms=30.0)
+    t = np.arange(0.0, 60.0, 1e3 / rate)
+    m = measure_trace(spike.voltage(t), rate, step=CurrentStep(onset_s=0.01, offset_s=0.0302))
+    assert m.half_width_ms[0] == pytest.approx(spike.half_width_ms(m.threshold_mv[0]), rel=0.01)
+    assert "trough_after_step_end" in m.flags[0]
+    assert m.trough_mv[0] == pytest.approx(spike.base_mv, abs=0.01)
