@@ -34,13 +34,17 @@ class DetectionSettings:
         dV/dt (V/s) whose upward crossing starts a spike and, by default, defines threshold.
     min_rise_mv : float
         The peak must be at least this far (mV) above the voltage at the onset crossing.
-    min_peak_mv : float
+    lowest_peak_mv : float
         The peak must be above this voltage (mV).
     peak_window_ms : float
         The peak must come within this time (ms) of the onset crossing.
     smoothing_ms : float
-        Length (ms) of the zero-phase Savitzky-Golay window used for dV/dt, d2V/dt2 and the
-        smoothed voltage (rounded to an odd number of samples, at least 3).
+        Length (ms) of the zero-phase Savitzky-Golay window used for the dV/dt of detection and
+        threshold, for d2V/dt2 and for the smoothed voltage (rounded to an odd number of
+        samples, at least 3).
+    rate_smoothing_ms : float
+        The shorter window for the maximum and minimum dV/dt of each spike, whose sharp
+        extremes a long window would flatten.
     threshold_method : str
         One of :data:`THRESHOLD_METHODS`.
     threshold_fraction : float
@@ -52,9 +56,10 @@ class DetectionSettings:
 
     onset_rate_v_per_s: float = 20.0
     min_rise_mv: float = 20.0
-    min_peak_mv: float = -20.0
+    lowest_peak_mv: float = -20.0
     peak_window_ms: float = 5.0
-    smoothing_ms: float = 0.1
+    smoothing_ms: float = 0.3
+    rate_smoothing_ms: float = 0.1
     threshold_method: str = "onset_rate"
     threshold_fraction: float = 0.05
     min_samples_across_width: int = 3
@@ -62,12 +67,13 @@ class DetectionSettings:
     def __post_init__(self) -> None:
         positive = {"onset_rate_v_per_s": self.onset_rate_v_per_s,
                     "min_rise_mv": self.min_rise_mv, "peak_window_ms": self.peak_window_ms,
-                    "smoothing_ms": self.smoothing_ms}
+                    "smoothing_ms": self.smoothing_ms,
+                    "rate_smoothing_ms": self.rate_smoothing_ms}
         for name, value in positive.items():
             if not (np.isfinite(value) and value > 0):
                 raise InvalidSettingError(f"`{name}` must be a positive number (got {value})")
-        if not np.isfinite(self.min_peak_mv):
-            raise InvalidSettingError(f"`min_peak_mv` must be a number (got {self.min_peak_mv})")
+        if not np.isfinite(self.lowest_peak_mv):
+            raise InvalidSettingError(f"`lowest_peak_mv` must be a number (got {self.lowest_peak_mv})")
         if self.threshold_method not in THRESHOLD_METHODS:
             raise InvalidSettingError(
                 f"`threshold_method` must be one of {', '.join(THRESHOLD_METHODS)} "
@@ -117,15 +123,15 @@ class DetectedSpikes:
         For each spike, the first sample at or above the onset rate after the last upward
         crossing of it before the peak (the crossing lies between this sample and the one
         before).
-    peak_index : ndarray of int
+    peak_sample : ndarray of int
         The largest raw voltage sample of the spike.
     """
 
     onset_index: np.ndarray
-    peak_index: np.ndarray
+    peak_sample: np.ndarray
 
     def __len__(self) -> int:
-        return int(self.peak_index.size)
+        return int(self.peak_sample.size)
 
 
 def smoothing_window_samples(smoothing_ms: float, sampling_rate_hz: float) -> int:
@@ -135,7 +141,7 @@ def smoothing_window_samples(smoothing_ms: float, sampling_rate_hz: float) -> in
 
 
 def smoothed_trace(voltage_mv: np.ndarray, sampling_rate_hz: float,
-                   smoothing_ms: float = 0.1, *, second_derivative: bool = False
+                   smoothing_ms: float = 0.3, *, second_derivative: bool = False
                    ) -> SmoothedTrace:
     """Smooth a voltage trace and take its first and second time derivatives.
 
@@ -146,7 +152,7 @@ def smoothed_trace(voltage_mv: np.ndarray, sampling_rate_hz: float,
     sampling_rate_hz : float
         Samples per second.
     smoothing_ms : float, optional
-        Window length in ms, default 0.1 (rounded to an odd number of samples, at least 3).
+        Window length in ms, default 0.3 (rounded to an odd number of samples, at least 3).
     second_derivative : bool, optional
         Also compute d2V/dt2 (needed only by the ``second_derivative_peak`` threshold).
 
@@ -161,10 +167,12 @@ def smoothed_trace(voltage_mv: np.ndarray, sampling_rate_hz: float,
     is zero-phase: events are not shifted in time. For white noise of SD sigma at sampling rate
     fs, the derivative noise SD of a window of N samples is
     ``sigma * fs * sqrt(12 / (N (N**2 - 1)))``: 0.3 mV at 50 kHz gives about 21 V/s for a raw
-    first difference and about 4.7 V/s for the default 0.1 ms (5-sample) window. The price is a
-    bias on sharp peaks of dV/dt of about ``f''' * h**2 / 10`` for a half-window h (the fitted
-    slope of a cubic), which is why the default window is short; raise ``smoothing_ms`` for
-    noisier recordings.
+    first difference, 4.7 V/s for a 0.1 ms (5-sample) window and 0.9 V/s for the default
+    0.3 ms (15-sample) one. Near threshold dV/dt rises slowly, so noise there moves the
+    crossing of the onset rate by up to millivolts; the price of the long window is a bias at
+    sharp extremes of dV/dt of about ``f''' * h**2 / 10`` for a half-window h (the fitted
+    slope of a cubic), which is why each spike's maximum and minimum rates use a shorter
+    window of their own (``rate_smoothing_ms``).
     Edges use a polynomial fit to the end window (``mode='interp'``).
 
     References
@@ -232,13 +240,13 @@ def detect_spikes(trace: SmoothedTrace, settings: DetectionSettings = DetectionS
     1. Candidates are the upward crossings of ``onset_rate_v_per_s`` by the smoothed dV/dt.
     2. A vectorized pre-check keeps candidates for which the raw voltage, within
        ``peak_window_ms`` after the crossing, reaches ``min_rise_mv`` above the smoothed
-       voltage at the crossing and exceeds ``min_peak_mv``.
+       voltage at the crossing and exceeds ``lowest_peak_mv``.
     3. For each survivor the end of the rise is the first sample after it where the smoothed
        dV/dt is at or below zero; it must come within ``peak_window_ms``. The peak is the
        largest raw sample from the crossing to that point plus half a smoothing window (the
        raw maximum may lie a few samples from the smoothed one). The height criteria of step 2
        are checked again against that peak.
-    4. Several crossings leading to the same peak (a noisy upstroke) are one spike; the last
+    4. Several crossings leading to the same peak (a noisy rising phase) are one spike; the last
        crossing before the peak is kept, as the threshold definition requires.
     """
     v, dvdt = trace.voltage_mv, trace.dvdt_v_per_s
@@ -253,7 +261,7 @@ def detect_spikes(trace: SmoothedTrace, settings: DetectionSettings = DetectionS
         return empty
     reach = _forward_max_at(v, crossings, window + 1)
     base = trace.smooth_mv[crossings]
-    keep = (reach - base >= settings.min_rise_mv) & (reach > settings.min_peak_mv)
+    keep = (reach - base >= settings.min_rise_mv) & (reach > settings.lowest_peak_mv)
     crossings = crossings[keep]
     if crossings.size == 0:
         return empty
@@ -270,7 +278,7 @@ def detect_spikes(trace: SmoothedTrace, settings: DetectionSettings = DetectionS
             continue  # a slow depolarization, not a spike
         stop = min(n, end + half + 1)
         p = i + int(np.argmax(v[i:stop]))
-        if v[p] - trace.smooth_mv[i] < settings.min_rise_mv or v[p] <= settings.min_peak_mv:
+        if v[p] - trace.smooth_mv[i] < settings.min_rise_mv or v[p] <= settings.lowest_peak_mv:
             continue
         if peaks and peaks[-1] == p:
             onsets[-1] = i

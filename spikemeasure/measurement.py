@@ -11,14 +11,15 @@ from dataclasses import dataclass, fields
 
 import numpy as np
 from scipy.interpolate import CubicSpline
+from scipy.signal import savgol_coeffs
 
-from .detection import (DetectedSpikes, DetectionSettings, SmoothedTrace, detect_spikes,
-                        smoothed_trace)
+from .detection import (SMOOTHING_POLYORDER, DetectedSpikes, DetectionSettings, SmoothedTrace,
+                        detect_spikes, smoothed_trace, smoothing_window_samples)
 from .errors import InvalidSettingError
 from .sweeps import CurrentStep
 
 __all__ = ["SpikeMeasurements", "spike_thresholds", "interpolated_peaks", "half_widths",
-           "troughs", "extreme_rates", "search_ends", "measure_spikes", "measure_trace",
+           "troughs", "rate_extremes", "search_ends", "measure_spikes", "measure_trace",
            "FLAG_TEXT"]
 
 #: Every flag a spike can carry, with what it means (written to the docs).
@@ -299,7 +300,7 @@ def spike_thresholds(trace: SmoothedTrace, detected: DetectedSpikes,
     if settings.needs_second_derivative and d2 is None:
         raise InvalidSettingError("the second_derivative_peak threshold needs a trace made with "
                                   "smoothed_trace(..., second_derivative=True)")
-    onset, peak = detected.onset_index, detected.peak_index
+    onset, peak = detected.onset_index, detected.peak_sample
     floor = np.concatenate([[0], peak[:-1] + 1]) if peak.size else peak
     method = settings.threshold_method
     if method == "onset_rate":
@@ -318,7 +319,7 @@ def spike_thresholds(trace: SmoothedTrace, detected: DetectedSpikes,
     return index, _interp_many(trace.smooth_mv, index)
 
 
-def interpolated_peaks(voltage_mv: np.ndarray, peak_index: np.ndarray
+def interpolated_peaks(voltage_mv: np.ndarray, peak_sample: np.ndarray
                        ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Peak of each spike between samples.
 
@@ -326,7 +327,7 @@ def interpolated_peaks(voltage_mv: np.ndarray, peak_index: np.ndarray
     ----------
     voltage_mv : ndarray
         Raw voltage in mV.
-    peak_index : ndarray of int
+    peak_sample : ndarray of int
         Index of each spike's largest sample.
 
     Returns
@@ -347,13 +348,13 @@ def interpolated_peaks(voltage_mv: np.ndarray, peak_index: np.ndarray
     10 kHz the largest sample is up to 5.4 mV low, a 3-point parabola 1.2 mV, this spline
     0.3 mV.
     """
-    index, value = _spline_peaks(voltage_mv, peak_index)
-    at_edge = (peak_index <= 0) | (peak_index >= voltage_mv.size - 1)
+    index, value = _spline_peaks(voltage_mv, peak_sample)
+    at_edge = (peak_sample <= 0) | (peak_sample >= voltage_mv.size - 1)
     return index, value, at_edge
 
 
-def half_widths(voltage_mv: np.ndarray, sampling_rate_hz: float, threshold_index: np.ndarray,
-                threshold_mv: np.ndarray, peak_index: np.ndarray, peak_mv: np.ndarray,
+def half_widths(voltage_mv: np.ndarray, sampling_rate_hz: float, threshold_position: np.ndarray,
+                threshold_mv: np.ndarray, peak_sample: np.ndarray, peak_mv: np.ndarray,
                 end_index: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Width of each spike at half its amplitude above threshold.
 
@@ -362,9 +363,9 @@ def half_widths(voltage_mv: np.ndarray, sampling_rate_hz: float, threshold_index
     voltage_mv : ndarray
         Raw voltage in mV.
     sampling_rate_hz : float
-    threshold_index, threshold_mv : ndarray
+    threshold_position, threshold_mv : ndarray
         Threshold of each spike (fractional index, mV).
-    peak_index : ndarray of int
+    peak_sample : ndarray of int
         Largest sample of each spike.
     peak_mv : ndarray
         Interpolated peak voltage.
@@ -386,20 +387,20 @@ def half_widths(voltage_mv: np.ndarray, sampling_rate_hz: float, threshold_index
     last one before the peak, the downward crossing the first one after it; each is linearly
     interpolated between the samples either side, as ``scipy.signal.peak_widths`` does.
     """
-    peak_index = np.asarray(peak_index, dtype=np.int64)
-    n = peak_index.size
+    peak_sample = np.asarray(peak_sample, dtype=np.int64)
+    n = peak_sample.size
     width = np.full(n, np.nan)
     up = np.full(n, np.nan)
     down = np.full(n, np.nan)
     above = np.zeros(n, dtype=np.int64)
-    ok = np.isfinite(threshold_mv) & np.isfinite(threshold_index)
+    ok = np.isfinite(threshold_mv) & np.isfinite(threshold_position)
     if not ok.any():
         return width, up, down, above
     v = voltage_mv
     level = threshold_mv + 0.5 * (peak_mv - threshold_mv)
     k = np.flatnonzero(ok)
-    p = peak_index[k]
-    up[k] = _upward_crossings_before(v, level[k], np.floor(threshold_index[k]).astype(np.int64), p)
+    p = peak_sample[k]
+    up[k] = _upward_crossings_before(v, level[k], np.floor(threshold_position[k]).astype(np.int64), p)
     j = _first_below(v, level[k], p, np.asarray(end_index, dtype=np.int64)[k])
     found = j > 0
     jj = j[found]
@@ -410,7 +411,7 @@ def half_widths(voltage_mv: np.ndarray, sampling_rate_hz: float, threshold_index
     return width, up, down, above
 
 
-def troughs(smooth_mv: np.ndarray, peak_index: np.ndarray, end_index: np.ndarray
+def troughs(smooth_mv: np.ndarray, peak_sample: np.ndarray, end_index: np.ndarray
             ) -> tuple[np.ndarray, np.ndarray]:
     """Minimum of the smoothed voltage from each peak to its search end.
 
@@ -418,14 +419,14 @@ def troughs(smooth_mv: np.ndarray, peak_index: np.ndarray, end_index: np.ndarray
     lies inside the span. The smoothed trace is used so that recording noise does not pull the
     minimum down.
     """
-    peak_index = np.asarray(peak_index, dtype=np.int64)
+    peak_sample = np.asarray(peak_sample, dtype=np.int64)
     end_index = np.asarray(end_index, dtype=np.int64)
-    index = np.full(peak_index.size, np.nan)
-    value = np.full(peak_index.size, np.nan)
-    ok = end_index > peak_index + 1
+    index = np.full(peak_sample.size, np.nan)
+    value = np.full(peak_sample.size, np.nan)
+    ok = end_index > peak_sample + 1
     if not ok.any():
         return index, value
-    p, e = peak_index[ok], end_index[ok]
+    p, e = peak_sample[ok], end_index[ok]
     j = _span_argmax(smooth_mv, p, e - 1, largest=False)
     inside = (j > p) & (j < e - 1)
     frac, val = _vertices(smooth_mv, j)
@@ -434,29 +435,72 @@ def troughs(smooth_mv: np.ndarray, peak_index: np.ndarray, end_index: np.ndarray
     return index, value
 
 
-def extreme_rates(dvdt: np.ndarray, start_index: np.ndarray, stop_index: np.ndarray,
-                  largest: bool) -> np.ndarray:
-    """Largest (or most negative) dV/dt in each span [start, stop], refined with a parabola.
+def rate_extremes(voltage_mv: np.ndarray, sampling_rate_hz: float,
+                  threshold_position: np.ndarray, peak_position: np.ndarray,
+                  trough_position: np.ndarray, smoothing_ms: float = 0.1
+                  ) -> tuple[np.ndarray, np.ndarray]:
+    """Largest dV/dt from threshold to peak and most negative from peak to trough.
 
-    NaN where a bound is NaN or the span is empty.
+    Parameters
+    ----------
+    voltage_mv : ndarray
+        Raw voltage in mV.
+    sampling_rate_hz : float
+    threshold_position, peak_position, trough_position : ndarray
+        Fractional sample positions per spike (NaN where unknown: that extreme is then NaN).
+    smoothing_ms : float, optional
+        Savitzky-Golay window for this derivative (default 0.1 ms), shorter than the one used
+        for detection and threshold.
+
+    Returns
+    -------
+    max_dvdt_v_per_s, min_dvdt_v_per_s : ndarray
+
+    Notes
+    -----
+    The extremes of dV/dt are sharp, so a long smoothing window flattens them (for a window of
+    half-length h the bias is about f''' h**2 / 10), while near threshold dV/dt changes slowly
+    and noise matters more. So the rates use their own, shorter window, evaluated only over
+    each spike's span (a local quadratic fit, as in
+    :func:`~spikemeasure.detection.smoothed_trace`), and the extreme sample is refined with a
+    parabola through it and its neighbours.
     """
-    out = np.full(np.asarray(start_index).size, np.nan)
-    ok = np.isfinite(start_index) & np.isfinite(stop_index)
-    if not ok.any():
-        return out
-    a = np.floor(np.asarray(start_index)[ok]).astype(np.int64)
-    b = np.ceil(np.asarray(stop_index)[ok]).astype(np.int64)
-    j = _span_argmax(dvdt, a, b, largest)
-    good = j >= 0
-    safe = np.where(good, j, 0)
-    inside = good & (j > a) & (j < b)
-    refined = _vertices(dvdt, safe)[1]  # the parabola vertex is a max or a min alike
-    result = np.where(inside, refined, dvdt[safe])
-    out[np.flatnonzero(ok)] = np.where(good, result, np.nan)
-    return out
+    v = np.asarray(voltage_mv, dtype=float)
+    window = smoothing_window_samples(smoothing_ms, sampling_rate_hz)
+    half = window // 2
+    coeffs = savgol_coeffs(window, SMOOTHING_POLYORDER, deriv=1, delta=1e3 / sampling_rate_hz,
+                           use="conv")
+    n = np.asarray(peak_position).size
+    largest = np.full(n, np.nan)
+    smallest = np.full(n, np.nan)
+    first, last = half, v.size - 1 - half  # centres where the window fits
+    for k in range(n):
+        p = int(round(peak_position[k]))
+        t, tr = threshold_position[k], trough_position[k]
+        a = max(first, int(np.floor(t))) if np.isfinite(t) else p
+        b = min(last, int(np.ceil(tr))) if np.isfinite(tr) else p
+        if b < a or p < first or p > last:
+            continue
+        lo = a - 1 if a - 1 >= first else a
+        hi = b + 1 if b + 1 <= last else b
+        rates = np.convolve(v[lo - half:hi + half + 1], coeffs, mode="valid")  # centres lo..hi
+        if np.isfinite(t) and p >= a:
+            largest[k] = _refined_extreme(rates, a - lo, p - lo, True)
+        if np.isfinite(tr) and b >= p:
+            smallest[k] = _refined_extreme(rates, p - lo, b - lo, False)
+    return largest, smallest
 
 
-def search_ends(n_samples: int, sampling_rate_hz: float, threshold_index: np.ndarray,
+def _refined_extreme(x: np.ndarray, a: int, b: int, largest: bool) -> float:
+    """Extreme of x[a:b+1], refined by a parabola where it has a neighbour on both sides."""
+    seg = x[a:b + 1]
+    j = a + int(np.argmax(seg) if largest else np.argmin(seg))
+    if 0 < j < x.size - 1:
+        return float(_vertices(x[j - 1:j + 2], np.array([1]))[1][0])
+    return float(x[j])
+
+
+def search_ends(n_samples: int, sampling_rate_hz: float, threshold_position: np.ndarray,
                 onset_index: np.ndarray, step: CurrentStep | None) -> np.ndarray:
     """Where each spike's trough search stops (exclusive sample index).
 
@@ -469,11 +513,11 @@ def search_ends(n_samples: int, sampling_rate_hz: float, threshold_index: np.nda
     n = onset_index.size
     ends = np.empty(n, dtype=np.int64)
     for k in range(n - 1):
-        nxt = threshold_index[k + 1]
+        nxt = threshold_position[k + 1]
         ends[k] = int(np.floor(nxt)) + 1 if np.isfinite(nxt) else int(onset_index[k + 1])
     if n:
         ends[-1] = n_samples
-        t_last = threshold_index[-1] if np.isfinite(threshold_index[-1]) else onset_index[-1]
+        t_last = threshold_position[-1] if np.isfinite(threshold_position[-1]) else onset_index[-1]
         if step is not None:
             onset_i = step.onset_s * sampling_rate_hz
             offset_i = step.offset_s * sampling_rate_hz
@@ -509,8 +553,8 @@ def measure_spikes(trace: SmoothedTrace, detected: DetectedSpikes,
     - threshold: see :func:`spike_thresholds`.
     - peak: :func:`interpolated_peaks`; amplitude = peak - threshold.
     - half-width: :func:`half_widths`; rise time = peak time - threshold time.
-    - max dV/dt: the largest smoothed dV/dt from threshold to peak; min dV/dt: the most negative
-      from peak to trough (each refined between samples with a parabola).
+    - max dV/dt: the largest dV/dt from threshold to peak; min dV/dt: the most negative from
+      peak to trough (:func:`rate_extremes`, with the shorter ``rate_smoothing_ms`` window).
     - trough: :func:`troughs`, searched up to :func:`search_ends` (to the end of the sweep
       instead when the last spike repolarizes only after the step ends); AHP depth =
       threshold - trough.
@@ -520,22 +564,22 @@ def measure_spikes(trace: SmoothedTrace, detected: DetectedSpikes,
     n = len(detected)
     v = trace.voltage_mv
     thr_i, thr_mv = spike_thresholds(trace, detected, settings)
-    peak_i, peak_mv, at_edge = interpolated_peaks(v, detected.peak_index)
+    peak_pos, peak_mv, at_edge = interpolated_peaks(v, detected.peak_sample)
     # the step end bounds only the trough of a sweep's last spike, not its repolarization
     width_ends = search_ends(v.size, rate, thr_i, detected.onset_index, None)
-    width, _, down_i, above = half_widths(v, rate, thr_i, thr_mv, detected.peak_index, peak_mv,
+    width, _, down_i, above = half_widths(v, rate, thr_i, thr_mv, detected.peak_sample, peak_mv,
                                           width_ends)
     trough_ends = search_ends(v.size, rate, thr_i, detected.onset_index, step)
     late = np.isfinite(down_i) & (down_i >= trough_ends - 1)
     trough_ends = np.where(late, width_ends, trough_ends)
-    trough_i, trough_mv = troughs(trace.smooth_mv, detected.peak_index, trough_ends)
+    trough_i, trough_mv = troughs(trace.smooth_mv, detected.peak_sample, trough_ends)
     repolarized = np.isfinite(down_i)
     trough_i = np.where(repolarized, trough_i, np.nan)
     trough_mv = np.where(repolarized, trough_mv, np.nan)
     coarse = repolarized & (above < settings.min_samples_across_width)
     width = np.where(coarse, np.nan, width)
-    max_rate = extreme_rates(trace.dvdt_v_per_s, thr_i, peak_i, largest=True)
-    min_rate = extreme_rates(trace.dvdt_v_per_s, peak_i, trough_i, largest=False)
+    max_rate, min_rate = rate_extremes(v, rate, thr_i, peak_pos, trough_i,
+                                       settings.rate_smoothing_ms)
     thr_s = thr_i / rate
     isi = np.full(n, np.nan)
     if n > 1:
@@ -555,9 +599,9 @@ def measure_spikes(trace: SmoothedTrace, detected: DetectedSpikes,
             f.append("too_few_samples_across_spike")
         flags.append(tuple(f))
     return SpikeMeasurements(
-        threshold_s=thr_s, threshold_mv=thr_mv, peak_s=peak_i / rate, peak_mv=peak_mv,
+        threshold_s=thr_s, threshold_mv=thr_mv, peak_s=peak_pos / rate, peak_mv=peak_mv,
         amplitude_mv=peak_mv - thr_mv, half_width_ms=width,
-        rise_time_ms=(peak_i - thr_i) / rate * 1e3,
+        rise_time_ms=(peak_pos - thr_i) / rate * 1e3,
         max_dvdt_v_per_s=max_rate, min_dvdt_v_per_s=min_rate,
         trough_s=trough_i / rate, trough_mv=trough_mv, ahp_depth_mv=thr_mv - trough_mv,
         isi_ms=isi, flags=tuple(flags))

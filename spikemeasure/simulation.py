@@ -6,13 +6,21 @@ analysis code can be exercised on data whose ground truth is known:
 
 ``"hodgkin_huxley_1952"``
     The squid giant axon model at 6.3 degC, written in the modern sign convention
-    (inside minus outside, rest near -65 mV).
+    (inside minus outside, rest near -65 mV).  First spikes peak near +34 to +42 mV
+    (later spikes of fast trains lower, down to about +20 mV), with an undershoot to
+    about -75 mV and a half-width of ~1.1-1.3 ms; one spike for weak
+    steps, repetitive firing at 55-100 Hz above ~6.2 uA/cm^2, and a rebound
+    (anode-break) spike after hyperpolarising steps of -3 uA/cm^2 or stronger.
 ``"wang_buzsaki_1996"``
-    A fast-spiking hippocampal interneuron with brief spikes and high firing rates.
+    A fast-spiking hippocampal interneuron: spikes peak near +23 to +34 mV with a
+    half-width of ~0.5 ms, no adaptation, and rates from a few Hz at rheobase to
+    several hundred Hz.
 ``"cortical_adapting"``
     A regular-spiking cortical pyramidal cell whose slow M-type K+ current produces
-    spike-frequency adaptation.
+    spike-frequency adaptation (last interspike interval 1.3-2 times the first);
+    spikes peak near +48 mV with a half-width of ~0.7 ms.
 
+The behaviour described is as simulated here, with the default membrane areas.
 Membrane currents in the models are densities (uA/cm^2); the command, in pA, is
 converted with a membrane area per model (see :func:`default_membrane_area_cm2`).
 
@@ -37,8 +45,9 @@ __all__ = [
     "simulate_current_waveform",
 ]
 
-# Longest internal step, in ms.  The scheme is stable at any step, but spike shape and
-# timing stay within ~0.1 mV / ~0.1 % of a converged solution only at or below this.
+# Longest internal step, in ms.  The scheme is stable at any step; at this one, spike
+# peaks stay within ~0.2 mV and spike times within ~0.1 ms (over a 0.2 s train) of a
+# converged solution.
 _MAX_INTERNAL_DT_MS = 0.01
 
 _PA_TO_UA = 1e-6  # 1 pA = 1e-6 uA
@@ -113,12 +122,15 @@ class _HodgkinHuxley1952(_Model):
 
     The original equations measure depolarisation from rest with the opposite sign;
     here they are written in absolute membrane potential with rest at -65 mV, so
-    E_Na = rest + 115 mV, E_K = rest - 12 mV and E_leak = rest + 10.613 mV.
+    E_Na = rest + 115 mV, E_K = rest - 12 mV and E_leak = rest + 10.613 mV.  The
+    rounded leak reversal puts the computed rest at -64.996 mV.  Conductances,
+    reversal potentials and rate constants are the published ones (from memory).
     """
 
     name = "hodgkin_huxley_1952"
     capacitance_uf_cm2 = 1.0
-    # 1 000 um^2 (a small soma): input resistance ~170 MOhm, rheobase ~22 pA.
+    # 1 000 um^2, a small soma: the squid membrane is leaky (~1 kOhm cm^2 at rest),
+    # so this gives input resistance ~90 MOhm and rheobase ~23 pA.
     default_area_cm2 = 1.0e-5
 
     g_na = 120.0
@@ -157,15 +169,16 @@ class _WangBuzsaki1996(_Model):
     """Fast-spiking hippocampal interneuron (Wang & Buzsaki 1996).
 
     Sodium activation is instantaneous (``m = m_inf(V)``); ``h`` and ``n`` carry
-    the temperature factor ``phi = 5``.
+    the temperature factor ``phi = 5``.  Conductances, reversal potentials and rate
+    constants are the published ones (from memory).
     """
 
     name = "wang_buzsaki_1996"
     capacitance_uf_cm2 = 1.0
-    # The model's leak is small (0.1 mS/cm^2), so a large membrane (20 000 um^2) is
-    # needed for a fast-spiking-like input resistance (~90 MOhm) and a rheobase in
-    # the tens of pA.
-    default_area_cm2 = 2.0e-4
+    # 15 000 um^2: input resistance ~100 MOhm, as in fast-spiking cells.  The model
+    # fires from a very low current density (~0.16 uA/cm^2), so rheobase stays
+    # modest (~25 pA) at any area that keeps input resistance realistic.
+    default_area_cm2 = 1.5e-4
 
     g_na = 35.0
     g_k = 9.0
@@ -208,14 +221,17 @@ class _CorticalAdapting(_Model):
     Traub-Miles sodium and delayed-rectifier kinetics shifted by ``V_T`` and a slow
     non-inactivating K+ (M-type) current with the Yamada et al. (1989) kinetics and
     maximal time constant ``tau_max``.  Parameter values are those of the
-    regular-spiking pyramidal cell of Pospischil et al. (2008) (from memory).
+    regular-spiking pyramidal cell of Pospischil et al. (2008) (from memory):
+    g_leak 0.0205, g_Na 56, g_Kd 6, g_M 0.075 mS/cm^2; E_leak -70.3, E_Na 50,
+    E_K -90, V_T -56.2 mV; tau_max 608 ms.
     """
 
     name = "cortical_adapting"
     capacitance_uf_cm2 = 1.0
-    # The geometry of the published fit, a cylinder with L = d = 61.4 um (from
-    # memory), ~11 800 um^2: input resistance ~270 MOhm, rheobase ~30 pA.
-    default_area_cm2 = math.pi * 61.4e-4 * 61.4e-4
+    # 15 000 um^2, a little more than the published cylinder of L = d = 61.4 um
+    # (~11 800 um^2, from memory), to bring input resistance to ~260 MOhm;
+    # rheobase ~70 pA.
+    default_area_cm2 = 1.5e-4
 
     g_leak = 0.0205
     e_leak = -70.3
@@ -303,7 +319,7 @@ def _area(model: _Model, membrane_area_cm2: object) -> float:
 # ---------------------------------------------------------------- steady state & core
 
 
-def _steady_voltage(model: _Model, current_density: float) -> float:
+def _steady_voltage(model: _Model, current_density: float, source: str = "holding_pa") -> float:
     """Most hyperpolarised voltage at which the steady-state current balances the input.
 
     A dense scan brackets the roots of ``I_inj - I_ion(V)`` and bisection refines the
@@ -311,15 +327,16 @@ def _steady_voltage(model: _Model, current_density: float) -> float:
     state for subthreshold input.  Above a repetitive-firing threshold the fixed point
     is unstable, and starting there simply lets firing begin at once.
     """
-    grid = np.arange(-300.0, 100.0, 0.05)
+    # The scan spans the rate tables, so the start lies where rates are tabulated.
+    grid = np.arange(_VoltageTable.v_min, _VoltageTable.v_max, 0.05)
     with np.errstate(over="ignore", invalid="ignore"):
         net = current_density - model.ionic_current(grid)
     down = np.nonzero((net[:-1] > 0.0) & (net[1:] <= 0.0))[0]
     if down.size == 0:
         raise ValueError(
-            f"no steady state of model {model.name!r} between -300 and +100 mV for a "
-            f"holding current density of {current_density:g} uA/cm^2; "
-            "use a smaller holding current"
+            f"{source} is too large in magnitude: model {model.name!r} has no steady "
+            f"state between {_VoltageTable.v_min:g} and {_VoltageTable.v_max:g} mV at "
+            f"{current_density:g} uA/cm^2"
         )
     lo, hi = float(grid[down[0]]), float(grid[down[0] + 1])
     for _ in range(60):
@@ -371,6 +388,7 @@ def _integrate(
     command_density: np.ndarray,
     initial_density: np.ndarray,
     sampling_rate_hz: float,
+    initial_source: str = "holding_pa",
 ) -> np.ndarray:
     """Integrate all sweeps together; return voltage (mV) at the sampling instants.
 
@@ -396,7 +414,10 @@ def _integrate(
     instant_table = _VoltageTable(instantaneous_rows) if instantaneous_rows else None
 
     # Start exactly at the fixed point, so there is no start-up transient.
-    v0 = {float(i): _steady_voltage(model, float(i)) for i in np.unique(initial_density)}
+    v0 = {
+        float(i): _steady_voltage(model, float(i), initial_source)
+        for i in np.unique(initial_density)
+    }
     v = np.array([v0[float(i)] for i in initial_density], dtype=float)
     gates = np.array([inf for inf, _ in model.kinetic_gates(v)], dtype=float)
     no_instant: list[np.ndarray] = []
@@ -486,20 +507,31 @@ def default_membrane_area_cm2(model: str) -> float:
 
     Notes
     -----
-    The areas put input resistance and rheobase in ranges typical of whole-cell
-    recordings from neuronal somata (with a 0.5 s step):
+    The areas put input resistance and rheobase near the ranges of whole-cell
+    recordings from neuronal somata.  Values measured with this module (0.5 s
+    steps from rest; input resistance from the steady response to -10 pA):
 
-    ======================= ============ ============== ==========
-    model                   area (um^2)  R_in (MOhm)    rheobase
-    ======================= ============ ============== ==========
-    ``hodgkin_huxley_1952`` 1 000        ~180           ~24 pA
-    ``wang_buzsaki_1996``   20 000       ~90            ~33 pA
-    ``cortical_adapting``   ~11 800      ~270           ~30 pA
-    ======================= ============ ============== ==========
+    ======================= =========== =========== ========= ==========
+    model                   area (um^2) rest (mV)   R_in      rheobase
+    ======================= =========== =========== ========= ==========
+    ``hodgkin_huxley_1952`` 1 000       -65.0       ~90 MOhm  ~23 pA
+    ``wang_buzsaki_1996``   15 000      -64.0       ~90 MOhm  ~25 pA
+    ``cortical_adapting``   15 000      -71.9       ~270 MOhm ~70 pA
+    ======================= =========== =========== ========= ==========
 
-    The cortical area is the cell geometry of the published regular-spiking fit
-    (cylinder L = d = 61.4 um, from memory).  R_in is the slope resistance at rest.
+    The squid membrane is leaky (about 1 kOhm cm^2 at rest), hence its small
+    area.  The fast-spiking model starts firing at a very low current density
+    (~0.16 uA/cm^2), so its rheobase stays modest at any area that keeps input
+    resistance realistic.  The cortical area is a little larger than the
+    published cylinder (L = d = 61.4 um, ~11 800 um^2, from memory).
+
+    References
+    ----------
+    .. [1] Hodgkin AL, Huxley AF (1952) J Physiol 117:500-544.
+    .. [2] Wang X-J, Buzsaki G (1996) J Neurosci 16:6402-6413.
+    .. [3] Pospischil M et al. (2008) Biol Cybern 99:427-441.
     """
+
     return _get_model(model).default_area_cm2
 
 
@@ -525,6 +557,12 @@ def resting_potential_mv(model: str, holding_pa: float = 0.0, *,
     -----
     The most hyperpolarised fixed point is returned.  Above the holding current at
     which the model fires repetitively it is unstable.
+
+    References
+    ----------
+    .. [1] Hodgkin AL, Huxley AF (1952) J Physiol 117:500-544.
+    .. [2] Wang X-J, Buzsaki G (1996) J Neurosci 16:6402-6413.
+    .. [3] Pospischil M et al. (2008) Biol Cybern 99:427-441.
     """
     mod = _get_model(model)
     area = _area(mod, membrane_area_cm2)
@@ -585,7 +623,7 @@ def simulate_current_waveform(
        for different classes of cortical and thalamic neurons. Biol Cybern
        99:427-441.
     .. [4] Rush S, Larsen H (1978) A practical algorithm for solving dynamic
-       membrane equations. IEEE Trans Biomed Eng 25:389-392.
+       membrane equations. IEEE Trans Biomed Eng 25:389-392 (from memory).
     """
     mod = _get_model(model)
     fs = _positive_float("sampling_rate_hz", sampling_rate_hz)
@@ -601,7 +639,7 @@ def simulate_current_waveform(
     if not np.all(np.isfinite(command)):
         raise ValueError("command_pa must contain only finite values")
     density = command[np.newaxis, :] * (_PA_TO_UA / area)
-    return _integrate(mod, density, density[:, 0].copy(), fs)[0]
+    return _integrate(mod, density, density[:, 0].copy(), fs, "command_pa[0]")[0]
 
 
 def simulate_current_steps(
@@ -670,7 +708,7 @@ def simulate_current_steps(
        99:427-441.
     .. [4] Yamada WM, Koch C, Adams PR (1989) Multiple channels and calcium
        dynamics. In: Koch C, Segev I (eds) Methods in neuronal modeling. MIT Press,
-       Cambridge, pp 97-133.
+       Cambridge, pp 97-133 (from memory).
     """
     mod = _get_model(model)
     fs = _positive_float("sampling_rate_hz", sampling_rate_hz)

@@ -12,7 +12,7 @@ from spikemeasure.measurement import measure_trace
 class TestSettings:
     def test_defaults_are_the_documented_ones(self):
         d = DetectionSettings()
-        assert (d.onset_rate_v_per_s, d.min_rise_mv, d.min_peak_mv, d.peak_window_ms) == (
+        assert (d.onset_rate_v_per_s, d.min_rise_mv, d.lowest_peak_mv, d.peak_window_ms) == (
             20.0, 20.0, -20.0, 5.0)
 
     @pytest.mark.parametrize("kwargs, text", [
@@ -47,7 +47,7 @@ class TestCriteria:
         t = np.arange(0, 20, 0.05)
         tr = smoothed_trace(spike.voltage(t), 20_000.0)
         assert len(detect_spikes(tr)) == 0
-        assert len(detect_spikes(tr, DetectionSettings(min_peak_mv=-40.0))) == 1
+        assert len(detect_spikes(tr, DetectionSettings(lowest_peak_mv=-40.0))) == 1
 
     def test_slow_depolarization_is_not_a_spike(self):
         # a 60 mV ramp at 25 V/s keeps rising for 2.4 ms > ... but a 10 ms ramp is too slow
