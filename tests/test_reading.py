@@ -203,3 +203,24 @@ def test_find_recordings_relative_names_and_skips(tmp_path):
     assert [name for _, name in found] == ["a/one.txt", "two.csv"]
     single = find_recordings([tmp_path / "cells" / "two.csv"])
     assert [name for _, name in single] == ["two.csv"]
+
+
+def test_other_formats_through_neo_detection(tmp_path):
+    """Source: a file written by neo's own MATLAB-format writer, found by neo's suffix table."""
+    import neo
+    import quantities as pq
+
+    (v, i), = _sweeps(1)
+    block = neo.Block()
+    seg = neo.Segment()
+    seg.analogsignals.append(neo.AnalogSignal(v[:, None] * 1e-3, units="V",
+                                              sampling_rate=RATE * pq.Hz, name="Vm"))
+    seg.analogsignals.append(neo.AnalogSignal(i[:, None] * 1e-3, units="nA",
+                                              sampling_rate=RATE * pq.Hz, name="I"))
+    block.segments.append(seg)
+    path = tmp_path / "cell.mat"
+    neo.io.NeoMatlabIO(str(path)).write_block(block)
+    rec = read_recording(path)
+    assert rec.format == "neo NeoMatlabIO"
+    np.testing.assert_allclose(rec.sweeps[0].voltage_mv, v, rtol=1e-12)
+    np.testing.assert_allclose(rec.sweeps[0].command_pa, i, rtol=1e-12, atol=1e-9)

@@ -1,0 +1,4 @@
+"""``python -m spikemeasure``: the same as the ``spikemeasure`` command."""
+from .cli import main
+
+main()
