@@ -496,7 +496,12 @@ def _refined_extreme(x: np.ndarray, a: int, b: int, largest: bool) -> float:
     seg = x[a:b + 1]
     j = a + int(np.argmax(seg) if largest else np.argmin(seg))
     if 0 < j < x.size - 1:
-        return float(_vertices(x[j - 1:j + 2], np.array([1]))[1][0])
+        prev, here, nxt = float(x[j - 1]), float(x[j]), float(x[j + 1])
+        curvature = prev - 2.0 * here + nxt
+        if curvature != 0.0:  # the same vertex as _vertices, for one point
+            delta = min(0.5, max(-0.5, 0.5 * (prev - nxt) / curvature))
+            return here - 0.25 * (prev - nxt) * delta
+        return here
     return float(x[j])
 
 
