@@ -228,6 +228,16 @@ _CC_STIMULUS = {"CurrentClampStimulusSeries"}
 _VC_TYPES = {"VoltageClampSeries", "VoltageClampStimulusSeries"}
 
 
+def _hdf5_reason(exc: Exception) -> str:
+    """A short reason for an HDF5-based read failure; the library's text kept for the rest."""
+    text = str(exc)
+    m = re.search(r"truncated file: eof = (\d+).*?stored_eof = (\d+)", text)
+    if m:
+        return (f"the file is truncated: {int(m.group(1)):,} of {int(m.group(2)):,} bytes are "
+                "there; copy it again from its source")
+    return f"{type(exc).__name__}: {text}; the file may be truncated or damaged"
+
+
 def _nwb_type(signal) -> str:
     kind = signal.annotations.get("nwb_neurodata_type", ("", ""))
     return kind[-1] if isinstance(kind, (tuple, list)) else str(kind)
@@ -247,9 +257,7 @@ def _read_nwb(path: Path, shown: str) -> Recording:
             io = neo.io.NWBIO(str(path), mode="r")
             block = io.read_block(lazy=False)
     except Exception as exc:  # the NWB stack raises many types; keep the cause
-        raise UnreadableInputError(
-            f"{shown}: cannot be read as NWB ({type(exc).__name__}: {exc}); the file may be "
-            "truncated or damaged") from exc
+        raise UnreadableInputError(f"{shown}: cannot be read as NWB ({_hdf5_reason(exc)})") from exc
     signals = [s for seg in block.segments for s in seg.analogsignals]
     by_sweep: dict[int, dict[str, list]] = {}
     types = {_nwb_type(s) for s in signals}
@@ -333,9 +341,7 @@ def _read_nix(path: Path, shown: str) -> Recording:
             with neo.io.NixIO(str(path), mode="ro") as io:
                 blocks = io.read_all_blocks(lazy=False)
     except Exception as exc:  # nixio raises many types; keep the cause
-        raise UnreadableInputError(
-            f"{shown}: cannot be read as NIX ({type(exc).__name__}: {exc}); the file may be "
-            "truncated or damaged") from exc
+        raise UnreadableInputError(f"{shown}: cannot be read as NIX ({_hdf5_reason(exc)})") from exc
     segments = [seg for blk in blocks for seg in blk.segments]
     return _segments_to_recording(segments, shown, "NIX (one sweep per segment)")
 
@@ -424,7 +430,9 @@ def _read_text(path: Path, shown: str, sampling_rate_hz: float | None) -> Record
         raise UnreadableInputError(
             f"{shown}: the header names {len(names)} columns but rows have {data.shape[1]}")
     if data.shape[0] < 3:
-        raise UnreadableInputError(f"{shown}: only {data.shape[0]} data rows")
+        raise UnreadableInputError(
+            f"{shown}: only {data.shape[0]} data row{'s' if data.shape[0] != 1 else ''}; a "
+            "sweep needs at least 3")
     if "time" in roles:
         col, scale = roles["time"]
         t = data[:, col] * scale
