@@ -5,7 +5,9 @@ This is the only module that imports neo. Formats:
 - NWB (``.nwb``): current-clamp series paired with their stimulus series by sweep number.
 - NIX (``.nix``): one sweep per neo segment.
 - Plain text (``.txt``, ``.csv``, ``.tsv``): columns under a header row naming units, one sweep
-  per file, parsed with numpy in float64.
+  per file, parsed with numpy in float64. (neo's text reader parses as float32, which rounds a
+  voltage of -70.1 mV to -70.09999847, and gives every column one unit, so a file holding mV
+  and pA columns cannot be read with it.)
 - Anything else neo reads, found by neo's own extension table.
 
 Units are converted by the units each channel declares, never assumed. Readers that would

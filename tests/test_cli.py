@@ -149,3 +149,22 @@ def test_coarse_sampling_is_said_per_spike(tmp_path):
         row, = list(csv.DictReader(fh))
     assert row["half_width_ms"] == "" and row["flags"] == "too_few_samples_across_spike"
     assert row["peak_mv"] != ""
+
+
+@pytest.mark.parametrize("kind", ["voltage_clamp", "pickle"])
+def test_refused_inputs_exit_1_with_the_reason(tmp_path, kind):
+    import pickle
+
+    if kind == "voltage_clamp":
+        _, v = gaussian_train(RATE, [], 50.0)
+        path = write_nwb(tmp_path / "vc.nwb", [(v, step_command(v.size, RATE, 10.0))],
+                         rate_hz=RATE, voltage_clamp=True)
+        reason = "vc.nwb: a voltage-clamp recording"
+    else:
+        path = tmp_path / "cell.pkl"
+        path.write_bytes(pickle.dumps([1, 2, 3]))
+        reason = "cell.pkl: pickle files can run code"
+    for args in (["measure", str(path), "--out", str(tmp_path / "o")], ["inspect", str(path)]):
+        r = run(args)
+        assert r.exit_code == 1
+        assert reason in r.output and "Traceback" not in r.output
