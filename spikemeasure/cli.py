@@ -10,11 +10,22 @@ import sys
 import click
 
 from . import __version__
-from .columns import columns_markdown, SPIKE_COLUMNS
+from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, columns_markdown
 from .detection import THRESHOLD_METHODS, DetectionSettings
 from .errors import SpikemeasureError
 
 EXIT_PARTIAL = 3
+
+
+def _step_sizes(ctx: click.Context, param: click.Parameter, value):
+    if value is None:
+        return None
+    from .sweeps import parse_step_sizes
+
+    try:
+        return parse_step_sizes(value)
+    except SpikemeasureError as exc:
+        raise click.BadParameter(str(exc)) from exc
 
 
 def _settings_options(func):
@@ -54,6 +65,10 @@ def _settings_options(func):
                      metavar="START END",
                      help="The current step's start and end in s, for files without a "
                           "command-current channel."),
+        click.option("--step-sizes", "step_sizes", callback=_step_sizes, default=None,
+                     metavar="FIRST:INCREMENT",
+                     help="With --step: the step of sweep k is FIRST + k * INCREMENT pA "
+                          "(for files without a command-current channel)."),
         click.option("--sampling-rate", "sampling_rate_hz", type=click.FloatRange(min=0, min_open=True),
                      default=None, metavar="HZ",
                      help="Sampling rate for text files without a time column, in Hz."),
@@ -61,6 +76,11 @@ def _settings_options(func):
     for option in reversed(options):
         func = option(func)
     return func
+
+
+def _check_step_options(step_times, step_sizes) -> None:
+    if step_sizes is not None and step_times is None:
+        raise click.UsageError("--step-sizes needs --step START END")
 
 
 def _make_settings(kw: dict) -> DetectionSettings:
@@ -100,15 +120,21 @@ def main(ctx: click.Context, debug: bool) -> None:
 @click.option("--quiet", is_flag=True, help="Print only the final summary.")
 @_settings_options
 @click.pass_context
-def measure(ctx: click.Context, paths, out_dir, quiet, step_times, sampling_rate_hz, **kw):
-    """Measure every spike in PATHS (files or folders) into --out."""
+def measure(ctx: click.Context, paths, out_dir, quiet, step_times, step_sizes, sampling_rate_hz,
+            **kw):
+    """Measure every spike, sweep and cell in PATHS (files or folders) into --out.
+
+    Writes spikes.csv, sweeps.csv, cells.csv and run.json.
+    """
     from .runner import measure_paths
 
+    _check_step_options(step_times, step_sizes)
     try:
         settings = _make_settings(kw)
         progress = None if quiet else (lambda line: click.echo(line, err=True))
         summary = measure_paths(list(paths), out_dir, settings, step_times=step_times,
-                                sampling_rate_hz=sampling_rate_hz, progress=progress)
+                                step_sizes=step_sizes, sampling_rate_hz=sampling_rate_hz,
+                                progress=progress)
     except SpikemeasureError as exc:
         _fail(ctx, exc)
         return
@@ -129,13 +155,14 @@ def measure(ctx: click.Context, paths, out_dir, quiet, step_times, sampling_rate
 @click.argument("file", type=click.Path(dir_okay=False))
 @_settings_options
 @click.pass_context
-def inspect(ctx: click.Context, file, step_times, sampling_rate_hz, **kw):
-    """Show what FILE holds: format, sweeps, channels, steps and spikes per sweep."""
+def inspect(ctx: click.Context, file, step_times, step_sizes, sampling_rate_hz, **kw):
+    """Show what FILE holds: format, channels, each sweep's step and spikes, the cell summary."""
     from .inspection import describe_file
 
+    _check_step_options(step_times, step_sizes)
     try:
         settings = _make_settings(kw)
-        text, ok = describe_file(file, settings, step_times=step_times,
+        text, ok = describe_file(file, settings, step_times=step_times, step_sizes=step_sizes,
                                  sampling_rate_hz=sampling_rate_hz)
     except SpikemeasureError as exc:
         _fail(ctx, exc)
@@ -152,8 +179,11 @@ def columns(markdown: bool) -> None:
     if markdown:
         click.echo(columns_markdown(), nl=False)
         return
-    for c in SPIKE_COLUMNS:
-        click.echo(f"{c.name:<18} {c.unit or '-':<5} {c.definition}")
+    for title, cols in (("spikes.csv", SPIKE_COLUMNS), ("sweeps.csv", SWEEP_COLUMNS),
+                        ("cells.csv", CELL_COLUMNS)):
+        click.echo(title)
+        for c in cols:
+            click.echo(f"  {c.name:<24} {c.unit or '-':<6} {c.definition}")
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -8,9 +8,12 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from .detection import DetectionSettings
+from .cell_features import CELL_FLAG_TEXT, HOLDING_TOLERANCE_PA, MIN_TAU_FIT_R2
 from .measurement import FLAG_TEXT
+from .sweep_features import MIN_WINDOW_MS
 
-__all__ = ["Column", "SPIKE_COLUMNS", "spike_column_names", "columns_markdown"]
+__all__ = ["Column", "SPIKE_COLUMNS", "SWEEP_COLUMNS", "CELL_COLUMNS", "spike_column_names",
+           "columns_markdown"]
 
 
 @dataclass(frozen=True)
@@ -81,6 +84,72 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
 )
 
 
+_FILE = Column("file", "", "The input file, named as in spikes.csv.")
+
+SWEEP_COLUMNS: tuple[Column, ...] = (
+    _FILE,
+    Column("sweep", "", "0-based sweep index in file order."),
+    Column("stimulus_pa", "pA", "Step size: the mean command current during the step minus the "
+           "mean before it (0 for a sweep of a step series whose command has no step; from "
+           "`--step-sizes` when the file has no command channel).", 2),
+    Column("holding_pa", "pA", "Mean command current before the step.", 2),
+    Column("stimulus_start_s", "s", "Step onset: the first sample of the step, from the command "
+           "channel (the half-way level between holding and step, after a 5-sample running "
+           "median), or `--step`.", 6),
+    Column("stimulus_end_s", "s", "Step offset: the first sample after the step.", 6),
+    Column("baseline_mv", "mV", "Mean voltage over the 100 ms before onset (all of it if "
+           "shorter).", 4),
+    Column("baseline_noise_mv", "mV", "Standard deviation (ddof=0) of the voltage over the same "
+           "window.", 4),
+    Column("spike_count", "", "Spikes whose threshold time lies in [stimulus_start_s, "
+           "stimulus_end_s)."),
+    Column("firing_rate_hz", "Hz", "spike_count / step duration.", 4),
+    Column("first_spike_latency_ms", "ms", "First threshold time in the step minus onset.", 4),
+    Column("mean_isi_ms", "ms", "Mean interval between consecutive spikes inside the step.", 4),
+    Column("isi_cv", "", "Standard deviation (ddof=1) over mean of those intervals; needs at "
+           "least 2.", 5),
+    Column("adaptation_index", "", "Mean over consecutive interval pairs of (ISI[k+1] - ISI[k]) "
+           "/ (ISI[k+1] + ISI[k]) (Druckmann et al. 2007); needs at least 2 intervals. Positive "
+           "when firing slows during the step, near 0 for regular firing.", 5),
+    Column("steady_state_mv", "mV", "Mean voltage over the last 100 ms of the step.", 4),
+    Column("min_mv", "mV", f"Minimum during the step of the voltage averaged over a sliding "
+           f"{MIN_WINDOW_MS:g} ms window (so noise does not pull it down).", 4),
+    Column("sag_fraction", "", "Hyperpolarizing steps only: (steady_state_mv - min_mv) / "
+           "(baseline_mv - min_mv); 0 for no sag.", 5),
+)
+
+CELL_COLUMNS: tuple[Column, ...] = (
+    _FILE,
+    Column("sweeps", "", "Sweeps measured."),
+    Column("resting_mv", "mV", f"Median baseline_mv over sweeps whose holding current is within "
+           f"{HOLDING_TOLERANCE_PA:g} pA of zero.", 4),
+    Column("rheobase_pa", "pA", "The smallest step (stimulus_pa) with at least one spike in it. "
+           "It is known only to the protocol's resolution: see rheobase_resolution_pa.", 2),
+    Column("fi_slope_hz_per_pa", "Hz/pA", "Least-squares slope of firing_rate_hz on "
+           "stimulus_pa over the steps at or above rheobase (at least 2).", 5),
+    Column("max_firing_rate_hz", "Hz", "The largest firing_rate_hz of the cell's sweeps.", 4),
+    Column("input_resistance_mohm", "MOhm", "Least-squares slope of (steady_state_mv - "
+           "baseline_mv) on stimulus_pa over hyperpolarizing, spike-free sweeps (at least 2), "
+           "times 1000.", 3),
+    Column("membrane_tau_ms", "ms", "Time constant of a single exponential fitted "
+           "(scipy.optimize.curve_fit) to the voltage from onset to its minimum (on a 1 ms "
+           "moving average) on the smallest hyperpolarizing spike-free step. Empty, flagged "
+           f"`tau_fit_poor`, when the fit's R^2 is below {MIN_TAU_FIT_R2:g}.", 4),
+    Column("sag_fraction", "", "sag_fraction of the most hyperpolarizing sweep.", 5),
+    Column("rheobase_threshold_mv", "mV", "threshold_mv of the first spike in the step of the "
+           "rheobase sweep.", 4),
+    Column("rheobase_amplitude_mv", "mV", "amplitude_mv of that spike.", 4),
+    Column("rheobase_half_width_ms", "ms", "half_width_ms of that spike.", 5),
+    Column("rheobase_ahp_depth_mv", "mV", "ahp_depth_mv of that spike.", 4),
+    Column("rheobase_resolution_pa", "pA", "The gap between rheobase and the largest smaller "
+           "step tested: the true rheobase lies in (rheobase_pa - this, rheobase_pa]. Empty when "
+           "the smallest step already evoked a spike.", 2),
+    Column("membrane_tau_fit_r2", "", "R^2 of the time-constant fit over the fitted samples.", 5),
+    Column("flags", "", "Why values are empty or less certain, separated by ';' (see the list of "
+           "cell flags)."),
+)
+
+
 def spike_column_names() -> list[str]:
     return [c.name for c in SPIKE_COLUMNS]
 
@@ -107,12 +176,21 @@ def columns_markdown() -> str:
         lines.append(f"| `{c.name}` | {c.unit or '-'} | {c.definition} |")
     lines += [
         "",
-        "## Flags",
+        "## Spike flags",
         "",
         "| flag | meaning |",
         "| --- | --- |",
     ]
     lines += [f"| `{name}` | {text} |" for name, text in FLAG_TEXT.items()]
+    for title, intro, cols in (
+            ("sweeps.csv", "One row per measured sweep; times are seconds from the sweep's "
+             "first sample.", SWEEP_COLUMNS),
+            ("cells.csv", "One row per recording file (a cell's step series).", CELL_COLUMNS)):
+        lines += ["", f"## {title}", "", intro, "", "| column | unit | definition |",
+                  "| --- | --- | --- |"]
+        lines += [f"| `{c.name}` | {c.unit or '-'} | {c.definition} |" for c in cols]
+    lines += ["", "## Cell flags", "", "| flag | meaning |", "| --- | --- |"]
+    lines += [f"| `{name}` | {text} |" for name, text in CELL_FLAG_TEXT.items()]
     lines += [
         "",
         "## Detection",

@@ -6,7 +6,8 @@ from pathlib import Path
 
 from .detection import DetectionSettings
 from .reading import read_recording
-from .tables import measure_recording
+from .cell_features import CELL_FLAG_TEXT
+from .tables import cell_summary, measure_recording
 
 __all__ = ["describe_file"]
 
@@ -17,6 +18,7 @@ def _fmt(value: float, unit: str, digits: int = 1) -> str:
 
 def describe_file(path: str, settings: DetectionSettings = DetectionSettings(), *,
                   step_times: tuple[float, float] | None = None,
+                  step_sizes: tuple[float, float] | None = None,
                   sampling_rate_hz: float | None = None) -> tuple[str, bool]:
     """Describe a recording: format, channels, sweeps, steps and spike counts.
 
@@ -24,7 +26,7 @@ def describe_file(path: str, settings: DetectionSettings = DetectionSettings(), 
     Raises :class:`~spikemeasure.errors.UnreadableInputError` when the file cannot be read.
     """
     recording = read_recording(path, sampling_rate_hz=sampling_rate_hz)
-    results = measure_recording(recording, settings, step_times)
+    results = measure_recording(recording, settings, step_times, step_sizes)
     rates = sorted({s.sampling_rate_hz for s in recording.sweeps})
     lines = [
         f"file:          {path} ({Path(path).stat().st_size / 1e6:.2f} MB)",
@@ -59,4 +61,30 @@ def describe_file(path: str, settings: DetectionSettings = DetectionSettings(), 
         lines += ["", "skipped:"] + [f"  {p}" for p in recording.problems]
     total = sum(len(r.spikes) for r in results if r.spikes is not None)
     lines += ["", f"{measured} of {len(results)} sweeps measured, {total} spikes"]
+    if measured:
+        lines += ["", "cell:"] + _cell_lines(cell_summary(results))
     return "\n".join(lines), measured > 0
+
+
+def _cell_lines(cell) -> list[str]:
+    rheobase = _fmt(cell.rheobase_pa, "pA")
+    if rheobase != "-" and cell.rheobase_resolution_pa == cell.rheobase_resolution_pa:
+        rheobase += f" (steps {cell.rheobase_resolution_pa:g} pA apart)"
+    rows = [
+        ("resting potential", _fmt(cell.resting_mv, "mV")),
+        ("rheobase", rheobase),
+        ("f-I slope", _fmt(cell.fi_slope_hz_per_pa, "Hz/pA", 3)),
+        ("max firing rate", _fmt(cell.max_firing_rate_hz, "Hz")),
+        ("input resistance", _fmt(cell.input_resistance_mohm, "MOhm")),
+        ("membrane time constant", _fmt(cell.membrane_tau_ms, "ms", 2)
+         + (f" (fit R^2 {cell.membrane_tau_fit_r2:.3f})"
+            if cell.membrane_tau_fit_r2 == cell.membrane_tau_fit_r2 else "")),
+        ("sag fraction", _fmt(cell.sag_fraction, "", 3).strip()),
+        ("first spike at rheobase", "-" if cell.rheobase_threshold_mv != cell.rheobase_threshold_mv
+         else f"threshold {cell.rheobase_threshold_mv:.1f} mV, amplitude "
+              f"{cell.rheobase_amplitude_mv:.1f} mV, half-width {cell.rheobase_half_width_ms:.2f}"
+              f" ms, AHP {cell.rheobase_ahp_depth_mv:.1f} mV"),
+    ]
+    out = [f"  {name:<24} {value}" for name, value in rows]
+    out += [f"  note: {CELL_FLAG_TEXT[f]}" for f in cell.flags]
+    return out

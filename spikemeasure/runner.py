@@ -18,11 +18,16 @@ from .detection import DetectionSettings
 from .errors import SpikemeasureError
 from .output import write_json, write_table_csv
 from .reading import find_recordings, read_recording
-from .tables import count_spikes, flag_counts, measure_recording, spike_table
+from .columns import CELL_COLUMNS, SWEEP_COLUMNS
+from .tables import (cell_summary, cell_table, count_spikes, flag_counts, measure_recording,
+                     spike_table, sweep_table)
 
-__all__ = ["RunSummary", "measure_paths", "file_sha256", "SPIKES_FILE", "RUN_RECORD_FILE"]
+__all__ = ["RunSummary", "measure_paths", "file_sha256", "SPIKES_FILE", "SWEEPS_FILE", "CELLS_FILE",
+           "RUN_RECORD_FILE"]
 
 SPIKES_FILE = "spikes.csv"
+SWEEPS_FILE = "sweeps.csv"
+CELLS_FILE = "cells.csv"
 RUN_RECORD_FILE = "run.json"
 
 
@@ -44,6 +49,14 @@ class RunSummary:
     @property
     def spikes_path(self) -> Path:
         return self.out_dir / SPIKES_FILE
+
+    @property
+    def sweeps_path(self) -> Path:
+        return self.out_dir / SWEEPS_FILE
+
+    @property
+    def cells_path(self) -> Path:
+        return self.out_dir / CELLS_FILE
 
     @property
     def record_path(self) -> Path:
@@ -78,6 +91,7 @@ def _versions() -> dict:
 def measure_paths(paths: list[str], out_dir: str | Path,
                   settings: DetectionSettings = DetectionSettings(), *,
                   step_times: tuple[float, float] | None = None,
+                  step_sizes: tuple[float, float] | None = None,
                   sampling_rate_hz: float | None = None,
                   progress: Callable[[str], None] | None = None) -> RunSummary:
     """Measure every recording under `paths` and write spikes.csv and run.json to `out_dir`.
@@ -91,6 +105,8 @@ def measure_paths(paths: list[str], out_dir: str | Path,
     settings : DetectionSettings
     step_times : (start_s, end_s), optional
         The current step for sweeps without a command channel.
+    step_sizes : (first_pa, increment_pa), optional
+        With `step_times`: the step sizes of such sweeps, by sweep index.
     sampling_rate_hz : float, optional
         For text files without a time column.
     progress : callable, optional
@@ -105,6 +121,7 @@ def measure_paths(paths: list[str], out_dir: str | Path,
     started = time.time()
     summary = RunSummary(out_dir=out)
     all_results = []
+    cells = []
     files = find_recordings(paths, exclude=out)
     for given in paths:
         if not Path(given).exists():
@@ -126,7 +143,7 @@ def measure_paths(paths: list[str], out_dir: str | Path,
             summary.failures.append({"file": shown, "sweep": None, "message": str(exc)})
             say(f"failed   {exc}")
             continue
-        results = measure_recording(recording, settings, step_times)
+        results = measure_recording(recording, settings, step_times, step_sizes)
         measured = [r for r in results if r.error is None]
         for problem in recording.problems:
             summary.failures.append({"file": shown, "sweep": None, "message": problem})
@@ -141,6 +158,7 @@ def measure_paths(paths: list[str], out_dir: str | Path,
                      status="measured" if measured else "failed")
         summary.inputs.append(entry)
         if measured:
+            cells.append((shown, cell_summary(results)))
             summary.files_measured += 1
             summary.sweeps_measured += len(measured)
             summary.spikes += n_spikes
@@ -158,6 +176,7 @@ def measure_paths(paths: list[str], out_dir: str | Path,
         "seconds": round(time.time() - started, 3),
         "parameters": {**settings.as_dict(),
                        "step_s": list(step_times) if step_times else None,
+                       "step_sizes_pa": list(step_sizes) if step_sizes else None,
                        "sampling_rate_hz": sampling_rate_hz},
         "inputs": summary.inputs,
         "failures": summary.failures,
@@ -166,5 +185,7 @@ def measure_paths(paths: list[str], out_dir: str | Path,
     }
     # always written, header only when nothing was measured, so no stale table survives
     write_table_csv(summary.spikes_path, spike_table(all_results))
+    write_table_csv(summary.sweeps_path, sweep_table(all_results), SWEEP_COLUMNS)
+    write_table_csv(summary.cells_path, cell_table(cells), CELL_COLUMNS)
     write_json(summary.record_path, record)
     return summary

@@ -14,6 +14,7 @@ from scipy.ndimage import median_filter
 from .errors import InvalidSettingError, UnmeasurableDataError
 
 __all__ = ["Sweep", "CurrentStep", "find_current_step", "step_from_times", "check_sweep",
+           "parse_step_sizes", "protocol_steps",
            "MIN_SAMPLING_RATE_HZ"]
 
 #: Below this an action potential (about 1 ms) spans two samples or fewer: not measurable.
@@ -141,8 +142,8 @@ def find_current_step(command_pa: np.ndarray, sampling_rate_hz: float, *,
     3. The step is the stretch from the first to the last sample whose deviation from holding
        exceeds half of the largest deviation; so a step riding on noise, or with a small
        overshoot, is still found once, and the largest step wins in a multi-step protocol.
-    4. The holding current is then re-estimated as the median of every sample outside the
-       step, and the step size is the median over the step minus the holding current.
+    4. The holding current is the mean of the command before the step, and the step size the
+       mean over the step minus the holding current.
     Onset is the time of the first sample of the step, offset the time of the first sample
     after it, both from the sweep's first sample.
     """
@@ -161,20 +162,81 @@ def find_current_step(command_pa: np.ndarray, sampling_rate_hz: float, *,
     inside = np.abs(deviation) > 0.5 * largest
     first = int(np.argmax(inside))
     last = int(cmd.size - 1 - np.argmax(inside[::-1]))
-    outside = np.concatenate([cmd[:first], cmd[last + 1:]])
-    if outside.size >= n_head:
-        holding = float(np.median(outside))
-    size = float(np.median(cmd[first:last + 1])) - holding
+    if first > 0:
+        holding = float(np.mean(cmd[:first]))
+    size = float(np.mean(cmd[first:last + 1])) - holding
     return CurrentStep(onset_s=first / sampling_rate_hz, offset_s=(last + 1) / sampling_rate_hz,
                        size_pa=size, holding_pa=holding)
 
 
-def step_from_times(start_s: float, end_s: float, duration_s: float) -> CurrentStep:
-    """A step given by its times (no command channel): size and holding current unknown."""
+def step_from_times(start_s: float, end_s: float, duration_s: float,
+                    size_pa: float = float("nan")) -> CurrentStep:
+    """A step given by its times (no command channel); size known only when given."""
     if not (0 <= start_s < end_s):
         raise InvalidSettingError(
             f"the step must satisfy 0 <= START < END (got {start_s} s to {end_s} s)")
     if start_s >= duration_s:
         raise InvalidSettingError(
             f"the step starts at {start_s} s, after the sweep ends ({duration_s:.4f} s)")
-    return CurrentStep(onset_s=float(start_s), offset_s=float(min(end_s, duration_s)))
+    return CurrentStep(onset_s=float(start_s), offset_s=float(min(end_s, duration_s)),
+                       size_pa=float(size_pa))
+
+
+def parse_step_sizes(text: str) -> tuple[float, float]:
+    """'FIRST:INCREMENT' in pA -> (first, increment); e.g. '-100:20'."""
+    parts = str(text).split(":")
+    try:
+        if len(parts) != 2:
+            raise ValueError
+        first, increment = float(parts[0]), float(parts[1])
+    except ValueError:
+        raise InvalidSettingError(
+            f"step sizes must be FIRST:INCREMENT in pA, such as -100:20 (got {text!r})") from None
+    if not (np.isfinite(first) and np.isfinite(increment)):
+        raise InvalidSettingError(f"step sizes must be finite numbers (got {text!r})")
+    return first, increment
+
+
+def protocol_steps(sweeps: list[Sweep], step_times: tuple[float, float] | None = None,
+                   step_sizes: tuple[float, float] | None = None) -> list[CurrentStep | None]:
+    """The current step of every sweep of a recording.
+
+    Parameters
+    ----------
+    sweeps : list of Sweep
+    step_times : (start_s, end_s), optional
+        For sweeps without a command channel.
+    step_sizes : (first_pa, increment_pa), optional
+        With `step_times`: sweep k's step is first + k * increment.
+
+    Returns
+    -------
+    list of CurrentStep or None
+
+    Notes
+    -----
+    A sweep whose command channel shows no step (a 0 pA sweep of a step series) gets the
+    protocol's window, the median onset and offset of the other sweeps' steps, with size 0 and
+    the mean command as holding current; with no other steps to borrow from it has none.
+    """
+    steps: list[CurrentStep | None] = []
+    for k, sweep in enumerate(sweeps):
+        found = None
+        if sweep.command_pa is not None and sweep.command_pa.size >= 3:
+            found = find_current_step(sweep.command_pa, sweep.sampling_rate_hz)
+        if found is None and step_times is not None and sweep.command_pa is None:
+            size = step_sizes[0] + k * step_sizes[1] if step_sizes else float("nan")
+            found = step_from_times(step_times[0], step_times[1], sweep.duration_s, size)
+        steps.append(found)
+    known = [s for s in steps if s is not None]
+    for k, sweep in enumerate(sweeps):
+        if steps[k] is not None or sweep.command_pa is None:
+            continue
+        if known:
+            onset = float(np.median([s.onset_s for s in known]))
+            offset = float(np.median([s.offset_s for s in known]))
+            steps[k] = CurrentStep(onset, min(offset, sweep.duration_s), 0.0,
+                                   float(np.mean(sweep.command_pa)))
+        elif step_times is not None:
+            steps[k] = step_from_times(step_times[0], step_times[1], sweep.duration_s, 0.0)
+    return steps

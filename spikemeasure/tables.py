@@ -6,59 +6,109 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from .columns import SPIKE_COLUMNS, Column
+import numpy as np
+
+from .cell_features import CellFeatures, cell_features
+from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, Column
 from .detection import DetectionSettings, detect_spikes, smoothed_trace
 from .errors import SpikemeasureError
 from .measurement import SpikeMeasurements, measure_spikes
 from .reading import Recording
-from .sweeps import CurrentStep, Sweep, check_sweep, find_current_step, step_from_times
+from .sweep_features import SweepFeatures, sweep_features
+from .sweeps import CurrentStep, Sweep, check_sweep, protocol_steps
 
-__all__ = ["SweepResult", "measure_sweep", "measure_recording", "spike_table", "format_value",
-           "format_rows", "count_spikes", "flag_counts", "sweep_errors", "sweep_step"]
+__all__ = ["SweepResult", "measure_sweep", "measure_recording", "cell_summary", "spike_table",
+           "sweep_table", "cell_table", "format_value", "format_rows", "count_spikes",
+           "flag_counts", "sweep_errors"]
 
 
 @dataclass(frozen=True)
 class SweepResult:
-    """The outcome for one sweep: its step, its spikes, or why it could not be measured."""
+    """The outcome for one sweep: its step, spikes and features, or why it failed."""
 
     sweep: Sweep
     step: CurrentStep | None
     spikes: SpikeMeasurements | None
+    features: SweepFeatures | None = None
     error: str | None = None
 
 
-def sweep_step(sweep: Sweep, step_times: tuple[float, float] | None) -> CurrentStep | None:
-    """The sweep's current step: from the command channel, else from `step_times`."""
-    if sweep.command_pa is not None:
-        found = find_current_step(sweep.command_pa, sweep.sampling_rate_hz)
-        if found is not None or step_times is None:
-            return found
-    if step_times is not None:
-        return step_from_times(step_times[0], step_times[1], sweep.duration_s)
-    return None
+def _spike_times(spikes: SpikeMeasurements) -> np.ndarray:
+    """Threshold times, or peak times where a threshold is unknown."""
+    return np.where(np.isfinite(spikes.threshold_s), spikes.threshold_s, spikes.peak_s)
 
 
 def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(),
-                  step_times: tuple[float, float] | None = None) -> SweepResult:
-    """Measure one sweep; a sweep that cannot be measured gives a result with `error` set."""
+                  step: CurrentStep | None = None) -> SweepResult:
+    """Measure one sweep given its current step (see
+    :func:`~spikemeasure.sweeps.protocol_steps`); a sweep that cannot be measured gives a result
+    with `error` set."""
     try:
         check_sweep(sweep)
-        step = sweep_step(sweep, step_times)
         trace = smoothed_trace(sweep.voltage_mv, sweep.sampling_rate_hz, settings.smoothing_ms,
                                second_derivative=settings.needs_second_derivative)
     except SpikemeasureError as exc:
         msg = str(exc)
         if not msg.startswith(sweep.file):
             msg = f"{sweep.where()}: {msg}"
-        return SweepResult(sweep, None, None, msg)
+        return SweepResult(sweep, None, None, None, msg)
     spikes = measure_spikes(trace, detect_spikes(trace, settings), settings, step)
-    return SweepResult(sweep, step, spikes)
+    features = sweep_features(sweep.voltage_mv, sweep.sampling_rate_hz, step,
+                              _spike_times(spikes))
+    return SweepResult(sweep, step, spikes, features)
 
 
 def measure_recording(recording: Recording, settings: DetectionSettings = DetectionSettings(),
-                      step_times: tuple[float, float] | None = None) -> list[SweepResult]:
-    """Measure every sweep of a recording, in file order."""
-    return [measure_sweep(s, settings, step_times) for s in recording.sweeps]
+                      step_times: tuple[float, float] | None = None,
+                      step_sizes: tuple[float, float] | None = None) -> list[SweepResult]:
+    """Measure every sweep of a recording, in file order.
+
+    `step_times` (start_s, end_s) and `step_sizes` (first_pa, increment_pa) describe the step
+    of sweeps without a command channel.
+    """
+    steps = protocol_steps(recording.sweeps, step_times, step_sizes)
+    return [measure_sweep(s, settings, step) for s, step in zip(recording.sweeps, steps)]
+
+
+def cell_summary(results: list[SweepResult]) -> CellFeatures:
+    """Cell features from the measured sweeps of one recording."""
+    measured = [r for r in results if r.features is not None]
+    firsts = []
+    for r in measured:
+        first = None
+        if r.step is not None and len(r.spikes):
+            t = _spike_times(r.spikes)
+            inside = np.flatnonzero((t >= r.step.onset_s) & (t < r.step.offset_s))
+            if inside.size:
+                k = int(inside[0])
+                first = {name: float(getattr(r.spikes, name)[k]) for name in
+                         ("threshold_mv", "amplitude_mv", "half_width_ms", "ahp_depth_mv")}
+        firsts.append(first)
+    return cell_features([r.features.as_dict() for r in measured],
+                         [(r.sweep.voltage_mv, r.sweep.sampling_rate_hz) for r in measured],
+                         firsts)
+
+
+def sweep_table(results: list[SweepResult]) -> dict[str, list]:
+    """One row per measured sweep, columns of :data:`~spikemeasure.columns.SWEEP_COLUMNS`."""
+    table: dict[str, list] = {c.name: [] for c in SWEEP_COLUMNS}
+    for r in results:
+        if r.features is None:
+            continue
+        row = {"file": r.sweep.file, "sweep": r.sweep.index, **r.features.as_dict()}
+        for c in SWEEP_COLUMNS:
+            table[c.name].append(row[c.name])
+    return table
+
+
+def cell_table(cells: list[tuple[str, CellFeatures]]) -> dict[str, list]:
+    """One row per recording, columns of :data:`~spikemeasure.columns.CELL_COLUMNS`."""
+    table: dict[str, list] = {c.name: [] for c in CELL_COLUMNS}
+    for file, features in cells:
+        row = {"file": file, **features.as_dict()}
+        for c in CELL_COLUMNS:
+            table[c.name].append(row[c.name])
+    return table
 
 
 def spike_table(results: list[SweepResult]) -> dict[str, list]:

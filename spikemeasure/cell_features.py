@@ -1,0 +1,295 @@
+"""Per-cell features across a step series: rest, rheobase, f-I slope, input resistance,
+membrane time constant, sag, and the first spike at rheobase.
+
+Functions take per-sweep values (arrays aligned by sweep) or one voltage trace, and return
+plain values or a small dataclass; nothing here reads files or prints.
+"""
+from __future__ import annotations
+
+import warnings
+from dataclasses import asdict, dataclass
+
+import numpy as np
+from scipy.ndimage import uniform_filter1d
+from scipy.optimize import OptimizeWarning, curve_fit
+
+__all__ = ["CellFeatures", "ExponentialFit", "fit_membrane_tau", "rheobase", "fi_slope",
+           "input_resistance", "cell_features", "CELL_FLAG_TEXT", "MIN_TAU_FIT_R2",
+           "HOLDING_TOLERANCE_PA"]
+
+#: A fit of the membrane time constant explaining less of the variance than this is poor
+#: (our choice, stated in the docs).
+MIN_TAU_FIT_R2 = 0.95
+#: Sweeps whose holding current is within this of zero count as "no holding current".
+HOLDING_TOLERANCE_PA = 1.0
+
+CELL_FLAG_TEXT = {
+    "step_sizes_unknown": "the step sizes are unknown (no command channel and no "
+                          "--step-sizes), so rheobase, f-I slope, input resistance, time "
+                          "constant and sag are empty",
+    "holding_current_in_every_sweep": "every sweep has a holding current, so resting_mv is empty",
+    "no_spiking_step": "no step evoked a spike: rheobase, f-I slope and the rheobase_* values "
+                       "are empty",
+    "rheobase_is_first_step": "the smallest step tested already evoked a spike: rheobase is at "
+                              "most that step",
+    "too_few_fi_points": "fewer than 2 steps at or above rheobase: f-I slope is empty",
+    "too_few_passive_sweeps": "fewer than 2 hyperpolarizing spike-free sweeps: input "
+                              "resistance is empty",
+    "no_hyperpolarizing_step": "no hyperpolarizing step: time constant and sag are empty",
+    "tau_fit_failed": "the exponential fit for the time constant did not converge",
+    "tau_fit_poor": f"the exponential fit explains less than {MIN_TAU_FIT_R2:.0%} of the "
+                    "variance (membrane_tau_fit_r2): the time constant is left empty",
+}
+
+
+@dataclass(frozen=True)
+class ExponentialFit:
+    """V(t) = v_inf + (v0 - v_inf) exp(-t / tau_ms), t from step onset."""
+
+    tau_ms: float
+    v0_mv: float
+    v_inf_mv: float
+    r_squared: float
+    n_samples: int
+
+
+@dataclass(frozen=True)
+class CellFeatures:
+    """Features of one cell (NaN where not measurable; flags say why)."""
+
+    sweeps: int
+    resting_mv: float
+    rheobase_pa: float
+    rheobase_resolution_pa: float
+    fi_slope_hz_per_pa: float
+    max_firing_rate_hz: float
+    input_resistance_mohm: float
+    membrane_tau_ms: float
+    membrane_tau_fit_r2: float
+    sag_fraction: float
+    rheobase_threshold_mv: float
+    rheobase_amplitude_mv: float
+    rheobase_half_width_ms: float
+    rheobase_ahp_depth_mv: float
+    flags: tuple[str, ...] = ()
+
+    def as_dict(self) -> dict:
+        out = asdict(self)
+        out["flags"] = ";".join(self.flags)
+        return out
+
+
+def _exponential(t, v_inf, delta, tau):
+    return v_inf + delta * np.exp(-t / tau)
+
+
+def fit_membrane_tau(voltage_mv: np.ndarray, sampling_rate_hz: float, onset_s: float,
+                     offset_s: float, smooth_ms: float = 1.0) -> ExponentialFit | None:
+    """Fit a single exponential to the voltage from step onset to its minimum.
+
+    Parameters
+    ----------
+    voltage_mv : ndarray
+        Raw voltage in mV.
+    sampling_rate_hz : float
+    onset_s, offset_s : float
+        The (hyperpolarizing) step.
+    smooth_ms : float, optional
+        The minimum that ends the fit is found on a moving average of this width, so noise
+        does not end it early.
+
+    Returns
+    -------
+    ExponentialFit or None
+        None when the fit does not converge or the span is too short (fewer than 5 samples).
+
+    Notes
+    -----
+    ``scipy.optimize.curve_fit`` fits V(t) = v_inf + (v0 - v_inf) exp(-t / tau) to the raw
+    samples from onset to the minimum of the smoothed response (for a cell with sag, the
+    minimum before the sag; for a passive cell, the end of the step). Starting values: the
+    end value, the drop, and the time to 63 % of the drop. The quality is R^2 = 1 - SS_res /
+    SS_tot over the fitted samples.
+    """
+    start = int(round(onset_s * sampling_rate_hz))
+    stop = min(voltage_mv.size, int(round(offset_s * sampling_rate_hz)))
+    if stop - start < 5:
+        return None
+    span = voltage_mv[start:stop]
+    width = max(1, int(round(smooth_ms * 1e-3 * sampling_rate_hz)))
+    low = int(np.argmin(uniform_filter1d(span, size=min(width, span.size), mode="nearest")))
+    if low < 5:
+        return None
+    y = span[:low + 1]
+    t = np.arange(y.size) / sampling_rate_hz * 1e3
+    v_inf0, v00 = float(y[-max(1, y.size // 20):].mean()), float(y[:3].mean())
+    drop = v00 - v_inf0
+    target = v00 - 0.632 * drop
+    crossed = np.flatnonzero(y <= target) if drop > 0 else np.flatnonzero(y >= target)
+    tau0 = float(t[crossed[0]]) if crossed.size and crossed[0] > 0 else float(t[-1]) / 3
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", OptimizeWarning)
+            params, _ = curve_fit(_exponential, t, y, p0=(v_inf0, drop, max(tau0, 1e-3)),
+                                  maxfev=5000)
+    except (RuntimeError, OptimizeWarning, ValueError):
+        return None
+    v_inf, delta, tau = (float(p) for p in params)
+    if not (np.isfinite(tau) and tau > 0):
+        return None
+    residual = y - _exponential(t, v_inf, delta, tau)
+    total = float(np.sum((y - y.mean()) ** 2))
+    r2 = 1.0 - float(np.sum(residual ** 2)) / total if total > 0 else float("nan")
+    return ExponentialFit(tau, v_inf + delta, v_inf, r2, int(y.size))
+
+
+def rheobase(stimulus_pa: np.ndarray, spike_count: np.ndarray) -> tuple[float, float, int]:
+    """Smallest step that evokes at least one spike.
+
+    Returns
+    -------
+    rheobase_pa : float
+        NaN when no step evoked a spike.
+    resolution_pa : float
+        The gap between rheobase and the largest smaller step tested, i.e. the true rheobase
+        lies in (rheobase - resolution, rheobase]; NaN when rheobase is the smallest step.
+    sweep : int
+        Position of the rheobase sweep in the arrays (-1 when none).
+    """
+    stim = np.asarray(stimulus_pa, dtype=float)
+    count = np.asarray(spike_count)
+    ok = np.isfinite(stim)
+    spiking = np.flatnonzero(ok & (count > 0))
+    if spiking.size == 0:
+        return float("nan"), float("nan"), -1
+    k = int(spiking[np.argmin(stim[spiking])])
+    smaller = stim[ok & (stim < stim[k])]
+    resolution = float(stim[k] - smaller.max()) if smaller.size else float("nan")
+    return float(stim[k]), resolution, k
+
+
+def fi_slope(stimulus_pa: np.ndarray, rate_hz: np.ndarray, rheobase_pa: float) -> float:
+    """Least-squares slope (Hz/pA) of firing rate on step size, over steps >= rheobase.
+
+    NaN with fewer than 2 distinct steps.
+    """
+    stim = np.asarray(stimulus_pa, dtype=float)
+    rate = np.asarray(rate_hz, dtype=float)
+    use = np.isfinite(stim) & np.isfinite(rate) & (stim >= rheobase_pa)
+    if np.unique(stim[use]).size < 2:
+        return float("nan")
+    return float(np.polyfit(stim[use], rate[use], 1)[0])
+
+
+def input_resistance(stimulus_pa: np.ndarray, deflection_mv: np.ndarray) -> float:
+    """Least-squares slope of the steady-state deflection on the step size, in MOhm.
+
+    (mV / pA is GOhm; times 1000.) NaN with fewer than 2 distinct steps.
+    """
+    stim = np.asarray(stimulus_pa, dtype=float)
+    dv = np.asarray(deflection_mv, dtype=float)
+    use = np.isfinite(stim) & np.isfinite(dv)
+    if np.unique(stim[use]).size < 2:
+        return float("nan")
+    return float(np.polyfit(stim[use], dv[use], 1)[0] * 1e3)
+
+
+def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]],
+                  first_spikes: list[dict | None]) -> CellFeatures:
+    """Cell features from its sweeps.
+
+    Parameters
+    ----------
+    sweep_rows : list of dict
+        One :class:`~spikemeasure.sweep_features.SweepFeatures` ``as_dict()`` per measured sweep.
+    traces : list of (voltage_mv, sampling_rate_hz)
+        The raw voltage of the same sweeps, for the time-constant fit.
+    first_spikes : list of dict or None
+        The first spike in each sweep's step (keys threshold_mv, amplitude_mv, half_width_ms,
+        ahp_depth_mv), or None.
+
+    Returns
+    -------
+    CellFeatures
+
+    Notes
+    -----
+    - resting_mv: the median baseline_mv over sweeps whose holding current is within
+      :data:`HOLDING_TOLERANCE_PA` of zero.
+    - rheobase_pa: :func:`rheobase`, over steps of known size; rheobase_resolution_pa says how
+      finely the protocol pinned it down.
+    - fi_slope_hz_per_pa: :func:`fi_slope`; max_firing_rate_hz: the largest firing_rate_hz.
+    - input_resistance_mohm: :func:`input_resistance` of steady_state_mv - baseline_mv over
+      hyperpolarizing, spike-free sweeps.
+    - membrane_tau_ms: :func:`fit_membrane_tau` on the smallest hyperpolarizing spike-free
+      step; empty (flag ``tau_fit_poor``) when R^2 < :data:`MIN_TAU_FIT_R2`.
+    - sag_fraction: that of the most hyperpolarizing sweep.
+    - rheobase_*: threshold, amplitude, half-width and AHP depth of the rheobase sweep's first
+      spike in the step.
+    """
+    nan = float("nan")
+    flags: list[str] = []
+    n = len(sweep_rows)
+    col = {k: np.array([r[k] for r in sweep_rows], dtype=float) for k in
+           ("stimulus_pa", "holding_pa", "baseline_mv", "spike_count", "firing_rate_hz",
+            "steady_state_mv", "sag_fraction", "stimulus_start_s", "stimulus_end_s")} if n else {}
+    resting = nan
+    if n:
+        free = np.isfinite(col["holding_pa"]) & (np.abs(col["holding_pa"]) <= HOLDING_TOLERANCE_PA)
+        no_command = ~np.isfinite(col["holding_pa"])  # sizes from --step-sizes: no holding known
+        pick = free | no_command
+        if pick.any() and np.isfinite(col["baseline_mv"][pick]).any():
+            resting = float(np.nanmedian(col["baseline_mv"][pick]))
+        elif np.isfinite(col["holding_pa"]).any():
+            flags.append("holding_current_in_every_sweep")
+    values = dict(rheobase_pa=nan, rheobase_resolution_pa=nan, fi_slope_hz_per_pa=nan,
+                  max_firing_rate_hz=nan, input_resistance_mohm=nan, membrane_tau_ms=nan,
+                  membrane_tau_fit_r2=nan, sag_fraction=nan, rheobase_threshold_mv=nan,
+                  rheobase_amplitude_mv=nan, rheobase_half_width_ms=nan,
+                  rheobase_ahp_depth_mv=nan)
+    if n and np.isfinite(col["firing_rate_hz"]).any():
+        values["max_firing_rate_hz"] = float(np.nanmax(col["firing_rate_hz"]))
+    if not n or not np.isfinite(col["stimulus_pa"]).any():
+        if n:
+            flags.append("step_sizes_unknown")
+        return CellFeatures(n, resting, flags=tuple(flags), **values)
+    stim, count = col["stimulus_pa"], col["spike_count"]
+    rb, resolution, k = rheobase(stim, count)
+    if k < 0:
+        flags.append("no_spiking_step")
+    else:
+        values.update(rheobase_pa=rb, rheobase_resolution_pa=resolution)
+        if not np.isfinite(resolution):
+            flags.append("rheobase_is_first_step")
+        values["fi_slope_hz_per_pa"] = fi_slope(stim, col["firing_rate_hz"], rb)
+        if not np.isfinite(values["fi_slope_hz_per_pa"]):
+            flags.append("too_few_fi_points")
+        first = first_spikes[k]
+        if first is not None:
+            values.update(rheobase_threshold_mv=first["threshold_mv"],
+                          rheobase_amplitude_mv=first["amplitude_mv"],
+                          rheobase_half_width_ms=first["half_width_ms"],
+                          rheobase_ahp_depth_mv=first["ahp_depth_mv"])
+    passive = np.flatnonzero(np.isfinite(stim) & (stim < 0) & (count == 0))
+    deflection = col["steady_state_mv"] - col["baseline_mv"]
+    values["input_resistance_mohm"] = input_resistance(stim[passive], deflection[passive])
+    if not np.isfinite(values["input_resistance_mohm"]):
+        flags.append("too_few_passive_sweeps")
+    hyper = np.flatnonzero(np.isfinite(stim) & (stim < 0))
+    if hyper.size == 0:
+        flags.append("no_hyperpolarizing_step")
+    else:
+        values["sag_fraction"] = float(col["sag_fraction"][hyper[np.argmin(stim[hyper])]])
+        if passive.size:
+            j = int(passive[np.argmax(stim[passive])])  # smallest hyperpolarizing step
+            v, rate = traces[j]
+            fit = fit_membrane_tau(v, rate, col["stimulus_start_s"][j], col["stimulus_end_s"][j])
+            if fit is None:
+                flags.append("tau_fit_failed")
+            else:
+                values["membrane_tau_fit_r2"] = fit.r_squared
+                if fit.r_squared >= MIN_TAU_FIT_R2:
+                    values["membrane_tau_ms"] = fit.tau_ms
+                else:
+                    flags.append("tau_fit_poor")
+    return CellFeatures(n, resting, flags=tuple(flags), **values)
