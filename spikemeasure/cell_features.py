@@ -20,6 +20,9 @@ __all__ = ["CellFeatures", "ExponentialFit", "fit_membrane_tau", "rheobase", "fi
 #: A fit of the membrane time constant explaining less of the variance than this is poor
 #: (our choice, stated in the docs).
 MIN_TAU_FIT_R2 = 0.95
+#: The time-constant fit ends where the response is this close (as a fraction of its
+#: deflection) to its minimum.
+END_FRACTION = 0.02
 #: Sweeps whose holding current is within this of zero count as "no holding current".
 HOLDING_TOLERANCE_PA = 1.0
 
@@ -106,10 +109,12 @@ def fit_membrane_tau(voltage_mv: np.ndarray, sampling_rate_hz: float, onset_s: f
     Notes
     -----
     ``scipy.optimize.curve_fit`` fits V(t) = v_inf + (v0 - v_inf) exp(-t / tau) to the raw
-    samples from onset to the minimum of the smoothed response (for a cell with sag, the
-    minimum before the sag; for a passive cell, the end of the step). Starting values: the
-    end value, the drop, and the time to 63 % of the drop. The quality is R^2 = 1 - SS_res /
-    SS_tot over the fitted samples.
+    samples from onset towards the minimum of the smoothed response (for a cell with sag, the
+    minimum before the sag; for a passive cell, the end of the step), ending where the
+    smoothed response first comes within :data:`END_FRACTION` (2 %) of the deflection from
+    that minimum, about 4 tau for an exponential. Starting values: the end value, the drop,
+    and the time to 63 % of the drop. The quality is R^2 = 1 - SS_res / SS_tot over the
+    fitted samples.
     """
     start = int(round(onset_s * sampling_rate_hz))
     stop = min(voltage_mv.size, int(round(offset_s * sampling_rate_hz)))
@@ -117,7 +122,13 @@ def fit_membrane_tau(voltage_mv: np.ndarray, sampling_rate_hz: float, onset_s: f
         return None
     span = voltage_mv[start:stop]
     width = max(1, int(round(smooth_ms * 1e-3 * sampling_rate_hz)))
-    low = int(np.argmin(uniform_filter1d(span, size=min(width, span.size), mode="nearest")))
+    smooth = uniform_filter1d(span, size=min(width, span.size), mode="nearest")
+    low = int(np.argmin(smooth))
+    # end where the response first comes within END_FRACTION of the deflection from its
+    # minimum (about 4 tau for an exponential): a long flat stretch after that adds noise but
+    # no information about tau
+    near = smooth <= smooth[low] + END_FRACTION * (smooth[0] - smooth[low])
+    low = min(low, int(np.argmax(near)))
     if low < 5:
         return None
     y = span[:low + 1]

@@ -133,7 +133,10 @@ CELL_COLUMNS: tuple[Column, ...] = (
            "times 1000.", 3),
     Column("membrane_tau_ms", "ms", "Time constant of a single exponential fitted "
            "(scipy.optimize.curve_fit) to the voltage from onset to its minimum (on a 1 ms "
-           "moving average) on the smallest hyperpolarizing spike-free step. Empty, flagged "
+           "moving average; the fit ends where that average first comes within 2 % of the "
+           "deflection from the minimum, about 4 tau, since the flat stretch after carries noise "
+           "but no information about tau) on the smallest hyperpolarizing spike-free step. "
+           "Empty, flagged "
            f"`tau_fit_poor`, when the fit's R^2 is below {MIN_TAU_FIT_R2:g}.", 4),
     Column("sag_fraction", "", "sag_fraction of the most hyperpolarizing sweep.", 5),
     Column("rheobase_threshold_mv", "mV", "threshold_mv of the first spike in the step of the "

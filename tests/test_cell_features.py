@@ -1,0 +1,189 @@
+"""Cell features against an analytic passive membrane and published conductance models."""
+import csv
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+
+from conftest import step_command, write_nix
+from spikemeasure.cell_features import fit_membrane_tau, rheobase
+from spikemeasure.cli import main
+from spikemeasure.reading import Recording, read_recording
+from spikemeasure.simulation import simulate_current_steps
+from spikemeasure.sweeps import Sweep, protocol_steps
+from spikemeasure.tables import (cell_summary, cell_table, format_rows, measure_recording,
+                                 sweep_table)
+from spikemeasure.columns import CELL_COLUMNS, SWEEP_COLUMNS
+
+RATE = 20_000.0
+R_MOHM, TAU_MS, REST = 200.0, 20.0, -70.0
+
+
+def rc_recording(noise_mv=0.0, steps_pa=(-100.0, -75.0, -50.0, -25.0), seed=0):
+    """A passive RC membrane: V(t) = rest + R I (1 - exp(-t / RC)) during the step, relaxing
+    back after it (analytic; R in MOhm times I in pA is 1e-3 mV)."""
+    rng = np.random.default_rng(seed)
+    n = int(0.8 * RATE)
+    t = np.arange(n) / RATE
+    sweeps = []
+    for k, amp in enumerate(steps_pa):
+        cmd = step_command(n, RATE, amp, 0.1, 0.6)
+        dv_inf = R_MOHM * amp * 1e-3
+        on = (t - 0.1) * 1e3
+        v = np.where(t < 0.1, 0.0, dv_inf * (1 - np.exp(-np.clip(on, 0, None) / TAU_MS)))
+        at_off = dv_inf * (1 - np.exp(-500.0 / TAU_MS))
+        v = np.where(t >= 0.6, at_off * np.exp(-(t - 0.6) * 1e3 / TAU_MS), v) + REST
+        v = v + rng.normal(0, noise_mv, n) if noise_mv else v
+        sweeps.append(Sweep(v, RATE, cmd, file="rc.nwb", index=k))
+    return Recording("rc.nwb", "test", sweeps)
+
+
+class TestPassiveMembrane:
+    """Source: the analytic RC membrane, V = R I (1 - exp(-t / RC))."""
+
+    @pytest.mark.parametrize("noise", [0.0, 0.2])
+    def test_input_resistance_and_tau(self, noise):
+        cell = cell_summary(measure_recording(rc_recording(noise)))
+        assert cell.input_resistance_mohm == pytest.approx(R_MOHM, rel=0.01)
+        assert cell.membrane_tau_ms == pytest.approx(TAU_MS, rel=0.02)
+        assert cell.membrane_tau_fit_r2 > 0.95
+        assert cell.resting_mv == pytest.approx(REST, abs=0.05)
+        assert cell.sag_fraction == pytest.approx(0.0, abs=0.02)
+        assert "no_spiking_step" in cell.flags and np.isnan(cell.rheobase_pa)
+
+    def test_poor_fit_is_flagged_not_reported(self):
+        # a 1 mV response buried in 3 mV of noise
+        rec = rc_recording(3.0, steps_pa=(-10.0, -5.0))
+        cell = cell_summary(measure_recording(rec))
+        assert np.isnan(cell.membrane_tau_ms)
+        assert "tau_fit_poor" in cell.flags or "tau_fit_failed" in cell.flags
+
+    def test_exponential_fit_directly(self):
+        v = rc_recording().sweeps[3].voltage_mv
+        fit = fit_membrane_tau(v, RATE, 0.1, 0.6)
+        assert fit.tau_ms == pytest.approx(TAU_MS, rel=1e-3)
+        assert fit.v_inf_mv == pytest.approx(REST + R_MOHM * -25.0 * 1e-3, abs=1e-3)
+
+
+class TestHodgkinHuxleySteps:
+    """Source: Hodgkin & Huxley 1952; class II excitability of this model (Rinzel & Ermentrout
+    1989): repetitive firing starts at a non-zero rate, near 50 Hz at 6.3 degC (from memory)."""
+
+    @pytest.fixture(scope="class")
+    def cell(self):
+        steps = np.arange(0.0, 121.0, 10.0)
+        sim = simulate_current_steps("hodgkin_huxley_1952", steps, sampling_rate_hz=RATE,
+                                     duration_s=0.5, step_start_s=0.1, step_end_s=0.4)
+        sweeps = [Sweep(v, RATE, c, file="hh", index=k)
+                  for k, (v, c) in enumerate(zip(sim.voltage_mv, sim.command_pa))]
+        results = measure_recording(Recording("hh", "sim", sweeps))
+        # reference: upward 0 mV crossings of the noise-free trace inside the step
+        inside = slice(int(0.1 * RATE), int(0.4 * RATE))
+        crossings = [int(np.count_nonzero((v[inside][:-1] < 0) & (v[inside][1:] >= 0)))
+                     for v in sim.voltage_mv]
+        return steps, results, crossings
+
+    def test_rheobase_at_the_right_step(self, cell):
+        steps, results, crossings = cell
+        first = steps[int(np.argmax(np.array(crossings) > 0))]
+        summary = cell_summary(results)
+        assert summary.rheobase_pa == pytest.approx(first)
+        assert summary.rheobase_resolution_pa == pytest.approx(10.0)
+        assert [r.features.spike_count for r in results] == crossings
+
+    def test_fi_curve_jumps_to_a_nonzero_rate(self, cell):
+        steps, results, _ = cell
+        counts = np.array([r.features.spike_count for r in results])
+        rates = np.array([r.features.firing_rate_hz for r in results])
+        # repetitive firing (3 or more spikes) never starts slowly: from 0 straight to > 40 Hz
+        assert (counts >= 3).sum() >= 3
+        assert rates[counts >= 3].min() > 40.0
+        # and wherever the model fires twice or more, the interval is short (no long ISIs)
+        isi = np.array([r.features.mean_isi_ms for r in results])[counts >= 2]
+        assert np.all(1e3 / isi > 40.0)
+
+
+class TestAdaptation:
+    """Sources: Pospischil et al. 2008 (an M-current slows firing: positive index); Wang &
+    Buzsaki 1996 (fast-spiking, no adaptation: index near zero)."""
+
+    @pytest.mark.parametrize("model, amp, low, high", [
+        ("cortical_adapting", 150.0, 0.02, 1.0),
+        ("wang_buzsaki_1996", 250.0, -0.01, 0.01),
+    ])
+    def test_index(self, model, amp, low, high):
+        sim = simulate_current_steps(model, [amp], sampling_rate_hz=RATE, duration_s=0.7,
+                                     step_start_s=0.1, step_end_s=0.6)
+        sweep = Sweep(sim.voltage_mv[0], RATE, sim.command_pa[0], file=model)
+        result, = measure_recording(Recording(model, "sim", [sweep]))
+        assert result.features.spike_count >= 5
+        assert low < result.features.adaptation_index < high
+
+
+class TestProtocolSteps:
+    def test_zero_sweep_gets_the_protocol_window(self):
+        n = 4000
+        sweeps = [Sweep(np.zeros(n), RATE, step_command(n, RATE, a, 0.05, 0.15, -20.0), index=k)
+                  for k, a in enumerate([-50.0, 0.0, 50.0])]
+        steps = protocol_steps(sweeps)
+        assert steps[1].size_pa == 0.0 and steps[1].holding_pa == pytest.approx(-20.0)
+        assert (steps[1].onset_s, steps[1].offset_s) == (steps[0].onset_s, steps[0].offset_s)
+        assert steps[0].size_pa == pytest.approx(-50.0) and steps[2].size_pa == pytest.approx(50.0)
+
+    def test_sizes_from_the_command_line(self):
+        sweeps = [Sweep(np.zeros(4000), RATE, None, index=k) for k in range(3)]
+        steps = protocol_steps(sweeps, (0.05, 0.15), (-20.0, 10.0))
+        assert [s.size_pa for s in steps] == [-20.0, -10.0, 0.0]
+        unknown = protocol_steps(sweeps, (0.05, 0.15))
+        assert all(np.isnan(s.size_pa) for s in unknown)
+
+    def test_command_in_nanoamps(self, tmp_path):
+        n = 4000
+        sweeps = [(np.full(n, -65.0), step_command(n, RATE, a, 0.05, 0.15, 10.0))
+                  for a in (-30.0, 40.0)]
+        rec = read_recording(write_nix(tmp_path / "na.nix", sweeps, rate_hz=RATE,
+                                       current_units="nA"))
+        steps = protocol_steps(rec.sweeps)
+        assert [round(s.size_pa, 6) for s in steps] == [-30.0, 40.0]
+        assert steps[0].holding_pa == pytest.approx(10.0)
+
+
+def test_unknown_sizes_leave_cell_features_empty():
+    rec = rc_recording()
+    bare = Recording("rc", "t", [Sweep(s.voltage_mv, RATE, None, "rc", s.index) for s in rec.sweeps])
+    cell = cell_summary(measure_recording(bare, step_times=(0.1, 0.6)))
+    assert "step_sizes_unknown" in cell.flags and np.isnan(cell.input_resistance_mohm)
+    sized = cell_summary(measure_recording(bare, step_times=(0.1, 0.6),
+                                           step_sizes=(-100.0, 25.0)))
+    assert sized.input_resistance_mohm == pytest.approx(R_MOHM, rel=0.01)
+
+
+def test_measure_tables_agree_with_the_api(tmp_path):
+    """The CSVs of `spikemeasure measure sample_data/` hold the API's values for the same files."""
+    from pathlib import Path
+
+    data = Path(__file__).resolve().parents[1] / "sample_data"
+    out = tmp_path / "out"
+    r = CliRunner().invoke(main, ["measure", str(data), "--out", str(out), "--quiet"])
+    assert r.exit_code == 0, r.output
+    with open(out / "sweeps.csv", newline="") as fh:
+        sweep_rows = list(csv.reader(fh))
+    with open(out / "cells.csv", newline="") as fh:
+        cell_rows = list(csv.reader(fh))
+    assert sweep_rows[0] == [c.name for c in SWEEP_COLUMNS]
+    assert cell_rows[0] == [c.name for c in CELL_COLUMNS]
+    expected_sweeps, expected_cells = [], []
+    for path in sorted(p for p in data.iterdir() if p.suffix in (".nwb", ".nix")):
+        results = measure_recording(read_recording(path, shown_as=path.name))
+        expected_sweeps += format_rows(sweep_table(results), SWEEP_COLUMNS)
+        expected_cells += format_rows(cell_table([(path.name, cell_summary(results))]),
+                                      CELL_COLUMNS)
+    assert sweep_rows[1:] == expected_sweeps
+    assert cell_rows[1:] == expected_cells
+    assert len(cell_rows) == 5
+
+
+def test_rheobase_resolution():
+    assert rheobase(np.array([-50.0, 0.0, 50.0, 100.0]), np.array([0, 0, 0, 3]))[:2] == (100.0, 50.0)
+    value, resolution, k = rheobase(np.array([10.0, 20.0]), np.array([1, 4]))
+    assert value == 10.0 and np.isnan(resolution) and k == 0

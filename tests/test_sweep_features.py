@@ -1,0 +1,93 @@
+"""Sweep features against closed forms and hand computations on noise-free traces."""
+import numpy as np
+import pytest
+
+from spikemeasure.errors import InvalidSettingError
+from spikemeasure.sweep_features import adaptation_index, firing, passive_response, sweep_features
+from spikemeasure.sweeps import CurrentStep
+
+RATE = 20_000.0
+
+
+def sag_trace(rate=RATE, base=-70.0, drop=12.0, recover=4.0, tau_fast_ms=15.0,
+              tau_slow_ms=80.0):
+    """A hyperpolarizing response with an Ih-like sag: during the step (0.1-0.6 s)
+    V = base - drop (1 - exp(-t/tau_fast)) + recover (1 - exp(-t/tau_slow))."""
+    t = np.arange(int(0.8 * rate)) / rate
+    v = np.full(t.size, base)
+    inside = (t >= 0.1) & (t < 0.6)
+    s_ms = (t[inside] - 0.1) * 1e3
+    v[inside] += -drop * (1 - np.exp(-s_ms / tau_fast_ms)) + recover * (1 - np.exp(-s_ms / tau_slow_ms))
+    return v
+
+
+class TestPassiveResponse:
+    def test_sag_against_hand_computation(self):
+        """Source: the noise-free trace itself: steady state = mean of the last 100 ms, minimum
+        = its smallest sample, sag = (steady - min) / (baseline - min), computed with numpy."""
+        v = sag_trace()
+        step = CurrentStep(0.1, 0.6, -100.0, 0.0)
+        steady, lowest, sag = passive_response(v, RATE, step, baseline_mv=-70.0)
+        inside = v[int(0.1 * RATE):int(0.6 * RATE)]
+        hand_steady = inside[-int(0.1 * RATE):].mean()
+        hand_min = inside.min()
+        hand_sag = (hand_steady - hand_min) / (-70.0 - hand_min)
+        assert steady == pytest.approx(hand_steady, abs=1e-9)
+        assert lowest == pytest.approx(hand_min, abs=0.01)
+        assert sag == pytest.approx(hand_sag, rel=0.01)
+        assert 0.1 < sag < 0.5
+
+    def test_noise_does_not_pull_the_minimum_down(self):
+        v = sag_trace() + np.random.default_rng(2).normal(0, 0.3, int(0.8 * RATE))
+        clean = passive_response(sag_trace(), RATE, CurrentStep(0.1, 0.6, -100.0), -70.0)
+        noisy = passive_response(v, RATE, CurrentStep(0.1, 0.6, -100.0), -70.0)
+        assert noisy[1] == pytest.approx(clean[1], abs=0.15)
+        assert noisy[2] == pytest.approx(clean[2], abs=0.02)
+
+    def test_no_sag_on_depolarizing_step(self):
+        v = -sag_trace() - 140.0
+        assert np.isnan(passive_response(v, RATE, CurrentStep(0.1, 0.6, 100.0), -70.0)[2])
+
+
+class TestFiring:
+    """Source: spike times placed by hand; counts, rates and intervals by arithmetic."""
+
+    def test_counts_inside_the_step_only(self):
+        times = np.array([0.05, 0.12, 0.17, 0.27, 0.42, 0.65])
+        f = firing(times, CurrentStep(0.1, 0.6))
+        assert f["spike_count"] == 4
+        assert f["firing_rate_hz"] == pytest.approx(8.0)
+        assert f["first_spike_latency_ms"] == pytest.approx(20.0)
+        isi = np.array([50.0, 100.0, 150.0])
+        assert f["mean_isi_ms"] == pytest.approx(isi.mean())
+        assert f["isi_cv"] == pytest.approx(isi.std(ddof=1) / isi.mean())
+        assert f["adaptation_index"] == pytest.approx(np.mean([50 / 150, 50 / 250]))
+
+    def test_too_few_intervals(self):
+        f = firing(np.array([0.2, 0.3]), CurrentStep(0.1, 0.6))
+        assert f["mean_isi_ms"] == pytest.approx(100.0)
+        assert np.isnan(f["isi_cv"]) and np.isnan(f["adaptation_index"])
+        f = firing(np.array([]), CurrentStep(0.1, 0.6))
+        assert f["spike_count"] == 0 and np.isnan(f["first_spike_latency_ms"])
+
+
+def test_adaptation_index_closed_forms():
+    """Source: the definition (Druckmann et al. 2007): 0 for equal intervals; for intervals
+    growing by a factor r it is (r - 1) / (r + 1) exactly."""
+    assert adaptation_index(np.full(6, 25.0)) == pytest.approx(0.0)
+    r = 1.2
+    assert adaptation_index(10.0 * r ** np.arange(6)) == pytest.approx((r - 1) / (r + 1))
+    assert adaptation_index(np.array([10.0])) != adaptation_index(np.array([10.0]))  # NaN
+
+
+def test_sweep_features_baseline_and_no_step():
+    rng = np.random.default_rng(4)
+    v = -65.0 + rng.normal(0, 0.25, int(0.8 * RATE))
+    f = sweep_features(v, RATE, CurrentStep(0.1, 0.6, 0.0, 0.0), np.array([]))
+    # Source: numpy mean and std over the 100 ms before onset
+    pre = v[int(0.0 * RATE):int(0.1 * RATE)]
+    assert f.baseline_mv == pytest.approx(pre.mean()) and f.baseline_noise_mv == pytest.approx(pre.std())
+    none = sweep_features(v, RATE, None, np.array([]))
+    assert np.isnan(none.baseline_mv) and none.spike_count == 0
+    with pytest.raises(InvalidSettingError):
+        sweep_features(v, RATE, None, np.array([]), baseline_window_ms=0)
