@@ -14,12 +14,17 @@ from scipy.ndimage import uniform_filter1d
 from scipy.optimize import OptimizeWarning, curve_fit
 
 __all__ = ["CellFeatures", "ExponentialFit", "fit_membrane_tau", "rheobase", "fi_slope",
-           "input_resistance", "cell_features", "CELL_FLAG_TEXT", "MIN_TAU_FIT_R2",
+           "input_resistance", "cell_features", "CELL_FLAG_TEXT", "MAX_RESIDUAL_TO_NOISE",
+           "MIN_DEFLECTION_TO_NOISE", "NOISE_FLOOR_MV",
            "HOLDING_TOLERANCE_PA"]
 
-#: A fit of the membrane time constant explaining less of the variance than this is poor
-#: (our choice, stated in the docs).
-MIN_TAU_FIT_R2 = 0.95
+#: A time-constant fit is poor when its residual RMS exceeds this multiple of the sweep's
+#: baseline noise (the response is not one exponential: resonance, sag, active currents) ...
+MAX_RESIDUAL_TO_NOISE = 1.5
+#: ... or when the deflection is smaller than this multiple of the noise (too small to fit).
+MIN_DEFLECTION_TO_NOISE = 5.0
+#: Noise below this (mV) counts as this much, so a noise-free trace is not held to zero.
+NOISE_FLOOR_MV = 0.05
 #: The time-constant fit ends where the response is this close (as a fraction of its
 #: deflection) to its minimum.
 END_FRACTION = 0.02
@@ -40,8 +45,10 @@ CELL_FLAG_TEXT = {
                               "resistance is empty",
     "no_hyperpolarizing_step": "no hyperpolarizing step: time constant and sag are empty",
     "tau_fit_failed": "the exponential fit for the time constant did not converge",
-    "tau_fit_poor": f"the exponential fit explains less than {MIN_TAU_FIT_R2:.0%} of the "
-                    "variance (membrane_tau_fit_r2): the time constant is left empty",
+    "tau_fit_poor": f"the exponential fit leaves a residual over {MAX_RESIDUAL_TO_NOISE:g} "
+                    "times the recording noise (the response is not one exponential), or the "
+                    f"deflection is under {MIN_DEFLECTION_TO_NOISE:g} times the noise: the "
+                    "time constant is left empty",
 }
 
 
@@ -53,6 +60,7 @@ class ExponentialFit:
     v0_mv: float
     v_inf_mv: float
     r_squared: float
+    rms_residual_mv: float
     n_samples: int
 
 
@@ -69,6 +77,7 @@ class CellFeatures:
     input_resistance_mohm: float
     membrane_tau_ms: float
     membrane_tau_fit_r2: float
+    membrane_tau_residual_to_noise: float
     sag_fraction: float
     rheobase_threshold_mv: float
     rheobase_amplitude_mv: float
@@ -151,7 +160,8 @@ def fit_membrane_tau(voltage_mv: np.ndarray, sampling_rate_hz: float, onset_s: f
     residual = y - _exponential(t, v_inf, delta, tau)
     total = float(np.sum((y - y.mean()) ** 2))
     r2 = 1.0 - float(np.sum(residual ** 2)) / total if total > 0 else float("nan")
-    return ExponentialFit(tau, v_inf + delta, v_inf, r2, int(y.size))
+    rms = float(np.sqrt(np.mean(residual ** 2)))
+    return ExponentialFit(tau, v_inf + delta, v_inf, r2, rms, int(y.size))
 
 
 def rheobase(stimulus_pa: np.ndarray, spike_count: np.ndarray) -> tuple[float, float, int]:
@@ -233,7 +243,11 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
     - input_resistance_mohm: :func:`input_resistance` of steady_state_mv - baseline_mv over
       hyperpolarizing, spike-free sweeps.
     - membrane_tau_ms: :func:`fit_membrane_tau` on the smallest hyperpolarizing spike-free
-      step; empty (flag ``tau_fit_poor``) when R^2 < :data:`MIN_TAU_FIT_R2`.
+      step; empty (flag ``tau_fit_poor``) when the residual RMS exceeds
+      :data:`MAX_RESIDUAL_TO_NOISE` times the sweep's baseline noise or the deflection is under
+      :data:`MIN_DEFLECTION_TO_NOISE` times it (noise taken as at least
+      :data:`NOISE_FLOOR_MV`). R^2 alone would reject good fits to small, noisy deflections,
+      since noise caps it.
     - sag_fraction: that of the most hyperpolarizing sweep.
     - rheobase_*: threshold, amplitude, half-width and AHP depth of the rheobase sweep's first
       spike in the step.
@@ -242,8 +256,9 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
     flags: list[str] = []
     n = len(sweep_rows)
     col = {k: np.array([r[k] for r in sweep_rows], dtype=float) for k in
-           ("stimulus_pa", "holding_pa", "baseline_mv", "spike_count", "firing_rate_hz",
-            "steady_state_mv", "sag_fraction", "stimulus_start_s", "stimulus_end_s")} if n else {}
+           ("stimulus_pa", "holding_pa", "baseline_mv", "baseline_noise_mv", "spike_count",
+            "firing_rate_hz", "steady_state_mv", "sag_fraction", "stimulus_start_s",
+            "stimulus_end_s")} if n else {}
     resting = nan
     if n:
         free = np.isfinite(col["holding_pa"]) & (np.abs(col["holding_pa"]) <= HOLDING_TOLERANCE_PA)
@@ -255,7 +270,7 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
             flags.append("holding_current_in_every_sweep")
     values = dict(rheobase_pa=nan, rheobase_resolution_pa=nan, fi_slope_hz_per_pa=nan,
                   max_firing_rate_hz=nan, input_resistance_mohm=nan, membrane_tau_ms=nan,
-                  membrane_tau_fit_r2=nan, sag_fraction=nan, rheobase_threshold_mv=nan,
+                  membrane_tau_fit_r2=nan, membrane_tau_residual_to_noise=nan, sag_fraction=nan, rheobase_threshold_mv=nan,
                   rheobase_amplitude_mv=nan, rheobase_half_width_ms=nan,
                   rheobase_ahp_depth_mv=nan)
     if n and np.isfinite(col["firing_rate_hz"]).any():
@@ -298,8 +313,13 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
             if fit is None:
                 flags.append("tau_fit_failed")
             else:
+                noise = max(float(col["baseline_noise_mv"][j]), NOISE_FLOOR_MV) \
+                    if np.isfinite(col["baseline_noise_mv"][j]) else NOISE_FLOOR_MV
+                ratio = fit.rms_residual_mv / noise
                 values["membrane_tau_fit_r2"] = fit.r_squared
-                if fit.r_squared >= MIN_TAU_FIT_R2:
+                values["membrane_tau_residual_to_noise"] = ratio
+                deflection = abs(fit.v0_mv - fit.v_inf_mv)
+                if ratio <= MAX_RESIDUAL_TO_NOISE and deflection >= MIN_DEFLECTION_TO_NOISE * noise:
                     values["membrane_tau_ms"] = fit.tau_ms
                 else:
                     flags.append("tau_fit_poor")

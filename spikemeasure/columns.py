@@ -8,7 +8,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from .detection import DetectionSettings
-from .cell_features import CELL_FLAG_TEXT, HOLDING_TOLERANCE_PA, MIN_TAU_FIT_R2
+from .cell_features import (CELL_FLAG_TEXT, HOLDING_TOLERANCE_PA, MAX_RESIDUAL_TO_NOISE,
+                            MIN_DEFLECTION_TO_NOISE)
 from .measurement import FLAG_TEXT
 from .sweep_features import MIN_WINDOW_MS
 
@@ -136,8 +137,9 @@ CELL_COLUMNS: tuple[Column, ...] = (
            "moving average; the fit ends where that average first comes within 2 % of the "
            "deflection from the minimum, about 4 tau, since the flat stretch after carries noise "
            "but no information about tau) on the smallest hyperpolarizing spike-free step. "
-           "Empty, flagged "
-           f"`tau_fit_poor`, when the fit's R^2 is below {MIN_TAU_FIT_R2:g}.", 4),
+           f"Empty, flagged `tau_fit_poor`, when the residual RMS is over "
+           f"{MAX_RESIDUAL_TO_NOISE:g} times the sweep's baseline noise (the response is not "
+           f"one exponential) or the deflection under {MIN_DEFLECTION_TO_NOISE:g} times it.", 4),
     Column("sag_fraction", "", "sag_fraction of the most hyperpolarizing sweep.", 5),
     Column("rheobase_threshold_mv", "mV", "threshold_mv of the first spike in the step of the "
            "rheobase sweep.", 4),
@@ -147,7 +149,11 @@ CELL_COLUMNS: tuple[Column, ...] = (
     Column("rheobase_resolution_pa", "pA", "The gap between rheobase and the largest smaller "
            "step tested: the true rheobase lies in (rheobase_pa - this, rheobase_pa]. Empty when "
            "the smallest step already evoked a spike.", 2),
-    Column("membrane_tau_fit_r2", "", "R^2 of the time-constant fit over the fitted samples.", 5),
+    Column("membrane_tau_fit_r2", "", "R^2 of the time-constant fit over the fitted samples "
+           "(noise caps it: a good fit to a small deflection can have a low R^2).", 5),
+    Column("membrane_tau_residual_to_noise", "", "RMS residual of that fit over the sweep's "
+           "baseline_noise_mv (at least 0.05 mV): near 1 when one exponential explains all but "
+           "the noise.", 4),
     Column("flags", "", "Why values are empty or less certain, separated by ';' (see the list of "
            "cell flags)."),
 )

@@ -168,3 +168,33 @@ def test_refused_inputs_exit_1_with_the_reason(tmp_path, kind):
         r = run(args)
         assert r.exit_code == 1
         assert reason in r.output and "Traceback" not in r.output
+
+
+def test_inspect_shows_the_cell_summary():
+    from pathlib import Path
+
+    path = Path(__file__).resolve().parents[1] / "sample_data" / "region_a_cell_1.nwb"
+    r = run(["inspect", str(path)])
+    assert r.exit_code == 0
+    for label in ("cell:", "resting potential", "rheobase", "input resistance",
+                  "membrane time constant", "sag fraction", "first spike at rheobase"):
+        assert label in r.output
+
+
+def test_step_sizes_option(tmp_path):
+    _, v = gaussian_train(RATE, [30.0], 100.0)
+    path = write_text(tmp_path / "cell.txt", v)
+    r = run(["measure", str(path), "--out", str(tmp_path / "o"), "--step-sizes", "-50:10"])
+    assert r.exit_code == 2 and "--step-sizes needs --step" in r.output
+    r = run(["measure", str(path), "--out", str(tmp_path / "o"), "--step", "0.02", "0.08",
+             "--step-sizes", "minus fifty"])
+    assert r.exit_code == 2 and "FIRST:INCREMENT" in r.output
+    r = run(["measure", str(path), "--out", str(tmp_path / "o"), "--step", "0.02", "0.08",
+             "--step-sizes", "50:10"])
+    assert r.exit_code == 0, r.output
+    with open(tmp_path / "o" / "sweeps.csv", newline="") as fh:
+        row, = list(csv.DictReader(fh))
+    assert row["stimulus_pa"] == "50.00" and row["spike_count"] == "1"
+    with open(tmp_path / "o" / "cells.csv", newline="") as fh:
+        cell, = list(csv.DictReader(fh))
+    assert cell["rheobase_pa"] == "50.00" and "rheobase_is_first_step" in cell["flags"]
