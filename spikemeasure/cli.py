@@ -1,7 +1,8 @@
 """The ``spikemeasure`` command: a thin layer over the Python API.
 
-Exit codes: 0 everything was measured; 1 nothing could be measured, or an error; 2 a usage
-error (from click); 3 some files or sweeps failed and the rest were measured.
+Exit codes: 0 everything was measured; 1 any file or sweep failed (the rest were measured and
+errors.csv says what failed), or an error; 2 a usage error (from click); 130 interrupted
+(Ctrl-C), after writing the tables of the files finished.
 """
 from __future__ import annotations
 
@@ -14,7 +15,7 @@ from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, columns_markdow
 from .detection import THRESHOLD_METHODS, DetectionSettings
 from .errors import SpikemeasureError
 
-EXIT_PARTIAL = 3
+EXIT_INTERRUPTED = 130
 
 
 def _step_sizes(ctx: click.Context, param: click.Parameter, value):
@@ -113,42 +114,93 @@ def main(ctx: click.Context, debug: bool) -> None:
     ctx.obj = _Context(debug)
 
 
+class _Progress:
+    """A one-line progress display on a terminal; plain log lines elsewhere (CI)."""
+
+    def __init__(self, on_terminal: bool):
+        self.on_terminal = on_terminal
+        self.width = 0
+
+    def __call__(self, event: dict) -> None:
+        if not self.on_terminal:
+            click.echo(event["line"], err=True)
+            return
+        if event["done"] is None:
+            return
+        done, total, elapsed = event["done"], event["total"], event["elapsed_s"]
+        remaining = elapsed / done * (total - done) if done else 0.0
+        text = (f"[{done}/{total}] {event['file'][-40:]}  elapsed {_clock(elapsed)}  "
+                f"remaining {_clock(remaining)}")
+        click.echo("\r" + text.ljust(self.width), err=True, nl=False)
+        self.width = len(text)
+
+    def close(self) -> None:
+        if self.on_terminal and self.width:
+            click.echo("", err=True)
+
+
+def _clock(seconds: float) -> str:
+    minutes, secs = divmod(int(round(seconds)), 60)
+    hours, minutes = divmod(minutes, 60)
+    return f"{hours}:{minutes:02d}:{secs:02d}" if hours else f"{minutes:02d}:{secs:02d}"
+
+
 @main.command()
 @click.argument("paths", nargs=-1, required=True, type=click.Path())
 @click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False),
-              help="Folder for spikes.csv and run.json (created if missing).")
+              help="Folder for spikes.csv, sweeps.csv, cells.csv, errors.csv and run.json "
+                   "(created if missing).")
+@click.option("--jobs", type=click.IntRange(min=1), default=None, metavar="N",
+              help="Files measured in parallel, in N processes.  [default: the machine's cores]")
+@click.option("--force", is_flag=True,
+              help="Measure every file again, also those unchanged since an earlier run.")
+@click.option("--glob", "patterns", multiple=True, metavar="PATTERN",
+              help="Also pick up files matching PATTERN in folders (e.g. '*.abf'); repeatable. "
+                   "Open formats (.nwb, .nix, .txt, .csv, .tsv) are picked up anyway.")
 @click.option("--quiet", is_flag=True, help="Print only the final summary.")
 @_settings_options
 @click.pass_context
-def measure(ctx: click.Context, paths, out_dir, quiet, step_times, step_sizes, sampling_rate_hz,
-            **kw):
+def measure(ctx: click.Context, paths, out_dir, jobs, force, patterns, quiet, step_times,
+            step_sizes, sampling_rate_hz, **kw):
     """Measure every spike, sweep and cell in PATHS (files or folders) into --out.
 
-    Writes spikes.csv, sweeps.csv, cells.csv and run.json.
+    Writes spikes.csv, sweeps.csv, cells.csv, errors.csv and run.json. A rerun measures only
+    the files that changed (or whose parameters did) since the last run into the same --out.
     """
-    from .runner import measure_paths
+    from .runner import default_jobs, measure_paths
 
     _check_step_options(step_times, step_sizes)
+    progress = None if quiet else _Progress(sys.stderr.isatty())
     try:
         settings = _make_settings(kw)
-        progress = None if quiet else (lambda line: click.echo(line, err=True))
         summary = measure_paths(list(paths), out_dir, settings, step_times=step_times,
                                 step_sizes=step_sizes, sampling_rate_hz=sampling_rate_hz,
-                                progress=progress)
+                                jobs=jobs or default_jobs(), force=force,
+                                extra_patterns=tuple(patterns), progress=progress)
+    except KeyboardInterrupt:
+        if progress is not None:
+            progress.close()
+        click.echo(f"Interrupted: the tables in {out_dir} hold the files finished; run the "
+                   "same command again to measure the rest.", err=True)
+        ctx.exit(EXIT_INTERRUPTED)
+        return
     except SpikemeasureError as exc:
         _fail(ctx, exc)
         return
-    click.echo(f"{summary.files_measured} files, {summary.sweeps_measured} sweeps, "
-               f"{summary.spikes} spikes -> {summary.spikes_path}", err=True)
+    if progress is not None:
+        progress.close()
+    reused = f" ({summary.files_reused} unchanged, kept)" if summary.files_reused else ""
+    click.echo(f"{summary.files_measured + summary.files_reused} files measured{reused}, "
+               f"{summary.files_failed} failed; {summary.sweeps_measured} sweeps, "
+               f"{summary.spikes} spikes -> {summary.out_dir}", err=True)
     if summary.failures:
-        click.echo(f"{len(summary.failures)} problems (also in {summary.record_path}):", err=True)
+        click.echo(f"{len(summary.failures)} problems (also in {summary.errors_path}):", err=True)
         for f in summary.failures:
             click.echo(f"  {f['message']}", err=True)
     if summary.nothing_measured:
         click.echo("Error: nothing could be measured", err=True)
+    if summary.failures or summary.nothing_measured:
         ctx.exit(1)
-    if summary.failures:
-        ctx.exit(EXIT_PARTIAL)
 
 
 @main.command()

@@ -13,7 +13,8 @@ from .cell_features import (CELL_FLAG_TEXT, HOLDING_TOLERANCE_PA, MAX_RESIDUAL_T
 from .measurement import FLAG_TEXT
 from .sweep_features import MIN_WINDOW_MS
 
-__all__ = ["Column", "SPIKE_COLUMNS", "SWEEP_COLUMNS", "CELL_COLUMNS", "spike_column_names",
+__all__ = ["Column", "SPIKE_COLUMNS", "SWEEP_COLUMNS", "CELL_COLUMNS", "ERROR_COLUMNS",
+           "spike_column_names",
            "columns_markdown"]
 
 
@@ -159,6 +160,14 @@ CELL_COLUMNS: tuple[Column, ...] = (
 )
 
 
+ERROR_COLUMNS: tuple[Column, ...] = (
+    Column("file", "", "The input file (or the path given, when it does not exist)."),
+    Column("stage", "", "Where it failed: `input` (the path), `read` (the file or one of its "
+           "sweeps could not be read), or `sweep N` (sweep N could not be measured)."),
+    Column("message", "", "What is wrong, naming the file and sweep, and how to fix it."),
+)
+
+
 def spike_column_names() -> list[str]:
     return [c.name for c in SPIKE_COLUMNS]
 
@@ -194,7 +203,9 @@ def columns_markdown() -> str:
     for title, intro, cols in (
             ("sweeps.csv", "One row per measured sweep; times are seconds from the sweep's "
              "first sample.", SWEEP_COLUMNS),
-            ("cells.csv", "One row per recording file (a cell's step series).", CELL_COLUMNS)):
+            ("cells.csv", "One row per recording file (a cell's step series).", CELL_COLUMNS),
+            ("errors.csv", "One row per failure; the run goes on with the other files.",
+             ERROR_COLUMNS)):
         lines += ["", f"## {title}", "", intro, "", "| column | unit | definition |",
                   "| --- | --- | --- |"]
         lines += [f"| `{c.name}` | {c.unit or '-'} | {c.definition} |" for c in cols]

@@ -15,7 +15,7 @@ from pathlib import Path
 from .columns import SPIKE_COLUMNS, Column
 from .tables import format_rows
 
-__all__ = ["write_text_atomic", "write_table_csv", "write_json"]
+__all__ = ["write_text_atomic", "write_table_csv", "write_rows_csv", "write_json"]
 
 
 def write_text_atomic(path: str | os.PathLike, text: str) -> Path:
@@ -41,10 +41,16 @@ def write_text_atomic(path: str | os.PathLike, text: str) -> Path:
 def write_table_csv(path: str | os.PathLike, table: dict[str, list],
                     columns: tuple[Column, ...] = SPIKE_COLUMNS) -> Path:
     """Write a table (dict of column lists) as CSV with the declared header and formats."""
+    return write_rows_csv(path, columns, format_rows(table, columns))
+
+
+def write_rows_csv(path: str | os.PathLike, columns: tuple[Column, ...],
+                   rows: list[list[str]]) -> Path:
+    """Write already formatted rows under the declared header, atomically."""
     buffer = io.StringIO()
     writer = csv.writer(buffer, lineterminator="\n")
     writer.writerow([c.name for c in columns])
-    writer.writerows(format_rows(table, columns))
+    writer.writerows(rows)
     return write_text_atomic(path, buffer.getvalue())
 
 

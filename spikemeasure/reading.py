@@ -28,15 +28,12 @@ import numpy as np
 from .errors import UnreadableInputError
 from .sweeps import Sweep
 
-__all__ = ["Recording", "ChannelInfo", "read_recording", "find_recordings", "TEXT_SUFFIXES",
-           "RECORDING_SUFFIXES"]
+__all__ = ["Recording", "ChannelInfo", "read_recording", "find_recordings", "is_temporary",
+           "TEXT_SUFFIXES", "RECORDING_SUFFIXES"]
 
 TEXT_SUFFIXES = (".txt", ".csv", ".tsv")
-#: Suffixes a folder search picks up without question; other suffixes neo knows are added
-#: at run time, less those that more often hold something else (see `_GENERIC_SUFFIXES`).
+#: The open formats a folder search picks up; other formats neo reads come in by pattern.
 RECORDING_SUFFIXES = (".nwb", ".nix") + TEXT_SUFFIXES
-_GENERIC_SUFFIXES = {".json", ".xml", ".npy", ".mat", ".h5", ".ini", ".meta", ".dat", ".bin",
-                     ".raw", ".pkl", ".pickle", ".set", ".txt", ".md"}
 _PICKLE_SUFFIXES = {".pkl", ".pickle", ".pck", ".joblib"}
 _HDF5_SIGNATURE = b"\x89HDF\r\n\x1a\n"
 
@@ -518,37 +515,59 @@ def read_recording(path: str | os.PathLike, *, shown_as: str | None = None,
     return _read_other(p, shown)
 
 
-def _folder_suffixes() -> set[str]:
-    import neo.io
-
-    known = {"." + ext.lower() for cls in neo.io.iolist for ext in cls.extensions if ext}
-    return (known - _GENERIC_SUFFIXES) | set(RECORDING_SUFFIXES)
+_TEMPORARY = re.compile(r"^(~|\.~|\.#)|(~|\.tmp|\.temp|\.part|\.swp|\.crdownload|\.partial)$",
+                        re.IGNORECASE)
 
 
-def find_recordings(paths, *, exclude: str | os.PathLike | None = None
-                    ) -> list[tuple[Path, str]]:
+def is_temporary(name: str) -> bool:
+    """Editor, download and copy leftovers (``~$x``, ``x~``, ``x.tmp``, ``x.part``, ...)."""
+    return bool(_TEMPORARY.search(name))
+
+
+def find_recordings(paths, *, exclude: str | os.PathLike | None = None,
+                    extra_patterns: tuple[str, ...] = ()) -> list[tuple[Path, str]]:
     """Expand files and folders into (path, name to show) pairs, in a stable order.
 
-    A file is taken as given and shown by its file name; a folder is searched recursively for
-    files with a recording suffix (hidden files, README files and `exclude`, typically the
-    output folder, are skipped) and each is shown by its path relative to that folder.
+    Parameters
+    ----------
+    paths : iterable of path-like
+        Files are taken as given and shown by their file name. Folders are searched
+        recursively for the open formats (:data:`RECORDING_SUFFIXES`: NWB, NIX, text) and for
+        files matching any of `extra_patterns`; each is shown by its path relative to that
+        folder.
+    exclude : path-like, optional
+        A folder to skip (the output folder).
+    extra_patterns : tuple of str, optional
+        Glob patterns (``*.abf``, ``cells/**/*.dat``) matched against the path relative to the
+        folder and against the file name, for other formats neo reads.
+
+    Notes
+    -----
+    Hidden files and folders, README files and temporary files (:func:`is_temporary`) are
+    skipped. Files are sorted by their relative path, so the order is the same on every run.
     """
+    from fnmatch import fnmatch
+
     found: list[tuple[Path, str]] = []
-    suffixes = None
     skip = Path(exclude).resolve() if exclude is not None else None
     for given in paths:
         g = Path(given)
-        if g.is_dir():
-            suffixes = suffixes or _folder_suffixes()
-            for f in sorted(g.rglob("*")):
-                rel = f.relative_to(g)
-                if any(part.startswith(".") for part in rel.parts) or not f.is_file():
-                    continue
-                if skip is not None and (skip == f.resolve() or skip in f.resolve().parents):
-                    continue
-                if f.name.lower().startswith("readme") or f.suffix.lower() not in suffixes:
-                    continue
-                found.append((f, rel.as_posix()))
-        else:
-            found.append((g, g.name))
+        if not g.is_dir():
+            if g.exists():
+                found.append((g, g.name))
+            continue
+        picked = []
+        for f in g.rglob("*"):
+            rel = f.relative_to(g)
+            if any(part.startswith(".") for part in rel.parts) or not f.is_file():
+                continue
+            if skip is not None and (skip == f.resolve() or skip in f.resolve().parents):
+                continue
+            if f.name.lower().startswith("readme") or is_temporary(f.name):
+                continue
+            posix = rel.as_posix()
+            if f.suffix.lower() in RECORDING_SUFFIXES or any(
+                    fnmatch(posix, p) or fnmatch(f.name, p) for p in extra_patterns):
+                picked.append((f, posix))
+        found.extend(sorted(picked, key=lambda item: item[1]))
     return found

@@ -1,46 +1,64 @@
-"""Measure a list of files and folders into an output folder: the job behind ``measure``.
+"""Measure files and folders into an output folder: the job behind ``spikemeasure measure``.
 
-One bad file never stops the run: its error is recorded and the others go on. The spike
-table and the run record are written atomically at the end.
+- Each file is one task, run in this process (``jobs=1``) or in a pool of processes; its
+  rows come back as formatted text and are laid out in file order, so the tables are
+  byte-identical whatever the number of jobs.
+- One bad file never stops the run: its failure is recorded (``errors.csv``, ``run.json``)
+  and the others go on.
+- Each file's outcome is kept in a cache under the output folder, named by the file's SHA-256
+  and a hash of the parameters that affect it (and the tool's version). A rerun reuses the
+  outcomes of unchanged files and measures only the rest; ``force=True`` redoes all.
+- Tables are written atomically, again every few seconds during a long run and at the end
+  (also after Ctrl-C), so an interrupted run leaves complete tables for the files finished.
 """
 from __future__ import annotations
 
 import hashlib
+import json
+import os
 import platform
 import sys
 import time
+from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable
 
 from . import __version__
+from .columns import CELL_COLUMNS, ERROR_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS
 from .detection import DetectionSettings
 from .errors import SpikemeasureError
-from .output import write_json, write_table_csv
-from .reading import find_recordings, read_recording
-from .columns import CELL_COLUMNS, SWEEP_COLUMNS
-from .tables import (cell_summary, cell_table, count_spikes, flag_counts, measure_recording,
-                     spike_table, sweep_table)
+from .output import write_json, write_rows_csv, write_text_atomic
+from .reading import TEXT_SUFFIXES, find_recordings, read_recording
+from .tables import (cell_summary, cell_table, count_spikes, flag_counts, format_rows,
+                     measure_recording, spike_table, sweep_table)
 
-__all__ = ["RunSummary", "measure_paths", "file_sha256", "SPIKES_FILE", "SWEEPS_FILE", "CELLS_FILE",
-           "RUN_RECORD_FILE"]
+__all__ = ["RunSummary", "measure_paths", "measure_file", "file_sha256", "SPIKES_FILE",
+           "SWEEPS_FILE", "CELLS_FILE", "ERRORS_FILE", "RUN_RECORD_FILE", "CACHE_FOLDER"]
 
 SPIKES_FILE = "spikes.csv"
 SWEEPS_FILE = "sweeps.csv"
 CELLS_FILE = "cells.csv"
+ERRORS_FILE = "errors.csv"
 RUN_RECORD_FILE = "run.json"
+CACHE_FOLDER = ".spikemeasure-cache"
+#: Tables are rewritten at most this often (s) during a run, so a killed run loses little.
+TABLE_REFRESH_S = 5.0
 
 
 @dataclass
 class RunSummary:
-    """What a run did: files measured, spikes found, and every failure with its reason."""
+    """What a run did: files measured or reused, spikes found, every failure with its reason."""
 
     out_dir: Path
     files_measured: int = 0
+    files_reused: int = 0
+    files_failed: int = 0
     sweeps_measured: int = 0
     spikes: int = 0
     failures: list[dict] = field(default_factory=list)
     inputs: list[dict] = field(default_factory=list)
+    interrupted: bool = False
 
     @property
     def nothing_measured(self) -> bool:
@@ -57,6 +75,10 @@ class RunSummary:
     @property
     def cells_path(self) -> Path:
         return self.out_dir / CELLS_FILE
+
+    @property
+    def errors_path(self) -> Path:
+        return self.out_dir / ERRORS_FILE
 
     @property
     def record_path(self) -> Path:
@@ -88,18 +110,113 @@ def _versions() -> dict:
             "numpy": numpy.__version__, "scipy": scipy.__version__, "neo": neo_version}
 
 
+def _failure(file: str, stage: str, message: str) -> dict:
+    return {"file": file, "stage": stage, "message": message}
+
+
+def measure_file(path: str, shown: str, parameters: dict) -> dict:
+    """Read and measure one file; its outcome as plain data (formatted rows, failures, counts).
+
+    Runs in a worker process as well as in this one, so it takes and returns plain values.
+    """
+    settings = DetectionSettings(**parameters["settings"])
+    step_times = tuple(parameters["step_s"]) if parameters.get("step_s") else None
+    step_sizes = tuple(parameters["step_sizes_pa"]) if parameters.get("step_sizes_pa") else None
+    outcome = {"file": shown, "failures": [], "spike_rows": [], "sweep_rows": [],
+               "cell_rows": [], "sweeps": 0, "sweeps_measured": 0, "spikes": 0,
+               "spike_flags": {}, "format": None}
+    try:
+        recording = read_recording(path, shown_as=shown,
+                                   sampling_rate_hz=parameters.get("sampling_rate_hz"))
+    except SpikemeasureError as exc:
+        outcome["failures"].append(_failure(shown, "read", str(exc)))
+        return outcome
+    results = measure_recording(recording, settings, step_times, step_sizes)
+    measured = [r for r in results if r.error is None]
+    for problem in recording.problems:
+        outcome["failures"].append(_failure(shown, "read", problem))
+    for r in results:
+        if r.error:
+            outcome["failures"].append(_failure(shown, f"sweep {r.sweep.index}", r.error))
+    outcome.update(format=recording.format, sweeps=len(recording.sweeps),
+                   sweeps_measured=len(measured), spikes=count_spikes(results),
+                   spike_flags=flag_counts(results))
+    outcome["spike_rows"] = format_rows(spike_table(results), SPIKE_COLUMNS)
+    outcome["sweep_rows"] = format_rows(sweep_table(results), SWEEP_COLUMNS)
+    if measured:
+        outcome["cell_rows"] = format_rows(cell_table([(shown, cell_summary(results))]),
+                                           CELL_COLUMNS)
+    return outcome
+
+
+def _parameter_hash(parameters: dict, is_text: bool) -> str:
+    """Hash of what affects a file's outcome: every parameter (the sampling rate option only
+    for text files, the only ones it applies to) and the tool's version."""
+    relevant = dict(parameters, version=__version__)
+    if not is_text:
+        relevant.pop("sampling_rate_hz", None)
+    return hashlib.sha256(json.dumps(relevant, sort_keys=True).encode()).hexdigest()[:16]
+
+
+def _cache_path(out: Path, sha: str, parameter_hash: str) -> Path:
+    return out / CACHE_FOLDER / f"{sha[:32]}-{parameter_hash}.json"
+
+
+def _load_cached(path: Path, shown: str) -> dict | None:
+    try:
+        outcome = json.loads(path.read_text())
+    except (OSError, ValueError):
+        return None  # absent or damaged: measure again
+    if not isinstance(outcome, dict) or "spike_rows" not in outcome:
+        return None
+    # the file may have moved or been renamed since: show it by its name in this run
+    outcome = dict(outcome, file=shown)
+    for table in ("spike_rows", "sweep_rows", "cell_rows"):
+        outcome[table] = [[shown] + row[1:] for row in outcome[table]]
+    outcome["failures"] = [dict(f, file=shown, message=f["message"].replace(
+        f["file"], shown, 1)) for f in outcome["failures"]]
+    return outcome
+
+
+def _describe(outcome: dict) -> str:
+    shown = outcome["file"]
+    if not outcome["sweeps_measured"]:
+        return f"failed   {outcome['failures'][0]['message']}" if outcome["failures"] else \
+            f"failed   {shown}"
+    skipped = len([f for f in outcome["failures"]])
+    notes = [_count(skipped, "problem")] if skipped else []
+    notes += [f"{_count(c, 'spike')} {flag}" for flag, c in sorted(outcome["spike_flags"].items())]
+    return (f"measured {shown}: {_count(outcome['sweeps_measured'], 'sweep')}, "
+            f"{_count(outcome['spikes'], 'spike')}" + (f" ({'; '.join(notes)})" if notes else ""))
+
+
+def _write_tables(summary: RunSummary, outcomes: list[dict | None], early: list[dict]) -> None:
+    done = [o for o in outcomes if o is not None]
+    rows = {name: [r for o in done for r in o[name]] for name in
+            ("spike_rows", "sweep_rows", "cell_rows")}
+    write_rows_csv(summary.spikes_path, SPIKE_COLUMNS, rows["spike_rows"])
+    write_rows_csv(summary.sweeps_path, SWEEP_COLUMNS, rows["sweep_rows"])
+    write_rows_csv(summary.cells_path, CELL_COLUMNS, rows["cell_rows"])
+    failures = early + [f for o in done for f in o["failures"]]
+    write_rows_csv(summary.errors_path, ERROR_COLUMNS,
+                   [[f["file"], f["stage"], f["message"]] for f in failures])
+
+
 def measure_paths(paths: list[str], out_dir: str | Path,
                   settings: DetectionSettings = DetectionSettings(), *,
                   step_times: tuple[float, float] | None = None,
                   step_sizes: tuple[float, float] | None = None,
-                  sampling_rate_hz: float | None = None,
-                  progress: Callable[[str], None] | None = None) -> RunSummary:
-    """Measure every recording under `paths` and write spikes.csv and run.json to `out_dir`.
+                  sampling_rate_hz: float | None = None, jobs: int = 1, force: bool = False,
+                  extra_patterns: tuple[str, ...] = (), config_file: str | None = None,
+                  progress: Callable[[dict], None] | None = None) -> RunSummary:
+    """Measure every recording under `paths`; write spikes.csv, sweeps.csv, cells.csv,
+    errors.csv and run.json to `out_dir`.
 
     Parameters
     ----------
     paths : list of str
-        Files and folders (searched recursively).
+        Files and folders (searched recursively; see
+        :func:`~spikemeasure.reading.find_recordings`).
     out_dir : str or Path
         Created if missing; skipped when searching an input folder that contains it.
     settings : DetectionSettings
@@ -109,83 +226,161 @@ def measure_paths(paths: list[str], out_dir: str | Path,
         With `step_times`: the step sizes of such sweeps, by sweep index.
     sampling_rate_hz : float, optional
         For text files without a time column.
+    jobs : int, optional
+        Processes to measure files in (1: this process).
+    force : bool, optional
+        Measure every file again, ignoring outcomes kept from earlier runs.
+    extra_patterns : tuple of str, optional
+        Glob patterns of further files to pick up in folders.
+    config_file : str, optional
+        The project file the parameters came from, for the run record.
     progress : callable, optional
-        Called with one line of text per file.
+        Called with ``{"done", "total", "file", "line", "elapsed_s"}`` after each file.
 
     Returns
     -------
     RunSummary
+
+    Raises
+    ------
+    KeyboardInterrupt
+        After writing the tables of the files finished (the summary says ``interrupted``).
     """
     out = Path(out_dir)
-    say = progress or (lambda line: None)
+    out.mkdir(parents=True, exist_ok=True)
     started = time.time()
     summary = RunSummary(out_dir=out)
-    all_results = []
-    cells = []
-    files = find_recordings(paths, exclude=out)
+    parameters = {"settings": settings.as_dict(),
+                  "step_s": list(step_times) if step_times else None,
+                  "step_sizes_pa": list(step_sizes) if step_sizes else None,
+                  "sampling_rate_hz": sampling_rate_hz}
+    early: list[dict] = []
     for given in paths:
         if not Path(given).exists():
-            summary.failures.append({"file": str(given), "sweep": None,
-                                     "message": f"{given}: no such file or folder"})
-    if not files and not summary.failures:
-        summary.failures.append({"file": ", ".join(map(str, paths)), "sweep": None,
-                                 "message": "no recordings found (looked for NWB, NIX, text "
-                                            "and other formats neo reads)"})
-    for path, shown in files:
+            early.append(_failure(str(given), "input", f"{given}: no such file or folder"))
+    files = find_recordings(paths, exclude=out, extra_patterns=extra_patterns)
+    if not files and not early:
+        early.append(_failure(", ".join(map(str, paths)), "input",
+                              "no recordings found (looked for .nwb, .nix, .txt, .csv and "
+                              ".tsv files; --glob adds other patterns)"))
+    entries, outcomes, pending = [], [None] * len(files), []
+    for k, (path, shown) in enumerate(files):
         entry = {"path": str(path), "file": shown}
-        if path.exists() and path.is_file():
-            entry.update(size_bytes=path.stat().st_size, sha256=file_sha256(path))
         try:
-            recording = read_recording(path, shown_as=shown, sampling_rate_hz=sampling_rate_hz)
-        except SpikemeasureError as exc:
+            entry.update(size_bytes=path.stat().st_size, sha256=file_sha256(path))
+        except OSError as exc:
             entry["status"] = "failed"
-            summary.inputs.append(entry)
-            summary.failures.append({"file": shown, "sweep": None, "message": str(exc)})
-            say(f"failed   {exc}")
+            outcomes[k] = {"file": shown, "failures": [_failure(shown, "read", f"{shown}: {exc}")],
+                           "spike_rows": [], "sweep_rows": [], "cell_rows": [], "sweeps": 0,
+                           "sweeps_measured": 0, "spikes": 0, "spike_flags": {}}
+            entries.append(entry)
             continue
-        results = measure_recording(recording, settings, step_times, step_sizes)
-        measured = [r for r in results if r.error is None]
-        for problem in recording.problems:
-            summary.failures.append({"file": shown, "sweep": None, "message": problem})
-        for r in results:
-            if r.error:
-                summary.failures.append({"file": shown, "sweep": r.sweep.index,
-                                         "message": r.error})
-        n_spikes = count_spikes(results)
-        flagged = flag_counts(results)
-        entry.update(format=recording.format, sweeps=len(recording.sweeps),
-                     sweeps_measured=len(measured), spikes=n_spikes, spike_flags=flagged,
-                     status="measured" if measured else "failed")
+        is_text = path.suffix.lower() in TEXT_SUFFIXES
+        cache = _cache_path(out, entry["sha256"], _parameter_hash(parameters, is_text))
+        cached = None if force else _load_cached(cache, shown)
+        if cached is not None:
+            outcomes[k] = cached
+            entry["status"] = "reused"
+        else:
+            pending.append((k, path, shown, cache))
+        entries.append(entry)
+    total = len(files)
+    done_count = [sum(o is not None for o in outcomes)]
+    last_write = [time.time()]
+
+    def finish(k: int, outcome: dict, cache: Path | None) -> None:
+        outcomes[k] = outcome
+        if cache is not None:
+            write_text_atomic(cache, json.dumps(outcome))
+        done_count[0] += 1
+        if progress is not None:
+            progress({"done": done_count[0], "total": total, "file": outcome["file"],
+                      "line": _describe(outcome), "elapsed_s": time.time() - started})
+        if time.time() - last_write[0] > TABLE_REFRESH_S:
+            _write_tables(summary, outcomes, early)
+            last_write[0] = time.time()
+
+    if progress is not None:
+        for k, o in enumerate(outcomes):
+            if o is not None and entries[k].get("status") == "reused":
+                progress({"done": None, "total": total, "file": o["file"],
+                          "line": f"unchanged {o['file']} (kept from an earlier run)",
+                          "elapsed_s": time.time() - started})
+    try:
+        if jobs <= 1 or len(pending) <= 1:
+            for k, path, shown, cache in pending:
+                finish(k, measure_file(str(path), shown, parameters), cache)
+        else:
+            with ProcessPoolExecutor(max_workers=min(jobs, len(pending))) as pool:
+                futures = {pool.submit(measure_file, str(path), shown, parameters): (k, cache)
+                           for k, path, shown, cache in pending}
+                try:
+                    for future in as_completed(futures):
+                        k, cache = futures[future]
+                        finish(k, future.result(), cache)
+                except BaseException:
+                    for future in futures:
+                        future.cancel()
+                    raise
+    except KeyboardInterrupt:
+        summary.interrupted = True
+        raise
+    finally:
+        _finish_run(summary, entries, outcomes, early, parameters, started, config_file)
+    return summary
+
+
+def _finish_run(summary: RunSummary, entries: list[dict], outcomes: list[dict | None],
+                early: list[dict], parameters: dict, started: float,
+                config_file: str | None) -> None:
+    """Count, write the tables and the run record (also after an interruption)."""
+    summary.failures = list(early)
+    for entry, outcome in zip(entries, outcomes):
+        if outcome is None:
+            entry["status"] = "not measured (run interrupted)"
+            summary.inputs.append(entry)
+            continue
+        entry.setdefault("status", "measured" if outcome["sweeps_measured"] else "failed")
+        if not outcome["sweeps_measured"]:
+            entry["status"] = "failed" if entry["status"] != "reused" else "reused (failed)"
+        entry.update(format=outcome.get("format"), sweeps=outcome["sweeps"],
+                     sweeps_measured=outcome["sweeps_measured"], spikes=outcome["spikes"],
+                     spike_flags=outcome["spike_flags"])
         summary.inputs.append(entry)
-        if measured:
-            cells.append((shown, cell_summary(results)))
-            summary.files_measured += 1
-            summary.sweeps_measured += len(measured)
-            summary.spikes += n_spikes
-        all_results.extend(results)
-        skipped = len(results) - len(measured) + len(recording.problems)
-        notes = [_count(skipped, "sweep") + " skipped"] if skipped else []
-        notes += [f"{_count(count, 'spike')} {flag}" for flag, count in sorted(flagged.items())]
-        say(f"measured {shown}: {_count(len(measured), 'sweep')}, {_count(n_spikes, 'spike')}"
-            + (f" ({'; '.join(notes)})" if notes else ""))
+        summary.failures.extend(outcome["failures"])
+        if outcome["sweeps_measured"]:
+            if entry["status"] == "reused":
+                summary.files_reused += 1
+            else:
+                summary.files_measured += 1
+            summary.sweeps_measured += outcome["sweeps_measured"]
+            summary.spikes += outcome["spikes"]
+        else:
+            summary.files_failed += 1
+    _write_tables(summary, outcomes, early)
     record = {
         "tool": "spikemeasure",
         "versions": _versions(),
         "command": sys.argv,
         "started": time.strftime("%Y-%m-%dT%H:%M:%S%z", time.localtime(started)),
         "seconds": round(time.time() - started, 3),
-        "parameters": {**settings.as_dict(),
-                       "step_s": list(step_times) if step_times else None,
-                       "step_sizes_pa": list(step_sizes) if step_sizes else None,
-                       "sampling_rate_hz": sampling_rate_hz},
+        "interrupted": summary.interrupted,
+        "config_file": config_file,
+        "parameters": {**parameters["settings"], "step_s": parameters["step_s"],
+                       "step_sizes_pa": parameters["step_sizes_pa"],
+                       "sampling_rate_hz": parameters["sampling_rate_hz"]},
         "inputs": summary.inputs,
         "failures": summary.failures,
         "totals": {"files_measured": summary.files_measured,
+                   "files_reused": summary.files_reused, "files_failed": summary.files_failed,
                    "sweeps_measured": summary.sweeps_measured, "spikes": summary.spikes},
     }
-    # always written, header only when nothing was measured, so no stale table survives
-    write_table_csv(summary.spikes_path, spike_table(all_results))
-    write_table_csv(summary.sweeps_path, sweep_table(all_results), SWEEP_COLUMNS)
-    write_table_csv(summary.cells_path, cell_table(cells), CELL_COLUMNS)
     write_json(summary.record_path, record)
-    return summary
+
+
+def default_jobs() -> int:
+    """The machine's cores available to this process."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # not on every platform
+        return max(1, os.cpu_count() or 1)

@@ -85,7 +85,8 @@ class Sweep:
 
     def where(self) -> str:
         """'file, sweep N' for messages."""
-        return f"{self.file}, sweep {self.index}" + (f" ({self.label})" if self.label else "")
+        shown_label = self.label and self.label != f"sweep {self.index}"
+        return f"{self.file}, sweep {self.index}" + (f" ({self.label})" if shown_label else "")
 
 
 def check_sweep(sweep: Sweep) -> None:

@@ -40,7 +40,7 @@ def run(args):
 def test_measure_folder_reports_failures_and_goes_on(folder, tmp_path):
     out = tmp_path / "results"
     r = run(["measure", str(folder), "--out", str(out)])
-    assert r.exit_code == 3, r.output
+    assert r.exit_code == 1, r.output  # some failed: the rest measured, exit 1
     assert "broken.nwb: cannot be read as NWB" in r.output
     assert "good.nix, sweep 1" in r.output and "NaN" in r.output
     assert "Traceback" not in r.output
@@ -62,7 +62,13 @@ def test_measure_folder_reports_failures_and_goes_on(folder, tmp_path):
     assert by_name["broken.nwb"]["status"] == "failed"
     messages = [f["message"] for f in record["failures"]]
     assert any("broken.nwb" in m for m in messages)
-    assert any(f["file"] == "good.nix" and f["sweep"] == 1 for f in record["failures"])
+    assert any(f["file"] == "good.nix" and f["stage"] == "sweep 1" for f in record["failures"])
+    with open(out / "errors.csv", newline="") as fh:
+        errors = list(csv.DictReader(fh))
+    assert [(e["file"], e["stage"]) for e in errors] == [("broken.nwb", "read"),
+                                                        ("good.nix", "sweep 1")]
+    assert "truncated" in errors[0]["message"]
+    assert "2 files measured, 1 failed" in r.output
     assert not list(out.glob(".*.part"))
 
 
