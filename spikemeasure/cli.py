@@ -84,9 +84,32 @@ def _check_step_options(step_times, step_sizes) -> None:
         raise click.UsageError("--step-sizes needs --step START END")
 
 
-def _make_settings(kw: dict) -> DetectionSettings:
-    names = DetectionSettings.__dataclass_fields__
-    return DetectionSettings(**{k: kw.pop(k) for k in list(kw) if k in names})
+_FILE_KEYS = {"step_times": "step_s", "step_sizes": "step_sizes_pa",
+              "sampling_rate_hz": "sampling_rate_hz",
+              **{name: name for name in DetectionSettings.__dataclass_fields__}}
+
+
+def _run_parameters(ctx: click.Context, paths, config_path, values: dict):
+    """Command line over the project file over the defaults (see spikemeasure.config)."""
+    from click.core import ParameterSource
+
+    from .config import find_config_file, load_config, merge_parameters
+
+    path = config_path or find_config_file(list(paths))
+    file_values = load_config(path) if path else {}
+    given = {_FILE_KEYS[name]: value for name, value in values.items()
+             if name in _FILE_KEYS and ctx.get_parameter_source(name) == ParameterSource.COMMANDLINE}
+    if not file_values.get("step_s"):
+        _check_step_options(given.get("step_s"), given.get("step_sizes_pa"))
+    return merge_parameters(file_values, given, str(path) if path else None)
+
+
+def _config_option(func):
+    return click.option(
+        "--config", "config_path", type=click.Path(exists=True, dir_okay=False), default=None,
+        metavar="FILE",
+        help="Project file of parameters (default: spikemeasure.toml in the first folder "
+             "given); command-line options override it.")(func)
 
 
 class _Context:
@@ -158,10 +181,11 @@ def _clock(seconds: float) -> str:
               help="Also pick up files matching PATTERN in folders (e.g. '*.abf'); repeatable. "
                    "Open formats (.nwb, .nix, .txt, .csv, .tsv) are picked up anyway.")
 @click.option("--quiet", is_flag=True, help="Print only the final summary.")
+@_config_option
 @_settings_options
 @click.pass_context
-def measure(ctx: click.Context, paths, out_dir, jobs, force, patterns, quiet, step_times,
-            step_sizes, sampling_rate_hz, **kw):
+def measure(ctx: click.Context, paths, out_dir, jobs, force, patterns, quiet, config_path,
+            **kw):
     """Measure every spike, sweep and cell in PATHS (files or folders) into --out.
 
     Writes spikes.csv, sweeps.csv, cells.csv, errors.csv and run.json. A rerun measures only
@@ -169,14 +193,16 @@ def measure(ctx: click.Context, paths, out_dir, jobs, force, patterns, quiet, st
     """
     from .runner import default_jobs, measure_paths
 
-    _check_step_options(step_times, step_sizes)
     progress = None if quiet else _Progress(sys.stderr.isatty())
     try:
-        settings = _make_settings(kw)
-        summary = measure_paths(list(paths), out_dir, settings, step_times=step_times,
-                                step_sizes=step_sizes, sampling_rate_hz=sampling_rate_hz,
+        params = _run_parameters(ctx, paths, config_path, kw)
+        _check_step_options(params.step_times, params.step_sizes)
+        summary = measure_paths(list(paths), out_dir, params.settings,
+                                step_times=params.step_times, step_sizes=params.step_sizes,
+                                sampling_rate_hz=params.sampling_rate_hz,
                                 jobs=jobs or default_jobs(), force=force,
-                                extra_patterns=tuple(patterns), progress=progress)
+                                extra_patterns=tuple(patterns), config_file=params.config_file,
+                                progress=progress)
     except KeyboardInterrupt:
         if progress is not None:
             progress.close()
@@ -205,17 +231,19 @@ def measure(ctx: click.Context, paths, out_dir, jobs, force, patterns, quiet, st
 
 @main.command()
 @click.argument("file", type=click.Path(dir_okay=False))
+@_config_option
 @_settings_options
 @click.pass_context
-def inspect(ctx: click.Context, file, step_times, step_sizes, sampling_rate_hz, **kw):
+def inspect(ctx: click.Context, file, config_path, **kw):
     """Show what FILE holds: format, channels, each sweep's step and spikes, the cell summary."""
     from .inspection import describe_file
 
-    _check_step_options(step_times, step_sizes)
     try:
-        settings = _make_settings(kw)
-        text, ok = describe_file(file, settings, step_times=step_times, step_sizes=step_sizes,
-                                 sampling_rate_hz=sampling_rate_hz)
+        params = _run_parameters(ctx, [file], config_path, kw)
+        _check_step_options(params.step_times, params.step_sizes)
+        text, ok = describe_file(file, params.settings, step_times=params.step_times,
+                                 step_sizes=params.step_sizes,
+                                 sampling_rate_hz=params.sampling_rate_hz)
     except SpikemeasureError as exc:
         _fail(ctx, exc)
         return

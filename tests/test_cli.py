@@ -204,3 +204,38 @@ def test_step_sizes_option(tmp_path):
     with open(tmp_path / "o" / "cells.csv", newline="") as fh:
         cell, = list(csv.DictReader(fh))
     assert cell["rheobase_pa"] == "50.00" and "rheobase_is_first_step" in cell["flags"]
+
+
+class TestProjectFile:
+    """A lab's spikemeasure.toml: the command line overrides it, run.json records both."""
+
+    @pytest.fixture
+    def cell_folder(self, tmp_path):
+        d = tmp_path / "lab"
+        d.mkdir()
+        _, v = gaussian_train(RATE, [30.0, 50.0], 100.0)
+        write_nwb(d / "cell.nwb", [(v, step_command(v.size, RATE, 50.0))], rate_hz=RATE)
+        return d
+
+    def test_file_values_and_command_line_precedence(self, cell_folder, tmp_path):
+        (cell_folder / "spikemeasure.toml").write_text(
+            "[measure]\nonset_rate_v_per_s = 30.0\nmin_rise_mv = 25.0\n")
+        r = run(["measure", str(cell_folder), "--out", str(tmp_path / "o"), "--onset-rate", "15"])
+        assert r.exit_code == 0, r.output
+        record = json.loads((tmp_path / "o" / "run.json").read_text())
+        assert record["parameters"]["onset_rate_v_per_s"] == 15.0   # command line wins
+        assert record["parameters"]["min_rise_mv"] == 25.0          # from the file
+        assert record["parameters"]["peak_window_ms"] == 5.0        # default
+        assert record["config_file"].endswith("spikemeasure.toml")
+
+    def test_unknown_key_and_bad_value(self, cell_folder, tmp_path):
+        config = tmp_path / "lab.toml"
+        config.write_text("[measure]\nonset_rate = 30.0\n")
+        r = run(["measure", str(cell_folder), "--out", str(tmp_path / "o"), "--config",
+                 str(config)])
+        assert r.exit_code == 1 and "onset_rate" in r.output and "onset_rate_v_per_s" in r.output
+        config.write_text('[measure]\nthreshold_method = "guess"\n')
+        r = run(["measure", str(cell_folder), "--out", str(tmp_path / "o"), "--config",
+                 str(config)])
+        assert r.exit_code == 1 and "threshold_method" in r.output and "lab.toml" in r.output
+        assert "Traceback" not in r.output
