@@ -180,12 +180,16 @@ def _clock(seconds: float) -> str:
 @click.option("--glob", "patterns", multiple=True, metavar="PATTERN",
               help="Also pick up files matching PATTERN in folders (e.g. '*.abf'); repeatable. "
                    "Open formats (.nwb, .nix, .txt, .csv, .tsv) are picked up anyway.")
+@click.option("--cluster", envvar="SPIKEMEASURE_CLUSTER", default=None, metavar="ADDRESS",
+              help="Measure the files on the Dask distributed scheduler at ADDRESS (e.g. "
+                   "tcp://head-node:8786; also $SPIKEMEASURE_CLUSTER). Needs "
+                   "pip install \"spikemeasure[cluster]\".")
 @click.option("--quiet", is_flag=True, help="Print only the final summary.")
 @_config_option
 @_settings_options
 @click.pass_context
-def measure(ctx: click.Context, paths, out_dir, jobs, force, patterns, quiet, config_path,
-            **kw):
+def measure(ctx: click.Context, paths, out_dir, jobs, force, patterns, cluster, quiet,
+            config_path, **kw):
     """Measure every spike, sweep and cell in PATHS (files or folders) into --out.
 
     Writes spikes.csv, sweeps.csv, cells.csv, errors.csv and run.json. A rerun measures only
@@ -202,7 +206,7 @@ def measure(ctx: click.Context, paths, out_dir, jobs, force, patterns, quiet, co
                                 sampling_rate_hz=params.sampling_rate_hz,
                                 jobs=jobs or default_jobs(), force=force,
                                 extra_patterns=tuple(patterns), config_file=params.config_file,
-                                progress=progress)
+                                cluster=cluster, progress=progress)
     except KeyboardInterrupt:
         if progress is not None:
             progress.close()

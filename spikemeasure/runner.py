@@ -208,6 +208,7 @@ def measure_paths(paths: list[str], out_dir: str | Path,
                   step_sizes: tuple[float, float] | None = None,
                   sampling_rate_hz: float | None = None, jobs: int = 1, force: bool = False,
                   extra_patterns: tuple[str, ...] = (), config_file: str | None = None,
+                  cluster: str | None = None, cluster_timeout_s: float = 20.0,
                   progress: Callable[[dict], None] | None = None) -> RunSummary:
     """Measure every recording under `paths`; write spikes.csv, sweeps.csv, cells.csv,
     errors.csv and run.json to `out_dir`.
@@ -234,6 +235,12 @@ def measure_paths(paths: list[str], out_dir: str | Path,
         Glob patterns of further files to pick up in folders.
     config_file : str, optional
         The project file the parameters came from, for the run record.
+    cluster : str, optional
+        Address of a Dask distributed scheduler (``tcp://host:8786``): files are measured by
+        its workers, which must have spikemeasure installed and see the files at the same
+        paths. Outcomes are kept and tables written here, as in a local run.
+    cluster_timeout_s : float, optional
+        How long to wait for the scheduler to answer.
     progress : callable, optional
         Called with ``{"done", "total", "file", "line", "elapsed_s"}`` after each file.
 
@@ -307,7 +314,9 @@ def measure_paths(paths: list[str], out_dir: str | Path,
                           "line": f"unchanged {o['file']} (kept from an earlier run)",
                           "elapsed_s": time.time() - started})
     try:
-        if jobs <= 1 or len(pending) <= 1:
+        if cluster and pending:
+            _run_on_cluster(cluster, pending, parameters, finish, cluster_timeout_s)
+        elif jobs <= 1 or len(pending) <= 1:
             for k, path, shown, cache in pending:
                 finish(k, measure_file(str(path), shown, parameters), cache)
         else:
@@ -328,6 +337,33 @@ def measure_paths(paths: list[str], out_dir: str | Path,
     finally:
         _finish_run(summary, entries, outcomes, early, parameters, started, config_file)
     return summary
+
+
+def _run_on_cluster(address: str, pending: list, parameters: dict,
+                    finish: Callable[[int, dict, Path], None], timeout_s: float) -> None:
+    """Measure the pending files on a Dask distributed cluster."""
+    try:
+        from distributed import Client, as_completed as completed
+    except ImportError:
+        raise SpikemeasureError(
+            "--cluster needs Dask distributed: pip install \"spikemeasure[cluster]\"") from None
+    try:
+        client = Client(address, timeout=f"{timeout_s:g}s")
+    except (OSError, TimeoutError, ValueError) as exc:
+        raise SpikemeasureError(
+            f"cannot reach the Dask scheduler at {address} ({exc}); check the address and "
+            "that the scheduler is running") from exc
+    try:
+        futures = {}
+        for k, path, shown, cache in pending:
+            future = client.submit(measure_file, str(path), shown, parameters, pure=False,
+                                   key=f"spikemeasure-{k}-{cache.stem}")
+            futures[future] = (k, cache)
+        for future in completed(list(futures)):
+            k, cache = futures[future]
+            finish(k, future.result(), cache)
+    finally:
+        client.close()
 
 
 def _finish_run(summary: RunSummary, entries: list[dict], outcomes: list[dict | None],

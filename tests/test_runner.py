@@ -150,3 +150,28 @@ def test_interrupted_run_resumes_to_the_same_tables(distinct_cells, tmp_path, si
     assert statuses.count("reused") == finished  # none measured twice
     assert statuses.count("measured") == 12 - finished  # none lost
     assert tables(out) == tables(reference)
+
+
+def test_dask_cluster_gives_the_same_tables(many_cells, tmp_path):
+    """Source of truth: the local run; the cluster is a distributed.LocalCluster."""
+    distributed = pytest.importorskip("distributed")
+    local = tmp_path / "local"
+    measure_paths([str(many_cells)], local, jobs=1)
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False,
+                                  dashboard_address=None) as cluster:
+        remote = tmp_path / "remote"
+        summary = measure_paths([str(many_cells)], remote, cluster=cluster.scheduler_address)
+        assert summary.files_measured == 12
+        assert tables(remote) == tables(local)
+        again = measure_paths([str(many_cells)], remote, cluster=cluster.scheduler_address)
+        assert again.files_reused == 12 and tables(remote) == tables(local)
+
+
+def test_unreachable_cluster_is_a_clear_error(tmp_path):
+    from spikemeasure.errors import SpikemeasureError
+
+    (tmp_path / "in").mkdir()
+    shutil.copy(SAMPLES[0], tmp_path / "in" / "a.nwb")
+    with pytest.raises(SpikemeasureError, match="cannot reach the Dask scheduler"):
+        measure_paths([str(tmp_path / "in")], tmp_path / "out", cluster="tcp://127.0.0.1:9",
+                      cluster_timeout_s=2.0)
