@@ -178,7 +178,7 @@ def _clock(seconds: float) -> str:
 @click.option("--force", is_flag=True,
               help="Measure every file again, also those unchanged since an earlier run.")
 @click.option("--glob", "patterns", multiple=True, metavar="PATTERN",
-              help="Also pick up files matching PATTERN in folders (e.g. '*.abf'); repeatable. "
+              help="Also pick up files matching PATTERN in folders (e.g. '*.dat'); repeatable. "
                    "Open formats (.nwb, .nix, .txt, .csv, .tsv) are picked up anyway.")
 @click.option("--cluster", envvar="SPIKEMEASURE_CLUSTER", default=None, metavar="ADDRESS",
               help="Measure the files on the Dask distributed scheduler at ADDRESS (e.g. "

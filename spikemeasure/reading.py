@@ -538,7 +538,7 @@ def find_recordings(paths, *, exclude: str | os.PathLike | None = None,
     exclude : path-like, optional
         A folder to skip (the output folder).
     extra_patterns : tuple of str, optional
-        Glob patterns (``*.abf``, ``cells/**/*.dat``) matched against the path relative to the
+        Glob patterns (``*.dat``, ``cells/**/*.dat``) matched against the path relative to the
         folder and against the file name, for other formats neo reads.
 
     Notes
