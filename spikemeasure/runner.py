@@ -183,7 +183,7 @@ def _describe(outcome: dict) -> str:
     if not outcome["sweeps_measured"]:
         return f"failed   {outcome['failures'][0]['message']}" if outcome["failures"] else \
             f"failed   {shown}"
-    skipped = len([f for f in outcome["failures"]])
+    skipped = len(outcome["failures"])
     notes = [_count(skipped, "problem")] if skipped else []
     notes += [f"{_count(c, 'spike')} {flag}" for flag, c in sorted(outcome["spike_flags"].items())]
     return (f"measured {shown}: {_count(outcome['sweeps_measured'], 'sweep')}, "

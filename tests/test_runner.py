@@ -12,7 +12,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from conftest import gaussian_train, step_command, write_nix, write_nwb
+from conftest import gaussian_train, step_command, write_nix
+from spikemeasure.detection import DetectionSettings
 from spikemeasure.runner import CACHE_FOLDER, measure_paths
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -109,11 +110,11 @@ def test_rerun_reuses_unchanged_files_and_force_redoes(many_cells, tmp_path):
     assert (again.files_reused, again.files_measured) == (12, 0)
     assert tables(out) == before
     changed = measure_paths([str(many_cells)], out, jobs=1,
-                            settings=__import__("spikemeasure").detection.DetectionSettings(
+                            settings=DetectionSettings(
                                 onset_rate_v_per_s=25.0))
     assert changed.files_measured == 12  # a parameter changed: everything is measured again
     forced = measure_paths([str(many_cells)], out, jobs=1, force=True,
-                           settings=__import__("spikemeasure").detection.DetectionSettings(
+                           settings=DetectionSettings(
                                onset_rate_v_per_s=25.0))
     assert forced.files_measured == 12 and forced.files_reused == 0
     assert first.spikes > 0
