@@ -296,9 +296,9 @@ def measure_paths(paths: list[str], out_dir: str | Path,
     last_write = [time.time()]
 
     def finish(k: int, outcome: dict, cache: Path | None) -> None:
-        outcomes[k] = outcome
-        if cache is not None:
+        if cache is not None:  # kept first: a table never holds a file a rerun would redo
             write_text_atomic(cache, json.dumps(outcome))
+        outcomes[k] = outcome
         done_count[0] += 1
         if progress is not None:
             progress({"done": done_count[0], "total": total, "file": outcome["file"],
