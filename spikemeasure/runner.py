@@ -17,7 +17,9 @@ import hashlib
 import json
 import os
 import platform
+import signal
 import sys
+import threading
 import time
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass, field
@@ -147,6 +149,39 @@ def measure_file(path: str, shown: str, parameters: dict) -> dict:
         outcome["cell_rows"] = format_rows(cell_table([(shown, cell_summary(results))]),
                                            CELL_COLUMNS)
     return outcome
+
+
+class _StopRequest:
+    """Ctrl-C during a run: the first one lets the file being measured finish and stops at the
+    next file boundary (so no library half-way through a read can swallow or mangle it); a
+    second one stops at once. Only in the main thread, where signals are delivered."""
+
+    def __init__(self) -> None:
+        self.requested = False
+        self._previous = None
+
+    def __enter__(self) -> "_StopRequest":
+        if threading.current_thread() is threading.main_thread():
+            self._previous = signal.signal(signal.SIGINT, self._handle)
+        return self
+
+    def _handle(self, signum, frame) -> None:
+        if self.requested:
+            raise KeyboardInterrupt
+        self.requested = True
+
+    def check(self) -> None:
+        if self.requested:
+            raise KeyboardInterrupt
+
+    def __exit__(self, *exc) -> None:
+        if self._previous is not None:
+            signal.signal(signal.SIGINT, self._previous)
+
+
+def _ignore_interrupts() -> None:
+    """Worker processes leave Ctrl-C to the parent, which stops the run cleanly."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
 
 
 def _parameter_hash(parameters: dict, is_text: bool) -> str:
@@ -314,23 +349,26 @@ def measure_paths(paths: list[str], out_dir: str | Path,
                           "line": f"unchanged {o['file']} (kept from an earlier run)",
                           "elapsed_s": time.time() - started})
     try:
-        if cluster and pending:
-            _run_on_cluster(cluster, pending, parameters, finish, cluster_timeout_s)
-        elif jobs <= 1 or len(pending) <= 1:
-            for k, path, shown, cache in pending:
-                finish(k, measure_file(str(path), shown, parameters), cache)
-        else:
-            with ProcessPoolExecutor(max_workers=min(jobs, len(pending))) as pool:
-                futures = {pool.submit(measure_file, str(path), shown, parameters): (k, cache)
-                           for k, path, shown, cache in pending}
+        with _StopRequest() as stop:
+            if cluster and pending:
+                _run_on_cluster(cluster, pending, parameters, finish, cluster_timeout_s, stop)
+            elif jobs <= 1 or len(pending) <= 1:
+                for k, path, shown, cache in pending:
+                    stop.check()
+                    finish(k, measure_file(str(path), shown, parameters), cache)
+                stop.check()
+            else:
+                pool = ProcessPoolExecutor(max_workers=min(jobs, len(pending)),
+                                           initializer=_ignore_interrupts)
                 try:
+                    futures = {pool.submit(measure_file, str(path), shown, parameters):
+                               (k, cache) for k, path, shown, cache in pending}
                     for future in as_completed(futures):
                         k, cache = futures[future]
                         finish(k, future.result(), cache)
-                except BaseException:
-                    for future in futures:
-                        future.cancel()
-                    raise
+                        stop.check()
+                finally:
+                    pool.shutdown(wait=True, cancel_futures=True)
     except KeyboardInterrupt:
         summary.interrupted = True
         raise
@@ -340,7 +378,8 @@ def measure_paths(paths: list[str], out_dir: str | Path,
 
 
 def _run_on_cluster(address: str, pending: list, parameters: dict,
-                    finish: Callable[[int, dict, Path], None], timeout_s: float) -> None:
+                    finish: Callable[[int, dict, Path], None], timeout_s: float,
+                    stop: _StopRequest) -> None:
     """Measure the pending files on a Dask distributed cluster."""
     try:
         from distributed import Client, as_completed as completed
@@ -362,7 +401,10 @@ def _run_on_cluster(address: str, pending: list, parameters: dict,
         for future in completed(list(futures)):
             k, cache = futures[future]
             finish(k, future.result(), cache)
+            stop.check()
     finally:
+        if stop.requested:
+            client.cancel(list(futures))
         client.close()
 
 
