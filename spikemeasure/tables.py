@@ -19,7 +19,7 @@ from .sweeps import CurrentStep, Sweep, check_sweep, protocol_steps
 
 __all__ = ["SweepResult", "measure_sweep", "measure_recording", "cell_summary", "spike_table",
            "sweep_table", "cell_table", "format_value", "format_rows", "count_spikes",
-           "flag_counts", "sweep_errors"]
+           "flag_counts"]
 
 
 @dataclass(frozen=True)
@@ -171,8 +171,3 @@ def flag_counts(results: list[SweepResult]) -> dict[str, int]:
             for f in flags:
                 counts[f] = counts.get(f, 0) + 1
     return counts
-
-
-def sweep_errors(results: list[SweepResult]) -> list[str]:
-    return [r.error for r in results if r.error]
-
