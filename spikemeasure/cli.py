@@ -62,6 +62,11 @@ def _settings_options(func):
         click.option("--min-samples-across-width", type=click.IntRange(min=1),
                      default=d.min_samples_across_width, show_default=True, metavar="N",
                      help="Leave the half-width empty when fewer samples lie above half amplitude."),
+        click.option("--search-window", "search_window_ms",
+                     type=click.FloatRange(min=0, min_open=True), default=d.search_window_ms,
+                     show_default=True, metavar="MS",
+                     help="How far each spike's searches reach: back from onset for the "
+                          "threshold, forward from the peak for repolarization and trough, in ms."),
         click.option("--step", "step_times", type=(float, float), default=None,
                      metavar="START END",
                      help="The current step's start and end in s, for files without a "

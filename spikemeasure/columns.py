@@ -10,7 +10,7 @@ from dataclasses import dataclass
 from .detection import DetectionSettings
 from .cell_features import (CELL_FLAG_TEXT, HOLDING_TOLERANCE_PA, MAX_RESIDUAL_TO_NOISE,
                             MIN_DEFLECTION_TO_NOISE)
-from .measurement import FLAG_TEXT
+from .measurement import FLAG_TEXT, PIECE_SAMPLES
 from .sweep_features import MIN_WINDOW_MS
 
 __all__ = ["Column", "SPIKE_COLUMNS", "SWEEP_COLUMNS", "CELL_COLUMNS", "ERROR_COLUMNS",
@@ -62,8 +62,8 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
     Column("half_width_ms", "ms", "Time between the upward crossing (the last before the peak) "
            "and the downward crossing (the first after it) of threshold_mv + amplitude_mv / 2 "
            "by the raw voltage, each linearly interpolated between samples. Empty when the "
-           "voltage does not come back down before the next spike or the end of the search "
-           "span, or when fewer than `--min-samples-across-width` (3) samples lie above the "
+           "voltage does not come back down before the next spike, within "
+           "`--search-window` (200 ms) of the peak, or when fewer than `--min-samples-across-width` (3) samples lie above the "
            "level.", 5),
     Column("rise_time_ms", "ms", "peak_s - threshold_s.", 5),
     Column("max_dvdt_v_per_s", "V/s", "Largest dV/dt from threshold to peak, refined between "
@@ -75,7 +75,8 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
            "before the next spike's threshold; for a sweep's last spike, up to the end of the "
            "current step when the spike lies inside one, else to the end of the sweep. (A last "
            "spike that falls through half amplitude only after the step ends is searched to the "
-           "end of the sweep and flagged `trough_after_step_end`.)", 7),
+           "end of the sweep and flagged `trough_after_step_end`.) Never more than "
+           "`--search-window` (200 ms) after the peak.", 7),
     Column("trough_mv", "mV", "Smoothed voltage at trough_s.", 4),
     Column("ahp_depth_mv", "mV", "Depth of the afterhyperpolarization: threshold_mv - trough_mv "
            "(positive when the trough lies below threshold).", 4),
@@ -237,6 +238,25 @@ def columns_markdown() -> str:
         "12 % on the same spikes at 0.3 ms), so each spike's maximum and minimum rates use "
         f"their own window of {d.rate_smoothing_ms:g} ms (`--rate-smoothing`), evaluated only "
         "around the spike.",
+        "",
+        f"Each spike's searches reach at most {d.search_window_ms:g} ms (`--search-window`): "
+        "back from the onset crossing for the threshold, forward from the peak for the "
+        "repolarization (half-width), the trough and the fall rate. In a sparse gap-free "
+        "recording the next spike may come seconds later, and the lowest point of those "
+        "seconds is not the spike's afterhyperpolarization.",
+        "",
+        "## Long recordings",
+        "",
+        f"NWB and NIX sweeps of more than {2 * PIECE_SAMPLES:,} samples "
+        f"({2 * PIECE_SAMPLES / 20e3 / 60:.1f} min at 20 kHz) whose command current is constant "
+        "(gap-free recordings) stay in the file and are read through neo's lazy loading in "
+        f"pieces of {PIECE_SAMPLES:,} samples, each with a margin on both sides longer "
+        "than any search of a spike. A spike belongs to the piece holding its onset crossing, so "
+        "one on the border between pieces is measured once, from the same samples as in a "
+        "whole read: the tables are the same (times differ from a whole read by rounding, "
+        "below 1e-8 s). Memory stays flat in the recording's length. Such a sweep has no "
+        "current step, so its sweep features are empty, as for any sweep without one; long "
+        "sweeps whose command steps, and text files, are read whole.",
         "",
     ]
     return "\n".join(lines)

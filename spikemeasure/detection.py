@@ -52,6 +52,12 @@ class DetectionSettings:
         threshold.
     min_samples_across_width : int
         A half-width spanned by fewer samples than this is not reported (too coarse sampling).
+    search_window_ms : float
+        How far (ms) each spike's searches may reach: back from the onset crossing for the
+        threshold, forward from the peak for the repolarization, the trough and the fall rate.
+        Bounding them keeps a trough 10 s after a spike in a sparse recording from counting as
+        its afterhyperpolarization, and lets a long recording be measured in pieces with the
+        same result as whole.
     """
 
     onset_rate_v_per_s: float = 20.0
@@ -63,12 +69,14 @@ class DetectionSettings:
     threshold_method: str = "onset_rate"
     threshold_fraction: float = 0.05
     min_samples_across_width: int = 3
+    search_window_ms: float = 200.0
 
     def __post_init__(self) -> None:
         positive = {"onset_rate_v_per_s": self.onset_rate_v_per_s,
                     "min_rise_mv": self.min_rise_mv, "peak_window_ms": self.peak_window_ms,
                     "smoothing_ms": self.smoothing_ms,
-                    "rate_smoothing_ms": self.rate_smoothing_ms}
+                    "rate_smoothing_ms": self.rate_smoothing_ms,
+                    "search_window_ms": self.search_window_ms}
         for name, value in positive.items():
             if not (np.isfinite(value) and value > 0):
                 raise InvalidSettingError(f"`{name}` must be a positive number (got {value})")
@@ -83,6 +91,10 @@ class DetectionSettings:
                 f"`threshold_fraction` must lie between 0 and 1 (got {self.threshold_fraction})")
         if int(self.min_samples_across_width) < 1:
             raise InvalidSettingError("`min_samples_across_width` must be at least 1")
+        if self.search_window_ms < self.peak_window_ms:
+            raise InvalidSettingError(
+                f"`search_window_ms` ({self.search_window_ms}) must be at least `peak_window_ms` "
+                f"({self.peak_window_ms})")
         if self.smoothing_ms >= self.peak_window_ms:
             raise InvalidSettingError(
                 f"`smoothing_ms` ({self.smoothing_ms}) must be shorter than `peak_window_ms` "
@@ -90,6 +102,10 @@ class DetectionSettings:
 
     def as_dict(self) -> dict:
         return asdict(self)
+
+    def search_window_samples(self, sampling_rate_hz: float) -> int:
+        """:attr:`search_window_ms` in samples (at least 2)."""
+        return max(2, int(round(self.search_window_ms * 1e-3 * sampling_rate_hz)))
 
     @property
     def needs_second_derivative(self) -> bool:

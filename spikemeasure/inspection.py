@@ -26,7 +26,8 @@ def describe_file(path: str, settings: DetectionSettings = DetectionSettings(), 
     Raises :class:`~spikemeasure.errors.UnreadableInputError` when the file cannot be read.
     """
     recording = read_recording(path, sampling_rate_hz=sampling_rate_hz)
-    results = measure_recording(recording, settings, step_times, step_sizes)
+    with recording:
+        results = measure_recording(recording, settings, step_times, step_sizes)
     rates = sorted({s.sampling_rate_hz for s in recording.sweeps})
     lines = [
         f"file:          {path} ({Path(path).stat().st_size / 1e6:.2f} MB)",
@@ -50,7 +51,8 @@ def describe_file(path: str, settings: DetectionSettings = DetectionSettings(), 
         if step is None:
             hold = size = start = stop = "-"
             if r.error is None:
-                note = note or ("no command channel: give --step START END"
+                note = note or ("gap-free, read in pieces" if s.is_lazy else
+                                "no command channel: give --step START END"
                                 if s.command_pa is None else "no current step")
         else:
             hold, size = _fmt(step.holding_pa, "pA"), _fmt(step.size_pa, "pA")

@@ -15,12 +15,15 @@ from scipy.signal import savgol_coeffs
 
 from .detection import (SMOOTHING_POLYORDER, DetectedSpikes, DetectionSettings, SmoothedTrace,
                         detect_spikes, smoothed_trace, smoothing_window_samples)
-from .errors import InvalidSettingError
+from .errors import InvalidSettingError, UnmeasurableDataError
 from .sweeps import CurrentStep
 
 __all__ = ["SpikeMeasurements", "spike_thresholds", "interpolated_peaks", "half_widths",
            "troughs", "rate_extremes", "search_ends", "measure_spikes", "measure_trace",
-           "FLAG_TEXT"]
+           "measure_in_pieces", "piece_margin_samples", "PIECE_SAMPLES", "FLAG_TEXT"]
+
+#: Samples per piece when a long trace is measured in pieces (about 16 MB of float64 each).
+PIECE_SAMPLES = 1 << 21
 
 #: Every flag a spike can carry, with what it means (written to the docs).
 FLAG_TEXT = {
@@ -287,7 +290,8 @@ def spike_thresholds(trace: SmoothedTrace, detected: DetectedSpikes,
         The time of the largest d2V/dt2 from 1 ms before the onset crossing to the time of
         maximum dV/dt, refined to sub-sample precision with a parabola through the three
         samples around it [1]_.
-    Searches never reach back past the previous spike's peak. The voltage is read from the
+    Searches never reach back past the previous spike's peak, nor further than
+    ``search_window_ms`` before the onset crossing. The voltage is read from the
     zero-phase smoothed trace, which removes most recording noise without shifting time.
 
     References
@@ -302,6 +306,7 @@ def spike_thresholds(trace: SmoothedTrace, detected: DetectedSpikes,
                                   "smoothed_trace(..., second_derivative=True)")
     onset, peak = detected.onset_index, detected.peak_sample
     floor = np.concatenate([[0], peak[:-1] + 1]) if peak.size else peak
+    floor = np.maximum(floor, onset - settings.search_window_samples(trace.sampling_rate_hz))
     method = settings.threshold_method
     if method == "onset_rate":
         # the detector guarantees dvdt[onset - 1] < rate <= dvdt[onset]
@@ -506,14 +511,17 @@ def _refined_extreme(x: np.ndarray, a: int, b: int, largest: bool) -> float:
 
 
 def search_ends(n_samples: int, sampling_rate_hz: float, threshold_position: np.ndarray,
-                onset_index: np.ndarray, step: CurrentStep | None) -> np.ndarray:
+                onset_index: np.ndarray, step: CurrentStep | None,
+                peak_sample: np.ndarray | None = None, window_samples: int | None = None
+                ) -> np.ndarray:
     """Where each spike's trough search stops (exclusive sample index).
 
     Notes
     -----
     Before the next spike's threshold (its onset crossing when that threshold is unknown);
     for the last spike, at the end of the current step when the spike lies inside it, else
-    at the end of the sweep.
+    at the end of the sweep; never more than `window_samples` after `peak_sample` when both
+    are given.
     """
     n = onset_index.size
     ends = np.empty(n, dtype=np.int64)
@@ -528,6 +536,8 @@ def search_ends(n_samples: int, sampling_rate_hz: float, threshold_position: np.
             offset_i = step.offset_s * sampling_rate_hz
             if onset_i <= t_last < offset_i:
                 ends[-1] = min(n_samples, int(round(offset_i)))
+    if peak_sample is not None and window_samples is not None:
+        ends = np.minimum(ends, np.asarray(peak_sample, dtype=np.int64) + window_samples)
     return ends
 
 
@@ -571,10 +581,13 @@ def measure_spikes(trace: SmoothedTrace, detected: DetectedSpikes,
     thr_i, thr_mv = spike_thresholds(trace, detected, settings)
     peak_pos, peak_mv, at_edge = interpolated_peaks(v, detected.peak_sample)
     # the step end bounds only the trough of a sweep's last spike, not its repolarization
-    width_ends = search_ends(v.size, rate, thr_i, detected.onset_index, None)
+    reach = settings.search_window_samples(rate)
+    width_ends = search_ends(v.size, rate, thr_i, detected.onset_index, None,
+                             detected.peak_sample, reach)
     width, _, down_i, above = half_widths(v, rate, thr_i, thr_mv, detected.peak_sample, peak_mv,
                                           width_ends)
-    trough_ends = search_ends(v.size, rate, thr_i, detected.onset_index, step)
+    trough_ends = search_ends(v.size, rate, thr_i, detected.onset_index, step,
+                              detected.peak_sample, reach)
     late = np.isfinite(down_i) & (down_i >= trough_ends - 1)
     trough_ends = np.where(late, width_ends, trough_ends)
     trough_i, trough_mv = troughs(trace.smooth_mv, detected.peak_sample, trough_ends)
@@ -638,3 +651,111 @@ def measure_trace(voltage_mv: np.ndarray, sampling_rate_hz: float,
     trace = smoothed_trace(v, sampling_rate_hz, settings.smoothing_ms,
                            second_derivative=settings.needs_second_derivative)
     return measure_spikes(trace, detect_spikes(trace, settings), settings, step)
+
+
+def piece_margin_samples(settings: DetectionSettings, sampling_rate_hz: float) -> int:
+    """Samples read on either side of a piece so that every spike whose onset lies in the
+    piece is measured from the same samples as in the whole trace.
+
+    A spike's measurements reach at most ``search_window_ms`` back from its onset crossing
+    and forward from its peak, which comes within ``peak_window_ms`` of the onset; add the
+    next spike's own detection span, the 1 ms of the second-derivative threshold and a few
+    smoothing windows for the filters' edges.
+    """
+    rate = sampling_rate_hz
+    window = smoothing_window_samples(settings.smoothing_ms, rate)
+    rate_window = smoothing_window_samples(settings.rate_smoothing_ms, rate)
+    peak = int(np.ceil(settings.peak_window_ms * 1e-3 * rate))
+    one_ms = int(np.ceil(1e-3 * rate))
+    return (settings.search_window_samples(rate) + 2 * peak + one_ms + 4 * window
+            + 2 * rate_window + 16)
+
+
+def _concatenate(parts: list[SpikeMeasurements]) -> SpikeMeasurements:
+    names = [f.name for f in fields(SpikeMeasurements) if f.name != "flags"]
+    values = {name: np.concatenate([getattr(p, name) for p in parts]) if parts else np.zeros(0)
+              for name in names}
+    flags = tuple(fl for p in parts for fl in p.flags)
+    return SpikeMeasurements(flags=flags, **values)
+
+
+def _take(m: SpikeMeasurements, keep: np.ndarray, shift_s: float) -> SpikeMeasurements:
+    values = {}
+    for f in fields(SpikeMeasurements):
+        if f.name == "flags":
+            continue
+        x = getattr(m, f.name)[keep]
+        values[f.name] = x + shift_s if f.name in ("threshold_s", "peak_s", "trough_s") else x
+    return SpikeMeasurements(flags=tuple(m.flags[k] for k in np.flatnonzero(keep)), **values)
+
+
+def measure_in_pieces(voltage_mv, sampling_rate_hz: float,
+                      settings: DetectionSettings = DetectionSettings(), *,
+                      piece_samples: int | None = None) -> SpikeMeasurements:
+    """Detect and measure the spikes of a long gap-free trace, one piece at a time.
+
+    Parameters
+    ----------
+    voltage_mv : ndarray or LazyTrace
+        Membrane voltage in mV, 1-D; anything that returns float arrays for slices
+        ``voltage_mv[a:b]`` and has a length, so a trace kept in its file
+        (:class:`~spikemeasure.sweeps.LazyTrace`) is read piece by piece.
+    sampling_rate_hz : float
+    settings : DetectionSettings, optional
+    piece_samples : int, optional
+        Samples per piece (default :data:`PIECE_SAMPLES`); memory use is a small multiple of
+        it and of the margins, whatever the length of the trace.
+
+    Returns
+    -------
+    SpikeMeasurements
+        The same spikes as :func:`measure_trace` on the whole trace with no current step.
+
+    Raises
+    ------
+    UnmeasurableDataError
+        A piece holds NaN or infinite samples (the message gives their times).
+
+    Notes
+    -----
+    Each piece is read with a margin of :func:`piece_margin_samples` on both sides, detected
+    and measured whole, and keeps the spikes whose onset crossing lies in the piece itself, so
+    a spike on the border between pieces is measured exactly once, in the piece holding its
+    onset. Every search of a spike's measurements stays within the margin (bounded by
+    ``search_window_ms``), and the Savitzky-Golay filters give the same values away from the
+    ends of what they are given, so each spike is measured from the same numbers as in one
+    pass over the whole trace; only times differ, by rounding, as they are shifted by the
+    piece's start. Interspike intervals are taken across pieces.
+    """
+    rate = float(sampling_rate_hz)
+    if not rate > 0:
+        raise InvalidSettingError("`sampling_rate_hz` must be positive")
+    piece_samples = int(PIECE_SAMPLES if piece_samples is None else piece_samples)
+    if piece_samples < 1:
+        raise InvalidSettingError("`piece_samples` must be at least 1")
+    n = len(voltage_mv)
+    margin = piece_margin_samples(settings, rate)
+    parts: list[SpikeMeasurements] = []
+    for start in range(0, n, piece_samples):
+        stop = min(n, start + piece_samples)
+        lo, hi = max(0, start - margin), min(n, stop + margin)
+        v = np.asarray(voltage_mv[lo:hi], dtype=float)
+        bad = np.flatnonzero(~np.isfinite(v))
+        if bad.size:
+            raise UnmeasurableDataError(
+                f"voltage samples are NaN or infinite from {(lo + bad[0]) / rate:.4f} s (the "
+                f"first of {bad.size} in {lo / rate:.1f}-{hi / rate:.1f} s); the sweep was not "
+                "measured. Remove or re-export the gap")
+        trace = smoothed_trace(v, rate, settings.smoothing_ms,
+                               second_derivative=settings.needs_second_derivative)
+        detected = detect_spikes(trace, settings)
+        onset = detected.onset_index + lo
+        keep = (onset >= start) & (onset < stop)
+        if keep.any():
+            parts.append(_take(measure_spikes(trace, detected, settings, None), keep, lo / rate))
+    whole = _concatenate(parts)
+    isi = np.full(len(whole), np.nan)
+    if len(whole) > 1:
+        isi[1:] = np.diff(whole.threshold_s) * 1e3
+    return SpikeMeasurements(**{**{f.name: getattr(whole, f.name)
+                                   for f in fields(SpikeMeasurements)}, "isi_ms": isi})

@@ -26,10 +26,14 @@ from pathlib import Path
 import numpy as np
 
 from .errors import UnreadableInputError
-from .sweeps import Sweep
+from .sweeps import LazyTrace, Sweep
 
 __all__ = ["Recording", "ChannelInfo", "read_recording", "find_recordings", "is_temporary",
-           "TEXT_SUFFIXES", "RECORDING_SUFFIXES"]
+           "TEXT_SUFFIXES", "RECORDING_SUFFIXES", "LONG_SWEEP_SAMPLES"]
+
+#: NWB and NIX sweeps longer than this (about 3.5 min at 20 kHz) stay in the file and are read
+#: in pieces through neo's lazy loading, when their command current is constant (gap-free).
+LONG_SWEEP_SAMPLES = 1 << 22
 
 TEXT_SUFFIXES = (".txt", ".csv", ".tsv")
 #: The open formats a folder search picks up; other formats neo reads come in by pattern.
@@ -73,6 +77,18 @@ class Recording:
     sweeps: list[Sweep]
     channels: list[ChannelInfo] = field(default_factory=list)
     problems: list[str] = field(default_factory=list)
+    release: object = field(default=None, compare=False, repr=False)
+
+    def close(self) -> None:
+        """Close the file that long sweeps (:attr:`Sweep.is_lazy`) are read from."""
+        if callable(self.release):
+            self.release()
+
+    def __enter__(self) -> "Recording":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
 
 
 # --------------------------------------------------------------------------- safety checks
@@ -149,8 +165,69 @@ def _looks_like_command(voltage_mv: np.ndarray) -> bool:
 
 # --------------------------------------------------------------------------- neo blocks
 
+class _LongSignal:
+    """A one-channel neo signal proxy left in its file: what the readers need of a signal,
+    with the samples as a :class:`LazyTrace` read through the proxy's ``load(time_slice=)``."""
+
+    def __init__(self, proxy) -> None:
+        self.proxy = proxy
+        self.units = proxy.units
+        self.sampling_rate = proxy.sampling_rate
+        self.name = proxy.name
+        self.annotations = getattr(proxy, "annotations", {})
+        self.array_annotations = getattr(proxy, "array_annotations", {}) or {}
+        self.n_samples = int(proxy.shape[0])
+
+    def trace(self) -> LazyTrace:
+        import quantities as pq
+
+        proxy = self.proxy
+        t0 = proxy.t_start.rescale("s")
+        rate = float(proxy.sampling_rate.rescale("Hz"))
+
+        def read(start: int, stop: int) -> np.ndarray:
+            # neo rounds times to the nearest sample, so sample times give these samples
+            part = proxy.load(time_slice=(t0 + start / rate * pq.s, t0 + stop / rate * pq.s),
+                              strict_slicing=False)
+            return np.asarray(part.magnitude, dtype=np.float64)[:, 0]
+
+        return LazyTrace(read, self.n_samples)
+
+
+def _is_long(proxy) -> bool:
+    shape = getattr(proxy, "shape", (0,))
+    return len(shape) >= 1 and int(shape[0]) > LONG_SWEEP_SAMPLES and (
+        len(shape) == 1 or int(shape[1]) == 1)
+
+
+def _settle_long_sweep(sweep: Sweep) -> Sweep:
+    """Keep a long sweep in its file only when it is gap-free (no current step): check its
+    command piece by piece; a constant command is dropped (there is no step to find), a
+    varying one makes the sweep be read whole, as the step features need it all."""
+    if not sweep.is_lazy:
+        return sweep
+    command = sweep.command_pa
+    if isinstance(command, LazyTrace):
+        low, high = np.inf, -np.inf
+        piece = 1 << 21
+        for start in range(0, command.size, piece):
+            part = command[start:start + piece]
+            low, high = min(low, float(part.min())), max(high, float(part.max()))
+            if high - low > 1.0:  # pA: the command steps, so the step features need it all
+                return Sweep(np.asarray(sweep.voltage_mv), sweep.sampling_rate_hz,
+                             np.asarray(command), sweep.file, sweep.index, sweep.label,
+                             sweep.channel_info)
+        command = None
+    return Sweep(sweep.voltage_mv, sweep.sampling_rate_hz, command, sweep.file, sweep.index,
+                 sweep.label, sweep.channel_info)
+
+
 def _columns(signal):
     """Yield (name, 1-D float64 column, signal) for every channel of a neo AnalogSignal."""
+    if isinstance(signal, _LongSignal):
+        names = list(signal.array_annotations.get("channel_names", []))
+        yield (str(names[0]) if names else signal.name or "signal"), signal.trace(), signal
+        return
     data = np.asarray(signal.magnitude, dtype=np.float64)
     if data.ndim == 1:
         data = data[:, None]
@@ -198,8 +275,10 @@ def _sweep_from_signals(signals, path: str, index: int, label: str) -> tuple[Swe
                        "used as the command")
         else:
             cmd = c
-    return Sweep(voltage_mv=v, sampling_rate_hz=rate, command_pa=cmd, file=path, index=index,
-                 label=label, channel_info=tuple(channels)), channels, problem
+    sweep = _settle_long_sweep(Sweep(voltage_mv=v, sampling_rate_hz=rate, command_pa=cmd,
+                                     file=path, index=index, label=label,
+                                     channel_info=tuple(channels)))
+    return sweep, channels, problem
 
 
 def _segments_to_recording(segments, path: str, format_name: str) -> Recording:
@@ -242,6 +321,32 @@ def _nwb_type(signal) -> str:
     return kind[-1] if isinstance(kind, (tuple, list)) else str(kind)
 
 
+def _nwb_signals(path: Path) -> tuple[list, object]:
+    """The analog series of an NWB file as neo signals: neo's lazy proxies opened on the
+    file's acquisition and stimulus series, short ones loaded, long ones left in the file.
+
+    Returns (signals, the open pynwb reader, to be closed when the long ones are read).
+    """
+    import pynwb
+    from neo.io.nwbio import AnalogSignalProxy
+
+    reader = pynwb.NWBHDF5IO(str(path), mode="r", load_namespaces=True)
+    try:
+        nwbfile = reader.read()
+        signals = []
+        for group_name in ("acquisition", "stimulus"):
+            for series in getattr(nwbfile, group_name).values():
+                if isinstance(series, pynwb.misc.AnnotationSeries) or not getattr(
+                        series, "rate", None):
+                    continue
+                proxy = AnalogSignalProxy(series, group_name)
+                signals.append(_LongSignal(proxy) if _is_long(proxy) else proxy.load())
+    except BaseException:
+        reader.close()
+        raise
+    return signals, reader
+
+
 def _read_nwb(path: Path, shown: str) -> Recording:
     import neo
 
@@ -253,11 +358,24 @@ def _read_nwb(path: Path, shown: str) -> Recording:
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            io = neo.io.NWBIO(str(path), mode="r")
-            block = io.read_block(lazy=False)
+            signals, reader = _nwb_signals(path)
     except Exception as exc:  # the NWB stack raises many types; keep the cause
         raise UnreadableInputError(f"{shown}: cannot be read as NWB ({_hdf5_reason(exc)})") from exc
-    signals = [s for seg in block.segments for s in seg.analogsignals]
+    try:
+        recording = _nwb_recording(signals, path, shown)
+    except BaseException:
+        reader.close()
+        raise
+    if not any(sw.is_lazy for sw in recording.sweeps):
+        reader.close()
+        return recording
+    return Recording(recording.path, recording.format, recording.sweeps, recording.channels,
+                     recording.problems, release=reader.close)
+
+
+def _nwb_recording(signals: list, path: Path, shown: str) -> Recording:
+    import neo
+
     by_sweep: dict[int, dict[str, list]] = {}
     types = {_nwb_type(s) for s in signals}
     if not types & _CC_RESPONSE:
@@ -265,7 +383,15 @@ def _read_nwb(path: Path, shown: str) -> Recording:
             raise UnreadableInputError(
                 f"{shown}: a voltage-clamp recording (it holds VoltageClampSeries and no "
                 "CurrentClampSeries); spikemeasure measures current clamp")
-        # not written with the intracellular types: fall back to declared units per segment
+        # not written with the intracellular types: neo's segments (from the series' notes),
+        # each sweep by the units its channels declare, read whole
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                block = neo.io.NWBIO(str(path), mode="r").read_block(lazy=False)
+        except Exception as exc:  # the NWB stack raises many types; keep the cause
+            raise UnreadableInputError(
+                f"{shown}: cannot be read as NWB ({_hdf5_reason(exc)})") from exc
         return _segments_to_recording(block.segments, shown, "NWB (by channel units)")
     for order, s in enumerate(signals):
         kind = _nwb_type(s)
@@ -288,7 +414,8 @@ def _read_nwb(path: Path, shown: str) -> Recording:
         label = f"sweep_number {number}, {response.name}"
         parts = [response] + ([stimulus] if stimulus is not None else [])
         sweep, channels, problem = _sweep_from_signals(parts, shown, index, label)
-        if stimulus is not None and sweep is not None and sweep.command_pa is None and problem:
+        if (stimulus is not None and sweep is not None and sweep.command_pa is None and problem
+                and not isinstance(stimulus, _LongSignal)):
             # align a stimulus that starts later or is longer than the response
             sweep, problem = _align_stimulus(sweep, response, stimulus, problem)
         if not first_channels:
@@ -326,6 +453,58 @@ def _align_stimulus(sweep: Sweep, response, stimulus, problem: str) -> tuple[Swe
 
 # --------------------------------------------------------------------------- NIX and others
 
+def _nix_longest_array(path: Path) -> int:
+    """The length of the longest data array in a NIX file, from the HDF5 layout alone."""
+    import h5py
+
+    longest = 0
+
+    def visit(name, obj):
+        nonlocal longest
+        if isinstance(obj, h5py.Dataset) and name.endswith("/data") and obj.ndim >= 1:
+            longest = max(longest, int(obj.shape[0]))
+
+    with h5py.File(path, "r") as fh:
+        fh.visititems(visit)
+    return longest
+
+
+def _read_nix_lazily(path: Path, shown: str) -> Recording:
+    """A NIX file with long signals: neo's lazy NIX reader, long signals left in the file."""
+    import neo
+
+    io = neo.io.NixIOFr(str(path))
+    try:
+        blocks = io.read(lazy=True)
+        segments = []
+        for block in blocks:
+            for segment in block.segments:
+                signals = [_LongSignal(p) if _is_long(p) else p.load()
+                           for p in segment.analogsignals]
+                segments.append(_Segment(segment.name or "", signals))
+    except BaseException:
+        _close_rawio(io)
+        raise
+    recording = _segments_to_recording(segments, shown, "NIX (one sweep per segment)")
+    if not any(sw.is_lazy for sw in recording.sweeps):
+        _close_rawio(io)
+        return recording
+    return Recording(recording.path, recording.format, recording.sweeps, recording.channels,
+                     recording.problems, release=lambda: _close_rawio(io))
+
+
+@dataclass
+class _Segment:
+    name: str
+    analogsignals: list
+
+
+def _close_rawio(io) -> None:
+    handle = getattr(io, "file", None)
+    if handle is not None and hasattr(handle, "close"):
+        handle.close()
+
+
 def _read_nix(path: Path, shown: str) -> Recording:
     import neo
 
@@ -337,9 +516,13 @@ def _read_nix(path: Path, shown: str) -> Recording:
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
+            if _nix_longest_array(path) > LONG_SWEEP_SAMPLES:
+                return _read_nix_lazily(path, shown)
             with neo.io.NixIO(str(path), mode="ro") as io:
                 blocks = io.read_all_blocks(lazy=False)
-    except Exception as exc:  # nixio raises many types; keep the cause
+    except UnreadableInputError:
+        raise
+    except Exception as exc:  # nixio and h5py raise many types; keep the cause
         raise UnreadableInputError(f"{shown}: cannot be read as NIX ({_hdf5_reason(exc)})") from exc
     segments = [seg for blk in blocks for seg in blk.segments]
     return _segments_to_recording(segments, shown, "NIX (one sweep per segment)")

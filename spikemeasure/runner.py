@@ -133,7 +133,8 @@ def measure_file(path: str, shown: str, parameters: dict) -> dict:
     except SpikemeasureError as exc:
         outcome["failures"].append(_failure(shown, "read", str(exc)))
         return outcome
-    results = measure_recording(recording, settings, step_times, step_sizes)
+    with recording:  # closes the file that long sweeps are read from
+        results = measure_recording(recording, settings, step_times, step_sizes)
     measured = [r for r in results if r.error is None]
     for problem in recording.problems:
         outcome["failures"].append(_failure(shown, "read", problem))

@@ -7,13 +7,14 @@ knows about file formats; :mod:`spikemeasure.reading` builds sweeps from files.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import Callable
 
 import numpy as np
 from scipy.ndimage import median_filter
 
 from .errors import InvalidSettingError, UnmeasurableDataError
 
-__all__ = ["Sweep", "CurrentStep", "find_current_step", "step_from_times", "check_sweep",
+__all__ = ["Sweep", "LazyTrace", "CurrentStep", "find_current_step", "step_from_times", "check_sweep",
            "parse_step_sizes", "protocol_steps",
            "MIN_SAMPLING_RATE_HZ"]
 
@@ -47,14 +48,70 @@ class CurrentStep:
         return self.offset_s - self.onset_s
 
 
+class LazyTrace:
+    """A long 1-D signal that stays in its file: ``trace[a:b]`` reads samples a to b-1.
+
+    Long gap-free recordings are handed to the measurement stage this way, so that they can be
+    measured in pieces in bounded memory. Slicing returns float64 arrays, scaled by `scale`
+    (a unit conversion); ``trace * k`` gives the same trace scaled by k. ``numpy.asarray``
+    reads all of it.
+
+    Parameters
+    ----------
+    read : callable
+        ``read(start, stop)`` returns samples ``start`` to ``stop - 1`` as a 1-D array.
+    n_samples : int
+    scale : float, optional
+    """
+
+    ndim = 1
+    dtype = np.dtype(np.float64)
+
+    def __init__(self, read: Callable[[int, int], np.ndarray], n_samples: int,
+                 scale: float = 1.0) -> None:
+        self._read = read
+        self.size = int(n_samples)
+        self.shape = (self.size,)
+        self.scale = float(scale)
+
+    def __len__(self) -> int:
+        return self.size
+
+    def __mul__(self, factor: float) -> "LazyTrace":
+        return LazyTrace(self._read, self.size, self.scale * float(factor))
+
+    __rmul__ = __mul__
+
+    def __getitem__(self, key) -> np.ndarray:
+        if not isinstance(key, slice):
+            raise TypeError("a LazyTrace is read by slices, such as trace[a:b]")
+        start, stop, step = key.indices(self.size)
+        if stop <= start:
+            return np.zeros(0)
+        part = np.asarray(self._read(start, stop), dtype=np.float64).reshape(-1)
+        if part.size != stop - start:
+            raise ValueError(f"reading samples {start}-{stop} gave {part.size} samples")
+        if self.scale != 1.0:
+            part = part * self.scale
+        return part[::step] if step != 1 else part
+
+    def __array__(self, dtype=None, copy=None) -> np.ndarray:
+        whole = self[0:self.size]
+        return whole.astype(dtype) if dtype is not None else whole
+
+    def __repr__(self) -> str:
+        return f"LazyTrace({self.size} samples, scale {self.scale:g})"
+
+
 @dataclass(frozen=True)
 class Sweep:
     """One sweep of a current-clamp recording.
 
     Attributes
     ----------
-    voltage_mv : ndarray
-        Membrane voltage in mV, 1-D float64.
+    voltage_mv : ndarray or LazyTrace
+        Membrane voltage in mV, 1-D float64 (a :class:`LazyTrace` for a long recording read
+        in pieces).
     sampling_rate_hz : float
         Samples per second.
     command_pa : ndarray or None
@@ -78,6 +135,11 @@ class Sweep:
     @property
     def n_samples(self) -> int:
         return int(self.voltage_mv.shape[0])
+
+    @property
+    def is_lazy(self) -> bool:
+        """True when the voltage stays in the file and is read in pieces."""
+        return isinstance(self.voltage_mv, LazyTrace)
 
     @property
     def duration_s(self) -> float:
@@ -104,6 +166,8 @@ def check_sweep(sweep: Sweep) -> None:
     if v.ndim != 1 or v.size < 3:
         raise UnmeasurableDataError(
             f"{sweep.where()}: only {v.size} voltage samples; a sweep needs at least 3")
+    if isinstance(v, LazyTrace):
+        return  # checked piece by piece while it is measured
     bad = ~np.isfinite(v)
     if bad.any():
         idx = np.flatnonzero(bad)

@@ -4,7 +4,7 @@ Nothing here reads or writes files; :mod:`spikemeasure.output` writes the tables
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -12,7 +12,7 @@ from .cell_features import CellFeatures, cell_features
 from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, Column
 from .detection import DetectionSettings, detect_spikes, smoothed_trace
 from .errors import SpikemeasureError
-from .measurement import SpikeMeasurements, measure_spikes
+from .measurement import SpikeMeasurements, measure_in_pieces, measure_spikes
 from .reading import Recording
 from .sweep_features import SweepFeatures, sweep_features
 from .sweeps import CurrentStep, Sweep, check_sweep, protocol_steps
@@ -42,10 +42,23 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
                   step: CurrentStep | None = None) -> SweepResult:
     """Measure one sweep given its current step (see
     :func:`~spikemeasure.sweeps.protocol_steps`); a sweep that cannot be measured gives a result
-    with `error` set."""
+    with `error` set.
+
+    A long gap-free sweep kept in its file (:attr:`Sweep.is_lazy`) is measured in pieces
+    (:func:`~spikemeasure.measurement.measure_in_pieces`), with the same spikes as whole; one
+    given a step (``--step``) is read whole, as its step features need all of it.
+    """
     try:
+        if sweep.is_lazy and step is not None:
+            sweep = replace(sweep, voltage_mv=np.asarray(sweep.voltage_mv))
         check_sweep(sweep)
-        trace = smoothed_trace(sweep.voltage_mv, sweep.sampling_rate_hz, settings.smoothing_ms,
+        if sweep.is_lazy:
+            spikes = measure_in_pieces(sweep.voltage_mv, sweep.sampling_rate_hz, settings)
+            features = sweep_features(np.zeros(0), sweep.sampling_rate_hz, None,
+                                      _spike_times(spikes))
+            return SweepResult(sweep, step, spikes, features)
+        voltage = np.asarray(sweep.voltage_mv)
+        trace = smoothed_trace(voltage, sweep.sampling_rate_hz, settings.smoothing_ms,
                                second_derivative=settings.needs_second_derivative)
     except SpikemeasureError as exc:
         msg = str(exc)
@@ -53,8 +66,7 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
             msg = f"{sweep.where()}: {msg}"
         return SweepResult(sweep, None, None, None, msg)
     spikes = measure_spikes(trace, detect_spikes(trace, settings), settings, step)
-    features = sweep_features(sweep.voltage_mv, sweep.sampling_rate_hz, step,
-                              _spike_times(spikes))
+    features = sweep_features(voltage, sweep.sampling_rate_hz, step, _spike_times(spikes))
     return SweepResult(sweep, step, spikes, features)
 
 
