@@ -348,7 +348,6 @@ def _nwb_signals(path: Path) -> tuple[list, object]:
 
 
 def _read_nwb(path: Path, shown: str) -> Recording:
-    import neo
 
     with open(path, "rb") as fh:
         if fh.read(8) != _HDF5_SIGNATURE:
