@@ -169,8 +169,9 @@ class _LongSignal:
     """A one-channel neo signal proxy left in its file: what the readers need of a signal,
     with the samples as a :class:`LazyTrace` read through the proxy's ``load(time_slice=)``."""
 
-    def __init__(self, proxy) -> None:
+    def __init__(self, proxy, shown: str) -> None:
         self.proxy = proxy
+        self.shown = shown
         self.units = proxy.units
         self.sampling_rate = proxy.sampling_rate
         self.name = proxy.name
@@ -187,9 +188,15 @@ class _LongSignal:
 
         def read(start: int, stop: int) -> np.ndarray:
             # neo rounds times to the nearest sample, so sample times give these samples
-            part = proxy.load(time_slice=(t0 + start / rate * pq.s, t0 + stop / rate * pq.s),
-                              strict_slicing=False)
-            return np.asarray(part.magnitude, dtype=np.float64)[:, 0]
+            try:
+                part = proxy.load(time_slice=(t0 + start / rate * pq.s,
+                                              t0 + stop / rate * pq.s), strict_slicing=False)
+                return np.asarray(part.magnitude, dtype=np.float64)[:, 0]
+            except Exception as exc:  # h5py and neo raise many types; keep the cause
+                raise UnreadableInputError(
+                    f"{self.shown}: samples {start}-{stop} of {self.name or 'the voltage'} "
+                    f"({start / rate:.1f}-{stop / rate:.1f} s) cannot be read "
+                    f"({_hdf5_reason(exc)})") from exc
 
         return LazyTrace(read, self.n_samples)
 
@@ -321,7 +328,7 @@ def _nwb_type(signal) -> str:
     return kind[-1] if isinstance(kind, (tuple, list)) else str(kind)
 
 
-def _nwb_signals(path: Path) -> tuple[list, object]:
+def _nwb_signals(path: Path, shown: str) -> tuple[list, object]:
     """The analog series of an NWB file as neo signals: neo's lazy proxies opened on the
     file's acquisition and stimulus series, short ones loaded, long ones left in the file.
 
@@ -340,7 +347,7 @@ def _nwb_signals(path: Path) -> tuple[list, object]:
                         series, "rate", None):
                     continue
                 proxy = AnalogSignalProxy(series, group_name)
-                signals.append(_LongSignal(proxy) if _is_long(proxy) else proxy.load())
+                signals.append(_LongSignal(proxy, shown) if _is_long(proxy) else proxy.load())
     except BaseException:
         reader.close()
         raise
@@ -357,7 +364,7 @@ def _read_nwb(path: Path, shown: str) -> Recording:
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            signals, reader = _nwb_signals(path)
+            signals, reader = _nwb_signals(path, shown)
     except Exception as exc:  # the NWB stack raises many types; keep the cause
         raise UnreadableInputError(f"{shown}: cannot be read as NWB ({_hdf5_reason(exc)})") from exc
     try:
@@ -478,7 +485,7 @@ def _read_nix_lazily(path: Path, shown: str) -> Recording:
         segments = []
         for block in blocks:
             for segment in block.segments:
-                signals = [_LongSignal(p) if _is_long(p) else p.load()
+                signals = [_LongSignal(p, shown) if _is_long(p) else p.load()
                            for p in segment.analogsignals]
                 segments.append(_Segment(segment.name or "", signals))
     except BaseException:

@@ -62,6 +62,8 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
                                second_derivative=settings.needs_second_derivative)
     except SpikemeasureError as exc:
         msg = str(exc)
+        if msg.startswith(f"{sweep.file}: "):  # named the file but not the sweep
+            msg = msg[len(sweep.file) + 2:]
         if not msg.startswith(sweep.file):
             msg = f"{sweep.where()}: {msg}"
         return SweepResult(sweep, None, None, None, msg)

@@ -189,3 +189,26 @@ def test_a_long_sweep_whose_command_steps_is_read_whole(tmp_path, gap_free, smal
 def test_the_documented_sizes_hold():
     """docs/measurements.md says sweeps over twice the piece size are read in pieces."""
     assert reading.LONG_SWEEP_SAMPLES == 2 * measurement.PIECE_SAMPLES
+
+
+def test_a_piece_that_cannot_be_read_names_the_file_and_sweep(tmp_path, gap_free, small_pieces,
+                                                               monkeypatch):
+    """The file opens, but a piece of it fails to read later (a damaged block of an HDF5 file):
+    that sweep fails with the file, the sweep, the samples and the cause; the run goes on."""
+    path = write_nwb(tmp_path / "damaged.nwb", [(gap_free, np.zeros(gap_free.size))],
+                     rate_hz=RATE_HZ)
+    from neo.io.nwbio import AnalogSignalProxy
+
+    real_load = AnalogSignalProxy.load
+
+    def failing_load(self, time_slice=None, strict_slicing=True):
+        if time_slice is not None and float(time_slice[0].rescale("s").magnitude) > 1.0:
+            raise OSError("Can't read data (inflate() failed)")
+        return real_load(self, time_slice=time_slice, strict_slicing=strict_slicing)
+
+    monkeypatch.setattr(AnalogSignalProxy, "load", failing_load)
+    summary = measure_paths([str(path)], tmp_path / "out", jobs=1)
+    assert summary.files_failed == 1
+    message = summary.failures[0]["message"]
+    assert message.startswith("damaged.nwb, sweep 0")
+    assert "cannot be read" in message and "inflate() failed" in message
