@@ -53,8 +53,9 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
             msg = f"{sweep.where()}: {msg}"
         return SweepResult(sweep, None, None, None, msg)
     spikes = measure_spikes(trace, detect_spikes(trace, settings), settings, step)
+    clipped = sum("clipped_peak" in f for f in spikes.flags)
     features = sweep_features(sweep.voltage_mv, sweep.sampling_rate_hz, step,
-                              _spike_times(spikes))
+                              _spike_times(spikes), clipped_spike_count=clipped)
     return SweepResult(sweep, step, spikes, features)
 
 
