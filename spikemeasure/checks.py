@@ -652,6 +652,7 @@ def accept_results(results_dir: str | os.PathLike, accepted_dir: str | os.PathLi
         for name in TABLE_FILES:
             write_text_atomic(fresh / name, (source / name).read_text(encoding="utf-8"))
         write_json(fresh / RUN_RECORD_FILE, record)
+        _usual_permissions(fresh)
         if target.exists():
             for entry in target.iterdir():
                 if entry.is_file() and not (fresh / entry.name).exists():
@@ -669,6 +670,17 @@ def accept_results(results_dir: str | os.PathLike, accepted_dir: str | os.PathLi
         shutil.rmtree(old, ignore_errors=True)
     return {"files": len({r["file"] for r in tables.cells}), "sweeps": len(tables.sweeps),
             "spikes": len(tables.spikes), "failures": tables.errors}
+
+
+def _usual_permissions(folder: Path) -> None:
+    """Temporary folders and files are private; the accepted ones are shared like any other
+    file the user writes (the umask decides)."""
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(folder, 0o777 & ~umask)
+    for entry in folder.iterdir():
+        if entry.is_file():
+            os.chmod(entry, 0o666 & ~umask)
 
 
 # --------------------------------------------------------------------------- reports

@@ -82,9 +82,9 @@ QUALITY_KEYS: dict[str, str] = {
     "max_baseline_noise_mv": "positive",
     "max_baseline_drift_mv": "positive",
     "min_sampling_rate_hz": "positive",
+    "max_clipped_spikes": "count",
     "resting_range_mv": "range",
     "min_highest_peak_mv": "number",
-    "max_clipped_spikes": "count",
 }
 
 #: Keys of ``[regression]``.
@@ -562,7 +562,7 @@ def find_project_file(paths: Sequence[str | os.PathLike] = (),
         ``spikemeasure.toml`` of the current folder (the top of a lab's repository, where CI
         runs) if it exists, else that of the first folder given (:func:`find_config_file`).
     """
-    here = Path(cwd) if cwd is not None else Path.cwd()
+    here = Path(cwd) if cwd is not None else Path(".")
     candidate = here / CONFIG_FILE_NAME
     if candidate.is_file():
         return candidate
