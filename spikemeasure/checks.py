@@ -167,7 +167,8 @@ def _read_csv(path: Path, what: str, required: tuple[str, ...]) -> tuple[list[st
     return header, rows
 
 
-def read_tables(folder: str | os.PathLike, what: str = "results") -> RunTables:
+def read_tables(folder: str | os.PathLike, what: str = "results", *,
+                suggest_out: bool = True) -> RunTables:
     """Read a run's tables back from its folder.
 
     Parameters
@@ -175,7 +176,10 @@ def read_tables(folder: str | os.PathLike, what: str = "results") -> RunTables:
     folder : str or path-like
         A folder written by ``spikemeasure measure`` (or by :func:`accept_results`).
     what : str, optional
-        ``"results"`` or ``"accepted results"``, for messages.
+        ``"results"`` or ``"accepted results"``, for messages. Accepted results may come
+        from an older version: only their key columns must be there.
+    suggest_out : bool, optional
+        Whether messages suggest ``check``'s ``--out`` (measure recordings first).
 
     Returns
     -------
@@ -192,12 +196,15 @@ def read_tables(folder: str | os.PathLike, what: str = "results") -> RunTables:
         hint = ("run `spikemeasure accept RESULTS_DIR` to save a run as the accepted results, "
                 "or set enabled = false under [regression] in the project file"
                 if what == "accepted results" else
-                "give a folder written by `spikemeasure measure`, or recordings with --out DIR")
+                "give a folder written by `spikemeasure measure --out`"
+                + (", or recordings with --out DIR to measure them first" if suggest_out
+                   else ""))
         raise CheckInputError(f"{base}: no such folder of {what}; {hint}")
     tables, headers = {}, {}
     for name, (keys, columns) in TABLE_FILES.items():
         hint = (f"the folder does not hold {what} (give the folder `spikemeasure measure "
-                f"--out` wrote, or recordings with --out DIR to measure them first)")
+                f"--out` wrote" + (", or recordings with --out DIR to measure them first)"
+                                   if suggest_out else ")"))
         # accepted results may come from an older version: only their keys must be there
         required = keys if what == "accepted results" else tuple(c.name for c in columns)
         headers[name], tables[name] = _read_csv(base / name, hint, required)
@@ -417,12 +424,6 @@ def _compare_value(accepted: str, value: str, tolerance: Tolerance | None) -> bo
     return tolerance.allows(a, b)
 
 
-def _where(file: str, sweep: int | None, spike: int | None) -> str:
-    parts = [file] + ([f"sweep {sweep}"] if sweep is not None else []) + (
-        [f"spike {spike}"] if spike is not None else [])
-    return ", ".join(parts)
-
-
 def regression_cases(new: RunTables, accepted: RunTables, settings: CheckSettings
                      ) -> tuple[list[CaseResult], list[str]]:
     """Compare a run's tables with the accepted ones, file by file.
@@ -630,7 +631,8 @@ def accept_results(results_dir: str | os.PathLike, accepted_dir: str | os.PathLi
     then takes its place by renames, so the accepted folder is never half old, half new.
     Other files already in the accepted folder (a README) are kept.
     """
-    tables = read_tables(results_dir)  # checks they are complete and of this version
+    # checks that they are complete and of this version
+    tables = read_tables(results_dir, suggest_out=False)
     source = Path(results_dir)
     target = Path(accepted_dir)
     record = {

@@ -26,6 +26,7 @@ from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import Any, Callable, Mapping, Sequence
 
+from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS
 from .detection import THRESHOLD_METHODS, DetectionSettings
 from .errors import InvalidSettingError, SpikemeasureError
 from .sweeps import parse_step_sizes
@@ -693,8 +694,6 @@ def load_check_settings(path: str | os.PathLike | None,
 
 def _compared_columns() -> list[str]:
     """Names of the columns a tolerance can apply to, in table order."""
-    from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS
-
     names = [c.name for cols in (SPIKE_COLUMNS, SWEEP_COLUMNS, CELL_COLUMNS) for c in cols
              if c.name not in UNTOLERATED_COLUMNS]
     return list(dict.fromkeys(names))

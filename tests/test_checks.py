@@ -338,6 +338,29 @@ class TestRegression:
         assert settings.tolerances == {"threshold_mv": Tolerance(0.5),
                                        "half_width_ms": Tolerance(0.02, relative=True)}
 
+    def test_results_accepted_before_a_column_existed_pass_with_a_note(self, accepted):
+        accepted_dir, run_dir = accepted
+        rows = read_rows(accepted_dir / "sweeps.csv")
+        for row in rows:
+            del row["baseline_drift_mv"]
+        write_rows(accepted_dir / "sweeps.csv", rows)
+        report = regression(run_dir, accepted_dir)
+        assert report.passed
+        assert any("baseline_drift_mv not in the accepted results" in n for n in report.notes)
+
+    def test_accept_replaces_the_tables_and_keeps_other_files(self, lab, accepted):
+        from spikemeasure.checks import accept_results
+
+        accepted_dir, run_dir = accepted
+        (accepted_dir / "README.md").write_text("reviewed results\n")
+        rows = read_rows(run_dir / "cells.csv")
+        write_rows(run_dir / "cells.csv", rows[:1])
+        accept_results(run_dir, accepted_dir)
+        assert len(read_rows(accepted_dir / "cells.csv")) == 1
+        assert (accepted_dir / "README.md").read_text() == "reviewed results\n"
+        assert sorted(p.name for p in accepted_dir.parent.iterdir()
+                      if p.name.startswith(".accepted")) == []   # no temporary folders left
+
     def test_missing_accepted_results_is_an_input_error(self, lab, tmp_path):
         with pytest.raises(CheckInputError, match="no such folder of accepted results.*accept"):
             regression(lab / "sample_results", tmp_path / "nothing")
@@ -515,6 +538,15 @@ class TestExampleLab:
             if result.returncode != 0:
                 break
         return result
+
+    def test_docs_show_the_job_file(self):
+        import re
+
+        import yaml
+
+        text = (ROOT / "docs" / "ci.md").read_text()
+        block = re.search(r"```yaml\n(.*?)```", text, flags=re.S).group(1)
+        assert yaml.safe_load(block) == yaml.safe_load((EXAMPLE / "ci-job.yml").read_text())
 
     def test_the_job_checks_and_passes_then_fails_on_a_broken_file(self, tmp_path):
         commands = example_commands()
