@@ -343,7 +343,8 @@ def quality_cases(tables: RunTables, limits: dict) -> list[CaseResult]:
     -------
     list of CaseResult
         Per file (in the order of the run): first ``measured`` (every sweep of the file was
-        read and measured: no row for it in errors.csv), then one case per limit, in the
+        read and measured: no row for it in errors.csv, and run.json does not list it as
+        not measured, as after an interrupted run), then one case per limit, in the
         order of :data:`QUALITY_RULES`. A file that could not be measured at all fails every
         limit, since none can be checked.
     """
@@ -354,11 +355,17 @@ def quality_cases(tables: RunTables, limits: dict) -> list[CaseResult]:
     errors: dict[str, list[dict]] = {}
     for row in tables.errors:
         errors.setdefault(row["file"], []).append(row)
+    unfinished = {i["file"]: i["status"] for i in tables.record.get("inputs", [])
+                  if str(i.get("status", "")).startswith("not measured")}
     cases = []
     for file in tables.files():
         rows = by_file.get(file, {n: [] for n in TABLE_FILES})
         failed = [Finding(MEASURED_CHECK, file, _stage_sweep(e["stage"]), None, None,
                           e["message"]) for e in errors.get(file, [])]
+        if file in unfinished:
+            failed.append(Finding(MEASURED_CHECK, file, None, None, None,
+                                  f"{file}: not measured ({unfinished[file]}); run the same "
+                                  f"measure command again to finish the run"))
         cases.append(CaseResult("quality", MEASURED_CHECK, file, tuple(failed)))
         for rule in QUALITY_RULES:
             if rule.key not in limits:
@@ -412,8 +419,10 @@ def _tolerance_for(column: Column, settings: CheckSettings) -> Tolerance | None:
     return builtin
 
 
-def _compare_value(accepted: str, value: str, tolerance: Tolerance | None) -> bool:
-    """True when the two cells agree: both empty, equal text, or numbers within tolerance."""
+def _compare_value(accepted: str, value: str, tolerance: Tolerance | None,
+                   floor: Tolerance | None = None) -> bool:
+    """True when the two cells agree: both empty, equal text, or numbers within tolerance
+    (or within `floor`, the resolution the CSV is written with)."""
     if accepted.strip() == value.strip():
         return True
     if tolerance is None:
@@ -421,7 +430,7 @@ def _compare_value(accepted: str, value: str, tolerance: Tolerance | None) -> bo
     a, b = _number(accepted), _number(value)
     if math.isnan(a) or math.isnan(b):  # empty against a number, or text
         return False
-    return tolerance.allows(a, b)
+    return tolerance.allows(a, b) or (floor is not None and floor.allows(a, b))
 
 
 def regression_cases(new: RunTables, accepted: RunTables, settings: CheckSettings
@@ -450,25 +459,31 @@ def regression_cases(new: RunTables, accepted: RunTables, settings: CheckSetting
     a sweep's spike count changed, the spikes added or lost fail and that sweep's spikes are
     not compared value by value (their indices no longer pair the same spikes). Every other
     cell is compared: equal text passes (two empty cells too); two numbers pass within the
-    column's tolerance (:func:`default_tolerance` unless the project file sets one); an empty
-    cell against a number fails.
+    column's tolerance (:func:`default_tolerance` unless the project file sets one), and
+    never fail by less than :func:`default_tolerance`, the resolution the CSV is written with
+    (so a relative tolerance still passes rounding of a value near zero); an empty cell
+    against a number fails.
     """
     notes: list[str] = []
     findings: dict[str, list[Finding]] = {}
     accepted_files = accepted.files()
     new_files = new.files()
     measured_new = {r["file"] for r in new.sweeps}
-    failed_new = {r["file"] for r in new.errors}
+    measured_old = {r["file"] for r in accepted.sweeps}
     for file in accepted_files:
         findings[file] = []
         if file not in new_files:
             findings[file].append(Finding(REGRESSION_CHECK, file, None, None, None,
                                           "file removed: in the accepted results but not in "
                                           "this run"))
-        elif file not in measured_new and file in failed_new:
+        elif file in measured_old and file not in measured_new:
             findings[file].append(Finding(REGRESSION_CHECK, file, None, None, None,
                                           "file lost: in the accepted results, but this run "
-                                          "could not measure it (see errors.csv)"))
+                                          "measured none of its sweeps (see errors.csv)"))
+        elif file in measured_new and file not in measured_old:
+            findings[file].append(Finding(REGRESSION_CHECK, file, None, None, None,
+                                          "file gained: measured in this run, but not in the "
+                                          "accepted run (accept the run again to add it)"))
     for file in new_files:
         if file not in findings:
             findings[file] = []
@@ -477,7 +492,8 @@ def regression_cases(new: RunTables, accepted: RunTables, settings: CheckSetting
                     REGRESSION_CHECK, file, None, None, None,
                     "file added: not in the accepted results (accept the run again to add "
                     "it, or set allow_new_files = true under [regression])"))
-    common = set(accepted_files) & set(new_files)
+    # rows are compared only for files measured in both runs; the rest failed above
+    common = set(accepted_files) & set(new_files) & measured_new & measured_old
 
     for name, (keys, columns) in TABLE_FILES.items():
         old_rows, new_rows = accepted.table(name), new.table(name)
@@ -514,7 +530,7 @@ def regression_cases(new: RunTables, accepted: RunTables, settings: CheckSetting
             for column in compared:
                 tolerance = _tolerance_for(column, settings)
                 a, b = old[column.name], now[column.name]
-                if not _compare_value(a, b, tolerance):
+                if not _compare_value(a, b, tolerance, default_tolerance(column)):
                     limit = "exact" if tolerance is None else str(tolerance)
                     findings[file].append(Finding(
                         REGRESSION_CHECK, file, sweep, spike, column.name,
@@ -586,9 +602,12 @@ def check_run(results_dir: str | os.PathLike, settings: CheckSettings) -> CheckR
     ------
     CheckInputError
         When the tables, or (with ``settings.compare``) the accepted results, are missing or
-        unreadable.
+        unreadable, or the run names no file at all.
     """
     tables = read_tables(results_dir)
+    if not tables.files():
+        raise CheckInputError(f"{results_dir}: the run's tables name no file, so there is "
+                              f"nothing to check; measure the recordings into it first")
     accepted = read_tables(settings.accepted_dir, "accepted results") if settings.compare \
         else None
     report = CheckReport(str(results_dir), str(settings.accepted_dir) if settings.compare
@@ -598,8 +617,6 @@ def check_run(results_dir: str | os.PathLike, settings: CheckSettings) -> CheckR
         cases, notes = regression_cases(tables, accepted, settings)
         report.cases += cases
         report.notes += notes
-    if not tables.files():
-        report.notes.append(f"{results_dir}: the run holds no files")
     return report
 
 
@@ -622,7 +639,8 @@ def accept_results(results_dir: str | os.PathLike, accepted_dir: str | os.PathLi
     Raises
     ------
     CheckInputError
-        When the tables are missing or unreadable, or the accepted folder cannot be written.
+        When the tables are missing or unreadable, the run was interrupted or names no file,
+        or the accepted folder cannot be written.
 
     Notes
     -----
@@ -633,6 +651,13 @@ def accept_results(results_dir: str | os.PathLike, accepted_dir: str | os.PathLi
     """
     # checks that they are complete and of this version
     tables = read_tables(results_dir, suggest_out=False)
+    if tables.record.get("interrupted"):
+        raise CheckInputError(f"{Path(results_dir) / RUN_RECORD_FILE}: the run was interrupted "
+                              f"before every file was measured; run the same measure command "
+                              f"again to finish it, then accept")
+    if not tables.files():
+        raise CheckInputError(f"{results_dir}: the run's tables name no file; there is "
+                              f"nothing to accept")
     source = Path(results_dir)
     target = Path(accepted_dir)
     record = {

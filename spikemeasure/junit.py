@@ -1,11 +1,14 @@
 """The report of ``spikemeasure check`` as JUnit XML, the test-report format CI services show.
 
 Layout (the common JUnit schema): one ``<testsuites>`` holding a ``<testsuite>`` per kind of
-check (``quality``, ``regression``); in each, one ``<testcase>`` per file and check, its
-``classname`` the file and its ``name`` the check, with a ``<failure>`` element when it
-failed (the first finding as ``message``, every finding, one per line, as text). The counts
-``tests``, ``failures``, ``errors`` and ``skipped`` of each suite, and of the whole, match its
-test cases.
+check (``quality``, ``regression``); in each, ``<properties>`` (spikemeasure's version, the
+folders and the project file), one ``<testcase>`` per file and check, its ``classname`` the
+file and its ``name`` the check, with a ``<failure>`` element when it failed (the first
+finding as ``message``, every finding, one per line, as text), then ``<system-out>`` (the
+notes) and ``<system-err>``. The counts ``tests``, ``failures``, ``errors`` and ``skipped``
+of each suite, and ``tests``, ``failures`` and ``errors`` of the whole, match the test
+cases. Every suite carries the ``id``, ``package``, ``timestamp`` and ``hostname`` that the
+stricter variant of the schema requires.
 """
 from __future__ import annotations
 
@@ -15,6 +18,7 @@ import time
 import xml.etree.ElementTree as ET
 from pathlib import Path
 
+from . import __version__
 from .checks import CheckReport
 from .output import write_text_atomic
 
@@ -59,7 +63,13 @@ def junit_xml(report: CheckReport, timestamp: float | None = None) -> str:
                               failures=str(failures), errors="0", skipped="0", time="0",
                               timestamp=stamp, hostname=host, id=str(k),
                               package="spikemeasure")
-        ET.SubElement(suite, "properties")
+        properties = ET.SubElement(suite, "properties")
+        for key, value in (("spikemeasure_version", __version__),
+                           ("results", report.results_dir),
+                           ("accepted", report.accepted_dir),
+                           ("config_file", report.config_file)):
+            if value is not None:
+                ET.SubElement(properties, "property", name=key, value=str(value))
         for case in cases:
             element = ET.SubElement(suite, "testcase", name=case.check, classname=case.file,
                                     time="0")
@@ -76,7 +86,6 @@ def junit_xml(report: CheckReport, timestamp: float | None = None) -> str:
     root.set("tests", str(totals["tests"]))
     root.set("failures", str(totals["failures"]))
     root.set("errors", "0")
-    root.set("skipped", "0")
     root.set("time", "0")
     ET.indent(root)
     return '<?xml version="1.0" encoding="UTF-8"?>\n' + ET.tostring(root, encoding="unicode") \

@@ -8,11 +8,15 @@ Sources of the expected answers:
   the four sample cells (sample_data/) pass limits of common practice;
 - the regression: tables edited by the test by a known amount, compared with tolerances
   whose arithmetic is done by hand here;
-- the JUnit report: the structure of the common JUnit XML schema (the XSD of the Ant JUnit
-  report format, from memory): <testsuites> holds <testsuite> elements with the attributes
-  name, tests, failures, errors, time, timestamp, hostname, id and package, and the children
-  properties, testcase*, system-out, system-err in that order; a <testcase> has name,
-  classname and time and at most one <failure> with message and type.
+- the JUnit report: the structure of the common JUnit XML schemas (from memory): the XSD
+  CI servers validate against (junit-10.xsd, also pytest's format) allows name, tests,
+  failures, errors and time on <testsuites>, and tests, failures, errors, skipped, time,
+  timestamp, hostname, id and package on <testsuite>, whose children are properties (each
+  with at least one property), testcase*, system-out, system-err in that order; the stricter
+  XSD of the Ant report format requires name, tests, failures, errors, time, timestamp
+  (YYYY-MM-DDTHH:MM:SS, no zone), hostname, id and package on every suite, and properties,
+  system-out and system-err present. A <testcase> has name, classname and time and at most
+  one <failure> with message and type.
 """
 from __future__ import annotations
 
@@ -400,20 +404,33 @@ class TestProjectFileSections:
 def validate_junit(text: str) -> ET.Element:
     """Check the document against the structure of the common JUnit schema (see the module
     docstring) and the consistency of its counts; return the root."""
+    import re
+
     root = ET.fromstring(text)
     assert root.tag == "testsuites"
+    assert set(root.attrib) <= {"name", "time", "tests", "failures", "disabled", "errors"}
     total_tests = total_failures = 0
     for suite in root:
         assert suite.tag == "testsuite"
         for attribute in ("name", "tests", "failures", "errors", "time", "timestamp",
                           "hostname", "id", "package"):
             assert attribute in suite.attrib, attribute
+        assert set(suite.attrib) <= {"name", "tests", "failures", "errors", "group", "time",
+                                     "skipped", "timestamp", "hostname", "id", "package",
+                                     "file", "log", "url", "version"}
+        assert re.fullmatch(r"\d{4}-\d{2}-\d{2}T\d{2}:\d{2}:\d{2}", suite.get("timestamp"))
+        assert suite.get("hostname")
         tags = [child.tag for child in suite]
         assert tags[0] == "properties" and tags[-2:] == ["system-out", "system-err"]
         assert set(tags[1:-2]) <= {"testcase"}
+        properties = list(suite.find("properties"))
+        assert properties and all(p.tag == "property" and {"name", "value"} <= set(p.attrib)
+                                  for p in properties)
         cases = suite.findall("testcase")
         for case in cases:
             assert {"name", "classname", "time"} <= set(case.attrib)
+            assert set(case.attrib) <= {"name", "assertions", "time", "classname", "status",
+                                        "file", "line"}
             assert len(case) <= 1
             for child in case:
                 assert child.tag == "failure" and {"message", "type"} <= set(child.attrib)
@@ -574,3 +591,64 @@ class TestExampleLab:
         failed = {c.get("classname") for c in root.iter("testcase")
                   if c.find("failure") is not None}
         assert failed == {recordings[0].name}
+
+
+class TestEdgeCases:
+    def test_relative_tolerance_never_below_the_written_resolution(self, accepted):
+        """baseline_drift_mv is written with 4 decimals: a change of 0.0001 mV passes even
+        under a relative tolerance of 1 % of a value near zero; 0.0003 mV does not pass
+        1 % of a value under 0.01 mV."""
+        accepted_dir, run_dir = accepted
+        rows = read_rows(run_dir / "sweeps.csv")
+        k = min(range(len(rows)), key=lambda i: abs(float(rows[i]["baseline_drift_mv"])))
+        value = float(rows[k]["baseline_drift_mv"])
+        assert abs(value) < 0.01
+        one = {"baseline_drift_mv": Tolerance(0.01, relative=True)}
+        for change, passes in ((0.0001, True), (0.0003, False)):
+            rows[k]["baseline_drift_mv"] = f"{value + change:.4f}"
+            write_rows(run_dir / "sweeps.csv", rows)
+            assert regression(run_dir, accepted_dir, tolerances=one).passed is passes
+
+    def test_an_interrupted_run_fails_measured_and_cannot_be_accepted(self, accepted):
+        from spikemeasure.checks import accept_results
+
+        accepted_dir, run_dir = accepted
+        record = json.loads((run_dir / "run.json").read_text())
+        record["interrupted"] = True
+        record["inputs"][0]["status"] = "not measured (run interrupted)"
+        (run_dir / "run.json").write_text(json.dumps(record))
+        report = check_run(run_dir, CheckSettings(compare=False))
+        finding, = report.findings
+        assert finding.check == "measured" and "run interrupted" in finding.message
+        with pytest.raises(CheckInputError, match="interrupted"):
+            accept_results(run_dir, accepted_dir)
+
+    def test_a_run_without_files_is_an_input_error(self, accepted):
+        accepted_dir, run_dir = accepted
+        for name in ("spikes.csv", "sweeps.csv", "cells.csv"):
+            header = (run_dir / name).read_text().splitlines()[0]
+            (run_dir / name).write_text(header + "\n")
+        (run_dir / "run.json").unlink()
+        with pytest.raises(CheckInputError, match="nothing to check"):
+            regression(run_dir, accepted_dir)
+
+    def test_damaged_table_names_the_line(self, accepted):
+        accepted_dir, run_dir = accepted
+        with open(run_dir / "cells.csv", "a") as fh:
+            fh.write("x.nwb,1\n")
+        lines = len((run_dir / "cells.csv").read_text().splitlines())
+        with pytest.raises(CheckInputError, match=f"cells.csv, line {lines}: the number"):
+            regression(run_dir, accepted_dir)
+
+    def test_lost_file_is_one_finding(self, lab, accepted, tmp_path):
+        """A file accepted, now failing to read: one `file lost` finding, no row noise."""
+        accepted_dir, _ = accepted
+        folder = tmp_path / "samples"
+        shutil.copytree(lab / "samples", folder)
+        (folder / "region_a_cell_2.nix").write_bytes(b"not a recording")
+        measure_paths([str(folder)], tmp_path / "out")
+        report = regression(tmp_path / "out", accepted_dir)
+        regression_findings = [f for f in report.findings if f.check == "regression"]
+        assert [(f.file, f.message.split(":")[0]) for f in regression_findings] == [
+            ("region_a_cell_2.nix", "file lost")]
+        assert failing(report) == {"region_a_cell_2.nix": {"measured", "regression"}}
