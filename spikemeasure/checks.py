@@ -202,9 +202,13 @@ def read_tables(folder: str | os.PathLike, what: str = "results", *,
         raise CheckInputError(f"{base}: no such folder of {what}; {hint}")
     tables, headers = {}, {}
     for name, (keys, columns) in TABLE_FILES.items():
-        hint = (f"the folder does not hold {what} (give the folder `spikemeasure measure "
-                f"--out` wrote" + (", or recordings with --out DIR to measure them first)"
-                                   if suggest_out else ")"))
+        if what == "accepted results":
+            hint = ("the folder does not hold accepted results (`spikemeasure accept "
+                    "RESULTS_DIR` writes them)")
+        else:
+            hint = (f"the folder does not hold {what} (give the folder `spikemeasure measure "
+                    f"--out` wrote" + (", or recordings with --out DIR to measure them first)"
+                                       if suggest_out else ")"))
         # accepted results may come from an older version: only their keys must be there
         required = keys if what == "accepted results" else tuple(c.name for c in columns)
         headers[name], tables[name] = _read_csv(base / name, hint, required)

@@ -393,7 +393,7 @@ def accept(ctx: click.Context, results_dir, config_path):
         _input_error(ctx, exc)
         return
     click.echo(f"accepted {info['files']} files, {info['sweeps']} sweeps, {info['spikes']} "
-               f"spikes from {results_dir} -> {settings.accepted_dir}")
+               f"spikes from {results_dir} -> {settings.accepted_dir} (commit that folder)")
     if info["failures"]:
         click.echo(f"note: {len(info['failures'])} failures of that run (errors.csv) are not "
                    "part of the accepted results:", err=True)

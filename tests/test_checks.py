@@ -172,6 +172,9 @@ class TestQualityRules:
         tables = read_tables(lab / "all")
         flags = [r["flags"] for r in tables.spikes if r["file"] == "clipped.nwb"]
         assert flags and all("clipped_peak" in f for f in flags)
+        counts = {r["sweep"]: int(r["clipped_spike_count"]) for r in tables.sweeps
+                  if r["file"] == "clipped.nwb"}
+        assert counts == {"0": 0, "1": 0, "2": len(flags)}
         assert not any("clipped_peak" in r["flags"] for r in tables.spikes
                        if r["file"] != "clipped.nwb")
 
@@ -517,6 +520,10 @@ class TestCommandLine:
         assert "--out" in r.output
         r = run(["check", str(lab / "sample_results")])   # nothing accepted yet
         assert r.exit_code == 2 and "accepted" in r.output
+        (tmp_path / "accepted").mkdir()
+        r = run(["check", str(lab / "sample_results")])   # an empty accepted folder
+        assert r.exit_code == 2 and "accepted" in r.output and "spikemeasure accept" in r.output
+        (tmp_path / "accepted").rmdir()
         (tmp_path / "spikemeasure.toml").write_text("[quality]\nmax_noise = 1\n")
         r = run(["check", str(lab / "sample_results")])
         assert r.exit_code == 2 and "spikemeasure.toml" in r.output and "max_noise" in r.output
