@@ -10,7 +10,9 @@ Run from this folder with::
     python make_recordings.py
 
 ``write_cell(path, noise_mv=...)`` writes one cell again with more noise: the test suite
-uses it to break a recording on purpose.
+uses it to break a recording on purpose. After writing the recordings again, accept them
+again (``spikemeasure check recordings/ --out results/``, then ``spikemeasure accept
+results/``): the files' bytes, and so the accepted inputs, change.
 """
 from __future__ import annotations
 
