@@ -1,2 +1,2 @@
 """spikemeasure: measure action potentials in current-clamp recordings."""
-__version__ = "0.1.0"
+__version__ = "0.2.0"

@@ -1,8 +1,10 @@
 """The ``spikemeasure`` command: a thin layer over the Python API.
 
-Exit codes: 0 everything was measured; 1 any file or sweep failed (the rest were measured and
-errors.csv says what failed), or an error; 2 a usage error (from click); 130 interrupted
-(Ctrl-C), after writing the tables of the files finished.
+Exit codes of ``measure`` and ``inspect``: 0 everything was measured; 1 any file or sweep
+failed (the rest were measured and errors.csv says what failed), or an error; 2 a usage error
+(from click); 130 interrupted (Ctrl-C), after writing the tables of the files finished.
+``check`` and ``accept``: 0 all checks passed (or the results were accepted); 1 a check
+failed; 2 a usage or input error (missing tables, a bad project file); 130 interrupted.
 """
 from __future__ import annotations
 
@@ -259,6 +261,149 @@ def inspect(ctx: click.Context, file, config_path, **kw):
     click.echo(text)
     if not ok:
         ctx.exit(1)
+
+
+class _InputError(click.ClickException):
+    """An input problem of check or accept: 'Error: ...' and exit code 2."""
+
+    exit_code = 2
+
+
+def _input_error(ctx: click.Context, exc: Exception) -> None:
+    if ctx.find_object(_Context).debug:
+        raise exc
+    raise _InputError(str(exc)) from exc
+
+
+def _project_option(func):
+    return click.option(
+        "--config", "config_path", type=click.Path(dir_okay=False), default=None,
+        metavar="FILE",
+        help="Project file with [measure], [quality] and [regression] (default: "
+             "spikemeasure.toml in the current folder, else in the first folder given; "
+             "without one: no quality limits, accepted results in ./accepted).")(func)
+
+
+def _check_settings(paths, config_path):
+    from pathlib import Path
+
+    from .config import find_project_file, load_check_settings
+
+    path = Path(config_path) if config_path else find_project_file(list(paths))
+    return path, load_check_settings(path)
+
+
+@main.command()
+@click.argument("paths", nargs=-1, required=True, type=click.Path())
+@click.option("--out", "out_dir", type=click.Path(file_okay=False), default=None,
+              metavar="DIR",
+              help="Measure PATHS (recordings: files or folders) into DIR first, with the "
+                   "project file's [measure] parameters, then check DIR. Without --out, PATHS "
+                   "is one folder holding a run's tables.")
+@click.option("--jobs", type=click.IntRange(min=1), default=None, metavar="N",
+              help="With --out: files measured in parallel.  [default: the machine's cores]")
+@click.option("--junit", "junit_path", type=click.Path(dir_okay=False), default=None,
+              metavar="FILE",
+              help="Also write the report as JUnit XML to FILE (one test case per file and "
+                   "check), for CI services that show test reports.")
+@click.option("--json", "as_json", is_flag=True,
+              help="Print the report as JSON on stdout (the table then goes to stderr).")
+@click.option("--rows", "max_rows", type=click.IntRange(min=0), default=40, show_default=True,
+              metavar="N", help="Show at most N failures in the table (0: all).")
+@click.option("--quiet", is_flag=True, help="Print only the summary line (and errors).")
+@_project_option
+@click.pass_context
+def check(ctx: click.Context, paths, out_dir, jobs, junit_path, as_json, max_rows, quiet,
+          config_path):
+    """Check a run against the lab's quality limits and its accepted results.
+
+    \b
+    spikemeasure check results/                        check the tables in results/
+    spikemeasure check recordings/ --out results/      measure first, then check
+
+    Quality limits come from [quality] of the project file; the accepted results (from
+    `spikemeasure accept`) from [regression]'s accepted_folder, with a tolerance per
+    column. Exit codes: 0 all passed, 1 a check failed, 2 a usage or input error.
+    """
+    from .checks import check_run, report_dict, report_text
+    from .junit import write_junit
+
+    if out_dir is None and len(paths) != 1:
+        raise click.UsageError("give one folder of a run's tables, or recordings with "
+                               "--out DIR to measure them first")
+    try:
+        project, settings = _check_settings(paths, config_path)
+        if out_dir is not None:
+            from .runner import default_jobs, measure_paths
+
+            params = _run_parameters(ctx, paths, str(project) if project else None, {})
+            _check_step_options(params.step_times, params.step_sizes)
+            progress = None if quiet else _Progress(sys.stderr.isatty())
+            try:
+                summary = measure_paths(list(paths), out_dir, params.settings,
+                                        step_times=params.step_times,
+                                        step_sizes=params.step_sizes,
+                                        sampling_rate_hz=params.sampling_rate_hz,
+                                        jobs=jobs or default_jobs(),
+                                        config_file=params.config_file, progress=progress)
+            except KeyboardInterrupt:
+                click.echo(f"Interrupted: nothing was checked; the tables in {out_dir} hold "
+                           "the files finished.", err=True)
+                ctx.exit(EXIT_INTERRUPTED)
+                return
+            if progress is not None:
+                progress.close()
+            if not quiet:
+                click.echo(f"measured {summary.files_measured + summary.files_reused} files "
+                           f"({summary.files_failed} failed) -> {out_dir}", err=True)
+            results = out_dir
+        else:
+            results = paths[0]
+        report = check_run(results, settings)
+        if junit_path:
+            write_junit(junit_path, report)
+    except SpikemeasureError as exc:
+        _input_error(ctx, exc)
+        return
+    text = report_text(report, max_rows=max_rows or None)
+    if as_json:
+        import json
+
+        click.echo(json.dumps(report_dict(report), indent=2))
+        click.echo(text if not quiet else text.splitlines()[-1], err=True)
+    else:
+        click.echo(text if not quiet else text.splitlines()[-1])
+    if not report.passed:
+        ctx.exit(1)
+
+
+@main.command()
+@click.argument("results_dir", type=click.Path())
+@_project_option
+@click.pass_context
+def accept(ctx: click.Context, results_dir, config_path):
+    """Save the run in RESULTS_DIR as the lab's accepted results.
+
+    Copies spikes.csv, sweeps.csv, cells.csv and the run's versions and parameters into the
+    accepted folder ([regression] accepted_folder of the project file; ./accepted without
+    one), replacing what was there; commit that folder. `spikemeasure check` compares later
+    runs with it.
+    """
+    from .checks import accept_results
+
+    try:
+        _, settings = _check_settings([results_dir], config_path)
+        info = accept_results(results_dir, settings.accepted_dir)
+    except SpikemeasureError as exc:
+        _input_error(ctx, exc)
+        return
+    click.echo(f"accepted {info['files']} files, {info['sweeps']} sweeps, {info['spikes']} "
+               f"spikes from {results_dir} -> {settings.accepted_dir} (commit that folder)")
+    if info["failures"]:
+        click.echo(f"note: {len(info['failures'])} failures of that run (errors.csv) are not "
+                   "part of the accepted results:", err=True)
+        for f in info["failures"]:
+            click.echo(f"  {f['message']}", err=True)
 
 
 @main.command()

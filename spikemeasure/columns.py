@@ -10,8 +10,8 @@ from dataclasses import dataclass
 from .detection import DetectionSettings
 from .cell_features import (CELL_FLAG_TEXT, HOLDING_TOLERANCE_PA, MAX_RESIDUAL_TO_NOISE,
                             MIN_DEFLECTION_TO_NOISE)
-from .measurement import FLAG_TEXT, PIECE_SAMPLES
-from .sweep_features import MIN_WINDOW_MS
+from .measurement import CLIPPED_RUN_SAMPLES, FLAG_TEXT, PIECE_SAMPLES
+from .sweep_features import DRIFT_WINDOW_MS, MIN_WINDOW_MS
 
 __all__ = ["Column", "SPIKE_COLUMNS", "SWEEP_COLUMNS", "CELL_COLUMNS", "ERROR_COLUMNS",
            "spike_column_names",
@@ -119,6 +119,16 @@ SWEEP_COLUMNS: tuple[Column, ...] = (
            f"{MIN_WINDOW_MS:g} ms window (so noise does not pull it down).", 4),
     Column("sag_fraction", "", "Hyperpolarizing steps only: (steady_state_mv - min_mv) / "
            "(baseline_mv - min_mv); 0 for no sag.", 5),
+    Column("sampling_rate_hz", "Hz", "Samples per second of the sweep's voltage, as the file "
+           "declares it (or `--sampling-rate`).", 3),
+    Column("baseline_drift_mv", "mV", f"Mean voltage over the last {DRIFT_WINDOW_MS:g} ms of the "
+           "sweep (starting no earlier than stimulus_end_s; all of the stretch after the step "
+           "when shorter) minus baseline_mv: how far the resting voltage moved between before "
+           "and after the step; positive when it ends more depolarized. Empty when the step "
+           "runs to the end of the sweep.", 4),
+    Column("clipped_spike_count", "", "Spikes of the sweep flagged `clipped_peak`: their largest "
+           f"sample repeats over at least {CLIPPED_RUN_SAMPLES} consecutive samples, as when the "
+           "recording range was exceeded."),
 )
 
 CELL_COLUMNS: tuple[Column, ...] = (

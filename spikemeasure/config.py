@@ -22,10 +22,11 @@ import math
 import os
 import re
 import sys
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import Any, Callable, Mapping, Sequence
 
+from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS
 from .detection import THRESHOLD_METHODS, DetectionSettings
 from .errors import InvalidSettingError, SpikemeasureError
 from .sweeps import parse_step_sizes
@@ -39,8 +40,10 @@ else:  # Python 3.10: the same parser, packaged separately
         tomllib = None
 
 __all__ = ["CONFIG_FILE_NAME", "CONFIG_SECTION", "SETTING_KEYS", "RUN_KEYS", "KNOWN_KEYS",
-           "ConfigError", "RunParameters", "find_config_file", "load_config",
-           "merge_parameters"]
+           "QUALITY_SECTION", "REGRESSION_SECTION", "SECTIONS", "QUALITY_KEYS",
+           "REGRESSION_KEYS", "DEFAULT_ACCEPTED_FOLDER", "ConfigError", "RunParameters",
+           "Tolerance", "CheckSettings", "find_config_file", "find_project_file", "load_config",
+           "load_check_settings", "parse_tolerance", "merge_parameters"]
 
 #: Name of the project file looked for in the first folder given.
 CONFIG_FILE_NAME = "spikemeasure.toml"
@@ -63,6 +66,41 @@ _STRING_KEYS = frozenset({"threshold_method"})
 _EXAMPLES = {"step_s": "[0.1, 0.7]", "step_sizes_pa": '"-100:20"',
              "sampling_rate_hz": "20000.0", "threshold_method": f'"{THRESHOLD_METHODS[0]}"',
              "min_samples_across_width": "3"}
+
+
+#: The table of quality limits, read by ``spikemeasure check``.
+QUALITY_SECTION = "quality"
+
+#: The table of the comparison with accepted results, read by ``spikemeasure check``.
+REGRESSION_SECTION = "regression"
+
+#: Every table the file may hold.
+SECTIONS: tuple[str, ...] = (CONFIG_SECTION, QUALITY_SECTION, REGRESSION_SECTION)
+
+#: Keys of ``[quality]``, each with the kind of value it takes (what each limit means is
+#: :data:`spikemeasure.checks.QUALITY_RULES`).
+QUALITY_KEYS: dict[str, str] = {
+    "max_baseline_noise_mv": "positive",
+    "max_baseline_drift_mv": "positive",
+    "min_sampling_rate_hz": "positive",
+    "max_clipped_spikes": "count",
+    "resting_range_mv": "range",
+    "min_highest_peak_mv": "number",
+}
+
+#: Keys of ``[regression]``.
+REGRESSION_KEYS: tuple[str, ...] = ("enabled", "accepted_folder", "allow_new_files",
+                                    "default_tolerance", "tolerances")
+
+#: Folder of the accepted results, relative to the project file (or the current folder).
+DEFAULT_ACCEPTED_FOLDER = "accepted"
+
+_QUALITY_EXAMPLES = {"max_baseline_noise_mv": "0.5", "max_baseline_drift_mv": "3.0",
+                     "min_sampling_rate_hz": "10000", "resting_range_mv": "[-85.0, -55.0]",
+                     "min_highest_peak_mv": "0.0", "max_clipped_spikes": "0"}
+
+#: Columns that identify rows or hold text: compared exactly, never with a tolerance.
+UNTOLERATED_COLUMNS = frozenset({"file", "sweep", "spike", "flags"})
 
 
 class ConfigError(SpikemeasureError):
@@ -206,31 +244,9 @@ def load_config(path: str | os.PathLike) -> dict:
     effective ``peak_window_ms``).
     """
     name = str(path)
-    if tomllib is None:
-        raise ConfigError(
-            f"{name}: reading a project file on Python 3.10 needs the 'tomli' package; "
-            f"install it (pip install tomli) or use Python 3.11 or newer")
-    try:
-        with open(path, "rb") as fh:
-            document = tomllib.load(fh)
-    except OSError as exc:
-        raise ConfigError(f"{name}: cannot read the project file ({exc.strerror or exc}); "
-                          f"check that it exists and is readable") from exc
-    except UnicodeDecodeError as exc:
-        raise ConfigError(f"{name}: the project file is not UTF-8 text; save it as UTF-8") from exc
-    except tomllib.TOMLDecodeError as exc:
-        found = re.search(r"line (\d+)", str(exc))
-        where = f" at line {found.group(1)}" if found else ""
-        raise ConfigError(
-            f"{name}: not valid TOML{where}: {exc}. Check that line: keys are written "
-            f"`name = value`, text values need quotes and lists square brackets") from exc
+    document = _read_document(path)
 
-    extra = [k for k in document if k != CONFIG_SECTION]
-    if extra:
-        raise ConfigError(
-            f"{name}: unknown top-level key or table {_quote(extra[0])}; the file may hold only "
-            f"a [{CONFIG_SECTION}] table with the keys {', '.join(KNOWN_KEYS)}. Move the "
-            f"setting under [{CONFIG_SECTION}] or remove it")
+    _check_sections(document, name)
     table = document.get(CONFIG_SECTION, {})
     if not isinstance(table, dict):
         raise ConfigError(
@@ -247,6 +263,48 @@ def load_config(path: str | os.PathLike) -> dict:
         f"{name}: [{CONFIG_SECTION}] {_keys_phrase(keys)}: {exc}; change "
         f"{'it' if len(keys) == 1 else 'one of them'} in {name}"))
     return values
+
+
+def _read_document(path: str | os.PathLike) -> dict:
+    """The project file parsed as TOML, or a ConfigError naming the file and the problem."""
+    name = str(path)
+    if tomllib is None:
+        raise ConfigError(
+            f"{name}: reading a project file on Python 3.10 needs the 'tomli' package; "
+            f"install it (pip install tomli) or use Python 3.11 or newer")
+    try:
+        with open(path, "rb") as fh:
+            return tomllib.load(fh)
+    except OSError as exc:
+        raise ConfigError(f"{name}: cannot read the project file ({exc.strerror or exc}); "
+                          f"check that it exists and is readable") from exc
+    except UnicodeDecodeError as exc:
+        raise ConfigError(f"{name}: the project file is not UTF-8 text; save it as UTF-8") from exc
+    except tomllib.TOMLDecodeError as exc:
+        found = re.search(r"line (\d+)", str(exc))
+        where = f" at line {found.group(1)}" if found else ""
+        raise ConfigError(
+            f"{name}: not valid TOML{where}: {exc}. Check that line: keys are written "
+            f"`name = value`, text values need quotes and lists square brackets") from exc
+
+
+def _check_sections(document: dict, name: str) -> None:
+    """Every top-level entry must be one of the known tables."""
+    extra = [k for k in document if k not in SECTIONS]
+    if extra:
+        close = difflib.get_close_matches(extra[0], SECTIONS, n=1)
+        hint = f"did you mean [{close[0]}]? " if close else ""
+        raise ConfigError(
+            f"{name}: unknown top-level key or table {_quote(extra[0])}; {hint}the file may "
+            f"hold the tables [{CONFIG_SECTION}] (keys {', '.join(KNOWN_KEYS)}), "
+            f"[{QUALITY_SECTION}] (keys {', '.join(QUALITY_KEYS)}) and [{REGRESSION_SECTION}] "
+            f"(keys {', '.join(REGRESSION_KEYS)}). Move the setting under "
+            f"[{CONFIG_SECTION}] or the table it belongs to, or remove it")
+    for section in SECTIONS:
+        if section in document and not isinstance(document[section], dict):
+            raise ConfigError(
+                f"{name}: `{section}` must be a table, written as a [{section}] header line "
+                f"followed by `key = value` lines (got {_describe(document[section])})")
 
 
 def merge_parameters(file_values: Mapping[str, Any], cli_values: Mapping[str, Any],
@@ -423,3 +481,251 @@ def _unknown_key_message(key: str, where: str) -> str:
     hint = f"did you mean `{close[0]}`? " if close else ""
     return (f"unknown key `{key}` in {where}; {hint}The known keys are "
             f"{', '.join(KNOWN_KEYS)}")
+
+
+# --------------------------------------------------------------------------- checks
+
+
+@dataclass(frozen=True)
+class Tolerance:
+    """How far a value may move from its accepted value.
+
+    Attributes
+    ----------
+    amount : float
+        In the column's unit (absolute), or as a fraction of the accepted value (relative).
+    relative : bool
+    """
+
+    amount: float
+    relative: bool = False
+
+    def allows(self, accepted: float, value: float) -> bool:
+        """True when ``|value - accepted|`` is within the tolerance.
+
+        A relative tolerance is taken of ``|accepted|``; a tiny slack of 1e-9 of the larger
+        magnitude absorbs the rounding of the difference itself.
+        """
+        limit = self.amount * abs(accepted) if self.relative else self.amount
+        slack = 1e-9 * max(abs(accepted), abs(value))
+        return abs(value - accepted) <= limit + slack
+
+    def __str__(self) -> str:
+        return f"{self.amount * 100:g}%" if self.relative else f"{self.amount:g}"
+
+
+@dataclass(frozen=True)
+class CheckSettings:
+    """What ``spikemeasure check`` applies, from ``[quality]`` and ``[regression]``.
+
+    Attributes
+    ----------
+    quality : dict
+        The limits the file sets, by key of :data:`QUALITY_KEYS` (floats; a (low, high) pair
+        for ``resting_range_mv``; an int for ``max_clipped_spikes``). Empty: no quality rules.
+    compare : bool
+        Whether to compare with the accepted results (``enabled``).
+    accepted_dir : Path
+        The folder of accepted results.
+    allow_new_files : bool
+        Whether files absent from the accepted results pass.
+    default_tolerance : Tolerance or None
+        Replaces the built-in tolerance of every numeric column not in `tolerances`.
+    tolerances : dict of str to Tolerance
+        By column name, in every table that has the column.
+    config_file : str or None
+        The project file, or None when the defaults apply.
+    """
+
+    quality: dict = field(default_factory=dict)
+    compare: bool = True
+    accepted_dir: Path = Path(DEFAULT_ACCEPTED_FOLDER)
+    allow_new_files: bool = False
+    default_tolerance: Tolerance | None = None
+    tolerances: dict = field(default_factory=dict)
+    config_file: str | None = None
+
+
+def find_project_file(paths: Sequence[str | os.PathLike] = (),
+                      cwd: str | os.PathLike | None = None) -> Path | None:
+    """The project file of ``check`` and ``accept``: in the current folder, else as for ``measure``.
+
+    Parameters
+    ----------
+    paths : sequence of str or path-like, optional
+        The paths named on the command line.
+    cwd : str or path-like, optional
+        The current folder (default: the process's).
+
+    Returns
+    -------
+    Path or None
+        ``spikemeasure.toml`` of the current folder (the top of a lab's repository, where CI
+        runs) if it exists, else that of the first folder given (:func:`find_config_file`).
+    """
+    here = Path(cwd) if cwd is not None else Path(".")
+    candidate = here / CONFIG_FILE_NAME
+    if candidate.is_file():
+        return candidate
+    return find_config_file(paths)
+
+
+def parse_tolerance(value: Any, where: str) -> Tolerance:
+    """A tolerance from the file: a number (absolute) or text ``"N%"`` (relative).
+
+    Parameters
+    ----------
+    value : Any
+        As read from TOML.
+    where : str
+        Start of any message (file and key).
+
+    Returns
+    -------
+    Tolerance
+
+    Raises
+    ------
+    ConfigError
+        For anything else, or a negative or non-finite amount.
+    """
+    example = 'write for example 0.5 (in the column\'s unit) or "2%" (of the accepted value)'
+    if _is_number(value):
+        amount = float(value)
+        if not (math.isfinite(amount) and amount >= 0):
+            raise ConfigError(f"{where} must be zero or positive (got {value}); {example}")
+        return Tolerance(amount, relative=False)
+    if isinstance(value, str):
+        found = re.fullmatch(r"\s*([0-9]*\.?[0-9]+(?:[eE][-+]?[0-9]+)?)\s*%\s*", value)
+        if found:
+            return Tolerance(float(found.group(1)) / 100.0, relative=True)
+    raise ConfigError(f"{where} must be a number or a percentage in quotes (got "
+                      f"{_describe(value)}); {example}")
+
+
+def load_check_settings(path: str | os.PathLike | None,
+                        base_dir: str | os.PathLike | None = None) -> CheckSettings:
+    """Read and check the ``[quality]`` and ``[regression]`` tables of a project file.
+
+    Parameters
+    ----------
+    path : str, path-like or None
+        The project file; None for the defaults (no quality rules, accepted results in
+        ``accepted/`` of `base_dir`, the built-in tolerances).
+    base_dir : str or path-like, optional
+        Where the accepted folder is looked for without a project file (default: the current
+        folder). With a project file, ``accepted_folder`` is relative to the file's folder.
+
+    Returns
+    -------
+    CheckSettings
+
+    Raises
+    ------
+    ConfigError
+        If the file cannot be read, holds an unknown table or key (the closest known one is
+        suggested), or a value of the wrong type or out of range; the message names the file
+        and the key.
+
+    Notes
+    -----
+    ``[regression.tolerances]`` maps column names to tolerances; a name applies in every table
+    that has the column (``sag_fraction`` in sweeps.csv and cells.csv). The columns that
+    identify rows, and ``flags``, are compared exactly and take no tolerance.
+    """
+    base = Path(base_dir) if base_dir is not None else Path.cwd()
+    if path is None:
+        return CheckSettings(accepted_dir=base / DEFAULT_ACCEPTED_FOLDER)
+    name = str(path)
+    document = _read_document(path)
+    _check_sections(document, name)
+    quality_table = document.get(QUALITY_SECTION, {})
+    quality: dict[str, Any] = {}
+    for key, value in quality_table.items():
+        if key not in QUALITY_KEYS:
+            raise ConfigError(f"{name}: {_unknown_in(key, QUALITY_KEYS, QUALITY_SECTION)}")
+        quality[key] = _quality_value(key, value, f"{name}: key `{key}` in [{QUALITY_SECTION}]")
+
+    table = document.get(REGRESSION_SECTION, {})
+    for key in table:
+        if key not in REGRESSION_KEYS:
+            raise ConfigError(f"{name}: {_unknown_in(key, REGRESSION_KEYS, REGRESSION_SECTION)}")
+    where = lambda key: f"{name}: key `{key}` in [{REGRESSION_SECTION}]"  # noqa: E731
+    for key in ("enabled", "allow_new_files"):
+        if key in table and not isinstance(table[key], bool):
+            raise ConfigError(f"{where(key)} must be true or false (got "
+                              f"{_describe(table[key])}); write for example {key} = true")
+    folder = table.get("accepted_folder", DEFAULT_ACCEPTED_FOLDER)
+    if not isinstance(folder, str) or not folder.strip():
+        raise ConfigError(f"{where('accepted_folder')} must be a folder name in quotes (got "
+                          f"{_describe(folder)}); write for example accepted_folder = "
+                          f'"{DEFAULT_ACCEPTED_FOLDER}"')
+    default = table.get("default_tolerance")
+    default_tolerance = None if default is None else parse_tolerance(
+        default, where("default_tolerance"))
+    given = table.get("tolerances", {})
+    if not isinstance(given, dict):
+        raise ConfigError(
+            f"{where('tolerances')} must be a table of column = tolerance, written as a "
+            f"[{REGRESSION_SECTION}.tolerances] header line followed by lines such as "
+            f'threshold_mv = 0.5 or half_width_ms = "2%" (got {_describe(given)})')
+    known = _compared_columns()
+    tolerances: dict[str, Tolerance] = {}
+    for column, value in given.items():
+        place = f"{name}: column `{column}` in [{REGRESSION_SECTION}.tolerances]"
+        if column in UNTOLERATED_COLUMNS:
+            raise ConfigError(f"{place}: `{column}` identifies rows or holds text and is "
+                              f"compared exactly; remove it")
+        if column not in known:
+            close = difflib.get_close_matches(column, known, n=1)
+            hint = f"did you mean `{close[0]}`? " if close else ""
+            raise ConfigError(f"{place}: no table has this column; {hint}`spikemeasure "
+                              f"columns` lists them")
+        tolerances[column] = parse_tolerance(value, place)
+    folder_path = Path(folder)
+    if not folder_path.is_absolute():
+        folder_path = Path(path).resolve().parent / folder_path
+    return CheckSettings(quality=quality, compare=table.get("enabled", True),
+                         accepted_dir=folder_path,
+                         allow_new_files=table.get("allow_new_files", False),
+                         default_tolerance=default_tolerance, tolerances=tolerances,
+                         config_file=name)
+
+
+def _compared_columns() -> list[str]:
+    """Names of the columns a tolerance can apply to, in table order."""
+    names = [c.name for cols in (SPIKE_COLUMNS, SWEEP_COLUMNS, CELL_COLUMNS) for c in cols
+             if c.name not in UNTOLERATED_COLUMNS]
+    return list(dict.fromkeys(names))
+
+
+def _quality_value(key: str, value: Any, where: str) -> Any:
+    kind = QUALITY_KEYS[key]
+    example = f"write for example {key} = {_QUALITY_EXAMPLES[key]}"
+    if kind == "count":
+        if isinstance(value, bool) or not isinstance(value, int) or value < 0:
+            raise ConfigError(f"{where} must be a whole number, 0 or more (got "
+                              f"{_describe(value)}); {example}")
+        return int(value)
+    if kind == "range":
+        if (isinstance(value, (str, bytes)) or not isinstance(value, Sequence)
+                or len(value) != 2 or not all(_is_number(v) for v in value)):
+            raise ConfigError(f"{where} must be a list of two numbers, the lowest and highest "
+                              f"allowed value (got {_describe(value)}); {example}")
+        low, high = float(value[0]), float(value[1])
+        if not (math.isfinite(low) and math.isfinite(high) and low < high):
+            raise ConfigError(f"{where} must have LOW < HIGH (got {low:g} and {high:g}); "
+                              f"{example}")
+        return low, high
+    if not _is_number(value) or not math.isfinite(float(value)):
+        raise ConfigError(f"{where} must be a number (got {_describe(value)}); {example}")
+    if kind == "positive" and not float(value) > 0:
+        raise ConfigError(f"{where} must be positive (got {value}); {example}")
+    return float(value)
+
+
+def _unknown_in(key: str, known: Sequence[str], section: str) -> str:
+    close = difflib.get_close_matches(key, list(known), n=1)
+    hint = f"did you mean `{close[0]}`? " if close else ""
+    return (f"unknown key `{key}` in [{section}]; {hint}The known keys are "
+            f"{', '.join(known)}")

@@ -20,7 +20,8 @@ from .sweeps import CurrentStep
 
 __all__ = ["SpikeMeasurements", "spike_thresholds", "interpolated_peaks", "half_widths",
            "troughs", "rate_extremes", "search_ends", "measure_spikes", "measure_trace",
-           "measure_in_pieces", "piece_margin_samples", "PIECE_SAMPLES", "FLAG_TEXT"]
+           "measure_in_pieces", "piece_margin_samples", "PIECE_SAMPLES", "FLAG_TEXT",
+           "CLIPPED_RUN_SAMPLES", "flat_peak_runs"]
 
 #: Samples per piece when a long trace is measured in pieces (about 16 MB of float64 each).
 PIECE_SAMPLES = 1 << 21
@@ -39,7 +40,16 @@ FLAG_TEXT = {
     "too_few_samples_across_spike": "fewer samples than `min_samples_across_width` lie above the "
                                     "half-amplitude level: the sampling rate is too low to "
                                     "measure the width, which is left empty",
+    "clipped_peak": "the spike's largest sample repeats over at least "
+                    "`CLIPPED_RUN_SAMPLES` (3) consecutive samples, as when the amplifier or "
+                    "digitizer range was exceeded: the true peak was higher, so peak, amplitude "
+                    "and half-width are too small",
 }
+
+#: Consecutive samples equal to a spike's largest sample that mark its peak as clipped. A
+#: smooth peak sampled finely enough to measure has distinct samples around its maximum;
+#: two equal samples can straddle a maximum by chance, three in a row hardly ever.
+CLIPPED_RUN_SAMPLES = 3
 
 
 @dataclass(frozen=True)
@@ -358,6 +368,46 @@ def interpolated_peaks(voltage_mv: np.ndarray, peak_sample: np.ndarray
     return index, value, at_edge
 
 
+def flat_peak_runs(voltage_mv: np.ndarray, peak_sample: np.ndarray) -> np.ndarray:
+    """Length of the run of samples equal to each spike's largest sample.
+
+    Parameters
+    ----------
+    voltage_mv : ndarray
+        Raw voltage in mV.
+    peak_sample : ndarray of int
+        Index of each spike's largest sample.
+
+    Returns
+    -------
+    ndarray of int
+        For each spike, the number of consecutive samples, through ``peak_sample``, whose
+        value equals ``voltage_mv[peak_sample]`` exactly: 1 for an unclipped peak, the width
+        of the plateau for a peak cut off at the top of a recording range.
+
+    Notes
+    -----
+    A recording that exceeds the amplifier's or the digitizer's range holds the largest
+    value it can represent for as long as the signal stays above it, so the top of a clipped
+    spike is a run of identical samples. A spike is flagged ``clipped_peak`` when the run is
+    at least :data:`CLIPPED_RUN_SAMPLES` long. (A digitizer step as coarse as the change of a
+    smooth peak over two samples could also give such runs; at usual resolutions, 16 bits over
+    a range of volts, that needs sampling far faster than a spike's width requires.)
+    """
+    v = np.asarray(voltage_mv)
+    runs = np.ones(len(peak_sample), dtype=int)
+    for k, p in enumerate(np.asarray(peak_sample, dtype=int)):
+        top = v[p]
+        lo = p
+        while lo > 0 and v[lo - 1] == top:
+            lo -= 1
+        hi = p
+        while hi < v.size - 1 and v[hi + 1] == top:
+            hi += 1
+        runs[k] = hi - lo + 1
+    return runs
+
+
 def half_widths(voltage_mv: np.ndarray, sampling_rate_hz: float, threshold_position: np.ndarray,
                 threshold_mv: np.ndarray, peak_sample: np.ndarray, peak_mv: np.ndarray,
                 end_index: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -598,6 +648,7 @@ def measure_spikes(trace: SmoothedTrace, detected: DetectedSpikes,
     width = np.where(coarse, np.nan, width)
     max_rate, min_rate = rate_extremes(v, rate, thr_i, peak_pos, trough_i,
                                        settings.rate_smoothing_ms)
+    clipped = flat_peak_runs(v, detected.peak_sample) >= CLIPPED_RUN_SAMPLES
     thr_s = thr_i / rate
     isi = np.full(n, np.nan)
     if n > 1:
@@ -615,6 +666,8 @@ def measure_spikes(trace: SmoothedTrace, detected: DetectedSpikes,
             f.append("trough_after_step_end")
         if coarse[k]:
             f.append("too_few_samples_across_spike")
+        if clipped[k]:
+            f.append("clipped_peak")
         flags.append(tuple(f))
     return SpikeMeasurements(
         threshold_s=thr_s, threshold_mv=thr_mv, peak_s=peak_pos / rate, peak_mv=peak_mv,

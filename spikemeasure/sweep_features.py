@@ -13,12 +13,16 @@ from scipy.ndimage import uniform_filter1d
 from .errors import InvalidSettingError
 from .sweeps import CurrentStep
 
-__all__ = ["SweepFeatures", "baseline", "firing", "adaptation_index", "passive_response",
-           "sweep_features", "MIN_WINDOW_MS"]
+__all__ = ["SweepFeatures", "baseline", "baseline_drift", "firing", "adaptation_index",
+           "passive_response", "sweep_features", "MIN_WINDOW_MS", "DRIFT_WINDOW_MS"]
 
 #: Width of the moving average under the minimum during the step (noise would pull a raw
 #: minimum down by two to three noise SDs).
 MIN_WINDOW_MS = 1.0
+
+#: Length of the window at the end of the sweep, after the step, whose mean voltage is
+#: compared with the baseline to measure drift.
+DRIFT_WINDOW_MS = 100.0
 
 
 @dataclass(frozen=True)
@@ -40,6 +44,9 @@ class SweepFeatures:
     steady_state_mv: float
     min_mv: float
     sag_fraction: float
+    sampling_rate_hz: float
+    baseline_drift_mv: float
+    clipped_spike_count: int
 
     def as_dict(self) -> dict:
         return asdict(self)
@@ -57,6 +64,47 @@ def baseline(voltage_mv: np.ndarray, sampling_rate_hz: float, onset_s: float,
         return float("nan"), float("nan")
     part = voltage_mv[start:stop]
     return float(np.mean(part)), float(np.std(part))
+
+
+def baseline_drift(voltage_mv: np.ndarray, sampling_rate_hz: float, offset_s: float,
+                   baseline_mv: float, window_ms: float = DRIFT_WINDOW_MS) -> float:
+    """How far the resting voltage moved over a sweep: end of the sweep minus the baseline.
+
+    Parameters
+    ----------
+    voltage_mv : ndarray
+        Raw voltage in mV.
+    sampling_rate_hz : float
+    offset_s : float
+        End of the current step (its first sample after the step), s from the first sample.
+    baseline_mv : float
+        Mean voltage before the step (:func:`baseline`).
+    window_ms : float, optional
+        Length of the final window, default :data:`DRIFT_WINDOW_MS`.
+
+    Returns
+    -------
+    float
+        Mean voltage over the last `window_ms` of the sweep minus `baseline_mv`, in mV;
+        positive when the cell ends the sweep more depolarized than it started. The window
+        starts no earlier than `offset_s`, so it never holds the step itself (all of the
+        post-step stretch when that is shorter). NaN when the step runs to the end of the
+        sweep or the baseline is unknown.
+
+    Notes
+    -----
+    Both windows sit where no current is injected, so for a cell at rest the difference is the
+    drift of the membrane potential (or of the electrode's offset) across the sweep. For a
+    voltage rising linearly at k mV/s, the drift is k times the time between the centres of
+    the two windows. A slow after-hyperpolarization or rebound still under way in the final
+    window counts as drift: sweeps should leave the cell time to settle after the step.
+    """
+    stop = voltage_mv.size
+    first = max(int(round(offset_s * sampling_rate_hz)),
+                stop - int(round(window_ms * 1e-3 * sampling_rate_hz)))
+    if stop - first < 1 or not np.isfinite(baseline_mv):
+        return float("nan")
+    return float(np.mean(voltage_mv[first:stop]) - baseline_mv)
 
 
 def adaptation_index(isi_ms: np.ndarray) -> float:
@@ -158,7 +206,8 @@ def passive_response(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curr
 
 def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: CurrentStep | None,
                    spike_times_s: np.ndarray, *, baseline_window_ms: float = 100.0,
-                   steady_window_ms: float = 100.0) -> SweepFeatures:
+                   steady_window_ms: float = 100.0, clipped_spike_count: int = 0
+                   ) -> SweepFeatures:
     """All features of one sweep.
 
     Parameters
@@ -167,12 +216,15 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
         Raw voltage in mV.
     sampling_rate_hz : float
     step : CurrentStep or None
-        Without a step, only nothing step-related can be measured: every feature is NaN and
-        the count 0.
+        Without a step, nothing step-related can be measured: every step feature is NaN and
+        the spike count 0 (the sampling rate and the clipped-spike count are still given).
     spike_times_s : ndarray
         Threshold (or, where unknown, peak) time of each spike.
     baseline_window_ms, steady_window_ms : float, optional
         Windows before the step (baseline) and at its end (steady state), default 100 ms.
+    clipped_spike_count : int, optional
+        Spikes of the sweep whose peak is clipped (flag ``clipped_peak`` of
+        :func:`~spikemeasure.measurement.measure_spikes`), passed through to the table.
 
     Returns
     -------
@@ -181,14 +233,17 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
     if not (baseline_window_ms > 0 and steady_window_ms > 0):
         raise InvalidSettingError("`baseline_window_ms` and `steady_window_ms` must be positive")
     nan = float("nan")
+    rate = float(sampling_rate_hz)
     if step is None:
         return SweepFeatures(nan, nan, nan, nan, nan, nan, 0, nan, nan, nan, nan, nan, nan,
-                             nan, nan)
+                             nan, nan, rate, nan, int(clipped_spike_count))
     base, noise = baseline(voltage_mv, sampling_rate_hz, step.onset_s, baseline_window_ms)
+    drift = baseline_drift(voltage_mv, sampling_rate_hz, step.offset_s, base)
     fire = firing(spike_times_s, step)
     steady, lowest, sag = passive_response(voltage_mv, sampling_rate_hz, step, base,
                                            steady_window_ms)
     return SweepFeatures(
         stimulus_pa=step.size_pa, holding_pa=step.holding_pa, stimulus_start_s=step.onset_s,
         stimulus_end_s=step.offset_s, baseline_mv=base, baseline_noise_mv=noise,
-        steady_state_mv=steady, min_mv=lowest, sag_fraction=sag, **fire)
+        steady_state_mv=steady, min_mv=lowest, sag_fraction=sag, sampling_rate_hz=rate,
+        baseline_drift_mv=drift, clipped_spike_count=int(clipped_spike_count), **fire)

@@ -38,6 +38,10 @@ def _spike_times(spikes: SpikeMeasurements) -> np.ndarray:
     return np.where(np.isfinite(spikes.threshold_s), spikes.threshold_s, spikes.peak_s)
 
 
+def _clipped(spikes: SpikeMeasurements) -> int:
+    return sum("clipped_peak" in f for f in spikes.flags)
+
+
 def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(),
                   step: CurrentStep | None = None) -> SweepResult:
     """Measure one sweep given its current step (see
@@ -55,7 +59,7 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
         if sweep.is_lazy:
             spikes = measure_in_pieces(sweep.voltage_mv, sweep.sampling_rate_hz, settings)
             features = sweep_features(np.zeros(0), sweep.sampling_rate_hz, None,
-                                      _spike_times(spikes))
+                                      _spike_times(spikes), clipped_spike_count=_clipped(spikes))
             return SweepResult(sweep, step, spikes, features)
         voltage = np.asarray(sweep.voltage_mv)
         trace = smoothed_trace(voltage, sweep.sampling_rate_hz, settings.smoothing_ms,
@@ -68,7 +72,8 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
             msg = f"{sweep.where()}: {msg}"
         return SweepResult(sweep, None, None, None, msg)
     spikes = measure_spikes(trace, detect_spikes(trace, settings), settings, step)
-    features = sweep_features(voltage, sweep.sampling_rate_hz, step, _spike_times(spikes))
+    features = sweep_features(voltage, sweep.sampling_rate_hz, step, _spike_times(spikes),
+                              clipped_spike_count=_clipped(spikes))
     return SweepResult(sweep, step, spikes, features)
 
 

@@ -210,3 +210,45 @@ def test_spike_at_step_end_keeps_its_width():
     assert m.half_width_ms[0] == pytest.approx(spike.half_width_ms(m.threshold_mv[0]), rel=0.01)
     assert "trough_after_step_end" in m.flags[0]
     assert m.trough_mv[0] == pytest.approx(spike.base_mv, abs=0.01)
+
+
+class TestClippedPeaks:
+    """Source: the closed form of a Gaussian spike: a spike clipped at level c holds c for
+    every sample with |t - tp| < sigma sqrt(2 ln(A / (c - base))), so the length of the
+    plateau is known before measuring."""
+
+    @pytest.mark.parametrize("clip_mv", [0.0, 20.0])
+    def test_clipped_gaussian_is_flagged_with_its_plateau(self, clip_mv):
+        from spikemeasure.measurement import flat_peak_runs
+
+        spike = GaussianSpike()
+        rate = 20_000.0
+        t, v = sampled(spike, rate, duration_ms=20.0)
+        half = spike.sigma_ms * np.sqrt(2 * np.log(spike.amplitude_mv / (clip_mv - spike.base_mv)))
+        expected_run = int(np.sum(np.abs(t - spike.peak_ms) < half))
+        assert expected_run >= 3
+        clipped = np.minimum(v, clip_mv)
+        m = measure_trace(clipped, rate)
+        assert len(m) == 1 and "clipped_peak" in m.flags[0]
+        peak_sample = np.array([int(np.argmax(clipped))])
+        assert flat_peak_runs(clipped, peak_sample)[0] == expected_run
+
+    @pytest.mark.parametrize("rate", RATES)
+    def test_unclipped_gaussian_is_not_flagged(self, gaussian_spike, rate):
+        _, v = sampled(gaussian_spike, rate)
+        m = measure_trace(v, rate)
+        assert len(m) == 1 and "clipped_peak" not in m.flags[0]
+
+    def test_two_equal_samples_straddling_a_peak_are_not_clipping(self, gaussian_spike):
+        """A grid placed symmetrically about the peak gives two equal largest samples: a run
+        of 2, below the CLIPPED_RUN_SAMPLES of 3."""
+        from spikemeasure.measurement import CLIPPED_RUN_SAMPLES
+
+        rate = 20_000.0
+        dt_ms = 1e3 / rate
+        offsets_ms = (np.arange(-200, 200) + 0.5) * dt_ms   # exact negatives of each other
+        s = gaussian_spike
+        v = s.base_mv + s.amplitude_mv * np.exp(-offsets_ms ** 2 / (2 * s.sigma_ms ** 2))
+        assert np.sum(v == v.max()) == 2
+        m = measure_trace(v, rate)
+        assert CLIPPED_RUN_SAMPLES == 3 and "clipped_peak" not in m.flags[0]

@@ -91,3 +91,44 @@ def test_sweep_features_baseline_and_no_step():
     assert np.isnan(none.baseline_mv) and none.spike_count == 0
     with pytest.raises(InvalidSettingError):
         sweep_features(v, RATE, None, np.array([]), baseline_window_ms=0)
+
+
+class TestBaselineDrift:
+    """Source: a linear ramp V = V0 + k t. The mean of a ramp over any set of samples is the
+    ramp at their mean time, so end-window mean minus baseline-window mean is exactly k times
+    the difference of the windows' mean sample times (computed here from the indices)."""
+
+    @pytest.mark.parametrize("slope_mv_per_s", [-4.0, 0.0, 2.5])
+    def test_ramp(self, slope_mv_per_s):
+        from spikemeasure.sweep_features import baseline_drift
+
+        rate, n = 20_000.0, 16_000                     # 0.8 s; step 0.1 to 0.6 s
+        t = np.arange(n) / rate
+        v = -70.0 + slope_mv_per_s * t
+        step = CurrentStep(0.1, 0.6, 50.0, 0.0)
+        f = sweep_features(v, rate, step, np.array([]))
+        base_idx = np.arange(int(0.1 * rate) - int(0.1 * rate), int(0.1 * rate))
+        end_idx = np.arange(n - int(0.1 * rate), n)
+        expected = slope_mv_per_s * (end_idx.mean() - base_idx.mean()) / rate
+        assert f.baseline_drift_mv == pytest.approx(expected, abs=1e-9)
+        # the windows' centres are 0.05 s and 0.75 s: 0.7 s apart, minus one sample
+        assert f.baseline_drift_mv == pytest.approx(slope_mv_per_s * 0.7, abs=1e-3)
+        assert baseline_drift(v, rate, 0.6, f.baseline_mv) == f.baseline_drift_mv
+        assert f.sampling_rate_hz == rate and f.clipped_spike_count == 0
+
+    def test_short_tail_uses_only_samples_after_the_step(self):
+        """30 ms after the step: the window is those 30 ms, never the step itself."""
+        from spikemeasure.sweep_features import baseline_drift
+
+        rate = 10_000.0
+        v = np.full(int(0.63 * rate), -70.0)
+        v[int(0.1 * rate):int(0.6 * rate)] = -50.0      # a step response of +20 mV
+        v[int(0.6 * rate):] = -69.0                     # 1 mV above the baseline after it
+        assert baseline_drift(v, rate, 0.6, -70.0) == pytest.approx(1.0, abs=1e-12)
+
+    def test_step_to_the_end_gives_nan(self):
+        from spikemeasure.sweep_features import baseline_drift
+
+        v = np.full(1000, -70.0)
+        assert np.isnan(baseline_drift(v, 10_000.0, 0.1, -70.0))
+        assert np.isnan(baseline_drift(v, 10_000.0, 0.05, float("nan")))

@@ -1,0 +1,780 @@
+"""Checks of a run's tables: quality limits a lab sets, and regression against accepted results.
+
+The job behind ``spikemeasure check`` and ``spikemeasure accept``:
+
+- :func:`read_tables` reads spikes.csv, sweeps.csv, cells.csv (and errors.csv, run.json) of a
+  run's folder back as rows of text;
+- :func:`quality_cases` applies the limits of ``[quality]`` (:data:`QUALITY_RULES`), one case
+  per file and rule;
+- :func:`regression_cases` compares the tables with the accepted ones, one case per file;
+- :func:`accept_results` saves a run's tables as the accepted results.
+
+Results are :class:`Finding` (one thing that failed) grouped in :class:`CaseResult` (one
+file and one check), collected in a :class:`CheckReport`. Nothing here prints or exits.
+"""
+from __future__ import annotations
+
+import csv
+import json
+import math
+import os
+import shutil
+import tempfile
+import time
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+from typing import Callable
+
+from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, Column
+from .config import CheckSettings, Tolerance
+from .errors import SpikemeasureError
+from .output import write_json, write_text_atomic
+
+__all__ = ["CheckInputError", "Finding", "CaseResult", "CheckReport", "RunTables",
+           "QualityRule", "QUALITY_RULES", "MEASURED_CHECK", "REGRESSION_CHECK",
+           "TABLE_FILES", "read_tables", "quality_cases", "regression_cases", "check_run",
+           "accept_results", "default_tolerance", "report_text", "report_dict"]
+
+#: The tables a run's folder must hold, with their key columns and declarations.
+TABLE_FILES: dict[str, tuple[tuple[str, ...], tuple[Column, ...]]] = {
+    "spikes.csv": (("file", "sweep", "spike"), SPIKE_COLUMNS),
+    "sweeps.csv": (("file", "sweep"), SWEEP_COLUMNS),
+    "cells.csv": (("file",), CELL_COLUMNS),
+}
+ERRORS_FILE = "errors.csv"
+RUN_RECORD_FILE = "run.json"
+
+#: Name of the check that every file and sweep of the run was measured (always applied).
+MEASURED_CHECK = "measured"
+#: Name of the comparison with the accepted results.
+REGRESSION_CHECK = "regression"
+
+
+class CheckInputError(SpikemeasureError):
+    """The tables or the accepted results are missing, unreadable or not spikemeasure's."""
+
+
+@dataclass(frozen=True)
+class Finding:
+    """One thing that failed.
+
+    Attributes
+    ----------
+    check : str
+        The rule (a ``[quality]`` key), ``measured`` or ``regression``.
+    file : str
+        The recording, as in the tables.
+    sweep, spike : int or None
+        Where in the file, when the finding concerns a sweep or a spike.
+    column : str or None
+        The column concerned.
+    message : str
+        What is wrong, in a sentence naming the values.
+    accepted, value, limit : str or None
+        The accepted value, the value of this run, and the limit or tolerance, as text.
+    """
+
+    check: str
+    file: str
+    sweep: int | None
+    spike: int | None
+    column: str | None
+    message: str
+    accepted: str | None = None
+    value: str | None = None
+    limit: str | None = None
+
+
+@dataclass(frozen=True)
+class CaseResult:
+    """One file under one check (a JUnit test case): passed when it has no findings."""
+
+    suite: str
+    check: str
+    file: str
+    findings: tuple[Finding, ...] = ()
+
+    @property
+    def passed(self) -> bool:
+        return not self.findings
+
+
+@dataclass
+class CheckReport:
+    """Everything ``check`` found."""
+
+    results_dir: str
+    accepted_dir: str | None
+    config_file: str | None
+    cases: list[CaseResult] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def findings(self) -> list[Finding]:
+        return [f for c in self.cases for f in c.findings]
+
+    @property
+    def failed_cases(self) -> list[CaseResult]:
+        return [c for c in self.cases if not c.passed]
+
+    @property
+    def passed(self) -> bool:
+        return not self.failed_cases
+
+
+@dataclass(frozen=True)
+class RunTables:
+    """A run's tables read back: rows of text by column name, in file order."""
+
+    folder: Path
+    spikes: list[dict]
+    sweeps: list[dict]
+    cells: list[dict]
+    errors: list[dict]
+    record: dict
+    headers: dict = field(default_factory=dict)
+
+    def table(self, file_name: str) -> list[dict]:
+        return {"spikes.csv": self.spikes, "sweeps.csv": self.sweeps,
+                "cells.csv": self.cells}[file_name]
+
+    def files(self) -> list[str]:
+        """Every recording the run names (measured or failed), in order of first mention."""
+        names = [r["file"] for r in self.cells + self.sweeps + self.errors]
+        names += [i["file"] for i in self.record.get("inputs", []) if "file" in i]
+        return list(dict.fromkeys(names))
+
+
+def _read_csv(path: Path, what: str, required: tuple[str, ...]) -> tuple[list[str], list[dict]]:
+    try:
+        with open(path, newline="", encoding="utf-8") as fh:
+            reader = csv.DictReader(fh)
+            rows = list(reader)
+            header = list(reader.fieldnames or [])
+    except FileNotFoundError:
+        raise CheckInputError(f"{path}: no such file; {what}") from None
+    except (OSError, UnicodeDecodeError, csv.Error) as exc:
+        raise CheckInputError(f"{path}: cannot be read as CSV ({exc})") from exc
+    missing = [c for c in required if c not in header]
+    if missing:
+        raise CheckInputError(
+            f"{path}: no column {', '.join(missing)}; it was not written by this version of "
+            f"spikemeasure (measure again, or accept the results again)")
+    for k, row in enumerate(rows, start=2):
+        if None in row or any(v is None for v in row.values()):
+            raise CheckInputError(f"{path}, line {k}: the number of cells differs from the "
+                                  f"header; the file is damaged (measure again)")
+    return header, rows
+
+
+def read_tables(folder: str | os.PathLike, what: str = "results", *,
+                suggest_out: bool = True) -> RunTables:
+    """Read a run's tables back from its folder.
+
+    Parameters
+    ----------
+    folder : str or path-like
+        A folder written by ``spikemeasure measure`` (or by :func:`accept_results`).
+    what : str, optional
+        ``"results"`` or ``"accepted results"``, for messages. Accepted results may come
+        from an older version: only their key columns must be there.
+    suggest_out : bool, optional
+        Whether messages suggest ``check``'s ``--out`` (measure recordings first).
+
+    Returns
+    -------
+    RunTables
+
+    Raises
+    ------
+    CheckInputError
+        If the folder or a table is missing or unreadable, or a table lacks a column of this
+        version's declaration (naming the file and the column).
+    """
+    base = Path(folder)
+    if not base.is_dir():
+        hint = ("run `spikemeasure accept RESULTS_DIR` to save a run as the accepted results, "
+                "or set enabled = false under [regression] in the project file"
+                if what == "accepted results" else
+                "give a folder written by `spikemeasure measure --out`"
+                + (", or recordings with --out DIR to measure them first" if suggest_out
+                   else ""))
+        raise CheckInputError(f"{base}: no such folder of {what}; {hint}")
+    tables, headers = {}, {}
+    for name, (keys, columns) in TABLE_FILES.items():
+        if what == "accepted results":
+            hint = ("the folder does not hold accepted results (`spikemeasure accept "
+                    "RESULTS_DIR` writes them)")
+        else:
+            hint = (f"the folder does not hold {what} (give the folder `spikemeasure measure "
+                    f"--out` wrote" + (", or recordings with --out DIR to measure them first)"
+                                       if suggest_out else ")"))
+        # accepted results may come from an older version: only their keys must be there
+        required = keys if what == "accepted results" else tuple(c.name for c in columns)
+        headers[name], tables[name] = _read_csv(base / name, hint, required)
+    errors: list[dict] = []
+    if (base / ERRORS_FILE).exists():
+        _, errors = _read_csv(base / ERRORS_FILE, "", ("file", "stage", "message"))
+    record: dict = {}
+    if (base / RUN_RECORD_FILE).exists():
+        try:
+            record = json.loads((base / RUN_RECORD_FILE).read_text(encoding="utf-8"))
+        except (OSError, ValueError) as exc:
+            raise CheckInputError(f"{base / RUN_RECORD_FILE}: not a readable run record "
+                                  f"({exc})") from exc
+        if not isinstance(record, dict):
+            raise CheckInputError(f"{base / RUN_RECORD_FILE}: not a run record (a JSON object)")
+    return RunTables(base, tables["spikes.csv"], tables["sweeps.csv"], tables["cells.csv"],
+                     errors, record, headers)
+
+
+# --------------------------------------------------------------------------- quality
+
+
+def _number(text: str | None) -> float:
+    """A CSV cell as a float: NaN for an empty (unmeasured) cell."""
+    if text is None or text.strip() == "":
+        return math.nan
+    try:
+        return float(text)
+    except ValueError:
+        return math.nan
+
+
+@dataclass(frozen=True)
+class QualityRule:
+    """One quality limit of ``[quality]``.
+
+    Attributes
+    ----------
+    key : str
+        The key in the project file.
+    table : str
+        ``sweeps.csv`` (checked sweep by sweep) or ``cells.csv`` (file by file).
+    column : str
+        The column compared with the limit.
+    text : str
+        What the rule requires, for the docs and for messages (``{limit}`` is filled in).
+    test : callable
+        (value, limit) -> True when the value passes.
+    """
+
+    key: str
+    table: str
+    column: str
+    text: str
+    test: Callable[[float, object], bool]
+
+
+QUALITY_RULES: tuple[QualityRule, ...] = (
+    QualityRule("max_baseline_noise_mv", "sweeps.csv", "baseline_noise_mv",
+                "baseline noise (SD before the step) at most {limit} mV",
+                lambda v, lim: v <= lim),
+    QualityRule("max_baseline_drift_mv", "sweeps.csv", "baseline_drift_mv",
+                "baseline drift over the sweep at most {limit} mV either way",
+                lambda v, lim: abs(v) <= lim),
+    QualityRule("min_sampling_rate_hz", "sweeps.csv", "sampling_rate_hz",
+                "sampling rate at least {limit} Hz", lambda v, lim: v >= lim),
+    QualityRule("max_clipped_spikes", "sweeps.csv", "clipped_spike_count",
+                "at most {limit} clipped spikes per sweep", lambda v, lim: v <= lim),
+    QualityRule("resting_range_mv", "cells.csv", "resting_mv",
+                "resting potential within {limit} mV",
+                lambda v, lim: lim[0] <= v <= lim[1]),
+    QualityRule("min_highest_peak_mv", "spikes.csv", "peak_mv",
+                "at least one spike peaking at {limit} mV or above",
+                lambda v, lim: v >= lim),
+)
+
+
+def _limit_text(limit) -> str:
+    if isinstance(limit, tuple):
+        return f"{limit[0]:g} to {limit[1]:g}"
+    return f"{limit:g}"
+
+
+def _int_or_none(text: str | None) -> int | None:
+    try:
+        return int(text) if text not in (None, "") else None
+    except ValueError:
+        return None
+
+
+def _apply_rule(rule: QualityRule, limit, file: str, rows: dict[str, list[dict]]
+                ) -> list[Finding]:
+    requirement = rule.text.format(limit=_limit_text(limit))
+    limit_text = _limit_text(limit)
+    if rule.key == "min_highest_peak_mv":
+        spikes = rows["spikes.csv"]
+        peaks = [(_number(r["peak_mv"]), r) for r in spikes]
+        peaks = [(v, r) for v, r in peaks if not math.isnan(v)]
+        if not peaks:
+            return [Finding(rule.key, file, None, None, rule.column,
+                            f"no spike with a measured peak in the file; required: "
+                            f"{requirement}", value="", limit=limit_text)]
+        value, row = max(peaks, key=lambda p: p[0])
+        if rule.test(value, limit):
+            return []
+        return [Finding(rule.key, file, _int_or_none(row["sweep"]), _int_or_none(row["spike"]),
+                        rule.column, f"highest spike peak {value:g} mV is below {limit_text} mV; "
+                        f"required: {requirement}", value=row["peak_mv"], limit=limit_text)]
+    findings = []
+    for row in rows[rule.table]:
+        text = row[rule.column]
+        value = _number(text)
+        sweep = _int_or_none(row.get("sweep"))
+        if math.isnan(value):
+            findings.append(Finding(rule.key, file, sweep, None, rule.column,
+                                    f"{rule.column} is empty (not measured), so the limit "
+                                    f"cannot be checked; required: {requirement}",
+                                    value=text, limit=limit_text))
+        elif not rule.test(value, limit):
+            findings.append(Finding(rule.key, file, sweep, None, rule.column,
+                                    f"{rule.column} = {text}; required: {requirement}",
+                                    value=text, limit=limit_text))
+    return findings
+
+
+def quality_cases(tables: RunTables, limits: dict) -> list[CaseResult]:
+    """Apply the measured check and every configured quality limit, file by file.
+
+    Parameters
+    ----------
+    tables : RunTables
+    limits : dict
+        ``CheckSettings.quality``: limit by ``[quality]`` key.
+
+    Returns
+    -------
+    list of CaseResult
+        Per file (in the order of the run): first ``measured`` (every sweep of the file was
+        read and measured: no row for it in errors.csv, and run.json does not list it as
+        not measured, as after an interrupted run), then one case per limit, in the
+        order of :data:`QUALITY_RULES`. A file that could not be measured at all fails every
+        limit, since none can be checked.
+    """
+    by_file: dict[str, dict[str, list[dict]]] = {}
+    for name in TABLE_FILES:
+        for row in tables.table(name):
+            by_file.setdefault(row["file"], {n: [] for n in TABLE_FILES})[name].append(row)
+    errors: dict[str, list[dict]] = {}
+    for row in tables.errors:
+        errors.setdefault(row["file"], []).append(row)
+    unfinished = {i["file"]: i["status"] for i in tables.record.get("inputs", [])
+                  if str(i.get("status", "")).startswith("not measured")}
+    cases = []
+    for file in tables.files():
+        rows = by_file.get(file, {n: [] for n in TABLE_FILES})
+        failed = [Finding(MEASURED_CHECK, file, _stage_sweep(e["stage"]), None, None,
+                          e["message"]) for e in errors.get(file, [])]
+        if file in unfinished:
+            failed.append(Finding(MEASURED_CHECK, file, None, None, None,
+                                  f"{file}: not measured ({unfinished[file]}); run the same "
+                                  f"measure command again to finish the run"))
+        cases.append(CaseResult("quality", MEASURED_CHECK, file, tuple(failed)))
+        for rule in QUALITY_RULES:
+            if rule.key not in limits:
+                continue
+            if not rows["sweeps.csv"]:
+                findings = [Finding(rule.key, file, None, None, rule.column,
+                                    "the file has no measured sweep, so the limit cannot be "
+                                    "checked")]
+            else:
+                findings = _apply_rule(rule, limits[rule.key], file, rows)
+            cases.append(CaseResult("quality", rule.key, file, tuple(findings)))
+    return cases
+
+
+def _stage_sweep(stage: str) -> int | None:
+    if stage.startswith("sweep "):
+        return _int_or_none(stage[len("sweep "):])
+    return None
+
+
+# --------------------------------------------------------------------------- regression
+
+
+def default_tolerance(column: Column) -> Tolerance | None:
+    """The built-in tolerance of a column: one unit in the last digit written.
+
+    Parameters
+    ----------
+    column : Column
+
+    Returns
+    -------
+    Tolerance or None
+        ``10 ** -decimals`` (absolute) for a column written with decimals, so a value that
+        rounds the other way on another machine passes; 0 for a whole-number column; None
+        for text, which is compared exactly.
+    """
+    if column.name in ("file", "flags"):
+        return None
+    if column.decimals is None:
+        return Tolerance(0.0)
+    return Tolerance(10.0 ** -column.decimals)
+
+
+def _tolerance_for(column: Column, settings: CheckSettings) -> Tolerance | None:
+    if column.name in settings.tolerances:
+        return settings.tolerances[column.name]
+    builtin = default_tolerance(column)
+    if builtin is not None and settings.default_tolerance is not None:
+        return settings.default_tolerance
+    return builtin
+
+
+def _compare_value(accepted: str, value: str, tolerance: Tolerance | None,
+                   floor: Tolerance | None = None) -> bool:
+    """True when the two cells agree: both empty, equal text, or numbers within tolerance
+    (or within `floor`, the resolution the CSV is written with)."""
+    if accepted.strip() == value.strip():
+        return True
+    if tolerance is None:
+        return False
+    a, b = _number(accepted), _number(value)
+    if math.isnan(a) or math.isnan(b):  # empty against a number, or text
+        return False
+    return tolerance.allows(a, b) or (floor is not None and floor.allows(a, b))
+
+
+def regression_cases(new: RunTables, accepted: RunTables, settings: CheckSettings
+                     ) -> tuple[list[CaseResult], list[str]]:
+    """Compare a run's tables with the accepted ones, file by file.
+
+    Parameters
+    ----------
+    new, accepted : RunTables
+    settings : CheckSettings
+        Tolerances and whether new files pass.
+
+    Returns
+    -------
+    cases : list of CaseResult
+        One ``regression`` case per file of either run (accepted files first, in their
+        order, then new ones).
+    notes : list of str
+        Differences that fail nothing: columns not in the accepted tables, and parameters
+        or versions that changed since the results were accepted.
+
+    Notes
+    -----
+    Rows are matched by their key columns: (file, sweep, spike) in spikes.csv, (file, sweep)
+    in sweeps.csv, (file) in cells.csv. A file or a sweep present in one run only fails. When
+    a sweep's spike count changed, the spikes added or lost fail and that sweep's spikes are
+    not compared value by value (their indices no longer pair the same spikes). Every other
+    cell is compared: equal text passes (two empty cells too); two numbers pass within the
+    column's tolerance (:func:`default_tolerance` unless the project file sets one), and
+    never fail by less than :func:`default_tolerance`, the resolution the CSV is written with
+    (so a relative tolerance still passes rounding of a value near zero); an empty cell
+    against a number fails.
+    """
+    notes: list[str] = []
+    findings: dict[str, list[Finding]] = {}
+    accepted_files = accepted.files()
+    new_files = new.files()
+    measured_new = {r["file"] for r in new.sweeps}
+    measured_old = {r["file"] for r in accepted.sweeps}
+    for file in accepted_files:
+        findings[file] = []
+        if file not in new_files:
+            findings[file].append(Finding(REGRESSION_CHECK, file, None, None, None,
+                                          "file removed: in the accepted results but not in "
+                                          "this run"))
+        elif file in measured_old and file not in measured_new:
+            findings[file].append(Finding(REGRESSION_CHECK, file, None, None, None,
+                                          "file lost: in the accepted results, but this run "
+                                          "measured none of its sweeps (see errors.csv)"))
+        elif file in measured_new and file not in measured_old:
+            findings[file].append(Finding(REGRESSION_CHECK, file, None, None, None,
+                                          "file gained: measured in this run, but not in the "
+                                          "accepted run (accept the run again to add it)"))
+    for file in new_files:
+        if file not in findings:
+            findings[file] = []
+            if not settings.allow_new_files:
+                findings[file].append(Finding(
+                    REGRESSION_CHECK, file, None, None, None,
+                    "file added: not in the accepted results (accept the run again to add "
+                    "it, or set allow_new_files = true under [regression])"))
+    # rows are compared only for files measured in both runs; the rest failed above
+    common = set(accepted_files) & set(new_files) & measured_new & measured_old
+
+    for name, (keys, columns) in TABLE_FILES.items():
+        old_rows, new_rows = accepted.table(name), new.table(name)
+        old_header = set(accepted.headers.get(name) or [c.name for c in columns])
+        compared = [c for c in columns if c.name not in keys]
+        skipped = [c.name for c in compared if c.name not in old_header]
+        if skipped:
+            notes.append(f"{name}: column(s) {', '.join(skipped)} not in the accepted results "
+                         f"(accepted with an older version?), not compared")
+        compared = [c for c in compared if c.name in old_header]
+        index = lambda rows: {tuple(r[k] for k in keys): r for r in rows}  # noqa: E731
+        old_by_key, new_by_key = index(old_rows), index(new_rows)
+        changed_count: set[tuple[str, str]] = set()
+        if name == "spikes.csv":
+            changed_count = _spike_counts(old_rows, new_rows, common, findings)
+        for key in dict.fromkeys(list(old_by_key) + list(new_by_key)):
+            file = key[0]
+            if file not in common:
+                continue
+            sweep = _int_or_none(key[1]) if len(key) > 1 else None
+            spike = _int_or_none(key[2]) if len(key) > 2 else None
+            if name == "spikes.csv" and (key[0], key[1]) in changed_count:
+                continue
+            old, now = old_by_key.get(key), new_by_key.get(key)
+            if name == "sweeps.csv" and (old is None or now is None):
+                what = "sweep added" if old is None else "sweep removed"
+                findings[file].append(Finding(REGRESSION_CHECK, file, sweep, None, None,
+                                              f"{what}: {'not ' if old is None else ''}in the "
+                                              f"accepted results"
+                                              + ("" if old is None else " but not in this run")))
+                continue
+            if old is None or now is None:
+                continue  # spikes: counted above; cells: a file added or removed
+            for column in compared:
+                tolerance = _tolerance_for(column, settings)
+                a, b = old[column.name], now[column.name]
+                if not _compare_value(a, b, tolerance, default_tolerance(column)):
+                    limit = "exact" if tolerance is None else str(tolerance)
+                    findings[file].append(Finding(
+                        REGRESSION_CHECK, file, sweep, spike, column.name,
+                        f"{name} {column.name}: accepted {a or 'empty'}, now {b or 'empty'} "
+                        f"(tolerance {limit})", accepted=a, value=b, limit=limit))
+    notes += _record_notes(accepted.record, new.record)
+    order = accepted_files + [f for f in new_files if f not in accepted_files]
+    cases = [CaseResult("regression", REGRESSION_CHECK, f, tuple(findings[f])) for f in order]
+    return cases, notes
+
+
+def _spike_counts(old_rows: list[dict], new_rows: list[dict], common: set[str],
+                  findings: dict[str, list[Finding]]) -> set[tuple[str, str]]:
+    """Findings for sweeps whose spike count changed; returns those (file, sweep) keys."""
+    def counts(rows):
+        out: dict[tuple[str, str], int] = {}
+        for r in rows:
+            out[(r["file"], r["sweep"])] = out.get((r["file"], r["sweep"]), 0) + 1
+        return out
+
+    old, new = counts(old_rows), counts(new_rows)
+    changed = set()
+    for key in dict.fromkeys(list(old) + list(new)):
+        if key[0] not in common:
+            continue
+        a, b = old.get(key, 0), new.get(key, 0)
+        if a != b:
+            changed.add(key)
+            what = f"{b - a} spike{'s' if abs(b - a) > 1 else ''} added" if b > a else \
+                f"{a - b} spike{'s' if abs(b - a) > 1 else ''} lost"
+            findings[key[0]].append(Finding(
+                REGRESSION_CHECK, key[0], _int_or_none(key[1]), None, "spike",
+                f"{what}: accepted {a}, now {b} (the sweep's spikes are not compared one "
+                f"by one)", accepted=str(a), value=str(b), limit="exact"))
+    return changed
+
+
+def _record_notes(old: dict, new: dict) -> list[str]:
+    notes = []
+    for part in ("parameters", "versions"):
+        a, b = old.get(part) or {}, new.get(part) or {}
+        if not a or not b:
+            continue
+        changed = [f"{k} {a.get(k)!r} -> {b.get(k)!r}" for k in dict.fromkeys(list(a) + list(b))
+                   if a.get(k) != b.get(k) and k != "python"]
+        if changed:
+            notes.append(f"{part} changed since the results were accepted: "
+                         + "; ".join(changed))
+    return notes
+
+
+# --------------------------------------------------------------------------- the whole check
+
+
+def check_run(results_dir: str | os.PathLike, settings: CheckSettings) -> CheckReport:
+    """Apply the quality limits and the regression comparison to a run's folder.
+
+    Parameters
+    ----------
+    results_dir : str or path-like
+        A folder holding a run's tables.
+    settings : CheckSettings
+
+    Returns
+    -------
+    CheckReport
+
+    Raises
+    ------
+    CheckInputError
+        When the tables, or (with ``settings.compare``) the accepted results, are missing or
+        unreadable, or the run names no file at all.
+    """
+    tables = read_tables(results_dir)
+    if not tables.files():
+        raise CheckInputError(f"{results_dir}: the run's tables name no file, so there is "
+                              f"nothing to check; measure the recordings into it first")
+    accepted = read_tables(settings.accepted_dir, "accepted results") if settings.compare \
+        else None
+    report = CheckReport(str(results_dir), str(settings.accepted_dir) if settings.compare
+                         else None, settings.config_file)
+    report.cases = quality_cases(tables, settings.quality)
+    if accepted is not None:
+        cases, notes = regression_cases(tables, accepted, settings)
+        report.cases += cases
+        report.notes += notes
+    return report
+
+
+def accept_results(results_dir: str | os.PathLike, accepted_dir: str | os.PathLike) -> dict:
+    """Save a run's tables as the accepted results, replacing any earlier ones.
+
+    Parameters
+    ----------
+    results_dir : str or path-like
+        A folder holding a run's tables.
+    accepted_dir : str or path-like
+        The accepted folder (created if missing).
+
+    Returns
+    -------
+    dict
+        ``files``, ``sweeps``, ``spikes`` (counts) and ``failures`` (rows of errors.csv, which
+        are not part of the accepted results).
+
+    Raises
+    ------
+    CheckInputError
+        When the tables are missing or unreadable, the run was interrupted or names no file,
+        or the accepted folder cannot be written.
+
+    Notes
+    -----
+    spikes.csv, sweeps.csv, cells.csv and a run.json with the run's versions, parameters and
+    inputs (path and SHA-256) are written to a new folder beside the accepted one, which
+    then takes its place by renames, so the accepted folder is never half old, half new.
+    Other files already in the accepted folder (a README) are kept.
+    """
+    # checks that they are complete and of this version
+    tables = read_tables(results_dir, suggest_out=False)
+    if tables.record.get("interrupted"):
+        raise CheckInputError(f"{Path(results_dir) / RUN_RECORD_FILE}: the run was interrupted "
+                              f"before every file was measured; run the same measure command "
+                              f"again to finish it, then accept")
+    if not tables.files():
+        raise CheckInputError(f"{results_dir}: the run's tables name no file; there is "
+                              f"nothing to accept")
+    source = Path(results_dir)
+    target = Path(accepted_dir)
+    record = {
+        "tool": "spikemeasure",
+        "accepted": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
+        "versions": tables.record.get("versions"),
+        "config_file": tables.record.get("config_file"),
+        "parameters": tables.record.get("parameters"),
+        "inputs": [{k: i.get(k) for k in ("file", "sha256", "size_bytes", "status")}
+                   for i in tables.record.get("inputs", [])],
+    }
+    try:
+        target.parent.mkdir(parents=True, exist_ok=True)
+        fresh = Path(tempfile.mkdtemp(prefix=f".{target.name}.new-", dir=target.parent))
+    except OSError as exc:
+        raise CheckInputError(f"{target}: cannot create the accepted folder ({exc})") from exc
+    old = None
+    try:
+        for name in TABLE_FILES:
+            write_text_atomic(fresh / name, (source / name).read_text(encoding="utf-8"))
+        write_json(fresh / RUN_RECORD_FILE, record)
+        _usual_permissions(fresh)
+        if target.exists():
+            for entry in target.iterdir():
+                if entry.is_file() and not (fresh / entry.name).exists():
+                    shutil.copy2(entry, fresh / entry.name)
+            old = Path(tempfile.mkdtemp(prefix=f".{target.name}.old-", dir=target.parent))
+            os.rmdir(old)
+            os.replace(target, old)
+        os.replace(fresh, target)
+    except OSError as exc:
+        shutil.rmtree(fresh, ignore_errors=True)
+        if old is not None and old.exists() and not target.exists():
+            os.replace(old, target)
+        raise CheckInputError(f"{target}: cannot write the accepted results ({exc})") from exc
+    if old is not None:
+        shutil.rmtree(old, ignore_errors=True)
+    return {"files": len({r["file"] for r in tables.cells}), "sweeps": len(tables.sweeps),
+            "spikes": len(tables.spikes), "failures": tables.errors}
+
+
+def _usual_permissions(folder: Path) -> None:
+    """Temporary folders and files are private; the accepted ones are shared like any other
+    file the user writes (the umask decides)."""
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(folder, 0o777 & ~umask)
+    for entry in folder.iterdir():
+        if entry.is_file():
+            os.chmod(entry, 0o666 & ~umask)
+
+
+# --------------------------------------------------------------------------- reports
+
+
+def report_dict(report: CheckReport) -> dict:
+    """The report as JSON-ready data (``check --json``)."""
+    return {
+        "passed": report.passed,
+        "results": report.results_dir,
+        "accepted": report.accepted_dir,
+        "config_file": report.config_file,
+        "checks": len(report.cases),
+        "checks_failed": len(report.failed_cases),
+        "cases": [{"suite": c.suite, "check": c.check, "file": c.file, "passed": c.passed,
+                   "findings": len(c.findings)} for c in report.cases],
+        "failures": [asdict(f) for f in report.findings],
+        "notes": list(report.notes),
+    }
+
+
+def report_text(report: CheckReport, max_rows: int | None = None) -> str:
+    """A short aligned table of what failed, the notes, and a summary line.
+
+    Parameters
+    ----------
+    report : CheckReport
+    max_rows : int, optional
+        Show at most this many findings (and say how many were left out).
+    """
+    lines: list[str] = []
+    findings = report.findings
+    shown = findings if max_rows is None else findings[:max_rows]
+    if shown:
+        header = ("check", "file", "sweep", "spike", "column", "what")
+        rows = [(f.check, f.file, "" if f.sweep is None else str(f.sweep),
+                 "" if f.spike is None else str(f.spike), f.column or "", f.message)
+                for f in shown]
+        widths = [max(len(r[k]) for r in rows + [header]) for k in range(5)]
+        for r in [header] + rows:
+            lines.append("  ".join(r[k].ljust(widths[k]) for k in range(5)) + "  " + r[5])
+        if len(findings) > len(shown):
+            lines.append(f"... and {len(findings) - len(shown)} more (see --json or --junit)")
+        lines.append("")
+        counts: dict[tuple[str, str], set] = {}
+        for f in findings:
+            counts.setdefault((f.check, f.column or "-"), set()).add(
+                (f.file, f.sweep, f.spike))
+        if len(findings) > len(shown) or len(counts) > 1:
+            lines.append("findings by check and column:")
+            for (check, column), where in counts.items():
+                files = len({w[0] for w in where})
+                lines.append(f"  {check:<22} {column:<26} {len(where):>6} rows in {files} "
+                             f"file{'s' if files != 1 else ''}")
+            lines.append("")
+    for note in report.notes:
+        lines.append(f"note: {note}")
+    files = len({c.file for c in report.cases})
+    failed = report.failed_cases
+    if failed:
+        kinds = sorted({c.check for c in failed})
+        lines.append(f"FAILED: {len(failed)} of {len(report.cases)} checks on {files} files "
+                     f"({', '.join(kinds)}); {len(findings)} findings")
+    else:
+        lines.append(f"passed: {len(report.cases)} checks on {files} files")
+    return "\n".join(lines)
