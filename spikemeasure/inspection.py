@@ -2,14 +2,25 @@
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 from pathlib import Path
 
 from .detection import DetectionSettings
 from .reading import read_recording
 from .cell_features import CELL_FLAG_TEXT
-from .tables import cell_summary, measure_recording
+from .tables import SweepResult, cell_summary, measure_recording
 
-__all__ = ["describe_file"]
+__all__ = ["describe_file", "inspect_file", "Inspection"]
+
+
+@dataclass(frozen=True)
+class Inspection:
+    """What :func:`inspect_file` found: the text, whether any sweep was measured, and the
+    results (for figures)."""
+
+    text: str
+    ok: bool
+    results: list[SweepResult]
 
 
 def _fmt(value: float, unit: str, digits: int = 1) -> str:
@@ -25,6 +36,16 @@ def describe_file(path: str, settings: DetectionSettings = DetectionSettings(), 
     Returns (text, ok) where ok is False when no sweep could be measured.
     Raises :class:`~spikemeasure.errors.UnreadableInputError` when the file cannot be read.
     """
+    found = inspect_file(path, settings, step_times=step_times, step_sizes=step_sizes,
+                         sampling_rate_hz=sampling_rate_hz)
+    return found.text, found.ok
+
+
+def inspect_file(path: str, settings: DetectionSettings = DetectionSettings(), *,
+                 step_times: tuple[float, float] | None = None,
+                 step_sizes: tuple[float, float] | None = None,
+                 sampling_rate_hz: float | None = None) -> Inspection:
+    """As :func:`describe_file`, keeping the sweep results too."""
     recording = read_recording(path, sampling_rate_hz=sampling_rate_hz)
     results = measure_recording(recording, settings, step_times, step_sizes)
     rates = sorted({s.sampling_rate_hz for s in recording.sweeps})
@@ -63,7 +84,7 @@ def describe_file(path: str, settings: DetectionSettings = DetectionSettings(), 
     lines += ["", f"{measured} of {len(results)} sweeps measured, {total} spikes"]
     if measured:
         lines += ["", "cell:"] + _cell_lines(cell_summary(results))
-    return "\n".join(lines), measured > 0
+    return Inspection("\n".join(lines), measured > 0, results)
 
 
 def _cell_lines(cell) -> list[str]:
