@@ -10,7 +10,8 @@ import pytest
 from click.testing import CliRunner
 from scipy.signal import peak_prominences, peak_widths
 
-from conftest import GaussianSpike, step_command, write_nix, write_text
+from conftest import (RC_R_GOHM as R_GOHM, RC_RATE_HZ, RC_SPIKES_PER_STEP as SPIKES_PER_STEP,
+                      RC_STEP_S, RC_STEPS_PA as STEPS_PA, rc_cell_sweeps, write_nix, write_text)
 from spikemeasure import figures
 from spikemeasure.cli import main
 from spikemeasure.detection import DetectionSettings
@@ -18,33 +19,8 @@ from spikemeasure.reading import read_recording
 from spikemeasure.runner import measure_paths
 from spikemeasure.tables import cell_summary, measure_recording, spike_table, sweep_table
 
-RATE = 20_000.0
-ONSET_S, OFFSET_S, DURATION_S = 0.05, 0.25, 0.3
-R_GOHM, TAU_MS, REST_MV = 0.2, 10.0, -70.0  # 200 MOhm, 10 ms: an analytic RC membrane
-STEPS_PA = (-40.0, -20.0, 0.0, 20.0, 40.0, 60.0)
-SPIKES_PER_STEP = (0, 0, 0, 1, 3, 5)
-
-
-def rc_cell_sweeps(steps=STEPS_PA, spikes=SPIKES_PER_STEP):
-    """Sweeps of a passive RC membrane, V = rest + R I (1 - exp(-t / tau)) during the step and
-    back after it (closed form), with Gaussian spikes added on the depolarizing steps."""
-    n = int(DURATION_S * RATE)
-    t = np.arange(n) / RATE
-    shape = GaussianSpike(base_mv=0.0, amplitude_mv=95.0, sigma_ms=0.35)
-    noise = np.random.default_rng(7)
-    out = []
-    for size, count in zip(steps, spikes):
-        v = np.full(n, REST_MV)
-        on = (t >= ONSET_S) & (t < OFFSET_S)
-        v[on] += R_GOHM * size * (1 - np.exp(-(t[on] - ONSET_S) * 1e3 / TAU_MS))
-        end_dv = R_GOHM * size * (1 - np.exp(-(OFFSET_S - ONSET_S) * 1e3 / TAU_MS))
-        after = t >= OFFSET_S
-        v[after] += end_dv * np.exp(-(t[after] - OFFSET_S) * 1e3 / TAU_MS)
-        for peak_s in ONSET_S + 0.03 + np.arange(count) * 0.03:
-            v += shape.voltage((t - peak_s) * 1e3 + shape.peak_ms) - 0.0
-        v += noise.normal(0.0, 0.05, n)
-        out.append((v, step_command(n, RATE, size, ONSET_S, OFFSET_S)))
-    return out
+RATE = RC_RATE_HZ
+ONSET_S, OFFSET_S = RC_STEP_S
 
 
 @pytest.fixture(scope="module")
