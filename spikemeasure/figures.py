@@ -59,7 +59,7 @@ BATCH_FEATURES = (
     ("rheobase_pa", "rheobase", "rheobase (pA)"),
 )
 #: A sweep longer than twice this many samples is drawn as a min/max envelope of this many bins.
-ENVELOPE_BINS = 1000
+ENVELOPE_BINS = 700
 DPI = 110
 _WIDTH_IN = 8.0
 _THRESHOLD_COLOUR = "#e66101"
@@ -70,7 +70,8 @@ _UNKNOWN_COLOUR = "#888888"
 _STYLE = {"font.size": 9, "axes.titlesize": 10, "axes.labelsize": 9, "xtick.labelsize": 8,
           "ytick.labelsize": 8, "legend.fontsize": 8, "figure.titlesize": 11,
           "axes.spines.top": False, "axes.spines.right": False, "svg.hashsalt": "spikemeasure",
-          "path.simplify": True}
+          "path.simplify": True, "text.parse_math": False,  # a "$" in a file name is text
+          "legend.frameon": True, "legend.framealpha": 0.85, "legend.edgecolor": "none"}
 
 
 class DisplayUnavailableError(SpikemeasureError):
@@ -109,8 +110,18 @@ def _legend(ax, **kw) -> None:
 
 
 def _axes(fig, *rects: tuple[float, float, float, float], sharex=None):
-    """Axes at fixed positions (left, bottom, width, height in figure fractions)."""
-    return [fig.add_axes(rect, sharex=sharex) for rect in rects]
+    """Axes at fixed positions (left, bottom, width, height in figure fractions), with at
+    most about six ticks an axis: enough to read, and ticks are the dearest thing to draw."""
+    from matplotlib.ticker import MaxNLocator
+
+    out = []
+    for rect in rects:
+        ax = fig.add_axes(rect, sharex=sharex)
+        ax.yaxis.set_major_locator(MaxNLocator(nbins=5, steps=[1, 2, 2.5, 5, 10]))
+        if sharex is None:
+            ax.xaxis.set_major_locator(MaxNLocator(nbins=6, steps=[1, 2, 2.5, 5, 10]))
+        out.append(ax)
+    return out
 
 
 def envelope(y: np.ndarray, sampling_rate_hz: float, bins: int = ENVELOPE_BINS
@@ -123,14 +134,16 @@ def envelope(y: np.ndarray, sampling_rate_hz: float, bins: int = ENVELOPE_BINS
         1-D samples.
     sampling_rate_hz : float
     bins : int, optional
-        A trace of more than ``2 * bins`` samples is cut into `bins` equal bins (the last one
-        takes the remainder), each drawn as its minimum and maximum in the order they occur.
+        A trace of more than ``2 * bins`` samples is cut into at most `bins` bins of
+        ``ceil(n / bins)`` samples (the last one shorter), each drawn as its minimum and
+        maximum in the order they occur.
 
     Returns
     -------
     t_s, values : ndarray
-        The samples themselves when the trace is short enough. Otherwise ``2 * bins`` points
-        whose extremes equal the trace's, so no spike peak or trough is lost to the eye.
+        The samples themselves when the trace is short enough. Otherwise the first sample,
+        two points per bin and the last sample: the trace's extremes are all kept, so no spike
+        peak or trough is lost to the eye, and the line spans the whole sweep.
     """
     y = np.asarray(y, dtype=float)
     n = y.size
@@ -138,18 +151,14 @@ def envelope(y: np.ndarray, sampling_rate_hz: float, bins: int = ENVELOPE_BINS
         raise ValueError("`bins` must be at least 1")
     if n <= 2 * bins:
         return np.arange(n) / sampling_rate_hz, y
-    per = n // bins
-    body = y[:per * bins].reshape(bins, per)
-    lo_i = np.argmin(body, axis=1)
-    hi_i = np.argmax(body, axis=1)
-    last = bins - 1  # the remainder joins the last bin
-    tail = y[(bins - 1) * per:]
-    lo_i[last] = int(np.argmin(tail))
-    hi_i[last] = int(np.argmax(tail))
-    starts = np.arange(bins) * per
-    first = np.minimum(lo_i, hi_i) + starts
-    second = np.maximum(lo_i, hi_i) + starts
-    index = np.column_stack([first, second]).ravel()
+    per = -(-n // bins)
+    count = -(-n // per)
+    padded = np.concatenate([y, np.full(count * per - n, y[-1])]).reshape(count, per)
+    starts = np.arange(count) * per
+    lo = np.minimum(starts + np.argmin(padded, axis=1), n - 1)
+    hi = np.minimum(starts + np.argmax(padded, axis=1), n - 1)
+    index = np.concatenate([[0], np.column_stack([np.minimum(lo, hi), np.maximum(lo, hi)])
+                            .ravel(), [n - 1]])
     return index / sampling_rate_hz, y[index]
 
 
@@ -319,7 +328,7 @@ def traces_figure(results: Sequence[SweepResult], cell: CellFeatures | None = No
         elif not recorded_any:
             ax_i.set_title("no command channel: the step given with --step / --step-sizes",
                            fontsize=8, loc="left")
-        _legend(ax_v, loc="lower center", bbox_to_anchor=(0.5, 1.0), frameon=False, ncols=4,
+        _legend(ax_v, loc="lower center", bbox_to_anchor=(0.5, 1.0), ncols=4,
                     borderaxespad=0.2)
         if cmap is not None:
             bar = fig.colorbar(_mpl().cm.ScalarMappable(norm=norm, cmap=cmap),
@@ -517,7 +526,7 @@ def phase_plot_figure(results: Sequence[SweepResult], cell: CellFeatures | None 
         ax.axhline(settings.onset_rate_v_per_s, color=_RHEOBASE_COLOUR, lw=0.9, ls="--",
                    label=f"onset rate {settings.onset_rate_v_per_s:g} V/s")
         ax.axhline(0.0, color="#999999", lw=0.5, zorder=0)
-        _legend(ax, loc="upper left", frameon=False)
+        _legend(ax, loc="upper left")
     return fig
 
 
@@ -546,7 +555,7 @@ def step_response_figure(results: Sequence[SweepResult], cell: CellFeatures | No
     measured = _measured(results)
     with _mpl().rc_context(_STYLE):
         fig = _new_figure(3.6, new_figure)
-        ax_f, ax_v = _axes(fig, (0.08, 0.14, 0.38, 0.73), (0.59, 0.14, 0.38, 0.73))
+        ax_f, ax_v = _axes(fig, (0.09, 0.14, 0.375, 0.73), (0.6, 0.14, 0.375, 0.73))
         fig.suptitle(_title(name, results, "responses to the steps"))
         ax_f.set_xlabel("step size (pA)")
         ax_f.set_ylabel("firing rate (Hz)")
@@ -565,6 +574,8 @@ def step_response_figure(results: Sequence[SweepResult], cell: CellFeatures | No
         order = np.argsort(stim)
         ax_f.plot(stim[order], rate[order], marker="o", ms=4, color="#333333", lw=0.8,
                   label="sweeps")
+        if not np.nanmax(rate, initial=0.0) > 0:
+            ax_f.set_ylim(-1.0, 10.0)  # no firing: a plain 0 to 10 Hz axis, not +-0.05
         if math.isfinite(cell.rheobase_pa):
             ax_f.axvline(cell.rheobase_pa, color=_RHEOBASE_COLOUR, ls="--", lw=0.9,
                          label=f"rheobase {cell.rheobase_pa:g} pA")
@@ -575,7 +586,7 @@ def step_response_figure(results: Sequence[SweepResult], cell: CellFeatures | No
             x = np.array([stim[use].min(), stim[use].max()])
             ax_f.plot(x, intercept + slope * x, color=_TROUGH_COLOUR, lw=1.2,
                       label=f"f-I slope {slope:.3g} Hz/pA")
-        _legend(ax_f, loc="upper left", frameon=False)
+        _legend(ax_f, loc="upper left")
         passive = np.isfinite(stim) & (stim < 0) & (count == 0) & np.isfinite(dv)
         other = np.isfinite(stim) & np.isfinite(dv) & ~passive
         ax_v.plot(stim[passive], dv[passive], ls="none", marker="o", ms=5, color="#333333",
@@ -589,10 +600,10 @@ def step_response_figure(results: Sequence[SweepResult], cell: CellFeatures | No
             ax_v.plot(x, intercept + slope * x, color=_TROUGH_COLOUR, lw=1.2,
                       label=f"input resistance {cell.input_resistance_mohm:.0f} MOhm")
         else:
-            ax_v.set_title("input resistance not measured (fewer than 2 fitted sweeps)",
+            ax_v.set_title("no input resistance: fewer than 2 fitted sweeps",
                            fontsize=8, loc="left")
         ax_v.axhline(0.0, color="#999999", lw=0.5, zorder=0)
-        _legend(ax_v, loc="upper left", frameon=False)
+        _legend(ax_v, loc="upper left")
     return fig
 
 
@@ -622,7 +633,7 @@ def _save(fig, path: Path, fmt: str) -> None:
     buffer = io.BytesIO()
     metadata = {"png": {"Software": None}, "svg": {"Date": None},
                 "pdf": {"CreationDate": None}}[fmt]
-    extra = {"pil_kwargs": {"compress_level": 3}} if fmt == "png" else {}
+    extra = {"pil_kwargs": {"compress_level": 1}} if fmt == "png" else {}
     fig.savefig(buffer, format=fmt, dpi=DPI, metadata=metadata, **extra)
     write_bytes_atomic(path, buffer.getvalue())
 

@@ -77,12 +77,14 @@ class TestEnvelope:
         rng = np.random.default_rng(3)
         y = rng.normal(size=10_007)
         t, v = figures.envelope(y, 10_000.0, bins=100)
-        assert v.size == 200 and np.all(np.diff(t) >= 0)
-        per = y.size // 100
-        bins = [y[k * per:(k + 1) * per] for k in range(99)] + [y[99 * per:]]
+        assert v.size == 2 + 2 * 100 and np.all(np.diff(t) >= 0)
+        assert (v[0], v[-1], t[-1]) == (y[0], y[-1], (y.size - 1) / 10_000.0)  # whole sweep
+        per = -(-y.size // 100)
+        bins = [y[k:k + per] for k in range(0, y.size, per)]
+        pairs = v[1:-1]
         # numpy's own reductions over the same bins
-        assert np.allclose(np.minimum(v[0::2], v[1::2]), [b.min() for b in bins])
-        assert np.allclose(np.maximum(v[0::2], v[1::2]), [b.max() for b in bins])
+        assert np.array_equal(np.minimum(pairs[0::2], pairs[1::2]), [b.min() for b in bins])
+        assert np.array_equal(np.maximum(pairs[0::2], pairs[1::2]), [b.max() for b in bins])
         assert v.max() == y.max() and v.min() == y.min()
 
 
