@@ -212,9 +212,14 @@ def _stimulus(r: SweepResult) -> float:
     return float(r.features.stimulus_pa) if r.features is not None else float("nan")
 
 
-def _note(ax, text: str) -> None:
+def _note(ax, text: str, clear_ticks: bool = True) -> None:
+    """A note in the middle of the axes; an axes with nothing else in it loses its ticks,
+    whose numbers would mean nothing."""
     ax.text(0.5, 0.5, text, transform=ax.transAxes, ha="center", va="center", wrap=True,
             color="#444444")
+    if clear_ticks and not ax.lines and not ax.collections:
+        ax.set_xticks([])
+        ax.set_yticks([])
 
 
 def _sweep_colours(measured: Sequence[SweepResult]):
@@ -288,7 +293,7 @@ def traces_figure(results: Sequence[SweepResult], cell: CellFeatures | None = No
         ax_i.set_ylabel("command (pA)")
         ax_i.set_xlabel("time from sweep start (s)")
         if not measured:
-            _note(ax_v, "no sweep could be measured")
+            _note(ax_v, "no sweep could be measured", clear_ticks=False)
             return fig
         colours, cmap, norm = _sweep_colours(measured)
         rheo = _rheobase_result(results, cell)
@@ -324,13 +329,14 @@ def traces_figure(results: Sequence[SweepResult], cell: CellFeatures | None = No
         ax_v.autoscale_view()
         ax_i.autoscale_view()
         if not drawn_command:
-            _note(ax_i, "no command channel and no step size given")
+            _note(ax_i, "no command channel and no step size given", clear_ticks=False)
         elif not recorded_any:
             ax_i.set_title("no command channel: the step given with --step / --step-sizes",
                            fontsize=8, loc="left")
         _legend(ax_v, loc="lower center", bbox_to_anchor=(0.5, 1.0), ncols=4,
                     borderaxespad=0.2)
-        if cmap is not None:
+        steps = {_stimulus(r) for r in measured if np.isfinite(_stimulus(r))}
+        if cmap is not None and len(steps) > 1:  # one step size needs no colour key
             bar = fig.colorbar(_mpl().cm.ScalarMappable(norm=norm, cmap=cmap),
                                cax=fig.add_axes((0.875, 0.085, 0.018, 0.825)))
             bar.set_label("step size (pA)")
@@ -707,7 +713,8 @@ def batch_features_figure(cells: Sequence[dict], groups: dict[str, str] | None =
         axes = list(grid.ravel())
         axes[-1].set_axis_off()
         fig.suptitle(f"cell features across {len(cells)} cell" + ("" if len(cells) == 1 else "s")
-                     + (f", by {group_label}" if groups else ""))
+                     + (f", by {group_label}" if groups else "")
+                     + "; spike features of the first spike at rheobase")
         colours = _mpl().colormaps["tab10"]
         counts = [f"{g}: {names.count(g)} cell" + ("" if names.count(g) == 1 else "s")
                   for g in order]

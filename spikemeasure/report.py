@@ -282,16 +282,21 @@ def report_html(record: dict, cell_rows: Sequence[Sequence[str]],
     parts.append(f'<h2 id="cells">Cells ({len(cell_rows)})</h2>')
     anchors = {f: f"cell-{k}" for k, f in enumerate(per_cell)}
     header = [c.name for c in CELL_COLUMNS]
+    members = (groups or {}).get("members")
+    if members is not None:
+        header.insert(1, groups["column"])
     rows = []
     for row in cell_rows:
         file = row[0]
         name = (f'<a href="#{anchors[file]}">{_e(file)}</a>' if file in anchors else _e(file))
-        rows.append([name] + [_e(v) for v in row[1:]])
+        group = [_e(members.get(file, "(no group)"))] if members is not None else []
+        rows.append([name] + group + [_e(v) for v in row[1:]])
     if rows:
         parts.append('<p class="small">Units are in the column names; every column is defined '
                      "in docs/measurements.md (<code>spikemeasure columns</code>).</p>")
-        parts.append(_table(header, rows, numeric=[False] + [c.decimals is not None or c.name ==
-                                                              "sweeps" for c in CELL_COLUMNS[1:]]))
+        numeric = [c.decimals is not None or c.name == "sweeps" for c in CELL_COLUMNS[1:]]
+        parts.append(_table(header, rows, numeric=[False] + [False] * (members is not None)
+                            + numeric))
     else:
         parts.append("<p>No cell could be measured.</p>")
     if not figures.get("format"):

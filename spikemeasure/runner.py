@@ -551,7 +551,8 @@ def _finish_run(summary: RunSummary, entries: list[dict], outcomes: list[dict | 
         "figures": {"format": figure_format, "batch": batch_figure,
                     "cells": {o["file"]: o.get("figures", []) for o in done
                               if o.get("figures")}},
-        "groups": None if groups is None else {"file": groups.path, "column": groups.label},
+        "groups": None if groups is None else {"file": groups.path, "column": groups.label,
+                                               "members": groups.mapping},
         "notes": summary.notes,
     }
     write_json(summary.record_path, record)

@@ -112,6 +112,8 @@ class TestReportContents:
     def test_groups_notes_and_batch_figure(self, run):
         record = json.loads((run["out"] / "run.json").read_text())
         assert record["groups"]["column"] == "condition"
+        assert "<th>condition</th>" in run["html"]
+        assert re.search(r"plain\.nix</a></td><td>treated</td>", run["html"])
         notes = " ".join(record["notes"])
         assert "gone.nix" in notes and "quiet.nix" in notes
         assert "Note:" in run["result"].output and "gone.nix" in run["result"].output
