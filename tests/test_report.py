@@ -246,3 +246,19 @@ class TestGroupsFile:
         assert "--groups" in r.output and str(p) in r.output and "no `file` column" in r.output
         assert "Traceback" not in r.output
         assert not (tmp_path / "out").exists()  # nothing measured
+
+
+def test_no_figures_never_imports_matplotlib(folder, tmp_path):
+    """`--help` and runs without figures stay fast: matplotlib is imported only to draw."""
+    import subprocess
+    import sys
+
+    code = ("import sys\nfrom spikemeasure.cli import main\n"
+            "from spikemeasure.runner import measure_paths\n"
+            f"measure_paths([{str(folder / 'plain.nix')!r}], {str(tmp_path / 'out')!r})\n"
+            "print(sorted(m for m in sys.modules if m.split('.')[0] == 'matplotlib'))\n")
+    result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                            timeout=120)
+    assert result.returncode == 0, result.stderr
+    assert result.stdout.strip() == "[]"
+    assert (tmp_path / "out" / "report.html").is_file()
