@@ -367,7 +367,8 @@ def measure_paths(paths: list[str], out_dir: str | Path,
         if figure_format not in FIGURE_FORMATS:
             raise SpikemeasureError(f"figure format must be one of "
                                     f"{', '.join(FIGURE_FORMATS)} (got {figure_format!r})")
-    figures = {"out": str(out), "format": figure_format} if figure_format else None
+    # absolute: workers elsewhere (a cluster) may start in another folder
+    figures = {"out": str(out.resolve()), "format": figure_format} if figure_format else None
     early: list[dict] = []
     for given in paths:
         if not Path(given).exists():
@@ -529,9 +530,14 @@ def _finish_run(summary: RunSummary, entries: list[dict], outcomes: list[dict | 
         from .figures import BATCH_FIGURE_NAME, write_batch_figure
 
         batch_figure = f"{FIGURES_FOLDER}/{BATCH_FIGURE_NAME}.{figure_format}"
-        write_batch_figure(summary.out_dir / batch_figure, cell_values(cells),
-                           groups.mapping if groups is not None else None,
-                           groups.label if groups is not None else "group", figure_format)
+        try:
+            write_batch_figure(summary.out_dir / batch_figure, cell_values(cells),
+                               groups.mapping if groups is not None else None,
+                               groups.label if groups is not None else "group", figure_format)
+        except OSError as exc:
+            summary.notes.append(f"{summary.out_dir / batch_figure}: cannot write the batch "
+                                 f"figure ({exc})")
+            batch_figure = None
     record = {
         "tool": "spikemeasure",
         "versions": _versions(),
@@ -558,7 +564,11 @@ def _finish_run(summary: RunSummary, entries: list[dict], outcomes: list[dict | 
     write_json(summary.record_path, record)
     from .report import write_report
 
-    write_report(summary.report_path, record, cells)
+    try:
+        write_report(summary.report_path, record, cells)
+    except OSError as exc:
+        raise SpikemeasureError(f"{summary.report_path}: cannot write the report ({exc}); the "
+                                "tables and run.json are written") from exc
 
 
 def default_jobs() -> int:
