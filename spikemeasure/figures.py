@@ -609,7 +609,8 @@ def step_response_figure(results: Sequence[SweepResult], cell: CellFeatures | No
             ax_v.set_title("no input resistance: fewer than 2 fitted sweeps",
                            fontsize=8, loc="left")
         ax_v.axhline(0.0, color="#999999", lw=0.5, zorder=0)
-        _legend(ax_v, loc="upper left")
+        # depolarizing steps deflect up, hyperpolarizing ones down: lower right stays empty
+        _legend(ax_v, loc="lower right")
     return fig
 
 

@@ -290,7 +290,31 @@ def _assert_no_overlaps(fig):
         assert not shrunk_a.overlaps(box_b.padded(-1)), (a, b, box_a, box_b)
 
 
+def _assert_legends_cover_no_point(fig):
+    fig.canvas.draw()
+    for ax in fig.axes:
+        legend = ax.get_legend()
+        if legend is None:
+            continue
+        box = legend.get_window_extent()
+        for line in ax.get_lines():
+            if line.get_marker() in (None, "None", "", " "):
+                continue
+            xy = np.column_stack(line.get_data()).astype(float)
+            if not xy.size:
+                continue
+            points = ax.transData.transform(xy)
+            inside = ((points[:, 0] > box.x0) & (points[:, 0] < box.x1)
+                      & (points[:, 1] > box.y0) & (points[:, 1] < box.y1))
+            assert not inside.any(), (fig._suptitle.get_text(), line.get_label())
+
+
 class TestReadable:
+    @pytest.mark.parametrize("stem", figures.CELL_FIGURE_NAMES)
+    def test_legends_cover_no_data_point(self, cell, odd_cells, stem):
+        for case in [cell, *odd_cells.values()]:
+            _assert_legends_cover_no_point(case["figures"][stem])
+
     @pytest.mark.parametrize("stem", figures.CELL_FIGURE_NAMES)
     def test_no_text_overlaps_text(self, cell, odd_cells, stem):
         _assert_no_overlaps(cell["figures"][stem])
@@ -349,3 +373,15 @@ class TestShow:
         assert r.exit_code == 1
         assert "Error:" in r.output and "no display" in r.output
         assert "Traceback" not in r.output
+
+
+def test_sample_cell_figures_are_readable():
+    """A simulated cell of sample_data/ (adapting cortical model), drawn as `measure` draws it:
+    no text over text, no legend over a data point."""
+    from pathlib import Path
+
+    path = Path(__file__).resolve().parents[1] / "sample_data" / "region_a_cell_2.nix"
+    results = measure_recording(read_recording(path, shown_as=path.name))
+    for fig in figures.cell_figures(results).values():
+        _assert_no_overlaps(fig)
+        _assert_legends_cover_no_point(fig)
