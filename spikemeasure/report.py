@@ -277,7 +277,7 @@ def report_html(record: dict, cell_rows: Sequence[Sequence[str]],
                           "</span>") for i in inputs],
                         numeric=(False, False, False, True, True, True)))
     parts.append("<h3>Parameters</h3>")
-    parts.append(_table(["parameter", "value"], [(_e(k), _e("" if v is None else v))
+    parts.append(_table(["parameter", "value"], [(_e(k), _e("not set" if v is None else v))
                                                  for k, v in record.get("parameters", {}).items()]))
     parts.append(f'<h2 id="cells">Cells ({len(cell_rows)})</h2>')
     anchors = {f: f"cell-{k}" for k, f in enumerate(per_cell)}
