@@ -190,6 +190,16 @@ class TestFiguresInBatchRuns:
         for name in TABLES:
             assert (out / name).read_bytes() == (plain / name).read_bytes()
 
+    def test_two_jobs_with_figures_give_the_same_tables(self, folder, tmp_path):
+        measure_paths([str(folder)], tmp_path / "one", jobs=1)
+        two = measure_paths([str(folder)], tmp_path / "two", jobs=2, figure_format="png")
+        assert two.files_measured == 3
+        for name in TABLES + ("errors.csv",):
+            assert (tmp_path / "one" / name).read_bytes() == (tmp_path / "two" / name).read_bytes()
+        record = json.loads((tmp_path / "two" / "run.json").read_text())
+        assert all((tmp_path / "two" / p).is_file()
+                   for paths in record["figures"]["cells"].values() for p in paths)
+
     def test_figures_missing_after_a_run_without_them_are_drawn(self, folder, tmp_path):
         out = tmp_path / "out"
         first = measure_paths([str(folder)], out, jobs=1)
