@@ -2,7 +2,6 @@
 drawn without errors, and no text drawn over other text."""
 import csv
 import itertools
-import math
 import warnings
 
 import numpy as np

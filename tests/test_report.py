@@ -221,7 +221,7 @@ class TestFiguresInBatchRuns:
         assert (out / "figures" / "plain.nix" / "traces.pdf").read_bytes()[:5] == b"%PDF-"
         page = parsed((out / "report.html").read_text())
         links = [v for t, k, v in page.attrs if t == "a" and k == "href" and v.endswith(".pdf")]
-        assert f"figures/plain.nix/traces.pdf" in links and len(links) == 5
+        assert "figures/plain.nix/traces.pdf" in links and len(links) == 5
 
 
 class TestGroupsFile:
