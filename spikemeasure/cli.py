@@ -192,18 +192,38 @@ def _clock(seconds: float) -> str:
                    "tcp://head-node:8786; also $SPIKEMEASURE_CLUSTER). Needs "
                    "pip install \"spikemeasure[cluster]\".")
 @click.option("--quiet", is_flag=True, help="Print only the final summary.")
+@click.option("--no-figures", "no_figures", is_flag=True,
+              help="Do not draw figures (the tables and report.html are written anyway).")
+@click.option("--format", "figure_format", type=click.Choice(["png", "svg", "pdf"]),
+              default="png", show_default=True,
+              help="File format of the figures. PNG and SVG are embedded in report.html, PDF "
+                   "is linked.")
+@click.option("--groups", "groups_path", type=click.Path(exists=True, dir_okay=False),
+              default=None, metavar="FILE.csv",
+              help="CSV with a header row naming a `file` column (files as in cells.csv) and "
+                   "one group column (e.g. file,genotype): the batch figure and the report "
+                   "show cells by group.")
 @_config_option
 @_settings_options
 @click.pass_context
 def measure(ctx: click.Context, paths, out_dir, jobs, force, patterns, cluster, quiet,
-            config_path, **kw):
+            no_figures, figure_format, groups_path, config_path, **kw):
     """Measure every spike, sweep and cell in PATHS (files or folders) into --out.
 
-    Writes spikes.csv, sweeps.csv, cells.csv, errors.csv and run.json. A rerun measures only
-    the files that changed (or whose parameters did) since the last run into the same --out.
+    Writes spikes.csv, sweeps.csv, cells.csv, errors.csv, run.json, each cell's figures
+    (figures/) and report.html. A rerun measures only the files that changed (or whose
+    parameters did) since the last run into the same --out.
     """
     from .runner import default_jobs, measure_paths
 
+    groups = None
+    if groups_path is not None:
+        from .report import GroupsFileError, read_groups
+
+        try:
+            groups = read_groups(groups_path)
+        except GroupsFileError as exc:
+            raise click.BadParameter(str(exc), param_hint="--groups") from exc
     progress = None if quiet else _Progress(sys.stderr.isatty())
     try:
         params = _run_parameters(ctx, paths, config_path, kw)
@@ -213,7 +233,9 @@ def measure(ctx: click.Context, paths, out_dir, jobs, force, patterns, cluster, 
                                 sampling_rate_hz=params.sampling_rate_hz,
                                 jobs=jobs or default_jobs(), force=force,
                                 extra_patterns=tuple(patterns), config_file=params.config_file,
-                                cluster=cluster, progress=progress)
+                                cluster=cluster,
+                                figure_format=None if no_figures else figure_format,
+                                groups=groups, progress=progress)
     except KeyboardInterrupt:
         if progress is not None:
             progress.close()
@@ -230,6 +252,9 @@ def measure(ctx: click.Context, paths, out_dir, jobs, force, patterns, cluster, 
     click.echo(f"{summary.files_measured + summary.files_reused} files measured{reused}, "
                f"{summary.files_failed} failed; {summary.sweeps_measured} sweeps, "
                f"{summary.spikes} spikes -> {summary.out_dir}", err=True)
+    for note in summary.notes:
+        click.echo(f"Note: {note}", err=True)
+    click.echo(f"Report: {summary.report_path}", err=True)
     if summary.failures:
         click.echo(f"{len(summary.failures)} problems (also in {summary.errors_path}):", err=True)
         for f in summary.failures:
@@ -242,24 +267,36 @@ def measure(ctx: click.Context, paths, out_dir, jobs, force, patterns, cluster, 
 
 @main.command()
 @click.argument("file", type=click.Path(dir_okay=False))
+@click.option("--show", is_flag=True,
+              help="Also open the cell's figures (those `measure` writes) in windows.")
 @_config_option
 @_settings_options
 @click.pass_context
-def inspect(ctx: click.Context, file, config_path, **kw):
+def inspect(ctx: click.Context, file, show, config_path, **kw):
     """Show what FILE holds: format, channels, each sweep's step and spikes, the cell summary."""
-    from .inspection import describe_file
+    from .inspection import inspect_file
 
     try:
         params = _run_parameters(ctx, [file], config_path, kw)
         _check_step_options(params.step_times, params.step_sizes)
-        text, ok = describe_file(file, params.settings, step_times=params.step_times,
-                                 step_sizes=params.step_sizes,
-                                 sampling_rate_hz=params.sampling_rate_hz)
+        found = inspect_file(file, params.settings, step_times=params.step_times,
+                             step_sizes=params.step_sizes,
+                             sampling_rate_hz=params.sampling_rate_hz)
     except SpikemeasureError as exc:
         _fail(ctx, exc)
         return
-    click.echo(text)
-    if not ok:
+    click.echo(found.text)
+    try:
+        if show and found.ok:
+            from .figures import show_figures
+
+            show_figures(found.results, settings=params.settings, file=file)
+    except SpikemeasureError as exc:
+        _fail(ctx, exc)
+        return
+    finally:
+        found.close()
+    if not found.ok:
         ctx.exit(1)
 
 

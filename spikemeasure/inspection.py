@@ -2,14 +2,31 @@
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 from pathlib import Path
 
 from .detection import DetectionSettings
-from .reading import read_recording
+from .reading import Recording, read_recording
 from .cell_features import CELL_FLAG_TEXT
-from .tables import cell_summary, measure_recording
+from .tables import SweepResult, cell_summary, measure_recording
 
-__all__ = ["describe_file"]
+__all__ = ["describe_file", "inspect_file", "Inspection"]
+
+
+@dataclass(frozen=True)
+class Inspection:
+    """What :func:`inspect_file` found: the text, whether any sweep was measured, and the
+    results (for figures)."""
+
+    text: str
+    ok: bool
+    results: list[SweepResult]
+    recording: Recording | None = None
+
+    def close(self) -> None:
+        """Close the file long sweeps are read from (see :meth:`Recording.close`)."""
+        if self.recording is not None:
+            self.recording.close()
 
 
 def _fmt(value: float, unit: str, digits: int = 1) -> str:
@@ -25,9 +42,24 @@ def describe_file(path: str, settings: DetectionSettings = DetectionSettings(), 
     Returns (text, ok) where ok is False when no sweep could be measured.
     Raises :class:`~spikemeasure.errors.UnreadableInputError` when the file cannot be read.
     """
+    found = inspect_file(path, settings, step_times=step_times, step_sizes=step_sizes,
+                         sampling_rate_hz=sampling_rate_hz)
+    found.close()
+    return found.text, found.ok
+
+
+def inspect_file(path: str, settings: DetectionSettings = DetectionSettings(), *,
+                 step_times: tuple[float, float] | None = None,
+                 step_sizes: tuple[float, float] | None = None,
+                 sampling_rate_hz: float | None = None) -> Inspection:
+    """As :func:`describe_file`, keeping the sweep results and the recording too (for figures;
+    call :meth:`Inspection.close` when done with them)."""
     recording = read_recording(path, sampling_rate_hz=sampling_rate_hz)
-    with recording:
+    try:
         results = measure_recording(recording, settings, step_times, step_sizes)
+    except BaseException:
+        recording.close()
+        raise
     rates = sorted({s.sampling_rate_hz for s in recording.sweeps})
     lines = [
         f"file:          {path} ({Path(path).stat().st_size / 1e6:.2f} MB)",
@@ -65,7 +97,7 @@ def describe_file(path: str, settings: DetectionSettings = DetectionSettings(), 
     lines += ["", f"{measured} of {len(results)} sweeps measured, {total} spikes"]
     if measured:
         lines += ["", "cell:"] + _cell_lines(cell_summary(results))
-    return "\n".join(lines), measured > 0
+    return Inspection("\n".join(lines), measured > 0, results, recording)
 
 
 def _cell_lines(cell) -> list[str]:

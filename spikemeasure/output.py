@@ -15,19 +15,35 @@ from pathlib import Path
 from .columns import SPIKE_COLUMNS, Column
 from .tables import format_rows
 
-__all__ = ["write_text_atomic", "write_table_csv", "write_rows_csv", "write_json"]
+__all__ = ["write_text_atomic", "write_bytes_atomic", "write_table_csv", "write_rows_csv",
+           "write_json"]
+
+
+def _read_umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
+_UMASK = _read_umask()  # read once at import: os.umask can only be read by setting it
 
 
 def write_text_atomic(path: str | os.PathLike, text: str) -> Path:
     """Write `text` to `path` through a temporary file and a rename."""
+    return write_bytes_atomic(path, text.encode("utf-8"))
+
+
+def write_bytes_atomic(path: str | os.PathLike, data: bytes) -> Path:
+    """Write `data` to `path` through a temporary file in the same folder, fsync, rename."""
     target = Path(path)
     target.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
     try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
-            fh.write(text)
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
             fh.flush()
             os.fsync(fh.fileno())
+        os.chmod(tmp, 0o666 & ~_UMASK)  # as an ordinary new file: mkstemp makes it private
         os.replace(tmp, target)
     except BaseException:
         try:

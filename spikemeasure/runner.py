@@ -10,6 +10,11 @@
   outcomes of unchanged files and measures only the rest; ``force=True`` redoes all.
 - Tables are written atomically, again every few seconds during a long run and at the end
   (also after Ctrl-C), so an interrupted run leaves complete tables for the files finished.
+- Figures (optional) are drawn in each file's task while its recording is in memory, into
+  ``figures/<file>/``; the batch figure and ``report.html`` are written at the end of the run
+  (also after Ctrl-C), from the outcomes. Figure options never change the tables, and are not
+  part of the parameter hash: a kept outcome whose figures are missing (or in another format)
+  is measured again only when figures are asked for.
 """
 from __future__ import annotations
 
@@ -36,7 +41,8 @@ from .tables import (cell_summary, cell_table, count_spikes, flag_counts, format
                      measure_recording, spike_table, sweep_table)
 
 __all__ = ["RunSummary", "measure_paths", "measure_file", "file_sha256", "SPIKES_FILE",
-           "SWEEPS_FILE", "CELLS_FILE", "ERRORS_FILE", "RUN_RECORD_FILE", "CACHE_FOLDER"]
+           "SWEEPS_FILE", "CELLS_FILE", "ERRORS_FILE", "RUN_RECORD_FILE", "CACHE_FOLDER",
+           "FIGURES_FOLDER", "REPORT_FILE", "cell_figure_folder"]
 
 SPIKES_FILE = "spikes.csv"
 SWEEPS_FILE = "sweeps.csv"
@@ -44,6 +50,8 @@ CELLS_FILE = "cells.csv"
 ERRORS_FILE = "errors.csv"
 RUN_RECORD_FILE = "run.json"
 CACHE_FOLDER = ".spikemeasure-cache"
+FIGURES_FOLDER = "figures"
+REPORT_FILE = "report.html"
 #: Tables are rewritten at most this often (s) during a run, so a killed run loses little.
 TABLE_REFRESH_S = 5.0
 
@@ -61,6 +69,7 @@ class RunSummary:
     failures: list[dict] = field(default_factory=list)
     inputs: list[dict] = field(default_factory=list)
     interrupted: bool = False
+    notes: list[str] = field(default_factory=list)
 
     @property
     def nothing_measured(self) -> bool:
@@ -85,6 +94,10 @@ class RunSummary:
     @property
     def record_path(self) -> Path:
         return self.out_dir / RUN_RECORD_FILE
+
+    @property
+    def report_path(self) -> Path:
+        return self.out_dir / REPORT_FILE
 
 
 def file_sha256(path: Path, chunk: int = 1 << 20) -> str:
@@ -116,40 +129,82 @@ def _failure(file: str, stage: str, message: str) -> dict:
     return {"file": file, "stage": stage, "message": message}
 
 
-def measure_file(path: str, shown: str, parameters: dict) -> dict:
+def cell_figure_folder(shown: str) -> str:
+    """Where a file's figures go, relative to the output folder (``/`` separated)."""
+    from .figures import figure_folder_name  # matplotlib itself is imported only to draw
+
+    return f"{FIGURES_FOLDER}/{figure_folder_name(shown)}"
+
+
+def measure_file(path: str, shown: str, parameters: dict, figures: dict | None = None) -> dict:
     """Read and measure one file; its outcome as plain data (formatted rows, failures, counts).
 
     Runs in a worker process as well as in this one, so it takes and returns plain values.
+    With `figures` (``{"out": output folder, "format": "png"}``) the cell's figures are
+    written too, and listed in the outcome (``figures``: paths relative to the output folder).
     """
     settings = DetectionSettings(**parameters["settings"])
     step_times = tuple(parameters["step_s"]) if parameters.get("step_s") else None
     step_sizes = tuple(parameters["step_sizes_pa"]) if parameters.get("step_sizes_pa") else None
     outcome = {"file": shown, "failures": [], "spike_rows": [], "sweep_rows": [],
                "cell_rows": [], "sweeps": 0, "sweeps_measured": 0, "spikes": 0,
-               "spike_flags": {}, "format": None}
+               "spike_flags": {}, "format": None, "figures": [],
+               "figure_format": figures["format"] if figures else None}
     try:
         recording = read_recording(path, shown_as=shown,
                                    sampling_rate_hz=parameters.get("sampling_rate_hz"))
     except SpikemeasureError as exc:
         outcome["failures"].append(_failure(shown, "read", str(exc)))
         return outcome
-    with recording:  # closes the file that long sweeps are read from
+    with recording:  # open until its figures are drawn: long sweeps are read from it
         results = measure_recording(recording, settings, step_times, step_sizes)
-    measured = [r for r in results if r.error is None]
-    for problem in recording.problems:
-        outcome["failures"].append(_failure(shown, "read", problem))
-    for r in results:
-        if r.error:
-            outcome["failures"].append(_failure(shown, f"sweep {r.sweep.index}", r.error))
-    outcome.update(format=recording.format, sweeps=len(recording.sweeps),
-                   sweeps_measured=len(measured), spikes=count_spikes(results),
-                   spike_flags=flag_counts(results))
-    outcome["spike_rows"] = format_rows(spike_table(results), SPIKE_COLUMNS)
-    outcome["sweep_rows"] = format_rows(sweep_table(results), SWEEP_COLUMNS)
-    if measured:
-        outcome["cell_rows"] = format_rows(cell_table([(shown, cell_summary(results))]),
-                                           CELL_COLUMNS)
+        measured = [r for r in results if r.error is None]
+        for problem in recording.problems:
+            outcome["failures"].append(_failure(shown, "read", problem))
+        for r in results:
+            if r.error:
+                outcome["failures"].append(_failure(shown, f"sweep {r.sweep.index}", r.error))
+        outcome.update(format=recording.format, sweeps=len(recording.sweeps),
+                       sweeps_measured=len(measured), spikes=count_spikes(results),
+                       spike_flags=flag_counts(results))
+        outcome["spike_rows"] = format_rows(spike_table(results), SPIKE_COLUMNS)
+        outcome["sweep_rows"] = format_rows(sweep_table(results), SWEEP_COLUMNS)
+        if measured:
+            cell = cell_summary(results)
+            outcome["cell_rows"] = format_rows(cell_table([(shown, cell)]), CELL_COLUMNS)
+            if figures:
+                outcome["figures"] = _cell_figures(recording, results, cell, settings, shown,
+                                                   figures, outcome["failures"])
     return outcome
+
+
+def _cell_figures(recording, results, cell, settings: DetectionSettings, shown: str,
+                  figures: dict, failures: list[dict]) -> list[str]:
+    """Draw one cell's figures while its recording is in memory; their paths, relative to the
+    output folder. A figure that cannot be written (disk full, permissions) is a failure of
+    the file's ``figures`` stage; its tables stand."""
+    from .figures import write_cell_figures
+
+    folder = cell_figure_folder(shown)
+    try:
+        names = write_cell_figures(recording, results, Path(figures["out"]) / folder,
+                                   figures["format"], settings=settings, cell=cell)
+    except OSError as exc:
+        failures.append(_failure(shown, "figures", f"{shown}: cannot write its figures ({exc})"))
+        return []
+    return [f"{folder}/{name}" for name in names]
+
+
+def _figures_present(out: Path, outcome: dict, shown: str, fmt: str) -> bool:
+    """Whether a kept outcome's figures are those this run asks for, and all on disk."""
+    if outcome.get("figure_format") != fmt:
+        return False
+    folder = cell_figure_folder(shown)
+    listed = outcome.get("figures") or []
+    if outcome.get("sweeps_measured") and not listed:
+        return False
+    return all(p.startswith(folder + "/") and p.endswith("." + fmt) and (out / p).is_file()
+               for p in listed)
 
 
 class _StopRequest:
@@ -245,6 +300,7 @@ def measure_paths(paths: list[str], out_dir: str | Path,
                   sampling_rate_hz: float | None = None, jobs: int = 1, force: bool = False,
                   extra_patterns: tuple[str, ...] = (), config_file: str | None = None,
                   cluster: str | None = None, cluster_timeout_s: float = 20.0,
+                  figure_format: str | None = None, groups=None,
                   progress: Callable[[dict], None] | None = None) -> RunSummary:
     """Measure every recording under `paths`; write spikes.csv, sweeps.csv, cells.csv,
     errors.csv and run.json to `out_dir`.
@@ -277,12 +333,21 @@ def measure_paths(paths: list[str], out_dir: str | Path,
         paths. Outcomes are kept and tables written here, as in a local run.
     cluster_timeout_s : float, optional
         How long to wait for the scheduler to answer.
+    figure_format : {'png', 'svg', 'pdf'} or None, optional
+        Draw each cell's figures (under ``figures/``) and the batch figure in this format;
+        None draws none. ``report.html`` is written either way. On a cluster, the workers
+        write the figures, so `out_dir` must be at the same path for them.
+    groups : spikemeasure.report.Groups, optional
+        Files to groups, for the batch figure and the report (see
+        :func:`~spikemeasure.report.read_groups`).
     progress : callable, optional
         Called with ``{"done", "total", "file", "line", "elapsed_s"}`` after each file.
 
     Returns
     -------
     RunSummary
+        ``notes`` holds messages that are not failures (files of `groups` not in the run,
+        files of the run not in `groups`).
 
     Raises
     ------
@@ -297,6 +362,14 @@ def measure_paths(paths: list[str], out_dir: str | Path,
                   "step_s": list(step_times) if step_times else None,
                   "step_sizes_pa": list(step_sizes) if step_sizes else None,
                   "sampling_rate_hz": sampling_rate_hz}
+    if figure_format is not None:
+        from .figures import FIGURE_FORMATS
+
+        if figure_format not in FIGURE_FORMATS:
+            raise SpikemeasureError(f"figure format must be one of "
+                                    f"{', '.join(FIGURE_FORMATS)} (got {figure_format!r})")
+    # absolute: workers elsewhere (a cluster) may start in another folder
+    figures = {"out": str(out.resolve()), "format": figure_format} if figure_format else None
     early: list[dict] = []
     for given in paths:
         if not Path(given).exists():
@@ -315,12 +388,18 @@ def measure_paths(paths: list[str], out_dir: str | Path,
             entry["status"] = "failed"
             outcomes[k] = {"file": shown, "failures": [_failure(shown, "read", f"{shown}: {exc}")],
                            "spike_rows": [], "sweep_rows": [], "cell_rows": [], "sweeps": 0,
-                           "sweeps_measured": 0, "spikes": 0, "spike_flags": {}}
+                           "sweeps_measured": 0, "spikes": 0, "spike_flags": {},
+                           "figures": []}
             entries.append(entry)
             continue
         is_text = path.suffix.lower() in TEXT_SUFFIXES
         cache = _cache_path(out, entry["sha256"], _parameter_hash(parameters, is_text))
         cached = None if force else _load_cached(cache, shown)
+        if cached is not None and figures and not _figures_present(out, cached, shown,
+                                                                     figure_format):
+            cached = None  # its figures are missing or in another format: draw them again
+        elif cached is not None and not figures:
+            cached = dict(cached, figures=[])  # not drawn in this run: not in its report
         if cached is not None:
             outcomes[k] = cached
             entry["status"] = "reused"
@@ -352,17 +431,18 @@ def measure_paths(paths: list[str], out_dir: str | Path,
     try:
         with _StopRequest() as stop:
             if cluster and pending:
-                _run_on_cluster(cluster, pending, parameters, finish, cluster_timeout_s, stop)
+                _run_on_cluster(cluster, pending, parameters, finish, cluster_timeout_s, stop,
+                                figures)
             elif jobs <= 1 or len(pending) <= 1:
                 for k, path, shown, cache in pending:
                     stop.check()
-                    finish(k, measure_file(str(path), shown, parameters), cache)
+                    finish(k, measure_file(str(path), shown, parameters, figures), cache)
                 stop.check()
             else:
                 pool = ProcessPoolExecutor(max_workers=min(jobs, len(pending)),
                                            initializer=_ignore_interrupts)
                 try:
-                    futures = {pool.submit(measure_file, str(path), shown, parameters):
+                    futures = {pool.submit(measure_file, str(path), shown, parameters, figures):
                                (k, cache) for k, path, shown, cache in pending}
                     for future in as_completed(futures):
                         k, cache = futures[future]
@@ -374,13 +454,14 @@ def measure_paths(paths: list[str], out_dir: str | Path,
         summary.interrupted = True
         raise
     finally:
-        _finish_run(summary, entries, outcomes, early, parameters, started, config_file)
+        _finish_run(summary, entries, outcomes, early, parameters, started, config_file,
+                    figure_format, groups)
     return summary
 
 
 def _run_on_cluster(address: str, pending: list, parameters: dict,
                     finish: Callable[[int, dict, Path], None], timeout_s: float,
-                    stop: _StopRequest) -> None:
+                    stop: _StopRequest, figures: dict | None = None) -> None:
     """Measure the pending files on a Dask distributed cluster."""
     try:
         from distributed import Client, as_completed as completed
@@ -396,7 +477,8 @@ def _run_on_cluster(address: str, pending: list, parameters: dict,
     try:
         futures = {}
         for k, path, shown, cache in pending:
-            future = client.submit(measure_file, str(path), shown, parameters, pure=False,
+            future = client.submit(measure_file, str(path), shown, parameters, figures,
+                                   pure=False,
                                    key=f"spikemeasure-{k}-{cache.stem}")
             futures[future] = (k, cache)
         for future in completed(list(futures)):
@@ -411,8 +493,10 @@ def _run_on_cluster(address: str, pending: list, parameters: dict,
 
 def _finish_run(summary: RunSummary, entries: list[dict], outcomes: list[dict | None],
                 early: list[dict], parameters: dict, started: float,
-                config_file: str | None) -> None:
-    """Count, write the tables and the run record (also after an interruption)."""
+                config_file: str | None, figure_format: str | None = None,
+                groups=None) -> None:
+    """Count, write the tables, the run record, the batch figure and the report (also after
+    an interruption)."""
     summary.failures = list(early)
     for entry, outcome in zip(entries, outcomes):
         if outcome is None:
@@ -437,6 +521,24 @@ def _finish_run(summary: RunSummary, entries: list[dict], outcomes: list[dict | 
         else:
             summary.files_failed += 1
     _write_tables(summary, outcomes, early)
+    done = [o for o in outcomes if o is not None]
+    batch_figure = None
+    if groups is not None:
+        summary.notes.extend(groups.notes([o["file"] for o in done if o["cell_rows"]]))
+    cells = [row for o in done for row in o["cell_rows"]]
+    if figure_format and cells:
+        from .report import cell_values
+        from .figures import BATCH_FIGURE_NAME, write_batch_figure
+
+        batch_figure = f"{FIGURES_FOLDER}/{BATCH_FIGURE_NAME}.{figure_format}"
+        try:
+            write_batch_figure(summary.out_dir / batch_figure, cell_values(cells),
+                               groups.mapping if groups is not None else None,
+                               groups.label if groups is not None else "group", figure_format)
+        except OSError as exc:
+            summary.notes.append(f"{summary.out_dir / batch_figure}: cannot write the batch "
+                                 f"figure ({exc})")
+            batch_figure = None
     record = {
         "tool": "spikemeasure",
         "versions": _versions(),
@@ -453,8 +555,21 @@ def _finish_run(summary: RunSummary, entries: list[dict], outcomes: list[dict | 
         "totals": {"files_measured": summary.files_measured,
                    "files_reused": summary.files_reused, "files_failed": summary.files_failed,
                    "sweeps_measured": summary.sweeps_measured, "spikes": summary.spikes},
+        "figures": {"format": figure_format, "batch": batch_figure,
+                    "cells": {o["file"]: o.get("figures", []) for o in done
+                              if o.get("figures")}},
+        "groups": None if groups is None else {"file": groups.path, "column": groups.label,
+                                               "members": groups.mapping},
+        "notes": summary.notes,
     }
     write_json(summary.record_path, record)
+    from .report import write_report
+
+    try:
+        write_report(summary.report_path, record, cells)
+    except OSError as exc:
+        raise SpikemeasureError(f"{summary.report_path}: cannot write the report ({exc}); the "
+                                "tables and run.json are written") from exc
 
 
 def default_jobs() -> int:

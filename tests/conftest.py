@@ -200,3 +200,37 @@ def gaussian_train(rate_hz: float, peaks_ms, duration_ms: float, spike: Gaussian
     for p in peaks_ms:
         v += spike.amplitude_mv * np.exp(-(t - p) ** 2 / (2 * spike.sigma_ms ** 2))
     return t, v
+
+
+# --------------------------------------------------------------------------- an analytic cell
+
+RC_RATE_HZ = 20_000.0
+RC_STEP_S = (0.05, 0.25)  # step onset and offset; sweeps of 0.3 s
+RC_R_GOHM, RC_TAU_MS, RC_REST_MV = 0.2, 10.0, -70.0  # 200 MOhm, 10 ms
+RC_STEPS_PA = (-40.0, -20.0, 0.0, 20.0, 40.0, 60.0)
+RC_SPIKES_PER_STEP = (0, 0, 0, 1, 3, 5)
+
+
+def rc_cell_sweeps(steps=RC_STEPS_PA, spikes=RC_SPIKES_PER_STEP, duration_s: float = 0.3):
+    """Sweeps [(voltage_mv, command_pa), ...] of a passive RC membrane, by its closed form
+    V = rest + R I (1 - exp(-t / tau)) during the step and an exponential return after it,
+    with Gaussian spikes (95 mV, sigma 0.35 ms, 30 ms apart from 30 ms into the step) added
+    on the depolarizing steps, and 0.05 mV of white noise (fixed seed)."""
+    onset, offset = RC_STEP_S
+    n = int(duration_s * RC_RATE_HZ)
+    t = np.arange(n) / RC_RATE_HZ
+    shape = GaussianSpike(base_mv=0.0, amplitude_mv=95.0, sigma_ms=0.35)
+    noise = np.random.default_rng(7)
+    out = []
+    for size, count in zip(steps, spikes):
+        v = np.full(n, RC_REST_MV)
+        on = (t >= onset) & (t < offset)
+        v[on] += RC_R_GOHM * size * (1 - np.exp(-(t[on] - onset) * 1e3 / RC_TAU_MS))
+        end_dv = RC_R_GOHM * size * (1 - np.exp(-(offset - onset) * 1e3 / RC_TAU_MS))
+        after = t >= offset
+        v[after] += end_dv * np.exp(-(t[after] - offset) * 1e3 / RC_TAU_MS)
+        for peak_s in onset + 0.03 + np.arange(count) * 0.03:
+            v += shape.voltage((t - peak_s) * 1e3 + shape.peak_ms)
+        v += noise.normal(0.0, 0.05, n)
+        out.append((v, step_command(n, RC_RATE_HZ, size, onset, offset)))
+    return out

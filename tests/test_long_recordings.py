@@ -212,3 +212,27 @@ def test_a_piece_that_cannot_be_read_names_the_file_and_sweep(tmp_path, gap_free
     message = summary.failures[0]["message"]
     assert message.startswith("damaged.nwb, sweep 0")
     assert "cannot be read" in message and "inflate() failed" in message
+
+
+def test_envelope_of_a_lazy_trace_equals_that_of_the_array(gap_free):
+    from spikemeasure.figures import envelope
+
+    reads = []
+
+    def read(start, stop):
+        reads.append(stop - start)
+        return gap_free[start:stop]
+
+    t_lazy, v_lazy = envelope(LazyTrace(read, gap_free.size), RATE_HZ, bins=333)
+    t_whole, v_whole = envelope(gap_free, RATE_HZ, bins=333)
+    np.testing.assert_array_equal(t_lazy, t_whole)
+    np.testing.assert_array_equal(v_lazy, v_whole)
+
+
+def test_a_long_file_gets_its_figures_while_read_in_pieces(tmp_path, gap_free, small_pieces):
+    path = write_nwb(tmp_path / "gap_free.nwb", [(gap_free, np.zeros(gap_free.size))],
+                     rate_hz=RATE_HZ)
+    summary = measure_paths([str(path)], tmp_path / "out", jobs=1, figure_format="png")
+    assert summary.files_failed == 0 and summary.failures == []
+    drawn = sorted(p.name for p in (tmp_path / "out" / "figures").rglob("*.png"))
+    assert {"traces.png", "first_spike.png", "phase_plot.png"} <= set(drawn)

@@ -149,6 +149,10 @@ def test_interrupted_run_resumes_to_the_same_tables(distinct_cells, tmp_path, si
         # interrupt may fall after a file is kept and before it reaches the tables)
         assert cells == [i["file"] for i in done]
         assert finished - 1 <= len(cells) <= finished
+        # the report and the batch figure cover the files finished, too
+        report = (out / "report.html").read_text()
+        assert "interrupted" in report and all(f in report for f in cells)
+        assert (out / "figures" / "cell_features_by_group.png").is_file()
     assert not list(out.glob(".*.part"))
     rerun = subprocess.run(cmd, capture_output=True, text=True, timeout=300)
     assert rerun.returncode == 0, rerun.stderr

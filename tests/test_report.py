@@ -1,0 +1,274 @@
+"""report.html, the groups file, and figures in batch runs (cache, formats, tables unchanged)."""
+import base64
+import csv
+import json
+import re
+import shutil
+from html.parser import HTMLParser
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+
+from browser import find_chromium
+from conftest import RC_RATE_HZ as RATE, rc_cell_sweeps, step_command, write_nix
+from spikemeasure.cli import main
+from spikemeasure.figures import BATCH_FIGURE_NAME, CELL_FIGURE_NAMES
+from spikemeasure.report import GroupsFileError, read_groups
+from spikemeasure.runner import measure_paths
+
+TABLES = ("spikes.csv", "sweeps.csv", "cells.csv")
+ODD_NAME = 'cell <b>&"1".nix'
+
+
+@pytest.fixture(scope="module")
+def folder(tmp_path_factory):
+    """Two cells (one with a name full of HTML), a no-spike cell and a truncated file."""
+    d = tmp_path_factory.mktemp("report") / "cells"
+    (d / "day 1").mkdir(parents=True)
+    write_nix(d / "day 1" / ODD_NAME, rc_cell_sweeps(), rate_hz=RATE)
+    write_nix(d / "plain.nix", rc_cell_sweeps()[::2], rate_hz=RATE)
+    n = int(0.3 * RATE)
+    write_nix(d / "quiet.nix", [(np.full(n, -70.0) + 0.01 * np.sin(np.arange(n)),
+                                 step_command(n, RATE, 0.0))], rate_hz=RATE)
+    data = (d / "plain.nix").read_bytes()
+    (d / "broken.nix").write_bytes(data[: len(data) // 5])
+    return d
+
+
+@pytest.fixture(scope="module")
+def run(folder, tmp_path_factory):
+    out = tmp_path_factory.mktemp("out")
+    groups = out.parent / "groups.csv"
+    groups.write_text(f'file,condition\n"day 1/{ODD_NAME}",control\nplain.nix,treated\n'
+                      "gone.nix,treated\n")
+    r = CliRunner().invoke(main, ["measure", str(folder), "--out", str(out), "--jobs", "1",
+                                  "--groups", str(groups)])
+    return {"out": out, "result": r, "html": (out / "report.html").read_text()}
+
+
+class _Page(HTMLParser):
+    def __init__(self):
+        super().__init__()
+        self.tags, self.attrs, self.text = [], [], []
+
+    def handle_starttag(self, tag, attrs):
+        self.tags.append(tag)
+        self.attrs += [(tag, k, v) for k, v in attrs]
+
+    def handle_data(self, data):
+        self.text.append(data)
+
+
+def parsed(html_text):
+    page = _Page()
+    page.feed(html_text)
+    return page
+
+
+class TestReportContents:
+    def test_run_summary_counts(self, run):
+        assert run["result"].exit_code == 1  # the truncated file failed
+        record = json.loads((run["out"] / "run.json").read_text())
+        assert record["totals"]["files_measured"] == 3 and record["totals"]["files_failed"] == 1
+        for label, value in (("files", 4), ("measured", 3), ("failed", 1)):
+            assert re.search(rf"<b>{label}</b></td><td>{value}</td>", run["html"]), label
+
+    def test_failures_are_listed_with_their_reasons(self, run):
+        record = json.loads((run["out"] / "run.json").read_text())
+        (failure,) = record["failures"]
+        assert failure["file"] == "broken.nix"
+        text = " ".join(parsed(run["html"]).text)
+        assert failure["message"] in text
+
+    def test_names_are_escaped(self, run):
+        assert ODD_NAME not in run["html"]  # never raw
+        assert "cell &lt;b&gt;&amp;&quot;1&quot;.nix" in run["html"]
+        page = parsed(run["html"])
+        assert f"day 1/{ODD_NAME}" in page.text  # the parser reads it back whole
+
+    def test_cell_table_and_figures(self, run):
+        page = parsed(run["html"])
+        images = [v for t, k, v in page.attrs if t == "img" and k == "src"]
+        # three measured cells, each four figures, and the batch figure
+        assert len(images) == 3 * len(CELL_FIGURE_NAMES) + 1
+        for src in images:
+            assert src.startswith("data:image/png;base64,")
+            assert base64.b64decode(src.split(",", 1)[1])[:8] == b"\x89PNG\r\n\x1a\n"
+        with open(run["out"] / "cells.csv", newline="") as fh:
+            cells = list(csv.reader(fh))
+        for row in cells[1:]:
+            for value in row[1:]:
+                assert f">{value}<" in run["html"]
+
+    def test_no_external_resources_and_no_scripts(self, run):
+        page = parsed(run["html"])
+        assert "script" not in page.tags and "link" not in page.tags
+        for tag, key, value in page.attrs:
+            if key in ("src", "href"):
+                assert value.startswith(("data:", "#")), (tag, value)
+        assert "url(" not in run["html"] and "@import" not in run["html"]
+
+    def test_groups_notes_and_batch_figure(self, run):
+        record = json.loads((run["out"] / "run.json").read_text())
+        assert record["groups"]["column"] == "condition"
+        assert "<th>condition</th>" in run["html"]
+        assert re.search(r"plain\.nix</a></td><td>treated</td>", run["html"])
+        notes = " ".join(record["notes"])
+        assert "gone.nix" in notes and "quiet.nix" in notes
+        assert "Note:" in run["result"].output and "gone.nix" in run["result"].output
+        assert (run["out"] / "figures" / f"{BATCH_FIGURE_NAME}.png").is_file()
+        assert record["figures"]["batch"] == f"figures/{BATCH_FIGURE_NAME}.png"
+
+    def test_figures_live_under_safe_folder_names(self, run):
+        record = json.loads((run["out"] / "run.json").read_text())
+        paths = record["figures"]["cells"][f"day 1/{ODD_NAME}"]
+        # one folder level; characters some file systems refuse (<>:"|?*) made "_"
+        assert paths == [f'figures/day 1__cell _b_&_1_.nix/{s}.png' for s in CELL_FIGURE_NAMES]
+        assert all((run["out"] / p).is_file() for p in paths)
+
+
+def test_report_in_a_real_browser(run, tmp_path):
+    """The page loads with no console errors, every image loads, the screenshot is not blank,
+    also from a copy of the output folder elsewhere."""
+    pytest.importorskip("websocket", reason="websocket-client (a test extra) is not installed")
+    if find_chromium() is None:
+        pytest.skip("no Chromium to load the report in: .ci/run installs Debian's chromium "
+                    "package when it can (apt-get install chromium)")
+    from matplotlib.image import imread
+    import io
+
+    from browser import load_page
+
+    copy = tmp_path / "copied elsewhere"
+    shutil.copytree(run["out"], copy)
+    page = load_page((copy / "report.html").as_uri())
+    assert page["errors"] == []
+    assert len(page["images"]) == 3 * len(CELL_FIGURE_NAMES) + 1
+    for image in page["images"]:
+        assert image["complete"] and image["width"] > 100 and image["height"] > 100, image
+    shot = imread(io.BytesIO(page["screenshot"]), format="png")
+    assert shot.shape[0] > 500 and shot[..., :3].std() > 0.02  # not one flat colour
+
+
+def test_the_browser_check_catches_a_broken_page(tmp_path):
+    """The check above can fail: a missing image and a console error are both reported."""
+    pytest.importorskip("websocket", reason="websocket-client (a test extra) is not installed")
+    if find_chromium() is None:
+        pytest.skip("no Chromium: .ci/run installs Debian's chromium package when it can")
+    from browser import load_page
+
+    page = tmp_path / "broken.html"
+    page.write_text('<!DOCTYPE html><img src="absent.png" alt="x">'
+                    "<script>console.error('deliberate')</script>")
+    found = load_page(page.as_uri())
+    assert any("deliberate" in e for e in found["errors"])
+    assert found["images"] and found["images"][0]["width"] == 0
+
+
+class TestFiguresInBatchRuns:
+    def test_rerun_reads_nothing_and_figure_options_leave_the_tables_alone(self, folder,
+                                                                          tmp_path):
+        plain = tmp_path / "plain"
+        measure_paths([str(folder)], plain, jobs=1)
+        out = tmp_path / "out"
+        first = measure_paths([str(folder)], out, jobs=1, figure_format="png")
+        assert first.files_measured == 3
+        for name in TABLES:
+            assert (out / name).read_bytes() == (plain / name).read_bytes()
+        figure = out / "figures" / "plain.nix" / "traces.png"
+        stamp = figure.stat().st_mtime_ns
+        again = measure_paths([str(folder)], out, jobs=1, figure_format="png")
+        assert (again.files_reused, again.files_measured) == (3, 0)
+        assert figure.stat().st_mtime_ns == stamp
+        svg = measure_paths([str(folder)], out, jobs=1, figure_format="svg")
+        assert svg.files_measured == 3  # another format: drawn again
+        assert (out / "figures" / "plain.nix" / "traces.svg").read_text().lstrip().startswith(
+            "<?xml")
+        html = (out / "report.html").read_text()
+        assert html.count("data:image/svg+xml;base64,") == 3 * len(CELL_FIGURE_NAMES) + 1
+        for name in TABLES:
+            assert (out / name).read_bytes() == (plain / name).read_bytes()
+
+    def test_two_jobs_with_figures_give_the_same_tables(self, folder, tmp_path):
+        measure_paths([str(folder)], tmp_path / "one", jobs=1)
+        two = measure_paths([str(folder)], tmp_path / "two", jobs=2, figure_format="png")
+        assert two.files_measured == 3
+        for name in TABLES + ("errors.csv",):
+            assert (tmp_path / "one" / name).read_bytes() == (tmp_path / "two" / name).read_bytes()
+        record = json.loads((tmp_path / "two" / "run.json").read_text())
+        assert all((tmp_path / "two" / p).is_file()
+                   for paths in record["figures"]["cells"].values() for p in paths)
+
+    def test_figures_missing_after_a_run_without_them_are_drawn(self, folder, tmp_path):
+        out = tmp_path / "out"
+        first = measure_paths([str(folder)], out, jobs=1)
+        assert not (out / "figures").exists()
+        assert "not drawn in this run" in (out / "report.html").read_text()
+        second = measure_paths([str(folder)], out, jobs=1, figure_format="png")
+        assert second.files_measured == 3 and second.files_reused == 0
+        (out / "figures" / "plain.nix" / "phase_plot.png").unlink()
+        third = measure_paths([str(folder)], out, jobs=1, figure_format="png")
+        assert (third.files_measured, third.files_reused) == (1, 2)
+        assert (out / "figures" / "plain.nix" / "phase_plot.png").is_file()
+        fourth = measure_paths([str(folder)], out, jobs=1)  # no figures asked: nothing redone
+        assert fourth.files_reused == 3
+        assert first.spikes == second.spikes == third.spikes
+
+    def test_pdf_figures_are_linked(self, folder, tmp_path):
+        out = tmp_path / "out"
+        measure_paths([str(folder / "plain.nix")], out, jobs=1, figure_format="pdf")
+        assert (out / "figures" / "plain.nix" / "traces.pdf").read_bytes()[:5] == b"%PDF-"
+        page = parsed((out / "report.html").read_text())
+        links = [v for t, k, v in page.attrs if t == "a" and k == "href" and v.endswith(".pdf")]
+        assert "figures/plain.nix/traces.pdf" in links and len(links) == 5
+
+
+class TestGroupsFile:
+    def test_reads_files_and_groups(self, tmp_path):
+        p = tmp_path / "g.csv"
+        p.write_text("genotype,file\nwt,a.nix\nko,./day 1\\b.nwb\n")
+        groups = read_groups(p)
+        assert groups.label == "genotype"
+        assert groups.mapping == {"a.nix": "wt", "day 1/b.nwb": "ko"}
+
+    @pytest.mark.parametrize("text, message", [
+        ("", "empty"),
+        ("name,group\na.nix,wt\n", "no `file` column"),
+        ("file,group,age\na.nix,wt,3\n", "exactly one group column"),
+        ("file,group\na.nix\n", "line 2: 1 cells"),
+        ("file,group\na.nix,\n", "line 2"),
+        ("file,group\na.nix,wt\na.nix,ko\n", "line 3: a.nix is in 'wt' already"),
+    ])
+    def test_bad_files_are_named_with_what_is_wrong(self, tmp_path, text, message):
+        p = tmp_path / "groups.csv"
+        p.write_text(text)
+        with pytest.raises(GroupsFileError, match=re.escape(message)) as info:
+            read_groups(p)
+        assert str(p) in str(info.value)
+
+    def test_a_bad_groups_file_is_a_usage_error(self, folder, tmp_path):
+        p = tmp_path / "groups.csv"
+        p.write_text("cell,group\na.nix,wt\n")
+        r = CliRunner().invoke(main, ["measure", str(folder / "plain.nix"), "--out",
+                                      str(tmp_path / "out"), "--groups", str(p)])
+        assert r.exit_code == 2
+        assert "--groups" in r.output and str(p) in r.output and "no `file` column" in r.output
+        assert "Traceback" not in r.output
+        assert not (tmp_path / "out").exists()  # nothing measured
+
+
+def test_no_figures_never_imports_matplotlib(folder, tmp_path):
+    """`--help` and runs without figures stay fast: matplotlib is imported only to draw."""
+    import subprocess
+    import sys
+
+    code = ("import sys\nfrom spikemeasure.cli import main\n"
+            "from spikemeasure.runner import measure_paths\n"
+            f"measure_paths([{str(folder / 'plain.nix')!r}], {str(tmp_path / 'out')!r})\n"
+            "print(sorted(m for m in sys.modules if m.split('.')[0] == 'matplotlib'))\n")
+    result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                            timeout=120)
+    assert result.returncode == 0, result.stderr
+    assert result.stdout.strip() == "[]"
+    assert (tmp_path / "out" / "report.html").is_file()
