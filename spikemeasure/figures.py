@@ -417,8 +417,7 @@ def _crossings(v: np.ndarray, level: float, peak: int) -> tuple[float, float]:
 
 
 def first_spike_figure(results: Sequence[SweepResult], cell: CellFeatures | None = None, *,
-                  name: str | None = None,
-                       new_figure: Callable | None = None):
+                       name: str | None = None, new_figure: Callable | None = None):
     """The first spike of the rheobase sweep up close, its measurements drawn and labelled.
 
     Parameters
@@ -587,8 +586,7 @@ def phase_plot_figure(results: Sequence[SweepResult], cell: CellFeatures | None 
 
 
 def step_response_figure(results: Sequence[SweepResult], cell: CellFeatures | None = None, *,
-                  name: str | None = None,
-                         new_figure: Callable | None = None):
+                         name: str | None = None, new_figure: Callable | None = None):
     """Firing rate and steady-state deflection against step size.
 
     Parameters
