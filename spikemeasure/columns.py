@@ -105,10 +105,14 @@ SWEEP_COLUMNS: tuple[Column, ...] = (
     Column("baseline_noise_mv", "mV", "Standard deviation (ddof=0) of the voltage over the same "
            "window.", 4),
     Column("spike_count", "", "Spikes whose threshold time lies in [stimulus_start_s, "
-           "stimulus_end_s)."),
-    Column("firing_rate_hz", "Hz", "spike_count / step duration.", 4),
-    Column("first_spike_latency_ms", "ms", "First threshold time in the step minus onset.", 4),
-    Column("mean_isi_ms", "ms", "Mean interval between consecutive spikes inside the step.", 4),
+           "stimulus_end_s); for a sweep without a current step (a gap-free recording), all "
+           "its spikes."),
+    Column("firing_rate_hz", "Hz", "spike_count / step duration (the sweep's duration when it "
+           "has no step).", 4),
+    Column("first_spike_latency_ms", "ms", "First threshold time in the step minus onset "
+           "(empty without a step).", 4),
+    Column("mean_isi_ms", "ms", "Mean interval between consecutive spikes inside the step (of "
+           "the whole sweep when it has no step).", 4),
     Column("isi_cv", "", "Standard deviation (ddof=1) over mean of those intervals; needs at "
            "least 2.", 5),
     Column("adaptation_index", "", "Mean over consecutive interval pairs of (ISI[k+1] - ISI[k]) "

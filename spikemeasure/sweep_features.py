@@ -206,8 +206,8 @@ def passive_response(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curr
 
 def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: CurrentStep | None,
                    spike_times_s: np.ndarray, *, baseline_window_ms: float = 100.0,
-                   steady_window_ms: float = 100.0, clipped_spike_count: int = 0
-                   ) -> SweepFeatures:
+                   steady_window_ms: float = 100.0, clipped_spike_count: int = 0,
+                   duration_s: float | None = None) -> SweepFeatures:
     """All features of one sweep.
 
     Parameters
@@ -216,8 +216,8 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
         Raw voltage in mV.
     sampling_rate_hz : float
     step : CurrentStep or None
-        Without a step, nothing step-related can be measured: every step feature is NaN and
-        the spike count 0 (the sampling rate and the clipped-spike count are still given).
+        Without a step (a gap-free recording) the step features are NaN, and the spike count,
+        rate and interval statistics are those of the whole sweep (the latency is NaN).
     spike_times_s : ndarray
         Threshold (or, where unknown, peak) time of each spike.
     baseline_window_ms, steady_window_ms : float, optional
@@ -225,6 +225,9 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
     clipped_spike_count : int, optional
         Spikes of the sweep whose peak is clipped (flag ``clipped_peak`` of
         :func:`~spikemeasure.measurement.measure_spikes`), passed through to the table.
+    duration_s : float, optional
+        The sweep's length, when `voltage_mv` is not all of it (a long recording read in
+        pieces); by default its length.
 
     Returns
     -------
@@ -235,8 +238,15 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
     nan = float("nan")
     rate = float(sampling_rate_hz)
     if step is None:
-        return SweepFeatures(nan, nan, nan, nan, nan, nan, 0, nan, nan, nan, nan, nan, nan,
-                             nan, nan, rate, nan, int(clipped_spike_count))
+        # no current step (a gap-free recording): the firing over the whole sweep
+        length_s = (voltage_mv.size / rate) if duration_s is None else float(duration_s)
+        fire = firing(spike_times_s, CurrentStep(0.0, length_s))
+        fire["first_spike_latency_ms"] = nan
+        return SweepFeatures(
+            stimulus_pa=nan, holding_pa=nan, stimulus_start_s=nan, stimulus_end_s=nan,
+            baseline_mv=nan, baseline_noise_mv=nan, steady_state_mv=nan, min_mv=nan,
+            sag_fraction=nan, sampling_rate_hz=rate, baseline_drift_mv=nan,
+            clipped_spike_count=int(clipped_spike_count), **fire)
     base, noise = baseline(voltage_mv, sampling_rate_hz, step.onset_s, baseline_window_ms)
     drift = baseline_drift(voltage_mv, sampling_rate_hz, step.offset_s, base)
     fire = firing(spike_times_s, step)

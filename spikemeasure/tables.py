@@ -59,7 +59,8 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
         if sweep.is_lazy:
             spikes = measure_in_pieces(sweep.voltage_mv, sweep.sampling_rate_hz, settings)
             features = sweep_features(np.zeros(0), sweep.sampling_rate_hz, None,
-                                      _spike_times(spikes), clipped_spike_count=_clipped(spikes))
+                                      _spike_times(spikes), clipped_spike_count=_clipped(spikes),
+                                      duration_s=sweep.duration_s)
             return SweepResult(sweep, step, spikes, features)
         voltage = np.asarray(sweep.voltage_mv)
         trace = smoothed_trace(voltage, sweep.sampling_rate_hz, settings.smoothing_ms,

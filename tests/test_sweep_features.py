@@ -88,9 +88,24 @@ def test_sweep_features_baseline_and_no_step():
     pre = v[int(0.0 * RATE):int(0.1 * RATE)]
     assert f.baseline_mv == pytest.approx(pre.mean()) and f.baseline_noise_mv == pytest.approx(pre.std())
     none = sweep_features(v, RATE, None, np.array([]))
-    assert np.isnan(none.baseline_mv) and none.spike_count == 0
+    assert np.isnan(none.baseline_mv) and none.spike_count == 0 and none.firing_rate_hz == 0
     with pytest.raises(InvalidSettingError):
         sweep_features(v, RATE, None, np.array([]), baseline_window_ms=0)
+
+
+def test_without_a_step_the_firing_is_that_of_the_whole_sweep():
+    """A gap-free sweep of 0.8 s with spikes every 50 ms from 0.02 s (16 spikes): by
+    arithmetic, 20 Hz, mean ISI 50 ms, CV 0 and adaptation index 0; no latency or step."""
+    v = np.full(int(0.8 * RATE), -65.0)
+    times = 0.02 + 0.05 * np.arange(16)
+    f = sweep_features(v, RATE, None, times)
+    assert f.spike_count == 16 and f.firing_rate_hz == pytest.approx(20.0)
+    assert f.mean_isi_ms == pytest.approx(50.0) and f.isi_cv == pytest.approx(0.0, abs=1e-9)
+    assert f.adaptation_index == pytest.approx(0.0, abs=1e-12)
+    assert np.isnan(f.first_spike_latency_ms) and np.isnan(f.stimulus_pa)
+    # a long sweep read in pieces passes its duration instead of its samples
+    g = sweep_features(np.zeros(0), RATE, None, times, duration_s=1.6)
+    assert g.spike_count == 16 and g.firing_rate_hz == pytest.approx(10.0)
 
 
 class TestBaselineDrift:
