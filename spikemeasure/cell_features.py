@@ -32,6 +32,9 @@ END_FRACTION = 0.02
 HOLDING_TOLERANCE_PA = 1.0
 
 CELL_FLAG_TEXT = {
+    "no_current_steps": "no sweep has a current step (a gap-free recording, or a file without a "
+                        "command channel measured without --step), so resting potential, "
+                        "rheobase, f-I slope, input resistance, time constant and sag are empty",
     "step_sizes_unknown": "the step sizes are unknown (no command channel and no "
                           "--step-sizes), so rheobase, f-I slope, input resistance, time "
                           "constant and sag are empty",
@@ -277,7 +280,8 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
         values["max_firing_rate_hz"] = float(np.nanmax(col["firing_rate_hz"]))
     if not n or not np.isfinite(col["stimulus_pa"]).any():
         if n:
-            flags.append("step_sizes_unknown")
+            flags.append("step_sizes_unknown" if np.isfinite(col["stimulus_start_s"]).any()
+                         else "no_current_steps")
         return CellFeatures(n, resting, flags=tuple(flags), **values)
     stim, count = col["stimulus_pa"], col["spike_count"]
     rb, resolution, k = rheobase(stim, count)
