@@ -126,14 +126,6 @@ def _axes(fig, *rects: tuple[float, float, float, float], sharex=None):
     return out
 
 
-def _take_spikes(spikes, keep: np.ndarray):
-    """The spikes where `keep` is true."""
-    from dataclasses import fields, replace
-
-    values = {f.name: getattr(spikes, f.name)[keep] for f in fields(spikes) if f.name != "flags"}
-    return replace(spikes, flags=tuple(fl for fl, k in zip(spikes.flags, keep) if k), **values)
-
-
 def _lazy_envelope(y, sampling_rate_hz: float, bins: int) -> tuple[np.ndarray, np.ndarray]:
     """:func:`envelope` of a trace left in its file, read a block of whole bins at a time."""
     n = len(y)
@@ -549,7 +541,7 @@ def phase_plot_figure(results: Sequence[SweepResult], cell: CellFeatures | None 
             stop = min(r.sweep.n_samples, shift + int(PHASE_PLOT_LONG_S * rate))
             if s is not None:
                 peaks = s.peak_s * rate
-                s = _take_spikes(s, (peaks >= shift + 0.01 * rate) & (peaks < stop - 0.01 * rate))
+                s = s.subset((peaks >= shift + 0.01 * rate) & (peaks < stop - 0.01 * rate))
             fig.suptitle(_title(name, results, f"phase plot, {chosen} (sweep {r.sweep.index}"
                                                f"{size}), its first {PHASE_PLOT_LONG_S:g} s"))
             voltage = np.asarray(r.sweep.voltage_mv[shift:stop], dtype=float)

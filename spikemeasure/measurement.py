@@ -7,7 +7,7 @@ spike's flags say why.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, fields, replace
 
 import numpy as np
 from scipy.interpolate import CubicSpline
@@ -73,6 +73,13 @@ class SpikeMeasurements:
 
     def __len__(self) -> int:
         return int(self.peak_s.size)
+
+    def subset(self, keep: np.ndarray) -> "SpikeMeasurements":
+        """The spikes where the boolean array `keep` is true."""
+        keep = np.asarray(keep, dtype=bool)
+        values = {f.name: getattr(self, f.name)[keep] for f in fields(self) if f.name != "flags"}
+        return SpikeMeasurements(flags=tuple(fl for fl, k in zip(self.flags, keep) if k),
+                                 **values)
 
     def as_columns(self) -> dict[str, np.ndarray | list]:
         out: dict[str, np.ndarray | list] = {}
@@ -732,14 +739,10 @@ def _concatenate(parts: list[SpikeMeasurements]) -> SpikeMeasurements:
     return SpikeMeasurements(flags=flags, **values)
 
 
-def _take(m: SpikeMeasurements, keep: np.ndarray, shift_s: float) -> SpikeMeasurements:
-    values = {}
-    for f in fields(SpikeMeasurements):
-        if f.name == "flags":
-            continue
-        x = getattr(m, f.name)[keep]
-        values[f.name] = x + shift_s if f.name in ("threshold_s", "peak_s", "trough_s") else x
-    return SpikeMeasurements(flags=tuple(m.flags[k] for k in np.flatnonzero(keep)), **values)
+def _shifted(m: SpikeMeasurements, shift_s: float) -> SpikeMeasurements:
+    """The same spikes with their times moved by `shift_s`."""
+    return replace(m, threshold_s=m.threshold_s + shift_s, peak_s=m.peak_s + shift_s,
+                   trough_s=m.trough_s + shift_s)
 
 
 def measure_in_pieces(voltage_mv, sampling_rate_hz: float,
@@ -805,10 +808,10 @@ def measure_in_pieces(voltage_mv, sampling_rate_hz: float,
         onset = detected.onset_index + lo
         keep = (onset >= start) & (onset < stop)
         if keep.any():
-            parts.append(_take(measure_spikes(trace, detected, settings, None), keep, lo / rate))
+            parts.append(_shifted(measure_spikes(trace, detected, settings, None).subset(keep),
+                                   lo / rate))
     whole = _concatenate(parts)
     isi = np.full(len(whole), np.nan)
     if len(whole) > 1:
         isi[1:] = np.diff(whole.threshold_s) * 1e3
-    return SpikeMeasurements(**{**{f.name: getattr(whole, f.name)
-                                   for f in fields(SpikeMeasurements)}, "isi_ms": isi})
+    return replace(whole, isi_ms=isi)
