@@ -100,9 +100,9 @@ def _run_parameters(ctx: click.Context, paths, config_path, values: dict):
     """Command line over the project file over the defaults (see spikemeasure.config)."""
     from click.core import ParameterSource
 
-    from .config import find_config_file, load_config, merge_parameters
+    from .config import find_project_file, load_config, merge_parameters
 
-    path = config_path or find_config_file(list(paths))
+    path = config_path or find_project_file(list(paths))
     file_values = load_config(path) if path else {}
     given = {_FILE_KEYS[name]: value for name, value in values.items()
              if name in _FILE_KEYS and ctx.get_parameter_source(name) == ParameterSource.COMMANDLINE}

@@ -185,7 +185,8 @@ class RunParameters:
 
 
 def find_config_file(paths: Sequence[str | os.PathLike]) -> Path | None:
-    """The project file of a run: ``spikemeasure.toml`` in the first folder given.
+    """``spikemeasure.toml`` in the first folder given (the commands look in the current folder
+    first: :func:`find_project_file`).
 
     Parameters
     ----------
@@ -548,7 +549,7 @@ class CheckSettings:
 
 def find_project_file(paths: Sequence[str | os.PathLike] = (),
                       cwd: str | os.PathLike | None = None) -> Path | None:
-    """The project file of ``check`` and ``accept``: in the current folder, else as for ``measure``.
+    """The project file of a command: in the current folder, else in the first folder given.
 
     Parameters
     ----------

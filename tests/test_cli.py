@@ -228,6 +228,20 @@ class TestProjectFile:
         assert record["parameters"]["peak_window_ms"] == 5.0        # default
         assert record["config_file"].endswith("spikemeasure.toml")
 
+    def test_found_in_the_current_folder_first(self, cell_folder, tmp_path, monkeypatch):
+        """As check and accept do: the file of the folder run from (a lab repository's top)
+        comes before that of the recording folder."""
+        (tmp_path / "spikemeasure.toml").write_text("[measure]\nmin_rise_mv = 22.0\n")
+        monkeypatch.chdir(tmp_path)
+        r = run(["measure", "lab", "--out", "o"])
+        assert r.exit_code == 0, r.output
+        record = json.loads((tmp_path / "o" / "run.json").read_text())
+        assert record["parameters"]["min_rise_mv"] == 22.0
+        (cell_folder / "spikemeasure.toml").write_text("[measure]\nmin_rise_mv = 30.0\n")
+        r = run(["measure", "lab", "--out", "o2"])
+        record = json.loads((tmp_path / "o2" / "run.json").read_text())
+        assert record["parameters"]["min_rise_mv"] == 22.0
+
     def test_unknown_key_and_bad_value(self, cell_folder, tmp_path):
         config = tmp_path / "lab.toml"
         config.write_text("[measure]\nonset_rate = 30.0\n")
