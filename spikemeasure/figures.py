@@ -26,6 +26,8 @@ import io
 import math
 import os
 import sys
+import threading
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable, Sequence
 
@@ -62,6 +64,8 @@ BATCH_FEATURES = (
 )
 #: A sweep longer than twice this many samples is drawn as a min/max envelope of this many bins.
 ENVELOPE_BINS = 700
+#: The sweeps of the traces figure (all but the rheobase sweep) are bands at least this thick.
+_TRACE_LINE_PT = 0.6
 DPI = 110
 _WIDTH_IN = 8.0
 _THRESHOLD_COLOUR = "#e66101"
@@ -90,19 +94,74 @@ def _mpl():
 
 
 def _new_figure(height_in: float, new_figure: Callable | None, layout: str | None = None):
-    """A figure of the house size on the Agg canvas (or from `new_figure`, for a window).
+    """A figure of the house size on the Agg canvas that draws each distinct text once
+    (:class:`~spikemeasure.figure_canvas.TextCachingCanvas`), or from `new_figure`, for a
+    window.
 
     Cell figures have fixed margins (the same look for every cell, and no layout passes,
     which would cost more than the drawing); the batch figure uses constrained layout.
     """
     if new_figure is not None:
         return new_figure(figsize=(_WIDTH_IN, height_in), dpi=DPI, layout=layout)
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
+    from .figure_canvas import TextCachingCanvas
+
     fig = Figure(figsize=(_WIDTH_IN, height_in), dpi=DPI, layout=layout)
-    FigureCanvasAgg(fig)
+    TextCachingCanvas(fig)
     return fig
+
+
+@dataclass
+class _Kept:
+    """A cell figure and its axes, kept to be drawn again for the next cell (`reuse`)."""
+    fig: object
+    axes: list
+    own_x_locator: list
+    colorbar: object = None
+
+
+def _cell_figure(kind: str, height_in: float, rects: Sequence[tuple], new_figure,
+                 reuse: dict | None, share_x: bool = False) -> _Kept:
+    """The figure of one kind of cell figure with its axes at `rects` (the later ones sharing
+    the first one's x axis when `share_x`): taken from `reuse` and emptied when it holds one,
+    otherwise made (and put in `reuse`, when given).
+
+    Emptying keeps what costs most to build and is the same for every cell (the axes, their
+    ticks and labels) and removes everything drawn from the data, restoring the state a new
+    figure starts in; ``tests/test_figures.py`` checks that a reused figure draws the same
+    pixels as a new one.
+    """
+    if reuse is not None and kind in reuse:
+        kept = reuse[kind]
+        _empty(kept)
+        return kept
+    fig = _new_figure(height_in, new_figure)
+    axes = []
+    for k, rect in enumerate(rects):
+        axes += _axes(fig, rect, sharex=axes[0] if share_x and k else None)
+    kept = _Kept(fig, axes, [not (share_x and k) for k in range(len(rects))])
+    if reuse is not None:
+        reuse[kind] = kept
+    return kept
+
+
+def _empty(kept: _Kept) -> None:
+    """Remove what a cell drew on a kept figure and restore a new figure's axes state."""
+    mpl = _mpl()
+    for ax, own_x in zip(kept.axes, kept.own_x_locator):
+        for artist in [*ax.lines, *ax.collections, *ax.texts, *ax.patches, *ax.images]:
+            artist.remove()
+        if ax.get_legend() is not None:
+            ax.get_legend().remove()
+        for loc in ("left", "center", "right"):
+            ax.set_title("", loc=loc)
+        ax.relim()
+        ax.set_autoscale_on(True)
+        ax.margins(mpl.rcParams["axes.xmargin"], mpl.rcParams["axes.ymargin"])
+        _house_locators(ax, x=own_x)
+    if kept.colorbar is not None:
+        kept.colorbar.ax.set_visible(False)
 
 
 def _legend(ax, **kw) -> None:
@@ -114,16 +173,21 @@ def _legend(ax, **kw) -> None:
 def _axes(fig, *rects: tuple[float, float, float, float], sharex=None):
     """Axes at fixed positions (left, bottom, width, height in figure fractions), with at
     most about six ticks an axis: enough to read, and ticks are the dearest thing to draw."""
-    from matplotlib.ticker import MaxNLocator
-
     out = []
     for rect in rects:
         ax = fig.add_axes(rect, sharex=sharex)
-        ax.yaxis.set_major_locator(MaxNLocator(nbins=5, steps=[1, 2, 2.5, 5, 10]))
-        if sharex is None:
-            ax.xaxis.set_major_locator(MaxNLocator(nbins=6, steps=[1, 2, 2.5, 5, 10]))
+        _house_locators(ax, x=sharex is None)
         out.append(ax)
     return out
+
+
+def _house_locators(ax, x: bool = True) -> None:
+    """At most about six ticks on the y axis (and on the x axis, when `x`)."""
+    from matplotlib.ticker import MaxNLocator
+
+    ax.yaxis.set_major_locator(MaxNLocator(nbins=5, steps=[1, 2, 2.5, 5, 10]))
+    if x:
+        ax.xaxis.set_major_locator(MaxNLocator(nbins=6, steps=[1, 2, 2.5, 5, 10]))
 
 
 def _lazy_envelope(y, sampling_rate_hz: float, bins: int) -> tuple[np.ndarray, np.ndarray]:
@@ -259,7 +323,8 @@ def _sweep_colours(measured: Sequence[SweepResult]):
         if hi == lo:
             lo, hi = lo - 1.0, hi + 1.0
         norm = mpl.colors.Normalize(lo, hi)
-        colours = [cmap(norm(s)) if np.isfinite(s) else _UNKNOWN_COLOUR for s in stim]
+        mapped = cmap(norm(np.where(known, stim, lo)))  # one call for all sweeps
+        colours = [tuple(c) if ok else _UNKNOWN_COLOUR for c, ok in zip(mapped, known)]
         return colours, cmap, norm
     return [_UNKNOWN_COLOUR] * len(measured), None, None
 
@@ -280,11 +345,38 @@ def _command_trace(r: SweepResult) -> tuple[np.ndarray, np.ndarray, bool] | None
     return None
 
 
+def _band(t: np.ndarray, values: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(t_s, low, high) of a trace from :func:`envelope`: each bin's minimum and maximum at
+    the mean time of the two, between the first and the last sample; a trace drawn sample by
+    sample is its own low and high."""
+    if values.size < 4 or values.size % 2:
+        return t, values, values
+    pairs = values[1:-1].reshape(-1, 2)
+    times = np.concatenate([t[:1], t[1:-1].reshape(-1, 2).mean(axis=1), t[-1:]])
+    low = np.concatenate([values[:1], pairs.min(axis=1), values[-1:]])
+    high = np.concatenate([values[:1], pairs.max(axis=1), values[-1:]])
+    return times, low, high
+
+
+def _band_outline(t: np.ndarray, low: np.ndarray, high: np.ndarray,
+                  thinnest: float = 0.0) -> np.ndarray:
+    """The polygon between `low` and `high`, widened symmetrically where it is thinner than
+    `thinnest` (data units).
+
+    A band filled once costs a third of stroking the min/max zigzag it replaces (Agg strokes
+    every up and down of the zigzag) and looks the same at a bin per pixel; ENVELOPE_BINS
+    bins span the axes' width.
+    """
+    widen = np.maximum(0.0, (thinnest - (high - low)) / 2.0)
+    return np.concatenate([np.column_stack([t, low - widen]),
+                           np.column_stack([t[::-1], (high + widen)[::-1]])])
+
+
 # --------------------------------------------------------------------------- cell figures
 
 def traces_figure(results: Sequence[SweepResult], cell: CellFeatures | None = None, *,
-                  name: str | None = None,
-                  new_figure: Callable | None = None):
+                  name: str | None = None, new_figure: Callable | None = None,
+                  reuse: dict | None = None):
     """Every sweep's voltage over time with the command current beneath.
 
     Parameters
@@ -296,6 +388,11 @@ def traces_figure(results: Sequence[SweepResult], cell: CellFeatures | None = No
     new_figure : callable, optional
         Makes the figure (``matplotlib.pyplot.figure`` to show it in a window); default an Agg
         figure.
+    reuse : dict, optional
+        Figures kept from an earlier call, for drawing many cells in a row: the figure of this
+        kind is taken from it, emptied and drawn again (several times quicker than building
+        it), or made and put in it. The same Figure object is then returned for every cell,
+        so write or copy it before the next call. Default: a new figure.
 
     Returns
     -------
@@ -305,14 +402,14 @@ def traces_figure(results: Sequence[SweepResult], cell: CellFeatures | None = No
         without a connecting line, labelled ``threshold``, ``peak`` and ``trough``, at the
         exact ``threshold_s, threshold_mv`` (and so on) of every spike of every sweep.
     """
-    from matplotlib.collections import LineCollection
+    from matplotlib.collections import LineCollection, PolyCollection
 
     cell = cell_summary(list(results)) if cell is None else cell
     measured = _measured(results)
     with _mpl().rc_context(_STYLE):
-        fig = _new_figure(6.0, new_figure)
-        ax_v, = _axes(fig, (0.10, 0.335, 0.75, 0.575))
-        ax_i, = _axes(fig, (0.10, 0.085, 0.75, 0.2), sharex=ax_v)
+        kept = _cell_figure("traces", 6.0, [(0.10, 0.335, 0.75, 0.575), (0.10, 0.085, 0.75, 0.2)],
+                            new_figure, reuse, share_x=True)
+        fig, (ax_v, ax_i) = kept.fig, kept.axes
         ax_v.tick_params(labelbottom=False)
         fig.suptitle(_title(name, results, "sweeps"), y=0.985)
         ax_v.set_ylabel("membrane voltage (mV)")
@@ -325,14 +422,13 @@ def traces_figure(results: Sequence[SweepResult], cell: CellFeatures | None = No
         rheo = _rheobase_result(results, cell)
         order = np.argsort([(_stimulus(r) if np.isfinite(_stimulus(r)) else -np.inf)
                             for r in measured], kind="stable")
-        v_lines, v_cols, i_lines, i_cols = [], [], [], []
+        v_bands, v_cols, i_lines, i_cols = [], [], [], []
         drawn_command = recorded_any = False
         for k in order:
             r = measured[k]
             if r is rheo:
                 continue
-            t, v = envelope(r.sweep.voltage_mv, r.sweep.sampling_rate_hz)
-            v_lines.append(np.column_stack([t, v]))
+            v_bands.append(_band(*envelope(r.sweep.voltage_mv, r.sweep.sampling_rate_hz)))
             v_cols.append(colours[k])
             cmd = _command_trace(r)
             if cmd is not None:
@@ -340,7 +436,9 @@ def traces_figure(results: Sequence[SweepResult], cell: CellFeatures | None = No
                 i_cols.append(colours[k])
                 drawn_command = True
                 recorded_any |= cmd[2]
-        ax_v.add_collection(LineCollection(v_lines, colors=v_cols, linewidths=0.6, alpha=0.85))
+        bands = PolyCollection([_band_outline(*band) for band in v_bands], facecolors=v_cols,
+                               edgecolors="none", linewidths=0, alpha=0.85)
+        ax_v.add_collection(bands)
         ax_i.add_collection(LineCollection(i_lines, colors=i_cols, linewidths=0.8))
         if rheo is not None:
             t, v = envelope(rheo.sweep.voltage_mv, rheo.sweep.sampling_rate_hz)
@@ -354,6 +452,13 @@ def traces_figure(results: Sequence[SweepResult], cell: CellFeatures | None = No
         _spike_markers(ax_v, measured)
         ax_v.autoscale_view()
         ax_i.autoscale_view()
+        if v_bands:  # now that the scale is known: every band at least a thin line thick
+            bottom, top = ax_v.get_ylim()
+            mv_per_px = (top - bottom) / (ax_v.get_position().height * fig.get_figheight()
+                                          * fig.dpi)
+            thinnest_mv = _TRACE_LINE_PT / 72.0 * fig.dpi * mv_per_px
+            bands.set_verts([_band_outline(*band, thinnest=thinnest_mv) for band in v_bands])
+            ax_v.set_ylim(bottom, top)
         if not drawn_command:
             gap_free = any(r.sweep.is_lazy for r in measured)
             _note(ax_i, "gap-free recording: no current step" if gap_free else
@@ -365,9 +470,17 @@ def traces_figure(results: Sequence[SweepResult], cell: CellFeatures | None = No
                     borderaxespad=0.2)
         steps = {_stimulus(r) for r in measured if np.isfinite(_stimulus(r))}
         if cmap is not None and len(steps) > 1:  # one step size needs no colour key
-            bar = fig.colorbar(_mpl().cm.ScalarMappable(norm=norm, cmap=cmap),
-                               cax=fig.add_axes((0.875, 0.085, 0.018, 0.825)))
-            bar.set_label("step size (pA)")
+            mappable = _mpl().cm.ScalarMappable(norm=norm, cmap=cmap)
+            if kept.colorbar is None:
+                kept.colorbar = fig.colorbar(mappable,
+                                             cax=fig.add_axes((0.875, 0.085, 0.018, 0.825)))
+                kept.colorbar.set_label("step size (pA)")
+            else:
+                bar = kept.colorbar
+                if (bar.norm.vmin, bar.norm.vmax, bar.cmap.name) != (norm.vmin, norm.vmax,
+                                                                     cmap.name):
+                    bar.update_normal(mappable)  # costly: only when the step range changed
+                bar.ax.set_visible(True)
     return fig
 
 
@@ -409,12 +522,13 @@ def _crossings(v: np.ndarray, level: float, peak: int) -> tuple[float, float]:
 
 
 def first_spike_figure(results: Sequence[SweepResult], cell: CellFeatures | None = None, *,
-                       name: str | None = None, new_figure: Callable | None = None):
+                       name: str | None = None, new_figure: Callable | None = None,
+                       reuse: dict | None = None):
     """The first spike of the rheobase sweep up close, its measurements drawn and labelled.
 
     Parameters
     ----------
-    results, cell, new_figure
+    results, cell, new_figure, reuse
         As for :func:`traces_figure`.
 
     Returns
@@ -429,8 +543,8 @@ def first_spike_figure(results: Sequence[SweepResult], cell: CellFeatures | None
     cell = cell_summary(list(results)) if cell is None else cell
     r, k, chosen = _spike_sweep(results, cell)
     with _mpl().rc_context(_STYLE):
-        fig = _new_figure(4.2, new_figure)
-        ax, = _axes(fig, (0.10, 0.12, 0.86, 0.77))
+        kept = _cell_figure("first_spike", 4.2, [(0.10, 0.12, 0.86, 0.77)], new_figure, reuse)
+        fig, (ax,) = kept.fig, kept.axes
         ax.set_xlabel("time from threshold (ms)")
         ax.set_ylabel("membrane voltage (mV)")
         if r is None:
@@ -494,12 +608,13 @@ def first_spike_figure(results: Sequence[SweepResult], cell: CellFeatures | None
 
 def phase_plot_figure(results: Sequence[SweepResult], cell: CellFeatures | None = None,
                       settings: DetectionSettings = DetectionSettings(), *,
-                      name: str | None = None, new_figure: Callable | None = None):
+                      name: str | None = None, new_figure: Callable | None = None,
+                      reuse: dict | None = None):
     """dV/dt against V for the spikes of the rheobase sweep, with the onset rate marked.
 
     Parameters
     ----------
-    results, cell, new_figure
+    results, cell, new_figure, reuse
         As for :func:`traces_figure`.
     settings : DetectionSettings, optional
         The run's settings: dV/dt is the Savitzky-Golay derivative of detection
@@ -517,8 +632,8 @@ def phase_plot_figure(results: Sequence[SweepResult], cell: CellFeatures | None 
     r, _, chosen = _spike_sweep(results, cell)
     measured = _measured(results)
     with _mpl().rc_context(_STYLE):
-        fig = _new_figure(4.2, new_figure)
-        ax, = _axes(fig, (0.10, 0.12, 0.86, 0.77))
+        kept = _cell_figure("phase_plot", 4.2, [(0.10, 0.12, 0.86, 0.77)], new_figure, reuse)
+        fig, (ax,) = kept.fig, kept.axes
         ax.set_xlabel("membrane voltage (mV)")
         ax.set_ylabel("dV/dt (V/s)")
         if not measured:
@@ -578,12 +693,13 @@ def phase_plot_figure(results: Sequence[SweepResult], cell: CellFeatures | None 
 
 
 def step_response_figure(results: Sequence[SweepResult], cell: CellFeatures | None = None, *,
-                         name: str | None = None, new_figure: Callable | None = None):
+                         name: str | None = None, new_figure: Callable | None = None,
+                         reuse: dict | None = None):
     """Firing rate and steady-state deflection against step size.
 
     Parameters
     ----------
-    results, cell, new_figure
+    results, cell, new_figure, reuse
         As for :func:`traces_figure`.
 
     Returns
@@ -600,8 +716,10 @@ def step_response_figure(results: Sequence[SweepResult], cell: CellFeatures | No
     cell = cell_summary(list(results)) if cell is None else cell
     measured = _measured(results)
     with _mpl().rc_context(_STYLE):
-        fig = _new_figure(3.6, new_figure)
-        ax_f, ax_v = _axes(fig, (0.09, 0.14, 0.375, 0.73), (0.6, 0.14, 0.375, 0.73))
+        kept = _cell_figure("step_responses", 3.6,
+                            [(0.09, 0.14, 0.375, 0.73), (0.6, 0.14, 0.375, 0.73)], new_figure,
+                            reuse)
+        fig, (ax_f, ax_v) = kept.fig, kept.axes
         fig.suptitle(_title(name, results, "responses to the steps"))
         ax_f.set_xlabel("step size (pA)")
         ax_f.set_ylabel("firing rate (Hz)")
@@ -656,11 +774,13 @@ def step_response_figure(results: Sequence[SweepResult], cell: CellFeatures | No
 
 def cell_figures(results: Sequence[SweepResult], cell: CellFeatures | None = None,
                  settings: DetectionSettings = DetectionSettings(), *,
-                 name: str | None = None, new_figure: Callable | None = None) -> dict:
+                 name: str | None = None, new_figure: Callable | None = None,
+                 reuse: dict | None = None) -> dict:
     """All figures of one cell, keyed by :data:`CELL_FIGURE_NAMES`, in that order; `name`
-    (default: the sweeps' file) starts every title."""
+    (default: the sweeps' file) starts every title. `new_figure` and `reuse` as for
+    :func:`traces_figure`."""
     cell = cell_summary(list(results)) if cell is None else cell
-    kw = {"name": name, "new_figure": new_figure}
+    kw = {"name": name, "new_figure": new_figure, "reuse": reuse}
     return {"traces": traces_figure(results, cell, **kw),
             "first_spike": first_spike_figure(results, cell, **kw),
             "phase_plot": phase_plot_figure(results, cell, settings, **kw),
@@ -677,12 +797,32 @@ def figure_folder_name(shown: str) -> str:
 
 
 def _save(fig, path: Path, fmt: str) -> None:
+    """Write `fig` to `path` atomically: PNG from the Agg canvas' pixels, SVG and PDF by
+    matplotlib's own canvases; no dates or software names, so reruns write the same bytes."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    if fmt == "png" and isinstance(fig.canvas, FigureCanvasAgg) and fig.dpi == DPI:
+        from .figure_canvas import png_bytes
+
+        fig.canvas.draw()
+        write_bytes_atomic(path, png_bytes(np.asarray(fig.canvas.buffer_rgba()), dpi=DPI))
+        return
     buffer = io.BytesIO()
     metadata = {"png": {"Software": None}, "svg": {"Date": None},
                 "pdf": {"CreationDate": None}}[fmt]
-    extra = {"pil_kwargs": {"compress_level": 1}} if fmt == "png" else {}
-    fig.savefig(buffer, format=fmt, dpi=DPI, metadata=metadata, **extra)
+    fig.savefig(buffer, format=fmt, dpi=DPI, metadata=metadata)
     write_bytes_atomic(path, buffer.getvalue())
+
+
+_kept_figures = threading.local()
+
+
+def _kept_for_this_thread() -> dict:
+    """The cell figures this thread drew last, to be drawn again for its next cell (workers
+    of a Dask cluster may draw in several threads of one process)."""
+    if not hasattr(_kept_figures, "figures"):
+        _kept_figures.figures = {}
+    return _kept_figures.figures
 
 
 def write_cell_figures(recording: Recording, results: Sequence[SweepResult],
@@ -709,12 +849,21 @@ def write_cell_figures(recording: Recording, results: Sequence[SweepResult],
     -------
     list of str
         File names in `folder`, in the order of :data:`CELL_FIGURE_NAMES`.
+
+    Notes
+    -----
+    The figures are drawn on those this thread drew for its previous cell (`reuse` of
+    :func:`cell_figures`), emptied first, and texts are rendered once per process
+    (:mod:`spikemeasure.figure_canvas`): in a run over many cells, each cell's figures cost a
+    fraction of building them anew (``docs/benchmark.md``).
     """
     if fmt not in FIGURE_FORMATS:
         raise ValueError(f"`fmt` must be one of {', '.join(FIGURE_FORMATS)} (got {fmt!r})")
     folder = Path(folder)
     names = []
-    for stem, fig in cell_figures(results, cell, settings, name=recording.path).items():
+    figures = cell_figures(results, cell, settings, name=recording.path,
+                           reuse=_kept_for_this_thread())
+    for stem, fig in figures.items():
         name = f"{stem}.{fmt}"
         _save(fig, folder / name, fmt)
         names.append(name)

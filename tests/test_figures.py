@@ -7,6 +7,7 @@ import warnings
 import numpy as np
 import pytest
 from click.testing import CliRunner
+from PIL import Image
 from scipy.signal import peak_prominences, peak_widths
 
 from conftest import (RC_R_GOHM as R_GOHM, RC_RATE_HZ, RC_SPIKES_PER_STEP as SPIKES_PER_STEP,
@@ -117,8 +118,34 @@ class TestTracesFigure:
         assert np.array_equal(line.get_ydata(),
                               figures.envelope(sweep.voltage_mv, RATE)[1])
         (others,) = ax.collections
-        assert line.get_linewidth() > max(others.get_linewidths())
-        assert len(others.get_segments()) == len(STEPS_PA) - 1
+        assert len(others.get_paths()) == len(STEPS_PA) - 1
+        # the other sweeps are bands thinner than the rheobase line where the trace is flat
+        drawn = ax.transData.transform([[0, 0], [0, 1]])
+        px_per_mv = drawn[1, 1] - drawn[0, 1]
+        line_px = line.get_linewidth() / 72 * ax.figure.dpi
+        flat = [_band_thickness_px(p, px_per_mv) for p in others.get_paths()]
+        assert max(np.median(f) for f in flat) < line_px
+
+    def test_each_band_covers_its_sweeps_extremes_bin_by_bin(self, cell):
+        ax = cell["figures"]["traces"].axes[0]
+        rheobase = cell["cell"].rheobase_pa
+        sweeps = [r.sweep for r in sorted(cell["results"], key=lambda r: r.features.stimulus_pa)
+                  if r.features.stimulus_pa != rheobase]
+        drawn = ax.transData.transform([[0, 0], [0, 1]])
+        widen_mv = (figures._TRACE_LINE_PT / 72 * ax.figure.dpi / (drawn[1, 1] - drawn[0, 1])
+                    / 2 + 1e-9)
+        for path, sweep in zip(ax.collections[0].get_paths(), sweeps):
+            v = sweep.voltage_mv
+            per = -(-v.size // figures.ENVELOPE_BINS)
+            bins = [v[k:k + per] for k in range(0, v.size, per)]
+            outline = _outline(path)
+            half = len(outline) // 2
+            low, high = outline[1:half - 1, 1], outline[half + 1:-1, 1][::-1]
+            # numpy's own reductions over the same bins: inside the band, which is widened
+            # by at most half the thinnest line on each side
+            mins, maxs = np.array([b.min() for b in bins]), np.array([b.max() for b in bins])
+            assert np.all(low <= mins) and np.all(high >= maxs)
+            assert np.all(low >= mins - widen_mv) and np.all(high <= maxs + widen_mv)
 
     def test_colours_follow_step_size(self, cell):
         fig = cell["figures"]["traces"]
@@ -136,6 +163,20 @@ class TestTracesFigure:
             inside = ((points[:, 0] > box.x0) & (points[:, 0] < box.x1)
                       & (points[:, 1] > box.y0) & (points[:, 1] < box.y1))
             assert not inside.any(), what
+
+
+def _outline(path):
+    """A band's vertices without the closing one PolyCollection adds."""
+    from matplotlib.path import Path
+
+    closed = path.codes is not None and path.codes[-1] == Path.CLOSEPOLY
+    return path.vertices[:-1] if closed else path.vertices
+
+
+def _band_thickness_px(path, px_per_mv):
+    outline = _outline(path)
+    half = len(outline) // 2
+    return (outline[half:, 1][::-1] - outline[:half, 1]) * px_per_mv
 
 
 class TestFirstSpikeFigure:
@@ -242,6 +283,38 @@ class TestAwkwardCells:
         assert step[:, 1].max() == 60.0
         assert step[2, 0] == ONSET_S and step[4, 0] == OFFSET_S
         assert "no command channel" in ax.get_title(loc="left")
+
+
+def _pixels(fig):
+    fig.canvas.draw()
+    return np.asarray(fig.canvas.buffer_rgba())[..., :3].copy()
+
+
+class TestReusedFigures:
+    """write_cell_figures draws each cell on the figures of the previous one (``reuse``)."""
+
+    def test_a_reused_figure_draws_the_pixels_of_a_new_one(self, cell, odd_cells):
+        cases = {"rc_cell.nix": cell, **odd_cells}
+        new = {name: {stem: _pixels(fig) for stem, fig in case["figures"].items()}
+               for name, case in cases.items()}
+        kept = {}
+        names = list(cases)
+        # every cell after every other: spikes or none, one step (no colour bar) or many,
+        # a recorded command or one given on the command line
+        for name in names + names[::-1] + names[1::2] + names[::2]:
+            drawn = figures.cell_figures(cases[name]["results"], name=name, reuse=kept)
+            for stem, fig in drawn.items():
+                assert fig is kept[stem].fig
+                assert np.array_equal(_pixels(fig), new[name][stem]), (name, stem)
+
+    def test_the_png_written_is_the_figure_drawn(self, cell, tmp_path):
+        written = figures.write_cell_figures(cell["recording"], cell["results"], tmp_path,
+                                             "png", cell=cell["cell"])
+        for stem, file in zip(figures.CELL_FIGURE_NAMES, written):
+            with Image.open(tmp_path / file) as image:  # Pillow's PNG decoder
+                assert image.info["dpi"] == pytest.approx((figures.DPI, figures.DPI), abs=0.01)
+                assert np.array_equal(np.asarray(image.convert("RGB")),
+                                      _pixels(cell["figures"][stem]))
 
 
 def _drawn_texts(fig):
