@@ -1,21 +1,29 @@
 """Time to draw a cell's figures, as a ratio to the time to measure the same cell, in one run.
 
-Usage:  python benchmarks/benchmark_figures.py [--sweeps 30] [--sweep-s 1.0] [--repeats 3]
+Usage:  python benchmarks/benchmark_figures.py [--cells 6] [--sweeps 30] [--sweep-s 1.0]
+                                               [--repeats 3]
 
-1. Simulates a 30-sweep step series of the adapting cortical model (Pospischil et al. 2008;
-   spikemeasure.simulation), 50 kHz, 0.2 mV noise, steps from -100 pA by 20 pA, and writes it
-   as NWB with pynwb's intracellular API.
-2. Baseline: measuring the cell as a run's per-file task does without figures: read the file,
-   measure every sweep, summarize the cell (read_recording, measure_recording, cell_summary).
-3. Figures: write_cell_figures on the same results, in PNG, SVG and PDF, as the per-file task
-   does with figures on.
-Times are the best of `--repeats` runs each; the first figure call (which also imports
-matplotlib, once per process) is reported on its own. Prints JSON and writes it to
-benchmarks/output/benchmark_figures.json.
+1. Simulates two 30-sweep step series of the adapting cortical model (Pospischil et al. 2008;
+   spikemeasure.simulation), 50 kHz, steps from -100 pA by 20 pA and from -150 pA by 25 pA,
+   and writes `--cells` NWB files with pynwb's intracellular API, the two series taking turns,
+   each file with its own 0.2 mV of measurement noise. Consecutive cells therefore differ in
+   their values, their step range (colour bar, f-I axes) and their file name (titles), as the
+   cells of a folder do.
+2. Baseline: measuring each cell as a run's per-file task does without figures: read the
+   file, measure every sweep, summarize the cell (read_recording, measure_recording,
+   cell_summary); best of `--repeats` per cell, averaged over the cells.
+3. Figures in a worker that has drawn cells before (the usual case in a run): every cell's
+   write_cell_figures once, one after the other, under names not drawn before in the process,
+   so no title is already rendered; the best of `--repeats` such rounds, per cell, in PNG, SVG
+   and PDF.
+4. Figures of the first cell a worker draws: the kept figures and the rendered texts
+   forgotten before each cell (the matplotlib import excluded, reported on its own).
+Prints JSON and writes it to benchmarks/output/benchmark_figures.json.
 """
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import datetime
 import json
 import tempfile
@@ -26,30 +34,35 @@ from pathlib import Path
 import numpy as np
 
 RATE_HZ = 50_000.0
+PROTOCOLS = ((-100.0, 20.0), (-150.0, 25.0))  # first step and increment, pA
 
 
-def write_cell(path: Path, sweeps: int, sweep_s: float) -> int:
+def simulate(sweeps: int, sweep_s: float, first_pa: float, step_pa: float):
+    from spikemeasure.simulation import simulate_current_steps
+
+    steps = first_pa + step_pa * np.arange(sweeps)
+    return simulate_current_steps("cortical_adapting", steps, sampling_rate_hz=RATE_HZ,
+                                  duration_s=sweep_s, step_start_s=0.1 * sweep_s,
+                                  step_end_s=0.8 * sweep_s, noise_mv=0.0)
+
+
+def write_cell(path: Path, voltage_mv: np.ndarray, command_pa: np.ndarray) -> None:
     from pynwb import NWBHDF5IO, NWBFile
     from pynwb.icephys import CurrentClampSeries, CurrentClampStimulusSeries
 
-    from spikemeasure.simulation import simulate_current_steps
-
-    steps = -100.0 + 20.0 * np.arange(sweeps)
-    sim = simulate_current_steps("cortical_adapting", steps, sampling_rate_hz=RATE_HZ,
-                                 duration_s=sweep_s, step_start_s=0.1 * sweep_s,
-                                 step_end_s=0.8 * sweep_s, noise_mv=0.2, seed=5)
-    nwb = NWBFile(session_description="figure benchmark", identifier="figure-benchmark",
+    nwb = NWBFile(session_description="figure benchmark", identifier=path.stem,
                   session_start_time=datetime.datetime(2026, 1, 1, tzinfo=datetime.timezone.utc))
     device = nwb.create_device(name="amplifier")
     electrode = nwb.create_icephys_electrode(name="electrode", description="benchmark",
                                              device=device)
-    for k in range(sweeps):
-        start = float(k) * 3 * sweep_s
+    duration_s = voltage_mv.shape[1] / RATE_HZ
+    for k in range(voltage_mv.shape[0]):
+        start = float(k) * 3 * duration_s
         response = CurrentClampSeries(
-            name=f"voltage_{k}", data=sim.voltage_mv[k].astype(np.float32), electrode=electrode,
+            name=f"voltage_{k}", data=voltage_mv[k].astype(np.float32), electrode=electrode,
             gain=1.0, rate=RATE_HZ, starting_time=start, sweep_number=k, conversion=1e-3)
         stimulus = CurrentClampStimulusSeries(
-            name=f"command_{k}", data=sim.command_pa[k].astype(np.float32),
+            name=f"command_{k}", data=command_pa[k].astype(np.float32),
             electrode=electrode, gain=1.0, rate=RATE_HZ, starting_time=start, sweep_number=k,
             conversion=1e-12)
         nwb.add_intracellular_recording(electrode=electrode, stimulus=stimulus,
@@ -58,7 +71,6 @@ def write_cell(path: Path, sweeps: int, sweep_s: float) -> int:
         warnings.simplefilter("ignore")
         with NWBHDF5IO(str(path), "w") as io:
             io.write(nwb)
-    return int(sim.voltage_mv.size)
 
 
 def best(fn, repeats: int) -> float:
@@ -72,6 +84,7 @@ def best(fn, repeats: int) -> float:
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--cells", type=int, default=6)
     parser.add_argument("--sweeps", type=int, default=30)
     parser.add_argument("--sweep-s", type=float, default=1.0)
     parser.add_argument("--repeats", type=int, default=3)
@@ -80,35 +93,68 @@ def main() -> None:
     from spikemeasure.tables import cell_summary, measure_recording
 
     with tempfile.TemporaryDirectory() as tmp:
-        path = Path(tmp) / "cell_30_sweeps.nwb"
-        samples = write_cell(path, args.sweeps, args.sweep_s)
-        state = {}
+        tmp = Path(tmp)
+        series = [simulate(args.sweeps, args.sweep_s, *p) for p in PROTOCOLS]
+        paths = []
+        for k in range(args.cells):
+            sim = series[k % len(series)]
+            noise = np.random.default_rng(100 + k).normal(0.0, 0.2, sim.voltage_mv.shape)
+            paths.append(tmp / f"cell_{k + 1:02d}.nwb")
+            write_cell(paths[-1], sim.voltage_mv + noise, sim.command_pa)
+        samples = int(series[0].voltage_mv.size)
 
-        def measure():
+        measured = {}
+
+        def measure(path: Path):
             recording = read_recording(path, shown_as=path.name)
             results = measure_recording(recording)
-            state.update(recording=recording, results=results, cell=cell_summary(results))
+            measured[path] = (recording, results, cell_summary(results))
 
-        measure()  # warm: imports, file cache
-        t_measure = best(measure, args.repeats)
+        for path in paths:
+            measure(path)  # warm: imports, file cache
+        t_measure = float(np.mean([best(lambda: measure(p), args.repeats) for p in paths]))
+        spikes = float(np.mean([sum(len(r.spikes) for r in results if r.spikes is not None)
+                                for _, results, _ in measured.values()]))
+
         start = time.perf_counter()
-        from spikemeasure.figures import write_cell_figures
+        from spikemeasure import figure_canvas, figures
 
-        write_cell_figures(state["recording"], state["results"], Path(tmp) / "first", "png",
-                           cell=state["cell"])
-        t_first = time.perf_counter() - start
-        t_fig = {}
+        t_import = time.perf_counter() - start
+        rounds = iter(range(10 ** 6))
+
+        def draw_all(fmt: str, cold: bool) -> list[float]:
+            """Seconds per cell for one round over all cells, each under a new name."""
+            r = next(rounds)
+            times = []
+            for path in paths:
+                recording, results, cell = measured[path]
+                # titles never drawn before
+                recording = dataclasses.replace(recording, path=f"round_{r}/{path.name}")
+                if cold:
+                    figure_canvas.clear_text_cache()
+                    figures._kept_for_this_thread().clear()
+                start = time.perf_counter()
+                figures.write_cell_figures(recording, results, tmp / "figures" / str(r), fmt,
+                                           cell=cell)
+                times.append(time.perf_counter() - start)
+            return times
+
+        draw_all("png", cold=True)  # warm up matplotlib itself (fonts, first draws)
+        t_warm, t_cold = {}, {}
         for fmt in ("png", "svg", "pdf"):
-            t_fig[fmt] = best(lambda: write_cell_figures(
-                state["recording"], state["results"], Path(tmp) / fmt, fmt,
-                cell=state["cell"]), args.repeats)
-        spikes = sum(len(r.spikes) for r in state["results"] if r.spikes is not None)
+            t_warm[fmt] = min(float(np.mean(draw_all(fmt, cold=False)))
+                              for _ in range(args.repeats))
+        t_cold["png"] = min(float(np.mean(draw_all("png", cold=True)))
+                            for _ in range(args.repeats))
     result = {
-        "sweeps": args.sweeps, "sweep_s": args.sweep_s, "samples": samples, "spikes": spikes,
-        "measure_s": round(t_measure, 3),
-        "figures_s": {fmt: round(t, 3) for fmt, t in t_fig.items()},
-        "ratio_to_measure": {fmt: round(t / t_measure, 3) for fmt, t in t_fig.items()},
-        "first_call_with_matplotlib_import_s": round(t_first, 3),
+        "cells": args.cells, "sweeps": args.sweeps, "sweep_s": args.sweep_s,
+        "samples_per_cell": samples, "mean_spikes_per_cell": round(spikes, 1),
+        "measure_s_per_cell": round(t_measure, 3),
+        "figures_s_per_cell": {fmt: round(t, 3) for fmt, t in t_warm.items()},
+        "ratio_to_measure": {fmt: round(t / t_measure, 3) for fmt, t in t_warm.items()},
+        "first_cell_of_a_worker_png_s": round(t_cold["png"], 3),
+        "first_cell_ratio_to_measure": round(t_cold["png"] / t_measure, 3),
+        "matplotlib_import_s": round(t_import, 3),
     }
     text = json.dumps(result, indent=2)
     print(text)

@@ -8,7 +8,8 @@ Why this exists: drawing a cell's four figures with a plain Agg canvas cost abou
 measuring the cell (``docs/benchmark.md``). Half of the drawing time went to text, and nearly
 all of the text is the same in every figure of every cell (tick labels, axis labels, legend
 entries). :class:`TextCachingCanvas` renders each distinct text once per process, as a small
-image, and composites that image wherever the text is drawn again. Vector formats (SVG, PDF)
+image, and composites that image wherever the text is drawn again. Every text goes through
+that image, the first time too, so a figure's pixels do not depend on what was drawn before. Vector formats (SVG, PDF)
 are written by matplotlib's own canvases and are not affected.
 """
 from __future__ import annotations
@@ -96,7 +97,10 @@ class TextCachingRenderer(RendererAgg):
         """(image, dx, dy_bottom) of `s` drawn at a whole pixel of a scratch canvas, relative
         to that pixel (image rows bottom up, as draw_image takes them); None for an empty
         image, False when the text touched the scratch area's border."""
-        width, height, descent = self.get_text_width_height_descent(s, prop, False)
+        # a box the text surely fits in, without measuring it (as costly as drawing it):
+        # a glyph is at most an em wide, a line at most an em and a half high
+        em = prop.get_size_in_points() * self.dpi / 72.0
+        width, height, descent = (len(s) + 1) * em, 1.2 * em, 0.5 * em
         c, si = math.cos(math.radians(angle)), math.sin(math.radians(angle))
         corners = [(0.0, -descent), (width, -descent), (width, height), (0.0, height)]
         xs = [px * c - py * si for px, py in corners]

@@ -112,7 +112,7 @@ class TestTextCachingRenderer:
             np.asarray(cached.buffer_rgba())[..., 3] == alpha_max]
         assert colour.size and np.all(colour == (0xe6, 0x61, 0x01))
 
-    def test_a_text_is_rendered_once(self, monkeypatch):
+    def test_a_text_is_rendered_once_then_composited(self, monkeypatch):
         calls = []
         original = RendererAgg.draw_text
 
@@ -128,26 +128,28 @@ class TestTextCachingRenderer:
             gc = renderer.new_gc()
             renderer.draw_text(gc, 20.0, 30.0, "-80", font, 0.0)
             images.append(np.asarray(renderer.buffer_rgba()).copy())
-        assert calls == ["-80"]
+        assert calls == ["-80"]  # rendered once, for the cache, then composited
         assert all(np.array_equal(images[0], image) for image in images[1:])
 
     def test_colour_and_size_are_part_of_the_text(self):
         renderer = TextCachingRenderer(200, 60, 110)
-        for colour, size in (("black", 8), ("red", 8), ("black", 12)):
+        for colour, size in (("black", 8), ("red", 8), ("black", 12)) * 2:
             gc = renderer.new_gc()
             gc.set_foreground(colour)
             renderer.draw_text(gc, 10.0, 30.0, "peak", FontProperties(size=size), 0.0)
         assert len(figure_canvas._cache) == 3
 
     def test_clipped_to_the_axes_like_any_text(self):
-        renderer = TextCachingRenderer(200, 100, 110)
-        gc = renderer.new_gc()
         from matplotlib.transforms import Bbox
 
-        gc.set_clip_rectangle(Bbox([[0, 0], [30, 100]]))  # only x < 30 may be drawn on
-        renderer.draw_text(gc, 10.0, 50.0, "a long label", FontProperties(size=10), 0.0)
-        alpha = np.asarray(renderer.buffer_rgba())[..., 3]
-        assert alpha[:, :30].any() and not alpha[:, 31:].any()
+        for _ in range(2):  # rendered for the cache and composited, then composited
+            renderer = TextCachingRenderer(200, 100, 110)
+            gc = renderer.new_gc()
+            gc.set_clip_rectangle(Bbox([[0, 0], [30, 100]]))  # only x < 30 may be drawn on
+            renderer.draw_text(gc, 10.0, 50.0, "a long label", FontProperties(size=10), 0.0)
+            alpha = np.asarray(renderer.buffer_rgba())[..., 3]
+            assert alpha[:, :30].any() and not alpha[:, 31:].any()
+        assert len(figure_canvas._cache) == 1
 
     def test_a_full_cache_starts_again(self, monkeypatch):
         monkeypatch.setattr(figure_canvas, "TEXT_CACHE_SIZE", 5)
@@ -161,5 +163,8 @@ class TestTextCachingRenderer:
         canvas = TextCachingCanvas(fig)
         fig.add_subplot().set_xlabel("time (s)")
         canvas.draw()
+        first = np.asarray(canvas.buffer_rgba()).copy()
+        canvas.draw()
+        assert np.array_equal(first, np.asarray(canvas.buffer_rgba()))
         assert isinstance(canvas.get_renderer(), TextCachingRenderer)
         assert any(key[0] == "time (s)" for key in figure_canvas._cache)
