@@ -18,6 +18,11 @@ Usage:  python benchmarks/benchmark_figures.py [--cells 6] [--sweeps 30] [--swee
    and PDF.
 4. Figures of the first cell a worker draws: the kept figures and the rendered texts
    forgotten before each cell (the matplotlib import excluded, reported on its own).
+5. For comparison, the same figures drawn the plain way: new figures on matplotlib's own Agg
+   canvas, written by savefig through Pillow (at its fastest PNG setting), as spikemeasure
+   did before it kept figures and rendered texts.
+6. The floor matplotlib sets: the warm figures drawn again with every line and collection
+   hidden (axes, ticks, labels, legends and titles only) and encoded as PNG.
 Prints JSON and writes it to benchmarks/output/benchmark_figures.json.
 """
 from __future__ import annotations
@@ -139,6 +144,44 @@ def main() -> None:
                 times.append(time.perf_counter() - start)
             return times
 
+        def draw_plain() -> list[float]:
+            import io
+
+            from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+            r = next(rounds)
+            times = []
+            for path in paths:
+                recording, results, cell = measured[path]
+                start = time.perf_counter()
+                for fig in figures.cell_figures(results, cell,
+                                                name=f"round_{r}/{path.name}").values():
+                    FigureCanvasAgg(fig)
+                    fig.savefig(io.BytesIO(), format="png", dpi=figures.DPI,
+                                pil_kwargs={"compress_level": 1})
+                times.append(time.perf_counter() - start)
+            return times
+
+        def decorations_only() -> list[float]:
+            from spikemeasure.figure_canvas import png_bytes
+
+            r = next(rounds)
+            times = []
+            for path in paths:
+                recording, results, cell = measured[path]
+                drawn = figures.cell_figures(results, cell, name=f"round_{r}/{path.name}",
+                                             reuse=figures._kept_for_this_thread())
+                for fig in drawn.values():
+                    for ax in fig.axes:
+                        for artist in [*ax.lines, *ax.collections]:
+                            artist.set_visible(False)
+                start = time.perf_counter()
+                for fig in drawn.values():
+                    fig.canvas.draw()
+                    png_bytes(np.asarray(fig.canvas.buffer_rgba()), dpi=figures.DPI)
+                times.append(time.perf_counter() - start)
+            return times
+
         draw_all("png", cold=True)  # warm up matplotlib itself (fonts, first draws)
         t_warm, t_cold = {}, {}
         for fmt in ("png", "svg", "pdf"):
@@ -146,6 +189,8 @@ def main() -> None:
                               for _ in range(args.repeats))
         t_cold["png"] = min(float(np.mean(draw_all("png", cold=True)))
                             for _ in range(args.repeats))
+        t_plain = min(float(np.mean(draw_plain())) for _ in range(args.repeats))
+        t_floor = min(float(np.mean(decorations_only())) for _ in range(args.repeats))
     result = {
         "cells": args.cells, "sweeps": args.sweeps, "sweep_s": args.sweep_s,
         "samples_per_cell": samples, "mean_spikes_per_cell": round(spikes, 1),
@@ -155,6 +200,10 @@ def main() -> None:
         "first_cell_of_a_worker_png_s": round(t_cold["png"], 3),
         "first_cell_ratio_to_measure": round(t_cold["png"] / t_measure, 3),
         "matplotlib_import_s": round(t_import, 3),
+        "plain_matplotlib_png_s_per_cell": round(t_plain, 3),
+        "speedup_over_plain_png": round(t_plain / t_warm["png"], 2),
+        "decorations_only_png_s_per_cell": round(t_floor, 3),
+        "decorations_ratio_to_measure": round(t_floor / t_measure, 3),
     }
     text = json.dumps(result, indent=2)
     print(text)

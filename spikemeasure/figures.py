@@ -77,7 +77,7 @@ _STYLE = {"font.size": 9, "axes.titlesize": 10, "axes.labelsize": 9, "xtick.labe
           "ytick.labelsize": 8, "legend.fontsize": 8, "figure.titlesize": 11,
           "axes.spines.top": False, "axes.spines.right": False, "svg.hashsalt": "spikemeasure",
           "path.simplify": True, "text.parse_math": False,  # a "$" in a file name is text
-          "legend.frameon": True, "legend.framealpha": 0.85, "legend.edgecolor": "none"}
+          "legend.frameon": True, "legend.framealpha": 1.0, "legend.edgecolor": "none"}
 
 
 class DisplayUnavailableError(SpikemeasureError):
@@ -162,6 +162,39 @@ def _empty(kept: _Kept) -> None:
         _house_locators(ax, x=own_x)
     if kept.colorbar is not None:
         kept.colorbar.ax.set_visible(False)
+
+
+def _legend_where_free(ax, candidates: Sequence[str], vertical_x: Sequence[float] = ()) -> None:
+    """A legend at the first of `candidates` (locations) under which no drawn line or point of
+    the axes runs, nor a vertical line at `vertical_x` (data); at the first when none is free.
+
+    Each candidate legend is laid out and its box tested against the lines as drawn (segments
+    sampled between their points), in pixels.
+    """
+    get_renderer = getattr(ax.figure.canvas, "get_renderer", None)
+    if get_renderer is None or not ax.get_legend_handles_labels()[0]:
+        _legend(ax, loc=candidates[0])
+        return
+    renderer = get_renderer()
+    ax.autoscale_view()
+    between = np.linspace(0.0, 1.0, 25)[:, np.newaxis]
+    sampled = [np.empty((0, 2))]
+    for line in ax.get_lines():
+        xy = np.asarray(line.get_xydata(), dtype=float)
+        if line.get_transform() != ax.transData:  # axhline/axvline: tested on their own
+            continue
+        xy = xy[np.isfinite(xy).all(axis=1)]
+        sampled.append(xy)
+        sampled += [a + between * (b - a) for a, b in zip(xy[:-1], xy[1:])]
+    pixels = ax.transData.transform(np.concatenate(sampled))
+    x_lines = [ax.transData.transform((v, 0.0))[0] for v in vertical_x if math.isfinite(v)]
+    for loc in candidates:
+        box = ax.legend(loc=loc).get_window_extent(renderer).padded(2)
+        inside = ((pixels[:, 0] >= box.x0) & (pixels[:, 0] <= box.x1)
+                  & (pixels[:, 1] >= box.y0) & (pixels[:, 1] <= box.y1))
+        if not inside.any() and not any(box.x0 <= x <= box.x1 for x in x_lines):
+            return
+    ax.legend(loc=candidates[0])
 
 
 def _legend(ax, **kw) -> None:
@@ -750,7 +783,9 @@ def step_response_figure(results: Sequence[SweepResult], cell: CellFeatures | No
             x = np.array([stim[use].min(), stim[use].max()])
             ax_f.plot(x, intercept + slope * x, color=_TROUGH_COLOUR, lw=1.2,
                       label=f"f-I slope {slope:.3g} Hz/pA")
-        _legend(ax_f, loc="upper left")
+        # the legend where no point, line or the rheobase line runs under it
+        _legend_where_free(ax_f, ("upper left", "lower right", "center right"),
+                           [cell.rheobase_pa])
         passive = np.isfinite(stim) & (stim < 0) & (count == 0) & np.isfinite(dv)
         other = np.isfinite(stim) & np.isfinite(dv) & ~passive
         ax_v.plot(stim[passive], dv[passive], ls="none", marker="o", ms=5, color="#333333",

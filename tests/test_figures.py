@@ -457,3 +457,47 @@ def test_sample_cell_figures_are_readable():
     for fig in figures.cell_figures(results).values():
         _assert_no_overlaps(fig)
         _assert_legends_cover_no_point(fig)
+
+
+def _lines_under_legend(ax) -> list[str]:
+    """Labels of the lines (data lines sampled along their segments, vertical lines by their
+    x) that run under the axes' legend, in pixels."""
+    fig = ax.figure
+    fig.canvas.draw()
+    box = ax.get_legend().get_window_extent()
+    crossing = []
+    for line in ax.get_lines():
+        xy = np.asarray(line.get_xydata(), float)
+        if line.get_transform() != ax.transData:  # axvline: x in data, y in axes fraction
+            x = ax.transData.transform((xy[0, 0], 0.0))[0]
+            if box.x0 <= x <= box.x1:
+                crossing.append(line.get_label())
+            continue
+        t = np.linspace(0, 1, 50)[:, None]
+        points = np.concatenate([xy] + [a + t * (b - a) for a, b in zip(xy[:-1], xy[1:])])
+        px = ax.transData.transform(points)
+        if ((px[:, 0] >= box.x0) & (px[:, 0] <= box.x1) & (px[:, 1] >= box.y0)
+                & (px[:, 1] <= box.y1)).any():
+            crossing.append(line.get_label())
+    return crossing
+
+
+def test_fi_legend_stands_where_no_line_runs_under_it():
+    """On the sample cells: the f-I legend moves off the upper left when the rheobase line or
+    the f-I lines would run under it there, to where none does; it stays upper left only when
+    no candidate place is free."""
+    from pathlib import Path
+
+    moved = 0
+    for path in sorted((Path(__file__).resolve().parents[1] / "sample_data").glob("*.n*")):
+        results = measure_recording(read_recording(path, shown_as=path.name))
+        ax = figures.step_response_figure(results).axes[0]
+        where = ax.get_legend()._loc  # matplotlib's location codes: 2 upper left
+        if where != 2:
+            moved += 1
+            assert _lines_under_legend(ax) == [], path.name
+        else:
+            for loc in ("lower right", "center right"):  # it would have moved if it could
+                ax.legend(loc=loc)
+                assert _lines_under_legend(ax), (path.name, loc)
+    assert moved >= 1
