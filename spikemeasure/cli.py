@@ -115,8 +115,8 @@ def _config_option(func):
     return click.option(
         "--config", "config_path", type=click.Path(exists=True, dir_okay=False), default=None,
         metavar="FILE",
-        help="Project file of parameters (default: spikemeasure.toml in the first folder "
-             "given); command-line options override it.")(func)
+        help="Project file of parameters (default: spikemeasure.toml in the current folder, "
+             "else in the first folder given); command-line options override it.")(func)
 
 
 class _Context:
@@ -249,7 +249,8 @@ def measure(ctx: click.Context, paths, out_dir, jobs, force, patterns, cluster, 
     if progress is not None:
         progress.close()
     reused = f" ({summary.files_reused} unchanged, kept)" if summary.files_reused else ""
-    click.echo(f"{summary.files_measured + summary.files_reused} files measured{reused}, "
+    done = summary.files_measured + summary.files_reused
+    click.echo(f"{done} file{'' if done == 1 else 's'} measured{reused}, "
                f"{summary.files_failed} failed; {summary.sweeps_measured} sweeps, "
                f"{summary.spikes} spikes -> {summary.out_dir}", err=True)
     for note in summary.notes:

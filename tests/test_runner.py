@@ -98,7 +98,7 @@ def test_bad_files_are_listed_and_the_rest_measured(tmp_path):
     assert "no channel in volts" in errors["current_only.nix"]["message"]
     with open(out / "cells.csv", newline="") as fh:
         assert [row["file"] for row in csv.DictReader(fh)] == ["good.nwb"]
-    assert "1 files measured, 5 failed" in result.stderr
+    assert "1 file measured, 5 failed" in result.stderr
 
 
 def test_rerun_reuses_unchanged_files_and_force_redoes(many_cells, tmp_path):
