@@ -9,8 +9,8 @@ measuring the cell (``docs/benchmark.md``). Half of the drawing time went to tex
 all of the text is the same in every figure of every cell (tick labels, axis labels, legend
 entries). :class:`TextCachingCanvas` renders each distinct text once per process, as a small
 image, and composites that image wherever the text is drawn again. Every text goes through
-that image, the first time too, so a figure's pixels do not depend on what was drawn before. Vector formats (SVG, PDF)
-are written by matplotlib's own canvases and are not affected.
+that image, the first time too, so a figure's pixels do not depend on what was drawn before.
+Vector formats (SVG, PDF) are written by matplotlib's own canvases and are not affected.
 """
 from __future__ import annotations
 

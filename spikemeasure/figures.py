@@ -431,7 +431,9 @@ def traces_figure(results: Sequence[SweepResult], cell: CellFeatures | None = No
     -------
     matplotlib.figure.Figure
         Axes 0 the voltage, axes 1 the command. Sweeps are coloured by step size (the colour
-        bar), the rheobase sweep drawn thicker in red on top. Spike markers are three lines
+        bar); all but the rheobase sweep are one PolyCollection in axes 0, each sweep the band
+        between the minima and maxima of :func:`envelope`, at least 0.6 pt thick; the rheobase
+        sweep is a line through them, thicker, in red, on top. Spike markers are three lines
         without a connecting line, labelled ``threshold``, ``peak`` and ``trough``, at the
         exact ``threshold_s, threshold_mv`` (and so on) of every spike of every sweep.
     """
@@ -440,7 +442,8 @@ def traces_figure(results: Sequence[SweepResult], cell: CellFeatures | None = No
     cell = cell_summary(list(results)) if cell is None else cell
     measured = _measured(results)
     with _mpl().rc_context(_STYLE):
-        kept = _cell_figure("traces", 6.0, [(0.10, 0.335, 0.75, 0.575), (0.10, 0.085, 0.75, 0.2)],
+        kept = _cell_figure("traces", 6.0,
+                            [(0.10, 0.335, 0.75, 0.575), (0.10, 0.085, 0.75, 0.2)],
                             new_figure, reuse, share_x=True)
         fig, (ax_v, ax_i) = kept.fig, kept.axes
         ax_v.tick_params(labelbottom=False)
