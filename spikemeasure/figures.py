@@ -164,6 +164,12 @@ def _empty(kept: _Kept) -> None:
         kept.colorbar.ax.set_visible(False)
 
 
+#: (horizontal, vertical) side of the axes a legend location anchors to.
+_LEGEND_ANCHORS = {"upper left": ("left", "upper"), "lower right": ("right", "lower"),
+                   "center right": ("right", "center"), "upper right": ("right", "upper"),
+                   "lower left": ("left", "lower"), "upper center": ("center", "upper")}
+
+
 def _legend_where_free(ax, candidates: Sequence[str], vertical_x: Sequence[float] = ()) -> None:
     """A legend at the first of `candidates` (locations) under which no drawn line or point of
     the axes runs, nor a vertical line at `vertical_x` (data); at the first when none is free.
@@ -188,13 +194,24 @@ def _legend_where_free(ax, candidates: Sequence[str], vertical_x: Sequence[float
         sampled += [a + between * (b - a) for a, b in zip(xy[:-1], xy[1:])]
     pixels = ax.transData.transform(np.concatenate(sampled))
     x_lines = [ax.transData.transform((v, 0.0))[0] for v in vertical_x if math.isfinite(v)]
+    legend = ax.legend(loc=candidates[0])
+    size = legend.get_window_extent(renderer)
+    # the same box at each candidate place, as matplotlib anchors a legend inside the axes
+    pad = renderer.points_to_pixels(legend.borderaxespad * legend.prop.get_size_in_points())
+    frame = ax.bbox
     for loc in candidates:
-        box = ax.legend(loc=loc).get_window_extent(renderer).padded(2)
-        inside = ((pixels[:, 0] >= box.x0) & (pixels[:, 0] <= box.x1)
-                  & (pixels[:, 1] >= box.y0) & (pixels[:, 1] <= box.y1))
-        if not inside.any() and not any(box.x0 <= x <= box.x1 for x in x_lines):
+        x0 = {"left": frame.x0 + pad, "right": frame.x1 - pad - size.width,
+              "center": frame.x0 + (frame.width - size.width) / 2}[_LEGEND_ANCHORS[loc][0]]
+        y0 = {"lower": frame.y0 + pad, "upper": frame.y1 - pad - size.height,
+              "center": frame.y0 + (frame.height - size.height) / 2}[_LEGEND_ANCHORS[loc][1]]
+        x1, y1 = x0 + size.width + 2, y0 + size.height + 2
+        x0, y0 = x0 - 2, y0 - 2
+        inside = ((pixels[:, 0] >= x0) & (pixels[:, 0] <= x1)
+                  & (pixels[:, 1] >= y0) & (pixels[:, 1] <= y1))
+        if not inside.any() and not any(x0 <= x <= x1 for x in x_lines):
+            if loc != candidates[0]:
+                ax.legend(loc=loc)
             return
-    ax.legend(loc=candidates[0])
 
 
 def _legend(ax, **kw) -> None:
