@@ -24,13 +24,16 @@ import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg, RendererAgg
 
 __all__ = ["TextCachingCanvas", "TextCachingRenderer", "png_bytes", "clear_text_cache",
-           "TEXT_CACHE_SIZE"]
+           "TEXT_CACHE_SIZE", "TEXT_CACHE_BYTES"]
 
-#: Texts kept per process; the cache is emptied when it is full. A cell's figures draw about
-#: a hundred texts, most of them shared with every other cell.
+#: Texts kept per process, at most this many and this many bytes of images; the cache is
+#: emptied when either is reached. A cell's figures draw about a hundred texts, most of them
+#: shared with every other cell; the titles, which name the file, are not.
 TEXT_CACHE_SIZE = 4000
+TEXT_CACHE_BYTES = 32 * 2 ** 20
 
 _cache: dict = {}
+_cache_bytes = [0]
 _cache_lock = threading.Lock()
 _MISSING = object()
 
@@ -39,6 +42,7 @@ def clear_text_cache() -> None:
     """Forget every rendered text (they are rendered again when next drawn)."""
     with _cache_lock:
         _cache.clear()
+        _cache_bytes[0] = 0
 
 
 def _hashable(value):
@@ -75,10 +79,14 @@ class TextCachingRenderer(RendererAgg):
         entry = _cache.get(key, _MISSING)
         if entry is _MISSING:
             entry = self._render_text(gc, s, prop, angle, mtext)
+            size = entry[0].nbytes if entry else 0
             with _cache_lock:
-                if len(_cache) >= TEXT_CACHE_SIZE:
+                if (len(_cache) >= TEXT_CACHE_SIZE
+                        or _cache_bytes[0] + size > TEXT_CACHE_BYTES):
                     _cache.clear()
+                    _cache_bytes[0] = 0
                 _cache[key] = entry
+                _cache_bytes[0] += size
         if entry is False:  # did not fit the scratch area: draw it the ordinary way
             return super().draw_text(gc, x, y, s, prop, angle, ismath, mtext)
         if entry is None:  # renders to nothing (white space)

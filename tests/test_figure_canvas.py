@@ -158,6 +158,16 @@ class TestTextCachingRenderer:
             renderer.draw_text(renderer.new_gc(), 10.0, 30.0, str(k), FontProperties(), 0.0)
         assert 1 <= len(figure_canvas._cache) <= 5
 
+    def test_the_cache_holds_at_most_its_bytes_of_images(self, monkeypatch):
+        monkeypatch.setattr(figure_canvas, "TEXT_CACHE_BYTES", 20_000)
+        renderer = TextCachingRenderer(600, 60, 110)
+        for k in range(40):  # unique, title-like texts
+            renderer.draw_text(renderer.new_gc(), 10.0, 30.0, f"cell_{k:03d}.nwb: sweeps",
+                               FontProperties(size=11), 0.0)
+            held = sum(e[0].nbytes for e in figure_canvas._cache.values() if e)
+            assert held == figure_canvas._cache_bytes[0] <= 20_000
+        assert 1 <= len(figure_canvas._cache) < 40
+
     def test_a_figure_draws_through_it(self):
         fig = Figure(figsize=(3, 2), dpi=100)
         canvas = TextCachingCanvas(fig)
