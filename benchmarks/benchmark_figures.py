@@ -127,70 +127,63 @@ def main() -> None:
         t_import = time.perf_counter() - start
         rounds = iter(range(10 ** 6))
 
-        def draw_all(fmt: str, cold: bool) -> list[float]:
-            """Seconds per cell for one round over all cells, each under a new name."""
+        def per_cell(draw) -> float:
+            """Mean seconds per cell of `draw(name, recording, results, cell)` (which returns
+            the seconds it timed) over one round of all cells, each under a name not drawn
+            before, so no title is already rendered."""
             r = next(rounds)
             times = []
             for path in paths:
                 recording, results, cell = measured[path]
-                # titles never drawn before
-                recording = dataclasses.replace(recording, path=f"round_{r}/{path.name}")
-                if cold:
+                name = f"round_{r}/{path.name}"
+                times.append(draw(name, dataclasses.replace(recording, path=name), results,
+                                  cell))
+            return float(np.mean(times))
+
+        def best_round(draw) -> float:
+            return min(per_cell(draw) for _ in range(args.repeats))
+
+        def written(fmt: str, cold: bool):
+            def draw(name, recording, results, cell):
+                if cold:  # a worker's first cell: nothing kept, no text rendered
                     figure_canvas.clear_text_cache()
                     figures._kept_for_this_thread().clear()
                 start = time.perf_counter()
-                figures.write_cell_figures(recording, results, tmp / "figures" / str(r), fmt,
+                figures.write_cell_figures(recording, results, tmp / "figures" / name, fmt,
                                            cell=cell)
-                times.append(time.perf_counter() - start)
-            return times
+                return time.perf_counter() - start
+            return draw
 
-        def draw_plain() -> list[float]:
+        def plain(name, recording, results, cell):
             import io
 
             from matplotlib.backends.backend_agg import FigureCanvasAgg
 
-            r = next(rounds)
-            times = []
-            for path in paths:
-                recording, results, cell = measured[path]
-                start = time.perf_counter()
-                for fig in figures.cell_figures(results, cell,
-                                                name=f"round_{r}/{path.name}").values():
-                    FigureCanvasAgg(fig)
-                    fig.savefig(io.BytesIO(), format="png", dpi=figures.DPI,
-                                pil_kwargs={"compress_level": 1})
-                times.append(time.perf_counter() - start)
-            return times
+            start = time.perf_counter()
+            for fig in figures.cell_figures(results, cell, name=name).values():
+                FigureCanvasAgg(fig)
+                fig.savefig(io.BytesIO(), format="png", dpi=figures.DPI,
+                            pil_kwargs={"compress_level": 1})
+            return time.perf_counter() - start
 
-        def decorations_only() -> list[float]:
-            from spikemeasure.figure_canvas import png_bytes
+        def decorations_only(name, recording, results, cell):
+            drawn = figures.cell_figures(results, cell, name=name,
+                                         reuse=figures._kept_for_this_thread())
+            for fig in drawn.values():
+                for ax in fig.axes:
+                    for artist in [*ax.lines, *ax.collections]:
+                        artist.set_visible(False)
+            start = time.perf_counter()
+            for fig in drawn.values():
+                fig.canvas.draw()
+                figure_canvas.png_bytes(np.asarray(fig.canvas.buffer_rgba()), dpi=figures.DPI)
+            return time.perf_counter() - start
 
-            r = next(rounds)
-            times = []
-            for path in paths:
-                recording, results, cell = measured[path]
-                drawn = figures.cell_figures(results, cell, name=f"round_{r}/{path.name}",
-                                             reuse=figures._kept_for_this_thread())
-                for fig in drawn.values():
-                    for ax in fig.axes:
-                        for artist in [*ax.lines, *ax.collections]:
-                            artist.set_visible(False)
-                start = time.perf_counter()
-                for fig in drawn.values():
-                    fig.canvas.draw()
-                    png_bytes(np.asarray(fig.canvas.buffer_rgba()), dpi=figures.DPI)
-                times.append(time.perf_counter() - start)
-            return times
-
-        draw_all("png", cold=True)  # warm up matplotlib itself (fonts, first draws)
-        t_warm, t_cold = {}, {}
-        for fmt in ("png", "svg", "pdf"):
-            t_warm[fmt] = min(float(np.mean(draw_all(fmt, cold=False)))
-                              for _ in range(args.repeats))
-        t_cold["png"] = min(float(np.mean(draw_all("png", cold=True)))
-                            for _ in range(args.repeats))
-        t_plain = min(float(np.mean(draw_plain())) for _ in range(args.repeats))
-        t_floor = min(float(np.mean(decorations_only())) for _ in range(args.repeats))
+        per_cell(written("png", cold=True))  # warm up matplotlib itself (fonts, first draws)
+        t_warm = {fmt: best_round(written(fmt, cold=False)) for fmt in ("png", "svg", "pdf")}
+        t_cold = {"png": best_round(written("png", cold=True))}
+        t_plain = best_round(plain)
+        t_floor = best_round(decorations_only)
     result = {
         "cells": args.cells, "sweeps": args.sweeps, "sweep_s": args.sweep_s,
         "samples_per_cell": samples, "mean_spikes_per_cell": round(spikes, 1),

@@ -166,8 +166,7 @@ def _empty(kept: _Kept) -> None:
 
 #: (horizontal, vertical) side of the axes a legend location anchors to.
 _LEGEND_ANCHORS = {"upper left": ("left", "upper"), "lower right": ("right", "lower"),
-                   "center right": ("right", "center"), "upper right": ("right", "upper"),
-                   "lower left": ("left", "lower"), "upper center": ("center", "upper")}
+                   "center right": ("right", "center")}
 
 
 def _legend_where_free(ax, candidates: Sequence[str], vertical_x: Sequence[float] = ()) -> None:
@@ -200,8 +199,8 @@ def _legend_where_free(ax, candidates: Sequence[str], vertical_x: Sequence[float
     pad = renderer.points_to_pixels(legend.borderaxespad * legend.prop.get_size_in_points())
     frame = ax.bbox
     for loc in candidates:
-        x0 = {"left": frame.x0 + pad, "right": frame.x1 - pad - size.width,
-              "center": frame.x0 + (frame.width - size.width) / 2}[_LEGEND_ANCHORS[loc][0]]
+        x0 = {"left": frame.x0 + pad,
+              "right": frame.x1 - pad - size.width}[_LEGEND_ANCHORS[loc][0]]
         y0 = {"lower": frame.y0 + pad, "upper": frame.y1 - pad - size.height,
               "center": frame.y0 + (frame.height - size.height) / 2}[_LEGEND_ANCHORS[loc][1]]
         x1, y1 = x0 + size.width + 2, y0 + size.height + 2
