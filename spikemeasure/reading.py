@@ -12,6 +12,12 @@ This is the only module that imports neo. Formats:
 
 Units are converted by the units each channel declares, never assumed. Readers that would
 unpickle or evaluate file content are refused.
+
+Messages never quote what a file holds (header lines, cell values, the text of a parser's
+exception): they name the file, the sweep, and the line and column or the setting that is
+wrong. Names a file gives its sweeps and channels are shown only when they are short plain
+identifiers (:func:`_safe_name`). A sweep whose declared size exceeds ``max_sweep_samples``, or
+that would not fit in the available memory when read whole, is refused before it is read.
 """
 from __future__ import annotations
 
@@ -25,15 +31,23 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import UnreadableInputError
+from .errors import InvalidSettingError, UnreadableInputError
 from .sweeps import LazyTrace, Sweep
 
 __all__ = ["Recording", "ChannelInfo", "read_recording", "find_recordings", "is_temporary",
-           "TEXT_SUFFIXES", "RECORDING_SUFFIXES", "LONG_SWEEP_SAMPLES"]
+           "TEXT_SUFFIXES", "RECORDING_SUFFIXES", "LONG_SWEEP_SAMPLES",
+           "DEFAULT_MAX_SWEEP_SAMPLES"]
 
 #: NWB and NIX sweeps longer than this (about 3.5 min at 20 kHz) stay in the file and are read
 #: in pieces through neo's lazy loading, when their command current is constant (gap-free).
 LONG_SWEEP_SAMPLES = 1 << 22
+
+#: Sweeps declaring more samples than this are refused before anything is read from them
+#: (the run parameter ``max_sweep_samples``). 10^9 samples is about 14 hours at 20 kHz, or
+#: 8 GB as float64: more than any single current-clamp sweep, while a file that declares more
+#: (a damaged or hostile header over a few kB of compressed fill values) would otherwise be
+#: read for hours.
+DEFAULT_MAX_SWEEP_SAMPLES = 1_000_000_000
 
 TEXT_SUFFIXES = (".txt", ".csv", ".tsv")
 #: The open formats a folder search picks up; other formats neo reads come in by pattern.
@@ -136,6 +150,91 @@ def _reader_runs_file_content(cls: type) -> bool:
     return _unsafe_cache[cls]
 
 
+# --------------------------------------------------------------------------- names and sizes
+
+_SAFE_NAME = re.compile(r"[A-Za-z0-9_ .()\[\]+-]{1,64}")
+
+
+def _safe_name(name, fallback: str = "") -> str:
+    """A name the file gives (a series, segment or channel) as it may appear in messages: kept
+    only when it is a short plain identifier, else `fallback`, so that no other text of the
+    file (a line of a system file read by mistake, say) reaches a message or a table."""
+    text = str(name) if name is not None else ""
+    return text if _SAFE_NAME.fullmatch(text) and text.strip() else fallback
+
+
+def _library_failure(exc: BaseException) -> str:
+    """A read failure of neo, pynwb, hdmf, nixio or h5py as its type and a fixed description.
+
+    The libraries' own texts can quote the file (names, values, units as written), so only
+    HDF5's own error-stack texts (``OSError`` from h5py, which never hold data) and the
+    truncation numbers are kept.
+    """
+    text = str(exc)
+    m = re.search(r"truncated file: eof = (\d+).*?stored_eof = (\d+)", text)
+    if m:
+        return (f"the file is truncated: {int(m.group(1)):,} of {int(m.group(2)):,} bytes are "
+                "there; copy it again from its source")
+    kind = type(exc).__name__
+    if isinstance(exc, OSError) and type(exc).__module__ in ("builtins", "h5py._objects") and (
+            re.fullmatch(r"[\w ,.;:()'=<>-]{1,200}", text)
+            and not re.search(r"[\\/]", text)):
+        return f"{kind}: {text}; the file may be truncated or damaged"
+    return f"{kind} in the reading library; the file may be truncated, damaged or not valid"
+
+
+def _available_memory_bytes() -> int | None:
+    """Memory the system can give this process now (MemAvailable on Linux), or None."""
+    try:
+        with open("/proc/meminfo", "rb") as fh:
+            for line in fh:
+                if line.startswith(b"MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except (OSError, ValueError, IndexError):
+        pass
+    try:
+        return int(os.sysconf("SC_AVPHYS_PAGES")) * int(os.sysconf("SC_PAGE_SIZE"))
+    except (AttributeError, ValueError, OSError):
+        return None
+
+
+def _size_problem(where: str, shape, max_sweep_samples: int, *, whole: bool) -> str | None:
+    """Why a signal of the declared `shape` is not read, or None: more samples than
+    `max_sweep_samples`, or (`whole`: read at once) more float64 bytes than the memory
+    available."""
+    dims = [int(d) for d in (shape or (0,))]
+    n_samples = dims[0] if dims else 0
+    n_values = int(np.prod(dims, dtype=object)) if dims else 0
+    if n_samples > max_sweep_samples or n_values > max_sweep_samples:
+        return (f"{where}: the file declares {n_values:,} samples for this sweep, more than "
+                f"max_sweep_samples ({max_sweep_samples:,}); it was not read. Raise "
+                "--max-sweep-samples if the recording really is that long")
+    if whole:
+        available = _available_memory_bytes()
+        needed = 8 * n_values
+        if available is not None and needed > available:
+            return (f"{where}: the file declares {n_values:,} samples for this sweep, "
+                    f"{needed / 2 ** 30:.1f} GiB as float64, more than the "
+                    f"{available / 2 ** 30:.1f} GiB of memory available; it was not read")
+    return None
+
+
+def _rate_problem(where: str, signal) -> str | None:
+    """Why a signal's sampling rate cannot be used (zero, negative, NaN or infinite), or None."""
+    rate = float(signal.sampling_rate.rescale("Hz"))
+    if np.isfinite(rate) and rate > 0:
+        return None
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            interval = float(signal.sampling_period.rescale("s"))
+    except (AttributeError, ValueError, ZeroDivisionError):
+        interval = float("nan")
+    return (f"{where}: the sampling rate is {rate:g} Hz (sampling interval {interval:g} s); it "
+            "must be a positive, finite number, so the sweep was not read. The file's time "
+            "axis is damaged")
+
+
 # --------------------------------------------------------------------------- units
 
 def _unit_text(signal) -> str:
@@ -147,9 +246,10 @@ def _scale_to(signal, target: str) -> float | None:
     import quantities as pq
 
     try:
-        return float(signal.units.rescale(getattr(pq, target)).magnitude)
-    except ValueError:
+        factor = float(signal.units.rescale(getattr(pq, target)).magnitude)
+    except (ValueError, TypeError, AttributeError, LookupError):
         return None
+    return factor if np.isfinite(factor) and factor != 0 else None
 
 
 def _looks_like_command(voltage_mv: np.ndarray) -> bool:
@@ -174,6 +274,8 @@ class _LongSignal:
         self.shown = shown
         self.units = proxy.units
         self.sampling_rate = proxy.sampling_rate
+        self.t_start = proxy.t_start
+        self.sampling_period = getattr(proxy, "sampling_period", None)
         self.name = proxy.name
         self.annotations = getattr(proxy, "annotations", {})
         self.array_annotations = getattr(proxy, "array_annotations", {}) or {}
@@ -194,9 +296,10 @@ class _LongSignal:
                 return np.asarray(part.magnitude, dtype=np.float64)[:, 0]
             except Exception as exc:  # h5py and neo raise many types; keep the cause
                 raise UnreadableInputError(
-                    f"{self.shown}: samples {start}-{stop} of {self.name or 'the voltage'} "
+                    f"{self.shown}: samples {start}-{stop} of "
+                    f"{_safe_name(self.name, 'the signal')} "
                     f"({start / rate:.1f}-{stop / rate:.1f} s) cannot be read "
-                    f"({_hdf5_reason(exc)})") from exc
+                    f"({_library_failure(exc)})") from exc
 
         return LazyTrace(read, self.n_samples)
 
@@ -210,8 +313,14 @@ def _is_long(proxy) -> bool:
 def _settle_long_sweep(sweep: Sweep) -> Sweep:
     """Keep a long sweep in its file only when it is gap-free (no current step): check its
     command piece by piece; a constant command is dropped (there is no step to find), a
-    varying one makes the sweep be read whole, as the step features need it all."""
+    varying one makes the sweep be read whole, as the step features need it all.
+
+    Raises UnreadableInputError when a sweep to be read whole does not fit in memory.
+    """
     if not sweep.is_lazy:
+        if isinstance(sweep.command_pa, LazyTrace):  # a long stimulus cut to a short response
+            return Sweep(sweep.voltage_mv, sweep.sampling_rate_hz, np.asarray(sweep.command_pa),
+                         sweep.file, sweep.index, sweep.label, sweep.channel_info)
         return sweep
     command = sweep.command_pa
     if isinstance(command, LazyTrace):
@@ -221,6 +330,10 @@ def _settle_long_sweep(sweep: Sweep) -> Sweep:
             part = command[start:start + piece]
             low, high = min(low, float(part.min())), max(high, float(part.max()))
             if high - low > 1.0:  # pA: the command steps, so the step features need it all
+                problem = _size_problem(sweep.where(), (sweep.n_samples, 2), 1 << 62, whole=True)
+                if problem:
+                    raise UnreadableInputError(
+                        problem + " (its command current steps, so it must be read whole)")
                 return Sweep(np.asarray(sweep.voltage_mv), sweep.sampling_rate_hz,
                              np.asarray(command), sweep.file, sweep.index, sweep.label,
                              sweep.channel_info)
@@ -230,79 +343,114 @@ def _settle_long_sweep(sweep: Sweep) -> Sweep:
 
 
 def _columns(signal):
-    """Yield (name, 1-D float64 column, signal) for every channel of a neo AnalogSignal."""
+    """Yield (name, 1-D float64 column, signal) for every channel of a neo AnalogSignal.
+
+    Names are the file's own only when they are plain identifiers (:func:`_safe_name`).
+    """
     if isinstance(signal, _LongSignal):
         names = list(signal.array_annotations.get("channel_names", []))
-        yield (str(names[0]) if names else signal.name or "signal"), signal.trace(), signal
+        name = _safe_name(names[0]) if names else ""
+        yield name or _safe_name(signal.name, "signal"), signal.trace(), signal
         return
     data = np.asarray(signal.magnitude, dtype=np.float64)
     if data.ndim == 1:
         data = data[:, None]
     names = list(signal.array_annotations.get("channel_names", [])) if hasattr(
         signal, "array_annotations") else []
-    base = signal.name or "signal"
+    base = _safe_name(signal.name, "signal")
     for c in range(data.shape[1]):
-        name = str(names[c]) if c < len(names) else (base if data.shape[1] == 1 else f"{base}[{c}]")
+        own = _safe_name(names[c]) if c < len(names) else ""
+        name = own or (base if data.shape[1] == 1 else f"{base}[{c}]")
         yield name, data[:, c], signal
 
 
-def _sweep_from_signals(signals, path: str, index: int, label: str) -> tuple[Sweep | None, list[ChannelInfo], str | None]:
+def _where(path: str, index: int, label: str) -> str:
+    shown_label = label and label != f"sweep {index}"
+    return f"{path}, sweep {index}" + (f" ({label})" if shown_label else "")
+
+
+def _sweep_from_signals(signals, path: str, index: int, label: str
+                        ) -> tuple[Sweep | None, list[ChannelInfo], list[str]]:
     """Make one sweep from the analog signals of a segment by their declared units.
 
-    Returns (sweep or None, channels, problem or None).
+    Returns (sweep or None, channels, problems). A voltage channel after the first is named
+    in the problems as not measured.
     """
     voltage = command = None
     channels: list[ChannelInfo] = []
+    where = _where(path, index, label)
+    extra_voltages: list[str] = []
+    voltage_name = ""
     for signal in signals:
+        problem = _rate_problem(where, signal)
+        if problem:
+            return None, channels, [problem]
         to_mv, to_pa = _scale_to(signal, "mV"), _scale_to(signal, "pA")
         for name, column, sig in _columns(signal):
             role = "ignored"
             if to_mv is not None and voltage is None:
                 voltage, role = (column * to_mv, float(sig.sampling_rate.rescale("Hz"))), "voltage"
+                voltage_name = name
+            elif to_mv is not None:
+                extra_voltages.append(name)
             elif to_pa is not None and command is None:
                 command, role = (column * to_pa, float(sig.sampling_rate.rescale("Hz"))), "command"
             channels.append(ChannelInfo(name, _unit_text(sig), role))
-    where = f"{path}, sweep {index}" + (f" ({label})" if label else "")
     if voltage is None:
-        units = ", ".join(f"{c.name} [{c.units}]" for c in channels) or "none"
-        return None, channels, (f"{where}: no channel in volts (channels: {units}); "
-                                "spikemeasure needs the membrane voltage")
+        units = ", ".join(c.units for c in channels)
+        found = (f"{len(channels)} channel{'s' if len(channels) != 1 else ''} in {units}"
+                 if channels else "no channels")
+        return None, channels, [f"{where}: no channel in volts ({found}); spikemeasure needs "
+                                "the membrane voltage"]
+    problems = []
+    if extra_voltages:
+        problems.append(
+            f"{where}: {len(extra_voltages)} more voltage channel"
+            f"{'s were' if len(extra_voltages) != 1 else ' was'} not measured "
+            f"({', '.join(extra_voltages)}); only the first, {voltage_name}, was. Split the "
+            "channels into files of their own to measure them")
     v, rate = voltage
     if command is not None and _looks_like_command(v) and not _looks_like_command(command[0]):
-        return None, channels, (f"{where}: this looks like a voltage-clamp recording (the voltage "
-                                "channel is a few flat command levels); spikemeasure measures "
-                                "current clamp")
+        return None, channels, [f"{where}: this looks like a voltage-clamp recording (the "
+                                "voltage channel is a few flat command levels); spikemeasure "
+                                "measures current clamp"]
     cmd = None
-    problem = None
     if command is not None:
         c, c_rate = command
         if abs(c_rate - rate) > 1e-6 * rate or c.size != v.size:
-            problem = (f"{where}: the current channel ({c.size} samples at {c_rate:g} Hz) does "
-                       f"not match the voltage ({v.size} samples at {rate:g} Hz); it was not "
-                       "used as the command")
+            problems.append(f"{where}: the current channel ({c.size} samples at {c_rate:g} Hz) "
+                            f"does not match the voltage ({v.size} samples at {rate:g} Hz); it "
+                            "was not used as the command")
         else:
             cmd = c
-    sweep = _settle_long_sweep(Sweep(voltage_mv=v, sampling_rate_hz=rate, command_pa=cmd,
-                                     file=path, index=index, label=label,
-                                     channel_info=tuple(channels)))
-    return sweep, channels, problem
+    try:
+        sweep = _settle_long_sweep(Sweep(voltage_mv=v, sampling_rate_hz=rate, command_pa=cmd,
+                                         file=path, index=index, label=label,
+                                         channel_info=tuple(channels)))
+    except UnreadableInputError as exc:
+        return None, channels, [str(exc)]
+    return sweep, channels, problems
 
 
-def _segments_to_recording(segments, path: str, format_name: str) -> Recording:
-    sweeps, problems, first_channels = [], [], []
+def _segments_to_recording(segments, path: str, format_name: str,
+                           problems: list[str] | None = None) -> Recording:
+    sweeps, first_channels = [], []
+    problems = list(problems or [])
     for index, segment in enumerate(segments):
-        sweep, channels, problem = _sweep_from_signals(segment.analogsignals, path, index,
-                                                       segment.name or "")
+        if getattr(segment, "refused", None):
+            problems.append(segment.refused)
+            continue
+        sweep, channels, found = _sweep_from_signals(segment.analogsignals, path, index,
+                                                     _safe_name(segment.name))
         if index == 0:
             first_channels = channels
-        if problem:
-            problems.append(problem)
+        problems.extend(found)
         if sweep is not None:
             sweeps.append(sweep)
     if not sweeps:
         detail = problems[0] if problems else f"{path}: the file holds no analog signals"
         raise UnreadableInputError(detail if len(problems) <= 1 else
-                                   f"{detail} (and {len(problems) - 1} more sweeps alike)")
+                                   f"{detail} (and {len(problems) - 1} more problems)")
     return Recording(path, format_name, sweeps, first_channels, problems)
 
 
@@ -313,48 +461,81 @@ _CC_STIMULUS = {"CurrentClampStimulusSeries"}
 _VC_TYPES = {"VoltageClampSeries", "VoltageClampStimulusSeries"}
 
 
-def _hdf5_reason(exc: Exception) -> str:
-    """A short reason for an HDF5-based read failure; the library's text kept for the rest."""
-    text = str(exc)
-    m = re.search(r"truncated file: eof = (\d+).*?stored_eof = (\d+)", text)
-    if m:
-        return (f"the file is truncated: {int(m.group(1)):,} of {int(m.group(2)):,} bytes are "
-                "there; copy it again from its source")
-    return f"{type(exc).__name__}: {text}; the file may be truncated or damaged"
-
-
 def _nwb_type(signal) -> str:
     kind = signal.annotations.get("nwb_neurodata_type", ("", ""))
     return kind[-1] if isinstance(kind, (tuple, list)) else str(kind)
 
 
-def _nwb_signals(path: Path, shown: str) -> tuple[list, object]:
+def _nwb_series_problem(series, where: str) -> str | None:
+    """What makes an NWB series' time axis or scale unusable, checked before neo sees it."""
+    rate = series.rate
+    start = series.starting_time
+    conversion = getattr(series, "conversion", 1.0)
+    try:
+        rate, conversion = float(rate), float(conversion)
+        start = 0.0 if start is None else float(start)
+    except (TypeError, ValueError):
+        return f"{where}: the rate, starting time or conversion factor is not a number"
+    if not (np.isfinite(rate) and rate > 0):
+        return (f"{where}: the sampling rate is {rate:g} Hz; it must be a positive, finite "
+                "number, so the sweep was not read. The file's time axis is damaged")
+    if not np.isfinite(start):
+        return (f"{where}: the starting time is {start:g} s; it must be a finite number, so "
+                "the sweep was not read. The file's time axis is damaged")
+    if not (np.isfinite(conversion) and conversion > 0):
+        return (f"{where}: the conversion factor to {series.unit if series.unit in ('volts', 'amperes') else 'SI units'} "
+                f"is {conversion:g}; it must be a positive, finite number, so the sweep was "
+                "not read")
+    return None
+
+
+def _nwb_signals(path: Path, shown: str, max_sweep_samples: int
+                 ) -> tuple[list, object, dict]:
     """The analog series of an NWB file as neo signals: neo's lazy proxies opened on the
     file's acquisition and stimulus series, short ones loaded, long ones left in the file.
 
-    Returns (signals, the open pynwb reader, to be closed when the long ones are read).
+    Series whose time axis or scale is unusable, or whose declared size is beyond
+    `max_sweep_samples` or the memory available, are not loaded.
+
+    Returns (signals, the open pynwb reader, to be closed when the long ones are read,
+    {sweep number or None: why that series was refused}).
     """
     import pynwb
     from neo.io.nwbio import AnalogSignalProxy
 
     reader = pynwb.NWBHDF5IO(str(path), mode="r", load_namespaces=True)
+    refused: dict = {}
     try:
         nwbfile = reader.read()
         signals = []
         for group_name in ("acquisition", "stimulus"):
             for series in getattr(nwbfile, group_name).values():
-                if isinstance(series, pynwb.misc.AnnotationSeries) or not getattr(
-                        series, "rate", None):
+                if isinstance(series, pynwb.misc.AnnotationSeries) or (
+                        getattr(series, "rate", None) is None):
+                    continue  # not sampled at a rate (timestamps, annotations)
+                number = getattr(series, "sweep_number", None)
+                name = _safe_name(series.name)
+                where = (f"{shown}, series {name or 'without a plain name'}"
+                         + (f" (sweep_number {int(number)})" if number is not None else ""))
+                problem = _nwb_series_problem(series, where)
+                if problem is None:
+                    shape = tuple(series.data.shape)
+                    long_one = (len(shape) >= 1 and shape[0] > LONG_SWEEP_SAMPLES
+                                and (len(shape) == 1 or shape[1] == 1))
+                    problem = _size_problem(where, shape, max_sweep_samples,
+                                            whole=not long_one)
+                if problem is not None:
+                    refused.setdefault(None if number is None else int(number), problem)
                     continue
                 proxy = AnalogSignalProxy(series, group_name)
                 signals.append(_LongSignal(proxy, shown) if _is_long(proxy) else proxy.load())
     except BaseException:
         reader.close()
         raise
-    return signals, reader
+    return signals, reader, refused
 
 
-def _read_nwb(path: Path, shown: str) -> Recording:
+def _read_nwb(path: Path, shown: str, max_sweep_samples: int) -> Recording:
 
     with open(path, "rb") as fh:
         if fh.read(8) != _HDF5_SIGNATURE:
@@ -364,11 +545,12 @@ def _read_nwb(path: Path, shown: str) -> Recording:
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            signals, reader = _nwb_signals(path, shown)
+            signals, reader, refused = _nwb_signals(path, shown, max_sweep_samples)
     except Exception as exc:  # the NWB stack raises many types; keep the cause
-        raise UnreadableInputError(f"{shown}: cannot be read as NWB ({_hdf5_reason(exc)})") from exc
+        raise UnreadableInputError(
+            f"{shown}: cannot be read as NWB ({_library_failure(exc)})") from exc
     try:
-        recording = _nwb_recording(signals, path, shown)
+        recording = _nwb_recording(signals, path, shown, refused)
     except BaseException:
         reader.close()
         raise
@@ -379,12 +561,12 @@ def _read_nwb(path: Path, shown: str) -> Recording:
                      recording.problems, release=reader.close)
 
 
-def _nwb_recording(signals: list, path: Path, shown: str) -> Recording:
+def _nwb_recording(signals: list, path: Path, shown: str, refused: dict) -> Recording:
     import neo
 
     by_sweep: dict[int, dict[str, list]] = {}
     types = {_nwb_type(s) for s in signals}
-    if not types & _CC_RESPONSE:
+    if not types & _CC_RESPONSE and not refused:
         if types & _VC_TYPES:
             raise UnreadableInputError(
                 f"{shown}: a voltage-clamp recording (it holds VoltageClampSeries and no "
@@ -397,7 +579,7 @@ def _nwb_recording(signals: list, path: Path, shown: str) -> Recording:
                 block = neo.io.NWBIO(str(path), mode="r").read_block(lazy=False)
         except Exception as exc:  # the NWB stack raises many types; keep the cause
             raise UnreadableInputError(
-                f"{shown}: cannot be read as NWB ({_hdf5_reason(exc)})") from exc
+                f"{shown}: cannot be read as NWB ({_library_failure(exc)})") from exc
         return _segments_to_recording(block.segments, shown, "NWB (by channel units)")
     for order, s in enumerate(signals):
         kind = _nwb_type(s)
@@ -407,76 +589,109 @@ def _nwb_recording(signals: list, path: Path, shown: str) -> Recording:
         key = int(number) if number is not None else order
         slot = by_sweep.setdefault(key, {"response": [], "stimulus": []})
         slot["response" if kind in _CC_RESPONSE else "stimulus"].append(s)
-    sweeps, problems, first_channels = [], [], []
+    problems = [why for number, why in refused.items() if number is None]
+    for number in refused:
+        if number is not None:
+            by_sweep.setdefault(number, {"response": [], "stimulus": []})
+    sweeps, first_channels = [], []
     for index, number in enumerate(sorted(by_sweep)):
         slot = by_sweep[number]
         label = f"sweep_number {number}"
+        if number in refused:
+            problems.append(refused[number].replace(
+                f"{shown}, ", f"{shown}, sweep {index}, ", 1))
+            continue
         if not slot["response"]:
             problems.append(f"{shown}, sweep {index} ({label}): a stimulus with no voltage "
                             "response; skipped")
             continue
         response = slot["response"][0]
         stimulus = slot["stimulus"][0] if slot["stimulus"] else None
-        label = f"sweep_number {number}, {response.name}"
+        name = _safe_name(response.name)
+        label = f"sweep_number {number}" + (f", {name}" if name else "")
         parts = [response] + ([stimulus] if stimulus is not None else [])
-        sweep, channels, problem = _sweep_from_signals(parts, shown, index, label)
-        if (stimulus is not None and sweep is not None and sweep.command_pa is None and problem
-                and not isinstance(stimulus, _LongSignal)):
+        sweep, channels, found = _sweep_from_signals(parts, shown, index, label)
+        if (stimulus is not None and sweep is not None and sweep.command_pa is None
+                and found and found[-1].endswith("it was not used as the command")):
             # align a stimulus that starts later or is longer than the response
-            sweep, problem = _align_stimulus(sweep, response, stimulus, problem)
+            sweep, aligned = _align_stimulus(sweep, response, stimulus)
+            if aligned:
+                found = found[:-1]
         if not first_channels:
             first_channels = channels
-        if problem:
-            problems.append(problem)
+        problems.extend(found)
         if len(slot["response"]) > 1:
             problems.append(f"{shown}, sweep {index} ({label}): {len(slot['response'])} responses "
                             "share this sweep number; the first was used")
         if sweep is not None:
             sweeps.append(sweep)
     if not sweeps:
-        raise UnreadableInputError(problems[0] if problems else
-                                   f"{shown}: no current-clamp sweeps found")
+        raise UnreadableInputError(
+            f"{shown}: no current-clamp sweeps found" if not problems else problems[0]
+            if len(problems) == 1 else f"{problems[0]} (and {len(problems) - 1} more problems)")
     return Recording(shown, "NWB (intracellular series paired by sweep number)", sweeps,
                      first_channels, problems)
 
 
-def _align_stimulus(sweep: Sweep, response, stimulus, problem: str) -> tuple[Sweep, str | None]:
-    """Cut a stimulus to the response's time span when both share a sampling rate."""
+def _align_stimulus(sweep: Sweep, response, stimulus) -> tuple[Sweep, bool]:
+    """Cut a stimulus to the response's time span when both share a sampling rate.
+
+    Either may be long and left in the file (:class:`_LongSignal`); a long stimulus is cut
+    lazily. Returns (the sweep, with the command when it could be aligned; whether it was).
+    """
     rate = sweep.sampling_rate_hz
     s_rate = float(stimulus.sampling_rate.rescale("Hz"))
     if abs(s_rate - rate) > 1e-6 * rate:
-        return sweep, problem
+        return sweep, False
     offset = int(round((float(response.t_start.rescale("s")) -
                         float(stimulus.t_start.rescale("s"))) * rate))
     to_pa = _scale_to(stimulus, "pA")
-    column = np.asarray(stimulus.magnitude, dtype=np.float64).reshape(-1) * to_pa
-    if offset < 0 or offset + sweep.n_samples > column.size:
-        return sweep, problem
-    aligned = column[offset:offset + sweep.n_samples]
-    return Sweep(sweep.voltage_mv, rate, aligned, sweep.file, sweep.index, sweep.label,
-                 sweep.channel_info), None
+    if to_pa is None:
+        return sweep, False
+    if isinstance(stimulus, _LongSignal):
+        column = stimulus.trace() * to_pa
+    else:
+        column = np.asarray(stimulus.magnitude, dtype=np.float64).reshape(-1) * to_pa
+    n = sweep.n_samples
+    if offset < 0 or offset + n > column.size:
+        return sweep, False
+    if isinstance(column, LazyTrace):
+        whole = column
+        aligned = LazyTrace(lambda a, b: whole[offset + a:offset + b], n)
+    else:
+        aligned = column[offset:offset + n]
+    try:
+        settled = _settle_long_sweep(Sweep(sweep.voltage_mv, rate, aligned, sweep.file,
+                                           sweep.index, sweep.label, sweep.channel_info))
+    except UnreadableInputError:
+        return sweep, False
+    return settled, True
 
 
 # --------------------------------------------------------------------------- NIX and others
 
-def _nix_longest_array(path: Path) -> int:
-    """The length of the longest data array in a NIX file, from the HDF5 layout alone."""
+def _nix_array_sizes(path: Path) -> tuple[int, int]:
+    """The most rows and the most values of any data array in a NIX file, from the HDF5
+    layout alone (nothing is read)."""
     import h5py
 
-    longest = 0
+    longest = largest = 0
 
     def visit(name, obj):
-        nonlocal longest
+        nonlocal longest, largest
         if isinstance(obj, h5py.Dataset) and name.endswith("/data") and obj.ndim >= 1:
             longest = max(longest, int(obj.shape[0]))
+            largest = max(largest, int(np.prod([int(d) for d in obj.shape], dtype=object)))
 
     with h5py.File(path, "r") as fh:
         fh.visititems(visit)
-    return longest
+    return longest, largest
 
 
-def _read_nix_lazily(path: Path, shown: str) -> Recording:
-    """A NIX file with long signals: neo's lazy NIX reader, long signals left in the file."""
+def _read_nix_lazily(path: Path, shown: str, max_sweep_samples: int) -> Recording:
+    """A NIX file with long or very large signals: neo's lazy NIX reader, long signals left
+    in the file, and sweeps declaring more than `max_sweep_samples` samples (or more than the
+    memory available, for those read whole) refused before they are read."""
     import neo
 
     io = neo.io.NixIOFr(str(path))
@@ -485,13 +700,17 @@ def _read_nix_lazily(path: Path, shown: str) -> Recording:
         segments = []
         for block in blocks:
             for segment in block.segments:
-                signals = [_LongSignal(p, shown) if _is_long(p) else p.load()
-                           for p in segment.analogsignals]
-                segments.append(_Segment(segment.name or "", signals))
+                where = _where(shown, len(segments), _safe_name(segment.name))
+                refused = next((problem for problem in (
+                    _size_problem(where, p.shape, max_sweep_samples, whole=not _is_long(p))
+                    for p in segment.analogsignals) if problem), "")
+                signals = [] if refused else [_LongSignal(p, shown) if _is_long(p) else p.load()
+                                              for p in segment.analogsignals]
+                segments.append(_Segment(segment.name or "", signals, refused))
+        recording = _segments_to_recording(segments, shown, "NIX (one sweep per segment)")
     except BaseException:
         _close_rawio(io)
         raise
-    recording = _segments_to_recording(segments, shown, "NIX (one sweep per segment)")
     if not any(sw.is_lazy for sw in recording.sweeps):
         _close_rawio(io)
         return recording
@@ -503,6 +722,7 @@ def _read_nix_lazily(path: Path, shown: str) -> Recording:
 class _Segment:
     name: str
     analogsignals: list
+    refused: str = ""
 
 
 def _close_rawio(io) -> None:
@@ -511,7 +731,7 @@ def _close_rawio(io) -> None:
         handle.close()
 
 
-def _read_nix(path: Path, shown: str) -> Recording:
+def _read_nix(path: Path, shown: str, max_sweep_samples: int) -> Recording:
     import neo
 
     with open(path, "rb") as fh:
@@ -522,14 +742,18 @@ def _read_nix(path: Path, shown: str) -> Recording:
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            if _nix_longest_array(path) > LONG_SWEEP_SAMPLES:
-                return _read_nix_lazily(path, shown)
+            longest, largest = _nix_array_sizes(path)
+            available = _available_memory_bytes()
+            if (longest > LONG_SWEEP_SAMPLES or largest > max_sweep_samples
+                    or (available is not None and 8 * largest > available)):
+                return _read_nix_lazily(path, shown, max_sweep_samples)
             with neo.io.NixIO(str(path), mode="ro") as io:
                 blocks = io.read_all_blocks(lazy=False)
     except UnreadableInputError:
         raise
     except Exception as exc:  # nixio and h5py raise many types; keep the cause
-        raise UnreadableInputError(f"{shown}: cannot be read as NIX ({_hdf5_reason(exc)})") from exc
+        raise UnreadableInputError(
+            f"{shown}: cannot be read as NIX ({_library_failure(exc)})") from exc
     segments = [seg for blk in blocks for seg in blk.segments]
     return _segments_to_recording(segments, shown, "NIX (one sweep per segment)")
 
@@ -539,11 +763,11 @@ def _read_other(path: Path, shown: str) -> Recording:
 
     try:
         candidates = neo.io.list_candidate_ios(str(path))
-    except ValueError:
+    except Exception:  # neo's suffix table only; no reader is a clear answer below
         candidates = []
     if not candidates:
         raise UnreadableInputError(
-            f"{shown}: no reader for '{path.suffix or 'no suffix'}' files; spikemeasure reads "
+            f"{shown}: no reader for files with this suffix; spikemeasure reads "
             "NWB, NIX, text (.txt/.csv/.tsv) and the formats neo recognizes by suffix")
     reasons = []
     for cls in candidates:
@@ -556,11 +780,17 @@ def _read_other(path: Path, shown: str) -> Recording:
                 io = cls(str(path))
                 blocks = io.read(lazy=False)
         except Exception as exc:  # each neo reader raises its own types; keep every cause
-            reasons.append(f"{cls.__name__}: {type(exc).__name__}: {exc}")
+            # the type only: a reader's text can quote the file
+            reasons.append(f"{cls.__name__} failed with {type(exc).__name__}")
             continue
         segments = [seg for blk in blocks for seg in blk.segments]
-        return _segments_to_recording(segments, shown, f"neo {cls.__name__}")
-    raise UnreadableInputError(f"{shown}: no reader could open it ({'; '.join(reasons)})")
+        try:
+            return _segments_to_recording(segments, shown, f"neo {cls.__name__}")
+        except UnreadableInputError as exc:
+            reasons.append(f"{cls.__name__} read it, but {str(exc).removeprefix(shown + ': ')}")
+    raise UnreadableInputError(
+        f"{shown}: no reader could open it ({'; '.join(reasons)}); the file may be damaged "
+        "or of another format")
 
 
 # --------------------------------------------------------------------------- text
@@ -577,22 +807,134 @@ def _split_unit(column_name: str) -> tuple[str, str]:
     return name, ""
 
 
-def _read_text(path: Path, shown: str, sampling_rate_hz: float | None) -> Recording:
-    with open(path, "r", encoding="utf-8", errors="replace") as fh:
-        header = fh.readline()
-        second = fh.readline()
+_TEXT_BOMS = ((b"\xff\xfe\x00\x00", "UTF-32"), (b"\x00\x00\xfe\xff", "UTF-32"),
+              (b"\xff\xfe", "UTF-16"), (b"\xfe\xff", "UTF-16"))
+_UTF8_BOM = b"\xef\xbb\xbf"
+_HEAD_BYTES = 1 << 16
+_DECIMAL_COMMA = re.compile(r"[-+]?\d*,\d+(?:[eE][-+]?\d+)?")
+_THOUSANDS = re.compile(r"[-+]?\d{1,3}(?:[,'\u00a0\u202f ]\d{3})+(?:\.\d*)?(?:[eE][-+]?\d+)?")
+_SEPARATOR_NAMES = {"\t": "tabs", ",": "commas", ";": "semicolons", None: "spaces"}
+_TEXT_RULES = ("spikemeasure reads text with columns separated by tabs, commas or spaces and "
+               "numbers written with '.' as the decimal mark and no thousands separator")
+
+
+def _separator_of(line: str) -> str | None:
+    """The separator a line seems to use: tab, comma, semicolon, or None (spaces)."""
+    for candidate in ("\t", ",", ";"):
+        if candidate in line:
+            return candidate
+    return None
+
+
+def _text_head(path: Path, shown: str) -> tuple[str, str]:
+    """The header line and the first data line, decoded as UTF-8 (a UTF-8 byte-order mark is
+    dropped), or an error saying why the file is not such text."""
+    with open(path, "rb") as fh:
+        head = fh.read(_HEAD_BYTES)
+    for bom, encoding in _TEXT_BOMS:
+        if head.startswith(bom):
+            raise UnreadableInputError(
+                f"{shown}: the file is {encoding} text (it starts with a {encoding} byte-order "
+                "mark); save it as UTF-8 text")
+    if b"\x00" in head:
+        raise UnreadableInputError(
+            f"{shown}: not a text file (it holds zero bytes, as binary files do); "
+            f"{_TEXT_RULES}, under a header row")
+    if head.startswith(_UTF8_BOM):
+        head = head[len(_UTF8_BOM):]
+    if not head.strip():
+        raise UnreadableInputError(f"{shown}: the file holds only blank lines")
+    lines = head.split(b"\n", 2)
+    if len(lines) == 1 and len(head) >= _HEAD_BYTES - len(_UTF8_BOM):
+        raise UnreadableInputError(
+            f"{shown}: the first line is longer than {_HEAD_BYTES // 1024} KiB, so it is not a "
+            "header row; the file may be binary or damaged")
+    decoded = []
+    for number, raw in enumerate(lines[:2], start=1):
+        try:
+            decoded.append(raw.decode("utf-8"))
+        except UnicodeDecodeError:
+            raise UnreadableInputError(
+                f"{shown}: not UTF-8 text (line {number} holds bytes that are not UTF-8); the "
+                "file may be binary, or text in another encoding: save it as UTF-8") from None
+    return decoded[0], decoded[1] if len(decoded) > 1 else ""
+
+
+def _cell_problem(cell: str) -> str | None:
+    """Why a data cell is not a number, or None when it is one."""
+    text = cell.strip()
+    try:
+        float(text)
+        return None
+    except ValueError:
+        pass
+    if not text:
+        return "is empty"
+    if _THOUSANDS.fullmatch(text):
+        return "is not a number: it seems to hold a thousands separator"
+    if _DECIMAL_COMMA.fullmatch(text):
+        return "is not a number: it seems to use ',' as the decimal mark"
+    return "is not a number"
+
+
+def _diagnose_rows(path: Path, shown: str, delimiter: str | None, n_columns: int) -> str:
+    """Find the first data line numpy could not parse and say what is wrong with it (never
+    quoting it): its encoding, its number of fields, its separator, or the cell that is not a
+    number."""
+    with open(path, "rb") as fh:
+        for number, raw in enumerate(fh, start=1):
+            if number == 1:
+                continue
+            try:
+                line = raw.decode("utf-8")
+            except UnicodeDecodeError:
+                return (f"{shown}: line {number} holds bytes that are not UTF-8 text; the file "
+                        "may be damaged, or text in another encoding: save it as UTF-8")
+            line = line.split("#", 1)[0].strip("\r\n")
+            if not line.strip():
+                continue
+            cells = line.split(delimiter) if delimiter else line.split()
+            if len(cells) != n_columns:
+                used = _separator_of(line)
+                if used != delimiter and len(line.split(used) if used else line.split()) == n_columns:
+                    return (f"{shown}: line {number} is separated by "
+                            f"{_SEPARATOR_NAMES[used]} but the header by "
+                            f"{_SEPARATOR_NAMES[delimiter]}; use one separator throughout")
+                hint = ""
+                if delimiter == "," and len(cells) > n_columns:
+                    hint = (" (a ',' used as the decimal mark or as a thousands separator in a "
+                            "comma-separated file does this)")
+                return (f"{shown}: line {number} has {len(cells)} field"
+                        f"{'s' if len(cells) != 1 else ''} but the header names {n_columns} "
+                        f"columns{hint}; the file may be truncated, or {_TEXT_RULES}")
+            for column, cell in enumerate(cells, start=1):
+                why = _cell_problem(cell)
+                if why:
+                    return (f"{shown}: line {number}, column {column} {why}; {_TEXT_RULES}")
+    return (f"{shown}: the data rows cannot be read as numbers; {_TEXT_RULES}")
+
+
+def _read_text(path: Path, shown: str, sampling_rate_hz: float | None,
+               max_sweep_samples: int) -> Recording:
+    header, second = _text_head(path, shown)
     if not header.strip():
-        raise UnreadableInputError(f"{shown}: the file is empty")
-    delimiter = "\t" if "\t" in header else ("," if "," in header else None)
+        raise UnreadableInputError(
+            f"{shown}: the first line is blank; it must be the header row naming each column "
+            "with its unit, e.g. time_s, voltage_mV, current_pA")
+    delimiter = _separator_of(header)
+    if delimiter == ";":
+        comma = " and numbers use ',' as the decimal mark" if re.search(r"\d,\d", second) else ""
+        raise UnreadableInputError(
+            f"{shown}: the columns are separated by semicolons{comma}; {_TEXT_RULES}. Export "
+            "the file again with '.' as decimal mark and tabs or commas between columns")
     names = [n.strip() for n in (header.split(delimiter) if delimiter else header.split())]
-    if all(re.fullmatch(r"[-+0-9.eE]+", n or "x") for n in names):
+    if all(re.fullmatch(r"[-+0-9.,eE]+", n or "x") for n in names):
         raise UnreadableInputError(
             f"{shown}: no header row; the first line must name each column with its unit, "
             "e.g. time_s, voltage_mV, current_pA")
-    if not second.strip():
-        raise UnreadableInputError(f"{shown}: a header row but no data rows")
     roles: dict[str, tuple[int, float]] = {}
     channels = []
+    extra_voltages = []
     for col, raw in enumerate(names):
         _, unit = _split_unit(raw)
         role = "ignored"
@@ -602,18 +944,25 @@ def _read_text(path: Path, shown: str, sampling_rate_hz: float | None) -> Record
                 roles[kind] = (col, table[unit])
                 role = kind
                 break
-        channels.append(ChannelInfo(raw, unit or "?", role))
+        name = _safe_name(raw.strip('"').strip("'"), f"column {col + 1}")
+        if role == "ignored" and unit in _VOLT_TO_MV:
+            extra_voltages.append(name)
+        known = unit in _SECOND_TO_S or unit in _VOLT_TO_MV or unit in _AMP_TO_PA
+        channels.append(ChannelInfo(name, unit if known else "?", role))
     if "voltage" not in roles:
         raise UnreadableInputError(
-            f"{shown}: no voltage column; the header ({', '.join(names)}) must name one with a "
-            "unit suffix such as voltage_mV or voltage_V")
+            f"{shown}: no voltage column: none of the {len(names)} column names of the header "
+            "row ends in a voltage unit; name one such as voltage_mV or voltage_V")
     try:
-        data = np.loadtxt(path, delimiter=delimiter, skiprows=1, dtype=np.float64, ndmin=2,
-                          comments="#")
-    except ValueError as exc:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # numpy warns of an empty file; said below
+            data = np.loadtxt(path, delimiter=delimiter, skiprows=1, dtype=np.float64,
+                              ndmin=2, comments="#", encoding="utf-8-sig")
+    except (ValueError, UnicodeDecodeError) as exc:
         raise UnreadableInputError(
-            f"{shown}: cannot parse the data rows ({exc}); the file may be truncated or have "
-            "text where numbers belong") from exc
+            _diagnose_rows(path, shown, delimiter, len(names))) from exc
+    if data.size == 0:
+        raise UnreadableInputError(f"{shown}: a header row but no data rows")
     if data.shape[1] != len(names):
         raise UnreadableInputError(
             f"{shown}: the header names {len(names)} columns but rows have {data.shape[1]}")
@@ -621,15 +970,30 @@ def _read_text(path: Path, shown: str, sampling_rate_hz: float | None) -> Record
         raise UnreadableInputError(
             f"{shown}: only {data.shape[0]} data row{'s' if data.shape[0] != 1 else ''}; a "
             "sweep needs at least 3")
+    if data.shape[0] > max_sweep_samples:
+        raise UnreadableInputError(
+            f"{shown}, sweep 0: {data.shape[0]:,} samples, more than max_sweep_samples "
+            f"({max_sweep_samples:,}); raise --max-sweep-samples if the recording really is "
+            "that long")
     if "time" in roles:
         col, scale = roles["time"]
         t = data[:, col] * scale
-        steps = np.diff(t)
-        dt = float(np.median(steps))
-        if not dt > 0 or np.max(np.abs(steps - dt)) > 0.01 * dt:
-            bad = int(np.argmax(np.abs(steps - dt))) + 3  # +1 header, +1 diff, 1-based lines
+        if not np.isfinite(t).all():
+            row = int(np.argmin(np.isfinite(t))) + 1
             raise UnreadableInputError(
-                f"{shown}: the time column is not evenly spaced (around line {bad}); "
+                f"{shown}: the time column is not a finite number at data row {row}; "
+                "spikemeasure needs a constant sampling rate")
+        steps = np.diff(t)
+        if (steps <= 0).any():
+            row = int(np.argmax(steps <= 0)) + 2
+            raise UnreadableInputError(
+                f"{shown}: the time column does not increase at data row {row} (a step of "
+                "zero or less); spikemeasure needs increasing times at a constant sampling rate")
+        dt = float(np.median(steps))
+        if np.max(np.abs(steps - dt)) > 0.01 * dt:
+            row = int(np.argmax(np.abs(steps - dt))) + 2
+            raise UnreadableInputError(
+                f"{shown}: the time column is not evenly spaced (around data row {row}); "
                 "spikemeasure needs a constant sampling rate")
         rate = 1.0 / dt
         if sampling_rate_hz is not None and abs(rate - sampling_rate_hz) > 1e-3 * rate:
@@ -651,6 +1015,12 @@ def _read_text(path: Path, shown: str, sampling_rate_hz: float | None) -> Record
     sweep = Sweep(voltage_mv=voltage, sampling_rate_hz=rate, command_pa=command, file=shown,
                   index=0, label="", channel_info=tuple(channels))
     problems = []
+    if extra_voltages:
+        problems.append(
+            f"{shown}, sweep 0: {len(extra_voltages)} more voltage column"
+            f"{'s were' if len(extra_voltages) != 1 else ' was'} not measured "
+            f"({', '.join(extra_voltages)}); only the first, {channels[v_col].name}, was. Split "
+            "the columns into files of their own to measure them")
     if command is not None and _looks_like_command(voltage) and not _looks_like_command(command):
         raise UnreadableInputError(
             f"{shown}: this looks like a voltage-clamp recording (the voltage column is a few "
@@ -661,7 +1031,8 @@ def _read_text(path: Path, shown: str, sampling_rate_hz: float | None) -> Record
 # --------------------------------------------------------------------------- entry points
 
 def read_recording(path: str | os.PathLike, *, shown_as: str | None = None,
-                   sampling_rate_hz: float | None = None) -> Recording:
+                   sampling_rate_hz: float | None = None,
+                   max_sweep_samples: int | None = None) -> Recording:
     """Read one file into sweeps.
 
     Parameters
@@ -672,6 +1043,11 @@ def read_recording(path: str | os.PathLike, *, shown_as: str | None = None,
         How to name the file in sweeps and messages (default: the path as given).
     sampling_rate_hz : float, optional
         For text files without a time column.
+    max_sweep_samples : int, optional
+        Sweeps declaring more samples than this are refused before they are read (default
+        :data:`DEFAULT_MAX_SWEEP_SAMPLES`); so are sweeps read whole whose declared float64
+        size exceeds the memory available. Each refusal is a problem of the recording, or the
+        error when no sweep is left.
 
     Returns
     -------
@@ -681,7 +1057,10 @@ def read_recording(path: str | os.PathLike, *, shown_as: str | None = None,
     ------
     UnreadableInputError
         The file does not exist, is empty, truncated, of an unknown or unsafe format, or holds
-        no current-clamp voltage. The message names the file and, where it applies, the sweep.
+        no current-clamp voltage. The message names the file and, where it applies, the sweep,
+        and never quotes the file's content.
+    InvalidSettingError
+        `max_sweep_samples` is not a positive whole number.
     """
     p = Path(path)
     shown = shown_as if shown_as is not None else str(path)
@@ -691,16 +1070,24 @@ def read_recording(path: str | os.PathLike, *, shown_as: str | None = None,
         raise UnreadableInputError(f"{shown}: is a folder; pass it to find_recordings")
     if p.stat().st_size == 0:
         raise UnreadableInputError(f"{shown}: the file is empty")
-    if sampling_rate_hz is not None and not sampling_rate_hz > 0:
+    if sampling_rate_hz is not None and not (np.isfinite(sampling_rate_hz)
+                                             and sampling_rate_hz > 0):
         raise UnreadableInputError(f"{shown}: the sampling rate must be positive")
+    if max_sweep_samples is None:
+        max_sweep_samples = DEFAULT_MAX_SWEEP_SAMPLES
+    if (isinstance(max_sweep_samples, bool) or not isinstance(max_sweep_samples, (int, np.integer))
+            or max_sweep_samples < 1):
+        raise InvalidSettingError(
+            f"`max_sweep_samples` must be a positive whole number (got {max_sweep_samples!r})")
+    max_sweep_samples = int(max_sweep_samples)
     _refuse_code_formats(p)
     suffix = p.suffix.lower()
     if suffix == ".nwb":
-        return _read_nwb(p, shown)
+        return _read_nwb(p, shown, max_sweep_samples)
     if suffix == ".nix":
-        return _read_nix(p, shown)
+        return _read_nix(p, shown, max_sweep_samples)
     if suffix in TEXT_SUFFIXES:
-        return _read_text(p, shown, sampling_rate_hz)
+        return _read_text(p, shown, sampling_rate_hz, max_sweep_samples)
     return _read_other(p, shown)
 
 

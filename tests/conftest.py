@@ -234,3 +234,55 @@ def rc_cell_sweeps(steps=RC_STEPS_PA, spikes=RC_SPIKES_PER_STEP, duration_s: flo
         v += noise.normal(0.0, 0.05, n)
         out.append((v, step_command(n, RC_RATE_HZ, size, onset, offset)))
     return out
+
+
+# --------------------------------------------------------------------------- damaged files
+
+def set_hdf5_values(path, name_ends, *, attribute=None, value, within=""):
+    """Overwrite, with h5py, what a writer would refuse to write: the attribute `attribute`
+    (or, without one, the scalar value) of every object whose name ends with `name_ends`
+    (and contains `within`). Returns how many objects were changed."""
+    import h5py
+
+    changed = []
+
+    def visit(name, obj):
+        if name.endswith(name_ends) and within in name:
+            if attribute is None:
+                obj[()] = value
+            else:
+                obj.attrs[attribute] = value
+            changed.append(name)
+
+    with h5py.File(path, "r+") as fh:
+        fh.visititems(visit)
+    assert changed, f"nothing named *{name_ends} in the file"
+    return len(changed)
+
+
+def write_nix_sampling_interval(path, sweeps, interval_s):
+    """A NIX file written by neo, then given the sampling interval `interval_s` (0, NaN,
+    negative, infinite) in every signal's time dimension, as a damaged file would hold."""
+    write_nix(path, sweeps)
+    set_hdf5_values(path, "dimensions/1", attribute="sampling_interval", value=interval_s)
+    return path
+
+
+def write_nwb_huge_declared(path, n_samples=10 ** 10, rate_hz=20_000.0):
+    """An NWB file whose current-clamp response and stimulus declare `n_samples` samples in a
+    chunked, compressed dataset of fill values: a few kB on disk, 80 GB as float64."""
+    import h5py
+
+    short = np.full(1000, -70.0)
+    write_nwb(path, [(short, np.zeros(1000))], rate_hz=rate_hz)
+    with h5py.File(path, "r+") as fh:
+        for group in ("acquisition/voltage_0", "stimulus/presentation/command_0"):
+            old = fh[group]["data"]
+            attrs = dict(old.attrs)
+            del fh[group]["data"]
+            new = fh[group].create_dataset("data", shape=(n_samples,), dtype="f8",
+                                           chunks=(1 << 20,), compression="gzip",
+                                           fillvalue=0.0)
+            for key, val in attrs.items():
+                new.attrs[key] = val
+    return path
