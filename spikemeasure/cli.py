@@ -80,6 +80,10 @@ def _settings_options(func):
         click.option("--sampling-rate", "sampling_rate_hz", type=click.FloatRange(min=0, min_open=True),
                      default=None, metavar="HZ",
                      help="Sampling rate for text files without a time column, in Hz."),
+        click.option("--max-sweep-samples", "max_sweep_samples", type=click.IntRange(min=1),
+                     default=None, metavar="N",
+                     help="Refuse, unread, any sweep whose file declares more samples than "
+                          "this [default: 1000000000]."),
     ]
     for option in reversed(options):
         func = option(func)
@@ -92,7 +96,7 @@ def _check_step_options(step_times, step_sizes) -> None:
 
 
 _FILE_KEYS = {"step_times": "step_s", "step_sizes": "step_sizes_pa",
-              "sampling_rate_hz": "sampling_rate_hz",
+              "sampling_rate_hz": "sampling_rate_hz", "max_sweep_samples": "max_sweep_samples",
               **{name: name for name in DetectionSettings.__dataclass_fields__}}
 
 
@@ -231,6 +235,7 @@ def measure(ctx: click.Context, paths, out_dir, jobs, force, patterns, cluster, 
         summary = measure_paths(list(paths), out_dir, params.settings,
                                 step_times=params.step_times, step_sizes=params.step_sizes,
                                 sampling_rate_hz=params.sampling_rate_hz,
+                                max_sweep_samples=params.max_sweep_samples,
                                 jobs=jobs or default_jobs(), force=force,
                                 extra_patterns=tuple(patterns), config_file=params.config_file,
                                 cluster=cluster,
@@ -282,7 +287,8 @@ def inspect(ctx: click.Context, file, show, config_path, **kw):
         _check_step_options(params.step_times, params.step_sizes)
         found = inspect_file(file, params.settings, step_times=params.step_times,
                              step_sizes=params.step_sizes,
-                             sampling_rate_hz=params.sampling_rate_hz)
+                             sampling_rate_hz=params.sampling_rate_hz,
+                             max_sweep_samples=params.max_sweep_samples)
     except SpikemeasureError as exc:
         _fail(ctx, exc)
         return
@@ -382,6 +388,7 @@ def check(ctx: click.Context, paths, out_dir, jobs, junit_path, as_json, max_row
                                         step_times=params.step_times,
                                         step_sizes=params.step_sizes,
                                         sampling_rate_hz=params.sampling_rate_hz,
+                                        max_sweep_samples=params.max_sweep_samples,
                                         jobs=jobs or default_jobs(),
                                         config_file=params.config_file, progress=progress)
             except KeyboardInterrupt:

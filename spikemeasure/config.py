@@ -1,7 +1,7 @@
 """A lab's project file, ``spikemeasure.toml``: the settings a team measures with.
 
 The file holds one table, ``[measure]``, whose keys are named like the fields of
-:class:`~spikemeasure.detection.DetectionSettings` plus three run options::
+:class:`~spikemeasure.detection.DetectionSettings` plus four run options::
 
     [measure]
     onset_rate_v_per_s = 20.0
@@ -10,6 +10,7 @@ The file holds one table, ``[measure]``, whose keys are named like the fields of
     step_s = [0.1, 0.7]          # current step start and end, s
     step_sizes_pa = "-100:20"    # FIRST:INCREMENT, pA
     sampling_rate_hz = 20000
+    max_sweep_samples = 1000000000   # sweeps declaring more are refused unread
 
 Values given on the command line win over the file, and the file wins over the defaults of
 :class:`~spikemeasure.detection.DetectionSettings`. The file is only ever parsed as TOML;
@@ -55,7 +56,7 @@ CONFIG_SECTION = "measure"
 SETTING_KEYS: tuple[str, ...] = tuple(f.name for f in fields(DetectionSettings))
 
 #: Keys for the run options outside :class:`DetectionSettings`.
-RUN_KEYS: tuple[str, ...] = ("step_s", "step_sizes_pa", "sampling_rate_hz")
+RUN_KEYS: tuple[str, ...] = ("step_s", "step_sizes_pa", "sampling_rate_hz", "max_sweep_samples")
 
 #: Every key ``[measure]`` accepts.
 KNOWN_KEYS: tuple[str, ...] = SETTING_KEYS + RUN_KEYS
@@ -65,7 +66,7 @@ _STRING_KEYS = frozenset({"threshold_method"})
 
 _EXAMPLES = {"step_s": "[0.1, 0.7]", "step_sizes_pa": '"-100:20"',
              "sampling_rate_hz": "20000.0", "threshold_method": f'"{THRESHOLD_METHODS[0]}"',
-             "min_samples_across_width": "3"}
+             "min_samples_across_width": "3", "max_sweep_samples": "1000000000"}
 
 
 #: The table of quality limits, read by ``spikemeasure check``.
@@ -123,6 +124,9 @@ class RunParameters:
         Sampling rate for text files without a time column.
     config_file : str or None
         The project file the values came from, or None when none was used.
+    max_sweep_samples : int or None
+        Sweeps declaring more samples are refused before they are read; None: the reader's
+        default (:data:`spikemeasure.reading.DEFAULT_MAX_SWEEP_SAMPLES`).
     """
 
     settings: DetectionSettings
@@ -130,6 +134,7 @@ class RunParameters:
     step_sizes: tuple[float, float] | None
     sampling_rate_hz: float | None
     config_file: str | None
+    max_sweep_samples: int | None = None
 
     def as_dict(self) -> dict:
         """The parameters as one flat, JSON-ready dictionary, keyed as in the project file.
@@ -138,7 +143,8 @@ class RunParameters:
         -------
         dict
             Every :class:`DetectionSettings` field, ``step_s`` and ``step_sizes_pa`` (lists of
-            two numbers, or None), ``sampling_rate_hz`` and ``config_file``.
+            two numbers, or None), ``sampling_rate_hz``, ``max_sweep_samples`` and
+            ``config_file``.
 
         Notes
         -----
@@ -149,6 +155,7 @@ class RunParameters:
                 "step_s": list(self.step_times) if self.step_times is not None else None,
                 "step_sizes_pa": list(self.step_sizes) if self.step_sizes is not None else None,
                 "sampling_rate_hz": self.sampling_rate_hz,
+                "max_sweep_samples": self.max_sweep_samples,
                 "config_file": self.config_file}
 
     @classmethod
@@ -178,10 +185,14 @@ class RunParameters:
         settings = DetectionSettings(**{k: values[k] for k in SETTING_KEYS if k in values})
         pair = lambda v: None if v is None else (float(v[0]), float(v[1]))  # noqa: E731
         rate = values.get("sampling_rate_hz")
+        limit = values.get("max_sweep_samples")
+        if limit is not None:
+            limit = _checked("max_sweep_samples", limit, "`max_sweep_samples`", from_file=False,
+                             error=InvalidSettingError)
         return cls(settings=settings, step_times=pair(values.get("step_s")),
                    step_sizes=pair(values.get("step_sizes_pa")),
                    sampling_rate_hz=None if rate is None else float(rate),
-                   config_file=values.get("config_file"))
+                   config_file=values.get("config_file"), max_sweep_samples=limit)
 
 
 def find_config_file(paths: Sequence[str | os.PathLike]) -> Path | None:
@@ -225,7 +236,8 @@ def load_config(path: str | os.PathLike) -> dict:
     -------
     dict
         The keys the file sets, named as in the file, with checked values: floats for the
-        numeric settings and ``sampling_rate_hz``, an int for ``min_samples_across_width``, a
+        numeric settings and ``sampling_rate_hz``, an int for ``min_samples_across_width`` and
+        ``max_sweep_samples``, a
         str for ``threshold_method``, ``(start_s, end_s)`` for ``step_s`` and
         ``(first_pa, increment_pa)`` for ``step_sizes_pa``. A file without ``[measure]``
         gives an empty dict.
@@ -319,7 +331,8 @@ def merge_parameters(file_values: Mapping[str, Any], cli_values: Mapping[str, An
     cli_values : mapping
         Only the options the user gave on the command line, keyed like the project file: the
         :class:`DetectionSettings` field names, ``step_s`` (start, end), ``step_sizes_pa``
-        (``"FIRST:INCREMENT"`` or (first, increment)) and ``sampling_rate_hz``.
+        (``"FIRST:INCREMENT"`` or (first, increment)), ``sampling_rate_hz`` and
+        ``max_sweep_samples``.
     config_file : str or None
         The project file `file_values` came from, for messages and the run record.
 
@@ -387,7 +400,8 @@ def merge_parameters(file_values: Mapping[str, Any], cli_values: Mapping[str, An
     return RunParameters(settings=settings, step_times=values.get("step_s"),
                          step_sizes=values.get("step_sizes_pa"),
                          sampling_rate_hz=values.get("sampling_rate_hz"),
-                         config_file=config_file)
+                         config_file=config_file,
+                         max_sweep_samples=values.get("max_sweep_samples"))
 
 
 def _settings_from(values: Mapping[str, Any],
@@ -448,6 +462,11 @@ def _checked(key: str, value: Any, where: str, *, from_file: bool,
             if math.isfinite(first) and math.isfinite(increment):
                 return first, increment
         fail('text "FIRST:INCREMENT" in pA (quoted)')
+    if key == "max_sweep_samples":
+        if (not _is_number(value) or not math.isfinite(float(value)) or float(value) < 1
+                or float(value) != int(value)):
+            fail("a positive whole number of samples")
+        return int(value)
     if not _is_number(value):
         fail("a number")
     number = float(value)

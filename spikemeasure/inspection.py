@@ -51,10 +51,12 @@ def describe_file(path: str, settings: DetectionSettings = DetectionSettings(), 
 def inspect_file(path: str, settings: DetectionSettings = DetectionSettings(), *,
                  step_times: tuple[float, float] | None = None,
                  step_sizes: tuple[float, float] | None = None,
-                 sampling_rate_hz: float | None = None) -> Inspection:
+                 sampling_rate_hz: float | None = None,
+                 max_sweep_samples: int | None = None) -> Inspection:
     """As :func:`describe_file`, keeping the sweep results and the recording too (for figures;
     call :meth:`Inspection.close` when done with them)."""
-    recording = read_recording(path, sampling_rate_hz=sampling_rate_hz)
+    recording = read_recording(path, sampling_rate_hz=sampling_rate_hz,
+                               max_sweep_samples=max_sweep_samples)
     try:
         results = measure_recording(recording, settings, step_times, step_sizes)
     except BaseException:

@@ -152,7 +152,8 @@ def measure_file(path: str, shown: str, parameters: dict, figures: dict | None =
                "figure_format": figures["format"] if figures else None}
     try:
         recording = read_recording(path, shown_as=shown,
-                                   sampling_rate_hz=parameters.get("sampling_rate_hz"))
+                                   sampling_rate_hz=parameters.get("sampling_rate_hz"),
+                                   max_sweep_samples=parameters.get("max_sweep_samples"))
     except SpikemeasureError as exc:
         outcome["failures"].append(_failure(shown, "read", str(exc)))
         return outcome
@@ -246,6 +247,8 @@ def _parameter_hash(parameters: dict, is_text: bool) -> str:
     relevant = dict(parameters, version=__version__)
     if not is_text:
         relevant.pop("sampling_rate_hz", None)
+    if relevant.get("max_sweep_samples") is None:  # the default: outcomes kept before it stay
+        relevant.pop("max_sweep_samples", None)
     return hashlib.sha256(json.dumps(relevant, sort_keys=True).encode()).hexdigest()[:16]
 
 
@@ -297,7 +300,8 @@ def measure_paths(paths: list[str], out_dir: str | Path,
                   settings: DetectionSettings = DetectionSettings(), *,
                   step_times: tuple[float, float] | None = None,
                   step_sizes: tuple[float, float] | None = None,
-                  sampling_rate_hz: float | None = None, jobs: int = 1, force: bool = False,
+                  sampling_rate_hz: float | None = None, max_sweep_samples: int | None = None,
+                  jobs: int = 1, force: bool = False,
                   extra_patterns: tuple[str, ...] = (), config_file: str | None = None,
                   cluster: str | None = None, cluster_timeout_s: float = 20.0,
                   figure_format: str | None = None, groups=None,
@@ -319,6 +323,9 @@ def measure_paths(paths: list[str], out_dir: str | Path,
         With `step_times`: the step sizes of such sweeps, by sweep index.
     sampling_rate_hz : float, optional
         For text files without a time column.
+    max_sweep_samples : int, optional
+        Sweeps declaring more samples are refused before they are read (default
+        :data:`spikemeasure.reading.DEFAULT_MAX_SWEEP_SAMPLES`).
     jobs : int, optional
         Processes to measure files in (1: this process).
     force : bool, optional
@@ -361,7 +368,8 @@ def measure_paths(paths: list[str], out_dir: str | Path,
     parameters = {"settings": settings.as_dict(),
                   "step_s": list(step_times) if step_times else None,
                   "step_sizes_pa": list(step_sizes) if step_sizes else None,
-                  "sampling_rate_hz": sampling_rate_hz}
+                  "sampling_rate_hz": sampling_rate_hz,
+                  "max_sweep_samples": max_sweep_samples}
     if figure_format is not None:
         from .figures import FIGURE_FORMATS
 
@@ -549,7 +557,8 @@ def _finish_run(summary: RunSummary, entries: list[dict], outcomes: list[dict | 
         "config_file": config_file,
         "parameters": {**parameters["settings"], "step_s": parameters["step_s"],
                        "step_sizes_pa": parameters["step_sizes_pa"],
-                       "sampling_rate_hz": parameters["sampling_rate_hz"]},
+                       "sampling_rate_hz": parameters["sampling_rate_hz"],
+                       "max_sweep_samples": parameters["max_sweep_samples"]},
         "inputs": summary.inputs,
         "failures": summary.failures,
         "totals": {"files_measured": summary.files_measured,

@@ -154,11 +154,16 @@ class Sweep:
 def check_sweep(sweep: Sweep) -> None:
     """Raise :class:`UnmeasurableDataError` if a sweep cannot be measured at all.
 
-    Catches a sampling rate below :data:`MIN_SAMPLING_RATE_HZ`, NaN or infinite samples
+    Catches a sampling rate that is not finite or is below :data:`MIN_SAMPLING_RATE_HZ`, NaN
+    or infinite samples
     (reporting the stretch), traces too short to hold a spike, and a command channel whose
     length differs from the voltage.
     """
     v = sweep.voltage_mv
+    if not np.isfinite(sweep.sampling_rate_hz):
+        raise UnmeasurableDataError(
+            f"{sweep.where()}: sampled at {sweep.sampling_rate_hz:g} Hz; the sampling rate must "
+            "be a finite number")
     if not sweep.sampling_rate_hz >= MIN_SAMPLING_RATE_HZ:
         raise UnmeasurableDataError(
             f"{sweep.where()}: sampled at {sweep.sampling_rate_hz:g} Hz, too slow to resolve "

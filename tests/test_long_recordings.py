@@ -16,14 +16,14 @@ from scipy.ndimage import gaussian_filter1d
 
 from spikemeasure import measurement, reading
 from spikemeasure.detection import DetectionSettings
-from spikemeasure.errors import InvalidSettingError
+from spikemeasure.errors import InvalidSettingError, UnreadableInputError
 from spikemeasure.measurement import (SpikeMeasurements, measure_in_pieces, measure_trace,
                                       piece_margin_samples)
 from spikemeasure.runner import measure_paths
 from spikemeasure.simulation import simulate_current_waveform
 from spikemeasure.sweeps import LazyTrace
 
-from conftest import write_nix, write_nwb
+from conftest import write_nix, write_nwb, write_nwb_huge_declared
 
 RATE_HZ = 20_000.0
 
@@ -236,3 +236,121 @@ def test_a_long_file_gets_its_figures_while_read_in_pieces(tmp_path, gap_free, s
     assert summary.files_failed == 0 and summary.failures == []
     drawn = sorted(p.name for p in (tmp_path / "out" / "figures").rglob("*.png"))
     assert {"traces.png", "first_spike.png", "phase_plot.png"} <= set(drawn)
+
+
+# ------------------------------------------------------------------ responses and stimuli of other lengths
+
+def test_a_long_response_with_a_shorter_stimulus(tmp_path, gap_free, small_pieces):
+    """NWB (pynwb): a response long enough to stay in the file, its stimulus shorter. As for
+    short sweeps, the stimulus is not used as the command, and the problem says why."""
+    short_stimulus = np.zeros(gap_free.size // 2)
+    path = write_nwb(tmp_path / "short_stimulus.nwb", [(gap_free, short_stimulus)],
+                     rate_hz=RATE_HZ)
+    with reading.read_recording(path, shown_as="short_stimulus.nwb") as rec:
+        sweep, = rec.sweeps
+        assert sweep.is_lazy and sweep.command_pa is None
+        assert rec.problems == [
+            "short_stimulus.nwb, sweep 0 (sweep_number 0, voltage_0): the current channel "
+            f"({short_stimulus.size} samples at 20000 Hz) does not match the voltage "
+            f"({gap_free.size} samples at 20000 Hz); it was not used as the command"]
+    summary = measure_paths([str(path)], tmp_path / "out", jobs=1)
+    assert summary.files_measured == 1 and len(summary.failures) == 1
+
+
+def test_a_long_stimulus_that_starts_earlier_is_cut_to_the_response(tmp_path, gap_free,
+                                                                    small_pieces):
+    """Both long and left in the file; the stimulus starts 0.5 s before the response and
+    steps inside it: its part under the response (by the series' starting times, NWB) is the
+    command, as on the in-memory path, and the sweep is read whole for the step features."""
+    lead = int(0.5 * RATE_HZ)
+    stimulus = np.zeros(gap_free.size + 2 * lead)
+    stimulus[lead + 20_000:lead + 60_000] = 50.0
+    path = write_nwb(tmp_path / "early.nwb", [(gap_free, stimulus)], rate_hz=RATE_HZ,
+                     stimulus_offset_s=-0.5)
+    with reading.read_recording(path) as rec:
+        sweep, = rec.sweeps
+        assert rec.problems == []
+        assert not sweep.is_lazy
+        np.testing.assert_allclose(sweep.command_pa, stimulus[lead:lead + gap_free.size],
+                                   atol=1e-6)
+
+
+# ------------------------------------------------------------------ declared sizes
+
+class _Unread(Exception):
+    """Raised by any attempt to read samples, to show a refusal reads none."""
+
+
+@pytest.fixture()
+def no_sample_reads(monkeypatch):
+    from neo.io.nwbio import AnalogSignalProxy
+
+    def refuse(self, time_slice=None, strict_slicing=True):
+        raise _Unread("samples were read")
+
+    monkeypatch.setattr(AnalogSignalProxy, "load", refuse)
+
+
+def test_a_sweep_declaring_ten_billion_samples_is_refused_unread(tmp_path, no_sample_reads):
+    """An NWB file (h5py: a chunked, gzip-compressed dataset of fill values, a few kB on disk)
+    whose voltage and stimulus declare 10^10 samples: refused from its declared shape, before
+    any sample is read (reading it took more than ten minutes)."""
+    path = write_nwb_huge_declared(tmp_path / "huge.nwb")
+    assert path.stat().st_size < 1_000_000
+    with pytest.raises(UnreadableInputError) as caught:
+        reading.read_recording(path, shown_as="huge.nwb")
+    message = str(caught.value)
+    assert message.startswith("huge.nwb, sweep 0, series voltage_0 (sweep_number 0): the file "
+                              "declares 10,000,000,000 samples for this sweep, more than "
+                              "max_sweep_samples (1,000,000,000); it was not read")
+    summary = measure_paths([str(path)], tmp_path / "out", jobs=1)
+    assert summary.files_failed == 1
+    assert "10,000,000,000 samples" in summary.failures[0]["message"]
+
+
+def test_the_limit_is_a_run_parameter(tmp_path):
+    """--max-sweep-samples and the project file's max_sweep_samples reach the reader; the
+    run record keeps the value."""
+    import json
+
+    from click.testing import CliRunner
+
+    from spikemeasure.cli import main
+
+    short = [(np.full(2000, -70.0), np.zeros(2000))]
+    folder = tmp_path / "in"
+    folder.mkdir()
+    write_nix(folder / "cell.nix", short, rate_hz=RATE_HZ)
+    with reading.read_recording(folder / "cell.nix", max_sweep_samples=2000) as rec:
+        assert len(rec.sweeps) == 1
+    with pytest.raises(UnreadableInputError,
+                       match=r"cell\.nix, sweep 0: the file declares 2,000 samples for this "
+                             r"sweep, more than max_sweep_samples \(1,999\)"):
+        reading.read_recording(folder / "cell.nix", shown_as="cell.nix", max_sweep_samples=1999)
+    with pytest.raises(InvalidSettingError, match="max_sweep_samples"):
+        reading.read_recording(folder / "cell.nix", max_sweep_samples=0)
+
+    result = CliRunner().invoke(main, ["measure", str(folder), "--out", str(tmp_path / "a"),
+                                       "--max-sweep-samples", "1999", "--no-figures"])
+    assert result.exit_code == 1, result.output
+    assert "more than max_sweep_samples (1,999)" in (tmp_path / "a" / "errors.csv").read_text()
+    record = json.loads((tmp_path / "a" / "run.json").read_text())
+    assert record["parameters"]["max_sweep_samples"] == 1999
+
+    (folder / "spikemeasure.toml").write_text("[measure]\nmax_sweep_samples = 1500\n")
+    result = CliRunner().invoke(main, ["measure", str(folder), "--out", str(tmp_path / "b"),
+                                       "--no-figures"])
+    assert result.exit_code == 1, result.output
+    assert "more than max_sweep_samples (1,500)" in (tmp_path / "b" / "errors.csv").read_text()
+
+
+def test_a_sweep_larger_than_the_memory_available_is_not_read_whole(tmp_path, monkeypatch):
+    """The declared size as float64 against the memory available (here said to be 1 kB):
+    a 2,000-sample sweep (16 kB) read whole is refused before it is read."""
+    monkeypatch.setattr(reading, "_available_memory_bytes", lambda: 1000, raising=False)
+    for writer, name in ((write_nwb, "cell.nwb"), (write_nix, "cell.nix")):
+        path = writer(tmp_path / name, [(np.full(2000, -70.0), np.zeros(2000))],
+                      rate_hz=RATE_HZ)
+        with pytest.raises(UnreadableInputError, match=r"GiB of memory available; it was not "
+                                                       r"read"):
+            reading.read_recording(path)

@@ -1,12 +1,17 @@
 """Reading NWB, NIX and text files into sweeps, and refusing what cannot be read."""
 import pickle
+import re
 
 import numpy as np
 import pytest
 
-from conftest import gaussian_train, step_command, write_nix, write_nwb, write_text
-from spikemeasure.errors import UnreadableInputError
+from conftest import (gaussian_train, set_hdf5_values, step_command, write_nix,
+                      write_nix_sampling_interval, write_nwb, write_text)
+from spikemeasure import reading
+from spikemeasure.errors import UnmeasurableDataError, UnreadableInputError
 from spikemeasure.reading import find_recordings, read_recording
+from spikemeasure.runner import measure_paths
+from spikemeasure.sweeps import Sweep, check_sweep
 from spikemeasure.tables import measure_recording, spike_table
 
 RATE = 20_000.0
@@ -226,3 +231,297 @@ def test_other_formats_through_neo_detection(tmp_path):
     assert rec.format == "neo NeoMatlabIO"
     np.testing.assert_allclose(rec.sweeps[0].voltage_mv, v, rtol=1e-12)
     np.testing.assert_allclose(rec.sweeps[0].command_pa, i, rtol=1e-12, atol=1e-9)
+
+
+# ------------------------------------------------------------------ damaged time axes and scales
+
+class TestDamagedTimeAxis:
+    """Files written with neo's NixIO and pynwb (the open standards), then given, with h5py,
+    a sampling interval, rate, starting time or conversion factor no writer accepts. Each
+    must be one error naming the file, the sweep and the value, not a crash."""
+
+    @pytest.mark.parametrize("interval, shown", [(0.0, "0"), (np.nan, "nan"), (-5e-5, "-5e-05"),
+                                                 (np.inf, "inf")])
+    def test_nix_sampling_interval(self, tmp_path, interval, shown):
+        path = write_nix_sampling_interval(tmp_path / "bad.nix", _sweeps(1), interval)
+        with pytest.raises(UnreadableInputError) as caught:
+            read_recording(path, shown_as="bad.nix")
+        message = str(caught.value)
+        assert message.startswith("bad.nix, sweep 0: the sampling rate is")
+        assert f"(sampling interval {shown} s)" in message
+        assert message.count("sampling") == 2  # one message, not two contradicting ones
+
+    @pytest.mark.parametrize("rate", [0.0, np.nan, -20_000.0, np.inf])
+    def test_nwb_rate(self, tmp_path, rate):
+        path = write_nwb(tmp_path / "bad.nwb", _sweeps(1), rate_hz=RATE)
+        set_hdf5_values(path, "starting_time", attribute="rate", value=rate)
+        with pytest.raises(UnreadableInputError,
+                           match=rf"bad\.nwb, sweep 0, series voltage_0 \(sweep_number 0\): the "
+                                 rf"sampling rate is {rate:g} Hz; it must be a positive, finite"):
+            read_recording(path)
+
+    @pytest.mark.parametrize("start", [np.nan, np.inf])
+    def test_nwb_starting_time(self, tmp_path, start):
+        path = write_nwb(tmp_path / "bad.nwb", _sweeps(1), rate_hz=RATE)
+        set_hdf5_values(path, "starting_time", value=start, within="acquisition")
+        with pytest.raises(UnreadableInputError,
+                           match=rf"bad\.nwb, sweep 0, series voltage_0 .*the starting time is "
+                                 rf"{start:g} s"):
+            read_recording(path)
+
+    @pytest.mark.parametrize("factor", [0.0, np.nan, -1e-3])
+    def test_nwb_conversion_factor(self, tmp_path, factor):
+        # 0 made neo take the stored millivolts for volts: -70 mV read as -70,000 mV
+        path = write_nwb(tmp_path / "bad.nwb", _sweeps(1), rate_hz=RATE)
+        set_hdf5_values(path, "data", attribute="conversion", value=factor, within="acquisition")
+        with pytest.raises(UnreadableInputError,
+                           match=rf"bad\.nwb, sweep 0, .*the conversion factor to volts is "
+                                 rf"{factor:g}; it must be a positive, finite number"):
+            read_recording(path)
+
+    def test_one_bad_sweep_leaves_the_others(self, tmp_path):
+        sweeps = _sweeps(3)
+        path = write_nwb(tmp_path / "cell.nwb", sweeps, rate_hz=RATE)
+        set_hdf5_values(path, "starting_time", attribute="rate", value=0.0, within="voltage_1")
+        rec = read_recording(path, shown_as="cell.nwb")
+        assert [s.index for s in rec.sweeps] == [0, 2]
+        np.testing.assert_allclose(rec.sweeps[1].voltage_mv, sweeps[2][0], rtol=1e-6, atol=1e-4)
+        assert len(rec.problems) == 1
+        assert rec.problems[0].startswith("cell.nwb, sweep 1, series voltage_1 (sweep_number 1):")
+        assert "the sampling rate is 0 Hz" in rec.problems[0]
+
+    @pytest.mark.parametrize("times, row", [("0\n0\n0\n0", 2), ("0\n0.001\n0.0005\n0.0015", 3)])
+    def test_text_time_that_does_not_increase(self, tmp_path, times, row):
+        path = tmp_path / "back.txt"
+        path.write_text("time_s\tvoltage_mV\n" +
+                        "\n".join(f"{t}\t-70" for t in times.split("\n")) + "\n")
+        with pytest.raises(UnreadableInputError,
+                           match=rf"back\.txt: the time column does not increase at data row "
+                                 rf"{row} \(a step of zero or less\)"):
+            read_recording(path)
+
+    def test_an_infinite_rate_is_not_measured(self):
+        sweep = Sweep(np.zeros(100), float("inf"), file="x.nwb", index=2)
+        with pytest.raises(UnmeasurableDataError, match=r"x\.nwb, sweep 2: sampled at inf Hz; the sampling rate must be a finite"):
+            check_sweep(sweep)
+
+
+# ------------------------------------------------------------------ several voltage channels
+
+def test_voltage_channels_after_the_first_are_named_as_not_measured(tmp_path):
+    """A NIX sweep (neo's NixIO) holding two voltage channels in one signal and a third in a
+    second signal: the first is measured, the others are named in the problems, which land
+    in errors.csv."""
+    import neo
+    import quantities as pq
+
+    (v, i), = _sweeps(1)
+    seg = neo.Segment(name="sweep 0")
+    seg.analogsignals.append(neo.AnalogSignal(np.column_stack([v, v + 1.0]), units="mV",
+                                              sampling_rate=RATE * pq.Hz, name="vm"))
+    seg.analogsignals.append(neo.AnalogSignal(v[:, None] * 1e-3, units="V",
+                                              sampling_rate=RATE * pq.Hz, name="second"))
+    seg.analogsignals.append(neo.AnalogSignal(i[:, None], units="pA",
+                                              sampling_rate=RATE * pq.Hz, name="command"))
+    block = neo.Block()
+    block.segments.append(seg)
+    path = tmp_path / "two_cells.nix"
+    with neo.io.NixIO(str(path), mode="ow") as io:
+        io.write_block(block)
+    rec = read_recording(path)
+    np.testing.assert_allclose(rec.sweeps[0].voltage_mv, v, rtol=1e-12)
+    assert rec.problems == [
+        f"{path}, sweep 0: 2 more voltage channels were not measured (vm[1], second); only "
+        "the first, vm[0], was. Split the channels into files of their own to measure them"]
+    summary = measure_paths([str(path)], tmp_path / "out", jobs=1)
+    assert summary.files_measured == 1
+    assert any("vm[1], second" in f["message"] for f in summary.failures)
+    assert "vm[1], second" in (tmp_path / "out" / "errors.csv").read_text()
+
+
+def test_a_second_voltage_column_of_a_text_file_is_named(tmp_path):
+    (v, i), = _sweeps(1)
+    t = np.arange(v.size) / RATE
+    path = tmp_path / "two.csv"
+    np.savetxt(path, np.column_stack([t, v, v, i]), delimiter=",", comments="",
+               header="time_s,cell_a_mV,cell_b_mV,current_pA", fmt="%.10g")
+    rec = read_recording(path)
+    np.testing.assert_allclose(rec.sweeps[0].voltage_mv, v, rtol=1e-9)
+    assert rec.problems == [
+        f"{path}, sweep 0: 1 more voltage column was not measured (cell_b_mV); only the first, "
+        "cell_a_mV, was. Split the columns into files of their own to measure them"]
+
+
+# ------------------------------------------------------------------ text files: what is wrong
+
+_ROWS = [(0.0, -70.125, 10.5), (5e-5, -70.25, 10.5), (1e-4, -70.375, 10.5), (1.5e-4, -70.5, 0.0)]
+
+
+def _text(rows, cell, sep):
+    return "\n".join(sep.join(cell(x) for x in row) for row in rows) + "\n"
+
+
+@pytest.mark.parametrize("name, content, expected", [
+    ("semicolons.csv",
+     "time_s;voltage_mV;current_pA\n" + _text(_ROWS, lambda x: repr(x).replace(".", ","), ";"),
+     r"the columns are separated by semicolons and numbers use ',' as the decimal mark"),
+    ("semicolons_dot.csv",
+     "time_s;voltage_mV;current_pA\n" + _text(_ROWS, repr, ";"),
+     r"the columns are separated by semicolons; "),
+    ("decimal_comma.tsv",
+     "time_s\tvoltage_mV\tcurrent_pA\n" + _text(_ROWS, lambda x: repr(x).replace(".", ","), "\t"),
+     r"line 2, column 1 is not a number: it seems to use ',' as the decimal mark"),
+    ("decimal_comma.csv",
+     "time_s,voltage_mV,current_pA\n" + _text(_ROWS, lambda x: repr(x).replace(".", ","), ","),
+     r"line 2 has 6 fields but the header names 3 columns \(a ',' used as the decimal mark"),
+    ("thousands.tsv",
+     "time_s\tvoltage_mV\tcurrent_pA\n" + _text([(r[0], r[1], 1234.5) for r in _ROWS],
+                                                lambda x: f"{x:,}", "\t"),
+     r"line 2, column 3 is not a number: it seems to hold a thousands separator"),
+    ("spaces.txt",
+     "time_s\tvoltage_mV\tcurrent_pA\n" + _text(_ROWS, repr, " "),
+     r"line 2 is separated by spaces but the header by tabs"),
+    ("comment_only.txt", "time_s\tvoltage_mV\n# nothing recorded\n",
+     r"a header row but no data rows"),
+    ("blank.txt", "\n\n\n", r"the file holds only blank lines"),
+    ("word.txt", "time_s\tvoltage_mV\n0\t-70\n0.00005\tabc\n0.0001\t-70\n",
+     r"line 3, column 2 is not a number; "),
+])
+def test_text_says_what_is_wrong(tmp_path, name, content, expected):
+    """Each message names the file and the problem (the separator, the decimal mark, the line
+    and column), not the header or the numbers."""
+    path = tmp_path / name
+    path.write_text(content, encoding="utf-8")
+    with pytest.raises(UnreadableInputError, match=rf"^{re.escape(str(path))}: .*{expected}"):
+        read_recording(path)
+
+
+@pytest.mark.parametrize("encoding, expected", [("utf-16", "the file is UTF-16 text"),
+                                                ("utf-32", "the file is UTF-32 text"),
+                                                ("latin-1", r"not UTF-8 text \(line 1 ")])
+def test_text_in_other_encodings(tmp_path, encoding, expected):
+    path = tmp_path / "cell.txt"
+    path.write_bytes("time_s\tvoltage_µV\n0\t-70000\n0.00005\t-70000\n0.0001\t-70000\n"
+                     .encode(encoding))
+    with pytest.raises(UnreadableInputError, match=rf"cell\.txt: {expected}"):
+        read_recording(path)
+
+
+def test_a_utf8_byte_order_mark_is_read_past(tmp_path):
+    (v, i), = _sweeps(1)
+    plain = write_text(tmp_path / "plain.txt", v, i, rate_hz=RATE)
+    marked = tmp_path / "marked.txt"
+    marked.write_bytes(b"\xef\xbb\xbf" + plain.read_bytes().replace(b"time_s", b"current_pA", 0))
+    # a comment line after the header is skipped as numpy skips it
+    marked.write_bytes(marked.read_bytes().replace(b"\n", b"\n# exported\n", 1))
+    a, b = read_recording(plain), read_recording(marked)
+    np.testing.assert_array_equal(a.sweeps[0].voltage_mv, b.sweeps[0].voltage_mv)
+    assert b.sweeps[0].sampling_rate_hz == pytest.approx(RATE, rel=1e-6)
+
+
+def test_binary_bytes_are_not_taken_for_text(tmp_path):
+    path = tmp_path / "image.txt"
+    path.write_bytes(bytes(range(256)) * 4)
+    with pytest.raises(UnreadableInputError,
+                       match=r"image\.txt: not a text file \(it holds zero bytes"):
+        read_recording(path)
+
+
+# ------------------------------------------------------------------ no file content in messages
+
+SECRET = "s3cret-Line-7"
+
+
+@pytest.mark.parametrize("content", [
+    f"root:x:0:0:{SECRET}:/root:/bin/sh\ndaemon:x:1:1:{SECRET}:/usr/sbin\n",
+    f"time_s\tvoltage_mV\n0\t{SECRET}\n0.1\t-70\n0.2\t-70\n",
+    f"time_s,voltage_mV,{SECRET}_mV\n0,-70\n",
+    f"{SECRET};voltage_mV\n",
+    f"time_s\tvoltage_mV\n0\t-70 {SECRET}\n0.1\t-70\n",
+    f"{SECRET}\n".encode("utf-16").decode("latin-1"),
+])
+def test_no_file_content_reaches_a_message(tmp_path, content):
+    """A link named like a recording to some other file (a system file, in the case that was
+    seen): the message and every output of the run say what is wrong, never what it holds."""
+    target = tmp_path / "elsewhere" / "accounts"
+    target.parent.mkdir()
+    target.write_text(content, encoding="latin-1")
+    folder = tmp_path / "in"
+    folder.mkdir()
+    (folder / "x.txt").symlink_to(target)
+    with pytest.raises(UnreadableInputError) as caught:
+        read_recording(folder / "x.txt", shown_as="x.txt")
+    assert str(caught.value).startswith("x.txt")
+    assert SECRET.lower() not in str(caught.value).lower()
+    summary = measure_paths([str(folder)], tmp_path / "out", jobs=1)
+    assert summary.files_failed == 1
+    for written in (tmp_path / "out").rglob("*"):
+        if written.is_file():
+            assert SECRET.lower() not in written.read_text(errors="replace").lower(), written.name
+
+
+def test_names_from_a_file_are_shown_only_when_plain(tmp_path):
+    """A segment and a signal named with a line of text (as a file can name them): the
+    message speaks of the sweep by its number and of the channel by its units."""
+    import neo
+    import quantities as pq
+
+    seg = neo.Segment(name=f"root:x:0:0:{SECRET}:/root")
+    seg.analogsignals.append(neo.AnalogSignal(np.zeros((100, 1)), units="pA",
+                                              sampling_rate=RATE * pq.Hz,
+                                              name=f"/home/{SECRET}/notes"))
+    block = neo.Block()
+    block.segments.append(seg)
+    path = tmp_path / "named.nix"
+    with neo.io.NixIO(str(path), mode="ow") as io:
+        io.write_block(block)
+    with pytest.raises(UnreadableInputError,
+                       match=r"named\.nix, sweep 0: no channel in volts \(1 channel in pA\)"
+                       ) as caught:
+        read_recording(path)
+    assert SECRET not in str(caught.value)
+
+
+def test_a_reader_failure_is_named_by_its_type_only(tmp_path, monkeypatch):
+    """Formats neo finds by suffix are tried reader after reader; a reader's exception text
+    can quote the file, so only its type is kept, and every reader tried is named."""
+    import neo.io
+
+    class QuotingIO:
+        def __init__(self, filename):
+            self.filename = filename
+
+        def read(self, lazy=False):
+            raise ValueError(f"could not parse {SECRET!r}")
+
+    class BrokenIO(QuotingIO):
+        def read(self, lazy=False):
+            raise KeyError(SECRET)
+
+    monkeypatch.setattr(neo.io, "list_candidate_ios", lambda _: [QuotingIO, BrokenIO])
+    path = tmp_path / "cell.odd"
+    path.write_text(SECRET)
+    with pytest.raises(UnreadableInputError) as caught:
+        read_recording(path, shown_as="cell.odd")
+    message = str(caught.value)
+    assert message.startswith("cell.odd: no reader could open it (QuotingIO failed with "
+                              "ValueError; BrokenIO failed with KeyError)")
+    assert SECRET not in message
+
+
+def test_a_library_failure_keeps_its_type_not_its_text(tmp_path, monkeypatch):
+    """pynwb/hdmf errors can quote names and values read from the file: only their type and
+    a fixed description are kept (HDF5's own error texts hold no data and are kept)."""
+    import pynwb
+
+    path = write_nwb(tmp_path / "cell.nwb", _sweeps(1), rate_hz=RATE)
+
+    def failing_read(self):
+        raise ValueError(f"bad value {SECRET!r} in 'acquisition'")
+
+    monkeypatch.setattr(pynwb.NWBHDF5IO, "read", failing_read)
+    with pytest.raises(UnreadableInputError,
+                       match=r"cell\.nwb: cannot be read as NWB \(ValueError in the reading "
+                             r"library; ") as caught:
+        read_recording(path)
+    assert SECRET not in str(caught.value)
