@@ -1068,6 +1068,10 @@ def read_recording(path: str | os.PathLike, *, shown_as: str | None = None,
         raise UnreadableInputError(f"{shown}: no such file")
     if p.is_dir():
         raise UnreadableInputError(f"{shown}: is a folder; pass it to find_recordings")
+    if not p.is_file():
+        raise UnreadableInputError(
+            f"{shown}: not a regular file (a device, pipe or socket); spikemeasure reads "
+            "recordings saved as files")
     if p.stat().st_size == 0:
         raise UnreadableInputError(f"{shown}: the file is empty")
     if sampling_rate_hz is not None and not (np.isfinite(sampling_rate_hz)
@@ -1080,15 +1084,19 @@ def read_recording(path: str | os.PathLike, *, shown_as: str | None = None,
         raise InvalidSettingError(
             f"`max_sweep_samples` must be a positive whole number (got {max_sweep_samples!r})")
     max_sweep_samples = int(max_sweep_samples)
-    _refuse_code_formats(p)
-    suffix = p.suffix.lower()
-    if suffix == ".nwb":
-        return _read_nwb(p, shown, max_sweep_samples)
-    if suffix == ".nix":
-        return _read_nix(p, shown, max_sweep_samples)
-    if suffix in TEXT_SUFFIXES:
-        return _read_text(p, shown, sampling_rate_hz, max_sweep_samples)
-    return _read_other(p, shown)
+    try:
+        _refuse_code_formats(p)
+        suffix = p.suffix.lower()
+        if suffix == ".nwb":
+            return _read_nwb(p, shown, max_sweep_samples)
+        if suffix == ".nix":
+            return _read_nix(p, shown, max_sweep_samples)
+        if suffix in TEXT_SUFFIXES:
+            return _read_text(p, shown, sampling_rate_hz, max_sweep_samples)
+        return _read_other(p, shown)
+    except OSError as exc:  # opening or reading the file itself (permissions, I/O errors)
+        raise UnreadableInputError(
+            f"{shown}: cannot be read ({exc.strerror or type(exc).__name__})") from exc
 
 
 _TEMPORARY = re.compile(r"^(~|\.~|\.#)|(~|\.tmp|\.temp|\.part|\.swp|\.crdownload|\.partial)$",

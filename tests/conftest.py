@@ -286,3 +286,24 @@ def write_nwb_huge_declared(path, n_samples=10 ** 10, rate_hz=20_000.0):
             for key, val in attrs.items():
                 new.attrs[key] = val
     return path
+
+
+def write_nix_huge_declared(path, n_samples=10 ** 10, rate_hz=20_000.0):
+    """A two-sweep NIX file (neo's NixIO) whose first data array is replaced, with h5py, by a
+    chunked, compressed dataset of fill values declaring `n_samples` samples."""
+    import h5py
+
+    short = np.full(1000, -70.0)
+    write_nix(path, [(short, np.zeros(1000))] * 2, rate_hz=rate_hz)
+    with h5py.File(path, "r+") as fh:
+        arrays = []
+        fh.visititems(lambda name, obj: arrays.append(name) if isinstance(obj, h5py.Dataset)
+                      and name.endswith("/data") else None)
+        name = sorted(arrays)[0]
+        attrs = dict(fh[name].attrs)
+        del fh[name]
+        new = fh.create_dataset(name, shape=(n_samples, 1), dtype="f8", chunks=(1 << 20, 1),
+                                compression="gzip", fillvalue=0.0)
+        for key, val in attrs.items():
+            new.attrs[key] = val
+    return path

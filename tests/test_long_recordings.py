@@ -23,7 +23,7 @@ from spikemeasure.runner import measure_paths
 from spikemeasure.simulation import simulate_current_waveform
 from spikemeasure.sweeps import LazyTrace
 
-from conftest import write_nix, write_nwb, write_nwb_huge_declared
+from conftest import write_nix, write_nix_huge_declared, write_nwb, write_nwb_huge_declared
 
 RATE_HZ = 20_000.0
 
@@ -306,6 +306,30 @@ def test_a_sweep_declaring_ten_billion_samples_is_refused_unread(tmp_path, no_sa
     summary = measure_paths([str(path)], tmp_path / "out", jobs=1)
     assert summary.files_failed == 1
     assert "10,000,000,000 samples" in summary.failures[0]["message"]
+
+
+def test_a_nix_sweep_declaring_ten_billion_samples_is_refused_the_other_kept(tmp_path,
+                                                                            monkeypatch):
+    """NIX (neo's NixIO, one array swapped by h5py for 10^10 declared samples): that sweep is
+    refused before any of its samples is read (neo's proxies refuse to load here), and the
+    other sweep of the file is read."""
+    from neo.io.proxyobjects import AnalogSignalProxy
+
+    path = write_nix_huge_declared(tmp_path / "huge.nix")
+    real_load = AnalogSignalProxy.load
+
+    def load_small_only(self, *args, **kwargs):
+        if self.shape[0] > 10_000:
+            raise _Unread("samples of the huge array were read")
+        return real_load(self, *args, **kwargs)
+
+    monkeypatch.setattr(AnalogSignalProxy, "load", load_small_only)
+    with reading.read_recording(path, shown_as="huge.nix") as rec:
+        (kept,) = [s.index for s in rec.sweeps]  # which segment the huge array is in varies
+        assert rec.problems == [
+            f"huge.nix, sweep {1 - kept}: the file declares 10,000,000,000 samples for this "
+            "sweep, more than max_sweep_samples (1,000,000,000); it was not read. Raise "
+            "--max-sweep-samples if the recording really is that long"]
 
 
 def test_the_limit_is_a_run_parameter(tmp_path):

@@ -1,4 +1,5 @@
 """Reading NWB, NIX and text files into sweeps, and refusing what cannot be read."""
+import os
 import pickle
 import re
 
@@ -290,14 +291,16 @@ class TestDamagedTimeAxis:
         assert rec.problems[0].startswith("cell.nwb, sweep 1, series voltage_1 (sweep_number 1):")
         assert "the sampling rate is 0 Hz" in rec.problems[0]
 
-    @pytest.mark.parametrize("times, row", [("0\n0\n0\n0", 2), ("0\n0.001\n0.0005\n0.0015", 3)])
-    def test_text_time_that_does_not_increase(self, tmp_path, times, row):
+    @pytest.mark.parametrize("times, expected", [
+        ("0\n0\n0\n0", "does not increase at data row 2 \\(a step of zero or less\\)"),
+        ("0\n0.001\n0.0005\n0.0015", "does not increase at data row 3 \\(a step of zero"),
+        ("0\nnan\n0.002\n0.003", "is not a finite number at data row 2"),
+    ])
+    def test_text_time_that_does_not_increase(self, tmp_path, times, expected):
         path = tmp_path / "back.txt"
         path.write_text("time_s\tvoltage_mV\n" +
                         "\n".join(f"{t}\t-70" for t in times.split("\n")) + "\n")
-        with pytest.raises(UnreadableInputError,
-                           match=rf"back\.txt: the time column does not increase at data row "
-                                 rf"{row} \(a step of zero or less\)"):
+        with pytest.raises(UnreadableInputError, match=rf"back\.txt: the time column {expected}"):
             read_recording(path)
 
     def test_an_infinite_rate_is_not_measured(self):
@@ -404,6 +407,13 @@ def test_text_in_other_encodings(tmp_path, encoding, expected):
     path.write_bytes("time_s\tvoltage_µV\n0\t-70000\n0.00005\t-70000\n0.0001\t-70000\n"
                      .encode(encoding))
     with pytest.raises(UnreadableInputError, match=rf"cell\.txt: {expected}"):
+        read_recording(path)
+
+
+def test_a_pipe_named_like_a_recording_is_not_read(tmp_path):
+    path = tmp_path / "x.txt"
+    os.mkfifo(path)
+    with pytest.raises(UnreadableInputError, match=r"x\.txt: not a regular file"):
         read_recording(path)
 
 
