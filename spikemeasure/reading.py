@@ -510,13 +510,19 @@ def _nwb_signals(path: Path, shown: str, max_sweep_samples: int
         signals = []
         for group_name in ("acquisition", "stimulus"):
             for series in getattr(nwbfile, group_name).values():
-                if isinstance(series, pynwb.misc.AnnotationSeries) or (
-                        getattr(series, "rate", None) is None):
-                    continue  # not sampled at a rate (timestamps, annotations)
+                if isinstance(series, pynwb.misc.AnnotationSeries):
+                    continue
                 number = getattr(series, "sweep_number", None)
                 name = _safe_name(series.name)
                 where = (f"{shown}, series {name or 'without a plain name'}"
                          + (f" (sweep_number {int(number)})" if number is not None else ""))
+                if getattr(series, "rate", None) is None:
+                    if type(series).__name__ in _CC_RESPONSE | _CC_STIMULUS:
+                        refused.setdefault(None if number is None else int(number), (
+                            f"{where}: sampled at listed times (timestamps), not at a "
+                            "constant rate; spikemeasure needs a constant sampling rate, so "
+                            "the sweep was not read"))
+                    continue  # other series without a rate (timestamps) are not signals here
                 problem = _nwb_series_problem(series, where)
                 if problem is None:
                     shape = tuple(series.data.shape)
@@ -837,6 +843,12 @@ def _text_head(path: Path, shown: str) -> tuple[str, str]:
                 f"{shown}: the file is {encoding} text (it starts with a {encoding} byte-order "
                 "mark); save it as UTF-8 text")
     if b"\x00" in head:
+        pairs = head[:len(head) // 2 * 2]
+        if len(pairs) >= 8 and (pairs[1::2].count(0) > 0.9 * len(pairs) // 2
+                                or pairs[0::2].count(0) > 0.9 * len(pairs) // 2):
+            raise UnreadableInputError(
+                f"{shown}: the file looks like UTF-16 text without a byte-order mark (every "
+                "other byte is zero); save it as UTF-8 text")
         raise UnreadableInputError(
             f"{shown}: not a text file (it holds zero bytes, as binary files do); "
             f"{_TEXT_RULES}, under a header row")
@@ -870,6 +882,9 @@ def _cell_problem(cell: str) -> str | None:
         pass
     if not text:
         return "is empty"
+    if len(text) >= 2 and text[0] == text[-1] and text[0] in "\"'" and _cell_problem(
+            text[1:-1]) is None:
+        return "is a number in quotes; write numbers without quotes"
     if _THOUSANDS.fullmatch(text):
         return "is not a number: it seems to hold a thousands separator"
     if _DECIMAL_COMMA.fullmatch(text):

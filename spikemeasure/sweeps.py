@@ -220,8 +220,9 @@ def find_current_step(command_pa: np.ndarray, sampling_rate_hz: float, *,
     cmd = np.asarray(command_pa, dtype=float)
     if cmd.ndim != 1 or cmd.size < 3:
         raise InvalidSettingError("`command_pa` must be a 1-D array of at least 3 samples")
-    if not sampling_rate_hz > 0:
-        raise InvalidSettingError("`sampling_rate_hz` must be positive")
+    if not (np.isfinite(sampling_rate_hz) and sampling_rate_hz > 0):
+        raise InvalidSettingError(
+            f"`sampling_rate_hz` must be a positive, finite number (got {sampling_rate_hz})")
     filtered = median_filter(cmd, size=5, mode="nearest") if cmd.size >= 5 else cmd
     n_head = max(3, int(round(1e-3 * sampling_rate_hz)))
     holding = float(np.median(filtered[:n_head]))

@@ -2,6 +2,7 @@
 import os
 import pickle
 import re
+import warnings
 
 import numpy as np
 import pytest
@@ -303,6 +304,38 @@ class TestDamagedTimeAxis:
         with pytest.raises(UnreadableInputError, match=rf"back\.txt: the time column {expected}"):
             read_recording(path)
 
+    def test_a_series_sampled_at_timestamps_is_named(self, tmp_path):
+        """pynwb: a current-clamp response with timestamps instead of a rate."""
+        import datetime
+
+        from pynwb import NWBHDF5IO, NWBFile
+        from pynwb.icephys import CurrentClampSeries
+
+        nwb = NWBFile(session_description="test", identifier="t",
+                      session_start_time=datetime.datetime(2026, 1, 1,
+                                                           tzinfo=datetime.timezone.utc))
+        device = nwb.create_device(name="amplifier")
+        electrode = nwb.create_icephys_electrode(name="e", description="test", device=device)
+        nwb.add_acquisition(CurrentClampSeries(
+            name="voltage_0", data=np.full(100, -0.07), electrode=electrode, gain=1.0,
+            timestamps=np.arange(100) / RATE, sweep_number=0))
+        path = tmp_path / "stamped.nwb"
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # pynwb's note on the sweep number's type
+            with NWBHDF5IO(str(path), "w") as io:
+                io.write(nwb)
+        with pytest.raises(UnreadableInputError,
+                           match=r"stamped\.nwb, sweep 0, series voltage_0 \(sweep_number 0\): "
+                                 r"sampled at listed times \(timestamps\), not at a constant"):
+            read_recording(path, shown_as="stamped.nwb")
+
+    def test_the_step_finder_refuses_an_infinite_rate(self):
+        from spikemeasure.errors import InvalidSettingError
+        from spikemeasure.sweeps import find_current_step
+
+        with pytest.raises(InvalidSettingError, match="positive, finite"):
+            find_current_step(np.zeros(100), float("inf"))
+
     def test_an_infinite_rate_is_not_measured(self):
         sweep = Sweep(np.zeros(100), float("inf"), file="x.nwb", index=2)
         with pytest.raises(UnmeasurableDataError, match=r"x\.nwb, sweep 2: sampled at inf Hz; the sampling rate must be a finite"):
@@ -387,6 +420,8 @@ def _text(rows, cell, sep):
     ("comment_only.txt", "time_s\tvoltage_mV\n# nothing recorded\n",
      r"a header row but no data rows"),
     ("blank.txt", "\n\n\n", r"the file holds only blank lines"),
+    ("quoted.csv", 'time_s,voltage_mV\n"0","-70"\n"0.00005","-70"\n"0.0001","-70"\n',
+     r"line 2, column 1 is a number in quotes; write numbers without quotes"),
     ("word.txt", "time_s\tvoltage_mV\n0\t-70\n0.00005\tabc\n0.0001\t-70\n",
      r"line 3, column 2 is not a number; "),
 ])
@@ -400,6 +435,8 @@ def test_text_says_what_is_wrong(tmp_path, name, content, expected):
 
 
 @pytest.mark.parametrize("encoding, expected", [("utf-16", "the file is UTF-16 text"),
+                                                ("utf-16-le", "the file looks like UTF-16 text "
+                                                              "without a byte-order mark"),
                                                 ("utf-32", "the file is UTF-32 text"),
                                                 ("latin-1", r"not UTF-8 text \(line 1 ")])
 def test_text_in_other_encodings(tmp_path, encoding, expected):
