@@ -368,6 +368,22 @@ def test_the_limit_is_a_run_parameter(tmp_path):
     assert "more than max_sweep_samples (1,500)" in (tmp_path / "b" / "errors.csv").read_text()
 
 
+@pytest.mark.parametrize("line", ["max_sweep_samples = 0", "max_sweep_samples = 2.5",
+                                  'max_sweep_samples = "many"', "max_sweep_samples = -1"])
+def test_the_project_file_limit_is_checked(tmp_path, line):
+    from spikemeasure.config import ConfigError, RunParameters, load_config
+
+    path = tmp_path / "spikemeasure.toml"
+    path.write_text(f"[measure]\n{line}\n")
+    with pytest.raises(ConfigError, match=r"key `max_sweep_samples` in \[measure\] must be a "
+                                          r"positive whole number of samples"):
+        load_config(path)
+    path.write_text("[measure]\nmax_sweep_samples = 1e6\n")
+    assert load_config(path) == {"max_sweep_samples": 1_000_000}
+    values = RunParameters.from_dict({"max_sweep_samples": 5000}).as_dict()
+    assert RunParameters.from_dict(values).max_sweep_samples == 5000
+
+
 def test_a_sweep_larger_than_the_memory_available_is_not_read_whole(tmp_path, monkeypatch):
     """The declared size as float64 against the memory available (here said to be 1 kB):
     a 2,000-sample sweep (16 kB) read whole is refused before it is read."""
