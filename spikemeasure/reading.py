@@ -220,8 +220,14 @@ def _size_problem(where: str, shape, max_sweep_samples: int, *, whole: bool) -> 
 
 
 def _rate_problem(where: str, signal) -> str | None:
-    """Why a signal's sampling rate cannot be used (zero, negative, NaN or infinite), or None."""
+    """Why a signal's time axis cannot be used (a sampling rate that is zero, negative, NaN or
+    infinite, or a starting time that is not finite), or None."""
     rate = float(signal.sampling_rate.rescale("Hz"))
+    start = float(signal.t_start.rescale("s")) if getattr(signal, "t_start", None) is not None \
+        else 0.0
+    if not np.isfinite(start):
+        return (f"{where}: the starting time is {start:g} s; it must be a finite number, so "
+                "the sweep was not read. The file's time axis is damaged")
     if np.isfinite(rate) and rate > 0:
         return None
     try:

@@ -253,6 +253,15 @@ class TestDamagedTimeAxis:
         assert f"(sampling interval {shown} s)" in message
         assert message.count("sampling") == 2  # one message, not two contradicting ones
 
+    @pytest.mark.parametrize("offset", [np.nan, -np.inf])
+    def test_nix_starting_time(self, tmp_path, offset):
+        path = write_nix(tmp_path / "bad.nix", _sweeps(1))
+        set_hdf5_values(path, "properties/t_start", value=[offset])  # where neo keeps it
+        with pytest.raises(UnreadableInputError,
+                           match=rf"^bad\.nix, sweep 0: the starting time is {offset:g} s; it "
+                                 "must be a finite number"):
+            read_recording(path, shown_as="bad.nix")
+
     @pytest.mark.parametrize("rate", [0.0, np.nan, -20_000.0, np.inf])
     def test_nwb_rate(self, tmp_path, rate):
         path = write_nwb(tmp_path / "bad.nwb", _sweeps(1), rate_hz=RATE)
