@@ -770,7 +770,26 @@ def _read_nix(path: Path, shown: str, max_sweep_samples: int) -> Recording:
     return _segments_to_recording(segments, shown, "NIX (one sweep per segment)")
 
 
-def _read_other(path: Path, shown: str) -> Recording:
+def _other_segments(io, lazy: bool, shown: str, max_sweep_samples: int) -> list:
+    """The segments a neo reader gives; with `lazy`, each sweep's declared size is checked
+    (:func:`_size_problem`) before its signals are loaded, and a sweep too large is refused."""
+    blocks = io.read(lazy=lazy)
+    if not lazy:
+        return [seg for blk in blocks for seg in blk.segments]
+    segments = []
+    for block in blocks:
+        for segment in block.segments:
+            where = _where(shown, len(segments), _safe_name(segment.name))
+            refused = next((problem for problem in (
+                _size_problem(where, getattr(signal, "shape", (0,)), max_sweep_samples,
+                              whole=True) for signal in segment.analogsignals) if problem), "")
+            signals = [] if refused else [signal.load() if hasattr(signal, "load") else signal
+                                          for signal in segment.analogsignals]
+            segments.append(_Segment(segment.name or "", signals, refused))
+    return segments
+
+
+def _read_other(path: Path, shown: str, max_sweep_samples: int) -> Recording:
     import neo.io
 
     try:
@@ -782,6 +801,7 @@ def _read_other(path: Path, shown: str) -> Recording:
             f"{shown}: no reader for files with this suffix; spikemeasure reads "
             "NWB, NIX, text (.txt/.csv/.tsv) and the formats neo recognizes by suffix")
     reasons = []
+    unusable: UnreadableInputError | None = None
     for cls in candidates:
         if _reader_runs_file_content(cls):
             reasons.append(f"{cls.__name__}: refused, it unpickles or evaluates file content")
@@ -790,16 +810,18 @@ def _read_other(path: Path, shown: str) -> Recording:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
                 io = cls(str(path))
-                blocks = io.read(lazy=False)
+                segments = _other_segments(io, bool(getattr(cls, "support_lazy", False)),
+                                           shown, max_sweep_samples)
         except Exception as exc:  # each neo reader raises its own types; keep every cause
             # the type only: a reader's text can quote the file
             reasons.append(f"{cls.__name__} failed with {type(exc).__name__}")
             continue
-        segments = [seg for blk in blocks for seg in blk.segments]
         try:
             return _segments_to_recording(segments, shown, f"neo {cls.__name__}")
-        except UnreadableInputError as exc:
-            reasons.append(f"{cls.__name__} read it, but {str(exc).removeprefix(shown + ': ')}")
+        except UnreadableInputError as exc:  # read, but nothing measurable: say why, if no
+            unusable = unusable or exc      # other reader does better
+    if unusable is not None:
+        raise unusable
     raise UnreadableInputError(
         f"{shown}: no reader could open it ({'; '.join(reasons)}); the file may be damaged "
         "or of another format")
@@ -1114,7 +1136,7 @@ def read_recording(path: str | os.PathLike, *, shown_as: str | None = None,
             return _read_nix(p, shown, max_sweep_samples)
         if suffix in TEXT_SUFFIXES:
             return _read_text(p, shown, sampling_rate_hz, max_sweep_samples)
-        return _read_other(p, shown)
+        return _read_other(p, shown, max_sweep_samples)
     except OSError as exc:  # opening or reading the file itself (permissions, I/O errors)
         raise UnreadableInputError(
             f"{shown}: cannot be read ({exc.strerror or type(exc).__name__})") from exc

@@ -566,3 +566,18 @@ def test_a_library_failure_keeps_its_type_not_its_text(tmp_path, monkeypatch):
                              r"library; ") as caught:
         read_recording(path)
     assert SECRET not in str(caught.value)
+
+
+def test_other_formats_are_size_checked_before_loading(tmp_path):
+    """neo's example reader (suffix .fake; it makes two segments of 100,000 samples of 8, 6
+    and 2 channels, by neo's documentation): with a limit under its declared size the sweeps
+    are refused from their shapes, and the refusal names the file, sweep and limit."""
+    path = tmp_path / "cell.fake"
+    path.write_text("placeholder")
+    rec = read_recording(path, shown_as="cell.fake")
+    assert len(rec.sweeps) == 2 and rec.sweeps[0].n_samples == 100_000
+    with pytest.raises(UnreadableInputError,
+                       match=r"^cell\.fake, sweep 0: the file declares 800,000 samples for "
+                             r"this sweep, more than max_sweep_samples \(500,000\); it was "
+                             r"not read.*\(and 1 more problems\)$"):
+        read_recording(path, shown_as="cell.fake", max_sweep_samples=500_000)
