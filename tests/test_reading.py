@@ -570,7 +570,7 @@ def test_a_library_failure_keeps_its_type_not_its_text(tmp_path, monkeypatch):
 
 def test_other_formats_are_size_checked_before_loading(tmp_path):
     """neo's example reader (suffix .fake; it makes two segments of 100,000 samples of 8, 6
-    and 2 channels, by neo's documentation): with a limit under its declared size the sweeps
+    and 2 channels, as neo generates them): with a limit under its declared size the sweeps
     are refused from their shapes, and the refusal names the file, sweep and limit."""
     path = tmp_path / "cell.fake"
     path.write_text("placeholder")
