@@ -34,7 +34,7 @@ from typing import Callable
 from . import __version__
 from .columns import CELL_COLUMNS, ERROR_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS
 from .detection import DetectionSettings
-from .errors import SpikemeasureError
+from .errors import InvalidSettingError, SpikemeasureError
 from .output import write_json, write_rows_csv, write_text_atomic
 from .reading import TEXT_SUFFIXES, find_recordings, read_recording
 from .tables import (cell_summary, cell_table, count_spikes, flag_counts, format_rows,
@@ -358,9 +358,15 @@ def measure_paths(paths: list[str], out_dir: str | Path,
 
     Raises
     ------
+    InvalidSettingError
+        `max_sweep_samples` is not a positive whole number.
     KeyboardInterrupt
         After writing the tables of the files finished (the summary says ``interrupted``).
     """
+    if max_sweep_samples is not None and (isinstance(max_sweep_samples, bool) or not isinstance(
+            max_sweep_samples, int) or max_sweep_samples < 1):
+        raise InvalidSettingError(
+            f"`max_sweep_samples` must be a positive whole number (got {max_sweep_samples!r})")
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     started = time.time()

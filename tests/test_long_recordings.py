@@ -353,6 +353,9 @@ def test_the_limit_is_a_run_parameter(tmp_path):
         reading.read_recording(folder / "cell.nix", shown_as="cell.nix", max_sweep_samples=1999)
     with pytest.raises(InvalidSettingError, match="max_sweep_samples"):
         reading.read_recording(folder / "cell.nix", max_sweep_samples=0)
+    with pytest.raises(InvalidSettingError, match="max_sweep_samples"):
+        measure_paths([str(folder)], tmp_path / "none", max_sweep_samples=2.5)
+    assert not (tmp_path / "none").exists()
 
     result = CliRunner().invoke(main, ["measure", str(folder), "--out", str(tmp_path / "a"),
                                        "--max-sweep-samples", "1999", "--no-figures"])
