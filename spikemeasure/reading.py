@@ -957,6 +957,27 @@ def _diagnose_rows(path: Path, shown: str, delimiter: str | None, n_columns: int
     return (f"{shown}: the data rows cannot be read as numbers; {_TEXT_RULES}")
 
 
+def _text_size_problem(path: Path, shown: str, header: str, first_row: str, n_columns: int,
+                       max_sweep_samples: int) -> str | None:
+    """Why a text file is not read, judged from its size before it is read: its rows (at
+    least its size over twice the longer of the header and the first data line, as numeric
+    rows vary in length by less than that) beyond `max_sweep_samples`, or their float64 values
+    beyond the memory available."""
+    longest = max(len(first_row.encode("utf-8")), len(header.encode("utf-8"))) + 1
+    rows = (path.stat().st_size - len(header.encode("utf-8"))) // (2 * longest)
+    if rows > max_sweep_samples:
+        return (f"{shown}, sweep 0: the file is at least {rows:,} rows long (from its size), "
+                f"more than max_sweep_samples ({max_sweep_samples:,}); it was not read. Raise "
+                "--max-sweep-samples if the recording really is that long")
+    available = _available_memory_bytes()
+    if available is not None and 8 * rows * n_columns > available:
+        return (f"{shown}, sweep 0: the file is at least {rows:,} rows of {n_columns} columns "
+                f"long (from its size), {8 * rows * n_columns / 2 ** 30:.1f} GiB as float64, "
+                f"more than the {available / 2 ** 30:.1f} GiB of memory available; it was not "
+                "read")
+    return None
+
+
 def _read_text(path: Path, shown: str, sampling_rate_hz: float | None,
                max_sweep_samples: int) -> Recording:
     header, second = _text_head(path, shown)
@@ -996,6 +1017,9 @@ def _read_text(path: Path, shown: str, sampling_rate_hz: float | None,
         raise UnreadableInputError(
             f"{shown}: no voltage column: none of the {len(names)} column names of the header "
             "row ends in a voltage unit; name one such as voltage_mV or voltage_V")
+    problem = _text_size_problem(path, shown, header, second, len(names), max_sweep_samples)
+    if problem:
+        raise UnreadableInputError(problem)
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")  # numpy warns of an empty file; said below

@@ -581,3 +581,23 @@ def test_other_formats_are_size_checked_before_loading(tmp_path):
                              r"this sweep, more than max_sweep_samples \(500,000\); it was "
                              r"not read.*\(and 1 more problems\)$"):
         read_recording(path, shown_as="cell.fake", max_sweep_samples=500_000)
+
+
+def test_a_text_file_is_size_checked_before_it_is_parsed(tmp_path, monkeypatch):
+    """2,000 rows of numpy.savetxt: with max_sweep_samples 100 the file is refused from its
+    size (numpy's parser is not called), and within the limit it is read as before."""
+    (v, i), = _sweeps(1)
+    path = write_text(tmp_path / "cell.txt", v, i, rate_hz=RATE)
+    assert read_recording(path, max_sweep_samples=2000).sweeps[0].n_samples == 2000
+
+    def no_parse(*args, **kwargs):
+        raise AssertionError("the rows were parsed")
+
+    monkeypatch.setattr(np, "loadtxt", no_parse)
+    with pytest.raises(UnreadableInputError,
+                       match=r"^cell\.txt, sweep 0: the file is at least [0-9,]+ rows long "
+                             r"\(from its size\), more than max_sweep_samples \(100\)"):
+        read_recording(path, shown_as="cell.txt", max_sweep_samples=100)
+    monkeypatch.setattr(reading, "_available_memory_bytes", lambda: 1000, raising=False)
+    with pytest.raises(UnreadableInputError, match=r"GiB of memory available; it was not read"):
+        read_recording(path)
