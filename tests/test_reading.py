@@ -477,7 +477,7 @@ SECRET = "s3cret-Line-7"
 
 
 @pytest.mark.parametrize("content", [
-    f"root:x:0:0:{SECRET}:/root:/bin/sh\ndaemon:x:1:1:{SECRET}:/usr/sbin\n",
+    f"user:x:1000:1000:{SECRET}:/nonexistent:/bin/sh\nguest:x:1001:1001:{SECRET}\n",
     f"time_s\tvoltage_mV\n0\t{SECRET}\n0.1\t-70\n0.2\t-70\n",
     f"time_s\tvoltage_mV\n0\t-70 {SECRET}\n0.1\t-70\n",
 ])
@@ -507,10 +507,10 @@ def test_names_from_a_file_are_shown_only_when_plain(tmp_path):
     import neo
     import quantities as pq
 
-    seg = neo.Segment(name=f"root:x:0:0:{SECRET}:/root")
+    seg = neo.Segment(name=f"user:x:1000:1000:{SECRET}:/nonexistent")
     seg.analogsignals.append(neo.AnalogSignal(np.zeros((100, 1)), units="pA",
                                               sampling_rate=RATE * pq.Hz,
-                                              name=f"/home/{SECRET}/notes"))
+                                              name=f"notes/{SECRET}/of the day"))
     block = neo.Block()
     block.segments.append(seg)
     path = tmp_path / "named.nix"
