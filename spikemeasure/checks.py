@@ -18,22 +18,21 @@ import csv
 import json
 import math
 import os
-import shutil
 import tempfile
 import time
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
-from typing import Callable
+from typing import Callable, Sequence
 
 from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, Column
 from .config import CheckSettings, Tolerance
 from .errors import SpikemeasureError
-from .output import write_json, write_text_atomic
 
 __all__ = ["CheckInputError", "Finding", "CaseResult", "CheckReport", "RunTables",
            "QualityRule", "QUALITY_RULES", "MEASURED_CHECK", "REGRESSION_CHECK",
            "TABLE_FILES", "read_tables", "quality_cases", "regression_cases", "check_run",
-           "accept_results", "default_tolerance", "report_text", "report_dict"]
+           "accept_results", "accepted_folder_problem", "check_finished",
+           "ACCEPTED_FILES", "COMPLETE_STATUS", "default_tolerance", "report_text", "report_dict"]
 
 #: The tables a run's folder must hold, with their key columns and declarations.
 TABLE_FILES: dict[str, tuple[tuple[str, ...], tuple[Column, ...]]] = {
@@ -606,12 +605,14 @@ def check_run(results_dir: str | os.PathLike, settings: CheckSettings) -> CheckR
     ------
     CheckInputError
         When the tables, or (with ``settings.compare``) the accepted results, are missing or
-        unreadable, or the run names no file at all.
+        unreadable, the run names no file at all, or it did not finish or its tables and
+        run.json disagree (:func:`check_finished`).
     """
     tables = read_tables(results_dir)
     if not tables.files():
         raise CheckInputError(f"{results_dir}: the run's tables name no file, so there is "
                               f"nothing to check; measure the recordings into it first")
+    check_finished(tables)
     accepted = read_tables(settings.accepted_dir, "accepted results") if settings.compare \
         else None
     report = CheckReport(str(results_dir), str(settings.accepted_dir) if settings.compare
@@ -624,46 +625,256 @@ def check_run(results_dir: str | os.PathLike, settings: CheckSettings) -> CheckR
     return report
 
 
-def accept_results(results_dir: str | os.PathLike, accepted_dir: str | os.PathLike) -> dict:
-    """Save a run's tables as the accepted results, replacing any earlier ones.
+#: The files ``accept`` writes in the accepted folder, and the only ones it ever replaces.
+ACCEPTED_FILES: tuple[str, ...] = tuple(TABLE_FILES) + (RUN_RECORD_FILE,)
+
+#: The ``status`` of a run record whose run finished (``running`` and ``interrupted`` did not).
+COMPLETE_STATUS = "complete"
+
+
+def check_finished(tables: RunTables) -> None:
+    """Refuse a run that did not finish, or whose tables and run.json disagree.
 
     Parameters
     ----------
-    results_dir : str or path-like
-        A folder holding a run's tables.
-    accepted_dir : str or path-like
-        The accepted folder (created if missing).
-
-    Returns
-    -------
-    dict
-        ``files``, ``sweeps``, ``spikes`` (counts) and ``failures`` (rows of errors.csv, which
-        are not part of the accepted results).
+    tables : RunTables
+        A run's tables, read by :func:`read_tables`.
 
     Raises
     ------
     CheckInputError
-        When the tables are missing or unreadable, the run was interrupted or names no file,
-        or the accepted folder cannot be written.
+        When the folder has no run.json; its ``status`` is not ``complete`` (``running``:
+        the run is still going or was killed; ``interrupted``), or, in a record without
+        ``status``, ``interrupted`` is true; or the tables and run.json disagree: a file in
+        the tables that run.json does not list, a file run.json lists as measured without
+        rows, or a number of sweeps or spikes of a file that differs from run.json's.
 
     Notes
     -----
-    spikes.csv, sweeps.csv, cells.csv and a run.json with the run's versions, parameters and
-    inputs (path and SHA-256) are written to a new folder beside the accepted one, which
-    then takes its place by renames, so the accepted folder is never half old, half new.
-    Other files already in the accepted folder (a README) are kept.
+    The checks of a file's counts use the ``sweeps_measured`` and ``spikes`` of its entry in
+    ``inputs``, when the entry has them.
     """
-    # checks that they are complete and of this version
+    if not isinstance(tables, RunTables):
+        raise TypeError(f"tables must be RunTables (got {type(tables).__name__})")
+    path = tables.folder / RUN_RECORD_FILE
+    again = "run the same measure command again to finish the run, then check or accept it"
+    if not tables.record:
+        raise CheckInputError(f"{path}: no run record, so there is no telling whether the "
+                              f"run finished; {again}")
+    status = tables.record.get("status")
+    if status is not None and status != COMPLETE_STATUS:
+        raise CheckInputError(f"{path}: the run did not finish (status {str(status)[:40]!r}, "
+                              f"not {COMPLETE_STATUS!r}); {again}")
+    if status is None and tables.record.get("interrupted"):
+        raise CheckInputError(f"{path}: the run was interrupted before every file was "
+                              f"measured; {again}")
+    inputs = [i for i in tables.record.get("inputs", []) if isinstance(i, dict) and "file" in i]
+    listed = {i["file"]: i for i in inputs}
+    rows: dict[str, dict[str, int]] = {}
+    for name in TABLE_FILES:
+        for row in tables.table(name):
+            rows.setdefault(row["file"], dict.fromkeys(TABLE_FILES, 0))[name] += 1
+    problems = []
+    unlisted = [f for f in rows if f not in listed]
+    if unlisted:
+        problems.append(f"the tables hold {_count_of(len(unlisted), 'file')} that run.json "
+                        f"does not list ({_some(unlisted)})")
+    missing = [f for f, i in listed.items() if _whole(i.get("sweeps_measured")) != 0
+               and str(i.get("status", "")).startswith(("measured", "reused"))
+               and str(i.get("status")) != "reused (failed)" and f not in rows]
+    if missing:
+        problems.append(f"run.json lists {_count_of(len(missing), 'file')} as measured that "
+                        f"the tables do not hold ({_some(missing)})")
+    for file, entry in listed.items():
+        have = rows.get(file, dict.fromkeys(TABLE_FILES, 0))
+        if file in rows and have["sweeps.csv"] and have["cells.csv"] != 1:
+            problems.append(f"{file}: cells.csv holds {have['cells.csv']} rows of it, "
+                            f"not 1")
+        for key, name, what in (("sweeps_measured", "sweeps.csv", "sweep"),
+                                ("spikes", "spikes.csv", "spike")):
+            expected = _whole(entry.get(key))
+            if expected is not None and file not in missing and expected != have[name]:
+                problems.append(f"{file}: run.json counts {_count_of(expected, what)}, "
+                                f"{name} holds {have[name]}")
+    if problems:
+        shown = "; ".join(problems[:5]) + (f"; and {len(problems) - 5} more"
+                                           if len(problems) > 5 else "")
+        raise CheckInputError(f"{tables.folder}: the tables and {RUN_RECORD_FILE} disagree: "
+                              f"{shown}. The folder was changed after the run or written by "
+                              f"two runs at once; {again}")
+
+
+def _whole(value) -> int | None:
+    return value if isinstance(value, int) and not isinstance(value, bool) else None
+
+
+def _count_of(n: int, what: str) -> str:
+    return f"{n} {what}{'' if n == 1 else 's'}"
+
+
+def _some(names: list[str], limit: int = 3) -> str:
+    more = f" and {len(names) - limit} more" if len(names) > limit else ""
+    return ", ".join(names[:limit]) + more
+
+
+def _inside(path: Path, folder: Path) -> bool:
+    """True when `path` lies strictly inside `folder` (both resolved)."""
+    return folder in path.parents
+
+
+def _is_accept_record(path: Path) -> bool:
+    try:
+        record = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return False
+    return isinstance(record, dict) and record.get("tool") == "spikemeasure" \
+        and "accepted" in record
+
+
+def accepted_folder_problem(accepted_dir: str | os.PathLike, results_dir: str | os.PathLike,
+                            project_dir: str | os.PathLike, *,
+                            inputs: Sequence[str] = (),
+                            extra_patterns: tuple[str, ...] = ()) -> str | None:
+    """Why `accepted_dir` must not receive accepted results, or None when it may.
+
+    Parameters
+    ----------
+    accepted_dir : str or path-like
+        The accepted folder (need not exist).
+    results_dir : str or path-like
+        The run's folder being accepted.
+    project_dir : str or path-like
+        The project folder: the folder of the project file, or the current folder.
+    inputs : list of str, optional
+        Paths of the run's recordings (``path`` of run.json's ``inputs``).
+    extra_patterns : tuple of str, optional
+        Patterns the run's discovery used for other formats (``measure --glob``).
+
+    Returns
+    -------
+    str or None
+        A sentence naming the folder (as given, and resolved when that differs) and the
+        reason; None when the folder is safe to write the accepted files in.
+
+    Notes
+    -----
+    Paths are compared after resolving symlinks and ``..``: an accepted folder that is a
+    symlink is judged, and written, as the folder it points to. The folder is refused when it
+    is an existing file; is, contains or lies inside the results folder; is the project
+    folder or contains it; lies outside the project folder; holds a file the run's discovery
+    would take as a recording, at any depth (the accepted tables themselves aside), or a
+    recording of the run; or holds a file named like an accepted file that is not one (a
+    folder or symlink, or tables without the run.json ``accept`` writes).
+    """
+    from .reading import find_recordings
+
+    given = Path(accepted_dir)
+    target = given.resolve()
+    name = str(given) if target == given.absolute() else f"{given} (that is {target})"
+    results = Path(results_dir).resolve()
+    project = Path(project_dir).resolve()
+    if target.exists() and not target.is_dir():
+        return f"{name}: is a file, not a folder; set accepted_folder to a folder"
+    if target == project:
+        return (f"{name}: is the project folder itself, which holds the lab's files; set "
+                f"accepted_folder to a subfolder of its own, such as \"accepted\"")
+    if _inside(project, target):
+        return (f"{name}: contains the project folder {project}; set accepted_folder to a "
+                f"subfolder of the project folder, such as \"accepted\"")
+    if not _inside(target, project):
+        return (f"{name}: lies outside the project folder {project} (the folder of "
+                f"spikemeasure.toml, or the current folder without one); set accepted_folder "
+                f"to a subfolder of the project folder")
+    if target == results:
+        return f"{name}: is the results folder being accepted; accept into a folder of its own"
+    if _inside(target, results):
+        return (f"{name}: lies inside the results folder being accepted ({results}), which "
+                f"the next run rewrites; accept into a folder of its own")
+    if _inside(results, target):
+        return (f"{name}: contains the results folder being accepted ({results}); accept "
+                f"into a folder of its own")
+    for path in inputs:
+        recording = Path(path).resolve()
+        if _inside(recording, target):
+            return (f"{name}: holds recordings of this run ({recording.relative_to(target)}); "
+                    f"set accepted_folder to a folder of its own")
+    if not target.is_dir():
+        return None
+    for own in ACCEPTED_FILES:
+        entry = target / own
+        if entry.is_symlink() or (entry.exists() and not entry.is_file()):
+            return (f"{name}: {own} there is not a file accept wrote (a folder or a link); "
+                    f"move it away or choose another accepted_folder")
+    has_tables = any((target / own).exists() for own in TABLE_FILES)
+    if has_tables and not _is_accept_record(target / RUN_RECORD_FILE):
+        return (f"{name}: holds tables without the {RUN_RECORD_FILE} `spikemeasure accept` "
+                f"writes, so they were not written by accept and would be overwritten; "
+                f"choose another accepted_folder, or move them away")
+    found = [shown for _, shown in find_recordings([target], extra_patterns=extra_patterns)
+             if shown not in TABLE_FILES]
+    if found:
+        return (f"{name}: holds {_count_of(len(found), 'file')} that would be taken as "
+                f"recordings ({_some(found)}); set accepted_folder to a folder of its own")
+    return None
+
+
+def accept_results(results_dir: str | os.PathLike, accepted_dir: str | os.PathLike, *,
+                   project_dir: str | os.PathLike | None = None,
+                   extra_patterns: tuple[str, ...] = ()) -> dict:
+    """Save a run's tables as the accepted results, replacing only accept's own files.
+
+    Parameters
+    ----------
+    results_dir : str or path-like
+        A folder holding a finished run's tables.
+    accepted_dir : str or path-like
+        The accepted folder (created if missing). It must be a folder of its own inside the
+        project folder (see :func:`accepted_folder_problem`).
+    project_dir : str or path-like, optional
+        The project folder (the folder of the project file); default: the current folder.
+    extra_patterns : tuple of str, optional
+        Patterns the run's discovery used for other formats, for the recordings check.
+
+    Returns
+    -------
+    dict
+        ``files``, ``sweeps``, ``spikes`` (counts), ``failures`` (rows of errors.csv, which
+        are not part of the accepted results), ``accepted_dir`` (the folder written, resolved)
+        and ``replaced`` (the names written).
+
+    Raises
+    ------
+    CheckInputError
+        When the tables are missing or unreadable, the run did not finish or its tables and
+        run.json disagree (:func:`check_finished`), it names no file, the accepted folder is
+        refused (:func:`accepted_folder_problem`), or it cannot be written; the message says
+        which files were replaced already, if any.
+
+    Notes
+    -----
+    Only spikes.csv, sweeps.csv, cells.csv and run.json (the run's versions, parameters and
+    inputs, with path and SHA-256) are written, each through a temporary file in the
+    accepted folder, flushed to disk; only when all four are written do they replace the
+    earlier ones, one by one (``os.replace``). Nothing else in the folder is removed, renamed
+    or moved, and nothing outside it is touched.
+    """
+    for label, value in (("results_dir", results_dir), ("accepted_dir", accepted_dir)):
+        if not isinstance(value, (str, os.PathLike)):
+            raise TypeError(f"{label} must be a path (got {type(value).__name__})")
     tables = read_tables(results_dir, suggest_out=False)
-    if tables.record.get("interrupted"):
-        raise CheckInputError(f"{Path(results_dir) / RUN_RECORD_FILE}: the run was interrupted "
-                              f"before every file was measured; run the same measure command "
-                              f"again to finish it, then accept")
+    check_finished(tables)
     if not tables.files():
         raise CheckInputError(f"{results_dir}: the run's tables name no file; there is "
                               f"nothing to accept")
+    inputs = [str(i["path"]) for i in tables.record.get("inputs", [])
+              if isinstance(i, dict) and isinstance(i.get("path"), str)]
+    problem = accepted_folder_problem(accepted_dir, results_dir,
+                                      project_dir if project_dir is not None else Path.cwd(),
+                                      inputs=inputs, extra_patterns=tuple(extra_patterns))
+    if problem:
+        raise CheckInputError(f"{problem}; nothing was written")
     source = Path(results_dir)
-    target = Path(accepted_dir)
+    target = Path(accepted_dir).resolve()
     record = {
         "tool": "spikemeasure",
         "accepted": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
@@ -673,45 +884,72 @@ def accept_results(results_dir: str | os.PathLike, accepted_dir: str | os.PathLi
         "inputs": [{k: i.get(k) for k in ("file", "sha256", "size_bytes", "status")}
                    for i in tables.record.get("inputs", [])],
     }
+    contents = []
+    for name in TABLE_FILES:
+        try:
+            contents.append((name, (source / name).read_bytes()))
+        except OSError as exc:
+            raise CheckInputError(f"{source / name}: cannot be read ({exc.strerror or exc})"
+                                  ) from exc
+    contents.append((RUN_RECORD_FILE,
+                     (json.dumps(record, indent=2, default=str) + "\n").encode("utf-8")))
     try:
-        target.parent.mkdir(parents=True, exist_ok=True)
-        fresh = Path(tempfile.mkdtemp(prefix=f".{target.name}.new-", dir=target.parent))
+        target.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
-        raise CheckInputError(f"{target}: cannot create the accepted folder ({exc})") from exc
-    old = None
-    try:
-        for name in TABLE_FILES:
-            write_text_atomic(fresh / name, (source / name).read_text(encoding="utf-8"))
-        write_json(fresh / RUN_RECORD_FILE, record)
-        _usual_permissions(fresh)
-        if target.exists():
-            for entry in target.iterdir():
-                if entry.is_file() and not (fresh / entry.name).exists():
-                    shutil.copy2(entry, fresh / entry.name)
-            old = Path(tempfile.mkdtemp(prefix=f".{target.name}.old-", dir=target.parent))
-            os.rmdir(old)
-            os.replace(target, old)
-        os.replace(fresh, target)
-    except OSError as exc:
-        shutil.rmtree(fresh, ignore_errors=True)
-        if old is not None and old.exists() and not target.exists():
-            os.replace(old, target)
-        raise CheckInputError(f"{target}: cannot write the accepted results ({exc})") from exc
-    if old is not None:
-        shutil.rmtree(old, ignore_errors=True)
+        raise CheckInputError(f"{target}: cannot create the accepted folder "
+                              f"({exc.strerror or exc}); nothing was written") from exc
+    replaced = _replace_files(target, contents)
     return {"files": len({r["file"] for r in tables.cells}), "sweeps": len(tables.sweeps),
-            "spikes": len(tables.spikes), "failures": tables.errors}
+            "spikes": len(tables.spikes), "failures": tables.errors,
+            "accepted_dir": str(target), "replaced": replaced}
 
 
-def _usual_permissions(folder: Path) -> None:
-    """Temporary folders and files are private; the accepted ones are shared like any other
-    file the user writes (the umask decides)."""
+def _replace_files(folder: Path, contents: list[tuple[str, bytes]]) -> list[str]:
+    """Write every file to a temporary file in `folder` (fsync), then replace them one by one.
+
+    On failure, removes the temporary files it made and raises CheckInputError saying which
+    files were replaced already."""
     umask = os.umask(0)
     os.umask(umask)
-    os.chmod(folder, 0o777 & ~umask)
-    for entry in folder.iterdir():
-        if entry.is_file():
-            os.chmod(entry, 0o666 & ~umask)
+    staged: list[tuple[str, str]] = []
+    replaced: list[str] = []
+    try:
+        for name, data in contents:
+            fd, tmp = tempfile.mkstemp(prefix=f".{name}.", suffix=".part", dir=folder)
+            staged.append((name, tmp))
+            with os.fdopen(fd, "wb") as fh:
+                fh.write(data)
+                fh.flush()
+                os.fsync(fh.fileno())
+            os.chmod(tmp, 0o666 & ~umask)  # as an ordinary new file: mkstemp's is private
+        for name, tmp in staged:
+            os.replace(tmp, folder / name)
+            replaced.append(name)
+    except OSError as exc:
+        for name, tmp in staged:
+            if name not in replaced:
+                try:
+                    os.unlink(tmp)
+                except OSError:
+                    pass
+        if replaced:
+            done = (f"{', '.join(replaced)} {'was' if len(replaced) == 1 else 'were'} replaced "
+                    f"already, the other files keep their earlier content; fix the cause and "
+                    f"accept again")
+        else:
+            done = "nothing was replaced"
+        raise CheckInputError(f"{folder}: cannot write the accepted results "
+                              f"({exc.strerror or exc}); {done}") from exc
+    try:  # the renames themselves reach the disk
+        fd = os.open(folder, os.O_RDONLY)
+        try:
+            os.fsync(fd)
+        finally:
+            os.close(fd)
+    except OSError:
+        pass
+    return replaced
+
 
 
 # --------------------------------------------------------------------------- reports

@@ -422,21 +422,27 @@ def check(ctx: click.Context, paths, out_dir, jobs, junit_path, as_json, max_row
 def accept(ctx: click.Context, results_dir, config_path):
     """Save the run in RESULTS_DIR as the lab's accepted results.
 
-    Copies spikes.csv, sweeps.csv, cells.csv and the run's versions and parameters into the
-    accepted folder ([regression] accepted_folder of the project file; ./accepted without
-    one), replacing what was there; commit that folder. `spikemeasure check` compares later
-    runs with it.
+    Copies spikes.csv, sweeps.csv, cells.csv and the run's versions and parameters
+    (run.json) into the accepted folder ([regression] accepted_folder of the project file;
+    ./accepted without one), replacing only those four files; commit that folder.
+    `spikemeasure check` compares later runs with it. Refuses (exit 2) a run that did not
+    finish, and an accepted folder that is not a folder of its own inside the project
+    folder (one holding recordings or the results, the project folder itself, or outside it).
     """
+    from pathlib import Path
+
     from .checks import accept_results
 
     try:
-        _, settings = _check_settings([results_dir], config_path)
-        info = accept_results(results_dir, settings.accepted_dir)
+        project, settings = _check_settings([results_dir], config_path)
+        project_dir = project.resolve().parent if project is not None else Path.cwd()
+        info = accept_results(results_dir, settings.accepted_dir, project_dir=project_dir)
     except SpikemeasureError as exc:
         _input_error(ctx, exc)
         return
     click.echo(f"accepted {info['files']} files, {info['sweeps']} sweeps, {info['spikes']} "
-               f"spikes from {results_dir} -> {settings.accepted_dir} (commit that folder)")
+               f"spikes from {results_dir} -> {settings.accepted_dir} (replaced "
+               f"{', '.join(info['replaced'])}; commit that folder)")
     if info["failures"]:
         click.echo(f"note: {len(info['failures'])} failures of that run (errors.csv) are not "
                    "part of the accepted results:", err=True)
