@@ -458,9 +458,13 @@ def regression_cases(new: RunTables, accepted: RunTables, settings: CheckSetting
     Notes
     -----
     Rows are matched by their key columns: (file, sweep, spike) in spikes.csv, (file, sweep)
-    in sweeps.csv, (file) in cells.csv. A file or a sweep present in one run only fails. When
-    a sweep's spike count changed, the spikes added or lost fail and that sweep's spikes are
-    not compared value by value (their indices no longer pair the same spikes). Every other
+    in sweeps.csv, (file) in cells.csv; the order of the rows does not matter. A file, a
+    sweep or a cell row present in one run only fails. A key found more than once in a table
+    (a duplicated row, or rows sharing a key) fails, naming the key, the side and the lines;
+    only its first row is compared. When a sweep's spike count (distinct spike keys) changed,
+    the spikes added or lost fail and that sweep's spikes are not compared value by value
+    (their indices no longer pair the same spikes). Columns that this version does not write
+    are not compared, and a note names them. Every other
     cell is compared: equal text passes (two empty cells too); two numbers pass within the
     column's tolerance (:func:`default_tolerance` unless the project file sets one), and
     never fail by less than :func:`default_tolerance`, the resolution the CSV is written with
@@ -507,11 +511,17 @@ def regression_cases(new: RunTables, accepted: RunTables, settings: CheckSetting
             notes.append(f"{name}: column(s) {', '.join(skipped)} not in the accepted results "
                          f"(accepted with an older version?), not compared")
         compared = [c for c in compared if c.name in old_header]
-        index = lambda rows: {tuple(r[k] for k in keys): r for r in rows}  # noqa: E731
-        old_by_key, new_by_key = index(old_rows), index(new_rows)
+        declared = {c.name for c in columns}
+        for side, tables in (("accepted results", accepted), ("this run", new)):
+            extra = [c for c in (tables.headers.get(name) or []) if c not in declared]
+            if extra:
+                notes.append(f"{name}: column(s) {', '.join(extra)} in {side} are not columns "
+                             f"this version writes, not compared")
+        old_by_key = _rows_by_key(old_rows, keys, name, "the accepted results", findings)
+        new_by_key = _rows_by_key(new_rows, keys, name, "this run", findings)
         changed_count: set[tuple[str, str]] = set()
         if name == "spikes.csv":
-            changed_count = _spike_counts(old_rows, new_rows, common, findings)
+            changed_count = _spike_counts(list(old_by_key), list(new_by_key), common, findings)
         for key in dict.fromkeys(list(old_by_key) + list(new_by_key)):
             file = key[0]
             if file not in common:
@@ -528,8 +538,14 @@ def regression_cases(new: RunTables, accepted: RunTables, settings: CheckSetting
                                               f"accepted results"
                                               + ("" if old is None else " but not in this run")))
                 continue
+            if name == "cells.csv" and (old is None or now is None):
+                findings[file].append(Finding(
+                    REGRESSION_CHECK, file, None, None, None,
+                    f"cells.csv: the file's row is {'not ' if old is None else ''}in the "
+                    f"accepted results but {'is' if old is None else 'not'} in this run"))
+                continue
             if old is None or now is None:
-                continue  # spikes: counted above; cells: a file added or removed
+                continue  # spikes: counted above
             for column in compared:
                 tolerance = _tolerance_for(column, settings)
                 a, b = old[column.name], now[column.name]
@@ -545,16 +561,42 @@ def regression_cases(new: RunTables, accepted: RunTables, settings: CheckSetting
     return cases, notes
 
 
-def _spike_counts(old_rows: list[dict], new_rows: list[dict], common: set[str],
+def _rows_by_key(rows: list[dict], keys: tuple[str, ...], name: str, side: str,
+                 findings: dict[str, list[Finding]]) -> dict[tuple, dict]:
+    """Rows by their key, the first of each key; a finding for each key found more than
+    once (a duplicated row, or rows that share a key and differ)."""
+    by_key: dict[tuple, list[tuple[int, dict]]] = {}
+    for line, row in enumerate(rows, start=2):
+        by_key.setdefault(tuple(row[k] for k in keys), []).append((line, row))
+    for key, found in by_key.items():
+        if len(found) < 2:
+            continue
+        sweep = _int_or_none(key[1]) if len(key) > 1 else None
+        spike = _int_or_none(key[2]) if len(key) > 2 else None
+        where = ", ".join(f"{k} {v}" for k, v in zip(keys[1:], key[1:])) or "the file's row"
+        lines = ", ".join(str(line) for line, _ in found)
+        first = found[0][1]
+        differ = [c for c in first if any(r.get(c) != first.get(c) for _, r in found[1:])]
+        what = ("the same row" if not differ else
+                f"rows with the same key that differ in {', '.join(differ[:5])}")
+        findings.setdefault(key[0], []).append(Finding(
+            REGRESSION_CHECK, key[0], sweep, spike, None,
+            f"{name}: {where} is in {side} {len(found)} times ({what}, lines {lines}); "
+            f"only the first is compared"))
+    return {key: found[0][1] for key, found in by_key.items()}
+
+
+def _spike_counts(old_keys: list[tuple], new_keys: list[tuple], common: set[str],
                   findings: dict[str, list[Finding]]) -> set[tuple[str, str]]:
-    """Findings for sweeps whose spike count changed; returns those (file, sweep) keys."""
-    def counts(rows):
+    """Findings for sweeps whose spike count (distinct (file, sweep, spike) keys) changed;
+    returns those (file, sweep) keys."""
+    def counts(keys):
         out: dict[tuple[str, str], int] = {}
-        for r in rows:
-            out[(r["file"], r["sweep"])] = out.get((r["file"], r["sweep"]), 0) + 1
+        for file, sweep, _ in keys:
+            out[(file, sweep)] = out.get((file, sweep), 0) + 1
         return out
 
-    old, new = counts(old_rows), counts(new_rows)
+    old, new = counts(old_keys), counts(new_keys)
     changed = set()
     for key in dict.fromkeys(list(old) + list(new)):
         if key[0] not in common:

@@ -310,6 +310,66 @@ class TestRegression:
         assert finding.file == lost["file"] and finding.sweep == int(lost["sweep"])
         assert "1 spike lost" in finding.message
 
+    @pytest.mark.parametrize("name", ["spikes.csv", "sweeps.csv", "cells.csv"])
+    def test_a_duplicated_accepted_row_is_named_as_such(self, accepted, name):
+        """A row present twice in the accepted table: one finding naming the table, the key
+        and the lines; not `1 spike lost`, and not passed over."""
+        accepted_dir, run_dir = accepted
+        rows = read_rows(accepted_dir / name)
+        k = 3
+        write_rows(accepted_dir / name, rows[:k + 1] + [rows[k]] + rows[k + 1:])
+        report = regression(run_dir, accepted_dir)
+        finding, = report.findings
+        row = rows[k]
+        assert finding.file == row["file"]
+        assert finding.sweep == (int(row["sweep"]) if "sweep" in row else None)
+        assert finding.spike == (int(row["spike"]) if "spike" in row else None)
+        assert finding.message.startswith(f"{name}: ")
+        assert f"is in the accepted results 2 times (the same row, lines {k + 2}, {k + 3})" \
+            in finding.message
+        assert "lost" not in finding.message
+
+    def test_rows_sharing_a_key_name_the_columns_that_differ(self, accepted):
+        accepted_dir, run_dir = accepted
+        rows = read_rows(accepted_dir / "spikes.csv")
+        other = dict(rows[0], peak_mv=f"{float(rows[0]['peak_mv']) + 1.0:.3f}")
+        write_rows(accepted_dir / "spikes.csv", [rows[0], other] + rows[1:])
+        finding, = regression(run_dir, accepted_dir).findings
+        assert f"sweep {rows[0]['sweep']}, spike {rows[0]['spike']} is in the accepted " \
+            f"results 2 times (rows with the same key that differ in peak_mv" in finding.message
+
+    def test_a_duplicated_row_in_the_run_is_named_as_such(self, accepted):
+        """Found by the comparison itself, for tables read without their run record."""
+        from spikemeasure.checks import regression_cases
+
+        accepted_dir, run_dir = accepted
+        rows = read_rows(run_dir / "sweeps.csv")
+        write_rows(run_dir / "sweeps.csv", rows + rows[-1:])
+        cases, _ = regression_cases(read_tables(run_dir), read_tables(accepted_dir,
+                                                                      "accepted results"),
+                                    CheckSettings(accepted_dir=accepted_dir))
+        finding, = [f for c in cases for f in c.findings]
+        assert finding.file == rows[-1]["file"] and finding.sweep == int(rows[-1]["sweep"])
+        assert f"sweeps.csv: sweep {rows[-1]['sweep']} is in this run 2 times (the same row, " \
+            f"lines {len(rows) + 1}, {len(rows) + 2})" in finding.message
+
+    def test_a_cell_row_in_one_side_only_fails(self, accepted):
+        accepted_dir, run_dir = accepted
+        rows = read_rows(accepted_dir / "cells.csv")
+        write_rows(accepted_dir / "cells.csv", rows[1:])
+        finding, = regression(run_dir, accepted_dir).findings
+        assert finding.file == rows[0]["file"]
+        assert "cells.csv: the file's row is not in the accepted results" in finding.message
+
+    def test_a_column_this_version_does_not_write_gets_a_note(self, accepted):
+        accepted_dir, run_dir = accepted
+        rows = read_rows(accepted_dir / "cells.csv")
+        write_rows(accepted_dir / "cells.csv", [dict(r, reviewer_note="ok") for r in rows])
+        report = regression(run_dir, accepted_dir)
+        assert report.passed
+        assert any("cells.csv: column(s) reviewer_note in accepted results are not columns "
+                   "this version writes" in n for n in report.notes), report.notes
+
     def edit(self, run_dir, name, column, change, row=0):
         rows = read_rows(run_dir / name)
         rows[row][column] = change(rows[row][column])
