@@ -11,7 +11,7 @@ from .detection import DetectionSettings
 from .cell_features import (CELL_FLAG_TEXT, HOLDING_TOLERANCE_PA, MAX_RESIDUAL_TO_NOISE,
                             MIN_DEFLECTION_TO_NOISE)
 from .measurement import CLIPPED_RUN_SAMPLES, FLAG_TEXT, PIECE_SAMPLES
-from .sweep_features import DRIFT_WINDOW_MS, MIN_WINDOW_MS
+from .sweep_features import DRIFT_WINDOW_MS, MIN_WINDOW_MS, SWEEP_FLAG_TEXT
 
 __all__ = ["Column", "SPIKE_COLUMNS", "SWEEP_COLUMNS", "CELL_COLUMNS", "ERROR_COLUMNS",
            "spike_column_names",
@@ -106,7 +106,9 @@ SWEEP_COLUMNS: tuple[Column, ...] = (
            "window.", 4),
     Column("spike_count", "", "Spikes whose threshold time lies in [stimulus_start_s, "
            "stimulus_end_s); for a sweep without a current step (a gap-free recording), all "
-           "its spikes."),
+           "its spikes. With a gap (missing samples) in that window, the spikes found outside "
+           "the gap, a lower bound (flag `spike_count_lower_bound`); empty for a sweep sampled "
+           "too slowly to count spikes (flag `too_slow_for_spikes`)."),
     Column("firing_rate_hz", "Hz", "spike_count / step duration (the sweep's duration when it "
            "has no step).", 4),
     Column("first_spike_latency_ms", "ms", "First threshold time in the step minus onset "
@@ -133,6 +135,10 @@ SWEEP_COLUMNS: tuple[Column, ...] = (
     Column("clipped_spike_count", "", "Spikes of the sweep flagged `clipped_peak`: their largest "
            f"sample repeats over at least {CLIPPED_RUN_SAMPLES} consecutive samples, as when the "
            "recording range was exceeded."),
+    Column("flags", "", "Why values of this sweep are empty or less certain, separated by ';' "
+           "(see the list of sweep flags): gaps of missing samples in the windows values are "
+           "measured over, or a sampling rate too low for spikes. A value whose window holds "
+           "a missing sample is empty; the others are as without the gap."),
 )
 
 CELL_COLUMNS: tuple[Column, ...] = (
@@ -224,6 +230,12 @@ def columns_markdown() -> str:
         lines += ["", f"## {title}", "", intro, "", "| column | unit | definition |",
                   "| --- | --- | --- |"]
         lines += [f"| `{c.name}` | {c.unit or '-'} | {c.definition} |" for c in cols]
+    lines += ["", "## Sweep flags", "", "A gap is a stretch of missing samples: NaN or "
+              "infinite values in the file (dropped samples). A sweep is refused only when no "
+              "value is left to measure; otherwise the values whose windows stay clear of its "
+              "gaps are measured as without them.", "",
+              "| flag | meaning |", "| --- | --- |"]
+    lines += [f"| `{name}` | {text} |" for name, text in SWEEP_FLAG_TEXT.items()]
     lines += ["", "## Cell flags", "", "| flag | meaning |", "| --- | --- |"]
     lines += [f"| `{name}` | {text} |" for name, text in CELL_FLAG_TEXT.items()]
     lines += [
