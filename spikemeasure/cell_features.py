@@ -406,8 +406,9 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
             flags.append("sag_skips_gap_sweeps")
             deepest = clear[np.argmin(stim[clear])]
         values["sag_fraction"] = float(col["sag_fraction"][deepest])
-        pool = np.flatnonzero(candidates)   # hyperpolarizing and spike-free
-        fit_ok = pool[~gapped[pool]]
+        # hyperpolarizing and spike-free, or it would be but for a gap in its step
+        pool = np.flatnonzero(hyper_all & (candidates | (lower & ~(count > 0) & ~slow)))
+        fit_ok = np.flatnonzero(candidates & ~gapped)
         if pool.size and (fit_ok.size == 0 or stim[fit_ok].max() < stim[pool].max()):
             flags.append("membrane_tau_skips_gap_sweeps")
         if fit_ok.size:

@@ -767,12 +767,12 @@ def _blank_near_gaps(spikes: SpikeMeasurements, detected: DetectedSpikes, extra:
     onset, peak = detected.onset_index, detected.peak_sample
     reach = settings.search_window_samples(rate)
     if settings.threshold_method == "onset_rate":
-        thr_lo = onset - 1
+        thr_lo, thr_hi = onset - 1, onset
     else:
         prev_peak = np.concatenate([[-np.iinfo(np.int64).max // 2], peak[:-1] + 1])
-        thr_lo = np.maximum(prev_peak, onset - reach)
+        thr_lo, thr_hi = np.maximum(prev_peak, onset - reach), peak
     touched = {
-        "threshold": thr_lo < low,
+        "threshold": (thr_lo < low) | (thr_hi > high),
         "peak": (peak - _SPLINE_HALF < low) | (peak + trace.window // 2 + _SPLINE_HALF > high),
         # a half-width whose downward crossing was found is the first crossing, as without the
         # gap; one not found may have been cut short by it
