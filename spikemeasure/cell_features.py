@@ -14,7 +14,7 @@ from scipy.ndimage import uniform_filter1d
 from scipy.optimize import OptimizeWarning, curve_fit
 
 __all__ = ["CellFeatures", "ExponentialFit", "fit_membrane_tau", "rheobase", "fi_slope",
-           "input_resistance", "cell_features", "CELL_FLAG_TEXT", "MAX_RESIDUAL_TO_NOISE",
+           "input_resistance", "cell_features", "passive_sweeps", "CELL_FLAG_TEXT", "MAX_RESIDUAL_TO_NOISE",
            "MIN_DEFLECTION_TO_NOISE", "NOISE_FLOOR_MV",
            "HOLDING_TOLERANCE_PA", "SLOW_SWEEP_MAX_RISE_MV"]
 
@@ -269,6 +269,55 @@ def input_resistance(stimulus_pa: np.ndarray, deflection_mv: np.ndarray) -> floa
     return float(np.polyfit(stim[use], dv[use], 1)[0] * 1e3)
 
 
+def _spike_free_hyperpolarizing(col: dict, slow: np.ndarray, lower: np.ndarray,
+                                traces: list[tuple[np.ndarray, float]]) -> np.ndarray:
+    """Hyperpolarizing sweeps known to be spike-free: counted 0 exactly, or sampled too slowly
+    to count and with no sample of the step over SLOW_SWEEP_MAX_RISE_MV above baseline."""
+    stim, count = col["stimulus_pa"], col["spike_count"]
+    hyper = np.isfinite(stim) & (stim < 0)
+    out = hyper & np.isfinite(count) & ~lower & (count == 0)
+    for j in np.flatnonzero(hyper & slow):
+        v, rate = traces[j]
+        lo = int(round(col["stimulus_start_s"][j] * rate))
+        hi = int(round(col["stimulus_end_s"][j] * rate))
+        part = np.asarray(v[lo:hi], dtype=float)
+        part = part[np.isfinite(part)]
+        out[j] = bool(part.size and np.isfinite(col["baseline_mv"][j])
+                      and part.max() <= col["baseline_mv"][j] + SLOW_SWEEP_MAX_RISE_MV)
+    return out
+
+
+def passive_sweeps(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
+                   ) -> np.ndarray:
+    """Which sweeps the input resistance is fitted to.
+
+    Parameters
+    ----------
+    sweep_rows : list of dict
+        One :class:`~spikemeasure.sweep_features.SweepFeatures` ``as_dict()`` per sweep.
+    traces : list of (voltage_mv, sampling_rate_hz)
+        The raw voltage of the same sweeps.
+
+    Returns
+    -------
+    ndarray of bool
+        True for hyperpolarizing sweeps known to be spike-free (see :func:`cell_features`)
+        with a finite steady_state_mv - baseline_mv.
+    """
+    if len(sweep_rows) != len(traces):
+        raise ValueError("`sweep_rows` and `traces` must have the same length")
+    if not sweep_rows:
+        return np.zeros(0, dtype=bool)
+    col = {k: np.array([r[k] for r in sweep_rows], dtype=float) for k in
+           ("stimulus_pa", "spike_count", "baseline_mv", "steady_state_mv", "stimulus_start_s",
+            "stimulus_end_s")}
+    flags = [set(filter(None, str(r.get("flags", "")).split(";"))) for r in sweep_rows]
+    slow = np.array(["too_slow_for_spikes" in f for f in flags], dtype=bool)
+    lower = np.array(["spike_count_lower_bound" in f for f in flags], dtype=bool)
+    return (_spike_free_hyperpolarizing(col, slow, lower, traces)
+            & np.isfinite(col["steady_state_mv"] - col["baseline_mv"]))
+
+
 def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]],
                   first_spikes: list[dict | None]) -> CellFeatures:
     """Cell features from its sweeps.
@@ -375,18 +424,9 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
                           rheobase_half_width_ms=first["half_width_ms"],
                           rheobase_ahp_depth_mv=first["ahp_depth_mv"])
     hyper_all = np.isfinite(stim) & (stim < 0)
-    silent = known & (count == 0)
-    slow_silent = np.zeros(n, dtype=bool)
-    for j in np.flatnonzero(hyper_all & slow):
-        v, rate = traces[j]
-        lo = int(round(col["stimulus_start_s"][j] * rate))
-        hi = int(round(col["stimulus_end_s"][j] * rate))
-        part = np.asarray(v[lo:hi], dtype=float)
-        slow_silent[j] = bool(part.size and np.isfinite(col["baseline_mv"][j])
-                              and np.nanmax(part) <= col["baseline_mv"][j]
-                              + SLOW_SWEEP_MAX_RISE_MV)
+    candidates = _spike_free_hyperpolarizing(col, slow, lower, traces)
+    slow_silent = candidates & slow
     deflection = col["steady_state_mv"] - col["baseline_mv"]
-    candidates = hyper_all & (silent | slow_silent)
     passive = np.flatnonzero(candidates & np.isfinite(deflection))
     if slow_silent[passive].any():
         flags.append("slow_sweeps_taken_as_spike_free")
