@@ -252,3 +252,22 @@ def test_a_long_file_gets_its_figures_while_read_in_pieces(tmp_path, gap_free, s
     assert summary.files_failed == 0 and summary.failures == []
     drawn = sorted(p.name for p in (tmp_path / "out" / "figures").rglob("*.png"))
     assert {"traces.png", "first_spike.png", "phase_plot.png"} <= set(drawn)
+
+
+def test_lazy_sweep_with_a_gap_gets_the_same_spikes_and_flags_as_whole(gap_free):
+    """Source: the same trace with the same gap measured whole (measure_around_gaps); a long
+    sweep kept in its file has the same spikes, and its count is flagged a lower bound."""
+    from spikemeasure.sweeps import Sweep
+    from spikemeasure.tables import measure_sweep
+
+    v = gap_free.copy()
+    v[30_000:30_200] = np.nan
+    lazy = Sweep(LazyTrace(lambda a, b: v[a:b], v.size), RATE_HZ, file="long.nwb")
+    result = measure_sweep(lazy)
+    whole = measurement.measure_around_gaps(v, RATE_HZ)
+    assert result.error is None
+    np.testing.assert_allclose(result.spikes.peak_s, whole.peak_s, rtol=0, atol=1e-8)
+    assert result.spikes.flags == whole.flags
+    assert result.features.spike_count == len(whole)
+    assert result.features.flags == ("spike_count_lower_bound",)
+    assert np.isnan(result.features.firing_rate_hz)

@@ -337,3 +337,31 @@ class TestMissingSamples:
         got = measure_around_gaps(v, self.RATE)
         for name in self.FIELDS:
             np.testing.assert_array_equal(getattr(got, name), getattr(ref, name))
+
+
+@pytest.mark.parametrize("method", ["max_rate_fraction", "second_derivative_peak"])
+def test_gap_rules_hold_for_every_threshold_method(method):
+    """Source: the noise-free Hodgkin-Huxley (1952) train measured without the gap, as in
+    TestMissingSamples, with the threshold searches that reach back from the onset: a gap
+    shortly before a spike's onset cuts that search, so its threshold is empty, never
+    different."""
+    from spikemeasure.measurement import GAP_FLAG, measure_around_gaps
+    from spikemeasure.simulation import simulate_current_steps
+
+    rate = 20_000.0
+    settings = DetectionSettings(threshold_method=method)
+    v = simulate_current_steps("hodgkin_huxley_1952", [100.0], sampling_rate_hz=rate,
+                               duration_s=0.3, step_start_s=0.05, step_end_s=0.25).voltage_mv[0]
+    ref = measure_trace(v, rate, settings)
+    k = 4
+    onset = int(np.floor(ref.threshold_s[k] * rate))
+    broken = v.copy()
+    broken[onset - 40:onset - 35] = np.nan        # 2 ms before the threshold
+    got = measure_around_gaps(broken, rate, settings)
+    assert len(got) == len(ref)
+    for j in range(len(got)):
+        for name in ("threshold_mv", "peak_mv", "half_width_ms", "trough_mv"):
+            a, b = getattr(got, name)[j], getattr(ref, name)[j]
+            assert np.isnan(a) or a == pytest.approx(b, abs=1e-9), (j, name)
+    assert np.isnan(got.threshold_mv[k]) and GAP_FLAG in got.flags[k]
+    assert got.peak_mv[k] == pytest.approx(ref.peak_mv[k], abs=1e-9)
