@@ -354,6 +354,25 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
     - sag_fraction: that of the most hyperpolarizing sweep.
     - rheobase_*: threshold, amplitude, half-width and AHP depth of the rheobase sweep's first
       spike in the step.
+
+    Sweeps with gaps or sampled too slowly for spikes (sweep flags in ``flags`` of the rows):
+
+    - A count flagged ``spike_count_lower_bound`` shows the sweep fired when it is above 0;
+      at 0 it leaves open whether the sweep fired, so that sweep is neither a firing nor a
+      silent step for rheobase (the resolution reaches down to the largest smaller step known
+      silent), nor a spike-free one for input resistance and time constant. Sweeps whose rate
+      a gap emptied are left out of the f-I slope and the largest rate. Each value that left a
+      sweep out for a gap has a ``*_skips_gap_sweeps`` flag.
+    - Sweeps sampled too slowly to count spikes (``too_slow_for_spikes``) empty the largest
+      firing rate, the rheobase when one lies below the smallest step seen to fire (or no
+      step was seen to fire), and the f-I slope when one lies at or above rheobase (flag
+      ``spikes_not_counted_in_slow_sweeps``). Hyperpolarizing ones count as spike-free for
+      input resistance and time constant when no sample of the step lies more than
+      :data:`SLOW_SWEEP_MAX_RISE_MV` above their baseline (flag
+      ``slow_sweeps_taken_as_spike_free``).
+    - The time constant is fitted on the smallest hyperpolarizing spike-free sweep without a
+      gap in its baseline window or step, and sag taken from the most hyperpolarizing sweep
+      without one.
     """
     nan = float("nan")
     flags: list[str] = []

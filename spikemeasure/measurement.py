@@ -722,7 +722,8 @@ def measure_trace(voltage_mv: np.ndarray, sampling_rate_hz: float,
     if v.ndim != 1:
         raise InvalidSettingError("`voltage_mv` must be a 1-D array")
     if not np.all(np.isfinite(v)):
-        raise InvalidSettingError("`voltage_mv` contains NaN or infinite samples")
+        raise InvalidSettingError("`voltage_mv` contains NaN or infinite samples; "
+                                  "measure_around_gaps measures a trace with gaps")
     trace = smoothed_trace(v, sampling_rate_hz, settings.smoothing_ms,
                            second_derivative=settings.needs_second_derivative)
     return measure_spikes(trace, detect_spikes(trace, settings), settings, step)
