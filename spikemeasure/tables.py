@@ -12,8 +12,8 @@ from .cell_features import CellFeatures, cell_features
 from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, Column
 from .detection import DetectionSettings, detect_spikes, smoothed_trace
 from .errors import SpikemeasureError, UnmeasurableDataError
-from .measurement import (SpikeMeasurements, measure_around_gaps, measure_in_pieces_with_gaps,
-                          measure_spikes)
+from .measurement import (PIECE_SAMPLES, SpikeMeasurements, measure_around_gaps,
+                          measure_in_pieces_with_gaps, measure_spikes)
 from .reading import Recording
 from .sweep_features import SweepFeatures, sweep_features
 from .sweeps import (CurrentStep, Sweep, check_sweep, missing_stretches, protocol_steps,
@@ -83,8 +83,9 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
     :func:`~spikemeasure.sweep_features.sweep_features`); a gap in the command channel at the
     step's edge counts as a gap there. A sweep sampled below
     :data:`~spikemeasure.sweeps.MIN_SAMPLING_RATE_HZ` has no spikes measured and its passive
-    values kept (flag ``too_slow_for_spikes``). A sweep with gaps and no value left is an
-    error naming the gaps.
+    values kept (flag ``too_slow_for_spikes``). A sweep missing more than half its samples,
+    with no spike and no value left, is an error naming the gaps; with less missing, "no spike
+    in what is there" is reported (a count of 0, flagged as a lower bound).
     """
     rate = sweep.sampling_rate_hz
     try:
@@ -122,8 +123,8 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
             if edge_gaps.size:
                 features = replace(features,
                                    flags=features.flags + ("gap_at_step_edge_in_command",))
-        if gaps.size and _nothing_measured(spikes, features):
-            missing = int(np.sum(gaps[:, 1] - gaps[:, 0]))
+        missing = int(np.sum(gaps[:, 1] - gaps[:, 0])) if gaps.size else 0
+        if 2 * missing > sweep.n_samples and _nothing_measured(spikes, features):
             raise UnmeasurableDataError(
                 f"{sweep.where()}: {missing} of {sweep.n_samples} voltage samples are NaN or "
                 f"infinite ({stretches_text(gaps, rate)}); every window a value is measured "
@@ -143,8 +144,8 @@ def _lazy_gaps(sweep: Sweep) -> np.ndarray:
     """Missing stretches of a long sweep kept in its file, read piece by piece."""
     found = []
     n = sweep.n_samples
-    for start in range(0, n, 1 << 21):
-        part = sweep.voltage_mv[start:min(n, start + (1 << 21))]
+    for start in range(0, n, PIECE_SAMPLES):
+        part = sweep.voltage_mv[start:min(n, start + PIECE_SAMPLES)]
         for a, b in missing_stretches(part):
             if found and found[-1][1] == start + a:
                 found[-1][1] = start + b

@@ -261,6 +261,16 @@ class TestCellsWithGapsAndSlowSweeps:
         cell = cell_summary(results)
         assert cell.sweeps == 3 and cell.input_resistance_mohm == pytest.approx(R_MOHM, rel=0.01)
 
+    def test_a_quiet_gap_free_recording_with_a_short_gap_is_measured(self):
+        """No step, no spikes, 10 ms missing of 0.8 s: 'no spike seen' is a measurement (a
+        lower bound of 0), not a refusal."""
+        v = np.full(int(0.8 * RATE), -70.0)
+        v[int(0.4 * RATE):int(0.41 * RATE)] = np.nan
+        result, = measure_recording(Recording("quiet", "t", [Sweep(v, RATE, file="quiet")]))
+        assert result.error is None
+        assert result.features.spike_count == 0
+        assert result.features.flags == ("spike_count_lower_bound",)
+
     def test_gap_in_the_command_at_the_step_onset(self):
         rec = rc_recording()
         cmd = rec.sweeps[2].command_pa.copy()
