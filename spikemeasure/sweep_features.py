@@ -47,6 +47,10 @@ SWEEP_FLAG_TEXT = {
                                    "offset, so the step's edge is known only to within the "
                                    "gap: the values whose windows touch that gap are empty, "
                                    "as for a gap in the voltage",
+    "step_unknown_command_gap": "the command channel has a gap where the sweep's step would "
+                                "be, so its step is unknown: the sweep is measured as one "
+                                "without a step (step values empty, spikes counted over the "
+                                "whole sweep)",
     "too_slow_for_spikes": f"sampled below {MIN_SAMPLING_RATE_HZ:g} Hz, where an action "
                            "potential (about 1 ms) spans two samples or fewer and may fall "
                            "between samples: spikes are neither counted nor measured, so "

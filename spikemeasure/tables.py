@@ -123,6 +123,10 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
             if edge_gaps.size:
                 features = replace(features,
                                    flags=features.flags + ("gap_at_step_edge_in_command",))
+            if (step is None and sweep.command_pa is not None
+                    and not np.isfinite(sweep.command_pa).all()):
+                features = replace(features,
+                                   flags=features.flags + ("step_unknown_command_gap",))
         missing = int(np.sum(gaps[:, 1] - gaps[:, 0])) if gaps.size else 0
         if 2 * missing > sweep.n_samples and _nothing_measured(spikes, features):
             raise UnmeasurableDataError(

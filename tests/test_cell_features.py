@@ -271,6 +271,15 @@ class TestCellsWithGapsAndSlowSweeps:
         assert result.features.spike_count == 0
         assert result.features.flags == ("spike_count_lower_bound",)
 
+    def test_a_command_missing_over_the_step_is_flagged(self):
+        rec = rc_recording()
+        cmd = rec.sweeps[1].command_pa.copy()
+        cmd[int(0.05 * RATE):int(0.7 * RATE)] = np.nan       # all of the step and more
+        rec.sweeps[1] = Sweep(rec.sweeps[1].voltage_mv, RATE, cmd, file="rc.nwb", index=1)
+        result = measure_recording(rec)[1]
+        assert result.step is None and np.isnan(result.features.stimulus_pa)
+        assert result.features.flags == ("step_unknown_command_gap",)
+
     def test_gap_in_the_command_at_the_step_onset(self):
         rec = rc_recording()
         cmd = rec.sweeps[2].command_pa.copy()
