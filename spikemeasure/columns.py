@@ -9,9 +9,9 @@ from dataclasses import dataclass
 
 from .detection import DetectionSettings
 from .cell_features import (CELL_FLAG_TEXT, HOLDING_TOLERANCE_PA, MAX_RESIDUAL_TO_NOISE,
-                            MIN_DEFLECTION_TO_NOISE)
+                            MIN_DEFLECTION_TO_NOISE, SLOW_SWEEP_MAX_RISE_MV)
 from .measurement import CLIPPED_RUN_SAMPLES, FLAG_TEXT, PIECE_SAMPLES
-from .sweep_features import DRIFT_WINDOW_MS, MIN_WINDOW_MS
+from .sweep_features import DRIFT_WINDOW_MS, MIN_WINDOW_MS, SWEEP_FLAG_TEXT
 
 __all__ = ["Column", "SPIKE_COLUMNS", "SWEEP_COLUMNS", "CELL_COLUMNS", "ERROR_COLUMNS",
            "spike_column_names",
@@ -106,7 +106,9 @@ SWEEP_COLUMNS: tuple[Column, ...] = (
            "window.", 4),
     Column("spike_count", "", "Spikes whose threshold time lies in [stimulus_start_s, "
            "stimulus_end_s); for a sweep without a current step (a gap-free recording), all "
-           "its spikes."),
+           "its spikes. With a gap (missing samples) in that window, the spikes found outside "
+           "the gap, a lower bound (flag `spike_count_lower_bound`); empty for a sweep sampled "
+           "too slowly to count spikes (flag `too_slow_for_spikes`)."),
     Column("firing_rate_hz", "Hz", "spike_count / step duration (the sweep's duration when it "
            "has no step).", 4),
     Column("first_spike_latency_ms", "ms", "First threshold time in the step minus onset "
@@ -133,6 +135,10 @@ SWEEP_COLUMNS: tuple[Column, ...] = (
     Column("clipped_spike_count", "", "Spikes of the sweep flagged `clipped_peak`: their largest "
            f"sample repeats over at least {CLIPPED_RUN_SAMPLES} consecutive samples, as when the "
            "recording range was exceeded."),
+    Column("flags", "", "Why values of this sweep are empty or less certain, separated by ';' "
+           "(see the list of sweep flags): gaps of missing samples in the windows values are "
+           "measured over, or a sampling rate too low for spikes. A value whose window holds "
+           "a missing sample is empty; the others are as without the gap."),
 )
 
 CELL_COLUMNS: tuple[Column, ...] = (
@@ -141,13 +147,18 @@ CELL_COLUMNS: tuple[Column, ...] = (
     Column("resting_mv", "mV", f"Median baseline_mv over sweeps whose holding current is within "
            f"{HOLDING_TOLERANCE_PA:g} pA of zero.", 4),
     Column("rheobase_pa", "pA", "The smallest step (stimulus_pa) with at least one spike in it. "
-           "It is known only to the protocol's resolution: see rheobase_resolution_pa.", 2),
+           "It is known only to the protocol's resolution: see rheobase_resolution_pa. A "
+           "smaller step whose spikes a gap may hide widens that resolution "
+           "(`rheobase_skips_gap_sweeps`); one sampled too slowly to count spikes empties "
+           "rheobase (`spikes_not_counted_in_slow_sweeps`).", 2),
     Column("fi_slope_hz_per_pa", "Hz/pA", "Least-squares slope of firing_rate_hz on "
            "stimulus_pa over the steps at or above rheobase (at least 2).", 5),
     Column("max_firing_rate_hz", "Hz", "The largest firing_rate_hz of the cell's sweeps.", 4),
     Column("input_resistance_mohm", "MOhm", "Least-squares slope of (steady_state_mv - "
            "baseline_mv) on stimulus_pa over hyperpolarizing, spike-free sweeps (at least 2), "
-           "times 1000.", 3),
+           f"times 1000. A sweep sampled too slowly to count spikes counts as spike-free when no "
+           f"sample of its step lies more than {SLOW_SWEEP_MAX_RISE_MV:g} mV above its baseline "
+           "(`slow_sweeps_taken_as_spike_free`).", 3),
     Column("membrane_tau_ms", "ms", "Time constant of a single exponential fitted "
            "(scipy.optimize.curve_fit) to the voltage from onset to its minimum (on a 1 ms "
            "moving average; the fit ends where that average first comes within 2 % of the "
@@ -224,6 +235,12 @@ def columns_markdown() -> str:
         lines += ["", f"## {title}", "", intro, "", "| column | unit | definition |",
                   "| --- | --- | --- |"]
         lines += [f"| `{c.name}` | {c.unit or '-'} | {c.definition} |" for c in cols]
+    lines += ["", "## Sweep flags", "", "A gap is a stretch of missing samples: NaN or "
+              "infinite values in the file (dropped samples). A sweep is refused only when no "
+              "value is left to measure; otherwise the values whose windows stay clear of its "
+              "gaps are measured as without them.", "",
+              "| flag | meaning |", "| --- | --- |"]
+    lines += [f"| `{name}` | {text} |" for name, text in SWEEP_FLAG_TEXT.items()]
     lines += ["", "## Cell flags", "", "| flag | meaning |", "| --- | --- |"]
     lines += [f"| `{name}` | {text} |" for name, text in CELL_FLAG_TEXT.items()]
     lines += [
@@ -268,7 +285,9 @@ def columns_markdown() -> str:
         "than any search of a spike. A spike belongs to the piece holding its onset crossing, so "
         "one on the border between pieces is measured once, from the same samples as in a "
         "whole read: the tables are the same (times differ from a whole read by rounding, "
-        "below 1e-8 s). Memory stays flat in the recording's length. Such a sweep has no "
+        "below 1e-8 s). Memory stays flat in the recording's length. Missing (NaN or "
+        "infinite) samples are handled as in any sweep: the stretches between them are "
+        "measured, and a gap running across pieces is one gap. Such a sweep has no "
         "current step, so its sweep features are empty, as for any sweep without one; long "
         "sweeps whose command steps, and text files, are read whole.",
         "",

@@ -33,7 +33,7 @@ from typing import Callable, Sequence
 
 import numpy as np
 
-from .cell_features import CellFeatures
+from .cell_features import CellFeatures, passive_sweeps
 from .detection import DetectionSettings, smoothed_trace
 from .errors import SpikemeasureError
 from .output import write_bytes_atomic
@@ -805,7 +805,9 @@ def step_response_figure(results: Sequence[SweepResult], cell: CellFeatures | No
         # the legend where no point, line or the rheobase line runs under it
         _legend_where_free(ax_f, ("upper left", "lower right", "center right"),
                            [cell.rheobase_pa])
-        passive = np.isfinite(stim) & (stim < 0) & (count == 0) & np.isfinite(dv)
+        passive = passive_sweeps([r.features.as_dict() for r in measured],
+                                 [(r.sweep.voltage_mv, r.sweep.sampling_rate_hz)
+                                  for r in measured])
         other = np.isfinite(stim) & np.isfinite(dv) & ~passive
         ax_v.plot(stim[passive], dv[passive], ls="none", marker="o", ms=5, color="#333333",
                   label="fitted sweeps")
