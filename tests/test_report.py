@@ -1,6 +1,7 @@
 """report.html, the groups file, and figures in batch runs (cache, formats, tables unchanged)."""
 import base64
 import csv
+import hashlib
 import json
 import re
 import shutil
@@ -123,8 +124,11 @@ class TestReportContents:
     def test_figures_live_under_safe_folder_names(self, run):
         record = json.loads((run["out"] / "run.json").read_text())
         paths = record["figures"]["cells"][f"day 1/{ODD_NAME}"]
-        # one folder level; characters some file systems refuse (<>:"|?*) made "_"
-        assert paths == [f'figures/day 1__cell _b_&_1_.nix/{s}.png' for s in CELL_FIGURE_NAMES]
+        # one folder level; characters some file systems refuse (<>:"|?*) made "_", and then
+        # (the name changed) the start of the name's SHA-256 (hashlib) keeps it distinct
+        digest = hashlib.sha256(f"day 1/{ODD_NAME}".encode()).hexdigest()[:8]
+        assert paths == [f'figures/day 1__cell _b_&_1_.nix-{digest}/{s}.png'
+                         for s in CELL_FIGURE_NAMES]
         assert all((run["out"] / p).is_file() for p in paths)
 
 
