@@ -24,6 +24,7 @@ import sys
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Callable
 
 import numpy as np
 
@@ -462,7 +463,7 @@ def _align_stimulus(sweep: Sweep, response, stimulus, problem: str) -> tuple[Swe
 
 # --------------------------------------------------------------------------- NIX and others
 
-def _nix_longest_array(path: Path) -> int:
+def _nix_longest_array(path: Path | str) -> int:
     """The length of the longest data array in a NIX file, from the HDF5 layout alone."""
     import h5py
 
@@ -478,7 +479,7 @@ def _nix_longest_array(path: Path) -> int:
     return longest
 
 
-def _read_nix_lazily(path: Path, shown: str) -> Recording:
+def _read_nix_lazily(path: Path | str, shown: str) -> Recording:
     """A NIX file with long signals: neo's lazy NIX reader, long signals left in the file."""
     import neo
 
@@ -514,7 +515,49 @@ def _close_rawio(io) -> None:
         handle.close()
 
 
+def _openable_text_path(path: Path) -> tuple[str, Callable[[], None]]:
+    """A path as text that HDF5 libraries accept, and what to call when done with it.
+
+    nixio refuses a path whose bytes are not UTF-8 (Python holds those bytes as surrogates);
+    such a file is opened here and given by its descriptor's name (``/proc/self/fd/N``), so
+    it is still read by its real path.
+    """
+    text = str(path)
+    try:
+        text.encode("utf-8")
+        return text, lambda: None
+    except UnicodeEncodeError:
+        pass
+    for folder in ("/proc/self/fd", "/dev/fd"):
+        if os.path.isdir(folder):
+            fd = os.open(path, os.O_RDONLY)
+            closed = []
+
+            def close() -> None:
+                if not closed:
+                    closed.append(True)
+                    os.close(fd)
+
+            return f"{folder}/{fd}", close
+    return text, lambda: None  # no descriptor folder: the library says what it refuses
+
+
 def _read_nix(path: Path, shown: str) -> Recording:
+    path_text, done = _openable_text_path(path)
+    try:
+        recording = _read_nix_from(path, path_text, shown)
+    except BaseException:
+        done()
+        raise
+    if recording.release is None:
+        done()
+        return recording
+    release = recording.release
+    return Recording(recording.path, recording.format, recording.sweeps, recording.channels,
+                     recording.problems, release=lambda: (release(), done()))
+
+
+def _read_nix_from(path: Path, path_text: str, shown: str) -> Recording:
     import neo
 
     with open(path, "rb") as fh:
@@ -525,9 +568,9 @@ def _read_nix(path: Path, shown: str) -> Recording:
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            if _nix_longest_array(path) > LONG_SWEEP_SAMPLES:
-                return _read_nix_lazily(path, shown)
-            with neo.io.NixIO(str(path), mode="ro") as io:
+            if _nix_longest_array(path_text) > LONG_SWEEP_SAMPLES:
+                return _read_nix_lazily(path_text, shown)
+            with neo.io.NixIO(path_text, mode="ro") as io:
                 blocks = io.read_all_blocks(lazy=False)
     except UnreadableInputError:
         raise
