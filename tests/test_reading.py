@@ -248,8 +248,7 @@ def test_name_not_utf8_is_shown_escaped_and_read_by_its_real_path(tmp_path):
     folder.mkdir()
     raw = os.path.join(os.fsencode(folder), b"caf\xe9.txt")
     _one_text_recording(os.fsdecode(raw))
-    search = _search(folder)
-    (path, shown), = search.files
+    (path, shown), = find_recordings([folder])
     assert shown == "caf\\xe9.txt"
     shown.encode("utf-8")  # valid text
     assert os.fsencode(path) == raw and path.is_file()
@@ -261,7 +260,7 @@ def test_control_characters_in_a_name_are_escaped(tmp_path):
     folder = tmp_path / "cells"
     folder.mkdir()
     _one_text_recording(folder / "two\nlines.txt")
-    (_, shown), = _search(folder).files
+    (_, shown), = find_recordings([folder])
     assert shown == "two\\x0alines.txt"
 
 
@@ -352,19 +351,19 @@ def test_same_name_in_two_folders_keeps_two_names(tmp_path):
         (tmp_path / day).mkdir()
         _one_text_recording(tmp_path / day / "cell.txt")
     _one_text_recording(tmp_path / "day1" / "other.txt")
-    files = _search(tmp_path / "day1" / "cell.txt", tmp_path / "day2" / "cell.txt").files
+    files = find_recordings([tmp_path / "day1" / "cell.txt", tmp_path / "day2" / "cell.txt"])
     assert [n for _, n in files] == ["day1/cell.txt", "day2/cell.txt"]
-    folders = _search(tmp_path / "day1", tmp_path / "day2").files
+    folders = find_recordings([tmp_path / "day1", tmp_path / "day2"])
     # the files of a folder are named alike: all with the folder's name
     assert [n for _, n in folders] == ["day1/cell.txt", "day1/other.txt", "day2/cell.txt"]
     # when the folders' names are alike too, one more level
     for lab in ("a", "b"):
         (tmp_path / lab / "day1").mkdir(parents=True)
         _one_text_recording(tmp_path / lab / "day1" / "cell.txt")
-    nested = _search(tmp_path / "a" / "day1", tmp_path / "b" / "day1").files
+    nested = find_recordings([tmp_path / "a" / "day1", tmp_path / "b" / "day1"])
     assert [n for _, n in nested] == ["a/day1/cell.txt", "b/day1/cell.txt"]
     # no clash, no change: a single folder's files keep their relative names
-    assert [n for _, n in _search(tmp_path / "day1").files] == ["cell.txt", "other.txt"]
+    assert [n for _, n in find_recordings([tmp_path / "day1"])] == ["cell.txt", "other.txt"]
 
 
 def test_escaped_name_alike_to_a_typed_name_stays_distinct(tmp_path):
@@ -372,8 +371,11 @@ def test_escaped_name_alike_to_a_typed_name_stays_distinct(tmp_path):
     folder.mkdir()
     _one_text_recording(os.fsdecode(os.path.join(os.fsencode(folder), b"caf\xe9.txt")))
     _one_text_recording(folder / "caf\\xe9.txt")  # a backslash typed in the name
-    names = [n for _, n in _search(folder).files]
-    assert len(set(names)) == 2 and names[0] == "caf\\xe9.txt"
+    found = find_recordings([folder])
+    names = [n for _, n in found]
+    # sorted by the real names: the typed backslash (0x5c) before the byte 0xe9
+    assert names == ["caf\\xe9.txt", "caf\\xe9.txt (2)"]
+    assert os.fsencode(found[1][0]).endswith(b"caf\xe9.txt")
 
 
 def test_same_file_given_twice_is_found_once_with_a_note(tmp_path):
