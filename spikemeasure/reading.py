@@ -28,7 +28,7 @@ from typing import Callable
 
 import numpy as np
 
-from .errors import UnreadableInputError, printable_name
+from .errors import InvalidSettingError, UnreadableInputError, printable_name
 from .sweeps import LazyTrace, Sweep
 
 __all__ = ["Recording", "ChannelInfo", "read_recording", "find_recordings", "is_temporary",
@@ -760,7 +760,19 @@ _TEMPORARY = re.compile(r"^(~|\.~|\.#)|(~|\.tmp|\.temp|\.part|\.swp|\.crdownload
 
 
 def is_temporary(name: str) -> bool:
-    """Editor, download and copy leftovers (``~$x``, ``x~``, ``x.tmp``, ``x.part``, ...)."""
+    """Editor, download and copy leftovers (``~$x``, ``x~``, ``x.tmp``, ``x.part``, ...).
+
+    Parameters
+    ----------
+    name : str
+        A file name (not a path).
+
+    Returns
+    -------
+    bool
+    """
+    if not isinstance(name, str):
+        raise InvalidSettingError(f"`name` must be a str (got {type(name).__name__})")
     return bool(_TEMPORARY.search(name))
 
 
@@ -868,7 +880,7 @@ def _walk_folder(given: Path, unit: int, root_real: str, skip: str | None, wante
                 continue
             found.append(_Found(Path(entry.path), unit, base, rel + (name,),
                                 (st.st_dev, st.st_ino), linked or link))
-    found.sort(key=lambda f: f.rel)
+    found.sort(key=lambda f: "/".join(f.rel))  # as a path: "a b/x" before "a/x"
     return found
 
 

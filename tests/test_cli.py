@@ -253,3 +253,15 @@ class TestProjectFile:
                  str(config)])
         assert r.exit_code == 1 and "threshold_method" in r.output and "lab.toml" in r.output
         assert "Traceback" not in r.output
+
+
+def test_inspect_names_a_file_not_utf8_as_text(folder):
+    """A Latin-1 byte in the name (held by Python as a surrogate) is shown as \\xe9."""
+    import os
+
+    raw = os.path.join(os.fsencode(folder), b"caf\xe9.nix")
+    os.rename(folder / "good.nix", raw)
+    r = run(["inspect", os.fsdecode(raw)])
+    assert r.exit_code == 0, r.output
+    first = r.output.splitlines()[0]
+    assert first.startswith("file:") and first.split()[1].endswith("caf\\xe9.nix")

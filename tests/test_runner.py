@@ -288,8 +288,18 @@ def test_unsearchable_folders_and_outside_links_are_failures_of_the_run(tmp_path
 
     monkeypatch.setattr(os, "scandir", scandir)
     too_long = str(tmp_path / ("y" * 300))
+    from click.testing import CliRunner
+    from spikemeasure.cli import main
+
+    result = CliRunner().invoke(main, ["measure", str(folder), too_long, "--out",
+                                       str(tmp_path / "out"), "--jobs", "1", "--no-figures"])
+    assert result.exit_code == 1, result.output
+    assert result.exception is None or isinstance(result.exception, SystemExit)
+    assert "Traceback" not in result.output
+    assert "1 file measured, 0 failed" in result.output
+    assert "3 problems" in result.output and "cannot search this folder" in result.output
     summary = measure_paths([str(folder), too_long], tmp_path / "out")
-    assert summary.files_measured == 1
+    assert summary.files_measured + summary.files_reused == 1
     errors = {r["file"]: r for r in _rows(tmp_path / "out" / "errors.csv")}
     assert set(errors) == {str(folder / "locked"), str(folder / "x.txt"), too_long}
     assert all(r["stage"] == "input" for r in errors.values())
