@@ -543,7 +543,10 @@ def _openable_text_path(path: Path) -> tuple[str, Callable[[], None]]:
 
 
 def _read_nix(path: Path, shown: str) -> Recording:
-    path_text, done = _openable_text_path(path)
+    try:
+        path_text, done = _openable_text_path(path)
+    except OSError as exc:
+        raise UnreadableInputError(f"{shown}: cannot be opened ({_os_reason(exc)})") from None
     try:
         recording = _read_nix_from(path, path_text, shown)
     except BaseException:

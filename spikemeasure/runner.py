@@ -34,9 +34,8 @@ from typing import Callable
 from . import __version__
 from .columns import CELL_COLUMNS, ERROR_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS
 from .detection import DetectionSettings
-from .errors import SpikemeasureError
+from .errors import SpikemeasureError, printable_name
 from .output import write_json, write_rows_csv, write_text_atomic
-from .errors import printable_name
 from .reading import TEXT_SUFFIXES, read_recording, search_recordings
 from .tables import (cell_summary, cell_table, count_spikes, flag_counts, format_rows,
                      measure_recording, spike_table, sweep_table)
@@ -321,7 +320,9 @@ def measure_paths(paths: list[str], out_dir: str | Path,
     ----------
     paths : list of str
         Files and folders (searched recursively; see
-        :func:`~spikemeasure.reading.find_recordings`).
+        :func:`~spikemeasure.reading.search_recordings`: how files are named, each once;
+        folders that cannot be searched and links not followed are failures of stage
+        ``input``, files reached twice a note).
     out_dir : str or Path
         Created if missing; skipped when searching an input folder that contains it.
     settings : DetectionSettings
