@@ -11,6 +11,8 @@ valid_text`), never refused.
 """
 from __future__ import annotations
 
+import csv
+import io
 import json
 import os
 import tempfile
@@ -28,6 +30,7 @@ TEXT_COLUMN_NAMES = frozenset({"file", "flags", "stage", "message"})
 #: First characters that make a spreadsheet read a cell as a formula (common practice, as
 #: the OWASP guidance on CSV injection lists them).
 FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+_FIRST_TO_CHECK = frozenset(FORMULA_START + ("'",))
 
 
 def _read_umask() -> int:
@@ -114,30 +117,36 @@ def unescape_csv_text(cell: str) -> str:
     return cell
 
 
-def _csv_cell(text: str, is_text: bool) -> str:
-    """One CSV field, quoted when it must be (as csv's QUOTE_MINIMAL) and, for an escaped
-    text cell, always."""
-    text = valid_text(text)
-    escaped = escape_csv_text(text) if is_text else text
-    if escaped != text or any(c in text for c in ',"\r\n'):
-        return '"' + escaped.replace('"', '""') + '"'
-    return escaped
+def _csv_cell(text: str) -> str:
+    """One field as csv's QUOTE_MINIMAL writes it."""
+    if any(c in text for c in ',"\r\n'):
+        return '"' + text.replace('"', '""') + '"'
+    return text
 
 
 def write_rows_csv(path: str | os.PathLike, columns: tuple[Column, ...],
                    rows: list[list[str]]) -> Path:
     """Write already formatted rows under the declared header, atomically.
 
-    Cells of :data:`TEXT_COLUMN_NAMES` pass through :func:`escape_csv_text`; numbers never do.
+    Cells of :data:`TEXT_COLUMN_NAMES` pass through :func:`escape_csv_text` and, when escaped,
+    are quoted; numbers never change.
     """
-    is_text = [c.name in TEXT_COLUMN_NAMES for c in columns]
-    lines = [",".join(_csv_cell(c.name, False) for c in columns)]
+    text_columns = [k for k, c in enumerate(columns) if c.name in TEXT_COLUMN_NAMES]
+    buffer = io.StringIO()
+    writer = csv.writer(buffer, lineterminator="\n")
+    writer.writerow([c.name for c in columns])
     for row in rows:
         if len(row) != len(columns):
             raise InvalidSettingError(f"{path}: a row of {len(row)} cells under a header of "
                                       f"{len(columns)}")
-        lines.append(",".join(_csv_cell(str(v), t) for v, t in zip(row, is_text)))
-    return write_text_atomic(path, "\n".join(lines) + "\n")
+        escaped = {k for k in text_columns
+                   if row[k][:1] in _FIRST_TO_CHECK and row[k] != escape_csv_text(row[k])}
+        if not escaped:
+            writer.writerow(row)
+            continue
+        buffer.write(",".join('"' + escape_csv_text(v).replace('"', '""') + '"' if k in escaped
+                              else _csv_cell(v) for k, v in enumerate(row)) + "\n")
+    return write_text_atomic(path, buffer.getvalue())
 
 
 def _valid_strings(value):
