@@ -27,6 +27,7 @@ from typing import Callable, Sequence
 from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, Column
 from .config import CheckSettings, Tolerance
 from .errors import SpikemeasureError
+from .output import TEXT_COLUMN_NAMES, unescape_csv_text
 
 __all__ = ["CheckInputError", "Finding", "CaseResult", "CheckReport", "RunTables",
            "QualityRule", "QUALITY_RULES", "MEASURED_CHECK", "REGRESSION_CHECK",
@@ -163,6 +164,8 @@ def _read_csv(path: Path, what: str, required: tuple[str, ...]) -> tuple[list[st
         if None in row or any(v is None for v in row.values()):
             raise CheckInputError(f"{path}, line {k}: the number of cells differs from the "
                                   f"header; the file is damaged (measure again)")
+        for name in TEXT_COLUMN_NAMES.intersection(row):  # '=cell.nwb back to =cell.nwb
+            row[name] = unescape_csv_text(row[name])
     return header, rows
 
 

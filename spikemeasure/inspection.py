@@ -62,7 +62,7 @@ def inspect_file(path: str, settings: DetectionSettings = DetectionSettings(), *
         raise
     rates = sorted({s.sampling_rate_hz for s in recording.sweeps})
     lines = [
-        f"file:          {path} ({Path(path).stat().st_size / 1e6:.2f} MB)",
+        f"file:          {recording.path} ({Path(path).stat().st_size / 1e6:.2f} MB)",
         f"format:        {recording.format}",
         f"sweeps:        {len(recording.sweeps)}",
         "sampling rate: " + ", ".join(f"{r / 1e3:g} kHz" for r in rates),

@@ -320,3 +320,15 @@ def test_option_values_inconsistent_together_are_a_usage_error(small_lab, comman
     assert r.exit_code == 2, r.output
     assert "smoothing_ms" in r.output and "peak_window_ms" in r.output
     assert "Traceback" not in r.output and not (small_lab / "results").exists()
+
+
+def test_inspect_names_a_file_not_utf8_as_text(folder):
+    """A Latin-1 byte in the name (held by Python as a surrogate) is shown as \\xe9."""
+    import os
+
+    raw = os.path.join(os.fsencode(folder), b"caf\xe9.nix")
+    os.rename(folder / "good.nix", raw)
+    r = run(["inspect", os.fsdecode(raw)])
+    assert r.exit_code == 0, r.output
+    first = r.output.splitlines()[0]
+    assert first.startswith("file:") and first.split()[1].endswith("caf\\xe9.nix")
