@@ -806,12 +806,12 @@ def accepted_folder_problem(accepted_dir: str | os.PathLike, results_dir: str | 
     Paths are compared after resolving symlinks and ``..``: an accepted folder that is a
     symlink is judged, and written, as the folder it points to. The folder is refused when it
     is an existing file; is, contains or lies inside the results folder; is the project
-    folder or contains it; lies outside the project folder; holds a file the run's discovery
-    would take as a recording, at any depth (the accepted tables themselves aside), or a
-    recording of the run; or holds a file named like an accepted file that is not one (a
+    folder or contains it; lies outside the project folder; holds a recording of the run, or
+    a file of a binary recording format (NWB, NIX, a ``--glob`` pattern) at any depth (text
+    files that are not the run's recordings are taken for notes); or holds a file named like an accepted file that is not one (a
     folder or symlink, or tables without the run.json ``accept`` writes).
     """
-    from .reading import find_recordings
+    from .reading import TEXT_SUFFIXES, find_recordings
 
     given = Path(accepted_dir)
     target = given.resolve()
@@ -855,8 +855,10 @@ def accepted_folder_problem(accepted_dir: str | os.PathLike, results_dir: str | 
         return (f"{name}: holds tables without the {RUN_RECORD_FILE} `spikemeasure accept` "
                 f"writes, so they were not written by accept and would be overwritten; "
                 f"choose another accepted_folder, or move them away")
-    found = [shown for _, shown in find_recordings([target], extra_patterns=extra_patterns)
-             if shown not in TABLE_FILES]
+    # Text files of the run were caught above by path; any other .txt or .csv is taken for a
+    # note (a lab's notes.txt beside the accepted tables), not for a recording.
+    found = [shown for path, shown in find_recordings([target], extra_patterns=extra_patterns)
+             if shown not in TABLE_FILES and path.suffix.lower() not in TEXT_SUFFIXES]
     if found:
         return (f"{name}: holds {_count_of(len(found), 'file')} that would be taken as "
                 f"recordings ({_some(found)}); set accepted_folder to a folder of its own")

@@ -876,6 +876,7 @@ class TestAcceptKeepsTheLabsFiles:
         (lab / "accepted" / "figures").mkdir()
         (lab / "accepted" / "figures" / "fi.png").write_bytes(b"\x89PNG\r\n\x1a\n" + bytes(64))
         (lab / "accepted" / "README.md").write_text("reviewed results\n")
+        (lab / "accepted" / "notes.txt").write_text("a note kept as plain text\n")
         before = snapshot(lab.parent)
         r = self.accept_with(lab, "accepted")
         assert r.exit_code == 0, r.output
