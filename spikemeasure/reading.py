@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import errno
 import inspect
+import json
 import os
 import re
 import stat
@@ -825,6 +826,20 @@ class _Found:
     via_link: bool = False  # reached through a symbolic link in a folder searched
 
 
+def _holds_own_output(folder: str) -> bool:
+    """Whether `folder` is a results or accepted folder of this tool: its CSV tables are not
+    recordings. Told by its run.json (read as JSON data, at most 64 MiB), never by its name."""
+    record = os.path.join(folder, "run.json")
+    try:
+        if os.path.getsize(record) > 1 << 26:
+            return False
+        with open(record, "rb") as fh:
+            data = json.loads(fh.read())
+    except (OSError, ValueError):
+        return False
+    return isinstance(data, dict) and data.get("tool") == "spikemeasure"
+
+
 def _walk_folder(given: Path, unit: int, root_real: str, skip: str | None, wanted,
                  search: RecordingSearch) -> list[_Found]:
     """Every wanted file under `given`, by os.scandir: a folder that cannot be entered and a
@@ -867,6 +882,10 @@ def _walk_folder(given: Path, unit: int, root_real: str, skip: str | None, wante
                 real = target if link else os.path.realpath(entry.path)
                 if skip is not None and _inside(real, skip):
                     continue  # the output folder
+                if is_dir and _holds_own_output(real):
+                    search.notes.append(f"{shown}: holds tables spikemeasure wrote (a results "
+                                        "or accepted folder); not searched for recordings")
+                    continue
                 if is_dir:
                     if real not in seen_folders:  # else reached twice, through a link
                         seen_folders.add(real)

@@ -425,3 +425,29 @@ def test_pipe_in_a_folder_is_a_problem_not_read(tmp_path):
     assert [n for _, n in search.files] == ["good.txt"]
     assert [w for w, _ in search.problems] == [str(folder / "pipe.nwb")]
     assert "not a regular file" in search.problems[0][1]
+
+
+def test_results_and_accepted_folders_inside_a_recording_folder_are_not_recordings(tmp_path):
+    """Tables this tool wrote (told by their run.json, whatever the folder's name) are not
+    text recordings: a later run over the recording folder skips them, with a note; a folder
+    whose run.json is not this tool's, or not JSON, is searched as any other."""
+    import json
+
+    _, v = gaussian_train(20000.0, [30.0], 100.0)
+    rec = tmp_path / "recordings"
+    rec.mkdir()
+    write_nwb(rec / "cell.nwb", [(v, step_command(v.size, 20000.0, 50.0))], rate_hz=20000.0)
+    for folder, record in (("old results", {"tool": "spikemeasure", "status": "complete"}),
+                           ("accepted", {"tool": "spikemeasure", "accepted": "2026-01-01"})):
+        (rec / folder).mkdir()
+        (rec / folder / "spikes.csv").write_text("file,sweep\ncell.nwb,0\n")
+        (rec / folder / "run.json").write_text(json.dumps(record))
+    (rec / "exported").mkdir()
+    write_text(rec / "exported" / "trace.txt", v, rate_hz=20000.0)
+    (rec / "exported" / "run.json").write_text("not json at all")
+    search = _search(rec)
+    assert [shown for _, shown in search.files] == ["cell.nwb", "exported/trace.txt"]
+    assert not search.problems
+    assert sorted(n.split(":")[0] for n in search.notes) == [
+        str(rec / "accepted"), str(rec / "old results")]
+    assert all("not searched for recordings" in n for n in search.notes)
