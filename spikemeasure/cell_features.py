@@ -14,9 +14,9 @@ from scipy.ndimage import uniform_filter1d
 from scipy.optimize import OptimizeWarning, curve_fit
 
 __all__ = ["CellFeatures", "ExponentialFit", "fit_membrane_tau", "rheobase", "fi_slope",
-           "input_resistance", "cell_features", "CELL_FLAG_TEXT", "MAX_RESIDUAL_TO_NOISE",
+           "input_resistance", "cell_features", "passive_sweeps", "CELL_FLAG_TEXT", "MAX_RESIDUAL_TO_NOISE",
            "MIN_DEFLECTION_TO_NOISE", "NOISE_FLOOR_MV",
-           "HOLDING_TOLERANCE_PA"]
+           "HOLDING_TOLERANCE_PA", "SLOW_SWEEP_MAX_RISE_MV"]
 
 #: A time-constant fit is poor when its residual RMS exceeds this multiple of the sweep's
 #: baseline noise (the response is not one exponential: resonance, sag, active currents) ...
@@ -30,6 +30,14 @@ NOISE_FLOOR_MV = 0.05
 END_FRACTION = 0.02
 #: Sweeps whose holding current is within this of zero count as "no holding current".
 HOLDING_TOLERANCE_PA = 1.0
+#: A hyperpolarizing sweep sampled too slowly to count spikes is taken as spike-free when no
+#: sample of its step lies more than this above its baseline (a rule of our own: a spike
+#: rises tens of mV, noise and rebound a few).
+SLOW_SWEEP_MAX_RISE_MV = 10.0
+
+#: Sweep flags that mean a gap emptied some of a sweep's passive values.
+_GAP_FLAGS = ("gap_in_baseline_window", "gap_in_step", "gap_in_steady_state_window",
+              "gap_at_step_edge_in_command")
 
 CELL_FLAG_TEXT = {
     "no_current_steps": "no sweep has a current step (a gap-free recording, or a file without a "
@@ -48,6 +56,35 @@ CELL_FLAG_TEXT = {
                               "resistance is empty",
     "no_hyperpolarizing_step": "no hyperpolarizing step: time constant and sag are empty",
     "tau_fit_failed": "the exponential fit for the time constant did not converge",
+    "spikes_not_counted_in_slow_sweeps": "some sweeps were sampled too slowly to count spikes "
+                                         "(sweep flag too_slow_for_spikes) and could change "
+                                         "rheobase, f-I slope or the largest firing rate: "
+                                         "those, and the rheobase_* values, are empty",
+    "slow_sweeps_taken_as_spike_free": "hyperpolarizing sweeps sampled too slowly to count "
+                                       "spikes are used for input resistance, time constant "
+                                       "and sag, taken as spike-free since no sample of their "
+                                       f"step rises over {SLOW_SWEEP_MAX_RISE_MV:g} mV above "
+                                       "their baseline",
+    "resting_skips_gap_sweeps": "a gap emptied the baseline of some sweeps: resting_mv is the "
+                                "median of the others",
+    "rheobase_skips_gap_sweeps": "a gap in the step of a smaller step's sweep, with no spike "
+                                 "found outside the gap, leaves open whether it fired: "
+                                 "rheobase is the smallest step seen to fire, and "
+                                 "rheobase_resolution_pa reaches down to the largest smaller "
+                                 "step known not to fire",
+    "fi_slope_skips_gap_sweeps": "sweeps at or above rheobase whose firing rate a gap emptied "
+                                 "are left out of the f-I slope",
+    "max_firing_rate_skips_gap_sweeps": "sweeps whose firing rate a gap emptied are left out "
+                                        "of max_firing_rate_hz",
+    "input_resistance_skips_gap_sweeps": "hyperpolarizing sweeps whose baseline or steady "
+                                         "state a gap emptied, or whose spikes a gap left "
+                                         "uncounted, are left out of the input resistance",
+    "membrane_tau_skips_gap_sweeps": "the smallest hyperpolarizing spike-free sweep has a gap "
+                                     "in its step or baseline: the time constant is fitted on "
+                                     "the next one without a gap",
+    "sag_skips_gap_sweeps": "the most hyperpolarizing sweep has a gap in a window sag is "
+                            "measured over: sag_fraction is that of the most hyperpolarizing "
+                            "sweep without one",
     "tau_fit_poor": f"the exponential fit leaves a residual over {MAX_RESIDUAL_TO_NOISE:g} "
                     "times the recording noise (the response is not one exponential), or the "
                     f"deflection is under {MIN_DEFLECTION_TO_NOISE:g} times the noise: the "
@@ -167,8 +204,20 @@ def fit_membrane_tau(voltage_mv: np.ndarray, sampling_rate_hz: float, onset_s: f
     return ExponentialFit(tau, v_inf + delta, v_inf, r2, rms, int(y.size))
 
 
-def rheobase(stimulus_pa: np.ndarray, spike_count: np.ndarray) -> tuple[float, float, int]:
+def rheobase(stimulus_pa: np.ndarray, spike_count: np.ndarray,
+             count_known: np.ndarray | None = None) -> tuple[float, float, int]:
     """Smallest step that evokes at least one spike.
+
+    Parameters
+    ----------
+    stimulus_pa : ndarray
+        Step size of each sweep.
+    spike_count : ndarray
+        Spikes in each step (NaN where not counted).
+    count_known : ndarray of bool, optional
+        False for sweeps whose count is only a lower bound or unknown (a gap, or too slow
+        sampling): such a sweep counts as firing when spikes were seen, and otherwise neither
+        as firing nor as silent, so it does not narrow the resolution. All true by default.
 
     Returns
     -------
@@ -181,13 +230,15 @@ def rheobase(stimulus_pa: np.ndarray, spike_count: np.ndarray) -> tuple[float, f
         Position of the rheobase sweep in the arrays (-1 when none).
     """
     stim = np.asarray(stimulus_pa, dtype=float)
-    count = np.asarray(spike_count)
+    count = np.asarray(spike_count, dtype=float)
+    known = (np.ones(stim.shape, dtype=bool) if count_known is None
+             else np.asarray(count_known, dtype=bool))
     ok = np.isfinite(stim)
     spiking = np.flatnonzero(ok & (count > 0))
     if spiking.size == 0:
         return float("nan"), float("nan"), -1
     k = int(spiking[np.argmin(stim[spiking])])
-    smaller = stim[ok & (stim < stim[k])]
+    smaller = stim[ok & known & (count == 0) & (stim < stim[k])]
     resolution = float(stim[k] - smaller.max()) if smaller.size else float("nan")
     return float(stim[k]), resolution, k
 
@@ -216,6 +267,55 @@ def input_resistance(stimulus_pa: np.ndarray, deflection_mv: np.ndarray) -> floa
     if np.unique(stim[use]).size < 2:
         return float("nan")
     return float(np.polyfit(stim[use], dv[use], 1)[0] * 1e3)
+
+
+def _spike_free_hyperpolarizing(col: dict, slow: np.ndarray, lower: np.ndarray,
+                                traces: list[tuple[np.ndarray, float]]) -> np.ndarray:
+    """Hyperpolarizing sweeps known to be spike-free: counted 0 exactly, or sampled too slowly
+    to count and with no sample of the step over SLOW_SWEEP_MAX_RISE_MV above baseline."""
+    stim, count = col["stimulus_pa"], col["spike_count"]
+    hyper = np.isfinite(stim) & (stim < 0)
+    out = hyper & np.isfinite(count) & ~lower & (count == 0)
+    for j in np.flatnonzero(hyper & slow):
+        v, rate = traces[j]
+        lo = int(round(col["stimulus_start_s"][j] * rate))
+        hi = int(round(col["stimulus_end_s"][j] * rate))
+        part = np.asarray(v[lo:hi], dtype=float)
+        part = part[np.isfinite(part)]
+        out[j] = bool(part.size and np.isfinite(col["baseline_mv"][j])
+                      and part.max() <= col["baseline_mv"][j] + SLOW_SWEEP_MAX_RISE_MV)
+    return out
+
+
+def passive_sweeps(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
+                   ) -> np.ndarray:
+    """Which sweeps the input resistance is fitted to.
+
+    Parameters
+    ----------
+    sweep_rows : list of dict
+        One :class:`~spikemeasure.sweep_features.SweepFeatures` ``as_dict()`` per sweep.
+    traces : list of (voltage_mv, sampling_rate_hz)
+        The raw voltage of the same sweeps.
+
+    Returns
+    -------
+    ndarray of bool
+        True for hyperpolarizing sweeps known to be spike-free (see :func:`cell_features`)
+        with a finite steady_state_mv - baseline_mv.
+    """
+    if len(sweep_rows) != len(traces):
+        raise ValueError("`sweep_rows` and `traces` must have the same length")
+    if not sweep_rows:
+        return np.zeros(0, dtype=bool)
+    col = {k: np.array([r[k] for r in sweep_rows], dtype=float) for k in
+           ("stimulus_pa", "spike_count", "baseline_mv", "steady_state_mv", "stimulus_start_s",
+            "stimulus_end_s")}
+    flags = [set(filter(None, str(r.get("flags", "")).split(";"))) for r in sweep_rows]
+    slow = np.array(["too_slow_for_spikes" in f for f in flags], dtype=bool)
+    lower = np.array(["spike_count_lower_bound" in f for f in flags], dtype=bool)
+    return (_spike_free_hyperpolarizing(col, slow, lower, traces)
+            & np.isfinite(col["steady_state_mv"] - col["baseline_mv"]))
 
 
 def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]],
@@ -254,6 +354,25 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
     - sag_fraction: that of the most hyperpolarizing sweep.
     - rheobase_*: threshold, amplitude, half-width and AHP depth of the rheobase sweep's first
       spike in the step.
+
+    Sweeps with gaps or sampled too slowly for spikes (sweep flags in ``flags`` of the rows):
+
+    - A count flagged ``spike_count_lower_bound`` shows the sweep fired when it is above 0;
+      at 0 it leaves open whether the sweep fired, so that sweep is neither a firing nor a
+      silent step for rheobase (the resolution reaches down to the largest smaller step known
+      silent), nor a spike-free one for input resistance and time constant. Sweeps whose rate
+      a gap emptied are left out of the f-I slope and the largest rate. Each value that left a
+      sweep out for a gap has a ``*_skips_gap_sweeps`` flag.
+    - Sweeps sampled too slowly to count spikes (``too_slow_for_spikes``) empty the largest
+      firing rate, the rheobase when one lies below the smallest step seen to fire (or no
+      step was seen to fire), and the f-I slope when one lies at or above rheobase (flag
+      ``spikes_not_counted_in_slow_sweeps``). Hyperpolarizing ones count as spike-free for
+      input resistance and time constant when no sample of the step lies more than
+      :data:`SLOW_SWEEP_MAX_RISE_MV` above their baseline (flag
+      ``slow_sweeps_taken_as_spike_free``).
+    - The time constant is fitted on the smallest hyperpolarizing spike-free sweep without a
+      gap in its baseline window or step, and sag taken from the most hyperpolarizing sweep
+      without one.
     """
     nan = float("nan")
     flags: list[str] = []
@@ -262,6 +381,10 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
            ("stimulus_pa", "holding_pa", "baseline_mv", "baseline_noise_mv", "spike_count",
             "firing_rate_hz", "steady_state_mv", "sag_fraction", "stimulus_start_s",
             "stimulus_end_s")} if n else {}
+    sweep_flags = [set(filter(None, str(r.get("flags", "")).split(";"))) for r in sweep_rows]
+    slow = np.array(["too_slow_for_spikes" in f for f in sweep_flags], dtype=bool)
+    lower = np.array(["spike_count_lower_bound" in f for f in sweep_flags], dtype=bool)
+    gapped = np.array([any(g in f for g in _GAP_FLAGS) for f in sweep_flags], dtype=bool)
     resting = nan
     if n:
         free = np.isfinite(col["holding_pa"]) & (np.abs(col["holding_pa"]) <= HOLDING_TOLERANCE_PA)
@@ -269,6 +392,9 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
         pick = free | no_command
         if pick.any() and np.isfinite(col["baseline_mv"][pick]).any():
             resting = float(np.nanmedian(col["baseline_mv"][pick]))
+            base_gap = np.array(["gap_in_baseline_window" in f for f in sweep_flags])
+            if (pick & base_gap).any():
+                flags.append("resting_skips_gap_sweeps")
         elif np.isfinite(col["holding_pa"]).any():
             flags.append("holding_current_in_every_sweep")
     values = dict(rheobase_pa=nan, rheobase_resolution_pa=nan, fi_slope_hz_per_pa=nan,
@@ -276,42 +402,76 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
                   membrane_tau_fit_r2=nan, membrane_tau_residual_to_noise=nan, sag_fraction=nan, rheobase_threshold_mv=nan,
                   rheobase_amplitude_mv=nan, rheobase_half_width_ms=nan,
                   rheobase_ahp_depth_mv=nan)
-    if n and np.isfinite(col["firing_rate_hz"]).any():
+    if n and np.isfinite(col["firing_rate_hz"]).any() and not slow.any():
         values["max_firing_rate_hz"] = float(np.nanmax(col["firing_rate_hz"]))
+        if (lower & ~np.isfinite(col["firing_rate_hz"])).any():
+            flags.append("max_firing_rate_skips_gap_sweeps")
     if not n or not np.isfinite(col["stimulus_pa"]).any():
         if n:
             flags.append("step_sizes_unknown" if np.isfinite(col["stimulus_start_s"]).any()
                          else "no_current_steps")
         return CellFeatures(n, resting, flags=tuple(flags), **values)
     stim, count = col["stimulus_pa"], col["spike_count"]
-    rb, resolution, k = rheobase(stim, count)
-    if k < 0:
+    known = np.isfinite(count) & ~lower       # counts that are exact
+    undecided = np.isfinite(stim) & ~known & ~(count > 0)  # may or may not have fired
+    rb, resolution, k = rheobase(stim, count, known)
+    below = undecided & ((stim < rb) if k >= 0 else True)
+    if slow.any():
+        flags.append("spikes_not_counted_in_slow_sweeps")  # max_firing_rate_hz is empty
+    if (below & slow).any() or (k < 0 and slow.any()):
+        pass  # a slow sweep below the smallest firing step may have fired: no rheobase
+    elif k < 0:
         flags.append("no_spiking_step")
+        if below.any():
+            flags.append("rheobase_skips_gap_sweeps")
     else:
         values.update(rheobase_pa=rb, rheobase_resolution_pa=resolution)
+        if below.any():
+            flags.append("rheobase_skips_gap_sweeps")
         if not np.isfinite(resolution):
             flags.append("rheobase_is_first_step")
-        values["fi_slope_hz_per_pa"] = fi_slope(stim, col["firing_rate_hz"], rb)
-        if not np.isfinite(values["fi_slope_hz_per_pa"]):
-            flags.append("too_few_fi_points")
+        if not (slow & (stim >= rb)).any():
+            values["fi_slope_hz_per_pa"] = fi_slope(stim, col["firing_rate_hz"], rb)
+            if (lower & (stim >= rb) & ~np.isfinite(col["firing_rate_hz"])).any():
+                flags.append("fi_slope_skips_gap_sweeps")
+            if not np.isfinite(values["fi_slope_hz_per_pa"]):
+                flags.append("too_few_fi_points")
         first = first_spikes[k]
         if first is not None:
             values.update(rheobase_threshold_mv=first["threshold_mv"],
                           rheobase_amplitude_mv=first["amplitude_mv"],
                           rheobase_half_width_ms=first["half_width_ms"],
                           rheobase_ahp_depth_mv=first["ahp_depth_mv"])
-    passive = np.flatnonzero(np.isfinite(stim) & (stim < 0) & (count == 0))
+    hyper_all = np.isfinite(stim) & (stim < 0)
+    candidates = _spike_free_hyperpolarizing(col, slow, lower, traces)
+    slow_silent = candidates & slow
     deflection = col["steady_state_mv"] - col["baseline_mv"]
+    passive = np.flatnonzero(candidates & np.isfinite(deflection))
+    if slow_silent[passive].any():
+        flags.append("slow_sweeps_taken_as_spike_free")
+    if (hyper_all & ((candidates & ~np.isfinite(deflection))
+                     | (lower & ~(count > 0) & ~slow))).any():
+        flags.append("input_resistance_skips_gap_sweeps")
     values["input_resistance_mohm"] = input_resistance(stim[passive], deflection[passive])
     if not np.isfinite(values["input_resistance_mohm"]):
         flags.append("too_few_passive_sweeps")
-    hyper = np.flatnonzero(np.isfinite(stim) & (stim < 0))
+    hyper = np.flatnonzero(hyper_all)
     if hyper.size == 0:
         flags.append("no_hyperpolarizing_step")
     else:
-        values["sag_fraction"] = float(col["sag_fraction"][hyper[np.argmin(stim[hyper])]])
-        if passive.size:
-            j = int(passive[np.argmax(stim[passive])])  # smallest hyperpolarizing step
+        deepest = hyper[np.argmin(stim[hyper])]
+        clear = hyper[~gapped[hyper]]
+        if gapped[deepest] and clear.size:
+            flags.append("sag_skips_gap_sweeps")
+            deepest = clear[np.argmin(stim[clear])]
+        values["sag_fraction"] = float(col["sag_fraction"][deepest])
+        # hyperpolarizing and spike-free, or it would be but for a gap in its step
+        pool = np.flatnonzero(hyper_all & (candidates | (lower & ~(count > 0) & ~slow)))
+        fit_ok = np.flatnonzero(candidates & ~gapped)
+        if pool.size and (fit_ok.size == 0 or stim[fit_ok].max() < stim[pool].max()):
+            flags.append("membrane_tau_skips_gap_sweeps")
+        if fit_ok.size:
+            j = int(fit_ok[np.argmax(stim[fit_ok])])  # smallest hyperpolarizing step
             v, rate = traces[j]
             fit = fit_membrane_tau(v, rate, col["stimulus_start_s"][j], col["stimulus_end_s"][j])
             if fit is None:

@@ -18,22 +18,22 @@ import csv
 import json
 import math
 import os
-import shutil
 import tempfile
 import time
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
-from typing import Callable
+from typing import Callable, Sequence
 
 from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, Column
 from .config import CheckSettings, Tolerance
 from .errors import SpikemeasureError
-from .output import write_json, write_text_atomic
+from .output import TEXT_COLUMN_NAMES, unescape_csv_text
 
 __all__ = ["CheckInputError", "Finding", "CaseResult", "CheckReport", "RunTables",
            "QualityRule", "QUALITY_RULES", "MEASURED_CHECK", "REGRESSION_CHECK",
            "TABLE_FILES", "read_tables", "quality_cases", "regression_cases", "check_run",
-           "accept_results", "default_tolerance", "report_text", "report_dict"]
+           "accept_results", "accepted_folder_problem", "check_finished",
+           "ACCEPTED_FILES", "COMPLETE_STATUS", "default_tolerance", "report_text", "report_dict"]
 
 #: The tables a run's folder must hold, with their key columns and declarations.
 TABLE_FILES: dict[str, tuple[tuple[str, ...], tuple[Column, ...]]] = {
@@ -164,6 +164,8 @@ def _read_csv(path: Path, what: str, required: tuple[str, ...]) -> tuple[list[st
         if None in row or any(v is None for v in row.values()):
             raise CheckInputError(f"{path}, line {k}: the number of cells differs from the "
                                   f"header; the file is damaged (measure again)")
+        for name in TEXT_COLUMN_NAMES.intersection(row):  # '=cell.nwb back to =cell.nwb
+            row[name] = unescape_csv_text(row[name])
     return header, rows
 
 
@@ -459,9 +461,13 @@ def regression_cases(new: RunTables, accepted: RunTables, settings: CheckSetting
     Notes
     -----
     Rows are matched by their key columns: (file, sweep, spike) in spikes.csv, (file, sweep)
-    in sweeps.csv, (file) in cells.csv. A file or a sweep present in one run only fails. When
-    a sweep's spike count changed, the spikes added or lost fail and that sweep's spikes are
-    not compared value by value (their indices no longer pair the same spikes). Every other
+    in sweeps.csv, (file) in cells.csv; the order of the rows does not matter. A file, a
+    sweep or a cell row present in one run only fails. A key found more than once in a table
+    (a duplicated row, or rows sharing a key) fails, naming the key, the side and the lines;
+    only its first row is compared. When a sweep's spike count (distinct spike keys) changed,
+    the spikes added or lost fail and that sweep's spikes are not compared value by value
+    (their indices no longer pair the same spikes). Columns that this version does not write
+    are not compared, and a note names them. Every other
     cell is compared: equal text passes (two empty cells too); two numbers pass within the
     column's tolerance (:func:`default_tolerance` unless the project file sets one), and
     never fail by less than :func:`default_tolerance`, the resolution the CSV is written with
@@ -508,11 +514,17 @@ def regression_cases(new: RunTables, accepted: RunTables, settings: CheckSetting
             notes.append(f"{name}: column(s) {', '.join(skipped)} not in the accepted results "
                          f"(accepted with an older version?), not compared")
         compared = [c for c in compared if c.name in old_header]
-        index = lambda rows: {tuple(r[k] for k in keys): r for r in rows}  # noqa: E731
-        old_by_key, new_by_key = index(old_rows), index(new_rows)
+        declared = {c.name for c in columns}
+        for side, tables in (("accepted results", accepted), ("this run", new)):
+            extra = [c for c in (tables.headers.get(name) or []) if c not in declared]
+            if extra:
+                notes.append(f"{name}: column(s) {', '.join(extra)} in {side} are not columns "
+                             f"this version writes, not compared")
+        old_by_key = _rows_by_key(old_rows, keys, name, "the accepted results", findings)
+        new_by_key = _rows_by_key(new_rows, keys, name, "this run", findings)
         changed_count: set[tuple[str, str]] = set()
         if name == "spikes.csv":
-            changed_count = _spike_counts(old_rows, new_rows, common, findings)
+            changed_count = _spike_counts(list(old_by_key), list(new_by_key), common, findings)
         for key in dict.fromkeys(list(old_by_key) + list(new_by_key)):
             file = key[0]
             if file not in common:
@@ -529,8 +541,14 @@ def regression_cases(new: RunTables, accepted: RunTables, settings: CheckSetting
                                               f"accepted results"
                                               + ("" if old is None else " but not in this run")))
                 continue
+            if name == "cells.csv" and (old is None or now is None):
+                findings[file].append(Finding(
+                    REGRESSION_CHECK, file, None, None, None,
+                    f"cells.csv: the file's row is {'not ' if old is None else ''}in the "
+                    f"accepted results but {'is' if old is None else 'not'} in this run"))
+                continue
             if old is None or now is None:
-                continue  # spikes: counted above; cells: a file added or removed
+                continue  # spikes: counted above
             for column in compared:
                 tolerance = _tolerance_for(column, settings)
                 a, b = old[column.name], now[column.name]
@@ -546,16 +564,42 @@ def regression_cases(new: RunTables, accepted: RunTables, settings: CheckSetting
     return cases, notes
 
 
-def _spike_counts(old_rows: list[dict], new_rows: list[dict], common: set[str],
+def _rows_by_key(rows: list[dict], keys: tuple[str, ...], name: str, side: str,
+                 findings: dict[str, list[Finding]]) -> dict[tuple, dict]:
+    """Rows by their key, the first of each key; a finding for each key found more than
+    once (a duplicated row, or rows that share a key and differ)."""
+    by_key: dict[tuple, list[tuple[int, dict]]] = {}
+    for line, row in enumerate(rows, start=2):
+        by_key.setdefault(tuple(row[k] for k in keys), []).append((line, row))
+    for key, found in by_key.items():
+        if len(found) < 2:
+            continue
+        sweep = _int_or_none(key[1]) if len(key) > 1 else None
+        spike = _int_or_none(key[2]) if len(key) > 2 else None
+        where = ", ".join(f"{k} {v}" for k, v in zip(keys[1:], key[1:])) or "the file's row"
+        lines = ", ".join(str(line) for line, _ in found)
+        first = found[0][1]
+        differ = [c for c in first if any(r.get(c) != first.get(c) for _, r in found[1:])]
+        what = ("the same row" if not differ else
+                f"rows with the same key that differ in {', '.join(differ[:5])}")
+        findings.setdefault(key[0], []).append(Finding(
+            REGRESSION_CHECK, key[0], sweep, spike, None,
+            f"{name}: {where} is in {side} {len(found)} times ({what}, lines {lines}); "
+            f"only the first is compared"))
+    return {key: found[0][1] for key, found in by_key.items()}
+
+
+def _spike_counts(old_keys: list[tuple], new_keys: list[tuple], common: set[str],
                   findings: dict[str, list[Finding]]) -> set[tuple[str, str]]:
-    """Findings for sweeps whose spike count changed; returns those (file, sweep) keys."""
-    def counts(rows):
+    """Findings for sweeps whose spike count (distinct (file, sweep, spike) keys) changed;
+    returns those (file, sweep) keys."""
+    def counts(keys):
         out: dict[tuple[str, str], int] = {}
-        for r in rows:
-            out[(r["file"], r["sweep"])] = out.get((r["file"], r["sweep"]), 0) + 1
+        for file, sweep, _ in keys:
+            out[(file, sweep)] = out.get((file, sweep), 0) + 1
         return out
 
-    old, new = counts(old_rows), counts(new_rows)
+    old, new = counts(old_keys), counts(new_keys)
     changed = set()
     for key in dict.fromkeys(list(old) + list(new)):
         if key[0] not in common:
@@ -606,12 +650,14 @@ def check_run(results_dir: str | os.PathLike, settings: CheckSettings) -> CheckR
     ------
     CheckInputError
         When the tables, or (with ``settings.compare``) the accepted results, are missing or
-        unreadable, or the run names no file at all.
+        unreadable, the run names no file at all, or it did not finish or its tables and
+        run.json disagree (:func:`check_finished`).
     """
     tables = read_tables(results_dir)
     if not tables.files():
         raise CheckInputError(f"{results_dir}: the run's tables name no file, so there is "
                               f"nothing to check; measure the recordings into it first")
+    check_finished(tables)
     accepted = read_tables(settings.accepted_dir, "accepted results") if settings.compare \
         else None
     report = CheckReport(str(results_dir), str(settings.accepted_dir) if settings.compare
@@ -624,46 +670,258 @@ def check_run(results_dir: str | os.PathLike, settings: CheckSettings) -> CheckR
     return report
 
 
-def accept_results(results_dir: str | os.PathLike, accepted_dir: str | os.PathLike) -> dict:
-    """Save a run's tables as the accepted results, replacing any earlier ones.
+#: The files ``accept`` writes in the accepted folder, and the only ones it ever replaces.
+ACCEPTED_FILES: tuple[str, ...] = tuple(TABLE_FILES) + (RUN_RECORD_FILE,)
+
+#: The ``status`` of a run record whose run finished (``running`` and ``interrupted`` did not).
+COMPLETE_STATUS = "complete"
+
+
+def check_finished(tables: RunTables) -> None:
+    """Refuse a run that did not finish, or whose tables and run.json disagree.
 
     Parameters
     ----------
-    results_dir : str or path-like
-        A folder holding a run's tables.
-    accepted_dir : str or path-like
-        The accepted folder (created if missing).
-
-    Returns
-    -------
-    dict
-        ``files``, ``sweeps``, ``spikes`` (counts) and ``failures`` (rows of errors.csv, which
-        are not part of the accepted results).
+    tables : RunTables
+        A run's tables, read by :func:`read_tables`.
 
     Raises
     ------
     CheckInputError
-        When the tables are missing or unreadable, the run was interrupted or names no file,
-        or the accepted folder cannot be written.
+        When the folder has no run.json; its ``status`` is not ``complete`` (``running``:
+        the run is still going or was killed; ``interrupted``), or, in a record without
+        ``status``, ``interrupted`` is true; or the tables and run.json disagree: a file in
+        the tables that run.json does not list, a file run.json lists as measured without
+        rows, or a number of sweeps or spikes of a file that differs from run.json's.
 
     Notes
     -----
-    spikes.csv, sweeps.csv, cells.csv and a run.json with the run's versions, parameters and
-    inputs (path and SHA-256) are written to a new folder beside the accepted one, which
-    then takes its place by renames, so the accepted folder is never half old, half new.
-    Other files already in the accepted folder (a README) are kept.
+    The checks of a file's counts use the ``sweeps_measured`` and ``spikes`` of its entry in
+    ``inputs``, when the entry has them.
     """
-    # checks that they are complete and of this version
+    if not isinstance(tables, RunTables):
+        raise TypeError(f"tables must be RunTables (got {type(tables).__name__})")
+    path = tables.folder / RUN_RECORD_FILE
+    again = "run the same measure command again to finish the run, then check or accept it"
+    if not tables.record:
+        raise CheckInputError(f"{path}: no run record, so there is no telling whether the "
+                              f"run finished; {again}")
+    status = tables.record.get("status")
+    if status is not None and status != COMPLETE_STATUS:
+        raise CheckInputError(f"{path}: the run did not finish (status {str(status)[:40]!r}, "
+                              f"not {COMPLETE_STATUS!r}); {again}")
+    if status is None and tables.record.get("interrupted"):
+        raise CheckInputError(f"{path}: the run was interrupted before every file was "
+                              f"measured; {again}")
+    inputs = [i for i in tables.record.get("inputs", []) if isinstance(i, dict) and "file" in i]
+    listed = {i["file"]: i for i in inputs}
+    rows: dict[str, dict[str, int]] = {}
+    for name in TABLE_FILES:
+        for row in tables.table(name):
+            rows.setdefault(row["file"], dict.fromkeys(TABLE_FILES, 0))[name] += 1
+    problems = []
+    unlisted = [f for f in rows if f not in listed]
+    if unlisted:
+        problems.append(f"the tables hold {_count_of(len(unlisted), 'file')} that run.json "
+                        f"does not list ({_some(unlisted)})")
+    missing = [f for f, i in listed.items() if _whole(i.get("sweeps_measured")) != 0
+               and str(i.get("status", "")).startswith(("measured", "reused"))
+               and str(i.get("status")) != "reused (failed)" and f not in rows]
+    if missing:
+        problems.append(f"run.json lists {_count_of(len(missing), 'file')} as measured that "
+                        f"the tables do not hold ({_some(missing)})")
+    for file, entry in listed.items():
+        have = rows.get(file, dict.fromkeys(TABLE_FILES, 0))
+        if file in rows and have["sweeps.csv"] and have["cells.csv"] != 1:
+            problems.append(f"{file}: cells.csv holds {have['cells.csv']} rows of it, "
+                            f"not 1")
+        for key, name, what in (("sweeps_measured", "sweeps.csv", "sweep"),
+                                ("spikes", "spikes.csv", "spike")):
+            expected = _whole(entry.get(key))
+            if expected is not None and file not in missing and expected != have[name]:
+                problems.append(f"{file}: run.json counts {_count_of(expected, what)}, "
+                                f"{name} holds {have[name]}")
+    if problems:
+        shown = "; ".join(problems[:5]) + (f"; and {len(problems) - 5} more"
+                                           if len(problems) > 5 else "")
+        raise CheckInputError(f"{tables.folder}: the tables and {RUN_RECORD_FILE} disagree: "
+                              f"{shown}. The folder was changed after the run or written by "
+                              f"two runs at once; {again}")
+
+
+def _whole(value) -> int | None:
+    return value if isinstance(value, int) and not isinstance(value, bool) else None
+
+
+def _count_of(n: int, what: str) -> str:
+    return f"{n} {what}{'' if n == 1 else 's'}"
+
+
+def _some(names: list[str], limit: int = 3) -> str:
+    more = f" and {len(names) - limit} more" if len(names) > limit else ""
+    return ", ".join(names[:limit]) + more
+
+
+def _inside(path: Path, folder: Path) -> bool:
+    """True when `path` lies strictly inside `folder` (both resolved)."""
+    return folder in path.parents
+
+
+def _is_accept_record(path: Path) -> bool:
+    try:
+        record = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return False
+    return isinstance(record, dict) and record.get("tool") == "spikemeasure" \
+        and "accepted" in record
+
+
+def accepted_folder_problem(accepted_dir: str | os.PathLike, results_dir: str | os.PathLike,
+                            project_dir: str | os.PathLike, *,
+                            inputs: Sequence[str] = (),
+                            extra_patterns: tuple[str, ...] = ()) -> str | None:
+    """Why `accepted_dir` must not receive accepted results, or None when it may.
+
+    Parameters
+    ----------
+    accepted_dir : str or path-like
+        The accepted folder (need not exist).
+    results_dir : str or path-like
+        The run's folder being accepted.
+    project_dir : str or path-like
+        The project folder: the folder of the project file, or the current folder.
+    inputs : list of str, optional
+        Paths of the run's recordings (``path`` of run.json's ``inputs``).
+    extra_patterns : tuple of str, optional
+        Patterns the run's discovery used for other formats (``measure --glob``).
+
+    Returns
+    -------
+    str or None
+        A sentence naming the folder (as given, and resolved when that differs) and the
+        reason; None when the folder is safe to write the accepted files in.
+
+    Notes
+    -----
+    Paths are compared after resolving symlinks and ``..``: an accepted folder that is a
+    symlink is judged, and written, as the folder it points to. The folder is refused when it
+    is an existing file; is, contains or lies inside the results folder; is the project
+    folder or contains it; lies outside the project folder; holds a recording of the run, or
+    a file of a binary recording format (NWB, NIX, a ``--glob`` pattern) at any depth (text
+    files that are not the run's recordings are taken for notes); or holds a file named like an accepted file that is not one (a
+    folder or symlink, or tables without the run.json ``accept`` writes).
+    """
+    from .reading import TEXT_SUFFIXES, find_recordings
+
+    given = Path(accepted_dir)
+    target = given.resolve()
+    name = str(given) if target == given.absolute() else f"{given} (that is {target})"
+    results = Path(results_dir).resolve()
+    project = Path(project_dir).resolve()
+    if target.exists() and not target.is_dir():
+        return f"{name}: is a file, not a folder; set accepted_folder to a folder"
+    if target == project:
+        return (f"{name}: is the project folder itself, which holds the lab's files; set "
+                f"accepted_folder to a subfolder of its own, such as \"accepted\"")
+    if _inside(project, target):
+        return (f"{name}: contains the project folder {project}; set accepted_folder to a "
+                f"subfolder of the project folder, such as \"accepted\"")
+    if not _inside(target, project):
+        return (f"{name}: lies outside the project folder {project} (the folder of "
+                f"spikemeasure.toml, or the current folder without one); set accepted_folder "
+                f"to a subfolder of the project folder")
+    if target == results:
+        return f"{name}: is the results folder being accepted; accept into a folder of its own"
+    if _inside(target, results):
+        return (f"{name}: lies inside the results folder being accepted ({results}), which "
+                f"the next run rewrites; accept into a folder of its own")
+    if _inside(results, target):
+        return (f"{name}: contains the results folder being accepted ({results}); accept "
+                f"into a folder of its own")
+    for path in inputs:
+        recording = Path(path).resolve()
+        if _inside(recording, target):
+            return (f"{name}: holds recordings of this run ({recording.relative_to(target)}); "
+                    f"set accepted_folder to a folder of its own")
+    if not target.is_dir():
+        return None
+    for own in ACCEPTED_FILES:
+        entry = target / own
+        if entry.is_symlink() or (entry.exists() and not entry.is_file()):
+            return (f"{name}: {own} there is not a file accept wrote (a folder or a link); "
+                    f"move it away or choose another accepted_folder")
+    has_tables = any((target / own).exists() for own in TABLE_FILES)
+    if has_tables and not _is_accept_record(target / RUN_RECORD_FILE):
+        return (f"{name}: holds tables without the {RUN_RECORD_FILE} `spikemeasure accept` "
+                f"writes, so they were not written by accept and would be overwritten; "
+                f"choose another accepted_folder, or move them away")
+    # Text files of the run were caught above by path; any other .txt or .csv is taken for a
+    # note (a lab's notes.txt beside the accepted tables), not for a recording.
+    found = [shown for path, shown in find_recordings([target], extra_patterns=extra_patterns)
+             if shown not in TABLE_FILES and path.suffix.lower() not in TEXT_SUFFIXES]
+    if found:
+        return (f"{name}: holds {_count_of(len(found), 'file')} that would be taken as "
+                f"recordings ({_some(found)}); set accepted_folder to a folder of its own")
+    return None
+
+
+def accept_results(results_dir: str | os.PathLike, accepted_dir: str | os.PathLike, *,
+                   project_dir: str | os.PathLike | None = None,
+                   extra_patterns: tuple[str, ...] = ()) -> dict:
+    """Save a run's tables as the accepted results, replacing only accept's own files.
+
+    Parameters
+    ----------
+    results_dir : str or path-like
+        A folder holding a finished run's tables.
+    accepted_dir : str or path-like
+        The accepted folder (created if missing). It must be a folder of its own inside the
+        project folder (see :func:`accepted_folder_problem`).
+    project_dir : str or path-like, optional
+        The project folder (the folder of the project file); default: the current folder.
+    extra_patterns : tuple of str, optional
+        Patterns the run's discovery used for other formats, for the recordings check.
+
+    Returns
+    -------
+    dict
+        ``files``, ``sweeps``, ``spikes`` (counts), ``failures`` (rows of errors.csv, which
+        are not part of the accepted results), ``accepted_dir`` (the folder written, resolved)
+        and ``replaced`` (the names written).
+
+    Raises
+    ------
+    CheckInputError
+        When the tables are missing or unreadable, the run did not finish or its tables and
+        run.json disagree (:func:`check_finished`), it names no file, the accepted folder is
+        refused (:func:`accepted_folder_problem`), or it cannot be written; the message says
+        which files were replaced already, if any.
+
+    Notes
+    -----
+    Only spikes.csv, sweeps.csv, cells.csv and run.json (the run's versions, parameters and
+    inputs, with path and SHA-256) are written, each through a temporary file in the
+    accepted folder, flushed to disk; only when all four are written do they replace the
+    earlier ones, one by one (``os.replace``). Nothing else in the folder is removed, renamed
+    or moved, and nothing outside it is touched.
+    """
+    for label, value in (("results_dir", results_dir), ("accepted_dir", accepted_dir)):
+        if not isinstance(value, (str, os.PathLike)):
+            raise TypeError(f"{label} must be a path (got {type(value).__name__})")
     tables = read_tables(results_dir, suggest_out=False)
-    if tables.record.get("interrupted"):
-        raise CheckInputError(f"{Path(results_dir) / RUN_RECORD_FILE}: the run was interrupted "
-                              f"before every file was measured; run the same measure command "
-                              f"again to finish it, then accept")
+    check_finished(tables)
     if not tables.files():
         raise CheckInputError(f"{results_dir}: the run's tables name no file; there is "
                               f"nothing to accept")
+    inputs = [str(i["path"]) for i in tables.record.get("inputs", [])
+              if isinstance(i, dict) and isinstance(i.get("path"), str)]
+    problem = accepted_folder_problem(accepted_dir, results_dir,
+                                      project_dir if project_dir is not None else Path.cwd(),
+                                      inputs=inputs, extra_patterns=tuple(extra_patterns))
+    if problem:
+        raise CheckInputError(f"{problem}; nothing was written")
     source = Path(results_dir)
-    target = Path(accepted_dir)
+    target = Path(accepted_dir).resolve()
     record = {
         "tool": "spikemeasure",
         "accepted": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
@@ -673,45 +931,72 @@ def accept_results(results_dir: str | os.PathLike, accepted_dir: str | os.PathLi
         "inputs": [{k: i.get(k) for k in ("file", "sha256", "size_bytes", "status")}
                    for i in tables.record.get("inputs", [])],
     }
+    contents = []
+    for name in TABLE_FILES:
+        try:
+            contents.append((name, (source / name).read_bytes()))
+        except OSError as exc:
+            raise CheckInputError(f"{source / name}: cannot be read ({exc.strerror or exc})"
+                                  ) from exc
+    contents.append((RUN_RECORD_FILE,
+                     (json.dumps(record, indent=2, default=str) + "\n").encode("utf-8")))
     try:
-        target.parent.mkdir(parents=True, exist_ok=True)
-        fresh = Path(tempfile.mkdtemp(prefix=f".{target.name}.new-", dir=target.parent))
+        target.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
-        raise CheckInputError(f"{target}: cannot create the accepted folder ({exc})") from exc
-    old = None
-    try:
-        for name in TABLE_FILES:
-            write_text_atomic(fresh / name, (source / name).read_text(encoding="utf-8"))
-        write_json(fresh / RUN_RECORD_FILE, record)
-        _usual_permissions(fresh)
-        if target.exists():
-            for entry in target.iterdir():
-                if entry.is_file() and not (fresh / entry.name).exists():
-                    shutil.copy2(entry, fresh / entry.name)
-            old = Path(tempfile.mkdtemp(prefix=f".{target.name}.old-", dir=target.parent))
-            os.rmdir(old)
-            os.replace(target, old)
-        os.replace(fresh, target)
-    except OSError as exc:
-        shutil.rmtree(fresh, ignore_errors=True)
-        if old is not None and old.exists() and not target.exists():
-            os.replace(old, target)
-        raise CheckInputError(f"{target}: cannot write the accepted results ({exc})") from exc
-    if old is not None:
-        shutil.rmtree(old, ignore_errors=True)
+        raise CheckInputError(f"{target}: cannot create the accepted folder "
+                              f"({exc.strerror or exc}); nothing was written") from exc
+    replaced = _replace_files(target, contents)
     return {"files": len({r["file"] for r in tables.cells}), "sweeps": len(tables.sweeps),
-            "spikes": len(tables.spikes), "failures": tables.errors}
+            "spikes": len(tables.spikes), "failures": tables.errors,
+            "accepted_dir": str(target), "replaced": replaced}
 
 
-def _usual_permissions(folder: Path) -> None:
-    """Temporary folders and files are private; the accepted ones are shared like any other
-    file the user writes (the umask decides)."""
+def _replace_files(folder: Path, contents: list[tuple[str, bytes]]) -> list[str]:
+    """Write every file to a temporary file in `folder` (fsync), then replace them one by one.
+
+    On failure, removes the temporary files it made and raises CheckInputError saying which
+    files were replaced already."""
     umask = os.umask(0)
     os.umask(umask)
-    os.chmod(folder, 0o777 & ~umask)
-    for entry in folder.iterdir():
-        if entry.is_file():
-            os.chmod(entry, 0o666 & ~umask)
+    staged: list[tuple[str, str]] = []
+    replaced: list[str] = []
+    try:
+        for name, data in contents:
+            fd, tmp = tempfile.mkstemp(prefix=f".{name}.", suffix=".part", dir=folder)
+            staged.append((name, tmp))
+            with os.fdopen(fd, "wb") as fh:
+                fh.write(data)
+                fh.flush()
+                os.fsync(fh.fileno())
+            os.chmod(tmp, 0o666 & ~umask)  # as an ordinary new file: mkstemp's is private
+        for name, tmp in staged:
+            os.replace(tmp, folder / name)
+            replaced.append(name)
+    except OSError as exc:
+        for name, tmp in staged:
+            if name not in replaced:
+                try:
+                    os.unlink(tmp)
+                except OSError:
+                    pass
+        if replaced:
+            done = (f"{', '.join(replaced)} {'was' if len(replaced) == 1 else 'were'} replaced "
+                    f"already, the other files keep their earlier content; fix the cause and "
+                    f"accept again")
+        else:
+            done = "nothing was replaced"
+        raise CheckInputError(f"{folder}: cannot write the accepted results "
+                              f"({exc.strerror or exc}); {done}") from exc
+    try:  # the renames themselves reach the disk
+        fd = os.open(folder, os.O_RDONLY)
+        try:
+            os.fsync(fd)
+        finally:
+            os.close(fd)
+    except OSError:
+        pass
+    return replaced
+
 
 
 # --------------------------------------------------------------------------- reports

@@ -2,7 +2,8 @@
 
 Exit codes of ``measure`` and ``inspect``: 0 everything was measured; 1 any file or sweep
 failed (the rest were measured and errors.csv says what failed), or an error; 2 a usage error
-(from click); 130 interrupted (Ctrl-C), after writing the tables of the files finished.
+(a bad option, a bad option value, a malformed or invalid project file); 130 interrupted
+(Ctrl-C), after writing the tables of the files finished.
 ``check`` and ``accept``: 0 all checks passed (or the results were accepted); 1 a check
 failed; 2 a usage or input error (missing tables, a bad project file); 130 interrupted.
 """
@@ -107,12 +108,20 @@ def _run_parameters(ctx: click.Context, paths, config_path, values: dict):
     from .config import find_project_file, load_config, merge_parameters
 
     path = config_path or find_project_file(list(paths))
-    file_values = load_config(path) if path else {}
+    file_values = _checked_project_file(path)[0] if path else {}
     given = {_FILE_KEYS[name]: value for name, value in values.items()
              if name in _FILE_KEYS and ctx.get_parameter_source(name) == ParameterSource.COMMANDLINE}
     if not file_values.get("step_s"):
         _check_step_options(given.get("step_s"), given.get("step_sizes_pa"))
     return merge_parameters(file_values, given, str(path) if path else None)
+
+
+def _checked_project_file(path):
+    """The [measure] values and the check settings of a project file, every table checked:
+    a bad project file is the same error in every command."""
+    from .config import load_check_settings, load_config
+
+    return load_config(path), load_check_settings(path)
 
 
 def _config_option(func):
@@ -128,10 +137,22 @@ class _Context:
         self.debug = debug
 
 
+class _InputError(click.ClickException):
+    """A usage error, or an input problem of check or accept: 'Error: ...' and exit code 2."""
+
+    exit_code = 2
+
+
 def _fail(ctx: click.Context, exc: Exception) -> None:
-    """Library errors become one 'Error:' line, unless --debug asks for the traceback."""
+    """Library errors become one 'Error:' line, unless --debug asks for the traceback: exit
+    2 for a usage error (a bad project file or option value), 1 for the rest."""
+    from .config import ConfigError
+    from .errors import InvalidSettingError
+
     if ctx.find_object(_Context).debug:
         raise exc
+    if isinstance(exc, (ConfigError, InvalidSettingError)):
+        raise _InputError(str(exc)) from exc
     raise click.ClickException(str(exc)) from exc
 
 
@@ -307,12 +328,6 @@ def inspect(ctx: click.Context, file, show, config_path, **kw):
         ctx.exit(1)
 
 
-class _InputError(click.ClickException):
-    """An input problem of check or accept: 'Error: ...' and exit code 2."""
-
-    exit_code = 2
-
-
 def _input_error(ctx: click.Context, exc: Exception) -> None:
     if ctx.find_object(_Context).debug:
         raise exc
@@ -334,7 +349,9 @@ def _check_settings(paths, config_path):
     from .config import find_project_file, load_check_settings
 
     path = Path(config_path) if config_path else find_project_file(list(paths))
-    return path, load_check_settings(path)
+    if path is None:
+        return path, load_check_settings(None)
+    return path, _checked_project_file(path)[1]
 
 
 @main.command()
@@ -429,21 +446,27 @@ def check(ctx: click.Context, paths, out_dir, jobs, junit_path, as_json, max_row
 def accept(ctx: click.Context, results_dir, config_path):
     """Save the run in RESULTS_DIR as the lab's accepted results.
 
-    Copies spikes.csv, sweeps.csv, cells.csv and the run's versions and parameters into the
-    accepted folder ([regression] accepted_folder of the project file; ./accepted without
-    one), replacing what was there; commit that folder. `spikemeasure check` compares later
-    runs with it.
+    Copies spikes.csv, sweeps.csv, cells.csv and the run's versions and parameters
+    (run.json) into the accepted folder ([regression] accepted_folder of the project file;
+    ./accepted without one), replacing only those four files; commit that folder.
+    `spikemeasure check` compares later runs with it. Refuses (exit 2) a run that did not
+    finish, and an accepted folder that is not a folder of its own inside the project
+    folder (one holding recordings or the results, the project folder itself, or outside it).
     """
+    from pathlib import Path
+
     from .checks import accept_results
 
     try:
-        _, settings = _check_settings([results_dir], config_path)
-        info = accept_results(results_dir, settings.accepted_dir)
+        project, settings = _check_settings([results_dir], config_path)
+        project_dir = project.resolve().parent if project is not None else Path.cwd()
+        info = accept_results(results_dir, settings.accepted_dir, project_dir=project_dir)
     except SpikemeasureError as exc:
         _input_error(ctx, exc)
         return
     click.echo(f"accepted {info['files']} files, {info['sweeps']} sweeps, {info['spikes']} "
-               f"spikes from {results_dir} -> {settings.accepted_dir} (commit that folder)")
+               f"spikes from {results_dir} -> {settings.accepted_dir} (replaced "
+               f"{', '.join(info['replaced'])}; commit that folder)")
     if info["failures"]:
         click.echo(f"note: {len(info['failures'])} failures of that run (errors.csv) are not "
                    "part of the accepted results:", err=True)

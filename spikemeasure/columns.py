@@ -9,9 +9,9 @@ from dataclasses import dataclass
 
 from .detection import DetectionSettings
 from .cell_features import (CELL_FLAG_TEXT, HOLDING_TOLERANCE_PA, MAX_RESIDUAL_TO_NOISE,
-                            MIN_DEFLECTION_TO_NOISE)
+                            MIN_DEFLECTION_TO_NOISE, SLOW_SWEEP_MAX_RISE_MV)
 from .measurement import CLIPPED_RUN_SAMPLES, FLAG_TEXT, PIECE_SAMPLES
-from .sweep_features import DRIFT_WINDOW_MS, MIN_WINDOW_MS
+from .sweep_features import DRIFT_WINDOW_MS, MIN_WINDOW_MS, SWEEP_FLAG_TEXT
 
 __all__ = ["Column", "SPIKE_COLUMNS", "SWEEP_COLUMNS", "CELL_COLUMNS", "ERROR_COLUMNS",
            "spike_column_names",
@@ -42,7 +42,8 @@ class Column:
 
 SPIKE_COLUMNS: tuple[Column, ...] = (
     Column("file", "", "The input file: its path relative to the folder given on the command "
-           "line, or its file name when the file itself was given."),
+           "line, or its file name when the file itself was given; distinct for every file "
+           "(see *File names* above)."),
     Column("sweep", "", "0-based sweep index in file order (for NWB, in order of sweep number)."),
     Column("spike", "", "0-based index of the spike within its sweep."),
     Column("threshold_s", "s", "Time of threshold, seconds from the sweep's first sample. By "
@@ -106,7 +107,9 @@ SWEEP_COLUMNS: tuple[Column, ...] = (
            "window.", 4),
     Column("spike_count", "", "Spikes whose threshold time lies in [stimulus_start_s, "
            "stimulus_end_s); for a sweep without a current step (a gap-free recording), all "
-           "its spikes."),
+           "its spikes. With a gap (missing samples) in that window, the spikes found outside "
+           "the gap, a lower bound (flag `spike_count_lower_bound`); empty for a sweep sampled "
+           "too slowly to count spikes (flag `too_slow_for_spikes`)."),
     Column("firing_rate_hz", "Hz", "spike_count / step duration (the sweep's duration when it "
            "has no step).", 4),
     Column("first_spike_latency_ms", "ms", "First threshold time in the step minus onset "
@@ -133,6 +136,10 @@ SWEEP_COLUMNS: tuple[Column, ...] = (
     Column("clipped_spike_count", "", "Spikes of the sweep flagged `clipped_peak`: their largest "
            f"sample repeats over at least {CLIPPED_RUN_SAMPLES} consecutive samples, as when the "
            "recording range was exceeded."),
+    Column("flags", "", "Why values of this sweep are empty or less certain, separated by ';' "
+           "(see the list of sweep flags): gaps of missing samples in the windows values are "
+           "measured over, or a sampling rate too low for spikes. A value whose window holds "
+           "a missing sample is empty; the others are as without the gap."),
 )
 
 CELL_COLUMNS: tuple[Column, ...] = (
@@ -141,13 +148,18 @@ CELL_COLUMNS: tuple[Column, ...] = (
     Column("resting_mv", "mV", f"Median baseline_mv over sweeps whose holding current is within "
            f"{HOLDING_TOLERANCE_PA:g} pA of zero.", 4),
     Column("rheobase_pa", "pA", "The smallest step (stimulus_pa) with at least one spike in it. "
-           "It is known only to the protocol's resolution: see rheobase_resolution_pa.", 2),
+           "It is known only to the protocol's resolution: see rheobase_resolution_pa. A "
+           "smaller step whose spikes a gap may hide widens that resolution "
+           "(`rheobase_skips_gap_sweeps`); one sampled too slowly to count spikes empties "
+           "rheobase (`spikes_not_counted_in_slow_sweeps`).", 2),
     Column("fi_slope_hz_per_pa", "Hz/pA", "Least-squares slope of firing_rate_hz on "
            "stimulus_pa over the steps at or above rheobase (at least 2).", 5),
     Column("max_firing_rate_hz", "Hz", "The largest firing_rate_hz of the cell's sweeps.", 4),
     Column("input_resistance_mohm", "MOhm", "Least-squares slope of (steady_state_mv - "
            "baseline_mv) on stimulus_pa over hyperpolarizing, spike-free sweeps (at least 2), "
-           "times 1000.", 3),
+           f"times 1000. A sweep sampled too slowly to count spikes counts as spike-free when no "
+           f"sample of its step lies more than {SLOW_SWEEP_MAX_RISE_MV:g} mV above its baseline "
+           "(`slow_sweeps_taken_as_spike_free`).", 3),
     Column("membrane_tau_ms", "ms", "Time constant of a single exponential fitted "
            "(scipy.optimize.curve_fit) to the voltage from onset to its minimum (on a 1 ms "
            "moving average; the fit ends where that average first comes within 2 % of the "
@@ -176,8 +188,11 @@ CELL_COLUMNS: tuple[Column, ...] = (
 
 
 ERROR_COLUMNS: tuple[Column, ...] = (
-    Column("file", "", "The input file (or the path given, when it does not exist)."),
-    Column("stage", "", "Where it failed: `input` (the path), `read` (the file or one of its "
+    Column("file", "", "The input file, or the path given or found that could not be "
+           "searched or followed."),
+    Column("stage", "", "Where it failed: `input` (a path given that does not exist, a folder "
+           "that cannot be searched, a path longer than the system allows, a symbolic link not "
+           "followed, a file that is not a regular file), `read` (the file or one of its "
            "sweeps could not be read), or `sweep N` (sweep N could not be measured)."),
     Column("message", "", "What is wrong, naming the file and sweep, and how to fix it."),
 )
@@ -196,6 +211,42 @@ def columns_markdown() -> str:
         "Generated by `spikemeasure columns --markdown` from `spikemeasure/columns.py`, the one "
         "place that defines the output columns; a test keeps this file in step. Do not edit by "
         "hand.",
+        "",
+        "## Text cells in the CSV files",
+        "",
+        "Every table is UTF-8 CSV. A text cell (`file`, `flags`, `stage`, `message`) that "
+        "starts with `=`, `+`, `-`, `@`, a tab or a carriage return, which a spreadsheet would "
+        "run as a formula, is written with a leading `'` and in double quotes "
+        "(`\"'=cell.nwb\"`), as the OWASP guidance on CSV injection recommends; so is a text "
+        "cell that starts with `'` followed by one of those characters or by another `'`, so "
+        "that every name reads back exactly. Numbers (`-55.2`) are never changed. A spreadsheet "
+        "shows `=cell.nwb`; `spikemeasure check`, `accept` and the groups file read the cell "
+        "back as `=cell.nwb`, the name run.json and report.html give.",
+        "",
+        "## File names",
+        "",
+        "- A file given on the command line is named by its file name, a file found in a "
+        "folder by its path relative to that folder (`/` separated).",
+        "- When two files would get the same name (`day1/cell.nwb` and `day2/cell.nwb` given, "
+        "or two folders given that each hold `cell.nwb`), the files of each of those given "
+        "paths are named with as many of its folders as tell them apart (`day1/cell.nwb`, "
+        "`day2/cell.nwb`); names still alike get ` (2)`, ` (3)` in order.",
+        "- The same file reached twice (given twice, given and found in a folder, through a "
+        "symbolic link or a second hard link) is measured once, under its first name; a note "
+        "in run.json, report.html and the summary says so.",
+        "- Bytes of a name that are not UTF-8 are written `\\xNN` (a Latin-1 `café.nwb` is "
+        "`caf\\xe9.nwb`), characters that are not printable (line breaks, tabs, control "
+        "characters) `\\xNN`, `\\uNNNN` or `\\UNNNNNNNN`. The file is read by its real path; "
+        "run.json keeps that path with these escapes (`path`) and its bytes in hex "
+        "(`path_bytes_hex`).",
+        "- In a folder searched, a symbolic link is followed only when its target lies inside "
+        "that folder; any other is listed in errors.csv as not followed (give the file itself "
+        "on the command line to measure it). A file named on the command line is read as "
+        "given, through any link.",
+        "- Each file's figures are in `figures/<name>/`, the name with `/` as `__`; when the "
+        "name had to be changed further (characters some file systems refuse made `_`, `__` "
+        "in the name, more than 120 characters), the first 8 hex digits of the name's "
+        "SHA-256 follow a `-`, so every file has its own folder.",
         "",
         "## spikes.csv",
         "",
@@ -224,6 +275,12 @@ def columns_markdown() -> str:
         lines += ["", f"## {title}", "", intro, "", "| column | unit | definition |",
                   "| --- | --- | --- |"]
         lines += [f"| `{c.name}` | {c.unit or '-'} | {c.definition} |" for c in cols]
+    lines += ["", "## Sweep flags", "", "A gap is a stretch of missing samples: NaN or "
+              "infinite values in the file (dropped samples). A sweep is refused only when no "
+              "value is left to measure; otherwise the values whose windows stay clear of its "
+              "gaps are measured as without them.", "",
+              "| flag | meaning |", "| --- | --- |"]
+    lines += [f"| `{name}` | {text} |" for name, text in SWEEP_FLAG_TEXT.items()]
     lines += ["", "## Cell flags", "", "| flag | meaning |", "| --- | --- |"]
     lines += [f"| `{name}` | {text} |" for name, text in CELL_FLAG_TEXT.items()]
     lines += [
@@ -268,7 +325,9 @@ def columns_markdown() -> str:
         "than any search of a spike. A spike belongs to the piece holding its onset crossing, so "
         "one on the border between pieces is measured once, from the same samples as in a "
         "whole read: the tables are the same (times differ from a whole read by rounding, "
-        "below 1e-8 s). Memory stays flat in the recording's length. Such a sweep has no "
+        "below 1e-8 s). Memory stays flat in the recording's length. Missing (NaN or "
+        "infinite) samples are handled as in any sweep: the stretches between them are "
+        "measured, and a gap running across pieces is one gap. Such a sweep has no "
         "current step, so its sweep features are empty, as for any sweep without one; long "
         "sweeps whose command steps, and text files, are read whole.",
         "",

@@ -22,6 +22,7 @@ time stays bounded; markers are drawn at their exact measured values.
 """
 from __future__ import annotations
 
+import hashlib
 import io
 import math
 import os
@@ -33,9 +34,9 @@ from typing import Callable, Sequence
 
 import numpy as np
 
-from .cell_features import CellFeatures
+from .cell_features import CellFeatures, passive_sweeps
 from .detection import DetectionSettings, smoothed_trace
-from .errors import SpikemeasureError
+from .errors import SpikemeasureError, printable_name
 from .output import write_bytes_atomic
 from .reading import Recording
 from .tables import SweepResult, cell_summary
@@ -307,6 +308,7 @@ def _measured(results: Sequence[SweepResult]) -> list[SweepResult]:
 
 def _title(name: str | None, results: Sequence[SweepResult], what: str) -> str:
     file = name if name is not None else (results[0].sweep.file if results else "")
+    file = printable_name(str(file))  # a name whose bytes were not UTF-8 cannot be drawn
     return f"{file}: {what}" if file else what
 
 
@@ -805,7 +807,9 @@ def step_response_figure(results: Sequence[SweepResult], cell: CellFeatures | No
         # the legend where no point, line or the rheobase line runs under it
         _legend_where_free(ax_f, ("upper left", "lower right", "center right"),
                            [cell.rheobase_pa])
-        passive = np.isfinite(stim) & (stim < 0) & (count == 0) & np.isfinite(dv)
+        passive = passive_sweeps([r.features.as_dict() for r in measured],
+                                 [(r.sweep.voltage_mv, r.sweep.sampling_rate_hz)
+                                  for r in measured])
         other = np.isfinite(stim) & np.isfinite(dv) & ~passive
         ax_v.plot(stim[passive], dv[passive], ls="none", marker="o", ms=5, color="#333333",
                   label="fitted sweeps")
@@ -841,13 +845,38 @@ def cell_figures(results: Sequence[SweepResult], cell: CellFeatures | None = Non
             "step_responses": step_response_figure(results, cell, **kw)}
 
 
+#: A figure folder's name is cut to this many characters (then a hash follows), well within
+#: the 255 bytes most file systems allow a name.
+MAX_FOLDER_NAME_CHARS = 120
+
+
 def figure_folder_name(shown: str) -> str:
     """A one-level folder name for a file's figures: its shown path with separators made safe
-    (``day_1/cell 2.nwb`` -> ``day_1__cell 2.nwb``)."""
+    (``day_1/cell 2.nwb`` -> ``day_1__cell 2.nwb``).
+
+    Distinct shown names give distinct folders: when the name had to be changed in a way that
+    could make two names alike (a character replaced by ``_``, ``__`` or a separator next to
+    ``_`` in the name, a backslash, ``.`` or ``..``), or is longer than
+    :data:`MAX_FOLDER_NAME_CHARS`, the first 8 hex digits of the SHA-256 of the shown name
+    follow a ``-``.
+    """
+    if not isinstance(shown, str):
+        raise ValueError(f"`shown` must be a str (got {type(shown).__name__})")
+    parts = shown.split("/")
+    plain = bool(shown) and all(
+        p not in ("", ".", "..") and "__" not in p and not p.startswith("_")
+        and not p.endswith("_") and "\\" not in p
+        and all(c.isprintable() and c not in '<>:"|?*' for c in p) for p in parts)
     safe = shown.replace("\\", "/").strip("/")
     safe = "__".join(part for part in safe.split("/") if part not in ("", ".", ".."))
     safe = "".join(c if c.isprintable() and c not in '<>:"|?*' else "_" for c in safe)
-    return safe or "unnamed"
+    safe = safe or "unnamed"
+    if len(safe) > MAX_FOLDER_NAME_CHARS:
+        safe, plain = safe[:MAX_FOLDER_NAME_CHARS], False
+    if plain or (len(parts) == 1 and safe == shown and "__" not in shown):
+        return safe
+    digest = hashlib.sha256(shown.encode("utf-8", "surrogatepass")).hexdigest()[:8]
+    return f"{safe}-{digest}"
 
 
 def _save(fig, path: Path, fmt: str) -> None:

@@ -64,7 +64,7 @@ def inspect_file(path: str, settings: DetectionSettings = DetectionSettings(), *
         raise
     rates = sorted({s.sampling_rate_hz for s in recording.sweeps})
     lines = [
-        f"file:          {path} ({Path(path).stat().st_size / 1e6:.2f} MB)",
+        f"file:          {recording.path} ({Path(path).stat().st_size / 1e6:.2f} MB)",
         f"format:        {recording.format}",
         f"sweeps:        {len(recording.sweeps)}",
         "sampling rate: " + ", ".join(f"{r / 1e3:g} kHz" for r in rates),
@@ -82,6 +82,13 @@ def inspect_file(path: str, settings: DetectionSettings = DetectionSettings(), *
             measured += 1
         note = r.error.split(": ", 1)[-1] if r.error else ""
         spikes = "-" if r.spikes is None else str(len(r.spikes))
+        sweep_flags = r.features.flags if r.features is not None else ()
+        if "too_slow_for_spikes" in sweep_flags:
+            spikes = "-"
+        elif "spike_count_lower_bound" in sweep_flags:
+            spikes = f">={spikes}"
+        if sweep_flags:
+            note = ", ".join(f.replace("_", " ") for f in sweep_flags)
         if step is None:
             hold = size = start = stop = "-"
             if r.error is None:

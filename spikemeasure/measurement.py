@@ -15,12 +15,13 @@ from scipy.signal import savgol_coeffs
 
 from .detection import (SMOOTHING_POLYORDER, DetectedSpikes, DetectionSettings, SmoothedTrace,
                         detect_spikes, smoothed_trace, smoothing_window_samples)
-from .errors import InvalidSettingError, UnmeasurableDataError
+from .errors import InvalidSettingError
 from .sweeps import CurrentStep
 
 __all__ = ["SpikeMeasurements", "spike_thresholds", "interpolated_peaks", "half_widths",
            "troughs", "rate_extremes", "search_ends", "measure_spikes", "measure_trace",
-           "measure_in_pieces", "piece_margin_samples", "PIECE_SAMPLES", "FLAG_TEXT",
+           "measure_in_pieces", "measure_around_gaps", "measure_in_pieces_with_gaps", "piece_margin_samples", "PIECE_SAMPLES",
+           "FLAG_TEXT", "GAP_FLAG",
            "CLIPPED_RUN_SAMPLES", "flat_peak_runs"]
 
 #: Samples per piece when a long trace is measured in pieces (about 16 MB of float64 each).
@@ -40,11 +41,18 @@ FLAG_TEXT = {
     "too_few_samples_across_spike": "fewer samples than `min_samples_across_width` lie above the "
                                     "half-amplitude level: the sampling rate is too low to "
                                     "measure the width, which is left empty",
+    "touches_gap": "a window this spike is measured over reaches a stretch of missing (NaN or "
+                   "infinite) samples, or the interval before it spans one: the values that "
+                   "depend on that window (threshold; peak; half-width; trough, AHP and fall "
+                   "rate; interspike interval) are empty, the others are as without the gap",
     "clipped_peak": "the spike's largest sample repeats over at least "
                     "`CLIPPED_RUN_SAMPLES` (3) consecutive samples, as when the amplifier or "
                     "digitizer range was exceeded: the true peak was higher, so peak, amplitude "
                     "and half-width are too small",
 }
+
+#: The flag of a spike with a value left empty because a missing stretch reaches it.
+GAP_FLAG = "touches_gap"
 
 #: Consecutive samples equal to a spike's largest sample that mark its peak as clipped. A
 #: smooth peak sampled finely enough to measure has distinct samples around its maximum;
@@ -632,6 +640,12 @@ def measure_spikes(trace: SmoothedTrace, detected: DetectedSpikes,
       threshold - trough.
     - ISI: threshold time minus the previous spike's threshold time.
     """
+    return _measure_spikes(trace, detected, settings, step)[0]
+
+
+def _measure_spikes(trace: SmoothedTrace, detected: DetectedSpikes, settings: DetectionSettings,
+                    step: CurrentStep | None) -> tuple[SpikeMeasurements, dict]:
+    """:func:`measure_spikes`, and the sample positions its searches used (for the gap test)."""
     rate = trace.sampling_rate_hz
     n = len(detected)
     v = trace.voltage_mv
@@ -676,13 +690,14 @@ def measure_spikes(trace: SmoothedTrace, detected: DetectedSpikes,
         if clipped[k]:
             f.append("clipped_peak")
         flags.append(tuple(f))
-    return SpikeMeasurements(
+    spikes = SpikeMeasurements(
         threshold_s=thr_s, threshold_mv=thr_mv, peak_s=peak_pos / rate, peak_mv=peak_mv,
         amplitude_mv=peak_mv - thr_mv, half_width_ms=width,
         rise_time_ms=(peak_pos - thr_i) / rate * 1e3,
         max_dvdt_v_per_s=max_rate, min_dvdt_v_per_s=min_rate,
         trough_s=trough_i / rate, trough_mv=trough_mv, ahp_depth_mv=thr_mv - trough_mv,
         isi_ms=isi, flags=tuple(flags))
+    return spikes, {"down": down_i, "width_ends": width_ends, "trough_ends": trough_ends}
 
 
 def measure_trace(voltage_mv: np.ndarray, sampling_rate_hz: float,
@@ -707,10 +722,181 @@ def measure_trace(voltage_mv: np.ndarray, sampling_rate_hz: float,
     if v.ndim != 1:
         raise InvalidSettingError("`voltage_mv` must be a 1-D array")
     if not np.all(np.isfinite(v)):
-        raise InvalidSettingError("`voltage_mv` contains NaN or infinite samples")
+        raise InvalidSettingError("`voltage_mv` contains NaN or infinite samples; "
+                                  "measure_around_gaps measures a trace with gaps")
     trace = smoothed_trace(v, sampling_rate_hz, settings.smoothing_ms,
                            second_derivative=settings.needs_second_derivative)
     return measure_spikes(trace, detect_spikes(trace, settings), settings, step)
+
+
+_SPIKE_FIELDS_BY_WINDOW = {
+    "threshold": ("threshold_s", "threshold_mv", "amplitude_mv", "half_width_ms", "rise_time_ms",
+                  "max_dvdt_v_per_s", "ahp_depth_mv"),
+    "peak": ("peak_s", "peak_mv", "amplitude_mv", "half_width_ms", "rise_time_ms",
+             "max_dvdt_v_per_s", "min_dvdt_v_per_s"),
+    "width": ("half_width_ms",),
+    "trough": ("trough_s", "trough_mv", "ahp_depth_mv", "min_dvdt_v_per_s"),
+}
+
+
+def _finite_runs(finite: np.ndarray) -> list[tuple[int, int]]:
+    """(start, stop) of each stretch of True in a boolean array."""
+    edges = np.diff(np.concatenate([[False], finite, [False]]).astype(np.int8))
+    return list(zip(np.flatnonzero(edges == 1).tolist(), np.flatnonzero(edges == -1).tolist()))
+
+
+def _blank_near_gaps(spikes: SpikeMeasurements, detected: DetectedSpikes, extra: dict,
+                     trace: SmoothedTrace, settings: DetectionSettings, gap_before: bool,
+                     gap_after: bool) -> SpikeMeasurements:
+    """Empty the values of the spikes of one finite stretch whose windows reach a gap.
+
+    `gap_before` / `gap_after`: whether missing samples lie just before the stretch's first /
+    after its last sample (rather than the ends of the sweep). The smoothing filters' values
+    differ from those of the unbroken trace within half a window of a gap, and a search that
+    would have gone on past a gap was cut short; a value is kept only when neither happened to
+    any window it is measured over.
+    """
+    n_spikes = len(spikes)
+    if n_spikes == 0 or not (gap_before or gap_after):
+        return spikes
+    rate = trace.sampling_rate_hz
+    n = trace.voltage_mv.size
+    rate_half = smoothing_window_samples(settings.rate_smoothing_ms, rate) // 2
+    edge = max(trace.window // 2, rate_half, _SPLINE_HALF) + 1
+    low = edge if gap_before else -np.inf            # first sample not disturbed by a gap
+    high = n - 1 - edge if gap_after else np.inf     # last one
+    onset, peak = detected.onset_index, detected.peak_sample
+    reach = settings.search_window_samples(rate)
+    if settings.threshold_method == "onset_rate":
+        thr_lo, thr_hi = onset - 1, onset
+    else:
+        prev_peak = np.concatenate([[-np.iinfo(np.int64).max // 2], peak[:-1] + 1])
+        thr_lo, thr_hi = np.maximum(prev_peak, onset - reach), peak
+    touched = {
+        "threshold": (thr_lo < low) | (thr_hi > high),
+        "peak": (peak - _SPLINE_HALF < low) | (peak + trace.window // 2 + _SPLINE_HALF > high),
+        # a half-width whose downward crossing was found is the first crossing, as without the
+        # gap; one not found may have been cut short by it
+        "width": ~np.isfinite(extra["down"]) & (extra["width_ends"] > high),
+        # the last spike before a gap may not be the sweep's last: its trough search would
+        # have run on to the next spike or the search window, past the gap
+        "trough": (extra["trough_ends"] > high)
+                  | ((np.arange(n_spikes) == n_spikes - 1) & (peak + reach > high)),
+    }
+    values = {name: np.array(getattr(spikes, name), dtype=float)
+              for names in _SPIKE_FIELDS_BY_WINDOW.values() for name in names}
+    any_touch = np.zeros(n_spikes, dtype=bool)
+    for window, names in _SPIKE_FIELDS_BY_WINDOW.items():
+        hit = np.asarray(touched[window], dtype=bool)
+        any_touch |= hit
+        for name in names:
+            values[name][hit] = np.nan
+    flags = []
+    for k, f in enumerate(spikes.flags):
+        if touched["width"][k]:
+            f = tuple(x for x in f if x != "no_repolarization")  # the gap, not the cell
+        flags.append(f + (GAP_FLAG,) if any_touch[k] else f)
+    return replace(spikes, flags=tuple(flags), **values)
+
+
+def _measure_stretches(voltage_mv: np.ndarray, sampling_rate_hz: float,
+                       settings: DetectionSettings, step: CurrentStep | None
+                       ) -> tuple[SpikeMeasurements, np.ndarray]:
+    """Measure each stretch of finite samples on its own (times from the trace's first
+    sample); returns the spikes and their onset indices in the trace. ISIs are not fixed."""
+    v = voltage_mv
+    rate = float(sampling_rate_hz)
+    window = smoothing_window_samples(settings.smoothing_ms, rate)
+    parts: list[SpikeMeasurements] = []
+    onsets: list[np.ndarray] = []
+    for a, b in _finite_runs(np.isfinite(v)):
+        if b - a < window:
+            continue  # too short to smooth: nothing to detect in it
+        trace = smoothed_trace(v[a:b], rate, settings.smoothing_ms,
+                               second_derivative=settings.needs_second_derivative)
+        detected = detect_spikes(trace, settings)
+        if len(detected) == 0:
+            continue
+        local = None if step is None else CurrentStep(step.onset_s - a / rate,
+                                                      step.offset_s - a / rate,
+                                                      step.size_pa, step.holding_pa)
+        spikes, extra = _measure_spikes(trace, detected, settings, local)
+        spikes = _blank_near_gaps(spikes, detected, extra, trace, settings, a > 0, b < v.size)
+        parts.append(_shifted(spikes, a / rate))
+        onsets.append(detected.onset_index + a)
+    return _concatenate(parts), (np.concatenate(onsets) if onsets
+                                 else np.zeros(0, dtype=np.int64))
+
+
+def _intervals_across_gaps(spikes: SpikeMeasurements, gaps_s: np.ndarray
+                           ) -> SpikeMeasurements:
+    """Interspike intervals of the whole sweep, empty (and flagged) where a gap lies between a
+    spike and the previous one, since the gap may hide a spike."""
+    n = len(spikes)
+    isi = np.full(n, np.nan)
+    if n < 2:
+        return replace(spikes, isi_ms=isi)
+    times = np.where(np.isfinite(spikes.threshold_s), spikes.threshold_s, spikes.peak_s)
+    isi[1:] = np.diff(spikes.threshold_s) * 1e3
+    flags = list(spikes.flags)
+    for k in range(1, n):
+        between = (gaps_s[:, 0] < times[k]) & (gaps_s[:, 1] > times[k - 1]) \
+            if gaps_s.size else np.zeros(0, dtype=bool)
+        if between.any():
+            isi[k] = np.nan
+            if GAP_FLAG not in flags[k]:
+                flags[k] = flags[k] + (GAP_FLAG,)
+    return replace(spikes, isi_ms=isi, flags=tuple(flags))
+
+
+def measure_around_gaps(voltage_mv: np.ndarray, sampling_rate_hz: float,
+                        settings: DetectionSettings = DetectionSettings(),
+                        step: CurrentStep | None = None) -> SpikeMeasurements:
+    """Detect and measure the spikes of a trace that may hold missing (NaN or infinite)
+    stretches.
+
+    Parameters
+    ----------
+    voltage_mv : ndarray
+        Membrane voltage in mV, 1-D; NaN or infinite where samples are missing.
+    sampling_rate_hz : float
+    settings : DetectionSettings, optional
+    step : CurrentStep, optional
+
+    Returns
+    -------
+    SpikeMeasurements
+        With every sample finite, the same as :func:`measure_trace`.
+
+    Notes
+    -----
+    Each stretch of finite samples at least one smoothing window long is smoothed, detected
+    and measured on its own, and no search crosses a gap. A spike keeps every value whose
+    windows stay clear of the gaps: those values come from the same samples through the same
+    filters as in the unbroken trace (the Savitzky-Golay filters differ only within half a
+    window of a stretch's end), so they equal the values the unbroken trace would give. A value
+    whose window comes within that distance of a gap, or whose search was cut short by one, is
+    NaN, and the spike is flagged :data:`GAP_FLAG`: threshold (the threshold search, and for
+    ``onset_rate`` the onset crossing); peak (the spline's samples and the end of the rise);
+    half-width (only when the downward crossing was not found before the gap); trough, AHP
+    depth and fall rate (the trough search); and the interspike interval when a gap lies between
+    the spike and the previous one, as it may hide a spike. A spike within a gap is not seen.
+    """
+    v = np.array(voltage_mv, dtype=float)
+    if v.ndim != 1:
+        raise InvalidSettingError("`voltage_mv` must be a 1-D array")
+    if not sampling_rate_hz > 0:
+        raise InvalidSettingError("`sampling_rate_hz` must be positive")
+    finite = np.isfinite(v)
+    if finite.all():
+        trace = smoothed_trace(v, sampling_rate_hz, settings.smoothing_ms,
+                               second_derivative=settings.needs_second_derivative)
+        return measure_spikes(trace, detect_spikes(trace, settings), settings, step)
+    v[~finite] = np.nan
+    spikes, _ = _measure_stretches(v, sampling_rate_hz, settings, step)
+    runs = _finite_runs(~finite)
+    gaps_s = np.array(runs, dtype=float).reshape(-1, 2) / sampling_rate_hz
+    return _intervals_across_gaps(spikes, gaps_s)
 
 
 def piece_margin_samples(settings: DetectionSettings, sampling_rate_hz: float) -> int:
@@ -765,12 +951,8 @@ def measure_in_pieces(voltage_mv, sampling_rate_hz: float,
     Returns
     -------
     SpikeMeasurements
-        The same spikes as :func:`measure_trace` on the whole trace with no current step.
-
-    Raises
-    ------
-    UnmeasurableDataError
-        A piece holds NaN or infinite samples (the message gives their times).
+        The same spikes as :func:`measure_around_gaps` on the whole trace with no current step
+        (:func:`measure_trace` when every sample is finite).
 
     Notes
     -----
@@ -781,7 +963,26 @@ def measure_in_pieces(voltage_mv, sampling_rate_hz: float,
     ``search_window_ms``), and the Savitzky-Golay filters give the same values away from the
     ends of what they are given, so each spike is measured from the same numbers as in one
     pass over the whole trace; only times differ, by rounding, as they are shifted by the
-    piece's start. Interspike intervals are taken across pieces.
+    piece's start. Interspike intervals are taken across pieces. Missing (NaN or infinite)
+    samples are handled as by :func:`measure_around_gaps`: the stretches between them are
+    measured on their own, and values whose windows reach a gap are empty and flagged
+    (:func:`measure_in_pieces_with_gaps` also returns where the gaps are).
+    """
+    return measure_in_pieces_with_gaps(voltage_mv, sampling_rate_hz, settings,
+                                       piece_samples=piece_samples)[0]
+
+
+def measure_in_pieces_with_gaps(voltage_mv, sampling_rate_hz: float,
+                                settings: DetectionSettings = DetectionSettings(), *,
+                                piece_samples: int | None = None
+                                ) -> tuple[SpikeMeasurements, np.ndarray]:
+    """:func:`measure_in_pieces`, and the missing stretches found while reading.
+
+    Returns
+    -------
+    spikes : SpikeMeasurements
+    gaps : ndarray of int, shape (k, 2)
+        (start, stop) sample indices of each stretch of NaN or infinite samples, in order.
     """
     rate = float(sampling_rate_hz)
     if not rate > 0:
@@ -792,26 +993,29 @@ def measure_in_pieces(voltage_mv, sampling_rate_hz: float,
     n = len(voltage_mv)
     margin = piece_margin_samples(settings, rate)
     parts: list[SpikeMeasurements] = []
+    gaps: list[list[int]] = []
     for start in range(0, n, piece_samples):
         stop = min(n, start + piece_samples)
         lo, hi = max(0, start - margin), min(n, stop + margin)
         v = np.asarray(voltage_mv[lo:hi], dtype=float)
-        bad = np.flatnonzero(~np.isfinite(v))
-        if bad.size:
-            raise UnmeasurableDataError(
-                f"voltage samples are NaN or infinite from {(lo + bad[0]) / rate:.4f} s (the "
-                f"first of {bad.size} in {lo / rate:.1f}-{hi / rate:.1f} s); the sweep was not "
-                "measured. Remove or re-export the gap")
-        trace = smoothed_trace(v, rate, settings.smoothing_ms,
-                               second_derivative=settings.needs_second_derivative)
-        detected = detect_spikes(trace, settings)
-        onset = detected.onset_index + lo
+        finite = np.isfinite(v)
+        if finite.all():
+            trace = smoothed_trace(v, rate, settings.smoothing_ms,
+                                   second_derivative=settings.needs_second_derivative)
+            detected = detect_spikes(trace, settings)
+            measured, onset = measure_spikes(trace, detected, settings, None), detected.onset_index
+        else:
+            for a, b in _finite_runs(~finite[start - lo:stop - lo]):
+                if gaps and gaps[-1][1] == start + a:
+                    gaps[-1][1] = start + b      # a gap running on from the previous piece
+                else:
+                    gaps.append([start + a, start + b])
+            v = np.where(finite, v, np.nan)
+            measured, onset = _measure_stretches(v, rate, settings, None)
+        onset = onset + lo
         keep = (onset >= start) & (onset < stop)
         if keep.any():
-            parts.append(_shifted(measure_spikes(trace, detected, settings, None).subset(keep),
-                                   lo / rate))
+            parts.append(_shifted(measured.subset(keep), lo / rate))
     whole = _concatenate(parts)
-    isi = np.full(len(whole), np.nan)
-    if len(whole) > 1:
-        isi[1:] = np.diff(whole.threshold_s) * 1e3
-    return replace(whole, isi_ms=isi)
+    stretches = np.array(gaps, dtype=np.int64).reshape(-1, 2)
+    return _intervals_across_gaps(whole, stretches / rate), stretches

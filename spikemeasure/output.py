@@ -2,6 +2,12 @@
 
 Each file is written to a temporary name in the same folder, flushed to disk, then renamed
 over the final name, so an interrupted run never leaves a half-written table.
+
+Text cells of a CSV (file names, flags, messages) that a spreadsheet would run as a formula
+are written with a leading ``'`` and in quotes (:func:`escape_csv_text`);
+:func:`unescape_csv_text` gives the text back. Text that is not valid Unicode (a file name
+whose bytes are not UTF-8) is written with backslash escapes (:func:`~spikemeasure.errors.
+valid_text`), never refused.
 """
 from __future__ import annotations
 
@@ -13,10 +19,18 @@ import tempfile
 from pathlib import Path
 
 from .columns import SPIKE_COLUMNS, Column
+from .errors import InvalidSettingError, valid_text
 from .tables import format_rows
 
 __all__ = ["write_text_atomic", "write_bytes_atomic", "write_table_csv", "write_rows_csv",
-           "write_json"]
+           "write_json", "escape_csv_text", "unescape_csv_text", "TEXT_COLUMN_NAMES"]
+
+#: Columns of the tables that hold text (all others hold numbers, empty when not measured).
+TEXT_COLUMN_NAMES = frozenset({"file", "flags", "stage", "message"})
+#: First characters that make a spreadsheet read a cell as a formula (common practice, as
+#: the OWASP guidance on CSV injection lists them).
+FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+_FIRST_TO_CHECK = frozenset(FORMULA_START + ("'",))
 
 
 def _read_umask() -> int:
@@ -29,8 +43,9 @@ _UMASK = _read_umask()  # read once at import: os.umask can only be read by sett
 
 
 def write_text_atomic(path: str | os.PathLike, text: str) -> Path:
-    """Write `text` to `path` through a temporary file and a rename."""
-    return write_bytes_atomic(path, text.encode("utf-8"))
+    """Write `text` to `path` through a temporary file and a rename, as UTF-8 (lone
+    surrogates, from file names that are not UTF-8, as ``\\xNN``)."""
+    return write_bytes_atomic(path, valid_text(text).encode("utf-8"))
 
 
 def write_bytes_atomic(path: str | os.PathLike, data: bytes) -> Path:
@@ -60,15 +75,93 @@ def write_table_csv(path: str | os.PathLike, table: dict[str, list],
     return write_rows_csv(path, columns, format_rows(table, columns))
 
 
+def escape_csv_text(text: str) -> str:
+    """A text cell as a spreadsheet shows it but never runs it.
+
+    A cell that starts with ``=``, ``+``, ``-``, ``@``, a tab or a carriage return gets a
+    leading ``'`` (as the OWASP guidance on CSV injection recommends), and so does a cell that
+    starts with ``'`` followed by one of those or by another ``'``, so that
+    :func:`unescape_csv_text` gives every text back exactly. Any other text is unchanged.
+
+    Parameters
+    ----------
+    text : str
+
+    Returns
+    -------
+    str
+    """
+    if not isinstance(text, str):
+        raise InvalidSettingError(f"`text` must be a str (got {type(text).__name__})")
+    if text.startswith(FORMULA_START) or (text[:1] == "'" and
+                                          text[1:].startswith(FORMULA_START + ("'",))):
+        return "'" + text
+    return text
+
+
+def unescape_csv_text(cell: str) -> str:
+    """The text that :func:`escape_csv_text` turned into `cell`.
+
+    Parameters
+    ----------
+    cell : str
+
+    Returns
+    -------
+    str
+    """
+    if not isinstance(cell, str):
+        raise InvalidSettingError(f"`cell` must be a str (got {type(cell).__name__})")
+    if cell[:1] == "'" and cell[1:].startswith(FORMULA_START + ("'",)):
+        return cell[1:]
+    return cell
+
+
+def _csv_cell(text: str) -> str:
+    """One field as csv's QUOTE_MINIMAL writes it."""
+    if any(c in text for c in ',"\r\n'):
+        return '"' + text.replace('"', '""') + '"'
+    return text
+
+
 def write_rows_csv(path: str | os.PathLike, columns: tuple[Column, ...],
                    rows: list[list[str]]) -> Path:
-    """Write already formatted rows under the declared header, atomically."""
+    """Write already formatted rows under the declared header, atomically.
+
+    Cells of :data:`TEXT_COLUMN_NAMES` pass through :func:`escape_csv_text` and, when escaped,
+    are quoted; numbers never change.
+    """
+    text_columns = [k for k, c in enumerate(columns) if c.name in TEXT_COLUMN_NAMES]
     buffer = io.StringIO()
     writer = csv.writer(buffer, lineterminator="\n")
     writer.writerow([c.name for c in columns])
-    writer.writerows(rows)
+    for row in rows:
+        if len(row) != len(columns):
+            raise InvalidSettingError(f"{path}: a row of {len(row)} cells under a header of "
+                                      f"{len(columns)}")
+        escaped = {k for k in text_columns
+                   if row[k][:1] in _FIRST_TO_CHECK and row[k] != escape_csv_text(row[k])}
+        if not escaped:
+            writer.writerow(row)
+            continue
+        buffer.write(",".join('"' + escape_csv_text(v).replace('"', '""') + '"' if k in escaped
+                              else _csv_cell(v) for k, v in enumerate(row)) + "\n")
     return write_text_atomic(path, buffer.getvalue())
 
 
+def _valid_strings(value):
+    """`value` (JSON data) with every string made valid Unicode (:func:`valid_text`)."""
+    if isinstance(value, str):
+        return valid_text(value)
+    if isinstance(value, dict):
+        return {_valid_strings(k): _valid_strings(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_valid_strings(v) for v in value]
+    return value
+
+
 def write_json(path: str | os.PathLike, record: dict) -> Path:
-    return write_text_atomic(path, json.dumps(record, indent=2, default=str) + "\n")
+    """Write `record` as indented JSON, atomically; strings that are not valid Unicode (lone
+    surrogates) are written with backslash escapes, never as lone surrogate escapes."""
+    return write_text_atomic(path, json.dumps(_valid_strings(record), indent=2, default=str)
+                             + "\n")

@@ -21,20 +21,25 @@ that would not fit in the available memory when read whole, is refused before it
 """
 from __future__ import annotations
 
+import errno
 import inspect
+import json
 import os
 import re
+import stat
 import sys
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Callable
 
 import numpy as np
 
-from .errors import InvalidSettingError, UnreadableInputError
+from .errors import InvalidSettingError, UnreadableInputError, printable_name
 from .sweeps import LazyTrace, Sweep
 
 __all__ = ["Recording", "ChannelInfo", "read_recording", "find_recordings", "is_temporary",
+           "search_recordings", "RecordingSearch",
            "TEXT_SUFFIXES", "RECORDING_SUFFIXES", "LONG_SWEEP_SAMPLES",
            "DEFAULT_MAX_SWEEP_SAMPLES"]
 
@@ -682,7 +687,7 @@ def _align_stimulus(sweep: Sweep, response, stimulus) -> tuple[Sweep, bool]:
 
 # --------------------------------------------------------------------------- NIX and others
 
-def _nix_array_sizes(path: Path) -> tuple[int, int]:
+def _nix_array_sizes(path: Path | str) -> tuple[int, int]:
     """The most rows and the most values of any data array in a NIX file, from the HDF5
     layout alone (nothing is read)."""
     import h5py
@@ -700,7 +705,7 @@ def _nix_array_sizes(path: Path) -> tuple[int, int]:
     return longest, largest
 
 
-def _read_nix_lazily(path: Path, shown: str, max_sweep_samples: int) -> Recording:
+def _read_nix_lazily(path: Path | str, shown: str, max_sweep_samples: int) -> Recording:
     """A NIX file with long or very large signals: neo's lazy NIX reader, long signals left
     in the file, and sweeps declaring more than `max_sweep_samples` samples (or more than the
     memory available, for those read whole) refused before they are read."""
@@ -743,7 +748,53 @@ def _close_rawio(io) -> None:
         handle.close()
 
 
+def _openable_text_path(path: Path) -> tuple[str, Callable[[], None]]:
+    """A path as text that HDF5 libraries accept, and what to call when done with it.
+
+    nixio refuses a path whose bytes are not UTF-8 (Python holds those bytes as surrogates);
+    such a file is opened here and given by its descriptor's name (``/proc/self/fd/N``), so
+    it is still read by its real path.
+    """
+    text = str(path)
+    try:
+        text.encode("utf-8")
+        return text, lambda: None
+    except UnicodeEncodeError:
+        pass
+    for folder in ("/proc/self/fd", "/dev/fd"):
+        if os.path.isdir(folder):
+            fd = os.open(path, os.O_RDONLY)
+            closed = []
+
+            def close() -> None:
+                if not closed:
+                    closed.append(True)
+                    os.close(fd)
+
+            return f"{folder}/{fd}", close
+    return text, lambda: None  # no descriptor folder: the library says what it refuses
+
+
 def _read_nix(path: Path, shown: str, max_sweep_samples: int) -> Recording:
+    try:
+        path_text, done = _openable_text_path(path)
+    except OSError as exc:
+        raise UnreadableInputError(f"{shown}: cannot be opened ({_os_reason(exc)})") from None
+    try:
+        recording = _read_nix_from(path, path_text, shown, max_sweep_samples)
+    except BaseException:
+        done()
+        raise
+    if recording.release is None:
+        done()
+        return recording
+    release = recording.release
+    return Recording(recording.path, recording.format, recording.sweeps, recording.channels,
+                     recording.problems, release=lambda: (release(), done()))
+
+
+def _read_nix_from(path: Path, path_text: str, shown: str,
+                   max_sweep_samples: int) -> Recording:
     import neo
 
     with open(path, "rb") as fh:
@@ -754,12 +805,12 @@ def _read_nix(path: Path, shown: str, max_sweep_samples: int) -> Recording:
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            longest, largest = _nix_array_sizes(path)
+            longest, largest = _nix_array_sizes(path_text)
             available = _available_memory_bytes()
             if (longest > LONG_SWEEP_SAMPLES or largest > max_sweep_samples
                     or (available is not None and 8 * largest > available)):
-                return _read_nix_lazily(path, shown, max_sweep_samples)
-            with neo.io.NixIO(str(path), mode="ro") as io:
+                return _read_nix_lazily(path_text, shown, max_sweep_samples)
+            with neo.io.NixIO(path_text, mode="ro") as io:
                 blocks = io.read_all_blocks(lazy=False)
     except UnreadableInputError:
         raise
@@ -1107,7 +1158,8 @@ def read_recording(path: str | os.PathLike, *, shown_as: str | None = None,
     path : str or path-like
         The file.
     shown_as : str, optional
-        How to name the file in sweeps and messages (default: the path as given).
+        How to name the file in sweeps and messages (default: the path as given, as a
+        :func:`~spikemeasure.errors.printable_name`).
     sampling_rate_hz : float, optional
         For text files without a time column.
     max_sweep_samples : int, optional
@@ -1130,16 +1182,20 @@ def read_recording(path: str | os.PathLike, *, shown_as: str | None = None,
         `max_sweep_samples` is not a positive whole number.
     """
     p = Path(path)
-    shown = shown_as if shown_as is not None else str(path)
-    if not p.exists():
-        raise UnreadableInputError(f"{shown}: no such file")
-    if p.is_dir():
+    shown = shown_as if shown_as is not None else printable_name(str(path))
+    try:
+        st = os.stat(p)
+    except FileNotFoundError:
+        raise UnreadableInputError(f"{shown}: no such file") from None
+    except OSError as exc:
+        raise UnreadableInputError(f"{shown}: cannot be looked at ({_os_reason(exc)})") from None
+    if stat.S_ISDIR(st.st_mode):
         raise UnreadableInputError(f"{shown}: is a folder; pass it to find_recordings")
-    if not p.is_file():
+    if not stat.S_ISREG(st.st_mode):
         raise UnreadableInputError(
             f"{shown}: not a regular file (a device, pipe or socket); spikemeasure reads "
             "recordings saved as files")
-    if p.stat().st_size == 0:
+    if st.st_size == 0:
         raise UnreadableInputError(f"{shown}: the file is empty")
     if sampling_rate_hz is not None and not (np.isfinite(sampling_rate_hz)
                                              and sampling_rate_hz > 0):
@@ -1171,54 +1227,287 @@ _TEMPORARY = re.compile(r"^(~|\.~|\.#)|(~|\.tmp|\.temp|\.part|\.swp|\.crdownload
 
 
 def is_temporary(name: str) -> bool:
-    """Editor, download and copy leftovers (``~$x``, ``x~``, ``x.tmp``, ``x.part``, ...)."""
+    """Editor, download and copy leftovers (``~$x``, ``x~``, ``x.tmp``, ``x.part``, ...).
+
+    Parameters
+    ----------
+    name : str
+        A file name (not a path).
+
+    Returns
+    -------
+    bool
+    """
+    if not isinstance(name, str):
+        raise InvalidSettingError(f"`name` must be a str (got {type(name).__name__})")
     return bool(_TEMPORARY.search(name))
 
 
-def find_recordings(paths, *, exclude: str | os.PathLike | None = None,
-                    extra_patterns: tuple[str, ...] = ()) -> list[tuple[Path, str]]:
-    """Expand files and folders into (path, name to show) pairs, in a stable order.
+@dataclass
+class RecordingSearch:
+    """What :func:`search_recordings` found.
+
+    Attributes
+    ----------
+    files : list of (Path, str)
+        Each recording once: the path to read it by, and its name in every output (distinct
+        from every other file's, valid UTF-8, printable; see :func:`search_recordings`).
+    problems : list of (str, str)
+        Paths that could not be searched or were not followed: (the path as a printable
+        name, what is wrong). Each is a failure of the run.
+    notes : list of str
+        Messages that are not failures (a file reached twice, measured once).
+    """
+
+    files: list[tuple[Path, str]] = field(default_factory=list)
+    problems: list[tuple[str, str]] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
+
+
+def _os_reason(exc: OSError) -> str:
+    """What an OSError of the file system means, without the path it quotes."""
+    if exc.errno == errno.ENAMETOOLONG:
+        return "the path is longer than the system allows (ENAMETOOLONG)"
+    if isinstance(exc, PermissionError):
+        return "permission denied"
+    if exc.errno == errno.ELOOP:
+        return "a loop of symbolic links"
+    return exc.strerror or type(exc).__name__
+
+
+def _inside(path: str, folder: str) -> bool:
+    return path == folder or path.startswith(folder.rstrip(os.sep) + os.sep)
+
+
+@dataclass
+class _Found:
+    path: Path
+    unit: int          # which given path it came from
+    base: tuple        # the given folder's absolute parts (a given file: its folder's)
+    rel: tuple         # parts shown at least (a given file: its name)
+    identity: tuple    # (device, inode): the same file reached twice is measured once
+    via_link: bool = False  # reached through a symbolic link in a folder searched
+
+
+def _holds_own_output(folder: str) -> bool:
+    """Whether `folder` is a results or accepted folder of this tool: its CSV tables are not
+    recordings. Told by its run.json (read as JSON data, at most 64 MiB), never by its name."""
+    record = os.path.join(folder, "run.json")
+    try:
+        if os.path.getsize(record) > 1 << 26:
+            return False
+        with open(record, "rb") as fh:
+            data = json.loads(fh.read())
+    except (OSError, ValueError):
+        return False
+    return isinstance(data, dict) and data.get("tool") == "spikemeasure"
+
+
+def _walk_folder(given: Path, unit: int, root_real: str, skip: str | None, wanted,
+                 search: RecordingSearch) -> list[_Found]:
+    """Every wanted file under `given`, by os.scandir: a folder that cannot be entered and a
+    symbolic link leading out of `given` are problems, never skipped in silence."""
+    base = Path(os.path.abspath(given)).parts[1:]
+    found: list[_Found] = []
+    seen_folders = {root_real}
+    stack: list[tuple[Path, tuple, bool]] = [(given, (), False)]
+    while stack:
+        folder, rel, linked = stack.pop()
+        try:
+            with os.scandir(folder) as it:
+                entries = sorted(it, key=lambda e: e.name)
+        except OSError as exc:
+            search.problems.append((printable_name(str(folder)),
+                                    f"{printable_name(str(folder))}: cannot search this folder "
+                                    f"({_os_reason(exc)}); its files are not measured"))
+            continue
+        for entry in entries:
+            name = entry.name
+            if name.startswith("."):
+                continue  # hidden files and folders
+            shown = printable_name(os.path.join(str(folder), name))
+            try:
+                link = entry.is_symlink()
+                target = os.path.realpath(entry.path) if link else None
+                is_dir = os.path.isdir(target) if link else entry.is_dir(follow_symlinks=False)
+                if not is_dir and (name.lower().startswith("readme") or is_temporary(name)
+                                   or not wanted(rel + (name,), name)):
+                    continue
+                if link and not _inside(target, root_real):
+                    search.problems.append((shown, (
+                        f"{shown}: a symbolic link to outside the folder searched; not "
+                        "followed (give the file itself on the command line to measure it)")))
+                    continue
+                if link and not os.path.exists(target):
+                    search.problems.append((shown, f"{shown}: a symbolic link to a path that "
+                                                   "does not exist"))
+                    continue
+                real = target if link else os.path.realpath(entry.path)
+                if skip is not None and _inside(real, skip):
+                    continue  # the output folder
+                if is_dir and _holds_own_output(real):
+                    search.notes.append(f"{shown}: holds tables spikemeasure wrote (a results "
+                                        "or accepted folder); not searched for recordings")
+                    continue
+                if is_dir:
+                    if real not in seen_folders:  # else reached twice, through a link
+                        seen_folders.add(real)
+                        stack.append((Path(entry.path), rel + (name,), linked or link))
+                    continue
+                st = entry.stat()
+                if not stat.S_ISREG(st.st_mode):
+                    search.problems.append((shown, f"{shown}: not a regular file (a pipe, "
+                                                   "socket or device); not read"))
+                    continue
+            except OSError as exc:
+                search.problems.append((shown, f"{shown}: cannot be looked at "
+                                               f"({_os_reason(exc)})"))
+                continue
+            found.append(_Found(Path(entry.path), unit, base, rel + (name,),
+                                (st.st_dev, st.st_ino), linked or link))
+    found.sort(key=lambda f: "/".join(f.rel))  # as a path: "a b/x" before "a/x"
+    return found
+
+
+def _display(parts: tuple) -> str:
+    return printable_name("/".join(parts))
+
+
+def _distinct_names(found: list[_Found]) -> list[str]:
+    """Each file's shown name: its name (a given file) or its path relative to the given
+    folder; where two files would share a name, the files of those given paths are named by
+    as many more of their folders as tells them apart (``day1/cell.nwb``,
+    ``day2/cell.nwb``). Names still alike (escaped bytes alike to typed text) get `` (2)``,
+    `` (3)``, ... in order."""
+    depth: dict[int, int] = {f.unit: 0 for f in found}
+    max_depth = {f.unit: len(f.base) for f in found}
+
+    def name(f: _Found) -> str:
+        d = depth[f.unit]
+        return _display((f.base[len(f.base) - d:] if d else ()) + f.rel)
+
+    while True:
+        names = [name(f) for f in found]
+        by_name: dict[str, set[int]] = {}
+        for f, n in zip(found, names):
+            by_name.setdefault(n, set()).add(f.unit)
+        clashing = {u for units in by_name.values() if len(units) > 1 for u in units}
+        grow = [u for u in clashing if depth[u] < max_depth[u]]
+        if not grow:
+            break
+        for u in grow:
+            depth[u] += 1
+    out, used = [], set()
+    for n in names:
+        candidate, k = n, 1
+        while candidate in used:
+            k += 1
+            candidate = f"{n} ({k})"
+        used.add(candidate)
+        out.append(candidate)
+    return out
+
+
+def search_recordings(paths, *, exclude: str | os.PathLike | None = None,
+                      extra_patterns: tuple[str, ...] = ()) -> RecordingSearch:
+    """Expand files and folders into recordings, each once and by a distinct name.
 
     Parameters
     ----------
     paths : iterable of path-like
-        Files are taken as given and shown by their file name. Folders are searched
-        recursively for the open formats (:data:`RECORDING_SUFFIXES`: NWB, NIX, text) and for
-        files matching any of `extra_patterns`; each is shown by its path relative to that
-        folder.
+        Files are taken as given (a symbolic link is followed) and shown by their file name.
+        Folders are searched recursively for the open formats (:data:`RECORDING_SUFFIXES`:
+        NWB, NIX, text) and for files matching any of `extra_patterns`; each is shown by its
+        path relative to that folder.
     exclude : path-like, optional
         A folder to skip (the output folder).
     extra_patterns : tuple of str, optional
         Glob patterns (``*.dat``, ``cells/**/*.dat``) matched against the path relative to the
         folder and against the file name, for other formats neo reads.
 
+    Returns
+    -------
+    RecordingSearch
+
     Notes
     -----
-    Hidden files and folders, README files and temporary files (:func:`is_temporary`) are
-    skipped. Files are sorted by their relative path, so the order is the same on every run.
+    - Hidden files and folders, README files and temporary files (:func:`is_temporary`) are
+      skipped. Files are sorted by their relative path, so the order is the same on every run.
+    - In a folder, a symbolic link is followed only when its target lies inside the folder
+      given; any other is a problem ("not followed"), as is a folder that cannot be entered
+      or listed (no permission, a path longer than the system allows), a path given that does
+      not exist, and a file that is not a regular file (a pipe, a device).
+    - The same file reached twice (given twice, given and found in a folder, through a link
+      or a second hard link) is measured once, under the first name; a note says so.
+    - Names are distinct: when two files would be shown alike (``day1/cell.nwb`` and
+      ``day2/cell.nwb`` given, or two folders each holding ``cell.nwb``), the files of each
+      of those given paths are shown with as many of the given path's folders as tell them
+      apart. Bytes of a name that are not UTF-8 are shown as ``\\xNN``, characters that are
+      not printable as backslash escapes (:func:`~spikemeasure.errors.printable_name`); the
+      file is still read by its real path.
     """
     from fnmatch import fnmatch
 
-    found: list[tuple[Path, str]] = []
-    skip = Path(exclude).resolve() if exclude is not None else None
-    for given in paths:
+    def wanted(rel: tuple, name: str) -> bool:
+        posix = "/".join(rel)
+        return Path(name).suffix.lower() in RECORDING_SUFFIXES or any(
+            fnmatch(posix, p) or fnmatch(name, p) for p in extra_patterns)
+
+    search = RecordingSearch()
+    skip = os.path.realpath(exclude) if exclude is not None else None
+    found: list[_Found] = []
+    for unit, given in enumerate(paths):
         g = Path(given)
-        if not g.is_dir():
-            if g.exists():
-                found.append((g, g.name))
+        shown = printable_name(str(given))
+        try:
+            st = os.stat(g)
+        except FileNotFoundError:
+            search.problems.append((shown, f"{shown}: no such file or folder"))
             continue
-        picked = []
-        for f in g.rglob("*"):
-            rel = f.relative_to(g)
-            if any(part.startswith(".") for part in rel.parts) or not f.is_file():
-                continue
-            if skip is not None and (skip == f.resolve() or skip in f.resolve().parents):
-                continue
-            if f.name.lower().startswith("readme") or is_temporary(f.name):
-                continue
-            posix = rel.as_posix()
-            if f.suffix.lower() in RECORDING_SUFFIXES or any(
-                    fnmatch(posix, p) or fnmatch(f.name, p) for p in extra_patterns):
-                picked.append((f, posix))
-        found.extend(sorted(picked, key=lambda item: item[1]))
-    return found
+        except OSError as exc:
+            search.problems.append((shown, f"{shown}: cannot be looked at ({_os_reason(exc)})"))
+            continue
+        if stat.S_ISDIR(st.st_mode):
+            found.extend(_walk_folder(g, unit, os.path.realpath(g), skip, wanted, search))
+        elif stat.S_ISREG(st.st_mode):
+            absolute = Path(os.path.abspath(g)).parts[1:]
+            found.append(_Found(g, unit, absolute[:-1], absolute[-1:], (st.st_dev, st.st_ino)))
+        else:
+            search.problems.append((shown, f"{shown}: not a regular file (a pipe, socket or "
+                                           "device); not read"))
+    # each file once: by the first path given that holds it, and there by its own path
+    # rather than through a link
+    best: dict[tuple, _Found] = {}
+    for f in found:
+        other = best.get(f.identity)
+        if other is None or (f.unit, f.via_link, f.rel) < (other.unit, other.via_link, other.rel):
+            best[f.identity] = f
+    kept = [f for f in found if best[f.identity] is f]
+    again = [(f, best[f.identity]) for f in found if best[f.identity] is not f]
+    names = _distinct_names(kept)
+    name_of = {id(f): n for f, n in zip(kept, names)}
+    for f, original in again:
+        search.notes.append(f"{printable_name(str(f.path))}: the same file as "
+                            f"{name_of[id(original)]}; measured once")
+    search.files = [(f.path, n) for f, n in zip(kept, names)]
+    return search
+
+
+def find_recordings(paths, *, exclude: str | os.PathLike | None = None,
+                    extra_patterns: tuple[str, ...] = ()) -> list[tuple[Path, str]]:
+    """Expand files and folders into (path, name to show) pairs, in a stable order.
+
+    The files of :func:`search_recordings`, which takes the same arguments and says more.
+
+    Raises
+    ------
+    UnreadableInputError
+        When a path given or a folder in it cannot be searched, or a link was not followed
+        (:attr:`RecordingSearch.problems`; the message names the first of them).
+    """
+    search = search_recordings(paths, exclude=exclude, extra_patterns=extra_patterns)
+    if search.problems:
+        more = len(search.problems) - 1
+        raise UnreadableInputError(search.problems[0][1] + (f" (and {more} more)" if more
+                                                            else ""))
+    return search.files

@@ -20,8 +20,8 @@ from pathlib import Path
 from typing import Sequence
 
 from .columns import CELL_COLUMNS
-from .errors import SpikemeasureError
-from .output import write_text_atomic
+from .errors import SpikemeasureError, valid_text
+from .output import unescape_csv_text, write_text_atomic
 
 __all__ = ["Groups", "GroupsFileError", "read_groups", "cell_values", "report_html",
            "write_report", "EMBED_LIMIT_BYTES"]
@@ -123,6 +123,7 @@ def read_groups(path: str | os.PathLike) -> Groups:
                                   f"{len(header)}")
         file = row[fi].strip().replace("\\", "/")
         file = file[2:] if file.startswith("./") else file
+        file = unescape_csv_text(file)  # copied from cells.csv: '=cell.nwb is =cell.nwb
         group = row[gi].strip()
         if not file or not group:
             raise GroupsFileError(f"{name}, line {line}: the file and its {others[0]} must "
@@ -166,7 +167,7 @@ figcaption { font-size: 0.85em; color: #555; } .small { font-size: 0.85em; color
 
 
 def _e(value) -> str:
-    return html.escape("" if value is None else str(value), quote=True)
+    return html.escape(valid_text("" if value is None else str(value)), quote=True)
 
 
 def _table(header: Sequence[str], rows: Sequence[Sequence], numeric: Sequence[bool] = ()

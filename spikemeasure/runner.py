@@ -34,9 +34,9 @@ from typing import Callable
 from . import __version__
 from .columns import CELL_COLUMNS, ERROR_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS
 from .detection import DetectionSettings
-from .errors import InvalidSettingError, SpikemeasureError
+from .errors import InvalidSettingError, SpikemeasureError, printable_name
 from .output import write_json, write_rows_csv, write_text_atomic
-from .reading import TEXT_SUFFIXES, find_recordings, read_recording
+from .reading import TEXT_SUFFIXES, read_recording, search_recordings
 from .tables import (cell_summary, cell_table, count_spikes, flag_counts, format_rows,
                      measure_recording, spike_table, sweep_table)
 
@@ -127,6 +127,17 @@ def _versions() -> dict:
 
 def _failure(file: str, stage: str, message: str) -> dict:
     return {"file": file, "stage": stage, "message": message}
+
+
+def _input_entry(path: Path, shown: str) -> dict:
+    """A file's entry in run.json: its name in the tables, its path as text and, when the
+    path's bytes are not UTF-8 text (or hold control characters), those bytes in hex, which
+    find the real file (``bytes.fromhex``, then ``os.fsdecode``)."""
+    text = printable_name(str(path))
+    entry = {"path": text, "file": shown}
+    if text != str(path):
+        entry["path_bytes_hex"] = os.fsencode(path).hex()
+    return entry
 
 
 def cell_figure_folder(shown: str) -> str:
@@ -313,7 +324,9 @@ def measure_paths(paths: list[str], out_dir: str | Path,
     ----------
     paths : list of str
         Files and folders (searched recursively; see
-        :func:`~spikemeasure.reading.find_recordings`).
+        :func:`~spikemeasure.reading.search_recordings`: how files are named, each once;
+        folders that cannot be searched and links not followed are failures of stage
+        ``input``, files reached twice a note).
     out_dir : str or Path
         Created if missing; skipped when searching an input folder that contains it.
     settings : DetectionSettings
@@ -384,23 +397,24 @@ def measure_paths(paths: list[str], out_dir: str | Path,
                                     f"{', '.join(FIGURE_FORMATS)} (got {figure_format!r})")
     # absolute: workers elsewhere (a cluster) may start in another folder
     figures = {"out": str(out.resolve()), "format": figure_format} if figure_format else None
-    early: list[dict] = []
-    for given in paths:
-        if not Path(given).exists():
-            early.append(_failure(str(given), "input", f"{given}: no such file or folder"))
-    files = find_recordings(paths, exclude=out, extra_patterns=extra_patterns)
+    search = search_recordings(paths, exclude=out, extra_patterns=extra_patterns)
+    files = search.files
+    early = [_failure(where, "input", message) for where, message in search.problems]
+    summary.notes.extend(search.notes)
     if not files and not early:
-        early.append(_failure(", ".join(map(str, paths)), "input",
+        early.append(_failure(", ".join(printable_name(str(p)) for p in paths), "input",
                               "no recordings found (looked for .nwb, .nix, .txt, .csv and "
                               ".tsv files; --glob adds other patterns)"))
     entries, outcomes, pending = [], [None] * len(files), []
     for k, (path, shown) in enumerate(files):
-        entry = {"path": str(path), "file": shown}
+        entry = _input_entry(path, shown)
         try:
             entry.update(size_bytes=path.stat().st_size, sha256=file_sha256(path))
         except OSError as exc:
             entry["status"] = "failed"
-            outcomes[k] = {"file": shown, "failures": [_failure(shown, "read", f"{shown}: {exc}")],
+            reason = exc.strerror or type(exc).__name__  # without the path it quotes
+            outcomes[k] = {"file": shown, "failures": [_failure(shown, "read",
+                                                                f"{shown}: {reason}")],
                            "spike_rows": [], "sweep_rows": [], "cell_rows": [], "sweeps": 0,
                            "sweeps_measured": 0, "spikes": 0, "spike_flags": {},
                            "figures": []}

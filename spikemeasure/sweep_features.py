@@ -11,10 +11,11 @@ import numpy as np
 from scipy.ndimage import uniform_filter1d
 
 from .errors import InvalidSettingError
-from .sweeps import CurrentStep
+from .sweeps import MIN_SAMPLING_RATE_HZ, CurrentStep, missing_stretches
 
 __all__ = ["SweepFeatures", "baseline", "baseline_drift", "firing", "adaptation_index",
-           "passive_response", "sweep_features", "MIN_WINDOW_MS", "DRIFT_WINDOW_MS"]
+           "passive_response", "sweep_features", "MIN_WINDOW_MS", "DRIFT_WINDOW_MS",
+           "SWEEP_FLAG_TEXT"]
 
 #: Width of the moving average under the minimum during the step (noise would pull a raw
 #: minimum down by two to three noise SDs).
@@ -25,9 +26,44 @@ MIN_WINDOW_MS = 1.0
 DRIFT_WINDOW_MS = 100.0
 
 
+#: Every flag a sweep can carry, with what it means (written to the docs). "Gap": a stretch
+#: of missing (NaN or infinite) voltage samples, or of command samples at the step's edge.
+SWEEP_FLAG_TEXT = {
+    "gap_in_baseline_window": "a gap lies in the baseline window before the step: baseline_mv, "
+                              "baseline_noise_mv, baseline_drift_mv and sag_fraction are empty",
+    "gap_in_drift_window": "a gap lies in the window at the end of the sweep: "
+                           "baseline_drift_mv is empty",
+    "gap_in_step": "a gap lies inside the current step: min_mv and sag_fraction are empty, and "
+                   "so are firing_rate_hz, mean_isi_ms, isi_cv and adaptation_index (spikes in "
+                   "the gap are not seen); first_spike_latency_ms is kept only when the first "
+                   "spike comes before the gap",
+    "gap_in_steady_state_window": "a gap lies in the last 100 ms of the step: steady_state_mv "
+                                  "and sag_fraction are empty",
+    "spike_count_lower_bound": "a gap lies where spikes are counted (the step, or the whole "
+                               "sweep without a step), or a spike beside a gap has no time: "
+                               "spike_count and clipped_spike_count are the spikes found "
+                               "outside the gap, a lower bound",
+    "gap_at_step_edge_in_command": "the command channel has a gap at the step's onset or "
+                                   "offset, so the step's edge is known only to within the "
+                                   "gap: the values whose windows touch that gap are empty, "
+                                   "as for a gap in the voltage",
+    "step_unknown_command_gap": "the command channel has a gap where the sweep's step would "
+                                "be, so its step is unknown: the sweep is measured as one "
+                                "without a step (step values empty, spikes counted over the "
+                                "whole sweep)",
+    "too_slow_for_spikes": f"sampled below {MIN_SAMPLING_RATE_HZ:g} Hz, where an action "
+                           "potential (about 1 ms) spans two samples or fewer and may fall "
+                           "between samples: spikes are neither counted nor measured, so "
+                           "spike_count, firing_rate_hz, first_spike_latency_ms, mean_isi_ms, "
+                           "isi_cv, adaptation_index and clipped_spike_count are empty and "
+                           "spikes.csv has no rows for the sweep; baseline, steady state, "
+                           "minimum, sag and drift are measured",
+}
+
+
 @dataclass(frozen=True)
 class SweepFeatures:
-    """Features of one sweep (NaN where not measurable)."""
+    """Features of one sweep (NaN where not measurable; `flags` say why)."""
 
     stimulus_pa: float
     holding_pa: float
@@ -47,9 +83,12 @@ class SweepFeatures:
     sampling_rate_hz: float
     baseline_drift_mv: float
     clipped_spike_count: int
+    flags: tuple[str, ...] = ()
 
     def as_dict(self) -> dict:
-        return asdict(self)
+        out = asdict(self)
+        out["flags"] = ";".join(self.flags)
+        return out
 
 
 def baseline(voltage_mv: np.ndarray, sampling_rate_hz: float, onset_s: float,
@@ -204,22 +243,29 @@ def passive_response(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curr
     return steady, lowest, sag
 
 
+def _touches(gaps: np.ndarray, lo: int, hi: int) -> bool:
+    """True when a gap (rows start, stop) overlaps samples lo to hi - 1."""
+    return bool(gaps.size and hi > lo and np.any((gaps[:, 0] < hi) & (gaps[:, 1] > lo)))
+
+
 def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: CurrentStep | None,
                    spike_times_s: np.ndarray, *, baseline_window_ms: float = 100.0,
                    steady_window_ms: float = 100.0, clipped_spike_count: int = 0,
-                   duration_s: float | None = None) -> SweepFeatures:
+                   duration_s: float | None = None, gaps: np.ndarray | None = None,
+                   spikes_counted: bool | None = None) -> SweepFeatures:
     """All features of one sweep.
 
     Parameters
     ----------
     voltage_mv : ndarray
-        Raw voltage in mV.
+        Raw voltage in mV; NaN or infinite where samples are missing.
     sampling_rate_hz : float
     step : CurrentStep or None
         Without a step (a gap-free recording) the step features are NaN, and the spike count,
         rate and interval statistics are those of the whole sweep (the latency is NaN).
     spike_times_s : ndarray
-        Threshold (or, where unknown, peak) time of each spike.
+        Threshold (or, where unknown, peak) time of each spike; NaN for a spike beside a gap
+        with neither.
     baseline_window_ms, steady_window_ms : float, optional
         Windows before the step (baseline) and at its end (steady state), default 100 ms.
     clipped_spike_count : int, optional
@@ -228,32 +274,101 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
     duration_s : float, optional
         The sweep's length, when `voltage_mv` is not all of it (a long recording read in
         pieces); by default its length.
+    gaps : ndarray of int, shape (k, 2), optional
+        (start, stop) samples of the missing stretches
+        (:func:`~spikemeasure.sweeps.missing_stretches`); by default those of `voltage_mv`.
+        Give them for a long recording read in pieces, and to add a gap in the command at the
+        step's edge.
+    spikes_counted : bool, optional
+        False when spikes could not be counted (a sweep sampled below
+        :data:`~spikemeasure.sweeps.MIN_SAMPLING_RATE_HZ`); by default, whether the rate
+        reaches it.
 
     Returns
     -------
     SweepFeatures
+
+    Notes
+    -----
+    A value whose window holds a missing sample is NaN, and `flags` (:data:`SWEEP_FLAG_TEXT`)
+    say which windows: the baseline window, the step (minimum, sag and the firing values), the
+    steady-state window and the drift window. A gap where spikes are counted leaves the count
+    as the spikes found outside it, a lower bound (flag ``spike_count_lower_bound``); rate and
+    interval statistics are NaN, as a gap may hide spikes and intervals, and the latency is
+    kept only when the first spike precedes every gap in the step. Without the spikes
+    (``spikes_counted`` false) every firing value and the clipped count are NaN.
     """
     if not (baseline_window_ms > 0 and steady_window_ms > 0):
         raise InvalidSettingError("`baseline_window_ms` and `steady_window_ms` must be positive")
     nan = float("nan")
     rate = float(sampling_rate_hz)
+    if not rate > 0:
+        raise InvalidSettingError("`sampling_rate_hz` must be positive")
+    voltage_mv = np.asarray(voltage_mv, dtype=float)
+    if gaps is None:
+        gaps = missing_stretches(voltage_mv)
+    gaps = np.asarray(gaps, dtype=np.int64).reshape(-1, 2)
+    if gaps.size and voltage_mv.size:
+        voltage_mv = np.where(np.isfinite(voltage_mv), voltage_mv, np.nan)
+        for a, b in gaps:
+            voltage_mv[a:b] = np.nan
+    if spikes_counted is None:
+        spikes_counted = rate >= MIN_SAMPLING_RATE_HZ
+    times = np.asarray(spike_times_s, dtype=float)
+    flags: list[str] = []
+    n_total = voltage_mv.size if duration_s is None else int(round(float(duration_s) * rate))
+
+    def fire_over(window: CurrentStep, lo: int, hi: int) -> dict:
+        fire = firing(times[np.isfinite(times)], window)
+        fire["clipped_spike_count"] = int(clipped_spike_count)
+        if not spikes_counted:
+            fire = {key: nan for key in fire}
+            flags.append("too_slow_for_spikes")
+            return fire
+        gap_inside = _touches(gaps, lo, hi)
+        if gap_inside or not np.isfinite(times).all():
+            flags.append("spike_count_lower_bound")
+            first_gap_s = (max(lo, int(gaps[(gaps[:, 0] < hi) & (gaps[:, 1] > lo)][0, 0])) / rate
+                           if gap_inside else nan)
+            for key in ("firing_rate_hz", "mean_isi_ms", "isi_cv", "adaptation_index"):
+                fire[key] = nan
+            latency = fire["first_spike_latency_ms"]
+            if not (np.isfinite(latency) and gap_inside
+                    and window.onset_s + latency * 1e-3 < first_gap_s):
+                fire["first_spike_latency_ms"] = nan
+        return fire
+
     if step is None:
         # no current step (a gap-free recording): the firing over the whole sweep
-        length_s = (voltage_mv.size / rate) if duration_s is None else float(duration_s)
-        fire = firing(spike_times_s, CurrentStep(0.0, length_s))
+        length_s = n_total / rate if duration_s is None else float(duration_s)
+        fire = fire_over(CurrentStep(0.0, length_s), 0, n_total)
         fire["first_spike_latency_ms"] = nan
         return SweepFeatures(
             stimulus_pa=nan, holding_pa=nan, stimulus_start_s=nan, stimulus_end_s=nan,
             baseline_mv=nan, baseline_noise_mv=nan, steady_state_mv=nan, min_mv=nan,
             sag_fraction=nan, sampling_rate_hz=rate, baseline_drift_mv=nan,
-            clipped_spike_count=int(clipped_spike_count), **fire)
+            flags=tuple(flags), **fire)
+    onset_i = int(round(step.onset_s * rate))
+    offset_i = min(voltage_mv.size, int(round(step.offset_s * rate)))
+    base_lo = max(0, onset_i - int(round(baseline_window_ms * 1e-3 * rate)))
+    if _touches(gaps, base_lo, onset_i):
+        flags.append("gap_in_baseline_window")
+    drift_lo = max(int(round(step.offset_s * rate)),
+                   voltage_mv.size - int(round(DRIFT_WINDOW_MS * 1e-3 * rate)))
+    if _touches(gaps, drift_lo, voltage_mv.size):
+        flags.append("gap_in_drift_window")
+    if _touches(gaps, onset_i, offset_i):
+        flags.append("gap_in_step")
+    n_tail = max(1, int(round(steady_window_ms * 1e-3 * rate)))
+    if _touches(gaps, max(onset_i, offset_i - n_tail), offset_i):
+        flags.append("gap_in_steady_state_window")
     base, noise = baseline(voltage_mv, sampling_rate_hz, step.onset_s, baseline_window_ms)
     drift = baseline_drift(voltage_mv, sampling_rate_hz, step.offset_s, base)
-    fire = firing(spike_times_s, step)
+    fire = fire_over(step, onset_i, offset_i)
     steady, lowest, sag = passive_response(voltage_mv, sampling_rate_hz, step, base,
                                            steady_window_ms)
     return SweepFeatures(
         stimulus_pa=step.size_pa, holding_pa=step.holding_pa, stimulus_start_s=step.onset_s,
         stimulus_end_s=step.offset_s, baseline_mv=base, baseline_noise_mv=noise,
         steady_state_mv=steady, min_mv=lowest, sag_fraction=sag, sampling_rate_hz=rate,
-        baseline_drift_mv=drift, clipped_spike_count=int(clipped_spike_count), **fire)
+        baseline_drift_mv=drift, flags=tuple(flags), **fire)

@@ -15,11 +15,17 @@ from scipy.ndimage import median_filter
 from .errors import InvalidSettingError, UnmeasurableDataError
 
 __all__ = ["Sweep", "LazyTrace", "CurrentStep", "find_current_step", "step_from_times", "check_sweep",
-           "parse_step_sizes", "protocol_steps",
-           "MIN_SAMPLING_RATE_HZ"]
+           "parse_step_sizes", "protocol_steps", "missing_stretches", "stretches_text",
+           "spikes_measurable", "MIN_SAMPLING_RATE_HZ", "MIN_FINITE_RUN_SAMPLES"]
 
-#: Below this an action potential (about 1 ms) spans two samples or fewer: not measurable.
+#: Below this an action potential (about 1 ms) spans two samples or fewer, and may fall
+#: between samples altogether: spikes are neither counted nor measured, while the sweep's
+#: passive values (baseline, steady state, sag) still are.
 MIN_SAMPLING_RATE_HZ = 2_000.0
+
+#: A sweep whose longest stretch of finite voltage samples is shorter than this has nothing
+#: left to measure.
+MIN_FINITE_RUN_SAMPLES = 3
 
 
 @dataclass(frozen=True)
@@ -151,40 +157,86 @@ class Sweep:
         return f"{self.file}, sweep {self.index}" + (f" ({self.label})" if shown_label else "")
 
 
+def missing_stretches(values) -> np.ndarray:
+    """Stretches of NaN or infinite samples (dropped samples, gaps) in a 1-D signal.
+
+    Parameters
+    ----------
+    values : array_like
+        1-D signal.
+
+    Returns
+    -------
+    ndarray of int, shape (k, 2)
+        One row (start, stop) per stretch of consecutive non-finite samples: samples start to
+        stop - 1, in order; zero rows when every sample is finite.
+    """
+    x = np.asarray(values)
+    if x.ndim != 1:
+        raise InvalidSettingError("`values` must be a 1-D array")
+    bad = ~np.isfinite(x)
+    if not bad.any():
+        return np.zeros((0, 2), dtype=np.int64)
+    edges = np.diff(np.concatenate([[False], bad, [False]]).astype(np.int8))
+    return np.stack([np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)], axis=1
+                    ).astype(np.int64)
+
+
+def stretches_text(stretches, sampling_rate_hz: float, limit: int = 3) -> str:
+    """'0.0500-0.0550 s, 0.2000 s' for messages: the first `limit` stretches (start to last
+    sample), then how many more."""
+    rate = float(sampling_rate_hz)
+    rows = np.asarray(stretches, dtype=np.int64).reshape(-1, 2)
+    parts = []
+    for start, stop in rows[:limit]:
+        first, last = start / rate, (stop - 1) / rate
+        parts.append(f"{first:.4f} s" if stop - start == 1 else f"{first:.4f}-{last:.4f} s")
+    if rows.shape[0] > limit:
+        parts.append(f"and {rows.shape[0] - limit} more")
+    return ", ".join(parts)
+
+
+def spikes_measurable(sampling_rate_hz: float) -> bool:
+    """True when a sweep sampled at this rate resolves action potentials
+    (:data:`MIN_SAMPLING_RATE_HZ`)."""
+    return float(sampling_rate_hz) >= MIN_SAMPLING_RATE_HZ
+
+
 def check_sweep(sweep: Sweep) -> None:
     """Raise :class:`UnmeasurableDataError` if a sweep cannot be measured at all.
 
-    Catches a sampling rate that is not finite or is below :data:`MIN_SAMPLING_RATE_HZ`, NaN
-    or infinite samples
-    (reporting the stretch), traces too short to hold a spike, and a command channel whose
-    length differs from the voltage.
+    Catches a sampling rate that is not a positive number, traces too short to hold a
+    measurement, a command channel whose length differs from the voltage, and a voltage with
+    no stretch of at least :data:`MIN_FINITE_RUN_SAMPLES` finite samples (naming the missing
+    stretches). A sweep with NaN or infinite stretches otherwise is measured around them, and
+    one sampled below :data:`MIN_SAMPLING_RATE_HZ` has its passive values measured but not its
+    spikes (see :func:`spikemeasure.tables.measure_sweep`).
     """
     v = sweep.voltage_mv
-    if not np.isfinite(sweep.sampling_rate_hz):
+    rate = sweep.sampling_rate_hz
+    if not (np.isfinite(rate) and rate > 0):
         raise UnmeasurableDataError(
-            f"{sweep.where()}: sampled at {sweep.sampling_rate_hz:g} Hz; the sampling rate must "
-            "be a finite number")
-    if not sweep.sampling_rate_hz >= MIN_SAMPLING_RATE_HZ:
-        raise UnmeasurableDataError(
-            f"{sweep.where()}: sampled at {sweep.sampling_rate_hz:g} Hz, too slow to resolve "
-            f"action potentials (at least {MIN_SAMPLING_RATE_HZ:g} Hz; 10 kHz or more is usual)")
+            f"{sweep.where()}: the sampling rate is {rate:g} Hz; it must be a positive number")
     if v.ndim != 1 or v.size < 3:
         raise UnmeasurableDataError(
             f"{sweep.where()}: only {v.size} voltage samples; a sweep needs at least 3")
-    if isinstance(v, LazyTrace):
-        return  # checked piece by piece while it is measured
-    bad = ~np.isfinite(v)
-    if bad.any():
-        idx = np.flatnonzero(bad)
-        rate = sweep.sampling_rate_hz
-        raise UnmeasurableDataError(
-            f"{sweep.where()}: {idx.size} voltage samples are NaN or infinite "
-            f"(first at {idx[0] / rate:.4f} s, last at {idx[-1] / rate:.4f} s); "
-            "the sweep was not measured. Remove or re-export the gap")
     if sweep.command_pa is not None and sweep.command_pa.shape != v.shape:
         raise UnmeasurableDataError(
             f"{sweep.where()}: the command has {sweep.command_pa.size} samples but the voltage "
             f"has {v.size}")
+    if isinstance(v, LazyTrace):
+        return  # its gaps are found piece by piece while it is measured
+    gaps = missing_stretches(v)
+    if gaps.shape[0]:
+        edges = np.concatenate([[0], gaps.ravel(), [v.size]])
+        longest = int(np.max(edges[1::2] - edges[0::2]))
+        if longest < MIN_FINITE_RUN_SAMPLES:
+            missing = int(np.sum(gaps[:, 1] - gaps[:, 0]))
+            raise UnmeasurableDataError(
+                f"{sweep.where()}: {missing} of {v.size} voltage samples are NaN or infinite "
+                f"({stretches_text(gaps, rate)}), leaving no stretch of "
+                f"{MIN_FINITE_RUN_SAMPLES} finite samples in a row: nothing is left to "
+                "measure. Re-export the sweep or leave it out")
 
 
 def find_current_step(command_pa: np.ndarray, sampling_rate_hz: float, *,
@@ -223,6 +275,24 @@ def find_current_step(command_pa: np.ndarray, sampling_rate_hz: float, *,
     if not (np.isfinite(sampling_rate_hz) and sampling_rate_hz > 0):
         raise InvalidSettingError(
             f"`sampling_rate_hz` must be a positive, finite number (got {sampling_rate_hz})")
+    finite = np.isfinite(cmd)
+    if not finite.all():
+        # a command with missing samples: find the step on the samples that are there, and
+        # place it back at their positions
+        cmd = np.where(finite, cmd, np.nan)
+        kept = np.flatnonzero(finite)
+        if kept.size < 3:
+            return None
+        found = find_current_step(cmd[kept], sampling_rate_hz, min_step_pa=min_step_pa)
+        if found is None:
+            return None
+        first = int(kept[int(round(found.onset_s * sampling_rate_hz))])
+        last = int(kept[int(round(found.offset_s * sampling_rate_hz)) - 1])
+        before, during = cmd[:first], cmd[first:last + 1]
+        holding = float(np.nanmean(before)) if np.isfinite(before).any() else found.holding_pa
+        return CurrentStep(onset_s=first / sampling_rate_hz,
+                           offset_s=(last + 1) / sampling_rate_hz,
+                           size_pa=float(np.nanmean(during)) - holding, holding_pa=holding)
     filtered = median_filter(cmd, size=5, mode="nearest") if cmd.size >= 5 else cmd
     n_head = max(3, int(round(1e-3 * sampling_rate_hz)))
     holding = float(np.median(filtered[:n_head]))
@@ -306,6 +376,11 @@ def protocol_steps(sweeps: list[Sweep], step_times: tuple[float, float] | None =
         if known:
             onset = float(np.median([s.onset_s for s in known]))
             offset = float(np.median([s.offset_s for s in known]))
+            rate = sweep.sampling_rate_hz
+            window = sweep.command_pa[max(0, int(round(onset * rate)) - 1):
+                                      int(round(offset * rate)) + 1]
+            if not np.isfinite(window).all():
+                continue  # a gap in the command may hide this sweep's step: not 0 pA
             steps[k] = CurrentStep(onset, min(offset, sweep.duration_s), 0.0,
                                    float(np.mean(sweep.command_pa)))
         elif step_times is not None:

@@ -11,11 +11,13 @@ import numpy as np
 from .cell_features import CellFeatures, cell_features
 from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, Column
 from .detection import DetectionSettings, detect_spikes, smoothed_trace
-from .errors import SpikemeasureError
-from .measurement import SpikeMeasurements, measure_in_pieces, measure_spikes
+from .errors import SpikemeasureError, UnmeasurableDataError
+from .measurement import (PIECE_SAMPLES, SpikeMeasurements, measure_around_gaps,
+                          measure_in_pieces_with_gaps, measure_spikes)
 from .reading import Recording
 from .sweep_features import SweepFeatures, sweep_features
-from .sweeps import CurrentStep, Sweep, check_sweep, protocol_steps
+from .sweeps import (CurrentStep, Sweep, check_sweep, missing_stretches, protocol_steps,
+                     spikes_measurable, stretches_text)
 
 __all__ = ["SweepResult", "measure_sweep", "measure_recording", "cell_summary", "spike_table",
            "sweep_table", "cell_table", "format_value", "format_rows", "count_spikes",
@@ -31,6 +33,30 @@ class SweepResult:
     spikes: SpikeMeasurements | None
     features: SweepFeatures | None = None
     error: str | None = None
+
+
+def _no_spikes() -> SpikeMeasurements:
+    empty = np.zeros(0)
+    return SpikeMeasurements(*([empty] * 13), flags=())
+
+
+def _command_edge_gaps(sweep: Sweep, step: CurrentStep | None) -> np.ndarray:
+    """Gaps of the command channel that touch the step's onset or offset: the step's edge
+    lies somewhere in them."""
+    if step is None or sweep.command_pa is None:
+        return np.zeros((0, 2), dtype=np.int64)
+    gaps = missing_stretches(np.asarray(sweep.command_pa, dtype=float))
+    rate = sweep.sampling_rate_hz
+    edges = (int(round(step.onset_s * rate)), int(round(step.offset_s * rate)))
+    near = [any(a - 1 <= e <= b for e in edges) for a, b in gaps]
+    return gaps[np.asarray(near, dtype=bool)] if gaps.size else gaps
+
+
+def _nothing_measured(spikes: SpikeMeasurements, features: SweepFeatures) -> bool:
+    values = (features.baseline_mv, features.baseline_noise_mv, features.steady_state_mv,
+              features.min_mv, features.baseline_drift_mv, features.firing_rate_hz,
+              features.first_spike_latency_ms)
+    return len(spikes) == 0 and not np.isfinite(values).any()
 
 
 def _spike_times(spikes: SpikeMeasurements) -> np.ndarray:
@@ -51,20 +77,63 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
     A long gap-free sweep kept in its file (:attr:`Sweep.is_lazy`) is measured in pieces
     (:func:`~spikemeasure.measurement.measure_in_pieces`), with the same spikes as whole; one
     given a step (``--step``) is read whole, as its step features need all of it.
+
+    Missing (NaN or infinite) voltage samples cost only the values whose windows reach them
+    (:func:`~spikemeasure.measurement.measure_around_gaps`,
+    :func:`~spikemeasure.sweep_features.sweep_features`); a gap in the command channel at the
+    step's edge counts as a gap there. A sweep sampled below
+    :data:`~spikemeasure.sweeps.MIN_SAMPLING_RATE_HZ` has no spikes measured and its passive
+    values kept (flag ``too_slow_for_spikes``). A sweep missing more than half its samples,
+    with no spike and no value left, is an error naming the gaps; with less missing, "no spike
+    in what is there" is reported (a count of 0, flagged as a lower bound).
     """
+    rate = sweep.sampling_rate_hz
     try:
         if sweep.is_lazy and step is not None:
             sweep = replace(sweep, voltage_mv=np.asarray(sweep.voltage_mv))
         check_sweep(sweep)
+        counted = spikes_measurable(rate)
         if sweep.is_lazy:
-            spikes = measure_in_pieces(sweep.voltage_mv, sweep.sampling_rate_hz, settings)
-            features = sweep_features(np.zeros(0), sweep.sampling_rate_hz, None,
+            if counted:
+                spikes, gaps = measure_in_pieces_with_gaps(sweep.voltage_mv, rate, settings)
+            else:
+                spikes, gaps = _no_spikes(), _lazy_gaps(sweep)
+            features = sweep_features(np.zeros(0), rate, None,
                                       _spike_times(spikes), clipped_spike_count=_clipped(spikes),
-                                      duration_s=sweep.duration_s)
-            return SweepResult(sweep, step, spikes, features)
-        voltage = np.asarray(sweep.voltage_mv)
-        trace = smoothed_trace(voltage, sweep.sampling_rate_hz, settings.smoothing_ms,
-                               second_derivative=settings.needs_second_derivative)
+                                      duration_s=sweep.duration_s, gaps=gaps,
+                                      spikes_counted=counted)
+        else:
+            voltage = np.asarray(sweep.voltage_mv, dtype=float)
+            gaps = missing_stretches(voltage)
+            if gaps.size:
+                voltage = np.where(np.isfinite(voltage), voltage, np.nan)
+            if not counted:
+                spikes = _no_spikes()
+            elif gaps.size:
+                spikes = measure_around_gaps(voltage, rate, settings, step)
+            else:
+                trace = smoothed_trace(voltage, rate, settings.smoothing_ms,
+                                       second_derivative=settings.needs_second_derivative)
+                spikes = measure_spikes(trace, detect_spikes(trace, settings), settings, step)
+            edge_gaps = _command_edge_gaps(sweep, step)
+            all_gaps = np.concatenate([gaps, edge_gaps]) if edge_gaps.size else gaps
+            features = sweep_features(voltage, rate, step, _spike_times(spikes),
+                                      clipped_spike_count=_clipped(spikes), gaps=all_gaps,
+                                      spikes_counted=counted)
+            if edge_gaps.size:
+                features = replace(features,
+                                   flags=features.flags + ("gap_at_step_edge_in_command",))
+            if (step is None and sweep.command_pa is not None
+                    and not np.isfinite(sweep.command_pa).all()):
+                features = replace(features,
+                                   flags=features.flags + ("step_unknown_command_gap",))
+        missing = int(np.sum(gaps[:, 1] - gaps[:, 0])) if gaps.size else 0
+        if 2 * missing > sweep.n_samples and _nothing_measured(spikes, features):
+            raise UnmeasurableDataError(
+                f"{sweep.where()}: {missing} of {sweep.n_samples} voltage samples are NaN or "
+                f"infinite ({stretches_text(gaps, rate)}); every window a value is measured "
+                "over reaches them, so nothing is left to measure. Re-export the sweep or "
+                "leave it out")
     except SpikemeasureError as exc:
         msg = str(exc)
         if msg.startswith(f"{sweep.file}: "):  # named the file but not the sweep
@@ -72,10 +141,21 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
         if not msg.startswith(sweep.file):
             msg = f"{sweep.where()}: {msg}"
         return SweepResult(sweep, None, None, None, msg)
-    spikes = measure_spikes(trace, detect_spikes(trace, settings), settings, step)
-    features = sweep_features(voltage, sweep.sampling_rate_hz, step, _spike_times(spikes),
-                              clipped_spike_count=_clipped(spikes))
     return SweepResult(sweep, step, spikes, features)
+
+
+def _lazy_gaps(sweep: Sweep) -> np.ndarray:
+    """Missing stretches of a long sweep kept in its file, read piece by piece."""
+    found = []
+    n = sweep.n_samples
+    for start in range(0, n, PIECE_SAMPLES):
+        part = sweep.voltage_mv[start:min(n, start + PIECE_SAMPLES)]
+        for a, b in missing_stretches(part):
+            if found and found[-1][1] == start + a:
+                found[-1][1] = start + b
+            else:
+                found.append([start + int(a), start + int(b)])
+    return np.array(found, dtype=np.int64).reshape(-1, 2)
 
 
 def measure_recording(recording: Recording, settings: DetectionSettings = DetectionSettings(),
@@ -156,7 +236,9 @@ def format_value(column: Column, value) -> str:
 
 def _format_column(column: Column, values: list) -> list[str]:
     if column.decimals is None:
-        return ["" if v is None else str(v) for v in values]
+        # a whole number that could not be measured (a count) is NaN: empty, like the others
+        return ["" if v is None or (isinstance(v, float) and v != v) else str(v)
+                for v in values]
     spec = f".{column.decimals}f"
     zero = format(0.0, spec)
     out = []

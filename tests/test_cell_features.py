@@ -19,9 +19,10 @@ RATE = 20_000.0
 R_MOHM, TAU_MS, REST = 200.0, 20.0, -70.0
 
 
-def rc_recording(noise_mv=0.0, steps_pa=(-100.0, -75.0, -50.0, -25.0), seed=0):
+def rc_recording(noise_mv=0.0, steps_pa=(-100.0, -75.0, -50.0, -25.0), seed=0, rate=RATE):
     """A passive RC membrane: V(t) = rest + R I (1 - exp(-t / RC)) during the step, relaxing
     back after it (analytic; R in MOhm times I in pA is 1e-3 mV)."""
+    RATE = rate
     rng = np.random.default_rng(seed)
     n = int(0.8 * RATE)
     t = np.arange(n) / RATE
@@ -189,3 +190,149 @@ def test_rheobase_resolution():
     assert rheobase(np.array([-50.0, 0.0, 50.0, 100.0]), np.array([0, 0, 0, 3]))[:2] == (100.0, 50.0)
     value, resolution, k = rheobase(np.array([10.0, 20.0]), np.array([1, 4]))
     assert value == 10.0 and np.isnan(resolution) and k == 0
+
+
+class TestCellsWithGapsAndSlowSweeps:
+    """Sources: the analytic RC membrane (R = 200 MOhm, tau = 20 ms, closed form) and the
+    Hodgkin-Huxley (1952) step series, measured with missing samples or sampled at 1 kHz."""
+
+    def test_passive_membrane_sampled_at_1_khz(self):
+        rec = rc_recording(rate=1000.0)
+        results = measure_recording(rec)
+        assert all(r.error is None for r in results)
+        for r in results:
+            assert r.features.flags == ("too_slow_for_spikes",)
+            assert np.isnan(r.features.spike_count) and len(r.spikes) == 0
+        cell = cell_summary(results)
+        assert cell.input_resistance_mohm == pytest.approx(R_MOHM, rel=0.01)
+        assert cell.membrane_tau_ms == pytest.approx(TAU_MS, rel=0.03)
+        assert cell.resting_mv == pytest.approx(REST, abs=0.05)
+        assert np.isnan(cell.rheobase_pa) and np.isnan(cell.fi_slope_hz_per_pa)
+        assert np.isnan(cell.max_firing_rate_hz)
+        assert "spikes_not_counted_in_slow_sweeps" in cell.flags
+        assert "slow_sweeps_taken_as_spike_free" in cell.flags
+        assert "no_spiking_step" not in cell.flags  # not known: the spikes were not counted
+        rows = format_rows(sweep_table(results), SWEEP_COLUMNS)
+        names = [c.name for c in SWEEP_COLUMNS]
+        assert names[-1] == "flags"
+        assert rows[0][names.index("spike_count")] == ""
+        assert rows[0][names.index("flags")] == "too_slow_for_spikes"
+        assert rows[0][names.index("steady_state_mv")] != ""
+
+    def test_gap_in_the_smallest_step_leaves_it_out(self):
+        rec = rc_recording()
+        v = rec.sweeps[3].voltage_mv.copy()
+        v[int(0.2 * RATE):int(0.21 * RATE)] = np.nan     # inside the -25 pA step
+        rec.sweeps[3] = Sweep(v, RATE, rec.sweeps[3].command_pa, file="rc.nwb", index=3)
+        results = measure_recording(rec)
+        assert set(results[3].features.flags) == {"gap_in_step", "spike_count_lower_bound"}
+        cell = cell_summary(results)
+        assert cell.input_resistance_mohm == pytest.approx(R_MOHM, rel=0.01)
+        assert cell.membrane_tau_ms == pytest.approx(TAU_MS, rel=0.02)  # fitted on -50 pA
+        assert "input_resistance_skips_gap_sweeps" in cell.flags
+        assert "membrane_tau_skips_gap_sweeps" in cell.flags
+        clean = cell_summary(measure_recording(rc_recording()))
+        assert clean.sag_fraction == cell.sag_fraction and not (
+            set(clean.flags) - {"no_spiking_step"})
+
+    def test_gap_in_the_baseline_of_the_deepest_step(self):
+        rec = rc_recording()
+        v = rec.sweeps[0].voltage_mv.copy()
+        v[int(0.05 * RATE)] = np.inf                     # one sample, baseline window
+        rec.sweeps[0] = Sweep(v, RATE, rec.sweeps[0].command_pa, file="rc.nwb", index=0)
+        results = measure_recording(rec)
+        assert results[0].features.flags == ("gap_in_baseline_window",)
+        cell = cell_summary(results)
+        assert cell.input_resistance_mohm == pytest.approx(R_MOHM, rel=0.01)
+        assert cell.sag_fraction == pytest.approx(0.0, abs=0.02)
+        assert {"input_resistance_skips_gap_sweeps", "sag_skips_gap_sweeps",
+                "resting_skips_gap_sweeps"} <= set(cell.flags)
+
+    def test_nan_almost_everywhere_is_refused_by_name(self):
+        rec = rc_recording()
+        v = np.full(rec.sweeps[1].n_samples, np.nan)
+        v[int(0.3 * RATE):int(0.3 * RATE) + 50] = -80.0  # 50 samples inside the step
+        rec.sweeps[1] = Sweep(v, RATE, rec.sweeps[1].command_pa, file="rc.nwb", index=1)
+        results = measure_recording(rec)
+        assert results[1].features is None
+        assert results[1].error.startswith("rc.nwb, sweep 1: 15950 of 16000 voltage samples")
+        assert "0.0000-0.2999 s, 0.3025-0.8000 s" in results[1].error
+        assert "nothing is left to measure" in results[1].error
+        cell = cell_summary(results)
+        assert cell.sweeps == 3 and cell.input_resistance_mohm == pytest.approx(R_MOHM, rel=0.01)
+
+    def test_a_quiet_gap_free_recording_with_a_short_gap_is_measured(self):
+        """No step, no spikes, 10 ms missing of 0.8 s: 'no spike seen' is a measurement (a
+        lower bound of 0), not a refusal."""
+        v = np.full(int(0.8 * RATE), -70.0)
+        v[int(0.4 * RATE):int(0.41 * RATE)] = np.nan
+        result, = measure_recording(Recording("quiet", "t", [Sweep(v, RATE, file="quiet")]))
+        assert result.error is None
+        assert result.features.spike_count == 0
+        assert result.features.flags == ("spike_count_lower_bound",)
+
+    def test_a_command_missing_over_the_step_is_flagged(self):
+        rec = rc_recording()
+        cmd = rec.sweeps[1].command_pa.copy()
+        cmd[int(0.05 * RATE):int(0.7 * RATE)] = np.nan       # all of the step and more
+        rec.sweeps[1] = Sweep(rec.sweeps[1].voltage_mv, RATE, cmd, file="rc.nwb", index=1)
+        result = measure_recording(rec)[1]
+        assert result.step is None and np.isnan(result.features.stimulus_pa)
+        assert result.features.flags == ("step_unknown_command_gap",)
+
+    def test_gap_in_the_command_at_the_step_onset(self):
+        rec = rc_recording()
+        cmd = rec.sweeps[2].command_pa.copy()
+        cmd[int(0.1 * RATE) - 5:int(0.1 * RATE) + 5] = np.nan
+        rec.sweeps[2] = Sweep(rec.sweeps[2].voltage_mv, RATE, cmd, file="rc.nwb", index=2)
+        results = measure_recording(rec)
+        f = results[2].features
+        assert "gap_at_step_edge_in_command" in f.flags and "gap_in_baseline_window" in f.flags
+        assert f.stimulus_pa == pytest.approx(-50.0)
+        assert np.isnan(f.baseline_mv)
+        assert cell_summary(results).input_resistance_mohm == pytest.approx(R_MOHM, rel=0.01)
+
+
+class TestRheobaseWithGaps:
+    """Source: Hodgkin & Huxley 1952, as in TestHodgkinHuxleySteps: the steps from 0 to 120 pA
+    in 10 pA; a gap in the step below rheobase leaves open whether that step fired."""
+
+    @pytest.fixture(scope="class")
+    def series(self):
+        steps = np.arange(0.0, 121.0, 10.0)
+        sim = simulate_current_steps("hodgkin_huxley_1952", steps, sampling_rate_hz=RATE,
+                                     duration_s=0.5, step_start_s=0.1, step_end_s=0.4)
+        return [Sweep(v, RATE, c, file="hh", index=k)
+                for k, (v, c) in enumerate(zip(sim.voltage_mv, sim.command_pa))]
+
+    def test_gap_below_rheobase(self, series):
+        clean = cell_summary(measure_recording(Recording("hh", "sim", series)))
+        k = int(round(clean.rheobase_pa / 10.0)) - 1      # the silent step below rheobase
+        sweeps = list(series)
+        v = sweeps[k].voltage_mv.copy()
+        v[int(0.2 * RATE):int(0.25 * RATE)] = np.nan
+        sweeps[k] = Sweep(v, RATE, sweeps[k].command_pa, file="hh", index=k)
+        cell = cell_summary(measure_recording(Recording("hh", "sim", sweeps)))
+        assert cell.rheobase_pa == clean.rheobase_pa
+        assert cell.rheobase_resolution_pa == pytest.approx(20.0)  # clean: 10
+        assert clean.rheobase_resolution_pa == pytest.approx(10.0)
+        assert "rheobase_skips_gap_sweeps" in cell.flags
+
+    def test_gap_after_the_first_spike_of_a_firing_step(self, series):
+        clean_results = measure_recording(Recording("hh", "sim", series))
+        clean = cell_summary(clean_results)
+        k = len(series) - 1
+        sweeps = list(series)
+        v = sweeps[k].voltage_mv.copy()
+        v[int(0.3 * RATE):int(0.31 * RATE)] = np.nan
+        sweeps[k] = Sweep(v, RATE, sweeps[k].command_pa, file="hh", index=k)
+        results = measure_recording(Recording("hh", "sim", sweeps))
+        assert np.isnan(results[k].features.firing_rate_hz)
+        assert results[k].features.first_spike_latency_ms == \
+            clean_results[k].features.first_spike_latency_ms
+        cell = cell_summary(results)
+        assert cell.rheobase_pa == clean.rheobase_pa
+        assert cell.rheobase_resolution_pa == clean.rheobase_resolution_pa
+        assert "fi_slope_skips_gap_sweeps" in cell.flags
+        assert "max_firing_rate_skips_gap_sweeps" in cell.flags
+        assert np.isfinite(cell.fi_slope_hz_per_pa)

@@ -213,12 +213,34 @@ def read_rows(path: Path) -> list[dict]:
         return list(csv.DictReader(fh))
 
 
+def keep_files(run_dir: Path, cells: list[dict]) -> None:
+    """Keep only the files of `cells` in a run's tables and its run.json, as a run of those
+    files alone would have written them."""
+    files = {r["file"] for r in cells}
+    for name in ("spikes.csv", "sweeps.csv", "cells.csv"):
+        rows = read_rows(run_dir / name)
+        write_rows(run_dir / name, [r for r in rows if r["file"] in files])
+    record = json.loads((run_dir / "run.json").read_text())
+    record["inputs"] = [i for i in record["inputs"] if i["file"] in files]
+    (run_dir / "run.json").write_text(json.dumps(record))
+
+
+def recount(run_dir: Path) -> None:
+    """Set run.json's sweep and spike counts of each file to those of the edited tables, as
+    the run that found them would have written them."""
+    record = json.loads((run_dir / "run.json").read_text())
+    for entry in record["inputs"]:
+        for key, name in (("sweeps_measured", "sweeps.csv"), ("spikes", "spikes.csv")):
+            entry[key] = sum(r["file"] == entry["file"] for r in read_rows(run_dir / name))
+    (run_dir / "run.json").write_text(json.dumps(record))
+
+
 @pytest.fixture
 def accepted(lab, tmp_path):
     """The sample run accepted into tmp_path/accepted, and a copy of the run to edit."""
     from spikemeasure.checks import accept_results
 
-    accept_results(lab / "sample_results", tmp_path / "accepted")
+    accept_results(lab / "sample_results", tmp_path / "accepted", project_dir=tmp_path)
     run_copy = tmp_path / "run"
     shutil.copytree(lab / "sample_results", run_copy)
     return tmp_path / "accepted", run_copy
@@ -258,12 +280,8 @@ class TestRegression:
 
     def test_removed_file_fails(self, accepted):
         accepted_dir, run_dir = accepted
-        for name in ("spikes.csv", "sweeps.csv", "cells.csv"):
-            rows = read_rows(run_dir / name)
-            write_rows(run_dir / name, [r for r in rows if r["file"] != "region_b_cell_2.nix"])
-        record = json.loads((run_dir / "run.json").read_text())
-        record["inputs"] = [i for i in record["inputs"] if i["file"] != "region_b_cell_2.nix"]
-        (run_dir / "run.json").write_text(json.dumps(record))
+        keep_files(run_dir, [r for r in read_rows(run_dir / "cells.csv")
+                             if r["file"] != "region_b_cell_2.nix"])
         report = regression(run_dir, accepted_dir)
         assert failing(report) == {"region_b_cell_2.nix": {"regression"}}
         finding, = report.findings
@@ -286,10 +304,71 @@ class TestRegression:
         lost = rows[3]
         del rows[3]
         write_rows(run_dir / "spikes.csv", rows)
+        recount(run_dir)
         report = regression(run_dir, accepted_dir)
         finding, = report.findings
         assert finding.file == lost["file"] and finding.sweep == int(lost["sweep"])
         assert "1 spike lost" in finding.message
+
+    @pytest.mark.parametrize("name", ["spikes.csv", "sweeps.csv", "cells.csv"])
+    def test_a_duplicated_accepted_row_is_named_as_such(self, accepted, name):
+        """A row present twice in the accepted table: one finding naming the table, the key
+        and the lines; not `1 spike lost`, and not passed over."""
+        accepted_dir, run_dir = accepted
+        rows = read_rows(accepted_dir / name)
+        k = 3
+        write_rows(accepted_dir / name, rows[:k + 1] + [rows[k]] + rows[k + 1:])
+        report = regression(run_dir, accepted_dir)
+        finding, = report.findings
+        row = rows[k]
+        assert finding.file == row["file"]
+        assert finding.sweep == (int(row["sweep"]) if "sweep" in row else None)
+        assert finding.spike == (int(row["spike"]) if "spike" in row else None)
+        assert finding.message.startswith(f"{name}: ")
+        assert f"is in the accepted results 2 times (the same row, lines {k + 2}, {k + 3})" \
+            in finding.message
+        assert "lost" not in finding.message
+
+    def test_rows_sharing_a_key_name_the_columns_that_differ(self, accepted):
+        accepted_dir, run_dir = accepted
+        rows = read_rows(accepted_dir / "spikes.csv")
+        other = dict(rows[0], peak_mv=f"{float(rows[0]['peak_mv']) + 1.0:.3f}")
+        write_rows(accepted_dir / "spikes.csv", [rows[0], other] + rows[1:])
+        finding, = regression(run_dir, accepted_dir).findings
+        assert f"sweep {rows[0]['sweep']}, spike {rows[0]['spike']} is in the accepted " \
+            f"results 2 times (rows with the same key that differ in peak_mv" in finding.message
+
+    def test_a_duplicated_row_in_the_run_is_named_as_such(self, accepted):
+        """Found by the comparison itself, for tables read without their run record."""
+        from spikemeasure.checks import regression_cases
+
+        accepted_dir, run_dir = accepted
+        rows = read_rows(run_dir / "sweeps.csv")
+        write_rows(run_dir / "sweeps.csv", rows + rows[-1:])
+        cases, _ = regression_cases(read_tables(run_dir), read_tables(accepted_dir,
+                                                                      "accepted results"),
+                                    CheckSettings(accepted_dir=accepted_dir))
+        finding, = [f for c in cases for f in c.findings]
+        assert finding.file == rows[-1]["file"] and finding.sweep == int(rows[-1]["sweep"])
+        assert f"sweeps.csv: sweep {rows[-1]['sweep']} is in this run 2 times (the same row, " \
+            f"lines {len(rows) + 1}, {len(rows) + 2})" in finding.message
+
+    def test_a_cell_row_in_one_side_only_fails(self, accepted):
+        accepted_dir, run_dir = accepted
+        rows = read_rows(accepted_dir / "cells.csv")
+        write_rows(accepted_dir / "cells.csv", rows[1:])
+        finding, = regression(run_dir, accepted_dir).findings
+        assert finding.file == rows[0]["file"]
+        assert "cells.csv: the file's row is not in the accepted results" in finding.message
+
+    def test_a_column_this_version_does_not_write_gets_a_note(self, accepted):
+        accepted_dir, run_dir = accepted
+        rows = read_rows(accepted_dir / "cells.csv")
+        write_rows(accepted_dir / "cells.csv", [dict(r, reviewer_note="ok") for r in rows])
+        report = regression(run_dir, accepted_dir)
+        assert report.passed
+        assert any("cells.csv: column(s) reviewer_note in accepted results are not columns "
+                   "this version writes" in n for n in report.notes), report.notes
 
     def edit(self, run_dir, name, column, change, row=0):
         rows = read_rows(run_dir / name)
@@ -360,9 +439,8 @@ class TestRegression:
 
         accepted_dir, run_dir = accepted
         (accepted_dir / "README.md").write_text("reviewed results\n")
-        rows = read_rows(run_dir / "cells.csv")
-        write_rows(run_dir / "cells.csv", rows[:1])
-        accept_results(run_dir, accepted_dir)
+        keep_files(run_dir, read_rows(run_dir / "cells.csv")[:1])
+        accept_results(run_dir, accepted_dir, project_dir=accepted_dir.parent)
         assert len(read_rows(accepted_dir / "cells.csv")) == 1
         assert (accepted_dir / "README.md").read_text() == "reviewed results\n"
         assert sorted(p.name for p in accepted_dir.parent.iterdir()
@@ -616,19 +694,84 @@ class TestEdgeCases:
             write_rows(run_dir / "sweeps.csv", rows)
             assert regression(run_dir, accepted_dir, tolerances=one).passed is passes
 
-    def test_an_interrupted_run_fails_measured_and_cannot_be_accepted(self, accepted):
+    @pytest.mark.parametrize("change", [
+        {"interrupted": True},                               # a record without status
+        {"status": "interrupted", "interrupted": True},
+        {"status": "running", "interrupted": False},         # still going, or killed
+        {"status": "something else", "interrupted": False},
+    ])
+    def test_an_unfinished_run_is_refused_by_check_and_accept(self, accepted, change,
+                                                              monkeypatch):
+        from spikemeasure.checks import accept_results
+
+        accepted_dir, run_dir = accepted
+        before = {p.name: p.read_bytes() for p in accepted_dir.iterdir()}
+        record = json.loads((run_dir / "run.json").read_text())
+        record.update(change)
+        (run_dir / "run.json").write_text(json.dumps(record))
+        for settings in (CheckSettings(compare=False), CheckSettings(accepted_dir=accepted_dir)):
+            with pytest.raises(CheckInputError, match=r"run\.json: the run .*measure command"):
+                check_run(run_dir, settings)
+        with pytest.raises(CheckInputError, match=r"run\.json: the run .*measure command"):
+            accept_results(run_dir, accepted_dir, project_dir=accepted_dir.parent)
+        monkeypatch.chdir(accepted_dir.parent)
+        for command in ("check", "accept"):
+            r = run([command, str(run_dir)])
+            assert r.exit_code == 2, r.output
+            assert "run.json" in r.output and "measure command again" in r.output
+            assert "Traceback" not in r.output
+        assert {p.name: p.read_bytes() for p in accepted_dir.iterdir()} == before
+        record.update(status="complete", interrupted=False)   # the same run, finished
+        (run_dir / "run.json").write_text(json.dumps(record))
+        assert regression(run_dir, accepted_dir).passed
+        assert run(["accept", str(run_dir)]).exit_code == 0
+
+    @pytest.mark.parametrize("edit", ["rows_of_a_file_missing", "file_not_listed",
+                                      "sweep_missing", "spike_missing", "cell_row_twice"])
+    def test_tables_that_disagree_with_the_run_record_are_refused(self, accepted, edit,
+                                                                  monkeypatch):
+        """A check must never pass a run whose tables hold fewer (or other) files than its
+        run.json lists as measured: the counts of run.json, written by the same run."""
         from spikemeasure.checks import accept_results
 
         accepted_dir, run_dir = accepted
         record = json.loads((run_dir / "run.json").read_text())
-        record["interrupted"] = True
-        record["inputs"][0]["status"] = "not measured (run interrupted)"
-        (run_dir / "run.json").write_text(json.dumps(record))
-        report = check_run(run_dir, CheckSettings(compare=False))
-        finding, = report.findings
-        assert finding.check == "measured" and "run interrupted" in finding.message
-        with pytest.raises(CheckInputError, match="interrupted"):
-            accept_results(run_dir, accepted_dir)
+        first = record["inputs"][0]["file"]
+        if edit == "rows_of_a_file_missing":
+            for name in ("spikes.csv", "sweeps.csv", "cells.csv"):
+                write_rows(run_dir / name, [r for r in read_rows(run_dir / name)
+                                            if r["file"] != first])
+            expected = f"run.json lists 1 file as measured that the tables do not hold \\({first}"
+        elif edit == "file_not_listed":
+            record["inputs"] = record["inputs"][1:]
+            (run_dir / "run.json").write_text(json.dumps(record))
+            expected = f"the tables hold 1 file that run.json does not list \\({first}"
+        elif edit == "sweep_missing":
+            rows = read_rows(run_dir / "sweeps.csv")
+            write_rows(run_dir / "sweeps.csv", rows[1:])
+            expected = f"{rows[0]['file']}: run.json counts .* sweeps, sweeps.csv holds"
+        elif edit == "spike_missing":
+            rows = read_rows(run_dir / "spikes.csv")
+            write_rows(run_dir / "spikes.csv", rows[:-1])
+            expected = f"{rows[-1]['file']}: run.json counts .* spikes, spikes.csv holds"
+        else:
+            rows = read_rows(run_dir / "cells.csv")
+            write_rows(run_dir / "cells.csv", rows + rows[:1])
+            expected = f"{rows[0]['file']}: cells.csv holds 2 rows of it"
+        with pytest.raises(CheckInputError, match="the tables and run.json disagree: "
+                                                  + expected):
+            check_run(run_dir, CheckSettings(accepted_dir=accepted_dir))
+        with pytest.raises(CheckInputError, match="disagree"):
+            accept_results(run_dir, accepted_dir, project_dir=accepted_dir.parent)
+        monkeypatch.chdir(accepted_dir.parent)
+        r = run(["check", str(run_dir)])
+        assert r.exit_code == 2 and "disagree" in r.output and "passed" not in r.output
+
+    def test_a_run_without_a_record_is_refused(self, accepted):
+        accepted_dir, run_dir = accepted
+        (run_dir / "run.json").unlink()
+        with pytest.raises(CheckInputError, match="run.json: no run record"):
+            regression(run_dir, accepted_dir)
 
     def test_a_run_without_files_is_an_input_error(self, accepted):
         accepted_dir, run_dir = accepted
@@ -659,3 +802,226 @@ class TestEdgeCases:
         assert [(f.file, f.message.split(":")[0]) for f in regression_findings] == [
             ("region_a_cell_2.nix", "file lost")]
         assert failing(report) == {"region_a_cell_2.nix": {"measured", "regression"}}
+
+
+# --------------------------------------------------------------------------- accept's safety
+
+
+@pytest.fixture(scope="module")
+def measured_lab(tmp_path_factory):
+    """A lab repository: recordings (two sample cells, one of them in a subfolder), a .git
+    folder, notes, spikemeasure.toml, and results/ measured from the lab's top (so run.json
+    lists the recordings by paths relative to it), all without accepted results."""
+    import os
+
+    lab = tmp_path_factory.mktemp("labrepo") / "lab"
+    (lab / "recordings" / "day_2").mkdir(parents=True)
+    shutil.copy(SAMPLE / "region_a_cell_1.nwb", lab / "recordings" / "region_a_cell_1.nwb")
+    shutil.copy(SAMPLE / "region_b_cell_1.nwb", lab / "recordings" / "day_2" / "b1.nwb")
+    (lab / ".git" / "objects").mkdir(parents=True)
+    (lab / ".git" / "HEAD").write_text("ref: refs/heads/main\n")
+    (lab / ".git" / "objects" / "ab12").write_bytes(bytes(range(256)))
+    (lab / "notes").mkdir()
+    (lab / "notes" / "plan.md").write_text("# what to record next\n")
+    (lab / "spikemeasure.toml").write_text("[measure]\nonset_rate_v_per_s = 20.0\n")
+    here = os.getcwd()
+    os.chdir(lab)
+    try:
+        summary = measure_paths(["recordings"], "results", jobs=1, figure_format=None)
+    finally:
+        os.chdir(here)
+    assert not summary.failures, summary.failures
+    return lab
+
+
+def snapshot(folder: Path) -> dict[str, bytes | None]:
+    """Every file (its bytes) and folder (None) under `folder`, by relative path; links by
+    their target text."""
+    out: dict[str, bytes | None] = {}
+    for p in sorted(folder.rglob("*")):
+        rel = p.relative_to(folder).as_posix()
+        if p.is_symlink():
+            out[rel] = ("link " + str(p.readlink())).encode()
+        else:
+            out[rel] = None if p.is_dir() else p.read_bytes()
+    return out
+
+
+class TestAcceptKeepsTheLabsFiles:
+    """accept writes only its four files in a folder of its own; every other file of the
+    lab survives byte for byte, and a folder that is not one of its own is refused."""
+
+    @pytest.fixture
+    def lab_copy(self, measured_lab, tmp_path, monkeypatch):
+        lab = tmp_path / "lab"
+        shutil.copytree(measured_lab, lab, symlinks=True)
+        (tmp_path / "elsewhere").mkdir()
+        (tmp_path / "elsewhere" / "keep.txt").write_text("outside the lab\n")
+        (lab / "archive" / "2025").mkdir(parents=True)   # recordings not measured in this run
+        shutil.copy(SAMPLE / "region_a_cell_2.nix", lab / "archive" / "2025" / "old.nix")
+        monkeypatch.chdir(lab)
+        return lab
+
+    def accept_with(self, lab: Path, folder: str, *extra: str):
+        (lab / "spikemeasure.toml").write_text(
+            f'[measure]\nonset_rate_v_per_s = 20.0\n[regression]\naccepted_folder = '
+            f'"{folder}"\n')
+        return run(["accept", "results", *extra])
+
+    def test_other_files_and_subfolders_of_the_accepted_folder_survive(self, lab_copy):
+        lab = lab_copy
+        assert self.accept_with(lab, "accepted").exit_code == 0
+        (lab / "accepted" / "notes").mkdir()
+        (lab / "accepted" / "notes" / "review.md").write_text("looked at by hand\n")
+        (lab / "accepted" / "figures").mkdir()
+        (lab / "accepted" / "figures" / "fi.png").write_bytes(b"\x89PNG\r\n\x1a\n" + bytes(64))
+        (lab / "accepted" / "README.md").write_text("reviewed results\n")
+        (lab / "accepted" / "notes.txt").write_text("a note kept as plain text\n")
+        before = snapshot(lab.parent)
+        r = self.accept_with(lab, "accepted")
+        assert r.exit_code == 0, r.output
+        after = snapshot(lab.parent)
+        written = {f"lab/accepted/{n}" for n in ("spikes.csv", "sweeps.csv", "cells.csv",
+                                                 "run.json")}
+        assert set(after) == set(before)            # nothing added, nothing removed
+        changed = {k for k in before if before[k] != after[k]}
+        assert changed <= written | {"lab/spikemeasure.toml"}
+        for name in ("spikes.csv", "sweeps.csv", "cells.csv"):
+            assert (lab / "accepted" / name).read_bytes() == (lab / "results" / name).read_bytes()
+
+    @pytest.mark.parametrize("folder, reason", [
+        (".", "is the project folder itself"),
+        ("{lab}", "is the project folder itself"),
+        ("../lab", "is the project folder itself"),
+        ("./recordings/..", "is the project folder itself"),
+        ("..", "contains the project folder"),
+        ("../elsewhere", "lies outside the project folder"),
+        ("{elsewhere}", "lies outside the project folder"),
+        ("recordings", "holds recordings of this run"),
+        ("archive", "holds 1 file that would be taken as recordings (2025/old.nix)"),
+        ("recordings/day_2", "holds recordings of this run"),
+        ("results", "is the results folder being accepted"),
+        ("results/accepted", "lies inside the results folder"),
+        ("notes/plan.md", "is a file, not a folder"),
+    ])
+    def test_refused_folders_leave_every_file_as_it_was(self, lab_copy, folder, reason):
+        lab = lab_copy
+        folder = folder.format(lab=lab.as_posix(), elsewhere=(lab.parent / "elsewhere").as_posix())
+        (lab / "spikemeasure.toml").write_text(
+            f'[regression]\naccepted_folder = "{folder}"\n')
+        before = snapshot(lab.parent)
+        r = run(["accept", "results"])
+        assert r.exit_code == 2, r.output
+        assert reason in r.output and "nothing was written" in r.output
+        assert r.output.startswith("Error: ") and str(lab.parent) in r.output
+        assert "Traceback" not in r.output
+        assert snapshot(lab.parent) == before
+
+    def test_a_folder_that_contains_the_results(self, lab_copy):
+        lab = lab_copy
+        (lab / "out").mkdir()
+        shutil.move(lab / "results", lab / "out" / "results")
+        before = snapshot(lab.parent)
+        (lab / "spikemeasure.toml").write_text('[regression]\naccepted_folder = "out"\n')
+        before = snapshot(lab.parent)
+        r = run(["accept", "out/results"])
+        assert r.exit_code == 2 and "contains the results folder" in r.output, r.output
+        assert snapshot(lab.parent) == before
+
+    def test_a_recording_of_another_format_given_by_pattern(self, lab_copy):
+        """A file discovery takes only with --glob: refused as a recording of the run."""
+        lab = lab_copy
+        (lab / "raw").mkdir()
+        shutil.copy(SAMPLE / "region_a_cell_1.nwb", lab / "raw" / "cell.dat")
+        record = json.loads((lab / "results" / "run.json").read_text())
+        record["inputs"][0]["path"] = "raw/cell.dat"
+        (lab / "results" / "run.json").write_text(json.dumps(record))
+        before = snapshot(lab.parent)
+        r = self.accept_with(lab, "raw")
+        assert r.exit_code == 2 and "holds recordings of this run (cell.dat)" in r.output
+        assert snapshot(lab.parent) == before | {"lab/spikemeasure.toml":
+                                                 (lab / "spikemeasure.toml").read_bytes()}
+
+    def test_tables_accept_did_not_write_are_not_overwritten(self, lab_copy):
+        lab = lab_copy
+        (lab / "old").mkdir()
+        (lab / "old" / "spikes.csv").write_text("file,sweep,spike\nmine.nwb,0,0\n")
+        r = self.accept_with(lab, "old")
+        assert r.exit_code == 2 and "not written by accept" in r.output, r.output
+        assert (lab / "old" / "spikes.csv").read_text() == "file,sweep,spike\nmine.nwb,0,0\n"
+        assert sorted(p.name for p in (lab / "old").iterdir()) == ["spikes.csv"]
+
+    def test_a_folder_named_like_an_accepted_file_is_refused(self, lab_copy):
+        lab = lab_copy
+        (lab / "accepted" / "run.json").mkdir(parents=True)
+        (lab / "accepted" / "run.json" / "kept.md").write_text("x\n")
+        r = self.accept_with(lab, "accepted")
+        assert r.exit_code == 2 and "run.json there is not a file accept wrote" in r.output
+        assert (lab / "accepted" / "run.json" / "kept.md").read_text() == "x\n"
+
+    def test_a_symlinked_folder_is_judged_by_its_target(self, lab_copy):
+        lab = lab_copy
+        (lab / "reference").mkdir()
+        (lab / "accepted").symlink_to("reference", target_is_directory=True)
+        r = self.accept_with(lab, "accepted")
+        assert r.exit_code == 0, r.output
+        assert (lab / "accepted").is_symlink()                       # the link is kept
+        assert sorted(p.name for p in (lab / "reference").iterdir()) == [
+            "cells.csv", "run.json", "spikes.csv", "sweeps.csv"]
+        (lab / "to_recordings").symlink_to("recordings", target_is_directory=True)
+        before = snapshot(lab.parent)
+        r = self.accept_with(lab, "to_recordings")
+        assert r.exit_code == 2 and "that is" in r.output and "recordings" in r.output
+        (lab / "to_outside").symlink_to(lab.parent / "elsewhere", target_is_directory=True)
+        r = self.accept_with(lab, "to_outside")
+        assert r.exit_code == 2 and "lies outside the project folder" in r.output
+        assert snapshot(lab.parent / "elsewhere") == {"keep.txt": b"outside the lab\n"}
+        assert {k: v for k, v in snapshot(lab.parent).items()
+                if "spikemeasure.toml" not in k and "to_outside" not in k} == \
+            {k: v for k, v in before.items() if "spikemeasure.toml" not in k}
+
+    def test_a_failure_midway_says_which_files_were_replaced(self, lab_copy, monkeypatch):
+        import os
+
+        lab = lab_copy
+        assert self.accept_with(lab, "accepted").exit_code == 0
+        (lab / "accepted" / "notes.md").write_text("kept\n")
+        before = snapshot(lab / "accepted")
+        rows = read_rows(lab / "results" / "cells.csv")
+        keep_files(lab / "results", rows[:1])
+        real_replace = os.replace
+        calls = []
+
+        def failing_replace(src, dst):
+            calls.append(dst)
+            if len(calls) == 2:
+                raise OSError(28, "No space left on device")
+            return real_replace(src, dst)
+
+        monkeypatch.setattr(os, "replace", failing_replace)
+        r = run(["accept", "results"])
+        assert r.exit_code == 2, r.output
+        assert "spikes.csv was replaced already" in r.output
+        assert "No space left on device" in r.output and "accept again" in r.output
+        after = snapshot(lab / "accepted")
+        assert set(after) == set(before)                  # no temporary file left behind
+        assert after["spikes.csv"] == (lab / "results" / "spikes.csv").read_bytes()
+        for name in ("sweeps.csv", "cells.csv", "run.json", "notes.md"):
+            assert after[name] == before[name]
+
+    def test_an_unwritable_folder_replaces_nothing(self, lab_copy, monkeypatch):
+        """As a read-only folder does (the tests may run as a user who can write anywhere)."""
+        import tempfile
+
+        lab = lab_copy
+        assert self.accept_with(lab, "accepted").exit_code == 0
+        before = snapshot(lab.parent)
+
+        def refuse(*args, **kw):
+            raise PermissionError(13, "Permission denied")
+
+        monkeypatch.setattr(tempfile, "mkstemp", refuse)
+        r = run(["accept", "results"])
+        assert r.exit_code == 2, r.output
+        assert "Permission denied" in r.output and "nothing was replaced" in r.output
+        assert snapshot(lab.parent) == before

@@ -16,7 +16,7 @@ RATE = 20_000.0
 
 @pytest.fixture
 def folder(tmp_path):
-    """Two good cells (3 and 2 spikes), a truncated NWB file, and a NaN sweep."""
+    """Two good cells (3 and 2 spikes), a truncated NWB file, and a sweep NaN almost everywhere."""
     d = tmp_path / "cells"
     (d / "region_a").mkdir(parents=True)
     _, v = gaussian_train(RATE, [30.0, 50.0, 70.0], 100.0)
@@ -25,7 +25,7 @@ def folder(tmp_path):
               rate_hz=RATE)
     _, v2 = gaussian_train(RATE, [30.0, 60.0], 100.0)
     bad_sweep = v2.copy()
-    bad_sweep[500:700] = np.nan
+    bad_sweep[2:] = np.nan  # nothing left to measure
     write_nix(d / "good.nix", [(v2, cmd), (bad_sweep, cmd)], rate_hz=RATE)
     truncated = d / "broken.nwb"
     data = (d / "region_a" / "good.nwb").read_bytes()
@@ -247,9 +247,88 @@ class TestProjectFile:
         config.write_text("[measure]\nonset_rate = 30.0\n")
         r = run(["measure", str(cell_folder), "--out", str(tmp_path / "o"), "--config",
                  str(config)])
-        assert r.exit_code == 1 and "onset_rate" in r.output and "onset_rate_v_per_s" in r.output
+        assert r.exit_code == 2 and "onset_rate" in r.output and "onset_rate_v_per_s" in r.output
         config.write_text('[measure]\nthreshold_method = "guess"\n')
         r = run(["measure", str(cell_folder), "--out", str(tmp_path / "o"), "--config",
                  str(config)])
-        assert r.exit_code == 1 and "threshold_method" in r.output and "lab.toml" in r.output
+        assert r.exit_code == 2 and "threshold_method" in r.output and "lab.toml" in r.output
         assert "Traceback" not in r.output
+
+
+#: Project files each wrong in one way, with a part of the message that says how.
+BAD_PROJECT_FILES = {
+    "not_toml": ("[measure]\nonset_rate_v_per_s = = 3\n", "not valid TOML at line 2"),
+    "unknown_key": ("[measure]\nonset_rate = 30.0\n", "onset_rate_v_per_s"),
+    "bad_value": ("[measure]\nonset_rate_v_per_s = -5.0\n", "onset_rate_v_per_s"),
+    "bad_quality_value": ("[quality]\nmax_baseline_noise_mv = \"low\"\n",
+                          "max_baseline_noise_mv"),
+    "bad_regression_key": ("[regression]\naccepted = \"x\"\n", "accepted_folder"),
+    "unknown_table": ("[measures]\n", "did you mean [measure]"),
+}
+
+
+@pytest.fixture
+def small_lab(tmp_path, monkeypatch):
+    """One recording in recordings/, the current folder at the lab's top."""
+    _, v = gaussian_train(RATE, [30.0, 50.0], 100.0)
+    (tmp_path / "recordings").mkdir()
+    write_nwb(tmp_path / "recordings" / "cell.nwb", [(v, step_command(v.size, RATE, 50.0))],
+              rate_hz=RATE)
+    monkeypatch.chdir(tmp_path)
+    return tmp_path
+
+
+@pytest.mark.parametrize("command", ["measure", "inspect"])
+@pytest.mark.parametrize("kind", sorted(BAD_PROJECT_FILES))
+def test_a_bad_project_file_is_a_usage_error(small_lab, command, kind):
+    """Exit 2 (as in check and accept) and 'Error: <file>: <what>', before anything is
+    written; the traceback only with --debug."""
+    text, expected = BAD_PROJECT_FILES[kind]
+    (small_lab / "spikemeasure.toml").write_text(text)
+    args = {"measure": ["measure", "recordings", "--out", "results"],
+            "inspect": ["inspect", "recordings/cell.nwb"]}[command]
+    r = run(args)
+    assert r.exit_code == 2, r.output
+    assert r.output.startswith("Error: spikemeasure.toml: ") and expected in r.output
+    assert "Traceback" not in r.output
+    assert not (small_lab / "results").exists()
+    r = CliRunner().invoke(main, ["--debug", *args])
+    assert r.exception is not None and type(r.exception).__name__ == "ConfigError"
+
+
+@pytest.mark.parametrize("kind", ["unknown_key", "bad_value"])
+def test_check_and_accept_of_a_finished_run_refuse_a_bad_measure_table(small_lab, kind):
+    """The project file is checked whole by every command, also the table a command does
+    not use: a typo under [measure] is not passed over by check or accept."""
+    assert run(["measure", "recordings", "--out", "results"]).exit_code == 0
+    (small_lab / "spikemeasure.toml").write_text(BAD_PROJECT_FILES[kind][0])
+    for command in ("check", "accept"):
+        r = run([command, "results"])
+        assert r.exit_code == 2, r.output
+        assert r.output.startswith("Error: spikemeasure.toml: [measure]") or \
+            r.output.startswith("Error: spikemeasure.toml: unknown key"), r.output
+    assert not (small_lab / "accepted").exists()
+
+
+@pytest.mark.parametrize("command", ["measure", "inspect"])
+def test_option_values_inconsistent_together_are_a_usage_error(small_lab, command):
+    """Each value valid alone, the pair not (the smoothing window must be shorter than the
+    peak window): exit 2 like any bad option value, naming both options."""
+    args = {"measure": ["measure", "recordings", "--out", "results"],
+            "inspect": ["inspect", "recordings/cell.nwb"]}[command]
+    r = run([*args, "--smoothing", "10", "--peak-window", "1"])
+    assert r.exit_code == 2, r.output
+    assert "smoothing_ms" in r.output and "peak_window_ms" in r.output
+    assert "Traceback" not in r.output and not (small_lab / "results").exists()
+
+
+def test_inspect_names_a_file_not_utf8_as_text(folder):
+    """A Latin-1 byte in the name (held by Python as a surrogate) is shown as \\xe9."""
+    import os
+
+    raw = os.path.join(os.fsencode(folder), b"caf\xe9.nix")
+    os.rename(folder / "good.nix", raw)
+    r = run(["inspect", os.fsdecode(raw)])
+    assert r.exit_code == 0, r.output
+    first = r.output.splitlines()[0]
+    assert first.startswith("file:") and first.split()[1].endswith("caf\\xe9.nix")

@@ -501,3 +501,23 @@ def test_fi_legend_stands_where_no_line_runs_under_it():
                 ax.legend(loc=loc)
                 assert _lines_under_legend(ax), (path.name, loc)
     assert moved >= 1
+
+
+def test_title_of_a_name_not_utf8_is_drawn_as_text(cell):
+    """Python holds a Latin-1 byte of a file name as the surrogate U+DCE9; Agg cannot draw it."""
+    drawn = figures.cell_figures(cell["results"], cell["cell"], name="caf\udce9.nix")
+    for fig in drawn.values():
+        fig.canvas.draw()  # raised TypeError before
+        assert fig._suptitle.get_text().startswith("caf\\xe9.nix: ")
+
+
+def test_figure_folders_of_distinct_names_are_distinct():
+    names = ["a/b.nix", "a__b.nix", "a_/b.nix", "a/_b.nix", "a:b.nix", "a_b.nix", "a?b.nix",
+             "day 1/cell.nix", "day 1__cell.nix", "x" * 300 + "1.nix", "x" * 300 + "2.nix",
+             "caf\\xe9.nix", "caf/xe9.nix"]
+    folders = [figures.figure_folder_name(n) for n in names]
+    assert len(set(folders)) == len(names)
+    assert all(len(f.encode("utf-8")) <= 255 and "/" not in f for f in folders)
+    # plain names keep their folder of before
+    assert figures.figure_folder_name("day_1/cell 2.nwb") == "day_1__cell 2.nwb"
+    assert figures.figure_folder_name("cell.nix") == "cell.nix"

@@ -102,11 +102,27 @@ def test_lazy_trace_slices_and_scales():
         trace[3]
 
 
-def test_nan_in_a_piece_names_its_time(gap_free):
+def test_nan_in_a_piece_is_measured_as_in_the_whole_trace(gap_free):
+    """Source: the same trace with the same gap measured whole (measure_around_gaps): the
+    spikes, their values, their flags and the gaps are the same read in pieces, including a
+    gap across the border between two pieces."""
     v = gap_free.copy()
     v[50_000:50_010] = np.nan
-    with pytest.raises(Exception, match=r"NaN or infinite from 2\.5000 s"):
-        measure_in_pieces(v, RATE_HZ, piece_samples=40_000)
+    v[39_990:40_020] = np.inf        # across the border of the first two pieces
+    v[70_000] = np.nan               # one sample
+    whole = measurement.measure_around_gaps(v, RATE_HZ)
+    pieces, gaps = measurement.measure_in_pieces_with_gaps(v, RATE_HZ, piece_samples=40_000)
+    assert gaps.tolist() == [[39_990, 40_020], [50_000, 50_010], [70_000, 70_001]]
+    assert len(pieces) == len(whole) > 10
+    assert pieces.flags == whole.flags
+    assert any(measurement.GAP_FLAG in f for f in whole.flags)
+    for f in fields(SpikeMeasurements):
+        if f.name == "flags":
+            continue
+        a, b = getattr(pieces, f.name), getattr(whole, f.name)
+        assert np.array_equal(np.isnan(a), np.isnan(b)), f.name
+        np.testing.assert_allclose(a[np.isfinite(a)], b[np.isfinite(b)], rtol=0, atol=1e-8,
+                                   err_msg=f.name)
 
 
 def test_piece_settings_are_checked(gap_free):
@@ -397,3 +413,22 @@ def test_a_sweep_larger_than_the_memory_available_is_not_read_whole(tmp_path, mo
         with pytest.raises(UnreadableInputError, match=r"GiB of memory available; it was not "
                                                        r"read"):
             reading.read_recording(path)
+
+
+def test_lazy_sweep_with_a_gap_gets_the_same_spikes_and_flags_as_whole(gap_free):
+    """Source: the same trace with the same gap measured whole (measure_around_gaps); a long
+    sweep kept in its file has the same spikes, and its count is flagged a lower bound."""
+    from spikemeasure.sweeps import Sweep
+    from spikemeasure.tables import measure_sweep
+
+    v = gap_free.copy()
+    v[30_000:30_200] = np.nan
+    lazy = Sweep(LazyTrace(lambda a, b: v[a:b], v.size), RATE_HZ, file="long.nwb")
+    result = measure_sweep(lazy)
+    whole = measurement.measure_around_gaps(v, RATE_HZ)
+    assert result.error is None
+    np.testing.assert_allclose(result.spikes.peak_s, whole.peak_s, rtol=0, atol=1e-8)
+    assert result.spikes.flags == whole.flags
+    assert result.features.spike_count == len(whole)
+    assert result.features.flags == ("spike_count_lower_bound",)
+    assert np.isnan(result.features.firing_rate_hz)

@@ -252,3 +252,116 @@ class TestClippedPeaks:
         assert np.sum(v == v.max()) == 2
         m = measure_trace(v, rate)
         assert CLIPPED_RUN_SAMPLES == 3 and "clipped_peak" not in m.flags[0]
+
+
+class TestMissingSamples:
+    """Source: the noise-free Hodgkin-Huxley (1952) simulation of a 100 pA step, measured
+    without the gap. The same samples with a stretch set to NaN or infinity must give, spike by
+    spike, the same values wherever a value's windows stay clear of the gap, and NaN with the
+    flag ``touches_gap`` where they do not; spikes inside the gap are not seen."""
+
+    RATE = 20_000.0
+    FIELDS = ("threshold_s", "threshold_mv", "peak_s", "peak_mv", "amplitude_mv",
+              "half_width_ms", "rise_time_ms", "max_dvdt_v_per_s", "min_dvdt_v_per_s",
+              "trough_s", "trough_mv", "ahp_depth_mv", "isi_ms")
+
+    @pytest.fixture(scope="class")
+    def clean(self):
+        from spikemeasure.simulation import simulate_current_steps
+
+        sim = simulate_current_steps("hodgkin_huxley_1952", [100.0], sampling_rate_hz=self.RATE,
+                                     duration_s=0.5, step_start_s=0.05, step_end_s=0.45)
+        v = sim.voltage_mv[0]
+        return v, measure_trace(v, self.RATE)
+
+    @pytest.mark.parametrize("start, stop, value", [
+        (3000, 3100, np.nan),      # 5 ms in the middle, over a spike
+        (3000, 3001, np.nan),      # one sample
+        (0, 500, np.nan),          # the very start
+        (9500, 10000, np.nan),     # the very end
+        (1930, 1931, np.nan),      # one sample at a spike's peak
+        (2210, 2250, np.inf),      # infinite samples, between spikes
+        (4400, 4420, -np.inf),
+    ])
+    def test_values_clear_of_the_gap_are_unchanged(self, clean, start, stop, value):
+        from spikemeasure.measurement import GAP_FLAG, measure_around_gaps
+
+        v, ref = clean
+        assert len(ref) > 20 and not any(ref.flags)
+        broken = v.copy()
+        broken[start:stop] = value
+        got = measure_around_gaps(broken, self.RATE)
+        gap_s = (start / self.RATE, stop / self.RATE)
+        hidden = (ref.peak_s >= gap_s[0]) & (ref.peak_s < gap_s[1])
+        assert len(got) == len(ref) - hidden.sum()
+        for k in range(len(got)):
+            t = got.threshold_s[k] if np.isfinite(got.threshold_s[k]) else got.peak_s[k]
+            j = int(np.argmin(np.abs(np.where(np.isfinite(got.threshold_s[k]), ref.threshold_s,
+                                              ref.peak_s) - t)))
+            lost = []
+            for name in self.FIELDS:
+                a, b = getattr(got, name)[k], getattr(ref, name)[j]
+                if np.isnan(a):
+                    if not np.isnan(b):
+                        lost.append(name)
+                else:
+                    assert a == pytest.approx(b, rel=1e-9, abs=1e-9), (k, name)
+            assert (GAP_FLAG in got.flags[k]) == bool(lost), (k, lost)
+            # a spike whose peak is 30 ms (two intervals) or more from the gap loses nothing
+            if min(abs(ref.peak_s[j] - gap_s[0]), abs(ref.peak_s[j] - gap_s[1])) > 0.030:
+                assert not lost and got.flags[k] == (), k
+
+    def test_a_one_sample_gap_beside_the_peak_costs_the_peak_not_the_threshold(self, clean):
+        from spikemeasure.measurement import GAP_FLAG, measure_around_gaps
+
+        v, ref = clean
+        k = 3
+        p = int(round(ref.peak_s[k] * self.RATE))
+        broken = v.copy()
+        broken[p + 3] = np.nan           # within the peak spline's 3 samples either side
+        got = measure_around_gaps(broken, self.RATE)
+        assert len(got) == len(ref)
+        assert got.threshold_mv[k] == pytest.approx(ref.threshold_mv[k], abs=1e-9)
+        assert np.isnan(got.peak_mv[k]) and np.isnan(got.half_width_ms[k])
+        assert GAP_FLAG in got.flags[k]
+        assert np.isnan(got.isi_ms[k + 1]) and GAP_FLAG in got.flags[k + 1]
+        # at the peak sample itself the spike has no peak left: it is not seen at all
+        broken = v.copy()
+        broken[p] = np.nan
+        assert len(measure_around_gaps(broken, self.RATE)) == len(ref) - 1
+
+    def test_without_gaps_the_same_as_measure_trace(self, clean):
+        from spikemeasure.measurement import measure_around_gaps
+
+        v, ref = clean
+        got = measure_around_gaps(v, self.RATE)
+        for name in self.FIELDS:
+            np.testing.assert_array_equal(getattr(got, name), getattr(ref, name))
+
+
+@pytest.mark.parametrize("method", ["max_rate_fraction", "second_derivative_peak"])
+def test_gap_rules_hold_for_every_threshold_method(method):
+    """Source: the noise-free Hodgkin-Huxley (1952) train measured without the gap, as in
+    TestMissingSamples, with the threshold searches that reach back from the onset: a gap
+    shortly before a spike's onset cuts that search, so its threshold is empty, never
+    different."""
+    from spikemeasure.measurement import GAP_FLAG, measure_around_gaps
+    from spikemeasure.simulation import simulate_current_steps
+
+    rate = 20_000.0
+    settings = DetectionSettings(threshold_method=method)
+    v = simulate_current_steps("hodgkin_huxley_1952", [100.0], sampling_rate_hz=rate,
+                               duration_s=0.3, step_start_s=0.05, step_end_s=0.25).voltage_mv[0]
+    ref = measure_trace(v, rate, settings)
+    k = 4
+    onset = int(np.floor(ref.threshold_s[k] * rate))
+    broken = v.copy()
+    broken[onset - 40:onset - 35] = np.nan        # 2 ms before the threshold
+    got = measure_around_gaps(broken, rate, settings)
+    assert len(got) == len(ref)
+    for j in range(len(got)):
+        for name in ("threshold_mv", "peak_mv", "half_width_ms", "trough_mv"):
+            a, b = getattr(got, name)[j], getattr(ref, name)[j]
+            assert np.isnan(a) or a == pytest.approx(b, abs=1e-9), (j, name)
+    assert np.isnan(got.threshold_mv[k]) and GAP_FLAG in got.flags[k]
+    assert got.peak_mv[k] == pytest.approx(ref.peak_mv[k], abs=1e-9)

@@ -1,6 +1,7 @@
 """report.html, the groups file, and figures in batch runs (cache, formats, tables unchanged)."""
 import base64
 import csv
+import hashlib
 import json
 import re
 import shutil
@@ -123,8 +124,11 @@ class TestReportContents:
     def test_figures_live_under_safe_folder_names(self, run):
         record = json.loads((run["out"] / "run.json").read_text())
         paths = record["figures"]["cells"][f"day 1/{ODD_NAME}"]
-        # one folder level; characters some file systems refuse (<>:"|?*) made "_"
-        assert paths == [f'figures/day 1__cell _b_&_1_.nix/{s}.png' for s in CELL_FIGURE_NAMES]
+        # one folder level; characters some file systems refuse (<>:"|?*) made "_", and then
+        # (the name changed) the start of the name's SHA-256 (hashlib) keeps it distinct
+        digest = hashlib.sha256(f"day 1/{ODD_NAME}".encode()).hexdigest()[:8]
+        assert paths == [f'figures/day 1__cell _b_&_1_.nix-{digest}/{s}.png'
+                         for s in CELL_FIGURE_NAMES]
         assert all((run["out"] / p).is_file() for p in paths)
 
 
@@ -272,3 +276,22 @@ def test_no_figures_never_imports_matplotlib(folder, tmp_path):
     assert result.returncode == 0, result.stderr
     assert result.stdout.strip() == "[]"
     assert (tmp_path / "out" / "report.html").is_file()
+
+
+def test_groups_file_names_copied_from_cells_csv_match(tmp_path):
+    """A name cells.csv writes escaped ('=cell.nix) names the file =cell.nix."""
+    path = tmp_path / "groups.csv"
+    path.write_text("file,genotype\n\"'=cell.nix\",mutant\n'plain.nix,control\n")
+    assert read_groups(path).mapping == {"=cell.nix": "mutant", "'plain.nix": "control"}
+
+
+def test_report_of_a_run_with_a_name_not_utf8_is_written(tmp_path):
+    """Text from outside (a command line, a message) may hold surrogates; the page is UTF-8."""
+    from spikemeasure.report import write_report
+
+    record = {"command": ["spikemeasure", "measure", "caf\udce9.nix"],
+              "inputs": [{"file": "caf\\xe9.nix", "status": "failed"}],
+              "failures": [{"file": "caf\\xe9.nix", "stage": "read",
+                            "message": "caf\udce9.nix: damaged"}]}
+    page = write_report(tmp_path / "report.html", record, []).read_bytes().decode("utf-8")
+    assert "measure caf\\xe9.nix" in page and "caf\\xe9.nix: damaged" in page

@@ -1,6 +1,7 @@
 """Batch runs: parallel equals serial, failures listed, interrupted runs resume cleanly."""
 import csv
 import json
+import os
 import shutil
 import signal
 import subprocess
@@ -186,3 +187,190 @@ def test_unreachable_cluster_is_a_clear_error(tmp_path):
     with pytest.raises(SpikemeasureError, match="cannot reach the Dask scheduler"):
         measure_paths([str(tmp_path / "in")], tmp_path / "out", cluster="tcp://127.0.0.1:9",
                       cluster_timeout_s=2.0)
+
+
+# --------------------------------------------------------------------------- file identity
+
+def _small_cell(path):
+    """A cell of a passive RC membrane with spikes (conftest), quick to measure."""
+    from conftest import RC_RATE_HZ, rc_cell_sweeps
+
+    return write_nix(path, rc_cell_sweeps()[2:5], rate_hz=RC_RATE_HZ)
+
+
+def _rows(path: Path) -> list[dict]:
+    with open(path, newline="", encoding="utf-8") as fh:
+        return list(csv.DictReader(fh))
+
+
+def test_name_not_utf8_reaches_every_output_as_text(tmp_path):
+    """Outputs are checked as UTF-8 by Python's strict decoder, run.json by the json module."""
+    folder = tmp_path / "cells"
+    folder.mkdir()
+    raw = os.path.join(os.fsencode(folder), b"caf\xe9.nix")
+    os.rename(_small_cell(tmp_path / "cafe.nix"), raw)  # the HDF5 writer wants a UTF-8 name
+    out = tmp_path / "out"
+    result = subprocess.run([sys.executable, "-m", "spikemeasure", "measure", str(folder),
+                             "--out", str(out), "--jobs", "1"], capture_output=True)
+    assert result.returncode == 0, result.stderr.decode("utf-8", "replace")
+    assert "caf\\xe9.nix" in result.stderr.decode("utf-8")
+    shown = "caf\\xe9.nix"
+    for table in TABLES:
+        (out / table).read_bytes().decode("utf-8")
+    assert [r["file"] for r in _rows(out / "cells.csv")] == [shown]
+    assert {r["file"] for r in _rows(out / "spikes.csv")} == {shown}
+    record = json.loads((out / "run.json").read_bytes().decode("utf-8"))
+    (entry,) = record["inputs"]
+    assert entry["file"] == shown and entry["status"] == "measured"
+    assert bytes.fromhex(entry["path_bytes_hex"]) == raw  # the real file can be found
+    assert "\\udc" not in (out / "run.json").read_text()  # no lone surrogate escapes
+    report = (out / "report.html").read_bytes().decode("utf-8")
+    assert shown in report
+    (figures,) = record["figures"]["cells"].values()
+    folder_name = figures[0].split("/")[1]
+    folder_name.encode("utf-8")
+    assert all((out / p).is_file() for p in figures)
+
+
+def test_same_name_in_two_folders_stays_two_cells(tmp_path):
+    for day in ("day1", "day2"):
+        (tmp_path / day).mkdir()
+        _small_cell(tmp_path / day / "cell.nix")
+    out = tmp_path / "out"
+    summary = measure_paths([str(tmp_path / "day1" / "cell.nix"),
+                             str(tmp_path / "day2" / "cell.nix")], out, figure_format="png")
+    assert summary.files_measured == 2
+    names = ["day1/cell.nix", "day2/cell.nix"]
+    assert [r["file"] for r in _rows(out / "cells.csv")] == names
+    record = json.loads((out / "run.json").read_text())
+    figure_sets = record["figures"]["cells"]
+    assert list(figure_sets) == names
+    folders = {p.rsplit("/", 1)[0] for paths in figure_sets.values() for p in paths}
+    assert len(folders) == 2 and all((out / p).is_file() for ps in figure_sets.values()
+                                     for p in ps)
+    report = (out / "report.html").read_text()
+    assert all(f">{n}</h2>" in report for n in names)
+    # two folders given, each holding cell.nix
+    both = measure_paths([str(tmp_path / "day1"), str(tmp_path / "day2")], tmp_path / "out2")
+    assert both.files_measured == 2
+    assert [r["file"] for r in _rows(tmp_path / "out2" / "cells.csv")] == names
+
+
+def test_same_file_twice_is_measured_once_with_a_note(tmp_path):
+    folder = tmp_path / "cells"
+    folder.mkdir()
+    _small_cell(folder / "cell.nix")
+    (tmp_path / "link.nix").symlink_to(folder / "cell.nix")
+    summary = measure_paths([str(folder), str(folder / "cell.nix"), str(tmp_path / "link.nix")],
+                            tmp_path / "out")
+    assert summary.files_measured == 1 and not summary.failures
+    assert [r["file"] for r in _rows(tmp_path / "out" / "cells.csv")] == ["cell.nix"]
+    record = json.loads((tmp_path / "out" / "run.json").read_text())
+    assert len(record["inputs"]) == 1
+    assert sum("the same file as cell.nix; measured once" in n for n in record["notes"]) == 2
+
+
+def test_unsearchable_folders_and_outside_links_are_failures_of_the_run(tmp_path,
+                                                                         monkeypatch):
+    folder = tmp_path / "cells"
+    (folder / "locked").mkdir(parents=True)
+    _small_cell(folder / "good.nix")
+    _small_cell(folder / "locked" / "unseen.nix")
+    outside = tmp_path / "private.txt"
+    outside.write_text("a file outside the folder measured\n")
+    (folder / "x.txt").symlink_to(outside)
+    real = os.scandir
+
+    def scandir(path="."):
+        if os.path.abspath(os.fsdecode(path)) == str(folder / "locked"):
+            raise PermissionError(13, "Permission denied", os.fsdecode(path))
+        return real(path)
+
+    monkeypatch.setattr(os, "scandir", scandir)
+    too_long = str(tmp_path / ("y" * 300))
+    from click.testing import CliRunner
+    from spikemeasure.cli import main
+
+    result = CliRunner().invoke(main, ["measure", str(folder), too_long, "--out",
+                                       str(tmp_path / "out"), "--jobs", "1", "--no-figures"])
+    assert result.exit_code == 1, result.output
+    assert result.exception is None or isinstance(result.exception, SystemExit)
+    assert "Traceback" not in result.output
+    assert "1 file measured, 0 failed" in result.output
+    assert "3 problems" in result.output and "cannot search this folder" in result.output
+    summary = measure_paths([str(folder), too_long], tmp_path / "out")
+    assert summary.files_measured + summary.files_reused == 1
+    errors = {r["file"]: r for r in _rows(tmp_path / "out" / "errors.csv")}
+    assert set(errors) == {str(folder / "locked"), str(folder / "x.txt"), too_long}
+    assert all(r["stage"] == "input" for r in errors.values())
+    assert "permission denied" in errors[str(folder / "locked")]["message"]
+    assert "not followed" in errors[str(folder / "x.txt")]["message"]
+    assert "longer than the system allows" in errors[too_long]["message"]
+    assert len(summary.failures) == 3
+    assert "a file outside" not in (tmp_path / "out" / "errors.csv").read_text()
+
+
+def test_names_like_formulas_are_escaped_and_matched_by_check(tmp_path):
+    """The escape is the OWASP guidance on CSV injection: a leading ' and quotes."""
+    folder = tmp_path / "cells"
+    folder.mkdir()
+    _small_cell(folder / "=cell.nix")
+    _small_cell(folder / "+cell.nix")
+    (folder / "@broken.nix").write_bytes(b"")
+    out, accepted = tmp_path / "out", tmp_path / "accepted"
+    run = [sys.executable, "-m", "spikemeasure"]
+    first = subprocess.run(run + ["measure", str(folder), "--out", str(out), "--jobs", "1",
+                                  "--no-figures"], capture_output=True, text=True)
+    assert first.returncode == 1  # the empty file
+    cells = (out / "cells.csv").read_text().splitlines()
+    assert [line.split(",")[0] for line in cells[1:]] == ['"\'+cell.nix"', '"\'=cell.nix"']
+    assert all(line.split(",")[2].startswith("-") for line in cells[1:])  # numbers as they are
+    for table in ("spikes.csv", "sweeps.csv"):
+        assert {line.split(",")[0] for line in (out / table).read_text().splitlines()[1:]} \
+            == {'"\'+cell.nix"', '"\'=cell.nix"'}
+    assert (out / "errors.csv").read_text().splitlines()[1].startswith('"\'@broken.nix"')
+    record = json.loads((out / "run.json").read_text())
+    assert {i["file"] for i in record["inputs"]} == {"=cell.nix", "+cell.nix", "@broken.nix"}
+    (folder / "@broken.nix").unlink()
+    second = subprocess.run(run + ["measure", str(folder), "--out", str(out), "--jobs", "1",
+                                   "--no-figures"], capture_output=True, text=True)
+    assert second.returncode == 0, second.stderr
+    # without a project file, the accepted results are ./accepted
+    accept = subprocess.run(run + ["accept", str(out)], capture_output=True, text=True,
+                            cwd=tmp_path)
+    assert accept.returncode == 0, accept.stderr
+    assert "'=cell.nix" in (accepted / "cells.csv").read_text()
+    check = subprocess.run(run + ["check", str(out), "--json"], capture_output=True,
+                           text=True, cwd=tmp_path)
+    assert check.returncode == 0, check.stdout + check.stderr
+    # the tables' names read back as run.json has them: every file measured and compared
+    cases = json.loads(check.stdout)["cases"]
+    assert {c["file"] for c in cases} == {"=cell.nix", "+cell.nix"}
+    assert all(c["passed"] for c in cases)
+
+
+def test_text_cells_escaped_numbers_not_and_read_back_by_csv(tmp_path):
+    """OWASP guidance on CSV injection: a text cell starting with = + - @ tab or CR gets a
+    leading ' and quotes; Python's csv module reads every cell back."""
+    from spikemeasure.columns import ERROR_COLUMNS
+    from spikemeasure.output import escape_csv_text, unescape_csv_text, write_rows_csv
+
+    texts = ["=1+1", "+cell", "-cell", "@cell", "\tcell", "\rcell", "'=x", "''", "'plain",
+             "plain", "", "a,b", 'say "hi"']
+    for t in texts:
+        assert unescape_csv_text(escape_csv_text(t)) == t
+    assert escape_csv_text("'plain") == "'plain"  # a quote before ordinary text stays as is
+    path = write_rows_csv(tmp_path / "errors.csv", ERROR_COLUMNS,
+                          [[t, "sweep 1", f"{t}: -55.2 mV"] for t in texts])
+    with open(path, newline="", encoding="utf-8") as fh:
+        rows = list(csv.reader(fh))[1:]
+    for t, row in zip(texts, rows):
+        assert row[0] == escape_csv_text(t) and row[0][:1] not in ("=", "+", "-", "@", "\t",
+                                                                   "\r")
+    lines = path.read_text().split("\n")
+    assert lines[1] == "\"'=1+1\",sweep 1,\"'=1+1: -55.2 mV\""
+    # a number in a numeric column is never changed
+    from spikemeasure.columns import CELL_COLUMNS
+    row = ["=c.nix"] + ["-55.2"] * (len(CELL_COLUMNS) - 1)
+    cells = write_rows_csv(tmp_path / "cells.csv", CELL_COLUMNS, [row]).read_text()
+    assert cells.splitlines()[1].startswith("\"'=c.nix\",-55.2,-55.2")

@@ -147,3 +147,103 @@ class TestBaselineDrift:
         v = np.full(1000, -70.0)
         assert np.isnan(baseline_drift(v, 10_000.0, 0.1, -70.0))
         assert np.isnan(baseline_drift(v, 10_000.0, 0.05, float("nan")))
+
+
+class TestMissingSamples:
+    """Source: the noise-free sag trace measured without the gap (itself checked by hand
+    above): with a stretch of NaN in one window, the values of the other windows are the same
+    and those of that window NaN, flagged by window."""
+
+    STEP = CurrentStep(0.1, 0.6, -100.0, 0.0)
+
+    def _pair(self, start_s, stop_s, value=np.nan):
+        v = sag_trace()
+        clean = sweep_features(v, RATE, self.STEP, np.array([]))
+        broken = v.copy()
+        broken[int(start_s * RATE):int(stop_s * RATE)] = value
+        return clean, sweep_features(broken, RATE, self.STEP, np.array([]))
+
+    def test_clean_sweep_has_no_flags(self):
+        clean, _ = self._pair(0.0, 0.0)
+        assert clean.flags == () and clean.as_dict()["flags"] == ""
+
+    def test_gap_in_the_baseline_window_only(self):
+        clean, got = self._pair(0.02, 0.03)
+        assert got.flags == ("gap_in_baseline_window",)
+        assert np.isnan(got.baseline_mv) and np.isnan(got.baseline_noise_mv)
+        assert np.isnan(got.baseline_drift_mv) and np.isnan(got.sag_fraction)
+        assert got.steady_state_mv == clean.steady_state_mv and got.min_mv == clean.min_mv
+        assert got.spike_count == 0 and got.firing_rate_hz == clean.firing_rate_hz
+
+    @pytest.mark.parametrize("value", [np.nan, np.inf])
+    def test_gap_in_the_step_before_the_steady_state_window(self, value):
+        clean, got = self._pair(0.3, 0.31, value)
+        assert set(got.flags) == {"gap_in_step", "spike_count_lower_bound"}
+        assert got.baseline_mv == clean.baseline_mv and got.steady_state_mv == clean.steady_state_mv
+        assert got.baseline_drift_mv == clean.baseline_drift_mv
+        assert np.isnan(got.min_mv) and np.isnan(got.sag_fraction)
+        assert got.spike_count == 0 and np.isnan(got.firing_rate_hz)
+
+    def test_one_sample_in_the_steady_state_window(self):
+        v = sag_trace()
+        clean = sweep_features(v, RATE, self.STEP, np.array([]))
+        v[int(0.55 * RATE)] = np.nan
+        got = sweep_features(v, RATE, self.STEP, np.array([]))
+        assert set(got.flags) == {"gap_in_step", "gap_in_steady_state_window",
+                                  "spike_count_lower_bound"}
+        assert np.isnan(got.steady_state_mv) and got.baseline_mv == clean.baseline_mv
+
+    def test_gap_at_the_very_end_costs_only_the_drift(self):
+        clean, got = self._pair(0.79, 0.8)
+        assert got.flags == ("gap_in_drift_window",)
+        assert np.isnan(got.baseline_drift_mv)
+        for name in ("baseline_mv", "steady_state_mv", "min_mv", "sag_fraction"):
+            assert getattr(got, name) == getattr(clean, name), name
+
+    def test_gap_at_the_very_start_outside_the_baseline_window(self):
+        """The baseline window is the 100 ms before onset; here onset is at 0.15 s."""
+        v = sag_trace()
+        step = CurrentStep(0.15, 0.6, -100.0, 0.0)
+        clean = sweep_features(v, RATE, step, np.array([]))
+        v[:100] = np.nan
+        got = sweep_features(v, RATE, step, np.array([]))
+        assert got.flags == () and got.baseline_mv == clean.baseline_mv
+
+    def test_count_is_a_lower_bound_and_latency_kept_before_the_gap(self):
+        """Spike times by hand: 0.12, 0.17, 0.27 and 0.42 s; a gap from 0.3 to 0.31 s may hide
+        spikes, so the count (4 seen) is a lower bound and rate and interval statistics are
+        empty; the first spike precedes the gap, so the latency (20 ms) stands."""
+        v = sag_trace()
+        v[int(0.3 * RATE):int(0.31 * RATE)] = np.nan
+        times = np.array([0.12, 0.17, 0.27, 0.42])
+        got = sweep_features(v, RATE, self.STEP, times)
+        assert got.spike_count == 4 and "spike_count_lower_bound" in got.flags
+        assert got.first_spike_latency_ms == pytest.approx(20.0)
+        for name in ("firing_rate_hz", "mean_isi_ms", "isi_cv", "adaptation_index"):
+            assert np.isnan(getattr(got, name)), name
+        # a gap before the first spike: an earlier spike may hide in it
+        v = sag_trace()
+        v[int(0.11 * RATE):int(0.115 * RATE)] = np.nan
+        assert np.isnan(sweep_features(v, RATE, self.STEP, times).first_spike_latency_ms)
+
+    def test_without_a_step_a_gap_makes_the_count_a_lower_bound(self):
+        v = np.full(int(0.8 * RATE), -65.0)
+        times = 0.02 + 0.05 * np.arange(16)
+        gaps = np.array([[int(0.5 * RATE), int(0.52 * RATE)]])
+        got = sweep_features(np.zeros(0), RATE, None, times, duration_s=0.8, gaps=gaps)
+        assert got.spike_count == 16 and np.isnan(got.firing_rate_hz)
+        assert got.flags == ("spike_count_lower_bound",)
+        assert sweep_features(v, RATE, None, times).flags == ()
+
+    def test_too_slow_for_spikes(self):
+        """At 1 kHz: the passive values are those of the same trace computed by hand (numpy
+        means over the windows); every firing value is empty."""
+        rate = 1000.0
+        v = sag_trace(rate=rate)
+        got = sweep_features(v, rate, self.STEP, np.array([]))
+        assert got.flags == ("too_slow_for_spikes",)
+        assert got.baseline_mv == pytest.approx(v[0:100].mean())
+        assert got.steady_state_mv == pytest.approx(v[500:600].mean())
+        for name in ("spike_count", "firing_rate_hz", "first_spike_latency_ms", "mean_isi_ms",
+                     "clipped_spike_count"):
+            assert np.isnan(getattr(got, name)), name

@@ -51,12 +51,21 @@ def test_step_from_times():
 
 
 class TestCheckSweep:
-    def test_nan_stretch_named(self):
+    def test_nan_stretch_is_measured_around_not_refused(self):
         v = np.full(2000, -70.0)
         v[1000:1100] = np.nan
+        check_sweep(Sweep(v, RATE, file="cell.nwb", index=4))  # no error
+
+    @pytest.mark.parametrize("bad", [np.nan, np.inf, -np.inf])
+    def test_nothing_left_is_refused_naming_the_sweep_and_stretch(self, bad):
+        """NaN or infinite almost everywhere: two finite samples are no stretch to measure."""
+        v = np.full(2000, bad)
+        v[1000:1002] = -70.0
         sweep = Sweep(v, RATE, file="cell.nwb", index=4)
         with pytest.raises(UnmeasurableDataError,
-                           match=r"cell\.nwb, sweep 4: 100 voltage samples are NaN.*0\.0500 s"):
+                           match=r"cell\.nwb, sweep 4: 1998 of 2000 voltage samples are NaN or "
+                                 r"infinite \(0\.0000-0\.0500 s, 0\.0501-0\.0999 s\).*nothing "
+                                 r"is left to measure"):
             check_sweep(sweep)
 
     def test_too_short(self):
@@ -68,6 +77,57 @@ class TestCheckSweep:
             check_sweep(Sweep(np.zeros(20), RATE, command_pa=np.zeros(10), file="x.txt"))
 
 
-def test_too_slow_sampling_is_refused():
-    with pytest.raises(UnmeasurableDataError, match=r"x\.txt, sweep 0: sampled at 1000 Hz"):
-        check_sweep(Sweep(np.zeros(100), 1000.0, file="x.txt"))
+def test_slow_sampling_is_measured_not_refused():
+    """1 kHz is too slow for spikes (the tables leave them empty) but not for passive values."""
+    check_sweep(Sweep(np.zeros(100), 1000.0, file="x.txt"))
+    with pytest.raises(UnmeasurableDataError, match=r"x\.txt, sweep 0: the sampling rate is 0 Hz"):
+        check_sweep(Sweep(np.zeros(100), 0.0, file="x.txt"))
+
+
+class TestMissingStretches:
+    """Source: stretches placed by hand (start, stop exclusive)."""
+
+    def test_stretches_at_the_ends_in_the_middle_and_one_sample_long(self):
+        from spikemeasure.sweeps import missing_stretches, stretches_text
+
+        v = np.zeros(100)
+        v[:3] = np.nan
+        v[50] = np.inf
+        v[60:62] = -np.inf
+        v[97:] = np.nan
+        got = missing_stretches(v)
+        assert got.tolist() == [[0, 3], [50, 51], [60, 62], [97, 100]]
+        assert stretches_text(got, 100.0) == ("0.0000-0.0200 s, 0.5000 s, 0.6000-0.6100 s, "
+                                              "and 1 more")
+        assert missing_stretches(np.zeros(5)).shape == (0, 2)
+
+
+class TestCommandWithGaps:
+    """Source: an analytic rectangular step (onset 0.05 s, offset 0.15 s, +50 pA on -20 pA)
+    with missing samples; the step is the same as without them."""
+
+    def test_gap_inside_the_step_and_before_it(self):
+        cmd = step_command(4000, RATE, 50.0, 0.05, 0.15, holding_pa=-20.0)
+        cmd[1500:1600] = np.nan     # inside the step
+        cmd[200:210] = np.inf       # in the holding stretch
+        step = find_current_step(cmd, RATE)
+        assert step is not None
+        assert (step.onset_s, step.offset_s) == (pytest.approx(0.05), pytest.approx(0.15))
+        assert step.size_pa == pytest.approx(50.0) and step.holding_pa == pytest.approx(-20.0)
+
+    def test_gap_at_the_onset_moves_it_to_the_first_sample_seen(self):
+        cmd = step_command(4000, RATE, 50.0, 0.05, 0.15)
+        cmd[990:1010] = np.nan      # around the onset sample 1000
+        step = find_current_step(cmd, RATE)
+        assert step.onset_s == pytest.approx(1010 / RATE)
+        assert step.offset_s == pytest.approx(0.15)
+
+    def test_a_zero_sweep_with_a_gap_over_the_window_gets_no_step(self):
+        from spikemeasure.sweeps import protocol_steps
+
+        n = 4000
+        cmds = [step_command(n, RATE, a, 0.05, 0.15) for a in (-50.0, 0.0)]
+        cmds[1][2000:2400] = np.nan   # the 0 pA sweep's window: its step may be in the gap
+        steps = protocol_steps([Sweep(np.zeros(n), RATE, c, index=k)
+                                for k, c in enumerate(cmds)])
+        assert steps[0] is not None and steps[1] is None
