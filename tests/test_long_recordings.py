@@ -291,6 +291,23 @@ def test_a_long_stimulus_that_starts_earlier_is_cut_to_the_response(tmp_path, ga
                                    atol=1e-6)
 
 
+def test_a_short_response_in_a_long_stimulus_gets_its_part(tmp_path, gap_free, small_pieces):
+    """NWB (pynwb): a 1 s response inside a 4 s stimulus that starts 1 s earlier; the stimulus
+    is long and left in the file, and its part under the response (by the starting times) is
+    the command, read whole as the response is."""
+    stimulus = np.zeros(gap_free.size)
+    stimulus[int(1.2 * RATE_HZ):int(1.7 * RATE_HZ)] = 80.0
+    response = gap_free[:int(RATE_HZ)]
+    path = write_nwb(tmp_path / "inside.nwb", [(response, stimulus)], rate_hz=RATE_HZ,
+                     stimulus_offset_s=-1.0)
+    with reading.read_recording(path) as rec:
+        sweep, = rec.sweeps
+        assert rec.problems == [] and not sweep.is_lazy
+        assert isinstance(sweep.command_pa, np.ndarray)
+        np.testing.assert_allclose(sweep.command_pa,
+                                   stimulus[int(RATE_HZ):2 * int(RATE_HZ)], atol=1e-6)
+
+
 # ------------------------------------------------------------------ declared sizes
 
 class _Unread(Exception):
