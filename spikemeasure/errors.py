@@ -20,3 +20,13 @@ class UnmeasurableDataError(SpikemeasureError):
 
 class InvalidSettingError(SpikemeasureError, ValueError):
     """A parameter is out of range or inconsistent with another."""
+
+
+class UnusableOutputError(SpikemeasureError):
+    """The output folder given cannot hold results (a file is in its place or above it, or
+    files cannot be created in it); nothing was measured."""
+
+
+class OutputWriteError(SpikemeasureError):
+    """Results could not be written during a run (a full disk); the message says what was and
+    was not written."""

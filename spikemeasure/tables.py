@@ -5,13 +5,14 @@ Nothing here reads or writes files; :mod:`spikemeasure.output` writes the tables
 from __future__ import annotations
 
 from dataclasses import dataclass, replace
+from typing import Callable
 
 import numpy as np
 
 from .cell_features import CellFeatures, cell_features
 from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, Column
 from .detection import DetectionSettings, detect_spikes, smoothed_trace
-from .errors import SpikemeasureError
+from .errors import InvalidSettingError, SpikemeasureError
 from .measurement import SpikeMeasurements, measure_in_pieces, measure_spikes
 from .reading import Recording
 from .sweep_features import SweepFeatures, sweep_features
@@ -43,7 +44,8 @@ def _clipped(spikes: SpikeMeasurements) -> int:
 
 
 def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(),
-                  step: CurrentStep | None = None) -> SweepResult:
+                  step: CurrentStep | None = None,
+                  cancel: Callable[[], None] | None = None) -> SweepResult:
     """Measure one sweep given its current step (see
     :func:`~spikemeasure.sweeps.protocol_steps`); a sweep that cannot be measured gives a result
     with `error` set.
@@ -51,13 +53,16 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
     A long gap-free sweep kept in its file (:attr:`Sweep.is_lazy`) is measured in pieces
     (:func:`~spikemeasure.measurement.measure_in_pieces`), with the same spikes as whole; one
     given a step (``--step``) is read whole, as its step features need all of it.
+    `cancel` (optional) is called between the pieces of a long sweep, and stops the work by
+    raising (see :func:`~spikemeasure.measurement.measure_in_pieces`).
     """
     try:
         if sweep.is_lazy and step is not None:
             sweep = replace(sweep, voltage_mv=np.asarray(sweep.voltage_mv))
         check_sweep(sweep)
         if sweep.is_lazy:
-            spikes = measure_in_pieces(sweep.voltage_mv, sweep.sampling_rate_hz, settings)
+            spikes = measure_in_pieces(sweep.voltage_mv, sweep.sampling_rate_hz, settings,
+                                       cancel=cancel)
             features = sweep_features(np.zeros(0), sweep.sampling_rate_hz, None,
                                       _spike_times(spikes), clipped_spike_count=_clipped(spikes),
                                       duration_s=sweep.duration_s)
@@ -80,14 +85,24 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
 
 def measure_recording(recording: Recording, settings: DetectionSettings = DetectionSettings(),
                       step_times: tuple[float, float] | None = None,
-                      step_sizes: tuple[float, float] | None = None) -> list[SweepResult]:
+                      step_sizes: tuple[float, float] | None = None, *,
+                      cancel: Callable[[], None] | None = None) -> list[SweepResult]:
     """Measure every sweep of a recording, in file order.
 
     `step_times` (start_s, end_s) and `step_sizes` (first_pa, increment_pa) describe the step
-    of sweeps without a command channel.
+    of sweeps without a command channel. `cancel` (optional) is called with no arguments
+    before each sweep and between the pieces of long sweeps; it stops the work by raising
+    (a run being stopped raises ``KeyboardInterrupt``), and its exception propagates.
     """
+    if cancel is not None and not callable(cancel):
+        raise InvalidSettingError("`cancel` must be callable or None")
     steps = protocol_steps(recording.sweeps, step_times, step_sizes)
-    return [measure_sweep(s, settings, step) for s, step in zip(recording.sweeps, steps)]
+    results = []
+    for s, step in zip(recording.sweeps, steps):
+        if cancel is not None:
+            cancel()
+        results.append(measure_sweep(s, settings, step, cancel))
+    return results
 
 
 def cell_summary(results: list[SweepResult]) -> CellFeatures:
