@@ -178,7 +178,10 @@ CELL_COLUMNS: tuple[Column, ...] = (
 ERROR_COLUMNS: tuple[Column, ...] = (
     Column("file", "", "The input file (or the path given, when it does not exist)."),
     Column("stage", "", "Where it failed: `input` (the path), `read` (the file or one of its "
-           "sweeps could not be read), or `sweep N` (sweep N could not be measured)."),
+           "sweeps could not be read), `sweep N` (sweep N could not be measured), `figures` "
+           "(the cell's figures could not be written), or `internal error` (an unexpected "
+           "exception while measuring the file, a bug: its traceback is in run.json, under "
+           "the file's entry in `inputs`; the file is tried again by the next run)."),
     Column("message", "", "What is wrong, naming the file and sweep, and how to fix it."),
 )
 

@@ -908,14 +908,18 @@ class _Run:
         try:
             write_files_atomic(files)
         except OSError as exc:
-            kept = ("run.json says the run is still running and the tables are those of "
-                    "the files finished before" if self.started_record else
-                    "the tables and run.json are as they were")
+            said = ("run.json there says this run is running" if self.started_record else
+                    "run.json there is as it was")
+            left = (f"the tables left in {summary.out_dir} are those written before"
+                    if summary.spikes_path.exists() else
+                    f"no tables are in {summary.out_dir}")
             raise OutputWriteError(
                 f"{exc.filename or summary.out_dir}: cannot write ({exc.strerror or exc}). Not "
-                f"written: {', '.join(p.name for p in files)}, {REPORT_FILE}; {kept} "
-                f"({self._finished_text(done)} this run). Free some space and run the same "
-                "command again") from exc
+                f"written: {', '.join(p.name for p in files)} (all or none, so that they never "
+                f"disagree) and {REPORT_FILE}; {left}, and {said} "
+                f"({self._finished_text(done)} in this run, kept "
+                "for a rerun where there was room). Free some space and run the same command "
+                "again") from exc
         from .report import write_report
 
         try:
