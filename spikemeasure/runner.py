@@ -603,25 +603,43 @@ STOP_POLL_S = 0.2
 
 def _run_in_pool(pending: list, parameters: dict, figures: dict | None, workers: int,
                  finish: Callable[[int, dict, Path], None], stop: _StopRequest) -> None:
-    """Measure the pending files in worker processes; on a stop, end the workers at once."""
+    """Measure the pending files in worker processes; on a stop, end the workers at once.
+
+    A worker that dies (killed, out of memory, a crash in a library) breaks the whole pool and
+    every file in it; those files are measured again one at a time, each in a pool of its own,
+    so that only the file that kills its worker fails."""
+    broken = _pool_round(pending, parameters, figures, workers, finish, stop)
+    for task in broken:
+        _pool_round([task], parameters, figures, 1, finish, stop, last_try=True)
+
+
+def _pool_round(pending: list, parameters: dict, figures: dict | None, workers: int,
+                finish: Callable[[int, dict, Path], None], stop: _StopRequest,
+                last_try: bool = False) -> list:
+    """One pool over `pending`; the tasks a broken pool took with it (unless `last_try`)."""
     pool = ProcessPoolExecutor(max_workers=workers, initializer=_start_worker,
                                initargs=(os.getpid(),))
+    broken = []
     try:
         futures = {pool.submit(measure_file, str(path), shown, parameters, figures):
-                   (k, shown, cache) for k, path, shown, cache in pending}
+                   (k, path, shown, cache) for k, path, shown, cache in pending}
         waiting = set(futures)
         while waiting:
             done, waiting = wait(waiting, timeout=STOP_POLL_S, return_when=FIRST_COMPLETED)
             for future in sorted(done, key=lambda f: futures[f][0]):
                 if stop.requested and future.exception() is not None:
                     continue  # a worker ended by the stop: no failure of its file
-                k, shown, cache = futures[future]
+                k, path, shown, cache = futures[future]
+                if not last_try and isinstance(future.exception(), BrokenProcessPool):
+                    broken.append((k, path, shown, cache))
+                    continue
                 finish(k, _pool_outcome(future, shown), cache)
             stop.check()
     except BaseException:
         _end_pool(pool)
         raise
     pool.shutdown(wait=True)
+    return sorted(broken, key=lambda task: task[0])
 
 
 def _pool_outcome(future, shown: str) -> dict:

@@ -444,3 +444,27 @@ def test_changed_column_declarations_measure_files_again(distinct_cells, tmp_pat
     with open(out / "spikes.csv", newline="") as fh:
         values = [row["threshold_mv"] for row in csv.DictReader(fh)]
     assert values and all(len(v.split(".")[1]) == 2 for v in values if v)
+
+
+def test_a_worker_that_dies_fails_its_file_only(distinct_cells, tmp_path, monkeypatch):
+    """A worker killed while measuring one file (as by the out-of-memory killer) breaks the
+    process pool; the files it took with it are measured again, and only that file fails."""
+    import multiprocessing
+    import os
+
+    from spikemeasure import runner
+
+    if multiprocessing.get_start_method() != "fork":
+        pytest.skip("the replaced function reaches the workers only when they are forked")
+    original = runner.measure_recording
+
+    def killed(recording, *args, **kwargs):
+        if recording.sweeps and recording.sweeps[0].file == "cell_03.nix":
+            os.kill(os.getpid(), signal.SIGKILL)
+        return original(recording, *args, **kwargs)
+
+    monkeypatch.setattr(runner, "measure_recording", killed)
+    summary = measure_paths([str(distinct_cells)], tmp_path / "out", jobs=2)
+    assert [f["file"] for f in summary.failures] == ["cell_03.nix"]
+    assert "ended unexpectedly" in summary.failures[0]["message"]
+    assert (summary.files_measured, summary.files_failed) == (11, 1)
