@@ -894,8 +894,8 @@ class _Run:
         """Count, write the batch figure, the tables with run.json (one set), and the report
         (also after an interruption)."""
         summary = self.summary
-        if not self.started_record and self.status == "failed" and not self.entries:
-            return  # stopped by an error before the run began: nothing of it to record
+        if not self.started_record and self.status == "failed":
+            return  # an error before the run began (its first record): nothing to record
         counts, inputs = self._tally(final=True)
         summary.inputs = inputs
         summary.failures = counts.failures

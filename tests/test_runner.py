@@ -52,6 +52,14 @@ def distinct_cells(tmp_path_factory):
     return root
 
 
+@pytest.fixture(scope="module")
+def distinct_reference(distinct_cells, tmp_path_factory):
+    """The tables of one uninterrupted run over `distinct_cells`."""
+    out = tmp_path_factory.mktemp("reference")
+    measure_paths([str(distinct_cells)], out, jobs=1)
+    return tables(out)
+
+
 def test_parallel_and_serial_tables_are_byte_identical(many_cells, tmp_path):
     serial = measure_paths([str(many_cells)], tmp_path / "serial", jobs=1)
     parallel = measure_paths([str(many_cells)], tmp_path / "parallel", jobs=2)
@@ -120,9 +128,8 @@ def test_rerun_reuses_unchanged_files_and_force_redoes(many_cells, tmp_path):
 
 
 @pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM, signal.SIGHUP, signal.SIGKILL])
-def test_interrupted_run_resumes_to_the_same_tables(distinct_cells, tmp_path, sig):
-    reference = tmp_path / "reference"
-    measure_paths([str(distinct_cells)], reference, jobs=1)
+def test_interrupted_run_resumes_to_the_same_tables(distinct_cells, distinct_reference,
+                                                    tmp_path, sig):
     out = tmp_path / "out"
     cmd = [sys.executable, "-m", "spikemeasure", "measure", str(distinct_cells), "--out", str(out),
            "--jobs", "1", "--quiet"]
@@ -167,7 +174,7 @@ def test_interrupted_run_resumes_to_the_same_tables(distinct_cells, tmp_path, si
     assert statuses.count("reused") == finished  # none measured twice
     assert statuses.count("measured") == 12 - finished  # none lost
     assert record["status"] == "complete" and record["interrupted"] is False
-    assert tables(out) == tables(reference)
+    assert tables(out) == distinct_reference
 
 
 def test_dask_cluster_gives_the_same_tables(many_cells, tmp_path):
@@ -220,12 +227,12 @@ def test_rerun_stopped_midway_never_passes_for_the_previous_run(distinct_cells, 
     """A rerun with a changed parameter, stopped midway: run.json and report.html speak of the
     new run (its parameters, not complete), never of the previous complete one."""
     out = tmp_path / "out"
-    first = subprocess.run(_measure_command(distinct_cells, out, "--jobs", "1"),
+    first = subprocess.run(_measure_command(distinct_cells, out, "--jobs", "1", "--no-figures"),
                            capture_output=True, text=True, timeout=300)
     assert first.returncode == 0, first.stderr
     assert json.loads((out / "run.json").read_text())["status"] == "complete"
     kept_before = _kept(out)
-    proc = subprocess.Popen(_measure_command(distinct_cells, out, "--jobs", "1",
+    proc = subprocess.Popen(_measure_command(distinct_cells, out, "--jobs", "1", "--no-figures",
                                              "--onset-rate", "25"),
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     assert _wait_for(lambda: proc.poll() is not None or _kept(out) >= kept_before + 3)
@@ -409,11 +416,9 @@ def test_measuring_can_be_cancelled_between_sweeps_and_pieces():
     assert len(calls) == 3
 
 
-def test_edited_kept_outcome_is_measured_again(distinct_cells, tmp_path):
+def test_edited_kept_outcome_is_measured_again(distinct_cells, distinct_reference, tmp_path):
     """A kept outcome whose content no longer matches its checksum is not reused: the file
     is measured again, with a note; the tables equal a fresh run's."""
-    reference = tmp_path / "reference"
-    measure_paths([str(distinct_cells)], reference, jobs=1)
     out = tmp_path / "out"
     measure_paths([str(distinct_cells)], out, jobs=1)
     kept = sorted((out / CACHE_FOLDER).glob("*.json"))
@@ -425,7 +430,7 @@ def test_edited_kept_outcome_is_measured_again(distinct_cells, tmp_path):
     again = measure_paths([str(distinct_cells)], out, jobs=1)
     assert (again.files_reused, again.files_measured) == (11, 1)
     assert any("checksum" in note for note in again.notes) and not again.failures
-    assert tables(out) == tables(reference)
+    assert tables(out) == distinct_reference
 
 
 def test_changed_column_declarations_measure_files_again(distinct_cells, tmp_path, monkeypatch):
