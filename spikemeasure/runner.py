@@ -8,8 +8,14 @@
 - Each file's outcome is kept in a cache under the output folder, named by the file's SHA-256
   and a hash of the parameters that affect it (and the tool's version). A rerun reuses the
   outcomes of unchanged files and measures only the rest; ``force=True`` redoes all.
-- Tables are written atomically, again every few seconds during a long run and at the end
-  (also after Ctrl-C), so an interrupted run leaves complete tables for the files finished.
+- run.json is written before any file is measured (``"status": "running"``), then with the
+  tables, as one set (all or none), every few seconds during a long run and at the end (also
+  after Ctrl-C, SIGTERM or SIGHUP: ``"interrupted"``), so an interrupted run leaves complete
+  tables for the files finished and a record that agrees with them.
+- Worker processes end with the run, however it ends; a worker that dies fails only its file;
+  a bug in one file's task fails that file (``internal error``), never the batch.
+- A kept outcome carries the SHA-256 of its content and is keyed by the output columns'
+  declarations as well: an edited one, or one of an older layout, is not reused.
 - Figures (optional) are drawn in each file's task while its recording is in memory, into
   ``figures/<file>/``; the batch figure and ``report.html`` are written at the end of the run
   (also after Ctrl-C), from the outcomes. Figure options never change the tables, and are not
