@@ -231,7 +231,8 @@ def _cell_figures(recording, results, cell, settings: DetectionSettings, shown: 
                   figures: dict, failures: list[dict]) -> list[str]:
     """Draw one cell's figures while its recording is in memory; their paths, relative to the
     output folder. A figure that cannot be written (disk full, permissions) is a failure of
-    the file's ``figures`` stage; its tables stand."""
+    the file's ``figures`` stage, and so is an unexpected exception while drawing (with its
+    traceback); its tables stand either way."""
     from .figures import write_cell_figures
 
     folder = cell_figure_folder(shown)
@@ -240,6 +241,12 @@ def _cell_figures(recording, results, cell, settings: DetectionSettings, shown: 
                                    figures["format"], settings=settings, cell=cell)
     except OSError as exc:
         failures.append(_failure(shown, "figures", f"{shown}: cannot write its figures ({exc})"))
+        return []
+    except Exception as exc:  # a bug in drawing: the measurements stand
+        failures.append(dict(_failure(
+            shown, "figures", f"{shown}: internal error ({type(exc).__name__}) while drawing "
+            "its figures; its tables stand. This is a bug: please report it with the traceback "
+            "in run.json (or run with --debug)"), traceback=traceback.format_exc()))
         return []
     return [f"{folder}/{name}" for name in names]
 
@@ -771,9 +778,14 @@ class _Run:
     def keep(self, k: int, outcome: dict, cache: Path | None) -> None:
         """Keep a file's outcome for a rerun (first: a table never holds a file a rerun would
         redo), then for this run's tables. An internal error is not kept: a rerun retries."""
+        try:
+            text = _cache_text(outcome)
+        except (TypeError, ValueError) as exc:  # not plain data: a bug in the file's task
+            outcome = _internal_error_outcome(outcome.get("file", str(cache)), exc,
+                                              traceback.format_exc())
         if cache is not None and not _is_internal_error(outcome):
             try:
-                write_text_atomic(cache, _cache_text(outcome))
+                write_text_atomic(cache, text)
             except OSError as exc:
                 self.summary.notes.append(
                     f"{cache}: cannot keep the outcome of {outcome['file']} for a rerun "

@@ -473,3 +473,29 @@ def test_a_worker_that_dies_fails_its_file_only(distinct_cells, tmp_path, monkey
     assert [f["file"] for f in summary.failures] == ["cell_03.nix"]
     assert "ended unexpectedly" in summary.failures[0]["message"]
     assert (summary.files_measured, summary.files_failed) == (11, 1)
+
+
+def test_a_bug_in_drawing_keeps_the_files_tables(distinct_cells, tmp_path, monkeypatch):
+    """An unexpected exception while drawing one cell's figures is a failure of its figures;
+    its rows stand and the other cells are drawn."""
+    from spikemeasure import figures
+
+    original = figures.write_cell_figures
+
+    def buggy(recording, *args, **kwargs):
+        if recording.sweeps[0].file == "cell_05.nix":
+            raise ValueError("a drawing bug")
+        return original(recording, *args, **kwargs)
+
+    monkeypatch.setattr(figures, "write_cell_figures", buggy)
+    out = tmp_path / "out"
+    summary = measure_paths([str(distinct_cells)], out, jobs=1, figure_format="png")
+    assert summary.files_measured == 12
+    assert [(f["file"], f["stage"]) for f in summary.failures] == [("cell_05.nix", "figures")]
+    assert "ValueError" in summary.failures[0]["message"]
+    with open(out / "cells.csv", newline="") as fh:
+        assert len(list(csv.DictReader(fh))) == 12
+    record = json.loads((out / "run.json").read_text())
+    entry = {i["file"]: i for i in record["inputs"]}["cell_05.nix"]
+    assert "a drawing bug" in entry["traceback"]
+    assert (out / "figures" / "cell_04.nix").is_dir()
