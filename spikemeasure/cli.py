@@ -1,14 +1,17 @@
 """The ``spikemeasure`` command: a thin layer over the Python API.
 
 Exit codes of ``measure`` and ``inspect``: 0 everything was measured; 1 any file or sweep
-failed (the rest were measured and errors.csv says what failed), or an error; 2 a usage error
-(a bad option, a bad option value, a malformed or invalid project file); 130 interrupted
-(Ctrl-C), after writing the tables of the files finished.
+failed (the rest were measured and errors.csv says what failed), or an error (also a write
+that failed during the run, e.g. a full disk); 2 a usage error (a bad option, a bad option
+value, a malformed or invalid project file, an --out that cannot be used); 128 + the signal's
+number when stopped by a signal (130 Ctrl-C, 143 SIGTERM, 129 SIGHUP), after writing the
+tables of the files finished.
 ``check`` and ``accept``: 0 all checks passed (or the results were accepted); 1 a check
 failed; 2 a usage or input error (missing tables, a bad project file); 130 interrupted.
 """
 from __future__ import annotations
 
+import signal
 import sys
 
 import click
@@ -16,7 +19,7 @@ import click
 from . import __version__
 from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, columns_markdown
 from .detection import THRESHOLD_METHODS, DetectionSettings
-from .errors import SpikemeasureError
+from .errors import SpikemeasureError, UnusableOutputError
 
 EXIT_INTERRUPTED = 130
 
@@ -105,7 +108,7 @@ def _run_parameters(ctx: click.Context, paths, config_path, values: dict):
     """Command line over the project file over the defaults (see spikemeasure.config)."""
     from click.core import ParameterSource
 
-    from .config import find_project_file, load_config, merge_parameters
+    from .config import find_project_file, merge_parameters
 
     path = config_path or find_project_file(list(paths))
     file_values = _checked_project_file(path)[0] if path else {}
@@ -138,7 +141,8 @@ class _Context:
 
 
 class _InputError(click.ClickException):
-    """A usage error, or an input problem of check or accept: 'Error: ...' and exit code 2."""
+    """A usage error (a bad project file or option value, an --out that cannot be used), or an
+    input problem of check or accept: 'Error: ...' and exit code 2."""
 
     exit_code = 2
 
@@ -151,7 +155,7 @@ def _fail(ctx: click.Context, exc: Exception) -> None:
 
     if ctx.find_object(_Context).debug:
         raise exc
-    if isinstance(exc, (ConfigError, InvalidSettingError)):
+    if isinstance(exc, (ConfigError, InvalidSettingError, UnusableOutputError)):
         raise _InputError(str(exc)) from exc
     raise click.ClickException(str(exc)) from exc
 
@@ -262,14 +266,18 @@ def measure(ctx: click.Context, paths, out_dir, jobs, force, patterns, cluster, 
                                 cluster=cluster,
                                 figure_format=None if no_figures else figure_format,
                                 groups=groups, progress=progress)
-    except KeyboardInterrupt:
+    except KeyboardInterrupt as exc:
         if progress is not None:
             progress.close()
-        click.echo(f"Interrupted: the tables in {out_dir} hold the files finished; run the "
+        signum = int(getattr(exc, "signum", signal.SIGINT))
+        click.echo(f"Interrupted ({signal.Signals(signum).name}): the tables in {out_dir} hold "
+                   "the files finished and run.json says the run was interrupted; run the "
                    "same command again to measure the rest.", err=True)
-        ctx.exit(EXIT_INTERRUPTED)
+        ctx.exit(128 + signum)
         return
     except SpikemeasureError as exc:
+        if progress is not None:
+            progress.close()
         _fail(ctx, exc)
         return
     if progress is not None:
@@ -286,6 +294,11 @@ def measure(ctx: click.Context, paths, out_dir, jobs, force, patterns, cluster, 
         click.echo(f"{len(summary.failures)} problems (also in {summary.errors_path}):", err=True)
         for f in summary.failures:
             click.echo(f"  {f['message']}", err=True)
+    if ctx.find_object(_Context).debug:
+        for entry in summary.inputs:
+            if entry.get("traceback"):
+                click.echo(f"Traceback of the internal error in {entry['file']}:\n"
+                           f"{entry['traceback']}", err=True)
     if summary.nothing_measured:
         click.echo("Error: nothing could be measured", err=True)
     if summary.failures or summary.nothing_measured:

@@ -193,7 +193,10 @@ ERROR_COLUMNS: tuple[Column, ...] = (
     Column("stage", "", "Where it failed: `input` (a path given that does not exist, a folder "
            "that cannot be searched, a path longer than the system allows, a symbolic link not "
            "followed, a file that is not a regular file), `read` (the file or one of its "
-           "sweeps could not be read), or `sweep N` (sweep N could not be measured)."),
+           "sweeps could not be read), `sweep N` (sweep N could not be measured), `figures` "
+           "(the cell's figures could not be written), or `internal error` (an unexpected "
+           "exception while measuring the file, a bug: its traceback is in run.json, under "
+           "the file's entry in `inputs`; the file is tried again by the next run)."),
     Column("message", "", "What is wrong, naming the file and sweep, and how to fix it."),
 )
 

@@ -8,7 +8,8 @@ not UTF-8, or that holds control characters, never breaks a table, a page or a t
 from __future__ import annotations
 
 __all__ = ["SpikemeasureError", "UnreadableInputError", "UnmeasurableDataError",
-           "InvalidSettingError", "valid_text", "printable_name"]
+           "InvalidSettingError", "UnusableOutputError", "OutputWriteError", "valid_text",
+           "printable_name"]
 
 
 class SpikemeasureError(Exception):
@@ -85,3 +86,13 @@ def _escape_char(c: str) -> str:
     if code < 0x10000:
         return f"\\u{code:04x}"
     return f"\\U{code:08x}"
+
+
+class UnusableOutputError(SpikemeasureError):
+    """The output folder given cannot hold results (a file is in its place or above it, or
+    files cannot be created in it); nothing was measured."""
+
+
+class OutputWriteError(SpikemeasureError):
+    """Results could not be written during a run (a full disk); the message says what was and
+    was not written."""

@@ -786,7 +786,6 @@ def step_response_figure(results: Sequence[SweepResult], cell: CellFeatures | No
                       if measured else "no sweep could be measured")
             return fig
         rate = np.array([r.features.firing_rate_hz for r in measured], dtype=float)
-        count = np.array([r.features.spike_count for r in measured], dtype=float)
         dv = np.array([r.features.steady_state_mv - r.features.baseline_mv for r in measured],
                       dtype=float)
         order = np.argsort(stim)

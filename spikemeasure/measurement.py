@@ -8,6 +8,7 @@ spike's flags say why.
 from __future__ import annotations
 
 from dataclasses import dataclass, fields, replace
+from typing import Callable
 
 import numpy as np
 from scipy.interpolate import CubicSpline
@@ -933,7 +934,8 @@ def _shifted(m: SpikeMeasurements, shift_s: float) -> SpikeMeasurements:
 
 def measure_in_pieces(voltage_mv, sampling_rate_hz: float,
                       settings: DetectionSettings = DetectionSettings(), *,
-                      piece_samples: int | None = None) -> SpikeMeasurements:
+                      piece_samples: int | None = None,
+                      cancel: Callable[[], None] | None = None) -> SpikeMeasurements:
     """Detect and measure the spikes of a long gap-free trace, one piece at a time.
 
     Parameters
@@ -947,6 +949,9 @@ def measure_in_pieces(voltage_mv, sampling_rate_hz: float,
     piece_samples : int, optional
         Samples per piece (default :data:`PIECE_SAMPLES`); memory use is a small multiple of
         it and of the margins, whatever the length of the trace.
+    cancel : callable, optional
+        Called with no arguments before each piece is read; it stops the work by raising
+        (a run being stopped raises ``KeyboardInterrupt`` from it). Its exception propagates.
 
     Returns
     -------
@@ -969,14 +974,17 @@ def measure_in_pieces(voltage_mv, sampling_rate_hz: float,
     (:func:`measure_in_pieces_with_gaps` also returns where the gaps are).
     """
     return measure_in_pieces_with_gaps(voltage_mv, sampling_rate_hz, settings,
-                                       piece_samples=piece_samples)[0]
+                                       piece_samples=piece_samples, cancel=cancel)[0]
 
 
 def measure_in_pieces_with_gaps(voltage_mv, sampling_rate_hz: float,
                                 settings: DetectionSettings = DetectionSettings(), *,
-                                piece_samples: int | None = None
+                                piece_samples: int | None = None,
+                                cancel: Callable[[], None] | None = None
                                 ) -> tuple[SpikeMeasurements, np.ndarray]:
     """:func:`measure_in_pieces`, and the missing stretches found while reading.
+
+    Takes the arguments of :func:`measure_in_pieces`.
 
     Returns
     -------
@@ -990,11 +998,15 @@ def measure_in_pieces_with_gaps(voltage_mv, sampling_rate_hz: float,
     piece_samples = int(PIECE_SAMPLES if piece_samples is None else piece_samples)
     if piece_samples < 1:
         raise InvalidSettingError("`piece_samples` must be at least 1")
+    if cancel is not None and not callable(cancel):
+        raise InvalidSettingError("`cancel` must be callable or None")
     n = len(voltage_mv)
     margin = piece_margin_samples(settings, rate)
     parts: list[SpikeMeasurements] = []
     gaps: list[list[int]] = []
     for start in range(0, n, piece_samples):
+        if cancel is not None:
+            cancel()
         stop = min(n, start + piece_samples)
         lo, hi = max(0, start - margin), min(n, stop + margin)
         v = np.asarray(voltage_mv[lo:hi], dtype=float)

@@ -16,14 +16,16 @@ import io
 import json
 import os
 import tempfile
+from collections.abc import Mapping
 from pathlib import Path
 
 from .columns import SPIKE_COLUMNS, Column
 from .errors import InvalidSettingError, valid_text
 from .tables import format_rows
 
-__all__ = ["write_text_atomic", "write_bytes_atomic", "write_table_csv", "write_rows_csv",
-           "write_json", "escape_csv_text", "unescape_csv_text", "TEXT_COLUMN_NAMES"]
+__all__ = ["write_text_atomic", "write_bytes_atomic", "write_files_atomic", "write_table_csv",
+           "write_rows_csv", "write_json", "rows_csv_text", "json_text", "escape_csv_text",
+           "unescape_csv_text", "TEXT_COLUMN_NAMES"]
 
 #: Columns of the tables that hold text (all others hold numbers, empty when not measured).
 TEXT_COLUMN_NAMES = frozenset({"file", "flags", "stage", "message"})
@@ -48,9 +50,9 @@ def write_text_atomic(path: str | os.PathLike, text: str) -> Path:
     return write_bytes_atomic(path, valid_text(text).encode("utf-8"))
 
 
-def write_bytes_atomic(path: str | os.PathLike, data: bytes) -> Path:
-    """Write `data` to `path` through a temporary file in the same folder, fsync, rename."""
-    target = Path(path)
+def _write_temporary(target: Path, data: bytes) -> str:
+    """Write `data` to a new temporary file beside `target` (flushed to disk); its path. On
+    any failure nothing is left behind."""
     target.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
     try:
@@ -59,14 +61,62 @@ def write_bytes_atomic(path: str | os.PathLike, data: bytes) -> Path:
             fh.flush()
             os.fsync(fh.fileno())
         os.chmod(tmp, 0o666 & ~_UMASK)  # as an ordinary new file: mkstemp makes it private
-        os.replace(tmp, target)
     except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
+        _remove(tmp)
         raise
-    return target
+    return tmp
+
+
+def _remove(tmp: str) -> None:
+    try:
+        os.unlink(tmp)
+    except FileNotFoundError:
+        pass
+
+
+def write_bytes_atomic(path: str | os.PathLike, data: bytes) -> Path:
+    """Write `data` to `path` through a temporary file in the same folder, fsync, rename."""
+    return write_files_atomic({path: data})[0]
+
+
+def write_files_atomic(contents: Mapping[str | os.PathLike, bytes]) -> list[Path]:
+    """Write several files all or none: every one to a temporary file first, then all renamed.
+
+    Parameters
+    ----------
+    contents : mapping of path to bytes
+        Each file's new content.
+
+    Returns
+    -------
+    list of Path
+        The files written, in the order given.
+
+    Raises
+    ------
+    OSError
+        A temporary file could not be written (a full disk, permissions): every temporary file
+        is removed and none of the files is changed. The error's ``filename`` is the file
+        whose content could not be written.
+    """
+    if not isinstance(contents, Mapping):
+        raise TypeError("`contents` must map paths to bytes")
+    pending: list[tuple[str, Path]] = []
+    try:
+        for path, data in contents.items():
+            target = Path(path)
+            try:
+                pending.append((_write_temporary(target, bytes(data)), target))
+            except OSError as exc:
+                exc.filename = str(target)
+                raise
+        for tmp, target in pending:
+            os.replace(tmp, target)
+    except BaseException:
+        for tmp, _ in pending:
+            _remove(tmp)
+        raise
+    return [target for _, target in pending]
 
 
 def write_table_csv(path: str | os.PathLike, table: dict[str, list],
@@ -124,9 +174,8 @@ def _csv_cell(text: str) -> str:
     return text
 
 
-def write_rows_csv(path: str | os.PathLike, columns: tuple[Column, ...],
-                   rows: list[list[str]]) -> Path:
-    """Write already formatted rows under the declared header, atomically.
+def rows_csv_text(columns: tuple[Column, ...], rows: list[list[str]]) -> str:
+    """Already formatted rows under the declared header, as CSV text.
 
     Cells of :data:`TEXT_COLUMN_NAMES` pass through :func:`escape_csv_text` and, when escaped,
     are quoted; numbers never change.
@@ -137,7 +186,7 @@ def write_rows_csv(path: str | os.PathLike, columns: tuple[Column, ...],
     writer.writerow([c.name for c in columns])
     for row in rows:
         if len(row) != len(columns):
-            raise InvalidSettingError(f"{path}: a row of {len(row)} cells under a header of "
+            raise InvalidSettingError(f"a row of {len(row)} cells under a header of "
                                       f"{len(columns)}")
         escaped = {k for k in text_columns
                    if row[k][:1] in _FIRST_TO_CHECK and row[k] != escape_csv_text(row[k])}
@@ -146,7 +195,20 @@ def write_rows_csv(path: str | os.PathLike, columns: tuple[Column, ...],
             continue
         buffer.write(",".join('"' + escape_csv_text(v).replace('"', '""') + '"' if k in escaped
                               else _csv_cell(v) for k, v in enumerate(row)) + "\n")
-    return write_text_atomic(path, buffer.getvalue())
+    return buffer.getvalue()
+
+
+def write_rows_csv(path: str | os.PathLike, columns: tuple[Column, ...],
+                   rows: list[list[str]]) -> Path:
+    """Write already formatted rows under the declared header, atomically
+    (:func:`rows_csv_text`)."""
+    return write_text_atomic(path, rows_csv_text(columns, rows))
+
+
+def json_text(record: dict) -> str:
+    """A record as the indented JSON text of :func:`write_json`; strings that are not valid
+    Unicode (lone surrogates) are written with backslash escapes."""
+    return json.dumps(_valid_strings(record), indent=2, default=str) + "\n"
 
 
 def _valid_strings(value):
@@ -161,7 +223,5 @@ def _valid_strings(value):
 
 
 def write_json(path: str | os.PathLike, record: dict) -> Path:
-    """Write `record` as indented JSON, atomically; strings that are not valid Unicode (lone
-    surrogates) are written with backslash escapes, never as lone surrogate escapes."""
-    return write_text_atomic(path, json.dumps(_valid_strings(record), indent=2, default=str)
-                             + "\n")
+    """Write `record` as indented JSON (:func:`json_text`), atomically."""
+    return write_text_atomic(path, json_text(record))

@@ -201,6 +201,16 @@ def _image(folder: Path, relative: str, alt: str, embed: bool) -> str:
             f'<figcaption>{_e(Path(relative).as_posix())}</figcaption></figure>')
 
 
+#: What the report says of each run.json status.
+_RUN_STATUS_TEXT = {
+    "running": "in progress (or killed): this report does not hold the run's results yet; "
+               "run.json and the tables are refreshed as files finish",
+    "interrupted": "interrupted: the tables hold the files finished",
+    "failed": "stopped by an error: the tables hold the files finished",
+    "complete": "complete",
+}
+
+
 def report_html(record: dict, cell_rows: Sequence[Sequence[str]],
                 folder: str | os.PathLike) -> str:
     """The text of ``report.html``.
@@ -237,8 +247,8 @@ def report_html(record: dict, cell_rows: Sequence[Sequence[str]],
         '<h2 id="run">Run</h2>',
     ]
     versions = record.get("versions", {})
-    status = "interrupted: the tables hold the files finished" if record.get("interrupted") \
-        else "complete"
+    status = _RUN_STATUS_TEXT.get(record.get("status") or (
+        "interrupted" if record.get("interrupted") else "complete"), "unknown")
     summary_rows = [
         ("started", record.get("started")), ("duration", f"{record.get('seconds', 0):g} s"),
         ("status", status),

@@ -5,13 +5,14 @@ Nothing here reads or writes files; :mod:`spikemeasure.output` writes the tables
 from __future__ import annotations
 
 from dataclasses import dataclass, replace
+from typing import Callable
 
 import numpy as np
 
 from .cell_features import CellFeatures, cell_features
 from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, Column
 from .detection import DetectionSettings, detect_spikes, smoothed_trace
-from .errors import SpikemeasureError, UnmeasurableDataError
+from .errors import InvalidSettingError, SpikemeasureError, UnmeasurableDataError
 from .measurement import (PIECE_SAMPLES, SpikeMeasurements, measure_around_gaps,
                           measure_in_pieces_with_gaps, measure_spikes)
 from .reading import Recording
@@ -69,7 +70,8 @@ def _clipped(spikes: SpikeMeasurements) -> int:
 
 
 def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(),
-                  step: CurrentStep | None = None) -> SweepResult:
+                  step: CurrentStep | None = None,
+                  cancel: Callable[[], None] | None = None) -> SweepResult:
     """Measure one sweep given its current step (see
     :func:`~spikemeasure.sweeps.protocol_steps`); a sweep that cannot be measured gives a result
     with `error` set.
@@ -86,6 +88,9 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
     values kept (flag ``too_slow_for_spikes``). A sweep missing more than half its samples,
     with no spike and no value left, is an error naming the gaps; with less missing, "no spike
     in what is there" is reported (a count of 0, flagged as a lower bound).
+
+    `cancel` (optional) is called between the pieces of a long sweep, and stops the work by
+    raising (see :func:`~spikemeasure.measurement.measure_in_pieces`).
     """
     rate = sweep.sampling_rate_hz
     try:
@@ -95,9 +100,10 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
         counted = spikes_measurable(rate)
         if sweep.is_lazy:
             if counted:
-                spikes, gaps = measure_in_pieces_with_gaps(sweep.voltage_mv, rate, settings)
+                spikes, gaps = measure_in_pieces_with_gaps(sweep.voltage_mv, rate, settings,
+                                                           cancel=cancel)
             else:
-                spikes, gaps = _no_spikes(), _lazy_gaps(sweep)
+                spikes, gaps = _no_spikes(), _lazy_gaps(sweep, cancel)
             features = sweep_features(np.zeros(0), rate, None,
                                       _spike_times(spikes), clipped_spike_count=_clipped(spikes),
                                       duration_s=sweep.duration_s, gaps=gaps,
@@ -144,11 +150,13 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
     return SweepResult(sweep, step, spikes, features)
 
 
-def _lazy_gaps(sweep: Sweep) -> np.ndarray:
+def _lazy_gaps(sweep: Sweep, cancel=None) -> np.ndarray:
     """Missing stretches of a long sweep kept in its file, read piece by piece."""
     found = []
     n = sweep.n_samples
     for start in range(0, n, PIECE_SAMPLES):
+        if cancel is not None:
+            cancel()
         part = sweep.voltage_mv[start:min(n, start + PIECE_SAMPLES)]
         for a, b in missing_stretches(part):
             if found and found[-1][1] == start + a:
@@ -160,14 +168,24 @@ def _lazy_gaps(sweep: Sweep) -> np.ndarray:
 
 def measure_recording(recording: Recording, settings: DetectionSettings = DetectionSettings(),
                       step_times: tuple[float, float] | None = None,
-                      step_sizes: tuple[float, float] | None = None) -> list[SweepResult]:
+                      step_sizes: tuple[float, float] | None = None, *,
+                      cancel: Callable[[], None] | None = None) -> list[SweepResult]:
     """Measure every sweep of a recording, in file order.
 
     `step_times` (start_s, end_s) and `step_sizes` (first_pa, increment_pa) describe the step
-    of sweeps without a command channel.
+    of sweeps without a command channel. `cancel` (optional) is called with no arguments
+    before each sweep and between the pieces of long sweeps; it stops the work by raising
+    (a run being stopped raises ``KeyboardInterrupt``), and its exception propagates.
     """
+    if cancel is not None and not callable(cancel):
+        raise InvalidSettingError("`cancel` must be callable or None")
     steps = protocol_steps(recording.sweeps, step_times, step_sizes)
-    return [measure_sweep(s, settings, step) for s, step in zip(recording.sweeps, steps)]
+    results = []
+    for s, step in zip(recording.sweeps, steps):
+        if cancel is not None:
+            cancel()
+        results.append(measure_sweep(s, settings, step, cancel))
+    return results
 
 
 def cell_summary(results: list[SweepResult]) -> CellFeatures:

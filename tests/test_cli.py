@@ -332,3 +332,68 @@ def test_inspect_names_a_file_not_utf8_as_text(folder):
     assert r.exit_code == 0, r.output
     first = r.output.splitlines()[0]
     assert first.startswith("file:") and first.split()[1].endswith("caf\\xe9.nix")
+
+
+def test_out_below_a_regular_file_is_a_usage_error(folder, tmp_path):
+    a_file = tmp_path / "notes.txt"
+    a_file.write_text("not a folder\n")
+    r = run(["measure", str(folder), "--out", str(a_file / "results")])
+    assert r.exit_code == 2, r.output
+    assert r.output.startswith("Error: ") and str(a_file) in r.output
+    assert "is a file, not a folder" in r.output and "Traceback" not in r.output
+    assert a_file.read_text() == "not a folder\n"
+
+
+def test_out_that_cannot_be_written_is_a_usage_error(folder, tmp_path, monkeypatch):
+    """A read-only --out (simulated: the superuser may write anywhere, so a mode cannot stand
+    for it in a test): 'Error:' naming the folder, exit 2, nothing measured."""
+    import errno
+    import tempfile
+
+    out = tmp_path / "read_only"
+    out.mkdir()
+    original = tempfile.mkstemp
+
+    def refuse(*args, **kwargs):
+        if str(kwargs.get("dir", "")).startswith(str(out)):
+            raise PermissionError(errno.EACCES, "Permission denied")
+        return original(*args, **kwargs)
+
+    monkeypatch.setattr(tempfile, "mkstemp", refuse)
+    r = run(["measure", str(folder), "--out", str(out)])
+    assert r.exit_code == 2, r.output
+    assert r.output.startswith("Error: ") and str(out) in r.output
+    assert "Permission denied" in r.output and "Traceback" not in r.output
+    assert list(out.iterdir()) == []
+
+
+def test_full_disk_during_the_run_keeps_the_tables_written(folder, tmp_path, monkeypatch):
+    """No space left while the final tables are written: 'Error:' naming the file and saying
+    what was not written, exit 1, the earlier tables intact and no temporary files left."""
+    import errno
+    import tempfile
+
+    out = tmp_path / "results"
+    assert run(["measure", str(folder), "--out", str(out), "--no-figures"]).exit_code == 1
+    before = {name: (out / name).read_bytes() for name in
+              ("spikes.csv", "sweeps.csv", "cells.csv", "errors.csv")}
+    original = tempfile.mkstemp
+
+    def disk_full_for_cells(*args, **kwargs):
+        if str(kwargs.get("prefix", "")).startswith(".cells.csv"):
+            raise OSError(errno.ENOSPC, "No space left on device")
+        return original(*args, **kwargs)
+
+    monkeypatch.setattr(tempfile, "mkstemp", disk_full_for_cells)
+    r = run(["measure", str(folder), "--out", str(out), "--no-figures", "--force",
+             "--onset-rate", "25"])
+    assert r.exit_code == 1, r.output
+    assert "Traceback" not in r.output and "Error: " in r.output
+    assert str(out / "cells.csv") in r.output and "No space left on device" in r.output
+    assert "Not written" in r.output
+    # all tables or none: the earlier ones stay, side by side, as they were
+    assert {name: (out / name).read_bytes() for name in before} == before
+    assert not list(out.glob(".*.part"))
+    # and run.json does not say this run is complete
+    record = json.loads((out / "run.json").read_text())
+    assert record["status"] != "complete"

@@ -53,6 +53,14 @@ def distinct_cells(tmp_path_factory):
     return root
 
 
+@pytest.fixture(scope="module")
+def distinct_reference(distinct_cells, tmp_path_factory):
+    """The tables of one uninterrupted run over `distinct_cells`."""
+    out = tmp_path_factory.mktemp("reference")
+    measure_paths([str(distinct_cells)], out, jobs=1)
+    return tables(out)
+
+
 def test_parallel_and_serial_tables_are_byte_identical(many_cells, tmp_path):
     serial = measure_paths([str(many_cells)], tmp_path / "serial", jobs=1)
     parallel = measure_paths([str(many_cells)], tmp_path / "parallel", jobs=2)
@@ -120,10 +128,9 @@ def test_rerun_reuses_unchanged_files_and_force_redoes(many_cells, tmp_path):
     assert first.spikes > 0
 
 
-@pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGKILL])
-def test_interrupted_run_resumes_to_the_same_tables(distinct_cells, tmp_path, sig):
-    reference = tmp_path / "reference"
-    measure_paths([str(distinct_cells)], reference, jobs=1)
+@pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM, signal.SIGHUP, signal.SIGKILL])
+def test_interrupted_run_resumes_to_the_same_tables(distinct_cells, distinct_reference,
+                                                    tmp_path, sig):
     out = tmp_path / "out"
     cmd = [sys.executable, "-m", "spikemeasure", "measure", str(distinct_cells), "--out", str(out),
            "--jobs", "1", "--quiet"]
@@ -139,11 +146,17 @@ def test_interrupted_run_resumes_to_the_same_tables(distinct_cells, tmp_path, si
     _, err = proc.communicate(timeout=120)
     finished = len(list(cache.glob("*.json")))
     assert 3 <= finished < 12
-    if sig == signal.SIGINT:
-        assert proc.returncode == 130 and "Interrupted" in err
-        record = json.loads((out / "run.json").read_text())
+    record = json.loads((out / "run.json").read_text())
+    if sig == signal.SIGKILL:
+        # written before the first file was measured: a killed run is never "complete"
+        assert record["status"] == "running" and record["interrupted"] is False
+        assert len(record["inputs"]) == 12
+    else:
+        # Ctrl-C, SIGTERM and SIGHUP alike: the shell's code for the signal (128 + its number)
+        assert proc.returncode == 128 + sig and "Interrupted" in err
+        assert signal.Signals(sig).name in err and "Traceback" not in err
         done = [i for i in record["inputs"] if i["status"] == "measured"]
-        assert record["interrupted"] is True
+        assert record["interrupted"] is True and record["status"] == "interrupted"
         with open(out / "cells.csv", newline="") as fh:
             cells = [row["file"] for row in csv.DictReader(fh)]
         # complete tables for the files finished; each of them is kept for the rerun (the
@@ -161,7 +174,8 @@ def test_interrupted_run_resumes_to_the_same_tables(distinct_cells, tmp_path, si
     statuses = [i["status"] for i in record["inputs"]]
     assert statuses.count("reused") == finished  # none measured twice
     assert statuses.count("measured") == 12 - finished  # none lost
-    assert tables(out) == tables(reference)
+    assert record["status"] == "complete" and record["interrupted"] is False
+    assert tables(out) == distinct_reference
 
 
 def test_dask_cluster_gives_the_same_tables(many_cells, tmp_path):
@@ -374,3 +388,302 @@ def test_text_cells_escaped_numbers_not_and_read_back_by_csv(tmp_path):
     row = ["=c.nix"] + ["-55.2"] * (len(CELL_COLUMNS) - 1)
     cells = write_rows_csv(tmp_path / "cells.csv", CELL_COLUMNS, [row]).read_text()
     assert cells.splitlines()[1].startswith("\"'=c.nix\",-55.2,-55.2")
+
+
+def _wait_for(condition, limit_s: float = 120.0) -> bool:
+    """Poll `condition` until it holds or `limit_s` passes (a bounded wait, not a timing)."""
+    deadline = time.time() + limit_s
+    while time.time() < deadline:
+        if condition():
+            return True
+        time.sleep(0.05)
+    return condition()
+
+
+def _measure_command(folder: Path, out: Path, *extra: str) -> list[str]:
+    return [sys.executable, "-m", "spikemeasure", "measure", str(folder), "--out", str(out),
+            "--quiet", *extra]
+
+
+def _kept(out: Path) -> int:
+    cache = out / CACHE_FOLDER
+    return len(list(cache.glob("*.json"))) if cache.exists() else 0
+
+
+@pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGKILL])
+def test_rerun_stopped_midway_never_passes_for_the_previous_run(distinct_cells, tmp_path, sig):
+    """A rerun with a changed parameter, stopped midway: run.json and report.html speak of the
+    new run (its parameters, not complete), never of the previous complete one."""
+    out = tmp_path / "out"
+    first = subprocess.run(_measure_command(distinct_cells, out, "--jobs", "1", "--no-figures"),
+                           capture_output=True, text=True, timeout=300)
+    assert first.returncode == 0, first.stderr
+    assert json.loads((out / "run.json").read_text())["status"] == "complete"
+    kept_before = _kept(out)
+    proc = subprocess.Popen(_measure_command(distinct_cells, out, "--jobs", "1", "--no-figures",
+                                             "--onset-rate", "25"),
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    assert _wait_for(lambda: proc.poll() is not None or _kept(out) >= kept_before + 3)
+    assert proc.poll() is None, "the run ended before it could be stopped"
+    proc.send_signal(sig)
+    proc.communicate(timeout=120)
+    record = json.loads((out / "run.json").read_text())
+    assert record["parameters"]["onset_rate_v_per_s"] == 25.0  # the new run's record
+    assert record["status"] == ("interrupted" if sig == signal.SIGTERM else "running")
+    report = (out / "report.html").read_text()
+    assert "<td>complete</td>" not in report
+    assert ("interrupted" if sig == signal.SIGTERM else "in progress") in report
+    if sig == signal.SIGTERM:
+        with open(out / "cells.csv", newline="") as fh:
+            cells = [row["file"] for row in csv.DictReader(fh)]
+        assert cells == [i["file"] for i in record["inputs"] if i["status"] == "measured"]
+
+
+def test_run_record_says_running_from_the_start_and_agrees_with_each_refresh(
+        distinct_cells, tmp_path, monkeypatch):
+    """Before the first file is measured run.json says "running", with this run's parameters
+    and inputs; every refresh of the tables rewrites it to list the same files as they do."""
+    from spikemeasure import runner
+
+    monkeypatch.setattr(runner, "TABLE_REFRESH_S", -1.0)  # refresh after every file
+    out = tmp_path / "out"
+    seen = []
+
+    def look(event):
+        record = json.loads((out / "run.json").read_text())
+        assert record["status"] == "running" and record["interrupted"] is False
+        assert record["parameters"]["onset_rate_v_per_s"] == 21.0
+        assert len(record["inputs"]) == 12
+        cells = []
+        if (out / "cells.csv").exists():
+            with open(out / "cells.csv", newline="") as fh:
+                cells = [row["file"] for row in csv.DictReader(fh)]
+        assert cells == [i["file"] for i in record["inputs"] if i["status"] == "measured"]
+        seen.append(len(cells))
+
+    summary = measure_paths([str(distinct_cells)], out, DetectionSettings(onset_rate_v_per_s=21.0),
+                            jobs=1, progress=look)
+    assert seen == list(range(12)) and summary.files_measured == 12
+    assert json.loads((out / "run.json").read_text())["status"] == "complete"
+
+
+def _children(pid: int) -> set[int]:
+    """Child processes of `pid`, from Linux's /proc/<pid>/task/<tid>/children."""
+    found = set()
+    for path in Path(f"/proc/{pid}/task").glob("*/children"):
+        try:
+            found.update(int(c) for c in path.read_text().split())
+        except OSError:
+            pass
+    return found
+
+
+def _ended(pid: int) -> bool:
+    """Gone, or a zombie waiting to be reaped (it runs no more)."""
+    try:
+        stat = Path(f"/proc/{pid}/stat").read_text()
+    except OSError:
+        return True
+    return stat.rsplit(")", 1)[1].split()[0] == "Z"
+
+
+@pytest.mark.skipif(not Path("/proc/self/task").is_dir(), reason="needs Linux's /proc")
+@pytest.mark.parametrize("sig", [signal.SIGKILL, signal.SIGTERM])
+def test_worker_processes_end_with_the_run(many_cells, tmp_path, sig):
+    out = tmp_path / "out"
+    proc = subprocess.Popen(_measure_command(many_cells, out, "--jobs", "2"),
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    assert _wait_for(lambda: proc.poll() is not None or len(_children(proc.pid)) >= 2)
+    workers = _children(proc.pid)
+    assert proc.poll() is None and len(workers) >= 2, "no workers seen before the run ended"
+    proc.send_signal(sig)
+    _, err = proc.communicate(timeout=120)
+    if sig == signal.SIGTERM:
+        assert proc.returncode == 143 and "Traceback" not in err
+    # bounded wait for the workers: they end when the run ends, not minutes later
+    assert _wait_for(lambda: all(_ended(p) for p in workers), limit_s=20.0), \
+        f"worker processes still running after the run ended: {sorted(workers)}"
+
+
+def test_a_bug_in_one_file_fails_that_file_only(distinct_cells, tmp_path, monkeypatch):
+    """An unexpected exception in one file's task: that file fails (stage "internal error",
+    the exception's type named, the traceback kept in run.json and shown with --debug), the
+    other files keep their rows, exit 1."""
+    from click.testing import CliRunner
+
+    from spikemeasure import runner
+    from spikemeasure.cli import main
+
+    original = runner.measure_recording
+
+    def buggy(recording, *args, **kwargs):
+        if recording.sweeps and recording.sweeps[0].file == "cell_03.nix":
+            return 1 / 0
+        return original(recording, *args, **kwargs)
+
+    monkeypatch.setattr(runner, "measure_recording", buggy)
+    out = tmp_path / "out"
+    r = CliRunner().invoke(main, ["measure", str(distinct_cells), "--out", str(out), "--jobs",
+                                  "1", "--no-figures"])
+    assert r.exit_code == 1, r.output
+    assert "Traceback" not in r.output
+    assert "cell_03.nix: internal error (ZeroDivisionError)" in r.output
+    with open(out / "errors.csv", newline="") as fh:
+        errors = list(csv.DictReader(fh))
+    assert [(e["file"], e["stage"]) for e in errors] == [("cell_03.nix", "internal error")]
+    with open(out / "cells.csv", newline="") as fh:
+        cells = [row["file"] for row in csv.DictReader(fh)]
+    assert cells == [f"cell_{k:02d}.nix" for k in range(12) if k != 3]
+    record = json.loads((out / "run.json").read_text())
+    entry = {i["file"]: i for i in record["inputs"]}["cell_03.nix"]
+    assert entry["status"] == "failed" and "ZeroDivisionError" in entry["traceback"]
+    assert record["status"] == "complete"
+    debug = CliRunner().invoke(main, ["--debug", "measure", str(distinct_cells), "--out",
+                                      str(tmp_path / "debug"), "--jobs", "1", "--no-figures"])
+    assert debug.exit_code == 1
+    assert "Traceback" in debug.output and "ZeroDivisionError" in debug.output
+    # not kept: the next run tries the file again
+    monkeypatch.setattr(runner, "measure_recording", original)
+    again = measure_paths([str(distinct_cells)], out, jobs=1)
+    assert (again.files_reused, again.files_measured, again.files_failed) == (11, 1, 0)
+
+
+def test_first_ctrl_c_stops_inside_a_file_between_sweeps(distinct_cells, tmp_path, monkeypatch):
+    """The first Ctrl-C stops the file being measured at its next sweep, not at its end."""
+    from spikemeasure import tables
+
+    calls = []
+    original = tables.measure_sweep
+
+    def measure_and_press_ctrl_c(*args, **kwargs):
+        calls.append(1)
+        if len(calls) == 2:
+            signal.raise_signal(signal.SIGINT)
+        return original(*args, **kwargs)
+
+    monkeypatch.setattr(tables, "measure_sweep", measure_and_press_ctrl_c)
+    out = tmp_path / "out"
+    with pytest.raises(KeyboardInterrupt):
+        measure_paths([str(distinct_cells)], out, jobs=1)
+    assert len(calls) == 2  # each file has 8 sweeps: the first file was left at its third
+    record = json.loads((out / "run.json").read_text())
+    assert record["status"] == "interrupted"
+    assert all(i["status"] == "not measured (run interrupted)" for i in record["inputs"])
+
+
+def test_measuring_can_be_cancelled_between_sweeps_and_pieces():
+    """The cancel callable is called before each sweep and each piece of a long trace, and
+    its exception stops the work there."""
+    from conftest import GaussianSpike
+    from spikemeasure.measurement import measure_in_pieces
+    from spikemeasure.reading import Recording
+    from spikemeasure.sweeps import Sweep
+    from spikemeasure.tables import measure_recording
+
+    class Stop(Exception):
+        pass
+
+    calls = []
+
+    def cancel_at_third():
+        calls.append(1)
+        if len(calls) == 3:
+            raise Stop
+
+    _, v = gaussian_train(RATE, [20.0, 60.0], 100.0, GaussianSpike())
+    with pytest.raises(Stop):
+        measure_in_pieces(np.concatenate([v] * 10), RATE, piece_samples=v.size,
+                          cancel=cancel_at_third)
+    assert len(calls) == 3
+    calls.clear()
+    recording = Recording(path="x.nix", format="test",
+                          sweeps=[Sweep(voltage_mv=v, command_pa=None, sampling_rate_hz=RATE,
+                                        file="x.nix", index=k) for k in range(6)])
+    with pytest.raises(Stop):
+        measure_recording(recording, cancel=cancel_at_third)
+    assert len(calls) == 3
+
+
+def test_edited_kept_outcome_is_measured_again(distinct_cells, distinct_reference, tmp_path):
+    """A kept outcome whose content no longer matches its checksum is not reused: the file
+    is measured again, with a note; the tables equal a fresh run's."""
+    out = tmp_path / "out"
+    measure_paths([str(distinct_cells)], out, jobs=1)
+    kept = sorted((out / CACHE_FOLDER).glob("*.json"))
+    assert len(kept) == 12
+    data = json.loads(kept[0].read_text())
+    body = data.get("outcome", data)
+    body["cell_rows"][0][2] = "999"  # a hand edit of one cell value
+    kept[0].write_text(json.dumps(data))
+    again = measure_paths([str(distinct_cells)], out, jobs=1)
+    assert (again.files_reused, again.files_measured) == (11, 1)
+    assert any("checksum" in note for note in again.notes) and not again.failures
+    assert tables(out) == distinct_reference
+
+
+def test_changed_column_declarations_measure_files_again(distinct_cells, tmp_path, monkeypatch):
+    """Kept outcomes hold formatted rows: a changed column declaration must not reuse them."""
+    import dataclasses
+
+    from spikemeasure import runner
+
+    out = tmp_path / "out"
+    measure_paths([str(distinct_cells)], out, jobs=1)
+    changed = tuple(dataclasses.replace(c, decimals=2) if c.name == "threshold_mv" else c
+                    for c in runner.SPIKE_COLUMNS)
+    monkeypatch.setattr(runner, "SPIKE_COLUMNS", changed)
+    again = measure_paths([str(distinct_cells)], out, jobs=1)
+    assert (again.files_reused, again.files_measured) == (0, 12)
+    with open(out / "spikes.csv", newline="") as fh:
+        values = [row["threshold_mv"] for row in csv.DictReader(fh)]
+    assert values and all(len(v.split(".")[1]) == 2 for v in values if v)
+
+
+def test_a_worker_that_dies_fails_its_file_only(distinct_cells, tmp_path, monkeypatch):
+    """A worker killed while measuring one file (as by the out-of-memory killer) breaks the
+    process pool; the files it took with it are measured again, and only that file fails."""
+    import multiprocessing
+    import os
+
+    from spikemeasure import runner
+
+    if multiprocessing.get_start_method() != "fork":
+        pytest.skip("the replaced function reaches the workers only when they are forked")
+    original = runner.measure_recording
+
+    def killed(recording, *args, **kwargs):
+        if recording.sweeps and recording.sweeps[0].file == "cell_03.nix":
+            os.kill(os.getpid(), signal.SIGKILL)
+        return original(recording, *args, **kwargs)
+
+    monkeypatch.setattr(runner, "measure_recording", killed)
+    summary = measure_paths([str(distinct_cells)], tmp_path / "out", jobs=2)
+    assert [f["file"] for f in summary.failures] == ["cell_03.nix"]
+    assert "ended unexpectedly" in summary.failures[0]["message"]
+    assert (summary.files_measured, summary.files_failed) == (11, 1)
+
+
+def test_a_bug_in_drawing_keeps_the_files_tables(distinct_cells, tmp_path, monkeypatch):
+    """An unexpected exception while drawing one cell's figures is a failure of its figures;
+    its rows stand and the other cells are drawn."""
+    from spikemeasure import figures
+
+    original = figures.write_cell_figures
+
+    def buggy(recording, *args, **kwargs):
+        if recording.sweeps[0].file == "cell_05.nix":
+            raise ValueError("a drawing bug")
+        return original(recording, *args, **kwargs)
+
+    monkeypatch.setattr(figures, "write_cell_figures", buggy)
+    out = tmp_path / "out"
+    summary = measure_paths([str(distinct_cells)], out, jobs=1, figure_format="png")
+    assert summary.files_measured == 12
+    assert [(f["file"], f["stage"]) for f in summary.failures] == [("cell_05.nix", "figures")]
+    assert "ValueError" in summary.failures[0]["message"]
+    with open(out / "cells.csv", newline="") as fh:
+        assert len(list(csv.DictReader(fh))) == 12
+    record = json.loads((out / "run.json").read_text())
+    entry = {i["file"]: i for i in record["inputs"]}["cell_05.nix"]
+    assert "a drawing bug" in entry["traceback"]
+    assert (out / "figures" / "cell_04.nix").is_dir()
