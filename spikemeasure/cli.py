@@ -19,7 +19,7 @@ import click
 from . import __version__
 from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, columns_markdown
 from .detection import THRESHOLD_METHODS, DetectionSettings
-from .errors import SpikemeasureError, UnusableOutputError
+from .errors import SpikemeasureError, UnusableOutputError, printable_name
 
 EXIT_INTERRUPTED = 130
 
@@ -270,7 +270,7 @@ def measure(ctx: click.Context, paths, out_dir, jobs, force, patterns, cluster, 
         if progress is not None:
             progress.close()
         signum = int(getattr(exc, "signum", signal.SIGINT))
-        click.echo(f"Interrupted ({signal.Signals(signum).name}): the tables in {out_dir} hold "
+        click.echo(f"Interrupted ({signal.Signals(signum).name}): the tables in {printable_name(str(out_dir))} hold "
                    "the files finished and run.json says the run was interrupted; run the "
                    "same command again to measure the rest.", err=True)
         ctx.exit(128 + signum)
@@ -286,12 +286,14 @@ def measure(ctx: click.Context, paths, out_dir, jobs, force, patterns, cluster, 
     done = summary.files_measured + summary.files_reused
     click.echo(f"{done} file{'' if done == 1 else 's'} measured{reused}, "
                f"{summary.files_failed} failed; {summary.sweeps_measured} sweeps, "
-               f"{summary.spikes} spikes -> {summary.out_dir}", err=True)
+               f"{summary.spikes} spikes -> {printable_name(str(summary.out_dir))}", err=True)
     for note in summary.notes:
         click.echo(f"Note: {note}", err=True)
-    click.echo(f"Report: {summary.report_path}", err=True)
+    click.echo(f"Report: {printable_name(str(summary.report_path))}", err=True)
     if summary.failures:
-        click.echo(f"{len(summary.failures)} problems (also in {summary.errors_path}):", err=True)
+        n = len(summary.failures)
+        click.echo(f"{n} problem{'' if n == 1 else 's'} (also in "
+                   f"{printable_name(str(summary.errors_path))}):", err=True)
         for f in summary.failures:
             click.echo(f"  {f['message']}", err=True)
     if ctx.find_object(_Context).debug:
@@ -422,7 +424,7 @@ def check(ctx: click.Context, paths, out_dir, jobs, junit_path, as_json, max_row
                                         jobs=jobs or default_jobs(),
                                         config_file=params.config_file, progress=progress)
             except KeyboardInterrupt:
-                click.echo(f"Interrupted: nothing was checked; the tables in {out_dir} hold "
+                click.echo(f"Interrupted: nothing was checked; the tables in {printable_name(str(out_dir))} hold "
                            "the files finished.", err=True)
                 ctx.exit(EXIT_INTERRUPTED)
                 return
