@@ -7,7 +7,8 @@ value, a malformed or invalid project file, an --out that cannot be used); 128 +
 number when stopped by a signal (130 Ctrl-C, 143 SIGTERM, 129 SIGHUP), after writing the
 tables of the files finished.
 ``check`` and ``accept``: 0 all checks passed (or the results were accepted); 1 a check
-failed; 2 a usage or input error (missing tables, a bad project file); 130 interrupted.
+failed; 2 a usage or input error (missing tables, a bad project file); 128 + the signal's
+number when stopped by a signal while measuring (130 Ctrl-C, 143 SIGTERM, 129 SIGHUP).
 """
 from __future__ import annotations
 
@@ -21,7 +22,6 @@ from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, columns_markdow
 from .detection import THRESHOLD_METHODS, DetectionSettings
 from .errors import SpikemeasureError, UnusableOutputError, printable_name
 
-EXIT_INTERRUPTED = 130
 
 
 def _step_sizes(ctx: click.Context, param: click.Parameter, value):
@@ -423,10 +423,14 @@ def check(ctx: click.Context, paths, out_dir, jobs, junit_path, as_json, max_row
                                         max_sweep_samples=params.max_sweep_samples,
                                         jobs=jobs or default_jobs(),
                                         config_file=params.config_file, progress=progress)
-            except KeyboardInterrupt:
-                click.echo(f"Interrupted: nothing was checked; the tables in {printable_name(str(out_dir))} hold "
-                           "the files finished.", err=True)
-                ctx.exit(EXIT_INTERRUPTED)
+            except KeyboardInterrupt as exc:
+                if progress is not None:
+                    progress.close()
+                signum = int(getattr(exc, "signum", signal.SIGINT))
+                click.echo(f"Interrupted ({signal.Signals(signum).name}): nothing was checked; "
+                           f"the tables in {printable_name(str(out_dir))} hold the files "
+                           "finished.", err=True)
+                ctx.exit(128 + signum)
                 return
             if progress is not None:
                 progress.close()

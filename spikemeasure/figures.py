@@ -39,6 +39,7 @@ from .detection import DetectionSettings, smoothed_trace
 from .errors import SpikemeasureError, printable_name
 from .output import write_bytes_atomic
 from .reading import Recording
+from .sweeps import MIN_SAMPLING_RATE_HZ
 from .tables import SweepResult, cell_summary
 
 __all__ = ["FIGURE_FORMATS", "CELL_FIGURE_NAMES", "BATCH_FIGURE_NAME", "BATCH_FEATURES",
@@ -789,9 +790,18 @@ def step_response_figure(results: Sequence[SweepResult], cell: CellFeatures | No
         dv = np.array([r.features.steady_state_mv - r.features.baseline_mv for r in measured],
                       dtype=float)
         order = np.argsort(stim)
-        ax_f.plot(stim[order], rate[order], marker="o", ms=4, color="#333333", lw=0.8,
-                  label="sweeps")
-        if not np.nanmax(rate, initial=0.0) > 0:
+        slow = sum("too_slow_for_spikes" in r.features.flags for r in measured)
+        if slow and not np.isfinite(rate).any():
+            # nothing to draw: say why rather than show an empty, labelled axes
+            _note(ax_f, f"spikes not counted:\nsampled below {MIN_SAMPLING_RATE_HZ:g} Hz")
+        else:
+            ax_f.plot(stim[order], rate[order], marker="o", ms=4, color="#333333", lw=0.8,
+                      label="sweeps")
+        if slow and np.isfinite(rate).any():
+            ax_f.set_title(f"{slow} sweep{'s' if slow != 1 else ''} sampled below "
+                           f"{MIN_SAMPLING_RATE_HZ:g} Hz: spikes not counted",
+                           fontsize=8, loc="left")
+        if ax_f.lines and not np.nanmax(rate, initial=0.0) > 0:
             ax_f.set_ylim(-1.0, 10.0)  # no firing: a plain 0 to 10 Hz axis, not +-0.05
         if math.isfinite(cell.rheobase_pa):
             ax_f.axvline(cell.rheobase_pa, color=_RHEOBASE_COLOUR, ls="--", lw=0.9,

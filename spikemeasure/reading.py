@@ -112,16 +112,16 @@ class Recording:
 
 # --------------------------------------------------------------------------- safety checks
 
-def _refuse_code_formats(path: Path) -> None:
+def _refuse_code_formats(path: Path, shown: str) -> None:
     if path.suffix.lower() in _PICKLE_SUFFIXES:
         raise UnreadableInputError(
-            f"{path}: pickle files can run code when loaded, so spikemeasure does not open "
+            f"{shown}: pickle files can run code when loaded, so spikemeasure does not open "
             "them; export the recording to NWB, NIX or text")
     with open(path, "rb") as fh:
         head = fh.read(2)
     if len(head) == 2 and head[0] == 0x80 and 2 <= head[1] <= 5:
         raise UnreadableInputError(
-            f"{path}: the file is a Python pickle, which can run code when loaded; "
+            f"{shown}: the file is a Python pickle, which can run code when loaded; "
             "spikemeasure does not open it. Export the recording to NWB, NIX or text")
 
 
@@ -1208,7 +1208,7 @@ def read_recording(path: str | os.PathLike, *, shown_as: str | None = None,
             f"`max_sweep_samples` must be a positive whole number (got {max_sweep_samples!r})")
     max_sweep_samples = int(max_sweep_samples)
     try:
-        _refuse_code_formats(p)
+        _refuse_code_formats(p, shown)
         suffix = p.suffix.lower()
         if suffix == ".nwb":
             return _read_nwb(p, shown, max_sweep_samples)

@@ -588,6 +588,23 @@ class TestCommandLine:
         assert "noisy.nwb" in r.output and "max_baseline_noise_mv" in r.output
         assert "FAILED: 1 of" in r.output
 
+    def test_stopped_while_measuring_exits_128_plus_the_signal(self, lab, tmp_path,
+                                                               monkeypatch):
+        # POSIX shell convention (common practice): a process ended by signal N exits 128 + N.
+        import signal as signals
+
+        from spikemeasure import runner
+
+        def stopped(*args, **kwargs):
+            raise runner.RunStopped(int(signals.SIGTERM))
+
+        monkeypatch.setattr(runner, "measure_paths", stopped)
+        monkeypatch.chdir(tmp_path)
+        r = run(["check", str(lab / "samples"), "--out", str(tmp_path / "res")])
+        assert r.exit_code == 128 + int(signals.SIGTERM)
+        assert "Interrupted (SIGTERM): nothing was checked" in r.output
+        assert "Traceback" not in r.output
+
     def test_input_errors_exit_2_without_traceback(self, lab, tmp_path, monkeypatch):
         monkeypatch.chdir(tmp_path)
         r = run(["check", str(tmp_path / "nowhere")])

@@ -13,6 +13,7 @@ from scipy.signal import peak_prominences, peak_widths
 from conftest import (RC_R_GOHM as R_GOHM, RC_RATE_HZ, RC_SPIKES_PER_STEP as SPIKES_PER_STEP,
                       RC_STEP_S, RC_STEPS_PA as STEPS_PA, rc_cell_sweeps, write_nix, write_text)
 from spikemeasure import figures
+from test_cell_features import rc_recording  # the analytic RC membrane
 from spikemeasure.cli import main
 from spikemeasure.detection import DetectionSettings
 from spikemeasure.reading import read_recording
@@ -274,6 +275,17 @@ class TestAwkwardCells:
         # the passive sweeps still give the input-resistance line
         ax = figs["step_responses"].axes[1]
         assert any(ln.get_label().startswith("input resistance") for ln in ax.get_lines())
+
+    def test_sweeps_too_slow_for_spikes_say_so(self):
+        # Source: the analytic RC membrane (closed form) sampled at 1 kHz, below the rate at
+        # which spikes are counted; the passive panel still holds the fitted sweeps.
+        results = measure_recording(rc_recording(rate=1000.0))
+        fig = figures.step_response_figure(results)
+        ax_f, ax_v = fig.axes
+        assert [t.get_text() for t in ax_f.texts] == [
+            "spikes not counted:\nsampled below 2000 Hz"]
+        assert not ax_f.lines and ax_f.get_legend() is None
+        assert lines(ax_v, "fitted sweeps")[0].size >= 2
 
     def test_no_command_channel_draws_the_given_step(self, odd_cells):
         ax = odd_cells["no_command.txt"]["figures"]["traces"].axes[1]

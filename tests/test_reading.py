@@ -183,6 +183,9 @@ class TestRefusals:
             with pytest.raises(UnreadableInputError, match="pickle"):
                 read_recording(tmp_path / name)
         assert not marker.exists()
+        # The message names the file as the run shows it, like every other reading message.
+        with pytest.raises(UnreadableInputError, match=r"^cells/data\.pkl: pickle"):
+            read_recording(tmp_path / "data.pkl", shown_as="cells/data.pkl")
 
     def test_unknown_suffix(self, tmp_path):
         path = tmp_path / "cell.unknownformat"
