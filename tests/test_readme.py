@@ -5,6 +5,8 @@ import re
 import shutil
 import subprocess
 import sys
+
+import pytest
 from pathlib import Path
 
 
@@ -63,3 +65,20 @@ def test_readme_commands_produce_the_csv(tmp_path):
     record = json.loads((out / "run.json").read_text())
     assert record["failures"] == []
     assert record["totals"]["spikes"] == len(rows)
+
+
+def test_readme_python_example_runs(monkeypatch):
+    # The README's "In Python" block, run as written from the project folder; `voltage_mv`
+    # and `sampling_rate_hz` stand for the user's own array (here the common-practice
+    # textbook spike of conftest, threshold -55 mV).
+    from conftest import textbook_trace
+
+    (block,) = re.findall(r"```python\n(.*?)```", README, flags=re.S)
+    voltage_mv, truth = textbook_trace(50_000.0)
+    namespace = {"voltage_mv": voltage_mv, "sampling_rate_hz": 50_000.0}
+    monkeypatch.chdir(ROOT)
+    exec(compile(block, "README.md", "exec"), namespace)
+    assert len(namespace["res"].cells) == 1
+    assert namespace["spikes"]["threshold_mv"][0] == pytest.approx(
+        truth["threshold_mv"], abs=0.5)
+    assert len(namespace["recording"].sweeps) > 0
