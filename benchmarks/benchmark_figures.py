@@ -4,7 +4,7 @@ Usage:  python benchmarks/benchmark_figures.py [--cells 6] [--sweeps 30] [--swee
                                                [--repeats 3]
 
 1. Simulates two 30-sweep step series of the adapting cortical model (Pospischil et al. 2008;
-   spikemeasure.simulation), 50 kHz, steps from -100 pA by 20 pA and from -150 pA by 25 pA,
+   spikemeasure.testing), 50 kHz, steps from -100 pA by 20 pA and from -150 pA by 25 pA,
    and writes `--cells` NWB files with pynwb's intracellular API, the two series taking turns,
    each file with its own 0.2 mV of measurement noise. Consecutive cells therefore differ in
    their values, their step range (colour bar, f-I axes) and their file name (titles), as the
@@ -43,7 +43,7 @@ PROTOCOLS = ((-100.0, 20.0), (-150.0, 25.0))  # first step and increment, pA
 
 
 def simulate(sweeps: int, sweep_s: float, first_pa: float, step_pa: float):
-    from spikemeasure.simulation import simulate_current_steps
+    from spikemeasure.testing import simulate_current_steps
 
     steps = first_pa + step_pa * np.arange(sweeps)
     return simulate_current_steps("cortical_adapting", steps, sampling_rate_hz=RATE_HZ,

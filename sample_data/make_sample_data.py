@@ -2,7 +2,7 @@
 
 The cells belong to an invented scenario: a study comparing neurons from two imaginary
 brain regions, "region A" and "region B".  Every trace is simulated with
-:mod:`spikemeasure.simulation` from a published conductance model; no animal, person or
+:mod:`spikemeasure.testing` from a published conductance model; no animal, person or
 laboratory is involved.  Each cell receives a family of square current steps (0.1 s
 baseline, 0.5 s step, 0.2 s after the step) and white measurement noise.
 
@@ -30,7 +30,7 @@ HERE = Path(__file__).resolve().parent
 # Use the package in this repository even when another copy is installed.
 sys.path.insert(0, str(HERE.parent))
 
-from spikemeasure.simulation import (  # noqa: E402
+from spikemeasure.testing import (  # noqa: E402
     SimulatedSweeps,
     default_membrane_area_cm2,
     simulate_current_steps,
@@ -63,7 +63,7 @@ class CellPlan:
     region : str
         Invented region the cell is said to come from.
     model : str
-        Model name in :data:`spikemeasure.simulation.MODELS`.
+        Model name in :data:`spikemeasure.testing.MODELS`.
     membrane_area_cm2 : float or None
         Membrane area; None for the model's default.
     sampling_rate_hz : float

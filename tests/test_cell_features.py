@@ -9,7 +9,7 @@ from conftest import step_command, write_nix
 from spikemeasure.cell_features import fit_membrane_tau, rheobase
 from spikemeasure.cli import main
 from spikemeasure.reading import Recording, read_recording
-from spikemeasure.simulation import simulate_current_steps
+from spikemeasure.testing import simulate_current_steps
 from spikemeasure.sweeps import Sweep, protocol_steps
 from spikemeasure.tables import (cell_summary, cell_table, format_rows, measure_recording,
                                  sweep_table)

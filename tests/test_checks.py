@@ -2,7 +2,7 @@
 
 Sources of the expected answers:
 - the quality rules: recordings built to break one rule each, from a Wang & Buzsaki (1996)
-  simulation (spikemeasure.simulation) with a known change: white noise of a known SD, a
+  simulation (spikemeasure.testing) with a known change: white noise of a known SD, a
   linear ramp of known slope (drift = slope x the time between the windows' centres), peaks
   cut at a known level, every 4th sample kept (a known rate), a known offset of the voltage;
   the four sample cells (sample_data/) pass limits of common practice;
@@ -41,7 +41,7 @@ from spikemeasure.config import (QUALITY_KEYS, CheckSettings, ConfigError, Toler
 from spikemeasure.detection import DetectionSettings
 from spikemeasure.junit import junit_xml
 from spikemeasure.runner import measure_paths
-from spikemeasure.simulation import simulate_current_steps
+from spikemeasure.testing import simulate_current_steps
 
 ROOT = Path(__file__).resolve().parents[1]
 SAMPLE = ROOT / "sample_data"

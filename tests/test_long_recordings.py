@@ -20,7 +20,7 @@ from spikemeasure.errors import InvalidSettingError, UnreadableInputError
 from spikemeasure.measurement import (SpikeMeasurements, measure_in_pieces, measure_trace,
                                       piece_margin_samples)
 from spikemeasure.runner import measure_paths
-from spikemeasure.simulation import simulate_current_waveform
+from spikemeasure.testing import simulate_current_waveform
 from spikemeasure.sweeps import LazyTrace
 
 from conftest import write_nix, write_nix_huge_declared, write_nwb, write_nwb_huge_declared

@@ -267,7 +267,7 @@ class TestMissingSamples:
 
     @pytest.fixture(scope="class")
     def clean(self):
-        from spikemeasure.simulation import simulate_current_steps
+        from spikemeasure.testing import simulate_current_steps
 
         sim = simulate_current_steps("hodgkin_huxley_1952", [100.0], sampling_rate_hz=self.RATE,
                                      duration_s=0.5, step_start_s=0.05, step_end_s=0.45)
@@ -346,7 +346,7 @@ def test_gap_rules_hold_for_every_threshold_method(method):
     shortly before a spike's onset cuts that search, so its threshold is empty, never
     different."""
     from spikemeasure.measurement import GAP_FLAG, measure_around_gaps
-    from spikemeasure.simulation import simulate_current_steps
+    from spikemeasure.testing import simulate_current_steps
 
     rate = 20_000.0
     settings = DetectionSettings(threshold_method=method)

@@ -1,7 +1,7 @@
 """Write the simulated recordings of this example lab repository.
 
 Two invented cells, each a family of four square current steps simulated from a published
-conductance model with :mod:`spikemeasure.simulation` and white measurement noise, stored
+conductance model with :mod:`spikemeasure.testing` and white measurement noise, stored
 as NWB (float32, gzip-compressed) so that the folder stays small. No animal, person or
 laboratory is involved.
 
@@ -21,7 +21,7 @@ from pathlib import Path
 
 import numpy as np
 
-from spikemeasure.simulation import simulate_current_steps
+from spikemeasure.testing import simulate_current_steps
 
 HERE = Path(__file__).resolve().parent
 RATE_HZ = 20_000.0

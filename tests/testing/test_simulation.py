@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 
 from spikemeasure.measurement import measure_trace
-from spikemeasure.simulation import MODELS, resting_potential_mv, simulate_current_steps
+from spikemeasure.testing import MODELS, resting_potential_mv, simulate_current_steps
 from spikemeasure.sweeps import CurrentStep
 
 RATE = 50_000.0

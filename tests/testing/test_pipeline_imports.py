@@ -1,0 +1,49 @@
+"""The measuring pipeline does not import the simulated models.
+
+Each check runs in a fresh interpreter, so modules imported by other tests in this process
+(the simulations in the test files) cannot hide or fake an import.  The reference is
+Python's own record of loaded modules, ``sys.modules``.
+"""
+import json
+import subprocess
+import sys
+
+import pytest
+
+PIPELINE = ("spikemeasure.runner", "spikemeasure.tables", "spikemeasure.cli")
+
+
+def loaded_spikemeasure_modules(imports: tuple[str, ...]) -> list[str]:
+    """Import ``imports`` in a new interpreter; return the spikemeasure modules then loaded."""
+    program = (
+        "import importlib, json, sys\n"
+        f"for name in {list(imports)!r}:\n"
+        "    importlib.import_module(name)\n"
+        "print(json.dumps(sorted(m for m in sys.modules if m.startswith('spikemeasure'))))\n"
+    )
+    done = subprocess.run([sys.executable, "-c", program], capture_output=True, text=True,
+                          check=False)
+    assert done.returncode == 0, done.stderr
+    return json.loads(done.stdout.strip().splitlines()[-1])
+
+
+@pytest.mark.parametrize("module", PIPELINE)
+def test_pipeline_module_does_not_import_testing(module):
+    loaded = loaded_spikemeasure_modules((module,))
+    assert module in loaded
+    assert not [m for m in loaded if m == "spikemeasure.testing"
+                or m.startswith("spikemeasure.testing.")], loaded
+
+
+def test_whole_pipeline_together_does_not_import_testing():
+    loaded = loaded_spikemeasure_modules(PIPELINE)
+    assert not [m for m in loaded if m.startswith("spikemeasure.testing")], loaded
+
+
+def test_probe_sees_an_import_of_testing():
+    # Control: the same probe reports the subpackage and its modules when they are imported,
+    # so an empty answer above means "not imported", not "not looked for".
+    loaded = loaded_spikemeasure_modules(("spikemeasure.runner", "spikemeasure.testing"))
+    for name in ("spikemeasure.testing", "spikemeasure.testing.models",
+                 "spikemeasure.testing.integration", "spikemeasure.testing.protocols"):
+        assert name in loaded
