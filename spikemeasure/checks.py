@@ -28,6 +28,7 @@ from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, Column
 from .config import CheckSettings, Tolerance
 from .errors import SpikemeasureError
 from .output import TEXT_COLUMN_NAMES, unescape_csv_text
+from .quality_rules import QUALITY_RULES, QualityRule
 
 __all__ = ["CheckInputError", "Finding", "CaseResult", "CheckReport", "RunTables",
            "QualityRule", "QUALITY_RULES", "MEASURED_CHECK", "REGRESSION_CHECK",
@@ -241,51 +242,6 @@ def _number(text: str | None) -> float:
         return float(text)
     except ValueError:
         return math.nan
-
-
-@dataclass(frozen=True)
-class QualityRule:
-    """One quality limit of ``[quality]``.
-
-    Attributes
-    ----------
-    key : str
-        The key in the project file.
-    table : str
-        ``sweeps.csv`` (checked sweep by sweep) or ``cells.csv`` (file by file).
-    column : str
-        The column compared with the limit.
-    text : str
-        What the rule requires, for the docs and for messages (``{limit}`` is filled in).
-    test : callable
-        (value, limit) -> True when the value passes.
-    """
-
-    key: str
-    table: str
-    column: str
-    text: str
-    test: Callable[[float, object], bool]
-
-
-QUALITY_RULES: tuple[QualityRule, ...] = (
-    QualityRule("max_baseline_noise_mv", "sweeps.csv", "baseline_noise_mv",
-                "baseline noise (SD before the step) at most {limit} mV",
-                lambda v, lim: v <= lim),
-    QualityRule("max_baseline_drift_mv", "sweeps.csv", "baseline_drift_mv",
-                "baseline drift over the sweep at most {limit} mV either way",
-                lambda v, lim: abs(v) <= lim),
-    QualityRule("min_sampling_rate_hz", "sweeps.csv", "sampling_rate_hz",
-                "sampling rate at least {limit} Hz", lambda v, lim: v >= lim),
-    QualityRule("max_clipped_spikes", "sweeps.csv", "clipped_spike_count",
-                "at most {limit} clipped spikes per sweep", lambda v, lim: v <= lim),
-    QualityRule("resting_range_mv", "cells.csv", "resting_mv",
-                "resting potential within {limit} mV",
-                lambda v, lim: lim[0] <= v <= lim[1]),
-    QualityRule("min_highest_peak_mv", "spikes.csv", "peak_mv",
-                "at least one spike peaking at {limit} mV or above",
-                lambda v, lim: v >= lim),
-)
 
 
 def _limit_text(limit) -> str:

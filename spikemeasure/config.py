@@ -30,6 +30,7 @@ from typing import Any, Callable, Mapping, Sequence
 from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS
 from .detection import THRESHOLD_METHODS, DetectionSettings
 from .errors import InvalidSettingError, SpikemeasureError
+from .quality_rules import QUALITY_RULES
 from .sweeps import parse_step_sizes
 
 if sys.version_info >= (3, 11):
@@ -78,16 +79,9 @@ REGRESSION_SECTION = "regression"
 #: Every table the file may hold.
 SECTIONS: tuple[str, ...] = (CONFIG_SECTION, QUALITY_SECTION, REGRESSION_SECTION)
 
-#: Keys of ``[quality]``, each with the kind of value it takes (what each limit means is
-#: :data:`spikemeasure.checks.QUALITY_RULES`).
-QUALITY_KEYS: dict[str, str] = {
-    "max_baseline_noise_mv": "positive",
-    "max_baseline_drift_mv": "positive",
-    "min_sampling_rate_hz": "positive",
-    "max_clipped_spikes": "count",
-    "resting_range_mv": "range",
-    "min_highest_peak_mv": "number",
-}
+#: Keys of ``[quality]``, each with the kind of value it takes (declared with each rule in
+#: :data:`spikemeasure.quality_rules.QUALITY_RULES`).
+QUALITY_KEYS: dict[str, str] = {rule.key: rule.kind for rule in QUALITY_RULES}
 
 #: Keys of ``[regression]``.
 REGRESSION_KEYS: tuple[str, ...] = ("enabled", "accepted_folder", "allow_new_files",
@@ -96,9 +90,7 @@ REGRESSION_KEYS: tuple[str, ...] = ("enabled", "accepted_folder", "allow_new_fil
 #: Folder of the accepted results, relative to the project file (or the current folder).
 DEFAULT_ACCEPTED_FOLDER = "accepted"
 
-_QUALITY_EXAMPLES = {"max_baseline_noise_mv": "0.5", "max_baseline_drift_mv": "3.0",
-                     "min_sampling_rate_hz": "10000", "resting_range_mv": "[-85.0, -55.0]",
-                     "min_highest_peak_mv": "0.0", "max_clipped_spikes": "0"}
+_QUALITY_EXAMPLES = {rule.key: rule.example for rule in QUALITY_RULES}
 
 #: Columns that identify rows or hold text: compared exactly, never with a tolerance.
 UNTOLERATED_COLUMNS = frozenset({"file", "sweep", "spike", "flags"})

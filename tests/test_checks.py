@@ -36,10 +36,12 @@ from conftest import write_nwb
 from spikemeasure.checks import (QUALITY_RULES, CheckInputError, check_run, read_tables,
                                  report_dict, report_text)
 from spikemeasure.cli import main
+from spikemeasure.columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS
 from spikemeasure.config import (QUALITY_KEYS, CheckSettings, ConfigError, Tolerance,
                                  load_check_settings)
 from spikemeasure.detection import DetectionSettings
 from spikemeasure.junit import junit_xml
+from spikemeasure.quality_rules import quality_rules_markdown
 from spikemeasure.runner import measure_paths
 from spikemeasure.testing import simulate_current_steps
 
@@ -128,6 +130,21 @@ def failing(report) -> dict[str, set[str]]:
 class TestQualityRules:
     def test_every_key_has_a_rule(self):
         assert [r.key for r in QUALITY_RULES] == list(QUALITY_KEYS)
+
+    def test_each_rule_reads_a_declared_column_and_its_example_is_valid(self, tmp_path):
+        tables = {"spikes.csv": SPIKE_COLUMNS, "sweeps.csv": SWEEP_COLUMNS,
+                  "cells.csv": CELL_COLUMNS}
+        for rule in QUALITY_RULES:
+            assert rule.column in [c.name for c in tables[rule.table]], rule.key
+        project = tmp_path / "spikemeasure.toml"
+        project.write_text("[quality]\n" + "".join(f"{r.key} = {r.example}\n"
+                                                   for r in QUALITY_RULES))
+        assert set(load_check_settings(project).quality) == set(QUALITY_KEYS)
+
+    def test_docs_table_is_generated_from_the_rules(self):
+        docs = (Path(__file__).resolve().parents[1] / "docs" / "ci.md").read_text()
+        assert quality_rules_markdown() in docs, \
+            "regenerate the table in docs/ci.md from quality_rules_markdown()"
 
     def test_sample_cells_and_the_good_cell_pass_every_rule(self, lab):
         report = check_run(lab / "all", CheckSettings(quality=LIMITS, compare=False))

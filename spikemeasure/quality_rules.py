@@ -1,0 +1,98 @@
+"""The quality limits a project file may set under ``[quality]``, each declared once.
+
+A rule carries its key, the kind of limit it takes (validated by :mod:`spikemeasure.config`),
+an example value for messages, the table and column it reads, and when a value passes; the
+project-file validation, ``spikemeasure check`` (:mod:`spikemeasure.checks`) and the table in
+docs/ci.md (:func:`quality_rules_markdown`) all read :data:`QUALITY_RULES`.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Callable
+
+__all__ = ["QualityRule", "QUALITY_RULES", "LIMIT_KINDS", "quality_rules_markdown"]
+
+#: Kinds of limit: a positive number, a whole number 0 or more, a [low, high] pair, any number.
+LIMIT_KINDS = ("positive", "count", "range", "number")
+
+
+@dataclass(frozen=True)
+class QualityRule:
+    """One quality limit of ``[quality]``.
+
+    Attributes
+    ----------
+    key : str
+        The key in the project file.
+    kind : str
+        The kind of limit (:data:`LIMIT_KINDS`).
+    example : str
+        A valid value as written in the project file, for messages and docs.
+    table : str
+        ``sweeps.csv`` (checked sweep by sweep), ``cells.csv`` or ``spikes.csv`` (file by file).
+    column : str
+        The column compared with the limit.
+    text : str
+        What the rule requires, for messages (``{limit}`` is filled in).
+    passes_when : str
+        What the rule requires, for the docs (Markdown).
+    test : callable
+        (value, limit) -> True when the value passes.
+    """
+
+    key: str
+    kind: str
+    example: str
+    table: str
+    column: str
+    text: str
+    passes_when: str
+    test: Callable[[float, object], bool]
+
+    def __post_init__(self) -> None:
+        if self.kind not in LIMIT_KINDS:
+            raise ValueError(f"quality rule {self.key}: kind must be one of {LIMIT_KINDS}")
+
+    @property
+    def scope(self) -> str:
+        """``each sweep`` or ``each file``: what one test case covers."""
+        return "each sweep" if self.table == "sweeps.csv" else "each file"
+
+
+QUALITY_RULES: tuple[QualityRule, ...] = (
+    QualityRule("max_baseline_noise_mv", "positive", "0.5", "sweeps.csv", "baseline_noise_mv",
+                "baseline noise (SD before the step) at most {limit} mV",
+                "`baseline_noise_mv` (SD of the 100 ms before the step) is at most the limit",
+                lambda v, lim: v <= lim),
+    QualityRule("max_baseline_drift_mv", "positive", "3.0", "sweeps.csv", "baseline_drift_mv",
+                "baseline drift over the sweep at most {limit} mV either way",
+                "`baseline_drift_mv` (mean of the last 100 ms after the step minus the "
+                "baseline) is within the limit either way",
+                lambda v, lim: abs(v) <= lim),
+    QualityRule("min_sampling_rate_hz", "positive", "10000", "sweeps.csv", "sampling_rate_hz",
+                "sampling rate at least {limit} Hz",
+                "`sampling_rate_hz` is at least the limit", lambda v, lim: v >= lim),
+    QualityRule("max_clipped_spikes", "count", "0", "sweeps.csv", "clipped_spike_count",
+                "at most {limit} clipped spikes per sweep",
+                "`clipped_spike_count` (spikes whose largest sample repeats over 3 or more "
+                "samples, as when the recording range was exceeded) is at most the limit",
+                lambda v, lim: v <= lim),
+    QualityRule("resting_range_mv", "range", "[-85.0, -55.0]", "cells.csv", "resting_mv",
+                "resting potential within {limit} mV",
+                "`resting_mv` of cells.csv lies within [low, high]",
+                lambda v, lim: lim[0] <= v <= lim[1]),
+    QualityRule("min_highest_peak_mv", "number", "0.0", "spikes.csv", "peak_mv",
+                "at least one spike peaking at {limit} mV or above",
+                "at least one spike's `peak_mv` reaches the limit (0 mV: an overshooting spike)",
+                lambda v, lim: v >= lim),
+)
+
+
+def quality_rules_markdown() -> str:
+    """The table of quality limits in docs/ci.md, from :data:`QUALITY_RULES`."""
+    lines = ["| key | applies to | passes when | example |", "| --- | --- | --- | --- |",
+             "| (always) `measured` | each file | the file and each of its sweeps could be read "
+             "and measured (no row in errors.csv) | |"]
+    lines += [f"| `{r.key}` | {r.scope} | {r.passes_when} | `{r.key} = {r.example}` |"
+              for r in QUALITY_RULES]
+    return "\n".join(lines) + "\n"
