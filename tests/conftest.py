@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import datetime
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -307,3 +308,44 @@ def write_nix_huge_declared(path, n_samples=10 ** 10, rate_hz=20_000.0):
         for key, val in attrs.items():
             new.attrs[key] = val
     return path
+
+
+# --------------------------------------------------------------------------- measured runs
+
+REPOSITORY = Path(__file__).resolve().parents[1]
+ACCEPTED = REPOSITORY / "tests" / "accepted"
+#: Each set the suite measures once per session: its recordings folder and the project file
+#: whose [measure] parameters its runs use (None: the defaults). tests/accepted/<name>/
+#: holds its accepted tables, tests/accepted/<name>.toml points `accept` and `check` there.
+MEASURED_SETS = {
+    "sample_data": (REPOSITORY / "sample_data", None),
+    "example_lab": (REPOSITORY / "docs" / "example-lab" / "recordings",
+                    REPOSITORY / "docs" / "example-lab" / "spikemeasure.toml"),
+}
+
+
+@pytest.fixture(scope="session")
+def measured_runs(tmp_path_factory) -> dict[str, Path]:
+    """The result folder of each of `MEASURED_SETS`, by name, measured once per test session
+    (once per worker process under pytest-xdist) as `spikemeasure measure --no-figures` does.
+
+    Files are named relative to the recordings folder, as in the accepted tables, wherever the
+    checkout lies. The folders are shared: read them, or copy one before changing it.
+    """
+    from spikemeasure.config import load_config, merge_parameters
+    from spikemeasure.runner import measure_paths
+
+    base = tmp_path_factory.mktemp("measured_runs")
+    runs = {}
+    for name, (recordings, project_file) in MEASURED_SETS.items():
+        # the run record names the project file as `measure` run from the lab's top does
+        params = merge_parameters(load_config(project_file) if project_file else {}, {},
+                                  project_file.name if project_file else None)
+        summary = measure_paths([str(recordings)], base / name, params.settings,
+                                step_times=params.step_times, step_sizes=params.step_sizes,
+                                sampling_rate_hz=params.sampling_rate_hz,
+                                max_sweep_samples=params.max_sweep_samples,
+                                config_file=params.config_file, jobs=1, figure_format=None)
+        assert not summary.failures, summary.failures
+        runs[name] = base / name
+    return runs

@@ -98,7 +98,8 @@ def write_cell(path, voltage, command, rate):
 @pytest.fixture(scope="module")
 def lab(tmp_path_factory):
     """A folder with the four sample cells, one good simulated cell and the broken ones,
-    measured once; and the sample cells alone, measured and accepted."""
+    measured once; and a copy of the sample cells alone (`samples`, recordings to measure
+    again; their tables are the session's `measured_runs["sample_data"]`)."""
     base = tmp_path_factory.mktemp("lab")
     recordings = base / "recordings"
     recordings.mkdir()
@@ -116,8 +117,14 @@ def lab(tmp_path_factory):
     for p in SAMPLE.iterdir():
         if p.suffix in (".nwb", ".nix"):
             shutil.copy(p, samples / p.name)
-    measure_paths([str(samples)], base / "sample_results", jobs=2)
     return base
+
+
+@pytest.fixture(scope="module")
+def sample_results(measured_runs) -> Path:
+    """The four sample cells measured with the default parameters (shared by the session:
+    tests copy it before changing anything)."""
+    return measured_runs["sample_data"]
 
 
 def failing(report) -> dict[str, set[str]]:
@@ -195,9 +202,9 @@ class TestQualityRules:
         assert not any("clipped_peak" in r["flags"] for r in tables.spikes
                        if r["file"] != "clipped.nwb")
 
-    def test_unmeasured_value_fails_the_rule(self, lab, tmp_path):
+    def test_unmeasured_value_fails_the_rule(self, sample_results, tmp_path):
         out = tmp_path / "run"
-        shutil.copytree(lab / "sample_results", out)
+        shutil.copytree(sample_results, out)
         rows = list(csv.DictReader(open(out / "sweeps.csv", newline="")))
         rows[0]["baseline_drift_mv"] = ""
         write_rows(out / "sweeps.csv", rows)
@@ -253,13 +260,13 @@ def recount(run_dir: Path) -> None:
 
 
 @pytest.fixture
-def accepted(lab, tmp_path):
+def accepted(sample_results, tmp_path):
     """The sample run accepted into tmp_path/accepted, and a copy of the run to edit."""
     from spikemeasure.checks import accept_results
 
-    accept_results(lab / "sample_results", tmp_path / "accepted", project_dir=tmp_path)
+    accept_results(sample_results, tmp_path / "accepted", project_dir=tmp_path)
     run_copy = tmp_path / "run"
-    shutil.copytree(lab / "sample_results", run_copy)
+    shutil.copytree(sample_results, run_copy)
     return tmp_path / "accepted", run_copy
 
 
@@ -451,7 +458,7 @@ class TestRegression:
         assert report.passed
         assert any("baseline_drift_mv not in the accepted results" in n for n in report.notes)
 
-    def test_accept_replaces_the_tables_and_keeps_other_files(self, lab, accepted):
+    def test_accept_replaces_the_tables_and_keeps_other_files(self, accepted):
         from spikemeasure.checks import accept_results
 
         accepted_dir, run_dir = accepted
@@ -463,9 +470,9 @@ class TestRegression:
         assert sorted(p.name for p in accepted_dir.parent.iterdir()
                       if p.name.startswith(".accepted")) == []   # no temporary folders left
 
-    def test_missing_accepted_results_is_an_input_error(self, lab, tmp_path):
+    def test_missing_accepted_results_is_an_input_error(self, sample_results, tmp_path):
         with pytest.raises(CheckInputError, match="no such folder of accepted results.*accept"):
-            regression(lab / "sample_results", tmp_path / "nothing")
+            regression(sample_results, tmp_path / "nothing")
 
 
 class TestProjectFileSections:
@@ -579,13 +586,14 @@ class TestReports:
 
 
 class TestCommandLine:
-    def test_accept_then_check_without_a_project_file(self, lab, tmp_path, monkeypatch):
+    def test_accept_then_check_without_a_project_file(self, sample_results, tmp_path,
+                                                    monkeypatch):
         monkeypatch.chdir(tmp_path)
-        results = str(lab / "sample_results")
+        results = str(sample_results)
         r = run(["accept", results])
         assert r.exit_code == 0, r.output
         assert (tmp_path / "accepted" / "spikes.csv").read_text() == \
-            (lab / "sample_results" / "spikes.csv").read_text()
+            (sample_results / "spikes.csv").read_text()
         record = json.loads((tmp_path / "accepted" / "run.json").read_text())
         assert record["parameters"]["onset_rate_v_per_s"] == 20.0 and record["versions"]
         r = run(["check", results, "--junit", "report.xml"])
@@ -622,7 +630,8 @@ class TestCommandLine:
         assert "Interrupted (SIGTERM): nothing was checked" in r.output
         assert "Traceback" not in r.output
 
-    def test_input_errors_exit_2_without_traceback(self, lab, tmp_path, monkeypatch):
+    def test_input_errors_exit_2_without_traceback(self, lab, sample_results, tmp_path,
+                                                  monkeypatch):
         monkeypatch.chdir(tmp_path)
         r = run(["check", str(tmp_path / "nowhere")])
         assert r.exit_code == 2 and "nowhere: no such folder" in r.output
@@ -630,18 +639,18 @@ class TestCommandLine:
         r = run(["check", str(lab / "samples")])   # recordings, not tables
         assert r.exit_code == 2 and "spikes.csv: no such file" in r.output
         assert "--out" in r.output
-        r = run(["check", str(lab / "sample_results")])   # nothing accepted yet
+        r = run(["check", str(sample_results)])   # nothing accepted yet
         assert r.exit_code == 2 and "accepted" in r.output
         (tmp_path / "accepted").mkdir()
-        r = run(["check", str(lab / "sample_results")])   # an empty accepted folder
+        r = run(["check", str(sample_results)])   # an empty accepted folder
         assert r.exit_code == 2 and "accepted" in r.output and "spikemeasure accept" in r.output
         (tmp_path / "accepted").rmdir()
         (tmp_path / "spikemeasure.toml").write_text("[quality]\nmax_noise = 1\n")
-        r = run(["check", str(lab / "sample_results")])
+        r = run(["check", str(sample_results)])
         assert r.exit_code == 2 and "spikemeasure.toml" in r.output and "max_noise" in r.output
-        r = run(["accept", str(lab / "sample_results")])
+        r = run(["accept", str(sample_results)])
         assert r.exit_code == 2 and "max_noise" in r.output
-        r = run(["--debug", "check", str(lab / "sample_results")])
+        r = run(["--debug", "check", str(sample_results)])
         assert r.exit_code == 1 and isinstance(r.exception, ConfigError)
         r = run(["check", "a", "b"])
         assert r.exit_code == 2 and "--out" in r.output

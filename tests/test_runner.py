@@ -39,6 +39,14 @@ def many_cells(tmp_path_factory):
 
 
 @pytest.fixture(scope="module")
+def many_cells_serial(many_cells, tmp_path_factory):
+    """`many_cells` measured once in this process (jobs=1): the reference other runs of the
+    same cells are compared with. Returns the run's summary and its folder (read only)."""
+    out = tmp_path_factory.mktemp("serial") / "serial"
+    return measure_paths([str(many_cells)], out, jobs=1), out
+
+
+@pytest.fixture(scope="module")
 def distinct_cells(tmp_path_factory):
     """Twelve recordings with different content (identical files share one kept outcome)."""
     root = tmp_path_factory.mktemp("distinct")
@@ -61,12 +69,13 @@ def distinct_reference(distinct_cells, tmp_path_factory):
     return tables(out)
 
 
-def test_parallel_and_serial_tables_are_byte_identical(many_cells, tmp_path):
-    serial = measure_paths([str(many_cells)], tmp_path / "serial", jobs=1)
+def test_parallel_and_serial_tables_are_byte_identical(many_cells, many_cells_serial,
+                                                       tmp_path):
+    serial, serial_out = many_cells_serial
     parallel = measure_paths([str(many_cells)], tmp_path / "parallel", jobs=2)
     assert serial.files_measured == parallel.files_measured == 12
-    assert tables(tmp_path / "serial") == tables(tmp_path / "parallel")
-    with open(tmp_path / "serial" / "cells.csv", newline="") as fh:
+    assert tables(serial_out) == tables(tmp_path / "parallel")
+    with open(serial_out / "cells.csv", newline="") as fh:
         files = [row["file"] for row in csv.DictReader(fh)]
     assert files == sorted(files) and files[0] == "day_0/cell_00.nwb"
 
@@ -178,11 +187,10 @@ def test_interrupted_run_resumes_to_the_same_tables(distinct_cells, distinct_ref
     assert tables(out) == distinct_reference
 
 
-def test_dask_cluster_gives_the_same_tables(many_cells, tmp_path):
+def test_dask_cluster_gives_the_same_tables(many_cells, many_cells_serial, tmp_path):
     """Source of truth: the local run; the cluster is a distributed.LocalCluster."""
     distributed = pytest.importorskip("distributed")
-    local = tmp_path / "local"
-    measure_paths([str(many_cells)], local, jobs=1)
+    _, local = many_cells_serial
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False,
                                   dashboard_address=None) as cluster:
         remote = tmp_path / "remote"
