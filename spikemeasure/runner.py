@@ -29,6 +29,7 @@ import hashlib
 import json
 import os
 import platform
+import re
 import signal
 import sys
 import tempfile
@@ -579,6 +580,7 @@ def measure_paths(paths: list[str], out_dir: str | Path,
     run = _Run(summary, parameters, started, config_file, figure_format, groups)
     early = run.early
     with _RunLock(out), _StopRequest() as stop:
+        _remove_stale_temporaries(out)
         try:
             search = search_recordings(paths, exclude=out, extra_patterns=extra_patterns)
             files = search.files
@@ -803,6 +805,34 @@ class _RunLock:
         if self.fd is not None:
             os.close(self.fd)  # releases the lock; the empty file stays for the next run
             self.fd = None
+
+
+#: A temporary file of :mod:`spikemeasure.output` (``.NAME.XXXXXXXX.part``, from mkstemp).
+_TEMPORARY_NAME = re.compile(r"^\.(?P<name>.+)\.[A-Za-z0-9_]{8}\.part$")
+
+
+def _remove_stale_temporaries(out: Path) -> list[Path]:
+    """Remove the temporary files a killed run (SIGKILL, power loss) left beside its outputs.
+
+    Only this tool's own temporaries go: in the output folder, those of its own files
+    (``.spikes.csv.XXXXXXXX.part``, ...); in its figures and cache folders, any such
+    temporary. Called under the run lock, so no other run is writing them. Returns what was
+    removed."""
+    own = {SPIKES_FILE, SWEEPS_FILE, CELLS_FILE, ERRORS_FILE, RUN_RECORD_FILE, REPORT_FILE}
+    candidates = [p for p in out.glob(".*.part")
+                  if (m := _TEMPORARY_NAME.match(p.name)) and m.group("name") in own]
+    for folder in (out / FIGURES_FOLDER, out / CACHE_FOLDER):
+        if folder.is_dir() and not folder.is_symlink():
+            candidates += [p for p in folder.rglob(".*.part") if _TEMPORARY_NAME.match(p.name)]
+    removed = []
+    for path in candidates:
+        try:
+            if path.is_file() and not path.is_symlink():
+                path.unlink()
+                removed.append(path)
+        except OSError:
+            pass  # left for the next run: a stale temporary harms nothing
+    return removed
 
 
 def _prepare_output(out: Path) -> None:

@@ -12,7 +12,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from conftest import gaussian_train, step_command, write_nix
+from conftest import gaussian_train, step_command, write_nix, write_text
 from spikemeasure.detection import DetectionSettings
 from spikemeasure.runner import CACHE_FOLDER, measure_paths
 
@@ -176,9 +176,11 @@ def test_interrupted_run_resumes_to_the_same_tables(distinct_cells, distinct_ref
         report = (out / "report.html").read_text()
         assert "interrupted" in report and all(f in report for f in cells)
         assert (out / "figures" / "cell_features_by_group.png").is_file()
-    assert not list(out.glob(".*.part"))
+        assert not list(out.rglob(".*.part"))  # a handled signal leaves no temporary
+    # SIGKILL may fall inside a write and leave a temporary: the rerun removes it
     rerun = subprocess.run(cmd, capture_output=True, text=True, timeout=300)
     assert rerun.returncode == 0, rerun.stderr
+    assert not list(out.rglob(".*.part"))
     record = json.loads((out / "run.json").read_text())
     statuses = [i["status"] for i in record["inputs"]]
     assert statuses.count("reused") == finished  # none measured twice
@@ -771,3 +773,23 @@ def test_a_second_run_into_a_folder_being_written_is_refused(tmp_path):
         assert not (out / "spikes.csv").exists()
     summary = measure_paths([str(cell)], out)
     assert summary.files_measured == 1
+
+
+def test_a_rerun_removes_temporaries_a_killed_run_left_and_nothing_else(tmp_path):
+    # A SIGKILL or a power cut inside an atomic write leaves `.NAME.XXXXXXXX.part` (mkstemp's
+    # name) beside the file; the next run into the folder removes its own such files only.
+    v = np.full(4000, -70.0)
+    rec = tmp_path / "rec"
+    rec.mkdir()
+    write_text(rec / "flat.txt", v)
+    out = tmp_path / "out"
+    measure_paths([str(rec)], out, jobs=1, figure_format=None)
+    stale = [out / ".spikes.csv.abcd1234.part", out / ".run.json.x_y9z0aB.part",
+             out / "figures" / "flat" / ".traces.png.k2j3h4g5.part"]
+    kept = [out / ".notes.txt.abcd1234.part", out / "spikes.csv.part", out / "mine.part"]
+    for path in stale + kept:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        path.write_text("partial")
+    measure_paths([str(rec)], out, jobs=1, figure_format=None)
+    assert not any(p.exists() for p in stale)
+    assert all(p.read_text() == "partial" for p in kept)
