@@ -24,9 +24,7 @@ from .tables import cell_summary, cell_table, measure_recording, spike_table, sw
 __all__ = ["Table", "Results", "measure", "measure_trace", "read_recording"]
 
 #: The settings :func:`measure` and :func:`measure_trace` take by keyword, with their types.
-SETTING_TYPES: dict[str, type] = {f.name: f.type if isinstance(f.type, type) else
-                                  {"float": float, "int": int, "str": str}[str(f.type)]
-                                  for f in fields(DetectionSettings)}
+SETTING_TYPES: dict[str, type] = {f.name: type(f.default) for f in fields(DetectionSettings)}
 
 
 class Table:
