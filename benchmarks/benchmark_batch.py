@@ -28,7 +28,7 @@ def main() -> None:
     args = parser.parse_args()
     from spikemeasure.reading import find_recordings, read_recording
     from spikemeasure.runner import measure_paths
-    from spikemeasure.tables import cell_summary, measure_recording
+    from spikemeasure.tables.build import cell_summary, measure_recording
 
     samples = sorted(p for p in (ROOT / "sample_data").iterdir() if p.suffix in (".nwb", ".nix"))
     with tempfile.TemporaryDirectory() as tmp:

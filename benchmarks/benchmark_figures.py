@@ -95,7 +95,7 @@ def main() -> None:
     parser.add_argument("--repeats", type=int, default=3)
     args = parser.parse_args()
     from spikemeasure.reading import read_recording
-    from spikemeasure.tables import cell_summary, measure_recording
+    from spikemeasure.tables.build import cell_summary, measure_recording
 
     with tempfile.TemporaryDirectory() as tmp:
         tmp = Path(tmp)

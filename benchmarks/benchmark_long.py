@@ -95,7 +95,7 @@ def _child(kind: str, path: str, out: str) -> None:
     """Run one of the two in this (fresh) process and print its time and memory."""
     import resource
 
-    from spikemeasure.measurement import PIECE_SAMPLES
+    from spikemeasure.analysis.spikes import PIECE_SAMPLES
     from spikemeasure.reading import read_recording
     from spikemeasure.runner import measure_paths
 

@@ -27,7 +27,7 @@ from typing import Callable, Sequence
 from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, Column
 from .config import CheckSettings, Tolerance
 from .errors import SpikemeasureError
-from .output import TEXT_COLUMN_NAMES, unescape_csv_text
+from .tables.write import TEXT_COLUMN_NAMES, unescape_csv_text
 from .quality_rules import QUALITY_RULES, QualityRule
 
 __all__ = ["CheckInputError", "Finding", "CaseResult", "CheckReport", "RunTables",

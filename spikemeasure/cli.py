@@ -19,7 +19,7 @@ import click
 
 from . import __version__
 from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, columns_markdown
-from .detection import THRESHOLD_METHODS, DetectionSettings
+from .analysis.detection import THRESHOLD_METHODS, DetectionSettings
 from .errors import SpikemeasureError, UnusableOutputError, printable_name
 
 
@@ -27,7 +27,7 @@ from .errors import SpikemeasureError, UnusableOutputError, printable_name
 def _step_sizes(ctx: click.Context, param: click.Parameter, value):
     if value is None:
         return None
-    from .sweeps import parse_step_sizes
+    from .analysis.sweeps import parse_step_sizes
 
     try:
         return parse_step_sizes(value)

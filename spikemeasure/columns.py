@@ -7,11 +7,11 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from .detection import DetectionSettings
-from .cell_features import (CELL_FLAG_TEXT, HOLDING_TOLERANCE_PA, MAX_RESIDUAL_TO_NOISE,
+from .analysis.detection import DetectionSettings
+from .analysis.cell_features import (CELL_FLAG_TEXT, HOLDING_TOLERANCE_PA, MAX_RESIDUAL_TO_NOISE,
                             MIN_DEFLECTION_TO_NOISE, SLOW_SWEEP_MAX_RISE_MV)
-from .measurement import CLIPPED_RUN_SAMPLES, FLAG_TEXT, PIECE_SAMPLES
-from .sweep_features import DRIFT_WINDOW_MS, MIN_WINDOW_MS, SWEEP_FLAG_TEXT
+from .analysis.spikes import CLIPPED_RUN_SAMPLES, FLAG_TEXT, PIECE_SAMPLES
+from .analysis.sweep_features import DRIFT_WINDOW_MS, MIN_WINDOW_MS, SWEEP_FLAG_TEXT
 
 __all__ = ["Column", "SPIKE_COLUMNS", "SWEEP_COLUMNS", "CELL_COLUMNS", "ERROR_COLUMNS",
            "spike_column_names",

@@ -28,10 +28,10 @@ from pathlib import Path
 from typing import Any, Callable, Mapping, Sequence
 
 from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS
-from .detection import THRESHOLD_METHODS, DetectionSettings
+from .analysis.detection import THRESHOLD_METHODS, DetectionSettings
 from .errors import InvalidSettingError, SpikemeasureError
 from .quality_rules import QUALITY_RULES
-from .sweeps import parse_step_sizes
+from .analysis.sweeps import parse_step_sizes
 
 if sys.version_info >= (3, 11):
     import tomllib

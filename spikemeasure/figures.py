@@ -34,13 +34,13 @@ from typing import Callable, Sequence
 
 import numpy as np
 
-from .cell_features import CellFeatures, passive_sweeps
-from .detection import DetectionSettings, smoothed_trace
+from .analysis.cell_features import CellFeatures, passive_sweeps
+from .analysis.detection import DetectionSettings, smoothed_trace
 from .errors import SpikemeasureError, printable_name
-from .output import write_bytes_atomic
+from .tables.write import write_bytes_atomic
 from .reading import Recording
-from .sweeps import MIN_SAMPLING_RATE_HZ
-from .tables import SweepResult, cell_summary
+from .analysis.sweeps import MIN_SAMPLING_RATE_HZ
+from .tables.build import SweepResult, cell_summary
 
 __all__ = ["FIGURE_FORMATS", "CELL_FIGURE_NAMES", "BATCH_FIGURE_NAME", "BATCH_FEATURES",
            "ENVELOPE_BINS", "DisplayUnavailableError", "envelope", "traces_figure",

@@ -5,10 +5,10 @@ import math
 from dataclasses import dataclass
 from pathlib import Path
 
-from .detection import DetectionSettings
+from .analysis.detection import DetectionSettings
 from .reading import Recording, read_recording
-from .cell_features import CELL_FLAG_TEXT
-from .tables import SweepResult, cell_summary, measure_recording
+from .analysis.cell_features import CELL_FLAG_TEXT
+from .tables.build import SweepResult, cell_summary, measure_recording
 
 __all__ = ["describe_file", "inspect_file", "Inspection"]
 

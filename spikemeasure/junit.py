@@ -20,7 +20,7 @@ from pathlib import Path
 
 from . import __version__
 from .checks import CheckReport
-from .output import write_text_atomic
+from .tables.write import write_text_atomic
 
 __all__ = ["junit_xml", "write_junit"]
 

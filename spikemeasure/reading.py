@@ -36,7 +36,7 @@ from typing import Callable
 import numpy as np
 
 from .errors import InvalidSettingError, UnreadableInputError, printable_name
-from .sweeps import LazyTrace, Sweep
+from .analysis.sweeps import LazyTrace, Sweep
 
 __all__ = ["Recording", "ChannelInfo", "read_recording", "find_recordings", "is_temporary",
            "search_recordings", "RecordingSearch",

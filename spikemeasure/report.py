@@ -21,7 +21,7 @@ from typing import Sequence
 
 from .columns import CELL_COLUMNS
 from .errors import SpikemeasureError, valid_text
-from .output import unescape_csv_text, write_text_atomic
+from .tables.write import unescape_csv_text, write_text_atomic
 
 __all__ = ["Groups", "GroupsFileError", "read_groups", "cell_values", "report_html",
            "write_report", "EMBED_LIMIT_BYTES"]

@@ -44,12 +44,12 @@ from typing import Callable
 
 from . import __version__
 from .columns import CELL_COLUMNS, ERROR_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS
-from .detection import DetectionSettings
+from .analysis.detection import DetectionSettings
 from .errors import (InvalidSettingError, OutputWriteError, SpikemeasureError,
                      UnusableOutputError, printable_name)
-from .output import json_text, rows_csv_text, write_files_atomic, write_json, write_text_atomic
+from .tables.write import json_text, rows_csv_text, write_files_atomic, write_json, write_text_atomic
 from .reading import TEXT_SUFFIXES, read_recording, search_recordings
-from .tables import (cell_summary, cell_table, count_spikes, flag_counts, format_rows,
+from .tables.build import (cell_summary, cell_table, count_spikes, flag_counts, format_rows,
                      measure_recording, spike_table, sweep_table)
 
 __all__ = ["RunSummary", "measure_paths", "measure_file", "file_sha256", "SPIKES_FILE",

@@ -39,7 +39,7 @@ from spikemeasure.cli import main
 from spikemeasure.columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS
 from spikemeasure.config import (QUALITY_KEYS, CheckSettings, ConfigError, Tolerance,
                                  load_check_settings)
-from spikemeasure.detection import DetectionSettings
+from spikemeasure.analysis.detection import DetectionSettings
 from spikemeasure.junit import junit_xml
 from spikemeasure.quality_rules import quality_rules_markdown
 from spikemeasure.runner import measure_paths

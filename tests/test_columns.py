@@ -2,7 +2,7 @@
 from pathlib import Path
 
 from spikemeasure.columns import SPIKE_COLUMNS, columns_markdown, spike_column_names
-from spikemeasure.measurement import FLAG_TEXT, SpikeMeasurements
+from spikemeasure.analysis.spikes import FLAG_TEXT, SpikeMeasurements
 
 DOCS = Path(__file__).resolve().parents[1] / "docs" / "measurements.md"
 
@@ -40,7 +40,7 @@ def test_docs_are_generated_from_the_declarations():
 
 def test_cell_format():
     from spikemeasure.columns import Column
-    from spikemeasure.tables import format_value
+    from spikemeasure.tables.build import format_value
 
     col = Column("x_mv", "mV", "test", 3)
     assert format_value(col, float("nan")) == ""

@@ -12,7 +12,7 @@ import pytest
 from spikemeasure import config
 from spikemeasure.config import (CONFIG_FILE_NAME, KNOWN_KEYS, ConfigError, RunParameters,
                                  find_config_file, load_config, merge_parameters)
-from spikemeasure.detection import THRESHOLD_METHODS, DetectionSettings
+from spikemeasure.analysis.detection import THRESHOLD_METHODS, DetectionSettings
 from spikemeasure.errors import InvalidSettingError, SpikemeasureError
 
 DEFAULTS = DetectionSettings()

@@ -3,10 +3,10 @@ import numpy as np
 import pytest
 
 from conftest import GaussianSpike, gaussian_train
-from spikemeasure.detection import (DetectionSettings, detect_spikes, smoothed_trace,
+from spikemeasure.analysis.detection import (DetectionSettings, detect_spikes, smoothed_trace,
                                     smoothing_window_samples)
 from spikemeasure.errors import InvalidSettingError
-from spikemeasure.measurement import measure_trace
+from spikemeasure.analysis.spikes import measure_trace
 
 
 class TestSettings:
@@ -95,7 +95,7 @@ class TestNoise:
 
 def test_forward_max_paths_agree():
     """Source: numpy's max over explicit windows, for both the gather and running-max paths."""
-    from spikemeasure.detection import _forward_max_at
+    from spikemeasure.analysis.detection import _forward_max_at
 
     x = np.random.default_rng(0).normal(size=5000)
     starts = np.array([0, 17, 4990, 4999])

@@ -15,10 +15,10 @@ from conftest import (RC_R_GOHM as R_GOHM, RC_RATE_HZ, RC_SPIKES_PER_STEP as SPI
 from spikemeasure import figures
 from test_cell_features import rc_recording  # the analytic RC membrane
 from spikemeasure.cli import main
-from spikemeasure.detection import DetectionSettings
+from spikemeasure.analysis.detection import DetectionSettings
 from spikemeasure.reading import read_recording
 from spikemeasure.runner import measure_paths
-from spikemeasure.tables import cell_summary, measure_recording, spike_table, sweep_table
+from spikemeasure.tables.build import cell_summary, measure_recording, spike_table, sweep_table
 
 RATE = RC_RATE_HZ
 ONSET_S, OFFSET_S = RC_STEP_S

@@ -14,14 +14,15 @@ import numpy as np
 import pytest
 from scipy.ndimage import gaussian_filter1d
 
-from spikemeasure import measurement, reading
-from spikemeasure.detection import DetectionSettings
+from spikemeasure import reading
+from spikemeasure.analysis import spikes as measurement
+from spikemeasure.analysis.detection import DetectionSettings
 from spikemeasure.errors import InvalidSettingError, UnreadableInputError
-from spikemeasure.measurement import (SpikeMeasurements, measure_in_pieces, measure_trace,
+from spikemeasure.analysis.spikes import (SpikeMeasurements, measure_in_pieces, measure_trace,
                                       piece_margin_samples)
 from spikemeasure.runner import measure_paths
 from spikemeasure.testing import simulate_current_waveform
-from spikemeasure.sweeps import LazyTrace
+from spikemeasure.analysis.sweeps import LazyTrace
 
 from conftest import write_nix, write_nix_huge_declared, write_nwb, write_nwb_huge_declared
 
@@ -435,8 +436,8 @@ def test_a_sweep_larger_than_the_memory_available_is_not_read_whole(tmp_path, mo
 def test_lazy_sweep_with_a_gap_gets_the_same_spikes_and_flags_as_whole(gap_free):
     """Source: the same trace with the same gap measured whole (measure_around_gaps); a long
     sweep kept in its file has the same spikes, and its count is flagged a lower bound."""
-    from spikemeasure.sweeps import Sweep
-    from spikemeasure.tables import measure_sweep
+    from spikemeasure.analysis.sweeps import Sweep
+    from spikemeasure.tables.build import measure_sweep
 
     v = gap_free.copy()
     v[30_000:30_200] = np.nan

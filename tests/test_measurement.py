@@ -4,10 +4,10 @@ import pytest
 from scipy.signal import peak_widths
 
 from conftest import GaussianSpike, gaussian_train, sampled, textbook_trace
-from spikemeasure.detection import DetectionSettings, detect_spikes, smoothed_trace
+from spikemeasure.analysis.detection import DetectionSettings, detect_spikes, smoothed_trace
 from spikemeasure.errors import InvalidSettingError
-from spikemeasure.measurement import half_widths, interpolated_peaks, measure_trace
-from spikemeasure.sweeps import CurrentStep
+from spikemeasure.analysis.spikes import half_widths, interpolated_peaks, measure_trace
+from spikemeasure.analysis.sweeps import CurrentStep
 
 RATES = [10_000.0, 20_000.0, 50_000.0, 100_000.0]
 
@@ -219,7 +219,7 @@ class TestClippedPeaks:
 
     @pytest.mark.parametrize("clip_mv", [0.0, 20.0])
     def test_clipped_gaussian_is_flagged_with_its_plateau(self, clip_mv):
-        from spikemeasure.measurement import flat_peak_runs
+        from spikemeasure.analysis.spikes import flat_peak_runs
 
         spike = GaussianSpike()
         rate = 20_000.0
@@ -242,7 +242,7 @@ class TestClippedPeaks:
     def test_two_equal_samples_straddling_a_peak_are_not_clipping(self, gaussian_spike):
         """A grid placed symmetrically about the peak gives two equal largest samples: a run
         of 2, below the CLIPPED_RUN_SAMPLES of 3."""
-        from spikemeasure.measurement import CLIPPED_RUN_SAMPLES
+        from spikemeasure.analysis.spikes import CLIPPED_RUN_SAMPLES
 
         rate = 20_000.0
         dt_ms = 1e3 / rate
@@ -284,7 +284,7 @@ class TestMissingSamples:
         (4400, 4420, -np.inf),
     ])
     def test_values_clear_of_the_gap_are_unchanged(self, clean, start, stop, value):
-        from spikemeasure.measurement import GAP_FLAG, measure_around_gaps
+        from spikemeasure.analysis.spikes import GAP_FLAG, measure_around_gaps
 
         v, ref = clean
         assert len(ref) > 20 and not any(ref.flags)
@@ -312,7 +312,7 @@ class TestMissingSamples:
                 assert not lost and got.flags[k] == (), k
 
     def test_a_one_sample_gap_beside_the_peak_costs_the_peak_not_the_threshold(self, clean):
-        from spikemeasure.measurement import GAP_FLAG, measure_around_gaps
+        from spikemeasure.analysis.spikes import GAP_FLAG, measure_around_gaps
 
         v, ref = clean
         k = 3
@@ -331,7 +331,7 @@ class TestMissingSamples:
         assert len(measure_around_gaps(broken, self.RATE)) == len(ref) - 1
 
     def test_without_gaps_the_same_as_measure_trace(self, clean):
-        from spikemeasure.measurement import measure_around_gaps
+        from spikemeasure.analysis.spikes import measure_around_gaps
 
         v, ref = clean
         got = measure_around_gaps(v, self.RATE)
@@ -345,7 +345,7 @@ def test_gap_rules_hold_for_every_threshold_method(method):
     TestMissingSamples, with the threshold searches that reach back from the onset: a gap
     shortly before a spike's onset cuts that search, so its threshold is empty, never
     different."""
-    from spikemeasure.measurement import GAP_FLAG, measure_around_gaps
+    from spikemeasure.analysis.spikes import GAP_FLAG, measure_around_gaps
     from spikemeasure.testing import simulate_current_steps
 
     rate = 20_000.0

@@ -14,7 +14,7 @@ from spikemeasure import reading
 from spikemeasure.errors import UnreadableInputError
 from spikemeasure.reading import find_recordings, read_recording
 from spikemeasure.runner import measure_paths
-from spikemeasure.tables import measure_recording, spike_table
+from spikemeasure.tables.build import measure_recording, spike_table
 
 RATE = 20_000.0
 
@@ -343,7 +343,7 @@ class TestDamagedTimeAxis:
 
     def test_the_step_finder_refuses_an_infinite_rate(self):
         from spikemeasure.errors import InvalidSettingError
-        from spikemeasure.sweeps import find_current_step
+        from spikemeasure.analysis.sweeps import find_current_step
 
         with pytest.raises(InvalidSettingError, match="positive, finite"):
             find_current_step(np.zeros(100), float("inf"))

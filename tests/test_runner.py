@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 
 from conftest import gaussian_train, step_command, write_nix, write_text
-from spikemeasure.detection import DetectionSettings
+from spikemeasure.analysis.detection import DetectionSettings
 from spikemeasure.runner import CACHE_FOLDER, measure_paths
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -377,7 +377,7 @@ def test_text_cells_escaped_numbers_not_and_read_back_by_csv(tmp_path):
     """OWASP guidance on CSV injection: a text cell starting with = + - @ tab or CR gets a
     leading ' and quotes; Python's csv module reads every cell back."""
     from spikemeasure.columns import ERROR_COLUMNS
-    from spikemeasure.output import escape_csv_text, unescape_csv_text, write_rows_csv
+    from spikemeasure.tables.write import escape_csv_text, unescape_csv_text, write_rows_csv
 
     texts = ["=1+1", "+cell", "-cell", "@cell", "\tcell", "\rcell", "'=x", "''", "'plain",
              "plain", "", "a,b", 'say "hi"']
@@ -560,7 +560,7 @@ def test_a_bug_in_one_file_fails_that_file_only(distinct_cells, tmp_path, monkey
 
 def test_first_ctrl_c_stops_inside_a_file_between_sweeps(distinct_cells, tmp_path, monkeypatch):
     """The first Ctrl-C stops the file being measured at its next sweep, not at its end."""
-    from spikemeasure import tables
+    from spikemeasure.tables import build as tables
 
     calls = []
     original = tables.measure_sweep
@@ -585,10 +585,10 @@ def test_measuring_can_be_cancelled_between_sweeps_and_pieces():
     """The cancel callable is called before each sweep and each piece of a long trace, and
     its exception stops the work there."""
     from conftest import GaussianSpike
-    from spikemeasure.measurement import measure_in_pieces
+    from spikemeasure.analysis.spikes import measure_in_pieces
     from spikemeasure.reading import Recording
-    from spikemeasure.sweeps import Sweep
-    from spikemeasure.tables import measure_recording
+    from spikemeasure.analysis.sweeps import Sweep
+    from spikemeasure.tables.build import measure_recording
 
     class Stop(Exception):
         pass

@@ -3,8 +3,8 @@ import numpy as np
 import pytest
 
 from spikemeasure.errors import InvalidSettingError
-from spikemeasure.sweep_features import adaptation_index, firing, passive_response, sweep_features
-from spikemeasure.sweeps import CurrentStep
+from spikemeasure.analysis.sweep_features import adaptation_index, firing, passive_response, sweep_features
+from spikemeasure.analysis.sweeps import CurrentStep
 
 RATE = 20_000.0
 
@@ -115,7 +115,7 @@ class TestBaselineDrift:
 
     @pytest.mark.parametrize("slope_mv_per_s", [-4.0, 0.0, 2.5])
     def test_ramp(self, slope_mv_per_s):
-        from spikemeasure.sweep_features import baseline_drift
+        from spikemeasure.analysis.sweep_features import baseline_drift
 
         rate, n = 20_000.0, 16_000                     # 0.8 s; step 0.1 to 0.6 s
         t = np.arange(n) / rate
@@ -133,7 +133,7 @@ class TestBaselineDrift:
 
     def test_short_tail_uses_only_samples_after_the_step(self):
         """30 ms after the step: the window is those 30 ms, never the step itself."""
-        from spikemeasure.sweep_features import baseline_drift
+        from spikemeasure.analysis.sweep_features import baseline_drift
 
         rate = 10_000.0
         v = np.full(int(0.63 * rate), -70.0)
@@ -142,7 +142,7 @@ class TestBaselineDrift:
         assert baseline_drift(v, rate, 0.6, -70.0) == pytest.approx(1.0, abs=1e-12)
 
     def test_step_to_the_end_gives_nan(self):
-        from spikemeasure.sweep_features import baseline_drift
+        from spikemeasure.analysis.sweep_features import baseline_drift
 
         v = np.full(1000, -70.0)
         assert np.isnan(baseline_drift(v, 10_000.0, 0.1, -70.0))

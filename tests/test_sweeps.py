@@ -4,7 +4,7 @@ import pytest
 
 from conftest import step_command
 from spikemeasure.errors import InvalidSettingError, UnmeasurableDataError
-from spikemeasure.sweeps import Sweep, check_sweep, find_current_step, step_from_times
+from spikemeasure.analysis.sweeps import Sweep, check_sweep, find_current_step, step_from_times
 
 RATE = 20_000.0
 
@@ -88,7 +88,7 @@ class TestMissingStretches:
     """Source: stretches placed by hand (start, stop exclusive)."""
 
     def test_stretches_at_the_ends_in_the_middle_and_one_sample_long(self):
-        from spikemeasure.sweeps import missing_stretches, stretches_text
+        from spikemeasure.analysis.sweeps import missing_stretches, stretches_text
 
         v = np.zeros(100)
         v[:3] = np.nan
@@ -123,7 +123,7 @@ class TestCommandWithGaps:
         assert step.offset_s == pytest.approx(0.15)
 
     def test_a_zero_sweep_with_a_gap_over_the_window_gets_no_step(self):
-        from spikemeasure.sweeps import protocol_steps
+        from spikemeasure.analysis.sweeps import protocol_steps
 
         n = 4000
         cmds = [step_command(n, RATE, a, 0.05, 0.15) for a in (-50.0, 0.0)]

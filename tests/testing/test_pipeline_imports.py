@@ -10,7 +10,7 @@ import sys
 
 import pytest
 
-PIPELINE = ("spikemeasure.runner", "spikemeasure.tables", "spikemeasure.cli")
+PIPELINE = ("spikemeasure.runner", "spikemeasure.tables.build", "spikemeasure.cli")
 
 
 def loaded_spikemeasure_modules(imports: tuple[str, ...]) -> list[str]:

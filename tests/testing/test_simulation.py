@@ -8,9 +8,9 @@ is independent of the detector: upward crossings of 0 mV by the noise-free simul
 import numpy as np
 import pytest
 
-from spikemeasure.measurement import measure_trace
+from spikemeasure.analysis.spikes import measure_trace
 from spikemeasure.testing import MODELS, resting_potential_mv, simulate_current_steps
-from spikemeasure.sweeps import CurrentStep
+from spikemeasure.analysis.sweeps import CurrentStep
 
 RATE = 50_000.0
 STEP = CurrentStep(onset_s=0.05, offset_s=0.25)

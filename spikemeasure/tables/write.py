@@ -19,9 +19,9 @@ import tempfile
 from collections.abc import Mapping
 from pathlib import Path
 
-from .columns import SPIKE_COLUMNS, Column
-from .errors import InvalidSettingError, valid_text
-from .tables import format_rows
+from ..columns import SPIKE_COLUMNS, Column
+from ..errors import InvalidSettingError, valid_text
+from .build import format_rows
 
 __all__ = ["write_text_atomic", "write_bytes_atomic", "write_files_atomic", "write_table_csv",
            "write_rows_csv", "write_json", "rows_csv_text", "json_text", "escape_csv_text",

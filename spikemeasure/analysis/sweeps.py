@@ -12,7 +12,7 @@ from typing import Callable
 import numpy as np
 from scipy.ndimage import median_filter
 
-from .errors import InvalidSettingError, UnmeasurableDataError
+from ..errors import InvalidSettingError, UnmeasurableDataError
 
 __all__ = ["Sweep", "LazyTrace", "CurrentStep", "find_current_step", "step_from_times", "check_sweep",
            "parse_step_sizes", "protocol_steps", "missing_stretches", "stretches_text",

@@ -16,7 +16,7 @@ from scipy.signal import savgol_coeffs
 
 from .detection import (SMOOTHING_POLYORDER, DetectedSpikes, DetectionSettings, SmoothedTrace,
                         detect_spikes, smoothed_trace, smoothing_window_samples)
-from .errors import InvalidSettingError
+from ..errors import InvalidSettingError
 from .sweeps import CurrentStep
 
 __all__ = ["SpikeMeasurements", "spike_thresholds", "interpolated_peaks", "half_widths",

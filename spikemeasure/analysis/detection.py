@@ -11,7 +11,7 @@ import numpy as np
 from scipy.ndimage import maximum_filter1d
 from scipy.signal import savgol_filter
 
-from .errors import InvalidSettingError
+from ..errors import InvalidSettingError
 
 __all__ = ["DetectionSettings", "THRESHOLD_METHODS", "DetectedSpikes", "smoothing_window_samples",
            "smoothed_trace", "detect_spikes"]

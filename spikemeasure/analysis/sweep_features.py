@@ -10,7 +10,7 @@ from dataclasses import asdict, dataclass
 import numpy as np
 from scipy.ndimage import uniform_filter1d
 
-from .errors import InvalidSettingError
+from ..errors import InvalidSettingError
 from .sweeps import MIN_SAMPLING_RATE_HZ, CurrentStep, missing_stretches
 
 __all__ = ["SweepFeatures", "baseline", "baseline_drift", "firing", "adaptation_index",

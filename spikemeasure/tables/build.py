@@ -9,15 +9,15 @@ from typing import Callable
 
 import numpy as np
 
-from .cell_features import CellFeatures, cell_features
-from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, Column
-from .detection import DetectionSettings, detect_spikes, smoothed_trace
-from .errors import InvalidSettingError, SpikemeasureError, UnmeasurableDataError
-from .measurement import (PIECE_SAMPLES, SpikeMeasurements, measure_around_gaps,
+from ..analysis.cell_features import CellFeatures, cell_features
+from ..columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, Column
+from ..analysis.detection import DetectionSettings, detect_spikes, smoothed_trace
+from ..errors import InvalidSettingError, SpikemeasureError, UnmeasurableDataError
+from ..analysis.spikes import (PIECE_SAMPLES, SpikeMeasurements, measure_around_gaps,
                           measure_in_pieces_with_gaps, measure_spikes)
-from .reading import Recording
-from .sweep_features import SweepFeatures, sweep_features
-from .sweeps import (CurrentStep, Sweep, check_sweep, missing_stretches, protocol_steps,
+from ..reading import Recording
+from ..analysis.sweep_features import SweepFeatures, sweep_features
+from ..analysis.sweeps import (CurrentStep, Sweep, check_sweep, missing_stretches, protocol_steps,
                      spikes_measurable, stretches_text)
 
 __all__ = ["SweepResult", "measure_sweep", "measure_recording", "cell_summary", "spike_table",

@@ -1,0 +1,1 @@
+"""Measurements on sweeps: spike detection, spikes, sweep and cell features (arrays in, arrays out)."""

@@ -1,0 +1,1 @@
+"""Tables built from measured results, and their writing to files."""
