@@ -237,6 +237,33 @@ def rc_cell_sweeps(steps=RC_STEPS_PA, spikes=RC_SPIKES_PER_STEP, duration_s: flo
     return out
 
 
+PASSIVE_RATE_HZ = 20_000.0
+PASSIVE_R_MOHM, PASSIVE_TAU_MS, PASSIVE_REST_MV = 200.0, 20.0, -70.0
+
+
+def rc_recording(noise_mv=0.0, steps_pa=(-100.0, -75.0, -50.0, -25.0), seed=0,
+                 rate=PASSIVE_RATE_HZ):
+    """A passive RC membrane: V(t) = rest + R I (1 - exp(-t / RC)) during the step, relaxing
+    back after it (analytic; R in MOhm times I in pA is 1e-3 mV)."""
+    from spikemeasure.analysis.sweeps import Sweep
+    from spikemeasure.reading import Recording
+    rng = np.random.default_rng(seed)
+    n = int(0.8 * rate)
+    t = np.arange(n) / rate
+    sweeps = []
+    for k, amp in enumerate(steps_pa):
+        cmd = step_command(n, rate, amp, 0.1, 0.6)
+        dv_inf = PASSIVE_R_MOHM * amp * 1e-3
+        on = (t - 0.1) * 1e3
+        v = np.where(t < 0.1, 0.0, dv_inf * (1 - np.exp(-np.clip(on, 0, None) / PASSIVE_TAU_MS)))
+        at_off = dv_inf * (1 - np.exp(-500.0 / PASSIVE_TAU_MS))
+        v = np.where(t >= 0.6, at_off * np.exp(-(t - 0.6) * 1e3 / PASSIVE_TAU_MS), v)
+        v = v + PASSIVE_REST_MV
+        v = v + rng.normal(0, noise_mv, n) if noise_mv else v
+        sweeps.append(Sweep(v, rate, cmd, file="rc.nwb", index=k))
+    return Recording("rc.nwb", "test", sweeps)
+
+
 # --------------------------------------------------------------------------- damaged files
 
 def set_hdf5_values(path, name_ends, *, attribute=None, value, within=""):

@@ -13,7 +13,7 @@ from scipy.signal import peak_prominences, peak_widths
 from conftest import (RC_R_GOHM as R_GOHM, RC_RATE_HZ, RC_SPIKES_PER_STEP as SPIKES_PER_STEP,
                       RC_STEP_S, RC_STEPS_PA as STEPS_PA, rc_cell_sweeps, write_nix, write_text)
 from spikemeasure import figures
-from test_cell_features import rc_recording  # the analytic RC membrane
+from conftest import rc_recording  # the analytic RC membrane
 from spikemeasure.cli import main
 from spikemeasure.analysis.detection import DetectionSettings
 from spikemeasure.reading import read_recording

@@ -5,7 +5,8 @@ import numpy as np
 import pytest
 from click.testing import CliRunner
 
-from conftest import step_command, write_nix
+from conftest import (PASSIVE_RATE_HZ as RATE, PASSIVE_R_MOHM as R_MOHM, PASSIVE_REST_MV as REST,
+                      PASSIVE_TAU_MS as TAU_MS, rc_recording, step_command, write_nix)
 from spikemeasure.analysis.cell_features import fit_membrane_tau, rheobase
 from spikemeasure.cli import main
 from spikemeasure.reading import Recording, read_recording
@@ -14,30 +15,6 @@ from spikemeasure.analysis.sweeps import Sweep, protocol_steps
 from spikemeasure.tables.build import (cell_summary, cell_table, format_rows, measure_recording,
                                  sweep_table)
 from spikemeasure.columns import CELL_COLUMNS, SWEEP_COLUMNS
-
-RATE = 20_000.0
-R_MOHM, TAU_MS, REST = 200.0, 20.0, -70.0
-
-
-def rc_recording(noise_mv=0.0, steps_pa=(-100.0, -75.0, -50.0, -25.0), seed=0, rate=RATE):
-    """A passive RC membrane: V(t) = rest + R I (1 - exp(-t / RC)) during the step, relaxing
-    back after it (analytic; R in MOhm times I in pA is 1e-3 mV)."""
-    RATE = rate
-    rng = np.random.default_rng(seed)
-    n = int(0.8 * RATE)
-    t = np.arange(n) / RATE
-    sweeps = []
-    for k, amp in enumerate(steps_pa):
-        cmd = step_command(n, RATE, amp, 0.1, 0.6)
-        dv_inf = R_MOHM * amp * 1e-3
-        on = (t - 0.1) * 1e3
-        v = np.where(t < 0.1, 0.0, dv_inf * (1 - np.exp(-np.clip(on, 0, None) / TAU_MS)))
-        at_off = dv_inf * (1 - np.exp(-500.0 / TAU_MS))
-        v = np.where(t >= 0.6, at_off * np.exp(-(t - 0.6) * 1e3 / TAU_MS), v) + REST
-        v = v + rng.normal(0, noise_mv, n) if noise_mv else v
-        sweeps.append(Sweep(v, RATE, cmd, file="rc.nwb", index=k))
-    return Recording("rc.nwb", "test", sweeps)
-
 
 class TestPassiveMembrane:
     """Source: the analytic RC membrane, V = R I (1 - exp(-t / RC))."""
@@ -165,7 +142,7 @@ def test_measure_tables_agree_with_the_api(tmp_path):
     """The CSVs of `spikemeasure measure sample_data/` hold the API's values for the same files."""
     from pathlib import Path
 
-    data = Path(__file__).resolve().parents[1] / "sample_data"
+    data = Path(__file__).resolve().parents[2] / "sample_data"
     out = tmp_path / "out"
     r = CliRunner().invoke(main, ["measure", str(data), "--out", str(out), "--quiet"])
     assert r.exit_code == 0, r.output
