@@ -15,11 +15,11 @@ import pytest
 from scipy.ndimage import gaussian_filter1d
 
 from spikemeasure import reading
-from spikemeasure.analysis import spikes as measurement
+from spikemeasure.analysis import spikes_in_parts as measurement
 from spikemeasure.analysis.detection import DetectionSettings
 from spikemeasure.errors import InvalidSettingError, UnreadableInputError
-from spikemeasure.analysis.spikes import (SpikeMeasurements, measure_in_pieces, measure_trace,
-                                      piece_margin_samples)
+from spikemeasure.analysis.spikes import SpikeMeasurements, measure_trace
+from spikemeasure.analysis.spikes_in_parts import measure_in_pieces, piece_margin_samples
 from spikemeasure.runner import measure_paths
 from spikemeasure.testing import simulate_current_waveform
 from spikemeasure.analysis.sweeps import LazyTrace

@@ -585,7 +585,7 @@ def test_measuring_can_be_cancelled_between_sweeps_and_pieces():
     """The cancel callable is called before each sweep and each piece of a long trace, and
     its exception stops the work there."""
     from conftest import GaussianSpike
-    from spikemeasure.analysis.spikes import measure_in_pieces
+    from spikemeasure.analysis.spikes_in_parts import measure_in_pieces
     from spikemeasure.reading import Recording
     from spikemeasure.analysis.sweeps import Sweep
     from spikemeasure.tables.build import measure_recording

@@ -294,7 +294,7 @@ def passive_sweeps(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]
     Parameters
     ----------
     sweep_rows : list of dict
-        One :class:`~spikemeasure.sweep_features.SweepFeatures` ``as_dict()`` per sweep.
+        One :class:`~spikemeasure.analysis.sweep_features.SweepFeatures` ``as_dict()`` per sweep.
     traces : list of (voltage_mv, sampling_rate_hz)
         The raw voltage of the same sweeps.
 
@@ -325,7 +325,7 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
     Parameters
     ----------
     sweep_rows : list of dict
-        One :class:`~spikemeasure.sweep_features.SweepFeatures` ``as_dict()`` per measured sweep.
+        One :class:`~spikemeasure.analysis.sweep_features.SweepFeatures` ``as_dict()`` per measured sweep.
     traces : list of (voltage_mv, sampling_rate_hz)
         The raw voltage of the same sweeps, for the time-constant fit.
     first_spikes : list of dict or None

@@ -1,7 +1,7 @@
 """Find action potentials by derivative and height criteria.
 
 The detector works on one sweep at a time and returns sample indices; the measurement stage
-(:mod:`spikemeasure.measurement`) turns them into thresholds, peaks, widths and troughs.
+(:mod:`spikemeasure.analysis.spikes`) turns them into thresholds, peaks, widths and troughs.
 """
 from __future__ import annotations
 
@@ -16,7 +16,7 @@ from ..errors import InvalidSettingError
 __all__ = ["DetectionSettings", "THRESHOLD_METHODS", "DetectedSpikes", "smoothing_window_samples",
            "smoothed_trace", "detect_spikes"]
 
-#: Threshold definitions offered (see :func:`spikemeasure.measurement.spike_thresholds`).
+#: Threshold definitions offered (see :func:`spikemeasure.analysis.spike_features.spike_thresholds`).
 THRESHOLD_METHODS = ("onset_rate", "max_rate_fraction", "second_derivative_peak")
 
 #: Savitzky-Golay polynomial order: a local quadratic fit, so the smoothed derivative of any

@@ -270,18 +270,18 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
         Windows before the step (baseline) and at its end (steady state), default 100 ms.
     clipped_spike_count : int, optional
         Spikes of the sweep whose peak is clipped (flag ``clipped_peak`` of
-        :func:`~spikemeasure.measurement.measure_spikes`), passed through to the table.
+        :func:`~spikemeasure.analysis.spikes.measure_spikes`), passed through to the table.
     duration_s : float, optional
         The sweep's length, when `voltage_mv` is not all of it (a long recording read in
         pieces); by default its length.
     gaps : ndarray of int, shape (k, 2), optional
         (start, stop) samples of the missing stretches
-        (:func:`~spikemeasure.sweeps.missing_stretches`); by default those of `voltage_mv`.
+        (:func:`~spikemeasure.analysis.sweeps.missing_stretches`); by default those of `voltage_mv`.
         Give them for a long recording read in pieces, and to add a gap in the command at the
         step's edge.
     spikes_counted : bool, optional
         False when spikes could not be counted (a sweep sampled below
-        :data:`~spikemeasure.sweeps.MIN_SAMPLING_RATE_HZ`); by default, whether the rate
+        :data:`~spikemeasure.analysis.sweeps.MIN_SAMPLING_RATE_HZ`); by default, whether the rate
         reaches it.
 
     Returns

@@ -210,7 +210,7 @@ def check_sweep(sweep: Sweep) -> None:
     no stretch of at least :data:`MIN_FINITE_RUN_SAMPLES` finite samples (naming the missing
     stretches). A sweep with NaN or infinite stretches otherwise is measured around them, and
     one sampled below :data:`MIN_SAMPLING_RATE_HZ` has its passive values measured but not its
-    spikes (see :func:`spikemeasure.tables.measure_sweep`).
+    spikes (see :func:`spikemeasure.tables.build.measure_sweep`).
     """
     v = sweep.voltage_mv
     rate = sweep.sampling_rate_hz

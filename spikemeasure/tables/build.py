@@ -1,6 +1,6 @@
 """From recordings to tables: measure every sweep and lay the results out in columns.
 
-Nothing here reads or writes files; :mod:`spikemeasure.output` writes the tables.
+Nothing here reads or writes files; :mod:`spikemeasure.tables.write` writes the tables.
 """
 from __future__ import annotations
 
@@ -13,8 +13,8 @@ from ..analysis.cell_features import CellFeatures, cell_features
 from ..columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, Column
 from ..analysis.detection import DetectionSettings, detect_spikes, smoothed_trace
 from ..errors import InvalidSettingError, SpikemeasureError, UnmeasurableDataError
-from ..analysis.spikes import (PIECE_SAMPLES, SpikeMeasurements, measure_around_gaps,
-                          measure_in_pieces_with_gaps, measure_spikes)
+from ..analysis.spikes import PIECE_SAMPLES, SpikeMeasurements, measure_spikes
+from ..analysis.spikes_in_parts import measure_around_gaps, measure_in_pieces_with_gaps
 from ..reading import Recording
 from ..analysis.sweep_features import SweepFeatures, sweep_features
 from ..analysis.sweeps import (CurrentStep, Sweep, check_sweep, missing_stretches, protocol_steps,
@@ -73,24 +73,24 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
                   step: CurrentStep | None = None,
                   cancel: Callable[[], None] | None = None) -> SweepResult:
     """Measure one sweep given its current step (see
-    :func:`~spikemeasure.sweeps.protocol_steps`); a sweep that cannot be measured gives a result
+    :func:`~spikemeasure.analysis.sweeps.protocol_steps`); a sweep that cannot be measured gives a result
     with `error` set.
 
     A long gap-free sweep kept in its file (:attr:`Sweep.is_lazy`) is measured in pieces
-    (:func:`~spikemeasure.measurement.measure_in_pieces`), with the same spikes as whole; one
+    (:func:`~spikemeasure.analysis.spikes_in_parts.measure_in_pieces`), with the same spikes as whole; one
     given a step (``--step``) is read whole, as its step features need all of it.
 
     Missing (NaN or infinite) voltage samples cost only the values whose windows reach them
-    (:func:`~spikemeasure.measurement.measure_around_gaps`,
-    :func:`~spikemeasure.sweep_features.sweep_features`); a gap in the command channel at the
+    (:func:`~spikemeasure.analysis.spikes_in_parts.measure_around_gaps`,
+    :func:`~spikemeasure.analysis.sweep_features.sweep_features`); a gap in the command channel at the
     step's edge counts as a gap there. A sweep sampled below
-    :data:`~spikemeasure.sweeps.MIN_SAMPLING_RATE_HZ` has no spikes measured and its passive
+    :data:`~spikemeasure.analysis.sweeps.MIN_SAMPLING_RATE_HZ` has no spikes measured and its passive
     values kept (flag ``too_slow_for_spikes``). A sweep missing more than half its samples,
     with no spike and no value left, is an error naming the gaps; with less missing, "no spike
     in what is there" is reported (a count of 0, flagged as a lower bound).
 
     `cancel` (optional) is called between the pieces of a long sweep, and stops the work by
-    raising (see :func:`~spikemeasure.measurement.measure_in_pieces`).
+    raising (see :func:`~spikemeasure.analysis.spikes_in_parts.measure_in_pieces`).
     """
     rate = sweep.sampling_rate_hz
     try:

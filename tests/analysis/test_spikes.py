@@ -6,7 +6,8 @@ from scipy.signal import peak_widths
 from conftest import GaussianSpike, gaussian_train, sampled, textbook_trace
 from spikemeasure.analysis.detection import DetectionSettings, detect_spikes, smoothed_trace
 from spikemeasure.errors import InvalidSettingError
-from spikemeasure.analysis.spikes import half_widths, interpolated_peaks, measure_trace
+from spikemeasure.analysis.spike_features import half_widths, interpolated_peaks
+from spikemeasure.analysis.spikes import measure_trace
 from spikemeasure.analysis.sweeps import CurrentStep
 
 RATES = [10_000.0, 20_000.0, 50_000.0, 100_000.0]
@@ -219,7 +220,7 @@ class TestClippedPeaks:
 
     @pytest.mark.parametrize("clip_mv", [0.0, 20.0])
     def test_clipped_gaussian_is_flagged_with_its_plateau(self, clip_mv):
-        from spikemeasure.analysis.spikes import flat_peak_runs
+        from spikemeasure.analysis.spike_features import flat_peak_runs
 
         spike = GaussianSpike()
         rate = 20_000.0
@@ -284,7 +285,7 @@ class TestMissingSamples:
         (4400, 4420, -np.inf),
     ])
     def test_values_clear_of_the_gap_are_unchanged(self, clean, start, stop, value):
-        from spikemeasure.analysis.spikes import GAP_FLAG, measure_around_gaps
+        from spikemeasure.analysis.spikes_in_parts import GAP_FLAG, measure_around_gaps
 
         v, ref = clean
         assert len(ref) > 20 and not any(ref.flags)
@@ -312,7 +313,7 @@ class TestMissingSamples:
                 assert not lost and got.flags[k] == (), k
 
     def test_a_one_sample_gap_beside_the_peak_costs_the_peak_not_the_threshold(self, clean):
-        from spikemeasure.analysis.spikes import GAP_FLAG, measure_around_gaps
+        from spikemeasure.analysis.spikes_in_parts import GAP_FLAG, measure_around_gaps
 
         v, ref = clean
         k = 3
@@ -331,7 +332,7 @@ class TestMissingSamples:
         assert len(measure_around_gaps(broken, self.RATE)) == len(ref) - 1
 
     def test_without_gaps_the_same_as_measure_trace(self, clean):
-        from spikemeasure.analysis.spikes import measure_around_gaps
+        from spikemeasure.analysis.spikes_in_parts import measure_around_gaps
 
         v, ref = clean
         got = measure_around_gaps(v, self.RATE)
@@ -345,7 +346,7 @@ def test_gap_rules_hold_for_every_threshold_method(method):
     TestMissingSamples, with the threshold searches that reach back from the onset: a gap
     shortly before a spike's onset cuts that search, so its threshold is empty, never
     different."""
-    from spikemeasure.analysis.spikes import GAP_FLAG, measure_around_gaps
+    from spikemeasure.analysis.spikes_in_parts import GAP_FLAG, measure_around_gaps
     from spikemeasure.testing import simulate_current_steps
 
     rate = 20_000.0
