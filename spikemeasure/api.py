@@ -19,7 +19,8 @@ from .analysis.detection import DetectionSettings
 from .errors import InvalidSettingError
 from .analysis.spikes import measure_trace as _measure_spikes_of_trace
 from .reading import Recording, read_recording
-from .tables.build import cell_summary, cell_table, measure_recording, spike_table, sweep_table
+from .tables.build import (cell_summary, cell_table, measure_recording, spike_table, spike_values,
+                           sweep_table)
 
 __all__ = ["Table", "Results", "measure", "measure_trace", "read_recording"]
 
@@ -243,7 +244,4 @@ def measure_trace(voltage_mv, sampling_rate_hz: float, **settings: Any) -> Table
     detection = _checked_settings(settings)
     rate = _checked_rate(sampling_rate_hz)
     spikes = _measure_spikes_of_trace(np.asarray(voltage_mv, dtype=float), rate, detection)
-    n = len(spikes)
-    values: dict[str, list] = {"file": [""] * n, "sweep": [0] * n, "spike": list(range(n))}
-    values.update({name: list(column) for name, column in spikes.as_columns().items()})
-    return Table(SPIKE_COLUMNS, values)
+    return Table(SPIKE_COLUMNS, spike_values(spikes, "", 0))

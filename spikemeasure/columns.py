@@ -1,11 +1,18 @@
-"""The one place that declares every output column: name, unit, definition and format.
+"""The one place that declares every output column: name, unit, decimals, definition, whether
+it is a time, and the function that computes it from the measured results.
 
-The CSV headers, ``docs/measurements.md`` (``spikemeasure columns --markdown``) and the tests
-all read these declarations.
+The CSV headers and their formatting, ``docs/measurements.md`` (``spikemeasure columns
+--markdown``), the key of kept outcomes and the tests all read these declarations. Adding a
+spike column is one declaration here, with its function (it takes the
+:class:`~spikemeasure.analysis.spikes.SpikeMeasurements` of a sweep and returns one value per
+spike), and its test.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
+from typing import Any, Callable
+
+import numpy as np
 
 from .analysis.detection import DetectionSettings
 from .analysis.cell_features import (CELL_FLAG_TEXT, HOLDING_TOLERANCE_PA, MAX_RESIDUAL_TO_NOISE,
@@ -13,9 +20,13 @@ from .analysis.cell_features import (CELL_FLAG_TEXT, HOLDING_TOLERANCE_PA, MAX_R
 from .analysis.spikes import CLIPPED_RUN_SAMPLES, FLAG_TEXT, PIECE_SAMPLES
 from .analysis.sweep_features import DRIFT_WINDOW_MS, MIN_WINDOW_MS, SWEEP_FLAG_TEXT
 
-__all__ = ["Column", "SPIKE_COLUMNS", "SWEEP_COLUMNS", "CELL_COLUMNS", "ERROR_COLUMNS",
-           "spike_column_names",
+__all__ = ["Column", "SPIKE_COLUMNS", "SPIKE_MARKS", "SWEEP_COLUMNS", "CELL_COLUMNS",
+           "ERROR_COLUMNS", "KEY_COLUMN_NAMES", "spike_column_names", "shift_spike_times",
            "columns_markdown"]
+
+#: Columns that name the row (the file, the sweep, the spike) rather than hold a measurement;
+#: the table builders fill them.
+KEY_COLUMN_NAMES = frozenset({"file", "sweep", "spike"})
 
 
 @dataclass(frozen=True)
@@ -32,12 +43,38 @@ class Column:
         Exact definition, as used in the code.
     decimals : int or None
         Digits after the point in the CSV; None for text and integers.
+    is_time : bool
+        A time in seconds from the sweep's first sample: moved with the sweep's samples when
+        a trace is measured in parts (:func:`shift_spike_times`).
+    compute : callable or None
+        Takes the measured results of one row group (a sweep's ``SpikeMeasurements``, a
+        ``SweepFeatures``, a ``CellFeatures``) and returns this column's values. None: the
+        results' field of the same name (for the columns of :data:`KEY_COLUMN_NAMES`, the
+        table builder fills them).
     """
 
     name: str
     unit: str
     definition: str
     decimals: int | None = None
+    is_time: bool = False
+    compute: Callable[[Any], Any] | None = None
+
+    def values_from(self, measured: Any) -> Any:
+        """This column's values from measured results (see `compute`)."""
+        if self.compute is not None:
+            return self.compute(measured)
+        return getattr(measured, self.name)
+
+
+def _spike_flags_text(spikes: Any) -> list[str]:
+    """Each spike's flags, ';' separated."""
+    return [";".join(flags) for flags in spikes.flags]
+
+
+def _flags_text(features: Any) -> str:
+    """A sweep's or a cell's flags, ';' separated."""
+    return ";".join(features.flags)
 
 
 SPIKE_COLUMNS: tuple[Column, ...] = (
@@ -52,12 +89,13 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
            "interpolated between samples. `max_rate_fraction`: the last upward crossing of "
            "`--threshold-fraction` (0.05) times the spike's maximum dV/dt before that maximum. "
            "`second_derivative_peak`: the time of the largest d2V/dt2 from 1 ms before the onset "
-           "crossing to the maximum of dV/dt (Sekerli et al. 2004 compare such definitions).", 7),
+           "crossing to the maximum of dV/dt (Sekerli et al. 2004 compare such definitions).", 7,
+           is_time=True),
     Column("threshold_mv", "mV", "Smoothed membrane voltage at threshold_s, linearly "
            "interpolated.", 4),
     Column("peak_s", "s", "Time of the peak: the maximum of the cubic spline through the largest "
            "raw sample between threshold and the end of the rise and three samples either side, "
-           "so a peak falling between samples is found.", 7),
+           "so a peak falling between samples is found.", 7, is_time=True),
     Column("peak_mv", "mV", "Voltage at that maximum.", 4),
     Column("amplitude_mv", "mV", "peak_mv - threshold_mv.", 4),
     Column("half_width_ms", "ms", "Time between the upward crossing (the last before the peak) "
@@ -77,14 +115,23 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
            "current step when the spike lies inside one, else to the end of the sweep. (A last "
            "spike that falls through half amplitude only after the step ends is searched to the "
            "end of the sweep and flagged `trough_after_step_end`.) Never more than "
-           "`--search-window` (200 ms) after the peak.", 7),
+           "`--search-window` (200 ms) after the peak.", 7, is_time=True),
     Column("trough_mv", "mV", "Smoothed voltage at trough_s.", 4),
     Column("ahp_depth_mv", "mV", "Depth of the afterhyperpolarization: threshold_mv - trough_mv "
            "(positive when the trough lies below threshold).", 4),
     Column("isi_ms", "ms", "Interspike interval: threshold_s minus the previous spike's "
            "threshold_s in the same sweep; empty for a sweep's first spike.", 5),
     Column("flags", "", "Why values of this spike are empty or less certain, separated by ';' "
-           "(see the list of flags)."),
+           "(see the list of flags).", compute=_spike_flags_text),
+)
+
+#: Positions kept in the spike results for the figures, not written to spikes.csv: where the
+#: voltage crosses the level of the half-width, so a figure draws what was measured.
+SPIKE_MARKS: tuple[Column, ...] = (
+    Column("half_width_start_s", "s", "Time of the upward crossing that starts half_width_ms "
+           "(empty when half_width_ms is).", 7, is_time=True),
+    Column("half_width_end_s", "s", "Time of the downward crossing that ends half_width_ms "
+           "(empty when half_width_ms is).", 7, is_time=True),
 )
 
 
@@ -99,8 +146,9 @@ SWEEP_COLUMNS: tuple[Column, ...] = (
     Column("holding_pa", "pA", "Mean command current before the step.", 2),
     Column("stimulus_start_s", "s", "Step onset: the first sample of the step, from the command "
            "channel (the half-way level between holding and step, after a 5-sample running "
-           "median), or `--step`.", 6),
-    Column("stimulus_end_s", "s", "Step offset: the first sample after the step.", 6),
+           "median), or `--step`.", 6, is_time=True),
+    Column("stimulus_end_s", "s", "Step offset: the first sample after the step.", 6,
+           is_time=True),
     Column("baseline_mv", "mV", "Mean voltage over the 100 ms before onset (all of it if "
            "shorter).", 4),
     Column("baseline_noise_mv", "mV", "Standard deviation (ddof=0) of the voltage over the same "
@@ -139,7 +187,8 @@ SWEEP_COLUMNS: tuple[Column, ...] = (
     Column("flags", "", "Why values of this sweep are empty or less certain, separated by ';' "
            "(see the list of sweep flags): gaps of missing samples in the windows values are "
            "measured over, or a sampling rate too low for spikes. A value whose window holds "
-           "a missing sample is empty; the others are as without the gap."),
+           "a missing sample is empty; the others are as without the gap.",
+           compute=_flags_text),
 )
 
 CELL_COLUMNS: tuple[Column, ...] = (
@@ -183,7 +232,7 @@ CELL_COLUMNS: tuple[Column, ...] = (
            "baseline_noise_mv (at least 0.05 mV): near 1 when one exponential explains all but "
            "the noise.", 4),
     Column("flags", "", "Why values are empty or less certain, separated by ';' (see the list of "
-           "cell flags)."),
+           "cell flags).", compute=_flags_text),
 )
 
 
@@ -202,7 +251,31 @@ ERROR_COLUMNS: tuple[Column, ...] = (
 
 
 def spike_column_names() -> list[str]:
+    """The header of spikes.csv."""
     return [c.name for c in SPIKE_COLUMNS]
+
+
+def shift_spike_times(spikes: Any, shift_s: float) -> Any:
+    """The same spikes with every time moved by `shift_s` seconds.
+
+    Parameters
+    ----------
+    spikes : SpikeMeasurements
+        Spikes measured on a part of a trace, times from the part's first sample.
+    shift_s : float
+        Time of the part's first sample in the whole trace.
+
+    Returns
+    -------
+    SpikeMeasurements
+        Times from the whole trace's first sample: every measured field declared a time
+        (``is_time``) among :data:`SPIKE_COLUMNS` and :data:`SPIKE_MARKS` is moved; columns
+        computed from them follow when computed.
+    """
+    moved = {c.name: np.asarray(getattr(spikes, c.name)) + shift_s
+             for c in SPIKE_COLUMNS + SPIKE_MARKS
+             if c.is_time and c.compute is None}
+    return replace(spikes, **moved)
 
 
 def columns_markdown() -> str:

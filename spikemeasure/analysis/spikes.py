@@ -60,7 +60,13 @@ CLIPPED_RUN_SAMPLES = 3
 
 @dataclass(frozen=True)
 class SpikeMeasurements:
-    """Measurements of the spikes of one sweep, aligned arrays (NaN where not measurable)."""
+    """Measurements of the spikes of one sweep, aligned arrays (NaN where not measurable).
+
+    The columns of spikes.csv are declared, with what each field means, in
+    :mod:`spikemeasure.columns` (``SPIKE_COLUMNS``); ``half_width_start_s`` and
+    ``half_width_end_s``, the crossings that bound ``half_width_ms``, are kept for figures
+    (``SPIKE_MARKS``).
+    """
 
     threshold_s: np.ndarray
     threshold_mv: np.ndarray
@@ -75,7 +81,14 @@ class SpikeMeasurements:
     trough_mv: np.ndarray
     ahp_depth_mv: np.ndarray
     isi_ms: np.ndarray
+    half_width_start_s: np.ndarray
+    half_width_end_s: np.ndarray
     flags: tuple[tuple[str, ...], ...]
+
+    @classmethod
+    def empty(cls) -> "SpikeMeasurements":
+        """No spikes: every array of length 0."""
+        return cls(flags=(), **{f.name: np.zeros(0) for f in fields(cls) if f.name != "flags"})
 
     def __len__(self) -> int:
         return int(self.peak_s.size)
@@ -87,12 +100,6 @@ class SpikeMeasurements:
         return SpikeMeasurements(flags=tuple(fl for fl, k in zip(self.flags, keep) if k),
                                  **values)
 
-    def as_columns(self) -> dict[str, np.ndarray | list]:
-        out: dict[str, np.ndarray | list] = {}
-        for f in fields(self):
-            out[f.name] = getattr(self, f.name)
-        out["flags"] = [";".join(fl) for fl in self.flags]
-        return out
 
 
 def measure_spikes(trace: SmoothedTrace, detected: DetectedSpikes,
@@ -147,8 +154,8 @@ def measure_spikes_with_positions(trace: SmoothedTrace, detected: DetectedSpikes
     reach = settings.search_window_samples(rate)
     width_ends = search_ends(v.size, rate, thr_i, detected.onset_index, None,
                              detected.peak_sample, reach)
-    width, _, down_i, above = half_widths(v, rate, thr_i, thr_mv, detected.peak_sample, peak_mv,
-                                          width_ends)
+    width, up_i, down_i, above = half_widths(v, rate, thr_i, thr_mv, detected.peak_sample,
+                                             peak_mv, width_ends)
     trough_ends = search_ends(v.size, rate, thr_i, detected.onset_index, step,
                               detected.peak_sample, reach)
     late = np.isfinite(down_i) & (down_i >= trough_ends - 1)
@@ -159,6 +166,7 @@ def measure_spikes_with_positions(trace: SmoothedTrace, detected: DetectedSpikes
     trough_mv = np.where(repolarized, trough_mv, np.nan)
     coarse = repolarized & (above < settings.min_samples_across_width)
     width = np.where(coarse, np.nan, width)
+    measured_width = np.isfinite(width)
     max_rate, min_rate = rate_extremes(v, rate, thr_i, peak_pos, trough_i,
                                        settings.rate_smoothing_ms)
     clipped = flat_peak_runs(v, detected.peak_sample) >= CLIPPED_RUN_SAMPLES
@@ -188,7 +196,8 @@ def measure_spikes_with_positions(trace: SmoothedTrace, detected: DetectedSpikes
         rise_time_ms=(peak_pos - thr_i) / rate * 1e3,
         max_dvdt_v_per_s=max_rate, min_dvdt_v_per_s=min_rate,
         trough_s=trough_i / rate, trough_mv=trough_mv, ahp_depth_mv=thr_mv - trough_mv,
-        isi_ms=isi, flags=tuple(flags))
+        isi_ms=isi, half_width_start_s=np.where(measured_width, up_i / rate, np.nan),
+        half_width_end_s=np.where(measured_width, down_i / rate, np.nan), flags=tuple(flags))
     return spikes, {"down": down_i, "width_ends": width_ends, "trough_ends": trough_ends}
 
 

@@ -11,6 +11,7 @@ from typing import Callable
 
 import numpy as np
 
+from ..columns import shift_spike_times
 from ..errors import InvalidSettingError
 from .detection import (DetectedSpikes, DetectionSettings, SmoothedTrace, detect_spikes,
                         smoothed_trace, smoothing_window_samples)
@@ -22,12 +23,13 @@ from .sweeps import CurrentStep
 __all__ = ["measure_around_gaps", "measure_in_pieces", "measure_in_pieces_with_gaps",
            "piece_margin_samples"]
 
+_HALF_WIDTH_FIELDS = ("half_width_ms", "half_width_start_s", "half_width_end_s")
 _SPIKE_FIELDS_BY_WINDOW = {
-    "threshold": ("threshold_s", "threshold_mv", "amplitude_mv", "half_width_ms", "rise_time_ms",
-                  "max_dvdt_v_per_s", "ahp_depth_mv"),
-    "peak": ("peak_s", "peak_mv", "amplitude_mv", "half_width_ms", "rise_time_ms",
+    "threshold": ("threshold_s", "threshold_mv", "amplitude_mv", *_HALF_WIDTH_FIELDS,
+                  "rise_time_ms", "max_dvdt_v_per_s", "ahp_depth_mv"),
+    "peak": ("peak_s", "peak_mv", "amplitude_mv", *_HALF_WIDTH_FIELDS, "rise_time_ms",
              "max_dvdt_v_per_s", "min_dvdt_v_per_s"),
-    "width": ("half_width_ms",),
+    "width": _HALF_WIDTH_FIELDS,
     "trough": ("trough_s", "trough_mv", "ahp_depth_mv", "min_dvdt_v_per_s"),
 }
 
@@ -115,7 +117,7 @@ def _measure_stretches(voltage_mv: np.ndarray, sampling_rate_hz: float,
                                                       step.size_pa, step.holding_pa)
         spikes, extra = measure_spikes_with_positions(trace, detected, settings, local)
         spikes = _blank_near_gaps(spikes, detected, extra, trace, settings, a > 0, b < v.size)
-        parts.append(_shifted(spikes, a / rate))
+        parts.append(shift_spike_times(spikes, a / rate))
         onsets.append(detected.onset_index + a)
     return _concatenate(parts), (np.concatenate(onsets) if onsets
                                  else np.zeros(0, dtype=np.int64))
@@ -211,17 +213,12 @@ def piece_margin_samples(settings: DetectionSettings, sampling_rate_hz: float) -
 
 
 def _concatenate(parts: list[SpikeMeasurements]) -> SpikeMeasurements:
+    if not parts:
+        return SpikeMeasurements.empty()
     names = [f.name for f in fields(SpikeMeasurements) if f.name != "flags"]
-    values = {name: np.concatenate([getattr(p, name) for p in parts]) if parts else np.zeros(0)
-              for name in names}
+    values = {name: np.concatenate([getattr(p, name) for p in parts]) for name in names}
     flags = tuple(fl for p in parts for fl in p.flags)
     return SpikeMeasurements(flags=flags, **values)
-
-
-def _shifted(m: SpikeMeasurements, shift_s: float) -> SpikeMeasurements:
-    """The same spikes with their times moved by `shift_s`."""
-    return replace(m, threshold_s=m.threshold_s + shift_s, peak_s=m.peak_s + shift_s,
-                   trough_s=m.trough_s + shift_s)
 
 
 def measure_in_pieces(voltage_mv, sampling_rate_hz: float,
@@ -319,7 +316,7 @@ def measure_in_pieces_with_gaps(voltage_mv, sampling_rate_hz: float,
         onset = onset + lo
         keep = (onset >= start) & (onset < stop)
         if keep.any():
-            parts.append(_shifted(measured.subset(keep), lo / rate))
+            parts.append(shift_spike_times(measured.subset(keep), lo / rate))
     whole = _concatenate(parts)
     stretches = np.array(gaps, dtype=np.int64).reshape(-1, 2)
     return _intervals_across_gaps(whole, stretches / rate), stretches

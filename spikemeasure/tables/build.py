@@ -10,7 +10,7 @@ from typing import Callable
 import numpy as np
 
 from ..analysis.cell_features import CellFeatures, cell_features
-from ..columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, Column
+from ..columns import CELL_COLUMNS, KEY_COLUMN_NAMES, SPIKE_COLUMNS, SWEEP_COLUMNS, Column
 from ..analysis.detection import DetectionSettings, detect_spikes, smoothed_trace
 from ..errors import InvalidSettingError, SpikemeasureError, UnmeasurableDataError
 from ..analysis.spikes import PIECE_SAMPLES, SpikeMeasurements, measure_spikes
@@ -21,7 +21,7 @@ from ..analysis.sweeps import (CurrentStep, Sweep, check_sweep, missing_stretche
                      spikes_measurable, stretches_text)
 
 __all__ = ["SweepResult", "measure_sweep", "measure_recording", "cell_summary", "spike_table",
-           "sweep_table", "cell_table", "format_value", "format_rows", "count_spikes",
+           "sweep_table", "cell_table", "spike_values", "format_value", "format_rows", "count_spikes",
            "flag_counts"]
 
 
@@ -34,11 +34,6 @@ class SweepResult:
     spikes: SpikeMeasurements | None
     features: SweepFeatures | None = None
     error: str | None = None
-
-
-def _no_spikes() -> SpikeMeasurements:
-    empty = np.zeros(0)
-    return SpikeMeasurements(*([empty] * 13), flags=())
 
 
 def _command_edge_gaps(sweep: Sweep, step: CurrentStep | None) -> np.ndarray:
@@ -103,7 +98,7 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
                 spikes, gaps = measure_in_pieces_with_gaps(sweep.voltage_mv, rate, settings,
                                                            cancel=cancel)
             else:
-                spikes, gaps = _no_spikes(), _lazy_gaps(sweep, cancel)
+                spikes, gaps = SpikeMeasurements.empty(), _lazy_gaps(sweep, cancel)
             features = sweep_features(np.zeros(0), rate, None,
                                       _spike_times(spikes), clipped_spike_count=_clipped(spikes),
                                       duration_s=sweep.duration_s, gaps=gaps,
@@ -114,7 +109,7 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
             if gaps.size:
                 voltage = np.where(np.isfinite(voltage), voltage, np.nan)
             if not counted:
-                spikes = _no_spikes()
+                spikes = SpikeMeasurements.empty()
             elif gaps.size:
                 spikes = measure_around_gaps(voltage, rate, settings, step)
             else:
@@ -213,9 +208,10 @@ def sweep_table(results: list[SweepResult]) -> dict[str, list]:
     for r in results:
         if r.features is None:
             continue
-        row = {"file": r.sweep.file, "sweep": r.sweep.index, **r.features.as_dict()}
+        keys = {"file": r.sweep.file, "sweep": r.sweep.index}
         for c in SWEEP_COLUMNS:
-            table[c.name].append(row[c.name])
+            table[c.name].append(keys[c.name] if c.name in KEY_COLUMN_NAMES
+                                 else c.values_from(r.features))
     return table
 
 
@@ -223,10 +219,18 @@ def cell_table(cells: list[tuple[str, CellFeatures]]) -> dict[str, list]:
     """One row per recording, columns of :data:`~spikemeasure.columns.CELL_COLUMNS`."""
     table: dict[str, list] = {c.name: [] for c in CELL_COLUMNS}
     for file, features in cells:
-        row = {"file": file, **features.as_dict()}
         for c in CELL_COLUMNS:
-            table[c.name].append(row[c.name])
+            table[c.name].append(file if c.name in KEY_COLUMN_NAMES else c.values_from(features))
     return table
+
+
+def spike_values(spikes: SpikeMeasurements, file: str, sweep: int) -> dict[str, list]:
+    """The spike rows of one sweep, columns of :data:`~spikemeasure.columns.SPIKE_COLUMNS`,
+    each computed by its declaration."""
+    n = len(spikes)
+    keys = {"file": [file] * n, "sweep": [sweep] * n, "spike": list(range(n))}
+    return {c.name: keys[c.name] if c.name in KEY_COLUMN_NAMES else list(c.values_from(spikes))
+            for c in SPIKE_COLUMNS}
 
 
 def spike_table(results: list[SweepResult]) -> dict[str, list]:
@@ -238,12 +242,9 @@ def spike_table(results: list[SweepResult]) -> dict[str, list]:
     for result in results:
         if result.spikes is None or len(result.spikes) == 0:
             continue
-        n = len(result.spikes)
-        table["file"].extend([result.sweep.file] * n)
-        table["sweep"].extend([result.sweep.index] * n)
-        table["spike"].extend(range(n))
-        for name, values in result.spikes.as_columns().items():
-            table[name].extend(list(values))
+        for name, values in spike_values(result.spikes, result.sweep.file,
+                                         result.sweep.index).items():
+            table[name].extend(values)
     return table
 
 

@@ -78,6 +78,59 @@ class TestAnalyticGaussianSpike:
         assert m.threshold_mv[0] == pytest.approx(gaussian_spike.voltage_at_u(u), abs=1.0)
 
 
+class TestHalfWidthCrossings:
+    """Source: closed form of a Gaussian waveform: the level L above base is crossed at
+    peak -+ sigma sqrt(2 ln(A / L)), half the closed-form half-width either side of the peak
+    (conftest.GaussianSpike)."""
+
+    @pytest.mark.parametrize("rate", RATES)
+    def test_crossings_at_the_closed_form_times(self, gaussian_spike, rate):
+        t, v = sampled(gaussian_spike, rate)
+        m = measure_trace(v, rate)
+        half_ms = gaussian_spike.half_width_ms(m.threshold_mv[0]) / 2
+        start_ms = m.half_width_start_s[0] * 1e3 + t[0]
+        end_ms = m.half_width_end_s[0] * 1e3 + t[0]
+        # linear interpolation between samples: within 1 % of the half-width
+        assert start_ms == pytest.approx(gaussian_spike.peak_ms - half_ms, abs=0.02 * half_ms)
+        assert end_ms == pytest.approx(gaussian_spike.peak_ms + half_ms, abs=0.02 * half_ms)
+        assert (end_ms - start_ms) == pytest.approx(m.half_width_ms[0], rel=1e-9)
+
+    def test_no_crossings_without_a_width(self):
+        spike = GaussianSpike(sigma_ms=0.4, peak_ms=19.0)  # the trace ends before repolarizing
+        t, v = sampled(spike, 20_000.0, duration_ms=19.3)
+        m = measure_trace(v, 20_000.0)
+        assert np.isnan(m.half_width_ms[0])
+        assert np.isnan(m.half_width_start_s[0]) and np.isnan(m.half_width_end_s[0])
+
+
+class TestTimesShiftedByTheRegistry:
+    """Source: the same spike later in a trace (the trace with a flat baseline in front) has
+    every time later by the baseline's duration and every other value unchanged."""
+
+    def test_shift_matches_a_later_spike(self, gaussian_spike):
+        from dataclasses import fields
+
+        from spikemeasure.analysis.spikes import SpikeMeasurements
+        from spikemeasure.columns import SPIKE_COLUMNS, SPIKE_MARKS, shift_spike_times
+
+        rate, pad = 20_000.0, 1000
+        t, v = sampled(gaussian_spike, rate)
+        early = measure_trace(v, rate)
+        late = measure_trace(np.concatenate([np.full(pad, v[0]), v]), rate)
+        shifted = shift_spike_times(early, pad / rate)
+        times = {c.name for c in SPIKE_COLUMNS + SPIKE_MARKS if c.is_time}
+        assert times == {"threshold_s", "peak_s", "trough_s", "half_width_start_s",
+                         "half_width_end_s"}
+        for f in fields(SpikeMeasurements):
+            if f.name == "flags":
+                assert shifted.flags == late.flags
+                continue
+            np.testing.assert_allclose(getattr(shifted, f.name), getattr(late, f.name),
+                                       rtol=1e-9, atol=1e-9, err_msg=f.name)
+            if f.name not in times:
+                np.testing.assert_array_equal(getattr(shifted, f.name), getattr(early, f.name))
+
+
 class TestHalfWidthAgainstScipy:
     """Source: scipy.signal.peak_widths, which interpolates crossings linearly as we do."""
 
