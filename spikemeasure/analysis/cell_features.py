@@ -124,6 +124,9 @@ class CellFeatures:
     rheobase_half_width_ms: float
     rheobase_ahp_depth_mv: float
     flags: tuple[str, ...] = ()
+    #: Position of the rheobase sweep among the sweeps given to :func:`cell_features` (-1
+    #: without a rheobase); not a column of cells.csv.
+    rheobase_sweep: int = -1
 
     def as_dict(self) -> dict:
         out = asdict(self)
@@ -318,6 +321,114 @@ def passive_sweeps(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]
             & np.isfinite(col["steady_state_mv"] - col["baseline_mv"]))
 
 
+def _resting(col: dict, sweep_flags: list[set], flags: list[str]) -> float:
+    """resting_mv (see :func:`cell_features`); appends its flags to `flags`."""
+    resting = float("nan")
+    free = np.isfinite(col["holding_pa"]) & (np.abs(col["holding_pa"]) <= HOLDING_TOLERANCE_PA)
+    no_command = ~np.isfinite(col["holding_pa"])  # sizes from --step-sizes: no holding known
+    pick = free | no_command
+    if pick.any() and np.isfinite(col["baseline_mv"][pick]).any():
+        resting = float(np.nanmedian(col["baseline_mv"][pick]))
+        base_gap = np.array(["gap_in_baseline_window" in f for f in sweep_flags])
+        if (pick & base_gap).any():
+            flags.append("resting_skips_gap_sweeps")
+    elif np.isfinite(col["holding_pa"]).any():
+        flags.append("holding_current_in_every_sweep")
+    return resting
+
+
+def _firing_values(col: dict, slow: np.ndarray, lower: np.ndarray,
+                   first_spikes: list[dict | None], values: dict, flags: list[str]) -> int:
+    """rheobase_pa, its resolution, the f-I slope and the rheobase_* spike values (see
+    :func:`cell_features`) into `values`, their flags into `flags`; returns the position of
+    the rheobase sweep (-1 when no rheobase)."""
+    stim, count = col["stimulus_pa"], col["spike_count"]
+    known = np.isfinite(count) & ~lower       # counts that are exact
+    undecided = np.isfinite(stim) & ~known & ~(count > 0)  # may or may not have fired
+    rb, resolution, k = rheobase(stim, count, known)
+    below = undecided & ((stim < rb) if k >= 0 else True)
+    if slow.any():
+        flags.append("spikes_not_counted_in_slow_sweeps")  # max_firing_rate_hz is empty
+    if (below & slow).any() or (k < 0 and slow.any()):
+        pass  # a slow sweep below the smallest firing step may have fired: no rheobase
+    elif k < 0:
+        flags.append("no_spiking_step")
+        if below.any():
+            flags.append("rheobase_skips_gap_sweeps")
+    else:
+        values.update(rheobase_pa=rb, rheobase_resolution_pa=resolution)
+        if below.any():
+            flags.append("rheobase_skips_gap_sweeps")
+        if not np.isfinite(resolution):
+            flags.append("rheobase_is_first_step")
+        if not (slow & (stim >= rb)).any():
+            values["fi_slope_hz_per_pa"] = fi_slope(stim, col["firing_rate_hz"], rb)
+            if (lower & (stim >= rb) & ~np.isfinite(col["firing_rate_hz"])).any():
+                flags.append("fi_slope_skips_gap_sweeps")
+            if not np.isfinite(values["fi_slope_hz_per_pa"]):
+                flags.append("too_few_fi_points")
+        first = first_spikes[k]
+        if first is not None:
+            values.update(rheobase_threshold_mv=first["threshold_mv"],
+                          rheobase_amplitude_mv=first["amplitude_mv"],
+                          rheobase_half_width_ms=first["half_width_ms"],
+                          rheobase_ahp_depth_mv=first["ahp_depth_mv"])
+    return k if np.isfinite(values["rheobase_pa"]) else -1
+
+
+def _passive_values(col: dict, slow: np.ndarray, lower: np.ndarray, gapped: np.ndarray,
+                    traces: list[tuple[np.ndarray, float]], values: dict,
+                    flags: list[str]) -> None:
+    """Input resistance, sag and the membrane time constant (see :func:`cell_features`) into
+    `values`, their flags into `flags`."""
+    stim, count = col["stimulus_pa"], col["spike_count"]
+    hyper_all = np.isfinite(stim) & (stim < 0)
+    candidates = _spike_free_hyperpolarizing(col, slow, lower, traces)
+    slow_silent = candidates & slow
+    deflection = col["steady_state_mv"] - col["baseline_mv"]
+    passive = np.flatnonzero(candidates & np.isfinite(deflection))
+    if slow_silent[passive].any():
+        flags.append("slow_sweeps_taken_as_spike_free")
+    if (hyper_all & ((candidates & ~np.isfinite(deflection))
+                     | (lower & ~(count > 0) & ~slow))).any():
+        flags.append("input_resistance_skips_gap_sweeps")
+    values["input_resistance_mohm"] = input_resistance(stim[passive], deflection[passive])
+    if not np.isfinite(values["input_resistance_mohm"]):
+        flags.append("too_few_passive_sweeps")
+    hyper = np.flatnonzero(hyper_all)
+    if hyper.size == 0:
+        flags.append("no_hyperpolarizing_step")
+    else:
+        deepest = hyper[np.argmin(stim[hyper])]
+        clear = hyper[~gapped[hyper]]
+        if gapped[deepest] and clear.size:
+            flags.append("sag_skips_gap_sweeps")
+            deepest = clear[np.argmin(stim[clear])]
+        values["sag_fraction"] = float(col["sag_fraction"][deepest])
+        # hyperpolarizing and spike-free, or it would be but for a gap in its step
+        pool = np.flatnonzero(hyper_all & (candidates | (lower & ~(count > 0) & ~slow)))
+        fit_ok = np.flatnonzero(candidates & ~gapped)
+        if pool.size and (fit_ok.size == 0 or stim[fit_ok].max() < stim[pool].max()):
+            flags.append("membrane_tau_skips_gap_sweeps")
+        if fit_ok.size:
+            j = int(fit_ok[np.argmax(stim[fit_ok])])  # smallest hyperpolarizing step
+            v, rate = traces[j]
+            fit = fit_membrane_tau(v, rate, col["stimulus_start_s"][j], col["stimulus_end_s"][j])
+            if fit is None:
+                flags.append("tau_fit_failed")
+            else:
+                noise = max(float(col["baseline_noise_mv"][j]), NOISE_FLOOR_MV) \
+                    if np.isfinite(col["baseline_noise_mv"][j]) else NOISE_FLOOR_MV
+                ratio = fit.rms_residual_mv / noise
+                values["membrane_tau_fit_r2"] = fit.r_squared
+                values["membrane_tau_residual_to_noise"] = ratio
+                deflection = abs(fit.v0_mv - fit.v_inf_mv)
+                if ratio <= MAX_RESIDUAL_TO_NOISE and deflection >= MIN_DEFLECTION_TO_NOISE * noise:
+                    values["membrane_tau_ms"] = fit.tau_ms
+                else:
+                    flags.append("tau_fit_poor")
+
+
 def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]],
                   first_spikes: list[dict | None]) -> CellFeatures:
     """Cell features from its sweeps.
@@ -385,18 +496,7 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
     slow = np.array(["too_slow_for_spikes" in f for f in sweep_flags], dtype=bool)
     lower = np.array(["spike_count_lower_bound" in f for f in sweep_flags], dtype=bool)
     gapped = np.array([any(g in f for g in _GAP_FLAGS) for f in sweep_flags], dtype=bool)
-    resting = nan
-    if n:
-        free = np.isfinite(col["holding_pa"]) & (np.abs(col["holding_pa"]) <= HOLDING_TOLERANCE_PA)
-        no_command = ~np.isfinite(col["holding_pa"])  # sizes from --step-sizes: no holding known
-        pick = free | no_command
-        if pick.any() and np.isfinite(col["baseline_mv"][pick]).any():
-            resting = float(np.nanmedian(col["baseline_mv"][pick]))
-            base_gap = np.array(["gap_in_baseline_window" in f for f in sweep_flags])
-            if (pick & base_gap).any():
-                flags.append("resting_skips_gap_sweeps")
-        elif np.isfinite(col["holding_pa"]).any():
-            flags.append("holding_current_in_every_sweep")
+    resting = _resting(col, sweep_flags, flags) if n else nan
     values = dict(rheobase_pa=nan, rheobase_resolution_pa=nan, fi_slope_hz_per_pa=nan,
                   max_firing_rate_hz=nan, input_resistance_mohm=nan, membrane_tau_ms=nan,
                   membrane_tau_fit_r2=nan, membrane_tau_residual_to_noise=nan, sag_fraction=nan, rheobase_threshold_mv=nan,
@@ -411,80 +511,6 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
             flags.append("step_sizes_unknown" if np.isfinite(col["stimulus_start_s"]).any()
                          else "no_current_steps")
         return CellFeatures(n, resting, flags=tuple(flags), **values)
-    stim, count = col["stimulus_pa"], col["spike_count"]
-    known = np.isfinite(count) & ~lower       # counts that are exact
-    undecided = np.isfinite(stim) & ~known & ~(count > 0)  # may or may not have fired
-    rb, resolution, k = rheobase(stim, count, known)
-    below = undecided & ((stim < rb) if k >= 0 else True)
-    if slow.any():
-        flags.append("spikes_not_counted_in_slow_sweeps")  # max_firing_rate_hz is empty
-    if (below & slow).any() or (k < 0 and slow.any()):
-        pass  # a slow sweep below the smallest firing step may have fired: no rheobase
-    elif k < 0:
-        flags.append("no_spiking_step")
-        if below.any():
-            flags.append("rheobase_skips_gap_sweeps")
-    else:
-        values.update(rheobase_pa=rb, rheobase_resolution_pa=resolution)
-        if below.any():
-            flags.append("rheobase_skips_gap_sweeps")
-        if not np.isfinite(resolution):
-            flags.append("rheobase_is_first_step")
-        if not (slow & (stim >= rb)).any():
-            values["fi_slope_hz_per_pa"] = fi_slope(stim, col["firing_rate_hz"], rb)
-            if (lower & (stim >= rb) & ~np.isfinite(col["firing_rate_hz"])).any():
-                flags.append("fi_slope_skips_gap_sweeps")
-            if not np.isfinite(values["fi_slope_hz_per_pa"]):
-                flags.append("too_few_fi_points")
-        first = first_spikes[k]
-        if first is not None:
-            values.update(rheobase_threshold_mv=first["threshold_mv"],
-                          rheobase_amplitude_mv=first["amplitude_mv"],
-                          rheobase_half_width_ms=first["half_width_ms"],
-                          rheobase_ahp_depth_mv=first["ahp_depth_mv"])
-    hyper_all = np.isfinite(stim) & (stim < 0)
-    candidates = _spike_free_hyperpolarizing(col, slow, lower, traces)
-    slow_silent = candidates & slow
-    deflection = col["steady_state_mv"] - col["baseline_mv"]
-    passive = np.flatnonzero(candidates & np.isfinite(deflection))
-    if slow_silent[passive].any():
-        flags.append("slow_sweeps_taken_as_spike_free")
-    if (hyper_all & ((candidates & ~np.isfinite(deflection))
-                     | (lower & ~(count > 0) & ~slow))).any():
-        flags.append("input_resistance_skips_gap_sweeps")
-    values["input_resistance_mohm"] = input_resistance(stim[passive], deflection[passive])
-    if not np.isfinite(values["input_resistance_mohm"]):
-        flags.append("too_few_passive_sweeps")
-    hyper = np.flatnonzero(hyper_all)
-    if hyper.size == 0:
-        flags.append("no_hyperpolarizing_step")
-    else:
-        deepest = hyper[np.argmin(stim[hyper])]
-        clear = hyper[~gapped[hyper]]
-        if gapped[deepest] and clear.size:
-            flags.append("sag_skips_gap_sweeps")
-            deepest = clear[np.argmin(stim[clear])]
-        values["sag_fraction"] = float(col["sag_fraction"][deepest])
-        # hyperpolarizing and spike-free, or it would be but for a gap in its step
-        pool = np.flatnonzero(hyper_all & (candidates | (lower & ~(count > 0) & ~slow)))
-        fit_ok = np.flatnonzero(candidates & ~gapped)
-        if pool.size and (fit_ok.size == 0 or stim[fit_ok].max() < stim[pool].max()):
-            flags.append("membrane_tau_skips_gap_sweeps")
-        if fit_ok.size:
-            j = int(fit_ok[np.argmax(stim[fit_ok])])  # smallest hyperpolarizing step
-            v, rate = traces[j]
-            fit = fit_membrane_tau(v, rate, col["stimulus_start_s"][j], col["stimulus_end_s"][j])
-            if fit is None:
-                flags.append("tau_fit_failed")
-            else:
-                noise = max(float(col["baseline_noise_mv"][j]), NOISE_FLOOR_MV) \
-                    if np.isfinite(col["baseline_noise_mv"][j]) else NOISE_FLOOR_MV
-                ratio = fit.rms_residual_mv / noise
-                values["membrane_tau_fit_r2"] = fit.r_squared
-                values["membrane_tau_residual_to_noise"] = ratio
-                deflection = abs(fit.v0_mv - fit.v_inf_mv)
-                if ratio <= MAX_RESIDUAL_TO_NOISE and deflection >= MIN_DEFLECTION_TO_NOISE * noise:
-                    values["membrane_tau_ms"] = fit.tau_ms
-                else:
-                    flags.append("tau_fit_poor")
-    return CellFeatures(n, resting, flags=tuple(flags), **values)
+    rheobase_sweep = _firing_values(col, slow, lower, first_spikes, values, flags)
+    _passive_values(col, slow, lower, gapped, traces, values, flags)
+    return CellFeatures(n, resting, flags=tuple(flags), rheobase_sweep=rheobase_sweep, **values)

@@ -19,8 +19,9 @@ from .spike_features import (flat_peak_runs, half_widths, interpolated_peaks, ra
                              search_ends, spike_thresholds, troughs)
 from .sweeps import CurrentStep
 
-__all__ = ["SpikeMeasurements", "measure_spikes", "measure_spikes_with_positions",
-           "measure_trace", "PIECE_SAMPLES", "FLAG_TEXT", "GAP_FLAG", "CLIPPED_RUN_SAMPLES"]
+__all__ = ["SpikeMeasurements", "spike_times", "first_spike_in_step", "measure_spikes",
+           "measure_spikes_with_positions", "measure_trace", "PIECE_SAMPLES", "FLAG_TEXT",
+           "GAP_FLAG", "CLIPPED_RUN_SAMPLES"]
 
 #: Samples per piece when a long trace is measured in pieces (about 16 MB of float64 each).
 PIECE_SAMPLES = 1 << 21
@@ -100,6 +101,22 @@ class SpikeMeasurements:
         return SpikeMeasurements(flags=tuple(fl for fl, k in zip(self.flags, keep) if k),
                                  **values)
 
+
+
+def spike_times(spikes: SpikeMeasurements) -> np.ndarray:
+    """The time of each spike in s: its threshold time, or its peak time where the threshold
+    is unknown. Spike counts, the step a spike falls in and intervals across gaps use it."""
+    return np.where(np.isfinite(spikes.threshold_s), spikes.threshold_s, spikes.peak_s)
+
+
+def first_spike_in_step(spikes: SpikeMeasurements, step: CurrentStep | None) -> int | None:
+    """Index of the first spike whose time (:func:`spike_times`) lies in the step
+    (:meth:`~spikemeasure.analysis.sweeps.CurrentStep.holds`); None without a step or such a
+    spike. The rheobase_* values of cells.csv are those of this spike of the rheobase sweep."""
+    if step is None or len(spikes) == 0:
+        return None
+    inside = np.flatnonzero(step.holds(spike_times(spikes)))
+    return int(inside[0]) if inside.size else None
 
 
 def measure_spikes(trace: SmoothedTrace, detected: DetectedSpikes,

@@ -17,7 +17,7 @@ from .detection import (DetectedSpikes, DetectionSettings, SmoothedTrace, detect
                         smoothed_trace, smoothing_window_samples)
 from .spike_features import SPLINE_HALF_SAMPLES
 from .spikes import (GAP_FLAG, PIECE_SAMPLES, SpikeMeasurements, measure_spikes,
-                     measure_spikes_with_positions)
+                     measure_spikes_with_positions, spike_times)
 from .sweeps import CurrentStep
 
 __all__ = ["measure_around_gaps", "measure_in_pieces", "measure_in_pieces_with_gaps",
@@ -131,7 +131,7 @@ def _intervals_across_gaps(spikes: SpikeMeasurements, gaps_s: np.ndarray
     isi = np.full(n, np.nan)
     if n < 2:
         return replace(spikes, isi_ms=isi)
-    times = np.where(np.isfinite(spikes.threshold_s), spikes.threshold_s, spikes.peak_s)
+    times = spike_times(spikes)
     isi[1:] = np.diff(spikes.threshold_s) * 1e3
     flags = list(spikes.flags)
     for k in range(1, n):

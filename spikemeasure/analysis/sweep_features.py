@@ -198,7 +198,7 @@ def firing(spike_times_s: np.ndarray, step: CurrentStep) -> dict:
     and needs at least 2 intervals, as does the adaptation index (:func:`adaptation_index`).
     """
     t = np.asarray(spike_times_s, dtype=float)
-    inside = t[(t >= step.onset_s) & (t < step.offset_s)]
+    inside = t[step.holds(t)]
     isi = np.diff(inside) * 1e3
     nan = float("nan")
     return {

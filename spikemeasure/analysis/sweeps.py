@@ -53,6 +53,12 @@ class CurrentStep:
     def duration_s(self) -> float:
         return self.offset_s - self.onset_s
 
+    def holds(self, times_s: np.ndarray) -> np.ndarray:
+        """Whether each time lies in the step, [onset_s, offset_s): the rule that puts a
+        spike in the step, by its time (:func:`~spikemeasure.analysis.spikes.spike_times`)."""
+        t = np.asarray(times_s, dtype=float)
+        return (t >= self.onset_s) & (t < self.offset_s)
+
 
 class LazyTrace:
     """A long 1-D signal that stays in its file: ``trace[a:b]`` reads samples a to b-1.

@@ -13,16 +13,17 @@ from ..analysis.cell_features import CellFeatures, cell_features
 from ..columns import CELL_COLUMNS, KEY_COLUMN_NAMES, SPIKE_COLUMNS, SWEEP_COLUMNS, Column
 from ..analysis.detection import DetectionSettings, detect_spikes, smoothed_trace
 from ..errors import InvalidSettingError, SpikemeasureError, UnmeasurableDataError
-from ..analysis.spikes import PIECE_SAMPLES, SpikeMeasurements, measure_spikes
+from ..analysis.spikes import (PIECE_SAMPLES, SpikeMeasurements, first_spike_in_step,
+                               measure_spikes, spike_times)
 from ..analysis.spikes_in_parts import measure_around_gaps, measure_in_pieces_with_gaps
 from ..reading import Recording
 from ..analysis.sweep_features import SweepFeatures, sweep_features
 from ..analysis.sweeps import (CurrentStep, Sweep, check_sweep, missing_stretches, protocol_steps,
                      spikes_measurable, stretches_text)
 
-__all__ = ["SweepResult", "measure_sweep", "measure_recording", "cell_summary", "spike_table",
-           "sweep_table", "cell_table", "spike_values", "format_value", "format_rows", "count_spikes",
-           "flag_counts"]
+__all__ = ["SweepResult", "measure_sweep", "measure_recording", "measured_results",
+           "cell_summary", "rheobase_spike", "spike_table", "spike_values", "sweep_table",
+           "cell_table", "format_value", "format_rows", "count_spikes", "flag_counts"]
 
 
 @dataclass(frozen=True)
@@ -53,11 +54,6 @@ def _nothing_measured(spikes: SpikeMeasurements, features: SweepFeatures) -> boo
               features.min_mv, features.baseline_drift_mv, features.firing_rate_hz,
               features.first_spike_latency_ms)
     return len(spikes) == 0 and not np.isfinite(values).any()
-
-
-def _spike_times(spikes: SpikeMeasurements) -> np.ndarray:
-    """Threshold times, or peak times where a threshold is unknown."""
-    return np.where(np.isfinite(spikes.threshold_s), spikes.threshold_s, spikes.peak_s)
 
 
 def _clipped(spikes: SpikeMeasurements) -> int:
@@ -100,7 +96,7 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
             else:
                 spikes, gaps = SpikeMeasurements.empty(), _lazy_gaps(sweep, cancel)
             features = sweep_features(np.zeros(0), rate, None,
-                                      _spike_times(spikes), clipped_spike_count=_clipped(spikes),
+                                      spike_times(spikes), clipped_spike_count=_clipped(spikes),
                                       duration_s=sweep.duration_s, gaps=gaps,
                                       spikes_counted=counted)
         else:
@@ -118,7 +114,7 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
                 spikes = measure_spikes(trace, detect_spikes(trace, settings), settings, step)
             edge_gaps = _command_edge_gaps(sweep, step)
             all_gaps = np.concatenate([gaps, edge_gaps]) if edge_gaps.size else gaps
-            features = sweep_features(voltage, rate, step, _spike_times(spikes),
+            features = sweep_features(voltage, rate, step, spike_times(spikes),
                                       clipped_spike_count=_clipped(spikes), gaps=all_gaps,
                                       spikes_counted=counted)
             if edge_gaps.size:
@@ -183,23 +179,37 @@ def measure_recording(recording: Recording, settings: DetectionSettings = Detect
     return results
 
 
+def measured_results(results: list[SweepResult]) -> list[SweepResult]:
+    """The sweeps that were measured (those of sweeps.csv), in order: the sweeps
+    :func:`cell_summary` passes to :func:`~spikemeasure.analysis.cell_features.cell_features`,
+    whose ``rheobase_sweep`` is a position in this list."""
+    return [r for r in results if r.features is not None]
+
+
 def cell_summary(results: list[SweepResult]) -> CellFeatures:
     """Cell features from the measured sweeps of one recording."""
-    measured = [r for r in results if r.features is not None]
+    measured = measured_results(results)
     firsts = []
     for r in measured:
-        first = None
-        if r.step is not None and len(r.spikes):
-            t = _spike_times(r.spikes)
-            inside = np.flatnonzero((t >= r.step.onset_s) & (t < r.step.offset_s))
-            if inside.size:
-                k = int(inside[0])
-                first = {name: float(getattr(r.spikes, name)[k]) for name in
-                         ("threshold_mv", "amplitude_mv", "half_width_ms", "ahp_depth_mv")}
-        firsts.append(first)
+        k = first_spike_in_step(r.spikes, r.step)
+        firsts.append(None if k is None else
+                      {name: float(getattr(r.spikes, name)[k]) for name in
+                       ("threshold_mv", "amplitude_mv", "half_width_ms", "ahp_depth_mv")})
     return cell_features([r.features.as_dict() for r in measured],
                          [(r.sweep.voltage_mv, r.sweep.sampling_rate_hz) for r in measured],
                          firsts)
+
+
+def rheobase_spike(results: list[SweepResult], cell: CellFeatures
+                   ) -> tuple[SweepResult, int] | None:
+    """The rheobase sweep and the index of its first spike in the step (the spike of the
+    rheobase_* values of cells.csv); None without a rheobase. `cell` is
+    :func:`cell_summary` of the same `results`."""
+    if cell.rheobase_sweep < 0:
+        return None
+    r = measured_results(results)[cell.rheobase_sweep]
+    k = first_spike_in_step(r.spikes, r.step)
+    return None if k is None else (r, k)
 
 
 def sweep_table(results: list[SweepResult]) -> dict[str, list]:

@@ -313,3 +313,38 @@ class TestRheobaseWithGaps:
         assert "fi_slope_skips_gap_sweeps" in cell.flags
         assert "max_firing_rate_skips_gap_sweeps" in cell.flags
         assert np.isfinite(cell.fi_slope_hz_per_pa)
+
+
+class TestRheobaseSweep:
+    """Source: the analytic cell of conftest.rc_cell_sweeps, built with no spike on the steps
+    below 20 pA and its first spike 30 ms into each spiking step (Gaussian spikes of
+    sigma 0.35 ms peaking there)."""
+
+    @pytest.fixture(scope="class")
+    def measured(self):
+        from conftest import RC_RATE_HZ, RC_STEPS_PA, RC_STEP_S, rc_cell_sweeps
+        from spikemeasure.tables.build import rheobase_spike
+
+        sweeps = [Sweep(v, RC_RATE_HZ, c, file="rc_cell", index=k)
+                  for k, (v, c) in enumerate(rc_cell_sweeps())]
+        results = measure_recording(Recording("rc_cell", "test", sweeps))
+        cell = cell_summary(results)
+        return results, cell, rheobase_spike(results, cell), RC_STEPS_PA, RC_STEP_S
+
+    def test_rheobase_sweep_is_the_first_spiking_step(self, measured):
+        results, cell, found, steps, _ = measured
+        first_spiking = 3  # steps (-40, -20, 0, 20, ...) pA: spikes from 20 pA on
+        assert steps[first_spiking] == 20.0 and cell.rheobase_pa == pytest.approx(20.0, abs=0.5)
+        assert cell.rheobase_sweep == first_spiking
+        r, k = found
+        assert r is results[first_spiking] and k == 0
+
+    def test_rheobase_spike_is_the_one_of_the_cell_values(self, measured):
+        results, cell, (r, k), _, (onset_s, _) = measured
+        assert r.spikes.peak_s[k] == pytest.approx(onset_s + 0.03, abs=1e-4)
+        assert cell.rheobase_threshold_mv == r.spikes.threshold_mv[k]
+        assert cell.rheobase_half_width_ms == r.spikes.half_width_ms[k]
+
+    def test_no_rheobase_no_sweep(self):
+        cell = cell_summary(measure_recording(rc_recording()))  # passive steps only
+        assert cell.rheobase_sweep == -1 and np.isnan(cell.rheobase_pa)

@@ -131,3 +131,15 @@ class TestCommandWithGaps:
         steps = protocol_steps([Sweep(np.zeros(n), RATE, c, index=k)
                                 for k, c in enumerate(cmds)])
         assert steps[0] is not None and steps[1] is None
+
+
+class TestStepHolds:
+    """Source: the documented rule of sweeps.csv, spike_count: a spike counts when its time
+    lies in [stimulus_start_s, stimulus_end_s), the onset in, the offset out."""
+
+    def test_half_open_interval(self):
+        from spikemeasure.analysis.sweeps import CurrentStep
+
+        step = CurrentStep(0.1, 0.6, 20.0, 0.0)
+        times = np.array([0.0999, 0.1, 0.35, 0.5999, 0.6, np.nan])
+        assert step.holds(times).tolist() == [False, True, True, True, False, False]
