@@ -77,6 +77,23 @@ def _flags_text(features: Any) -> str:
     return ";".join(features.flags)
 
 
+def peak_to_trough_ms(spikes: Any) -> np.ndarray:
+    """Time from each spike's peak to its trough.
+
+    Parameters
+    ----------
+    spikes : SpikeMeasurements
+        The spikes of one sweep.
+
+    Returns
+    -------
+    ndarray
+        ``(trough_s - peak_s) * 1000`` per spike, in ms; NaN where either time is NaN.
+    """
+    return (np.asarray(spikes.trough_s, dtype=float)
+            - np.asarray(spikes.peak_s, dtype=float)) * 1e3
+
+
 SPIKE_COLUMNS: tuple[Column, ...] = (
     Column("file", "", "The input file: its path relative to the folder given on the command "
            "line, or its file name when the file itself was given; distinct for every file "
@@ -121,6 +138,8 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
            "(positive when the trough lies below threshold).", 4),
     Column("isi_ms", "ms", "Interspike interval: threshold_s minus the previous spike's "
            "threshold_s in the same sweep; empty for a sweep's first spike.", 5),
+    Column("peak_to_trough_ms", "ms", "trough_s - peak_s, in ms: how long after its peak the "
+           "spike reaches its trough. Empty when either is empty.", 5, compute=peak_to_trough_ms),
     Column("flags", "", "Why values of this spike are empty or less certain, separated by ';' "
            "(see the list of flags).", compute=_spike_flags_text),
 )

@@ -1,6 +1,9 @@
 """The column declarations, the CSV header and docs/measurements.md agree."""
 from pathlib import Path
 
+import numpy as np
+import pytest
+
 from spikemeasure.columns import SPIKE_COLUMNS, SPIKE_MARKS, columns_markdown, spike_column_names
 from spikemeasure.analysis.spikes import FLAG_TEXT, SpikeMeasurements
 
@@ -48,3 +51,44 @@ def test_cell_format():
     assert format_value(col, -0.0001) == "0.000"
     assert format_value(col, -55.12345) == "-55.123"
     assert format_value(Column("file", "", "t"), "a/b.nwb") == "a/b.nwb"
+
+
+class TestPeakToTrough:
+    """Source: closed form of an analytic waveform, a Gaussian spike (peak at tp) followed by a
+    Gaussian trough (minimum at tt): V = base + A g(t - tp; sigma) - B g(t - tt; tau). With
+    tt - tp = 12 sigma = 4.8 tau, each Gaussian's slope at the other's extremum is below
+    1e-3 mV/ms, moving the extrema by under 1e-6 ms, so the peak is at tp and the trough at tt;
+    the symmetric smoothing does not move a symmetric minimum."""
+
+    @staticmethod
+    def waveform(rate_hz, tp_ms=10.0, tt_ms=14.8, sigma_ms=0.4, tau_ms=1.0, trough_mv=8.0):
+        t = np.arange(0.0, 40.0, 1e3 / rate_hz) + 0.37e3 / rate_hz  # peak between samples
+        v = (-65.0 + 100.0 * np.exp(-(t - tp_ms) ** 2 / (2 * sigma_ms ** 2))
+             - trough_mv * np.exp(-(t - tt_ms) ** 2 / (2 * tau_ms ** 2)))
+        return t, v
+
+    @pytest.mark.parametrize("rate", [20_000.0, 50_000.0, 100_000.0])
+    def test_closed_form(self, rate):
+        from spikemeasure.analysis.spikes import measure_trace
+        from spikemeasure.tables.build import spike_values
+
+        t, v = self.waveform(rate)
+        values = spike_values(measure_trace(v, rate), "analytic", 0)
+        assert len(values["peak_to_trough_ms"]) == 1
+        dt_ms = 1e3 / rate
+        # peak (spline) and trough (parabola) each within a tenth of a sample
+        assert values["peak_to_trough_ms"][0] == pytest.approx(14.8 - 10.0, abs=0.2 * dt_ms)
+        assert values["peak_s"][0] * 1e3 + t[0] == pytest.approx(10.0, abs=0.1 * dt_ms)
+        assert values["trough_s"][0] * 1e3 + t[0] == pytest.approx(14.8, abs=0.1 * dt_ms)
+
+    def test_empty_without_a_trough(self):
+        from spikemeasure.analysis.spikes import measure_trace
+        from spikemeasure.tables.build import format_rows, spike_values
+
+        rate = 20_000.0
+        t, v = self.waveform(rate)
+        cut = v[t < 10.3]  # the trace ends before the spike repolarizes: no trough
+        values = spike_values(measure_trace(cut, rate), "analytic", 0)
+        assert np.isnan(values["trough_s"][0]) and np.isnan(values["peak_to_trough_ms"][0])
+        column = [c.name for c in SPIKE_COLUMNS].index("peak_to_trough_ms")
+        assert format_rows(values)[0][column] == ""
