@@ -42,17 +42,6 @@ def test_docs_are_generated_from_the_declarations():
         assert f"`{name}`" in DOCS.read_text()
 
 
-def test_cell_format():
-    from spikemeasure.columns import Column
-    from spikemeasure.tables.build import format_value
-
-    col = Column("x_mv", "mV", "test", 3)
-    assert format_value(col, float("nan")) == ""
-    assert format_value(col, -0.0001) == "0.000"
-    assert format_value(col, -55.12345) == "-55.123"
-    assert format_value(Column("file", "", "t"), "a/b.nwb") == "a/b.nwb"
-
-
 class TestPeakToTrough:
     """Source: closed form of an analytic waveform, a Gaussian spike (peak at tp) followed by a
     Gaussian trough (minimum at tt): V = base + A g(t - tp; sigma) - B g(t - tt; tau). With

@@ -1,1 +1,2 @@
-"""Measurements on sweeps: spike detection, spikes, sweep and cell features (arrays in, arrays out)."""
+"""Measurements on sweeps: spike detection, spikes, sweep and cell features (arrays in,
+arrays out)."""

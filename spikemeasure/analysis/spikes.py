@@ -14,7 +14,8 @@ from dataclasses import dataclass, fields
 import numpy as np
 
 from ..errors import InvalidSettingError
-from .detection import DetectedSpikes, DetectionSettings, SmoothedTrace, detect_spikes, smoothed_trace
+from .detection import (DetectedSpikes, DetectionSettings, SmoothedTrace, detect_spikes,
+                        smoothed_trace)
 from .spike_features import (flat_peak_runs, half_widths, interpolated_peaks, rate_extremes,
                              search_ends, spike_thresholds, troughs)
 from .sweeps import CurrentStep

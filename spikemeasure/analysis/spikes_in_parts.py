@@ -1,8 +1,9 @@
 """Spikes of traces measured in parts: around stretches of missing samples, and long traces
 piece by piece, with the same values as a measurement of the whole.
 
-Functions take arrays and a sampling rate and return :class:`~spikemeasure.analysis.spikes.SpikeMeasurements`;
-nothing here reads files or prints (a long trace kept in its file is read through slicing).
+Functions take arrays and a sampling rate and return
+:class:`~spikemeasure.analysis.spikes.SpikeMeasurements`; nothing here reads files or prints
+(a long trace kept in its file is read through slicing).
 """
 from __future__ import annotations
 
