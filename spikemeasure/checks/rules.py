@@ -1,16 +1,22 @@
-"""The quality limits a project file may set under ``[quality]``, each declared once.
+"""The keys of the project file's check tables: each ``[quality]`` limit declared once, and
+the keys of ``[regression]``.
 
-A rule carries its key, the kind of limit it takes (validated by :mod:`spikemeasure.config`),
-an example value for messages, the table and column it reads, and when a value passes; the
-project-file validation, ``spikemeasure check`` (:mod:`spikemeasure.checks`) and the table in
-docs/ci.md (:func:`quality_rules_markdown`) all read :data:`QUALITY_RULES`.
+A rule carries its key, the kind of limit it takes (validated by
+:mod:`spikemeasure.checks.settings`), an example value for messages, the table and column it
+reads, and when a value passes; the project-file validation, ``spikemeasure check``
+(:mod:`spikemeasure.checks.limits`) and the table in docs/ci.md
+(:func:`quality_rules_markdown`) all read :data:`QUALITY_RULES`.
+
+This module imports nothing else of spikemeasure, so that the reading of the project file
+(:mod:`spikemeasure.config`) can name every key of every table it may hold.
 """
 from __future__ import annotations
 
 from dataclasses import dataclass
 from typing import Callable
 
-__all__ = ["QualityRule", "QUALITY_RULES", "LIMIT_KINDS", "quality_rules_markdown"]
+__all__ = ["QualityRule", "QUALITY_RULES", "QUALITY_KEYS", "REGRESSION_KEYS", "LIMIT_KINDS",
+           "quality_rules_markdown"]
 
 #: Kinds of limit: a positive number, a whole number 0 or more, a [low, high] pair, any number.
 LIMIT_KINDS = ("positive", "count", "range", "number")
@@ -86,6 +92,13 @@ QUALITY_RULES: tuple[QualityRule, ...] = (
                 "at least one spike's `peak_mv` reaches the limit (0 mV: an overshooting spike)",
                 lambda v, lim: v >= lim),
 )
+
+#: Keys of ``[quality]``, each with the kind of limit it takes (from :data:`QUALITY_RULES`).
+QUALITY_KEYS: dict[str, str] = {rule.key: rule.kind for rule in QUALITY_RULES}
+
+#: Keys of ``[regression]``.
+REGRESSION_KEYS: tuple[str, ...] = ("enabled", "accepted_folder", "allow_new_files",
+                                    "default_tolerance", "tolerances")
 
 
 def quality_rules_markdown() -> str:

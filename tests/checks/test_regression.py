@@ -33,19 +33,20 @@ import pytest
 from click.testing import CliRunner
 
 from conftest import write_nwb
-from spikemeasure.checks import (QUALITY_RULES, CheckInputError, check_run, read_tables,
-                                 report_dict, report_text)
+from spikemeasure.checks.apply import check_run
+from spikemeasure.checks.findings import report_dict, report_text
+from spikemeasure.checks.junit import junit_xml
+from spikemeasure.checks.rules import QUALITY_KEYS, QUALITY_RULES, quality_rules_markdown
+from spikemeasure.checks.run_tables import CheckInputError, read_tables
+from spikemeasure.checks.settings import CheckSettings, Tolerance, load_check_settings
 from spikemeasure.cli import main
 from spikemeasure.columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS
-from spikemeasure.config import (QUALITY_KEYS, CheckSettings, ConfigError, Tolerance,
-                                 load_check_settings)
+from spikemeasure.config import ConfigError
 from spikemeasure.detection import DetectionSettings
-from spikemeasure.junit import junit_xml
-from spikemeasure.quality_rules import quality_rules_markdown
 from spikemeasure.runner import measure_paths
 from spikemeasure.testing import simulate_current_steps
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 SAMPLE = ROOT / "sample_data"
 EXAMPLE = ROOT / "docs" / "example-lab"
 RATE = 20_000.0
@@ -149,7 +150,7 @@ class TestQualityRules:
         assert set(load_check_settings(project).quality) == set(QUALITY_KEYS)
 
     def test_docs_table_is_generated_from_the_rules(self):
-        docs = (Path(__file__).resolve().parents[1] / "docs" / "ci.md").read_text()
+        docs = (Path(__file__).resolve().parents[2] / "docs" / "ci.md").read_text()
         assert quality_rules_markdown() in docs, \
             "regenerate the table in docs/ci.md from quality_rules_markdown()"
 
@@ -193,13 +194,13 @@ class TestQualityRules:
         assert "noisy.nwb" in text and "max_baseline_noise_mv" in text and "FAILED" in text
 
     def test_clipped_spikes_are_flagged_in_the_spike_table(self, lab):
-        tables = read_tables(lab / "all")
-        flags = [r["flags"] for r in tables.spikes if r["file"] == "clipped.nwb"]
+        spikes, sweeps = read_rows(lab / "all" / "spikes.csv"), read_rows(lab / "all" / "sweeps.csv")
+        flags = [r["flags"] for r in spikes if r["file"] == "clipped.nwb"]
         assert flags and all("clipped_peak" in f for f in flags)
-        counts = {r["sweep"]: int(r["clipped_spike_count"]) for r in tables.sweeps
+        counts = {r["sweep"]: int(r["clipped_spike_count"]) for r in sweeps
                   if r["file"] == "clipped.nwb"}
         assert counts == {"0": 0, "1": 0, "2": len(flags)}
-        assert not any("clipped_peak" in r["flags"] for r in tables.spikes
+        assert not any("clipped_peak" in r["flags"] for r in spikes
                        if r["file"] != "clipped.nwb")
 
     def test_unmeasured_value_fails_the_rule(self, sample_results, tmp_path):
@@ -262,7 +263,7 @@ def recount(run_dir: Path) -> None:
 @pytest.fixture
 def accepted(sample_results, tmp_path):
     """The sample run accepted into tmp_path/accepted, and a copy of the run to edit."""
-    from spikemeasure.checks import accept_results
+    from spikemeasure.checks.accept import accept_results
 
     accept_results(sample_results, tmp_path / "accepted", project_dir=tmp_path)
     run_copy = tmp_path / "run"
@@ -364,7 +365,7 @@ class TestRegression:
 
     def test_a_duplicated_row_in_the_run_is_named_as_such(self, accepted):
         """Found by the comparison itself, for tables read without their run record."""
-        from spikemeasure.checks import regression_cases
+        from spikemeasure.checks.regression import regression_cases
 
         accepted_dir, run_dir = accepted
         rows = read_rows(run_dir / "sweeps.csv")
@@ -459,7 +460,7 @@ class TestRegression:
         assert any("baseline_drift_mv not in the accepted results" in n for n in report.notes)
 
     def test_accept_replaces_the_tables_and_keeps_other_files(self, accepted):
-        from spikemeasure.checks import accept_results
+        from spikemeasure.checks.accept import accept_results
 
         accepted_dir, run_dir = accepted
         (accepted_dir / "README.md").write_text("reviewed results\n")
@@ -745,7 +746,7 @@ class TestEdgeCases:
     ])
     def test_an_unfinished_run_is_refused_by_check_and_accept(self, accepted, change,
                                                               monkeypatch):
-        from spikemeasure.checks import accept_results
+        from spikemeasure.checks.accept import accept_results
 
         accepted_dir, run_dir = accepted
         before = {p.name: p.read_bytes() for p in accepted_dir.iterdir()}
@@ -777,7 +778,7 @@ class TestEdgeCases:
                                                                   monkeypatch):
         """A check must never pass a run whose tables hold fewer (or other) files than its
         run.json lists as measured: the counts of run.json, written by the same run."""
-        from spikemeasure.checks import accept_results
+        from spikemeasure.checks.accept import accept_results
 
         accepted_dir, run_dir = accepted
         record = json.loads((run_dir / "run.json").read_text())
