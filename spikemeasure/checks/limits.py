@@ -5,6 +5,7 @@ import math
 
 import numpy as np
 
+from ..columns import Column
 from .findings import MEASURED_CHECK, CaseResult, Finding
 from .rules import QUALITY_RULES, QualityRule
 from .run_tables import TABLE_FILES, RunTables, Table, cell_text
@@ -26,54 +27,46 @@ def _sweep_of(stage: str) -> int | None:
     return None
 
 
-def _declared(rule: QualityRule):
+def _declared(rule: QualityRule) -> Column:
     return next(c for c in TABLE_FILES[rule.table][1] if c.name == rule.column)
 
 
-def _highest_peak_findings(rule: QualityRule, limit, file: str, spikes: Table
-                           ) -> list[Finding]:
-    """The rule on a file's highest spike peak (the one rule that judges a file, not a row)."""
+def _finding(rule: QualityRule, limit, file: str, where: tuple[int | None, int | None],
+             value: float) -> Finding:
+    """The finding of a value that fails the rule, or of a missing value (NaN)."""
     requirement = rule.text.format(limit=_limit_text(limit))
-    limit_text = _limit_text(limit)
-    peaks = spikes[rule.column]
-    measured = np.flatnonzero(~np.isnan(peaks))
-    if measured.size == 0:
-        return [Finding(rule.key, file, None, None, rule.column,
-                        f"no spike with a measured peak in the file; required: "
-                        f"{requirement}", value="", limit=limit_text)]
-    row = int(measured[np.argmax(peaks[measured])])  # the first of equal highest peaks
-    value = float(peaks[row])
-    if rule.test(value, limit):
-        return []
-    return [Finding(rule.key, file, int(spikes["sweep"][row]), int(spikes["spike"][row]),
-                    rule.column, f"highest spike peak {value:g} mV is below {limit_text} mV; "
-                    f"required: {requirement}", value=cell_text(_declared(rule), value),
-                    limit=limit_text)]
+    text = cell_text(_declared(rule), value)
+    if math.isnan(value):
+        what = rule.missing_text.format(column=rule.column)
+    else:
+        what = rule.failure_text.format(column=rule.column, text=text, value=value,
+                                        limit=_limit_text(limit))
+    return Finding(rule.key, file, where[0], where[1], rule.column,
+                   f"{what}; required: {requirement}", value=text, limit=_limit_text(limit))
 
 
 def _rule_findings(rule: QualityRule, limit, file: str, rows: dict[str, Table]
                    ) -> list[Finding]:
-    """A finding for each row of the file that fails the rule, or whose value is empty."""
-    if rule.key == "min_highest_peak_mv":
-        return _highest_peak_findings(rule, limit, file, rows["spikes.csv"])
-    requirement = rule.text.format(limit=_limit_text(limit))
-    limit_text = _limit_text(limit)
+    """Findings of a rule on one file: each row that fails it or has no value, or, for a
+    rule on the file's highest value, that value (the first row of it) when it fails."""
     table = rows[rule.table]
-    column = _declared(rule)
-    sweeps = table["sweep"] if "sweep" in table else None
+    values = table[rule.column]
+    sweeps = table.get("sweep")
+    spikes = table.get("spike")
+    if rule.judges_highest:
+        measured = np.flatnonzero(~np.isnan(values))
+        if measured.size == 0:
+            return [_finding(rule, limit, file, (None, None), math.nan)]
+        candidates = [int(measured[np.argmax(values[measured])])]  # the first of equal ones
+    else:
+        candidates = range(len(values))
     findings = []
-    for k, value in enumerate(table[rule.column].tolist()):
-        text = cell_text(column, value)
-        sweep = int(sweeps[k]) if sweeps is not None else None
-        if math.isnan(value):
-            findings.append(Finding(rule.key, file, sweep, None, rule.column,
-                                    f"{rule.column} is empty (not measured), so the limit "
-                                    f"cannot be checked; required: {requirement}",
-                                    value=text, limit=limit_text))
-        elif not rule.test(value, limit):
-            findings.append(Finding(rule.key, file, sweep, None, rule.column,
-                                    f"{rule.column} = {text}; required: {requirement}",
-                                    value=text, limit=limit_text))
+    for row in candidates:
+        value = float(values[row])
+        if math.isnan(value) or not rule.test(value, limit):
+            where = (None if sweeps is None else int(sweeps[row]),
+                     None if spikes is None else int(spikes[row]))
+            findings.append(_finding(rule, limit, file, where, value))
     return findings
 
 

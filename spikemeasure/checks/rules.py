@@ -44,6 +44,14 @@ class QualityRule:
         What the rule requires, for the docs (Markdown).
     test : callable
         (value, limit) -> True when the value passes.
+    judges_highest : bool, optional
+        True: the rule judges the file's highest measured value of the column; False (the
+        default): each row of the table.
+    failure_text : str, optional
+        What failed, for messages (``{column}``, ``{text}`` (the cell as written), ``{value}``
+        and ``{limit}`` are filled in).
+    missing_text : str, optional
+        What failed when there is no value to judge, for messages (``{column}`` is filled in).
     """
 
     key: str
@@ -54,6 +62,9 @@ class QualityRule:
     text: str
     passes_when: str
     test: Callable[[float, object], bool]
+    judges_highest: bool = False
+    failure_text: str = "{column} = {text}"
+    missing_text: str = "{column} is empty (not measured), so the limit cannot be checked"
 
     def __post_init__(self) -> None:
         if self.kind not in LIMIT_KINDS:
@@ -90,7 +101,9 @@ QUALITY_RULES: tuple[QualityRule, ...] = (
     QualityRule("min_highest_peak_mv", "number", "0.0", "spikes.csv", "peak_mv",
                 "at least one spike peaking at {limit} mV or above",
                 "at least one spike's `peak_mv` reaches the limit (0 mV: an overshooting spike)",
-                lambda v, lim: v >= lim),
+                lambda v, lim: v >= lim, judges_highest=True,
+                failure_text="highest spike peak {value:g} mV is below {limit} mV",
+                missing_text="no spike with a measured peak in the file"),
 )
 
 #: Keys of ``[quality]``, each with the kind of limit it takes (from :data:`QUALITY_RULES`).
