@@ -26,7 +26,7 @@ from ..output import TEXT_COLUMN_NAMES, unescape_csv_text
 from ..tables import format_value
 
 __all__ = ["CheckInputError", "RunTables", "TABLE_FILES", "ERRORS_FILE", "RUN_RECORD_FILE",
-           "COMPLETE_STATUS", "INDEX_COLUMNS", "read_tables", "tables_from_columns",
+           "COMPLETE_STATUS", "INDEX_COLUMNS", "Table", "read_tables", "tables_from_columns",
            "typed_columns", "cell_text", "check_finished"]
 
 #: The tables a run's folder must hold, with their key columns and declarations.
