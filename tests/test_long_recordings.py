@@ -14,7 +14,8 @@ import numpy as np
 import pytest
 from scipy.ndimage import gaussian_filter1d
 
-from spikemeasure import measurement, reading
+from spikemeasure import measurement
+from spikemeasure.io import read as reading
 from spikemeasure.detection import DetectionSettings
 from spikemeasure.errors import InvalidSettingError, UnreadableInputError
 from spikemeasure.measurement import (SpikeMeasurements, measure_in_pieces, measure_trace,

@@ -35,8 +35,8 @@ from typing import Callable
 
 import numpy as np
 
-from .errors import InvalidSettingError, UnreadableInputError, printable_name
-from .sweeps import LazyTrace, Sweep
+from ..errors import InvalidSettingError, UnreadableInputError, printable_name
+from ..sweeps import LazyTrace, Sweep
 
 __all__ = ["Recording", "ChannelInfo", "read_recording", "find_recordings", "is_temporary",
            "search_recordings", "RecordingSearch",

@@ -10,9 +10,9 @@ import pytest
 
 from conftest import (gaussian_train, set_hdf5_values, step_command, write_nix,
                       write_nix_sampling_interval, write_nwb, write_text)
-from spikemeasure import reading
+from spikemeasure.io import read as reading
 from spikemeasure.errors import UnreadableInputError
-from spikemeasure.reading import find_recordings, read_recording
+from spikemeasure.io.read import find_recordings, read_recording
 from spikemeasure.runner import measure_paths
 from spikemeasure.tables import measure_recording, spike_table
 
@@ -195,7 +195,7 @@ class TestRefusals:
 
     def test_neo_pickle_reader_refused_by_source_check(self):
         import neo.io
-        from spikemeasure.reading import _reader_runs_file_content
+        from spikemeasure.io.read import _reader_runs_file_content
 
         assert _reader_runs_file_content(neo.io.PickleIO)
         assert not _reader_runs_file_content(neo.io.NixIO)
@@ -604,7 +604,7 @@ def test_a_text_file_is_size_checked_before_it_is_parsed(tmp_path, monkeypatch):
 # --------------------------------------------------------------------------- discovery
 
 def _search(*paths, **kw):
-    from spikemeasure.reading import search_recordings
+    from spikemeasure.io.read import search_recordings
 
     return search_recordings(list(paths), **kw)
 
