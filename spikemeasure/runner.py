@@ -48,7 +48,8 @@ from .detection import DetectionSettings
 from .errors import (InvalidSettingError, OutputWriteError, SpikemeasureError,
                      UnusableOutputError, printable_name)
 from .output import json_text, rows_csv_text, write_files_atomic, write_json, write_text_atomic
-from .io import TEXT_SUFFIXES, read_recording, search_recordings
+from .io import TEXT_SUFFIXES, read_recording
+from .run.discovery import search_recordings
 from .tables import (cell_summary, cell_table, count_spikes, flag_counts, format_rows,
                      measure_recording, spike_table, sweep_table)
 
