@@ -15,6 +15,7 @@ from .messages import library_failure, safe_name
 
 __all__ = ["LongSignal", "is_long", "settle_long_sweep"]
 
+
 class LongSignal:
     """A one-channel neo signal proxy left in its file: what the readers need of a signal,
     with the samples as a :class:`LazyTrace` read through the proxy's ``load(time_slice=)``."""
@@ -89,4 +90,3 @@ def settle_long_sweep(sweep: Sweep) -> Sweep:
         command = None
     return Sweep(sweep.voltage_mv, sweep.sampling_rate_hz, command, sweep.file, sweep.index,
                  sweep.label, sweep.channel_info)
-

@@ -60,7 +60,6 @@ def size_problem(where: str, shape, max_sweep_samples: int, *, whole: bool) -> s
     return None
 
 
-
 def is_long_shape(shape) -> bool:
     """Whether a signal of the declared `shape` is one channel longer than
     :data:`LONG_SWEEP_SAMPLES`, so it stays in its file and is read in pieces."""

@@ -51,4 +51,3 @@ def os_reason(exc: OSError) -> str:
     if exc.errno == errno.ELOOP:
         return "a loop of symbolic links"
     return exc.strerror or type(exc).__name__
-

@@ -22,6 +22,7 @@ from .signals import Segment, close_rawio, segments_to_recording, sweep_where
 
 __all__ = ["read_nix"]
 
+
 def _nix_array_sizes(path: Path | str) -> tuple[int, int]:
     """The most rows and the most values of any data array in a NIX file, from the HDF5
     layout alone (nothing is read)."""
@@ -98,6 +99,27 @@ def _openable_text_path(path: Path) -> tuple[str, Callable[[], None]]:
 
 
 def read_nix(path: Path, shown: str, max_sweep_samples: int) -> Recording:
+    """Read a NIX file: one sweep per neo segment; long signals stay in the file.
+
+    Parameters
+    ----------
+    path : Path
+        The file.
+    shown : str
+        How the file is named in sweeps and messages.
+    max_sweep_samples : int
+        Sweeps declaring more samples are refused before they are read.
+
+    Returns
+    -------
+    Recording
+        Close it (or use it in ``with``) when long sweeps were left in the file.
+
+    Raises
+    ------
+    UnreadableInputError
+        The file is not HDF5, cannot be read as NIX, or holds no measurable sweep.
+    """
     try:
         path_text, done = _openable_text_path(path)
     except OSError as exc:
@@ -141,4 +163,3 @@ def _read_nix_from(path: Path, path_text: str, shown: str,
             f"{shown}: cannot be read as NIX ({library_failure(exc)})") from exc
     segments = [seg for blk in blocks for seg in blk.segments]
     return segments_to_recording(segments, shown, "NIX (one sweep per segment)")
-

@@ -106,7 +106,28 @@ def _nwb_signals(path: Path, shown: str, max_sweep_samples: int
 
 
 def read_nwb(path: Path, shown: str, max_sweep_samples: int) -> Recording:
+    """Read an NWB file: its current-clamp series, each paired with the stimulus series of
+    the same sweep number (or, in files without those types, neo's segments).
 
+    Parameters
+    ----------
+    path : Path
+        The file.
+    shown : str
+        How the file is named in sweeps and messages.
+    max_sweep_samples : int
+        Sweeps declaring more samples are refused before they are read.
+
+    Returns
+    -------
+    Recording
+        Close it (or use it in ``with``) when long sweeps were left in the file.
+
+    Raises
+    ------
+    UnreadableInputError
+        The file is not HDF5, cannot be read as NWB, or holds no measurable sweep.
+    """
     with open(path, "rb") as fh:
         if fh.read(8) != HDF5_SIGNATURE:
             raise UnreadableInputError(
@@ -236,4 +257,3 @@ def _align_stimulus(sweep: Sweep, response, stimulus) -> tuple[Sweep, bool]:
     except UnreadableInputError:
         return sweep, False
     return settled, True
-

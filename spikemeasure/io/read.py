@@ -83,4 +83,3 @@ def read_recording(path: str | os.PathLike, *, shown_as: str | None = None,
     except OSError as exc:  # opening or reading the file itself (permissions, I/O errors)
         raise UnreadableInputError(
             f"{shown}: cannot be read ({exc.strerror or type(exc).__name__})") from exc
-

@@ -7,6 +7,7 @@ from ..sweeps import Sweep
 
 __all__ = ["ChannelInfo", "Recording"]
 
+
 @dataclass(frozen=True)
 class ChannelInfo:
     """A channel as the file declares it, and the role spikemeasure gave it."""
@@ -50,4 +51,3 @@ class Recording:
 
     def __exit__(self, *exc) -> None:
         self.close()
-

@@ -19,6 +19,7 @@ from .units import scale_to, unit_text
 __all__ = ["Segment", "rate_problem", "looks_like_command", "signal_columns", "sweep_where",
            "sweep_from_signals", "segments_to_recording", "close_rawio"]
 
+
 def rate_problem(where: str, signal) -> str | None:
     """Why a signal's time axis cannot be used (a sampling rate that is zero, negative, NaN or
     infinite, or a starting time that is not finite), or None."""
@@ -39,7 +40,6 @@ def rate_problem(where: str, signal) -> str | None:
     return (f"{where}: the sampling rate is {rate:g} Hz (sampling interval {interval:g} s); it "
             "must be a positive, finite number, so the sweep was not read. The file's time "
             "axis is damaged")
-
 
 
 def looks_like_command(voltage_mv: np.ndarray) -> bool:
@@ -164,16 +164,19 @@ def segments_to_recording(segments, path: str, format_name: str,
                                    f"{detail} (and {len(problems) - 1} more problems)")
     return Recording(path, format_name, sweeps, first_channels, problems)
 
+
 @dataclass
 class Segment:
+    """A segment read lazily: its name, its loaded signals, and why it was refused ("" if
+    it was not)."""
+
     name: str
     analogsignals: list
     refused: str = ""
 
 
 def close_rawio(io) -> None:
+    """Close the file a neo raw reader keeps open."""
     handle = getattr(io, "file", None)
     if handle is not None and hasattr(handle, "close"):
         handle.close()
-
-

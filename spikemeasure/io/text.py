@@ -162,9 +162,12 @@ def _text_size_problem(path: Path, shown: str, header: str, first_row: str, n_co
     return None
 
 
-def read_text(path: Path, shown: str, sampling_rate_hz: float | None,
-               max_sweep_samples: int) -> Recording:
-    header, second = _text_head(path, shown)
+def _header_roles(shown: str, header: str, second: str
+                  ) -> tuple[str | None, list[str], dict[str, tuple[int, float]],
+                             list[ChannelInfo], list[str]]:
+    """Read the header row: the separator, the column names, the column and scale of the
+    time, voltage and command columns (the first column of each kind of unit), every
+    column's channel, and the names of voltage columns after the first."""
     if not header.strip():
         raise UnreadableInputError(
             f"{shown}: the first line is blank; it must be the header row naming each column "
@@ -201,9 +204,13 @@ def read_text(path: Path, shown: str, sampling_rate_hz: float | None,
         raise UnreadableInputError(
             f"{shown}: no voltage column: none of the {len(names)} column names of the header "
             "row ends in a voltage unit; name one such as voltage_mV or voltage_V")
-    problem = _text_size_problem(path, shown, header, second, len(names), max_sweep_samples)
-    if problem:
-        raise UnreadableInputError(problem)
+    return delimiter, names, roles, channels, extra_voltages
+
+
+def _load_rows(path: Path, shown: str, delimiter: str | None, n_columns: int,
+               max_sweep_samples: int) -> np.ndarray:
+    """The data rows as float64, one column per header name, after the checks of their
+    number and shape."""
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")  # numpy warns of an empty file; said below
@@ -211,12 +218,12 @@ def read_text(path: Path, shown: str, sampling_rate_hz: float | None,
                               ndmin=2, comments="#", encoding="utf-8-sig")
     except (ValueError, UnicodeDecodeError) as exc:
         raise UnreadableInputError(
-            _diagnose_rows(path, shown, delimiter, len(names))) from exc
+            _diagnose_rows(path, shown, delimiter, n_columns)) from exc
     if data.size == 0:
         raise UnreadableInputError(f"{shown}: a header row but no data rows")
-    if data.shape[1] != len(names):
+    if data.shape[1] != n_columns:
         raise UnreadableInputError(
-            f"{shown}: the header names {len(names)} columns but rows have {data.shape[1]}")
+            f"{shown}: the header names {n_columns} columns but rows have {data.shape[1]}")
     if data.shape[0] < 3:
         raise UnreadableInputError(
             f"{shown}: only {data.shape[0]} data row{'s' if data.shape[0] != 1 else ''}; a "
@@ -226,6 +233,13 @@ def read_text(path: Path, shown: str, sampling_rate_hz: float | None,
             f"{shown}, sweep 0: {data.shape[0]:,} samples, more than max_sweep_samples "
             f"({max_sweep_samples:,}); raise --max-sweep-samples if the recording really is "
             "that long")
+    return data
+
+
+def _sampling_rate(shown: str, data: np.ndarray, roles: dict[str, tuple[int, float]],
+                   sampling_rate_hz: float | None) -> float:
+    """The sampling rate in Hz: from the time column, which must increase evenly (and agree
+    with `sampling_rate_hz` when both are given), else `sampling_rate_hz`."""
     if "time" in roles:
         col, scale = roles["time"]
         t = data[:, col] * scale
@@ -251,12 +265,46 @@ def read_text(path: Path, shown: str, sampling_rate_hz: float | None,
             raise UnreadableInputError(
                 f"{shown}: the time column gives {rate:g} Hz but --sampling-rate says "
                 f"{sampling_rate_hz:g} Hz; drop the option or fix the file")
-    elif sampling_rate_hz is not None:
-        rate = float(sampling_rate_hz)
-    else:
-        raise UnreadableInputError(
-            f"{shown}: no time column (such as time_s or time_ms), so the sampling rate is "
-            "unknown; give it with --sampling-rate HZ")
+        return rate
+    if sampling_rate_hz is not None:
+        return float(sampling_rate_hz)
+    raise UnreadableInputError(
+        f"{shown}: no time column (such as time_s or time_ms), so the sampling rate is "
+        "unknown; give it with --sampling-rate HZ")
+
+
+def read_text(path: Path, shown: str, sampling_rate_hz: float | None,
+              max_sweep_samples: int) -> Recording:
+    """Read a text file of columns under a header row naming their units: one sweep.
+
+    Parameters
+    ----------
+    path : Path
+        The file.
+    shown : str
+        How the file is named in the sweep and in messages.
+    sampling_rate_hz : float or None
+        The sampling rate, needed when the file has no time column.
+    max_sweep_samples : int
+        Files longer than this (judged from their size before they are parsed) are refused.
+
+    Returns
+    -------
+    Recording
+
+    Raises
+    ------
+    UnreadableInputError
+        The file is not UTF-8 text of that layout, has no voltage column, no sampling rate,
+        or an uneven time column; the message says where, without quoting the file.
+    """
+    header, second = _text_head(path, shown)
+    delimiter, names, roles, channels, extra_voltages = _header_roles(shown, header, second)
+    problem = _text_size_problem(path, shown, header, second, len(names), max_sweep_samples)
+    if problem:
+        raise UnreadableInputError(problem)
+    data = _load_rows(path, shown, delimiter, len(names), max_sweep_samples)
+    rate = _sampling_rate(shown, data, roles, sampling_rate_hz)
     v_col, v_scale = roles["voltage"]
     command = None
     if "command" in roles:
@@ -277,4 +325,3 @@ def read_text(path: Path, shown: str, sampling_rate_hz: float | None,
             f"{shown}: this looks like a voltage-clamp recording (the voltage column is a few "
             "flat command levels); spikemeasure measures current clamp")
     return Recording(shown, "plain text (numpy, float64)", [sweep], channels, problems)
-

@@ -14,7 +14,9 @@ VOLT_TO_MV = {"v": 1e3, "mv": 1.0, "uv": 1e-3, "µv": 1e-3}
 AMP_TO_PA = {"a": 1e12, "ma": 1e9, "ua": 1e6, "µa": 1e6, "na": 1e3, "pa": 1.0, "fa": 1e-3}
 SECOND_TO_S = {"s": 1.0, "ms": 1e-3, "us": 1e-6, "µs": 1e-6}
 
+
 def unit_text(signal) -> str:
+    """The units a neo signal declares, as text (``mV``, ``pA``)."""
     return signal.units.dimensionality.string
 
 
@@ -39,4 +41,3 @@ def split_unit(column_name: str) -> tuple[str, str]:
         base, unit = name.rsplit("_", 1)
         return base, unit.lower()
     return name, ""
-
