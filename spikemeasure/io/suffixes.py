@@ -38,12 +38,12 @@ class FormatReader:
     """
 
     format_name: str
-    read: Callable[[Path, str, "float | None", int], Recording]
+    read: Callable[[Path, str, float | None, int], Recording]
     neo_class: type | None = None
 
 
 def _without_rate(read: Callable[[Path, str, int], Recording]
-                  ) -> Callable[[Path, str, "float | None", int], Recording]:
+                  ) -> Callable[[Path, str, float | None, int], Recording]:
     """A reader of a format whose files carry their own sampling rate."""
     return lambda path, shown, sampling_rate_hz, max_sweep_samples: read(
         path, shown, max_sweep_samples)
