@@ -80,7 +80,8 @@ def settle_long_sweep(sweep: Sweep) -> Sweep:
             part = command[start:start + piece]
             low, high = min(low, float(part.min())), max(high, float(part.max()))
             if high - low > 1.0:  # pA: the command steps, so the step features need it all
-                problem = limits.size_problem(sweep.where(), (sweep.n_samples, 2), 1 << 62, whole=True)
+                problem = limits.size_problem(sweep.where(), (sweep.n_samples, 2), 1 << 62,
+                                              whole=True)
                 if problem:
                     raise UnreadableInputError(
                         problem + " (its command current steps, so it must be read whole)")

@@ -15,7 +15,8 @@ __all__ = ["read_with_neo"]
 
 def _other_segments(io, lazy: bool, shown: str, max_sweep_samples: int) -> list:
     """The segments a neo reader gives; with `lazy`, each sweep's declared size is checked
-    (:func:`~spikemeasure.io.limits.size_problem`) before its signals are loaded, and a sweep too large is refused."""
+    (:func:`~spikemeasure.io.limits.size_problem`) before its signals are loaded, and a sweep
+    too large is refused."""
     blocks = io.read(lazy=lazy)
     if not lazy:
         return [seg for blk in blocks for seg in blk.segments]

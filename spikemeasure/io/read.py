@@ -34,8 +34,8 @@ def read_recording(path: str | os.PathLike, *, shown_as: str | None = None,
     max_sweep_samples : int, optional
         Sweeps declaring more samples than this are refused before they are read (default
         :data:`~spikemeasure.io.limits.DEFAULT_MAX_SWEEP_SAMPLES`); so are sweeps read whole
-        whose declared float64 size exceeds the memory available. Each refusal is a problem of the recording, or the
-        error when no sweep is left.
+        whose declared float64 size exceeds the memory available. Each refusal is a problem
+        of the recording, or the error when no sweep is left.
 
     Returns
     -------
