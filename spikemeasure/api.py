@@ -18,7 +18,7 @@ from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, Column
 from .analysis.detection import DetectionSettings
 from .errors import InvalidSettingError
 from .analysis.spikes import measure_trace as _measure_spikes_of_trace
-from .reading import Recording, read_recording
+from .io import Recording, read_recording
 from .tables.build import (cell_summary, cell_table, measure_recording, spike_table, spike_values,
                            sweep_table)
 

@@ -38,7 +38,7 @@ from .analysis.cell_features import CellFeatures, passive_sweeps
 from .analysis.detection import DetectionSettings, smoothed_trace
 from .errors import SpikemeasureError, printable_name
 from .tables.write import write_bytes_atomic
-from .reading import Recording
+from .io import Recording
 from .analysis.sweeps import MIN_SAMPLING_RATE_HZ
 from .tables.build import SweepResult, cell_summary
 

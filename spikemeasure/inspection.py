@@ -6,7 +6,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from .analysis.detection import DetectionSettings
-from .reading import Recording, read_recording
+from .io import Recording, read_recording
 from .analysis.cell_features import CELL_FLAG_TEXT
 from .tables.build import SweepResult, cell_summary, measure_recording
 

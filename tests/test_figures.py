@@ -16,7 +16,7 @@ from spikemeasure import figures
 from conftest import rc_recording  # the analytic RC membrane
 from spikemeasure.cli import main
 from spikemeasure.analysis.detection import DetectionSettings
-from spikemeasure.reading import read_recording
+from spikemeasure.io import read_recording
 from spikemeasure.runner import measure_paths
 from spikemeasure.tables.build import cell_summary, measure_recording, spike_table, sweep_table
 

@@ -560,7 +560,7 @@ def test_a_bug_in_one_file_fails_that_file_only(distinct_cells, tmp_path, monkey
 
 def test_first_ctrl_c_stops_inside_a_file_between_sweeps(distinct_cells, tmp_path, monkeypatch):
     """The first Ctrl-C stops the file being measured at its next sweep, not at its end."""
-    from spikemeasure.tables import build as tables
+    from spikemeasure.tables.build import build as tables
 
     calls = []
     original = tables.measure_sweep
@@ -586,7 +586,7 @@ def test_measuring_can_be_cancelled_between_sweeps_and_pieces():
     its exception stops the work there."""
     from conftest import GaussianSpike
     from spikemeasure.analysis.spikes_in_parts import measure_in_pieces
-    from spikemeasure.reading import Recording
+    from spikemeasure.io import Recording
     from spikemeasure.analysis.sweeps import Sweep
     from spikemeasure.tables.build import measure_recording
 
@@ -742,7 +742,7 @@ def test_out_holding_files_this_tool_did_not_write_is_refused(tmp_path, foreign)
 def test_out_holding_accepted_results_is_refused_and_a_results_folder_is_reused(tmp_path):
     """The folder of an earlier run is written again (its run.json is this tool's); a folder
     of accepted results is not a place for a run."""
-    from spikemeasure.checks import accept_results
+    from spikemeasure.checks.accept import accept_results
     from spikemeasure.errors import UnusableOutputError
 
     cell = _one_cell(tmp_path)

@@ -9,7 +9,7 @@ from conftest import (PASSIVE_RATE_HZ as RATE, PASSIVE_R_MOHM as R_MOHM, PASSIVE
                       PASSIVE_TAU_MS as TAU_MS, rc_recording, step_command, write_nix)
 from spikemeasure.analysis.cell_features import fit_membrane_tau, rheobase
 from spikemeasure.cli import main
-from spikemeasure.reading import Recording, read_recording
+from spikemeasure.io import Recording, read_recording
 from spikemeasure.testing import simulate_current_steps
 from spikemeasure.analysis.sweeps import Sweep, protocol_steps
 from spikemeasure.tables.build import (cell_summary, cell_table, format_rows, measure_recording,
