@@ -560,7 +560,7 @@ def test_a_bug_in_one_file_fails_that_file_only(distinct_cells, tmp_path, monkey
 
 def test_first_ctrl_c_stops_inside_a_file_between_sweeps(distinct_cells, tmp_path, monkeypatch):
     """The first Ctrl-C stops the file being measured at its next sweep, not at its end."""
-    from spikemeasure.tables.build import build as tables
+    from spikemeasure.tables import build as tables
 
     calls = []
     original = tables.measure_sweep
