@@ -19,8 +19,8 @@ import numpy as np
 from ..errors import printable_name
 from ..output import write_bytes_atomic
 
-__all__ = ["FIGURE_FORMATS", "DPI", "WIDTH_IN", "STYLE", "THRESHOLD_COLOUR", "PEAK_COLOUR",
-           "TROUGH_COLOUR", "RHEOBASE_COLOUR", "UNKNOWN_COLOUR", "KeptFigure", "matplotlib",
+__all__ = ["FIGURE_FORMATS", "DPI", "CACHE_TEXT", "WIDTH_IN", "STYLE", "THRESHOLD_COLOUR",
+           "PEAK_COLOUR", "TROUGH_COLOUR", "RHEOBASE_COLOUR", "UNKNOWN_COLOUR", "KeptFigure", "matplotlib",
            "make_figure", "cell_figure", "legend", "legend_where_free", "note", "title",
            "save_figure", "MAX_FOLDER_NAME_CHARS", "figure_folder_name"]
 
@@ -41,6 +41,9 @@ STYLE = {"font.size": 9, "axes.titlesize": 10, "axes.labelsize": 9, "xtick.label
          "axes.spines.top": False, "axes.spines.right": False, "svg.hashsalt": "spikemeasure",
          "path.simplify": True, "text.parse_math": False,  # a "$" in a file name is text
          "legend.frameon": True, "legend.framealpha": 1.0, "legend.edgecolor": "none"}
+#: Draw the figures on the text-caching canvas (:mod:`spikemeasure.figures.text_cache`);
+#: false: on matplotlib's plain Agg canvas.
+CACHE_TEXT = True
 #: zlib level of the PNGs: the fastest, at a size close to the default level's.
 _PNG_COMPRESS_LEVEL = 1
 
@@ -53,8 +56,9 @@ def matplotlib():
 
 
 def make_figure(height_in: float, make: Callable | None = None, layout: str | None = None):
-    """A figure of the house width on matplotlib's Agg canvas, or from `make` (for a window:
-    ``matplotlib.pyplot.figure``).
+    """A figure of the house width on matplotlib's Agg canvas, drawing each distinct text
+    once (:class:`~spikemeasure.figures.text_cache.TextCachingCanvas`, unless
+    :data:`CACHE_TEXT` is false), or from `make` (for a window: ``matplotlib.pyplot.figure``).
 
     Cell figures have fixed margins (the same look for every cell, and no layout passes,
     which would cost more than the drawing); the batch figure uses constrained layout.
@@ -64,8 +68,10 @@ def make_figure(height_in: float, make: Callable | None = None, layout: str | No
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
+    from .text_cache import TextCachingCanvas
+
     fig = Figure(figsize=(WIDTH_IN, height_in), dpi=DPI, layout=layout)
-    FigureCanvasAgg(fig)
+    (TextCachingCanvas if CACHE_TEXT else FigureCanvasAgg)(fig)
     return fig
 
 
