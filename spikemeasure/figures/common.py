@@ -20,9 +20,9 @@ from ..errors import printable_name
 from ..output import write_bytes_atomic
 
 __all__ = ["FIGURE_FORMATS", "DPI", "CACHE_TEXT", "WIDTH_IN", "STYLE", "THRESHOLD_COLOUR",
-           "PEAK_COLOUR", "TROUGH_COLOUR", "RHEOBASE_COLOUR", "UNKNOWN_COLOUR", "KeptFigure", "matplotlib",
-           "make_figure", "cell_figure", "legend", "legend_where_free", "note", "title",
-           "save_figure", "MAX_FOLDER_NAME_CHARS", "figure_folder_name"]
+           "PEAK_COLOUR", "TROUGH_COLOUR", "RHEOBASE_COLOUR", "UNKNOWN_COLOUR", "KeptFigure",
+           "matplotlib", "make_figure", "cell_figure", "legend", "legend_where_free", "note",
+           "title", "save_figure", "MAX_FOLDER_NAME_CHARS", "figure_folder_name"]
 
 #: Formats a figure can be written in.
 FIGURE_FORMATS = ("png", "svg", "pdf")

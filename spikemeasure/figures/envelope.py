@@ -90,7 +90,7 @@ def band(t: np.ndarray, values: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.
 
 
 def band_outline(t: np.ndarray, low: np.ndarray, high: np.ndarray,
-                  thinnest: float = 0.0) -> np.ndarray:
+                 thinnest: float = 0.0) -> np.ndarray:
     """The polygon between `low` and `high`, widened symmetrically where it is thinner than
     `thinnest` (data units).
 
@@ -101,5 +101,3 @@ def band_outline(t: np.ndarray, low: np.ndarray, high: np.ndarray,
     widen = np.maximum(0.0, (thinnest - (high - low)) / 2.0)
     return np.concatenate([np.column_stack([t, low - widen]),
                            np.column_stack([t[::-1], (high + widen)[::-1]])])
-
-

@@ -49,7 +49,8 @@ def first_spike_figure(results: Sequence[SweepResult], cell: CellFeatures | None
         s = r.spikes
         stim = stimulus_pa(r)
         size = f", {stim:g} pA" if math.isfinite(stim) else ""
-        fig.suptitle(figure_title(name, results, f"first spike of the {chosen} (sweep {r.sweep.index}{size})"))
+        fig.suptitle(figure_title(name, results, f"first spike of the {chosen} "
+                                                 f"(sweep {r.sweep.index}{size})"))
         rate = r.sweep.sampling_rate_hz
         thr_s, thr_mv = float(s.threshold_s[k]), float(s.threshold_mv[k])
         peak_s, peak_mv = float(s.peak_s[k]), float(s.peak_mv[k])

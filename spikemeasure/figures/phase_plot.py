@@ -58,7 +58,8 @@ def phase_plot_figure(results: Sequence[SweepResult], cell: CellFeatures | None 
             chosen = "largest step, no spikes"
         stim = stimulus_pa(r)
         size = f", {stim:g} pA" if math.isfinite(stim) else ""
-        fig.suptitle(figure_title(name, results, f"phase plot, {chosen} (sweep {r.sweep.index}{size})"))
+        fig.suptitle(figure_title(name, results,
+                                  f"phase plot, {chosen} (sweep {r.sweep.index}{size})"))
         rate = r.sweep.sampling_rate_hz
         s = r.spikes
         shift = 0
@@ -70,8 +71,9 @@ def phase_plot_figure(results: Sequence[SweepResult], cell: CellFeatures | None 
             if s is not None:
                 peaks = s.peak_s * rate
                 s = s.subset((peaks >= shift + 0.01 * rate) & (peaks < stop - 0.01 * rate))
-            fig.suptitle(figure_title(name, results, f"phase plot, {chosen} (sweep {r.sweep.index}"
-                                               f"{size}), its first {PHASE_PLOT_LONG_S:g} s"))
+            fig.suptitle(figure_title(name, results,
+                                      f"phase plot, {chosen} (sweep {r.sweep.index}{size}), "
+                                      f"its first {PHASE_PLOT_LONG_S:g} s"))
             voltage = np.asarray(r.sweep.voltage_mv[shift:stop], dtype=float)
         else:
             voltage = r.sweep.voltage_mv

@@ -41,8 +41,8 @@ def step_response_figure(results: Sequence[SweepResult], cell: CellFeatures | No
     measured = measured_results(results)
     with matplotlib().rc_context(STYLE):
         kept = cell_figure("step_responses", 3.6,
-                            [(0.09, 0.14, 0.375, 0.73), (0.6, 0.14, 0.375, 0.73)], new_figure,
-                            reuse)
+                           [(0.09, 0.14, 0.375, 0.73), (0.6, 0.14, 0.375, 0.73)], new_figure,
+                           reuse)
         fig, (ax_f, ax_v) = kept.fig, kept.axes
         fig.suptitle(figure_title(name, results, "responses to the steps"))
         ax_f.set_xlabel("step size (pA)")
@@ -53,7 +53,7 @@ def step_response_figure(results: Sequence[SweepResult], cell: CellFeatures | No
         if not measured or not np.isfinite(stim).any():
             for ax in (ax_f, ax_v):
                 note(ax, "step sizes unknown\n(no command channel: give --step-sizes)"
-                      if measured else "no sweep could be measured")
+                     if measured else "no sweep could be measured")
             return fig
         rate = np.array([r.features.firing_rate_hz for r in measured], dtype=float)
         dv = np.array([r.features.steady_state_mv - r.features.baseline_mv for r in measured],
@@ -84,7 +84,7 @@ def step_response_figure(results: Sequence[SweepResult], cell: CellFeatures | No
                       label=f"f-I slope {slope:.3g} Hz/pA")
         # the legend where no point, line or the rheobase line runs under it
         legend_where_free(ax_f, ("upper left", "lower right", "center right"),
-                           [cell.rheobase_pa])
+                          [cell.rheobase_pa])
         passive = passive_sweeps([r.features.as_dict() for r in measured],
                                  [(r.sweep.voltage_mv, r.sweep.sampling_rate_hz)
                                   for r in measured])

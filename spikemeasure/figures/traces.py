@@ -52,7 +52,6 @@ def _command_trace(r: SweepResult) -> tuple[np.ndarray, np.ndarray, bool] | None
     return None
 
 
-
 def traces_figure(results: Sequence[SweepResult], cell: CellFeatures | None = None, *,
                   name: str | None = None, new_figure: Callable | None = None,
                   reuse: dict | None = None):
@@ -89,8 +88,8 @@ def traces_figure(results: Sequence[SweepResult], cell: CellFeatures | None = No
     measured = measured_results(results)
     with matplotlib().rc_context(STYLE):
         kept = cell_figure("traces", 6.0,
-                            [(0.10, 0.335, 0.75, 0.575), (0.10, 0.085, 0.75, 0.2)],
-                            new_figure, reuse, share_x=True)
+                           [(0.10, 0.335, 0.75, 0.575), (0.10, 0.085, 0.75, 0.2)],
+                           new_figure, reuse, share_x=True)
         fig, (ax_v, ax_i) = kept.fig, kept.axes
         ax_v.tick_params(labelbottom=False)
         fig.suptitle(figure_title(name, results, "sweeps"), y=0.985)
@@ -118,7 +117,7 @@ def traces_figure(results: Sequence[SweepResult], cell: CellFeatures | None = No
                 i_cols.append(colours[k])
                 drawn_command = True
                 recorded_any |= cmd[2]
-        bands = PolyCollection([band_outline(*band) for band in v_bands], facecolors=v_cols,
+        bands = PolyCollection([band_outline(*b) for b in v_bands], facecolors=v_cols,
                                edgecolors="none", linewidths=0, alpha=0.85)
         ax_v.add_collection(bands)
         ax_i.add_collection(LineCollection(i_lines, colors=i_cols, linewidths=0.8))
@@ -135,35 +134,52 @@ def traces_figure(results: Sequence[SweepResult], cell: CellFeatures | None = No
         ax_v.autoscale_view()
         ax_i.autoscale_view()
         if v_bands:  # now that the scale is known: every band at least a thin line thick
-            bottom, top = ax_v.get_ylim()
-            mv_per_px = (top - bottom) / (ax_v.get_position().height * fig.get_figheight()
-                                          * fig.dpi)
-            thinnest_mv = TRACE_LINE_PT / 72.0 * fig.dpi * mv_per_px
-            bands.set_verts([band_outline(*band, thinnest=thinnest_mv) for band in v_bands])
-            ax_v.set_ylim(bottom, top)
-        if not drawn_command:
-            gap_free = any(r.sweep.is_lazy for r in measured)
-            note(ax_i, "gap-free recording: no current step" if gap_free else
-                  "no command channel and no step size given", clear_ticks=False)
-        elif not recorded_any:
-            ax_i.set_title("no command channel: the step given with --step / --step-sizes",
-                           fontsize=8, loc="left")
+            _thicken(ax_v, bands, v_bands)
+        _command_note(ax_i, measured, drawn_command, recorded_any)
         legend(ax_v, loc="lower center", bbox_to_anchor=(0.5, 1.0), ncols=4,
-                    borderaxespad=0.2)
-        steps = {stimulus_pa(r) for r in measured if np.isfinite(stimulus_pa(r))}
-        if cmap is not None and len(steps) > 1:  # one step size needs no colour key
-            mappable = matplotlib().cm.ScalarMappable(norm=norm, cmap=cmap)
-            if kept.colorbar is None:
-                kept.colorbar = fig.colorbar(mappable,
-                                             cax=fig.add_axes((0.875, 0.085, 0.018, 0.825)))
-                kept.colorbar.set_label("step size (pA)")
-            else:
-                bar = kept.colorbar
-                if (bar.norm.vmin, bar.norm.vmax, bar.cmap.name) != (norm.vmin, norm.vmax,
-                                                                     cmap.name):
-                    bar.update_normal(mappable)  # costly: only when the step range changed
-                bar.ax.set_visible(True)
+               borderaxespad=0.2)
+        _colour_bar(kept, measured, cmap, norm)
     return fig
+
+
+def _thicken(ax, bands, outlines: list) -> None:
+    """Widen the bands of `outlines` (from :func:`band`) where they are thinner than
+    :data:`TRACE_LINE_PT` at the axes' present scale, keeping that scale."""
+    fig = ax.figure
+    bottom, top = ax.get_ylim()
+    mv_per_px = (top - bottom) / (ax.get_position().height * fig.get_figheight() * fig.dpi)
+    thinnest_mv = TRACE_LINE_PT / 72.0 * fig.dpi * mv_per_px
+    bands.set_verts([band_outline(*b, thinnest=thinnest_mv) for b in outlines])
+    ax.set_ylim(bottom, top)
+
+
+def _command_note(ax, measured: Sequence[SweepResult], drawn: bool, recorded: bool) -> None:
+    """Say why no command is drawn, or that the one drawn was given, not recorded."""
+    if not drawn:
+        gap_free = any(r.sweep.is_lazy for r in measured)
+        note(ax, "gap-free recording: no current step" if gap_free else
+             "no command channel and no step size given", clear_ticks=False)
+    elif not recorded:
+        ax.set_title("no command channel: the step given with --step / --step-sizes",
+                     fontsize=8, loc="left")
+
+
+def _colour_bar(kept, measured: Sequence[SweepResult], cmap, norm) -> None:
+    """The colour key of the step sizes, when there is more than one (the kept figure's
+    colour bar, updated only when the step range changed: updating is costly)."""
+    steps = {stimulus_pa(r) for r in measured if np.isfinite(stimulus_pa(r))}
+    if cmap is None or len(steps) < 2:  # one step size needs no colour key
+        return
+    mappable = matplotlib().cm.ScalarMappable(norm=norm, cmap=cmap)
+    if kept.colorbar is None:
+        fig = kept.fig
+        kept.colorbar = fig.colorbar(mappable, cax=fig.add_axes((0.875, 0.085, 0.018, 0.825)))
+        kept.colorbar.set_label("step size (pA)")
+        return
+    bar = kept.colorbar
+    if (bar.norm.vmin, bar.norm.vmax, bar.cmap.name) != (norm.vmin, norm.vmax, cmap.name):
+        bar.update_normal(mappable)
+    bar.ax.set_visible(True)
 
 
 def _spike_markers(ax, measured: Sequence[SweepResult]) -> None:

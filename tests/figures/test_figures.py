@@ -257,7 +257,6 @@ class TestStepResponses:
         assert sorted(px) == [-40.0, -20.0]
         assert np.allclose(py, R_GOHM * px, atol=0.2)
 
-
     def test_legend_names_only_the_points_there_are(self, cell):
         # Source: the analytic RC membrane (closed form): every step hyperpolarizing, so every
         # sweep is spike-free and fitted, and there are no "other sweeps" to name.

@@ -8,6 +8,7 @@ from matplotlib.font_manager import FontProperties
 from spikemeasure.figures import common, text_cache
 from spikemeasure.figures.text_cache import TextCachingCanvas, TextCachingRenderer
 
+
 def _ink(renderer):
     """Total coverage and its centroid (x, y in pixels) of what was drawn on white."""
     pixels = np.asarray(renderer.buffer_rgba())[..., 3].astype(float)
