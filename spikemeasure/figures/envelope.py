@@ -45,6 +45,7 @@ def envelope(y: np.ndarray, sampling_rate_hz: float, bins: int = ENVELOPE_BINS
     y : ndarray
         1-D samples.
     sampling_rate_hz : float
+        Samples per second of `y`.
     bins : int, optional
         A trace of more than ``2 * bins`` samples is cut into at most `bins` bins of
         ``ceil(n / bins)`` samples (the last one shorter), each drawn as its minimum and
@@ -56,9 +57,16 @@ def envelope(y: np.ndarray, sampling_rate_hz: float, bins: int = ENVELOPE_BINS
         The samples themselves when the trace is short enough. Otherwise the first sample,
         two points per bin and the last sample: the trace's extremes are all kept, so no spike
         peak or trough is lost to the eye, and the line spans the whole sweep.
+
+    Raises
+    ------
+    ValueError
+        When `bins` is not a whole number of at least 1 or `sampling_rate_hz` is not positive.
     """
-    if bins < 1:
-        raise ValueError("`bins` must be at least 1")
+    if not (isinstance(bins, (int, np.integer)) and bins >= 1):
+        raise ValueError(f"`bins` must be a whole number of at least 1 (got {bins!r})")
+    if not (np.isfinite(sampling_rate_hz) and sampling_rate_hz > 0):
+        raise ValueError(f"`sampling_rate_hz` must be positive (got {sampling_rate_hz!r})")
     if not isinstance(y, np.ndarray) and len(y) > 2 * bins:
         return _lazy_envelope(y, sampling_rate_hz, bins)
     y = np.asarray(y, dtype=float)

@@ -14,6 +14,7 @@ from conftest import (RC_R_GOHM as R_GOHM, RC_RATE_HZ, RC_SPIKES_PER_STEP as SPI
                       RC_STEP_S, RC_STEPS_PA as STEPS_PA, rc_cell_sweeps, write_nix, write_text)
 from spikemeasure import figures
 from spikemeasure.figures import windows
+from spikemeasure.figures.selection import shown_spike
 from spikemeasure.figures.traces import TRACE_LINE_PT
 from test_cell_features import rc_recording  # the analytic RC membrane
 from spikemeasure.cli import main
@@ -89,6 +90,30 @@ class TestEnvelope:
         assert np.array_equal(np.minimum(pairs[0::2], pairs[1::2]), [b.min() for b in bins])
         assert np.array_equal(np.maximum(pairs[0::2], pairs[1::2]), [b.max() for b in bins])
         assert v.max() == y.max() and v.min() == y.min()
+
+
+    @pytest.mark.parametrize("bad, argument", [({"bins": 0}, "bins"), ({"bins": 2.5}, "bins"),
+                                               ({"sampling_rate_hz": 0.0}, "sampling_rate_hz")])
+    def test_bad_arguments_are_named(self, bad, argument):
+        kw = {"y": np.zeros(10), "sampling_rate_hz": 1000.0, **bad}
+        with pytest.raises(ValueError, match=f"`{argument}`"):
+            figures.envelope(**kw)
+
+
+class TestShownSpike:
+    def test_the_rheobase_sweep_and_its_first_spike_in_the_step(self, cell):
+        # Source: the simulated cell's construction (conftest): the first step with one spike
+        # per step is the rheobase, and its spike lies inside the step
+        result, spike, chosen = shown_spike(cell["results"], cell["cell"])
+        assert chosen == "rheobase sweep"
+        assert result.features.stimulus_pa == STEPS_PA[SPIKES_PER_STEP.index(1)]
+        assert ONSET_S <= result.spikes.threshold_s[spike] < OFFSET_S
+        # the values the cell table took from it
+        assert result.spikes.threshold_mv[spike] == cell["cell"].rheobase_threshold_mv
+
+    def test_without_spikes_there_is_nothing_to_show(self, odd_cells):
+        results = odd_cells["no_spikes.nix"]["results"]
+        assert shown_spike(results, cell_summary(results)) == (None, None, "")
 
 
 class TestTracesFigure:
