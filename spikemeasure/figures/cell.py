@@ -76,8 +76,9 @@ def write_cell_figures(recording: Recording, results: Sequence[SweepResult],
     Notes
     -----
     The figures are drawn on those this thread drew for its previous cell (`reuse` of
-    :func:`cell_figures`), emptied first: in a run over many cells, the axes, ticks and
-    labels are built once per thread (``docs/benchmark.md``).
+    :func:`cell_figures`), emptied first, and each distinct text is rendered once per process
+    (:mod:`spikemeasure.figures.text_cache`): in a run over many cells, the axes, ticks and
+    labels are built once per thread and most texts rendered once (``docs/benchmark.md``).
     """
     if fmt not in FIGURE_FORMATS:
         raise ValueError(f"`fmt` must be one of {', '.join(FIGURE_FORMATS)} (got {fmt!r})")
