@@ -122,7 +122,8 @@ def _run_parameters(ctx: click.Context, paths, config_path, values: dict):
 def _checked_project_file(path):
     """The [measure] values and the check settings of a project file, every table checked:
     a bad project file is the same error in every command."""
-    from .config import load_check_settings, load_config
+    from .checks.settings import load_check_settings
+    from .config import load_config
 
     return load_config(path), load_check_settings(path)
 
@@ -361,7 +362,8 @@ def _project_option(func):
 def _check_settings(paths, config_path):
     from pathlib import Path
 
-    from .config import find_project_file, load_check_settings
+    from .checks.settings import load_check_settings
+    from .config import find_project_file
 
     path = Path(config_path) if config_path else find_project_file(list(paths))
     if path is None:
@@ -401,8 +403,9 @@ def check(ctx: click.Context, paths, out_dir, jobs, junit_path, as_json, max_row
     `spikemeasure accept`) from [regression]'s accepted_folder, with a tolerance per
     column. Exit codes: 0 all passed, 1 a check failed, 2 a usage or input error.
     """
-    from .checks import check_run, report_dict, report_text
-    from .junit import write_junit
+    from .checks.apply import check_run
+    from .checks.findings import report_dict, report_text
+    from .checks.junit import write_junit
 
     if out_dir is None and len(paths) != 1:
         raise click.UsageError("give one folder of a run's tables, or recordings with "
@@ -474,7 +477,7 @@ def accept(ctx: click.Context, results_dir, config_path):
     """
     from pathlib import Path
 
-    from .checks import accept_results
+    from .checks.accept import accept_results
 
     try:
         project, settings = _check_settings([results_dir], config_path)

@@ -48,7 +48,8 @@ from .detection import DetectionSettings
 from .errors import (InvalidSettingError, OutputWriteError, SpikemeasureError,
                      UnusableOutputError, printable_name)
 from .output import json_text, rows_csv_text, write_files_atomic, write_json, write_text_atomic
-from .reading import TEXT_SUFFIXES, read_recording, search_recordings
+from .io import TEXT_SUFFIXES, read_recording
+from .run.discovery import search_recordings
 from .tables import (cell_summary, cell_table, count_spikes, flag_counts, format_rows,
                      measure_recording, spike_table, sweep_table)
 
@@ -490,7 +491,7 @@ def measure_paths(paths: list[str], out_dir: str | Path,
     ----------
     paths : list of str
         Files and folders (searched recursively; see
-        :func:`~spikemeasure.reading.search_recordings`: how files are named, each once;
+        :func:`~spikemeasure.run.discovery.search_recordings`: how files are named, each once;
         folders that cannot be searched and links not followed are failures of stage
         ``input``, files reached twice a note).
     out_dir : str or Path
@@ -504,7 +505,7 @@ def measure_paths(paths: list[str], out_dir: str | Path,
         For text files without a time column.
     max_sweep_samples : int, optional
         Sweeps declaring more samples are refused before they are read (default
-        :data:`spikemeasure.reading.DEFAULT_MAX_SWEEP_SAMPLES`).
+        :data:`spikemeasure.io.DEFAULT_MAX_SWEEP_SAMPLES`).
     jobs : int, optional
         Processes to measure files in (1: this process).
     force : bool, optional

@@ -8,7 +8,7 @@ from typing import Callable, Sequence
 
 from ..cell_features import CellFeatures
 from ..detection import DetectionSettings
-from ..reading import Recording
+from ..io import Recording
 from ..tables import SweepResult, cell_summary
 from .common import FIGURE_FORMATS, save_figure
 from .first_spike import first_spike_figure

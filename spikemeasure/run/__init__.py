@@ -1,0 +1,1 @@
+"""Running measurements over many recordings."""
