@@ -20,7 +20,7 @@ from .spike_features import (flat_peak_runs, half_widths, interpolated_peaks, ra
                              search_ends, spike_thresholds, troughs)
 from .sweeps import CurrentStep
 
-__all__ = ["SpikeMeasurements", "spike_times", "first_spike_in_step", "measure_spikes",
+__all__ = ["SpikeMeasurements", "spike_times", "first_in_step", "measure_spikes",
            "measure_spikes_with_positions", "measure_trace", "PIECE_SAMPLES", "FLAG_TEXT",
            "GAP_FLAG", "CLIPPED_RUN_SAMPLES"]
 
@@ -110,7 +110,7 @@ def spike_times(spikes: SpikeMeasurements) -> np.ndarray:
     return np.where(np.isfinite(spikes.threshold_s), spikes.threshold_s, spikes.peak_s)
 
 
-def first_spike_in_step(spikes: SpikeMeasurements, step: CurrentStep | None) -> int | None:
+def first_in_step(spikes: SpikeMeasurements, step: CurrentStep | None) -> int | None:
     """Index of the first spike whose time (:func:`spike_times`) lies in the step
     (:meth:`~spikemeasure.analysis.sweeps.CurrentStep.holds`); None without a step or such a
     spike. The rheobase_* values of cells.csv are those of this spike of the rheobase sweep."""

@@ -13,8 +13,8 @@ from ..analysis.cell_features import CellFeatures, cell_features
 from ..columns import CELL_COLUMNS, KEY_COLUMN_NAMES, SPIKE_COLUMNS, SWEEP_COLUMNS, Column
 from ..analysis.detection import DetectionSettings, detect_spikes, smoothed_trace
 from ..errors import InvalidSettingError, SpikemeasureError, UnmeasurableDataError
-from ..analysis.spikes import (PIECE_SAMPLES, SpikeMeasurements, first_spike_in_step,
-                               measure_spikes, spike_times)
+from ..analysis.spikes import (PIECE_SAMPLES, SpikeMeasurements, first_in_step, measure_spikes,
+                               spike_times)
 from ..analysis.spikes_in_parts import measure_around_gaps, measure_in_pieces_with_gaps
 from ..io import Recording
 from ..analysis.sweep_features import SweepFeatures, sweep_features
@@ -22,8 +22,9 @@ from ..analysis.sweeps import (CurrentStep, Sweep, check_sweep, missing_stretche
                      spikes_measurable, stretches_text)
 
 __all__ = ["SweepResult", "measure_sweep", "measure_recording", "measured_results",
-           "cell_summary", "rheobase_spike", "spike_table", "spike_values", "sweep_table",
-           "cell_table", "format_value", "format_rows", "count_spikes", "flag_counts"]
+           "cell_summary", "first_spike_in_step", "rheobase_result", "spike_table",
+           "spike_values", "sweep_table", "cell_table", "format_value", "format_rows",
+           "count_spikes", "flag_counts"]
 
 
 @dataclass(frozen=True)
@@ -191,25 +192,13 @@ def cell_summary(results: list[SweepResult]) -> CellFeatures:
     measured = measured_results(results)
     firsts = []
     for r in measured:
-        k = first_spike_in_step(r.spikes, r.step)
+        k = first_in_step(r.spikes, r.step)
         firsts.append(None if k is None else
                       {name: float(getattr(r.spikes, name)[k]) for name in
                        ("threshold_mv", "amplitude_mv", "half_width_ms", "ahp_depth_mv")})
     return cell_features([r.features.as_dict() for r in measured],
                          [(r.sweep.voltage_mv, r.sweep.sampling_rate_hz) for r in measured],
                          firsts)
-
-
-def rheobase_spike(results: list[SweepResult], cell: CellFeatures
-                   ) -> tuple[SweepResult, int] | None:
-    """The rheobase sweep and the index of its first spike in the step (the spike of the
-    rheobase_* values of cells.csv); None without a rheobase. `cell` is
-    :func:`cell_summary` of the same `results`."""
-    if cell.rheobase_sweep < 0:
-        return None
-    r = measured_results(results)[cell.rheobase_sweep]
-    k = first_spike_in_step(r.spikes, r.step)
-    return None if k is None else (r, k)
 
 
 def sweep_table(results: list[SweepResult]) -> dict[str, list]:
@@ -302,3 +291,44 @@ def flag_counts(results: list[SweepResult]) -> dict[str, int]:
             for f in flags:
                 counts[f] = counts.get(f, 0) + 1
     return counts
+
+
+def first_spike_in_step(result: SweepResult) -> int | None:
+    """Position of the sweep's first spike inside its current step, or None.
+
+    Parameters
+    ----------
+    result : SweepResult
+
+    Returns
+    -------
+    int or None
+        Index into ``result.spikes`` of the first spike whose time (threshold, or peak where
+        the threshold is unknown) lies in ``[step.onset_s, step.offset_s)``: the spike whose
+        values fill the cell table's ``rheobase_*`` columns when this is the rheobase sweep.
+        None without a step, without spikes, or with none in the step.
+    """
+    if result.spikes is None:
+        return None
+    return first_in_step(result.spikes, result.step)
+
+
+def rheobase_result(results: list[SweepResult], cell: CellFeatures) -> SweepResult | None:
+    """The rheobase sweep: the result the cell's ``rheobase_*`` values were taken from.
+
+    Parameters
+    ----------
+    results : list of SweepResult
+        The results `cell` was summarized from (:func:`cell_summary`).
+    cell : CellFeatures
+
+    Returns
+    -------
+    SweepResult or None
+        The measured sweep at ``cell.rheobase_sweep``, the one
+        :func:`~spikemeasure.analysis.cell_features.cell_features` took rheobase from (the
+        first of the smallest step with a spike); None when the cell has no rheobase.
+    """
+    if cell.rheobase_sweep < 0:
+        return None
+    return measured_results(results)[cell.rheobase_sweep]

@@ -323,13 +323,16 @@ class TestRheobaseSweep:
     @pytest.fixture(scope="class")
     def measured(self):
         from conftest import RC_RATE_HZ, RC_STEPS_PA, RC_STEP_S, rc_cell_sweeps
-        from spikemeasure.tables.build import rheobase_spike
+        from spikemeasure.tables.build import first_spike_in_step, rheobase_result
 
         sweeps = [Sweep(v, RC_RATE_HZ, c, file="rc_cell", index=k)
                   for k, (v, c) in enumerate(rc_cell_sweeps())]
         results = measure_recording(Recording("rc_cell", "test", sweeps))
         cell = cell_summary(results)
-        return results, cell, rheobase_spike(results, cell), RC_STEPS_PA, RC_STEP_S
+        rheobase_sweep = rheobase_result(results, cell)
+        found = None if rheobase_sweep is None else (rheobase_sweep,
+                                                     first_spike_in_step(rheobase_sweep))
+        return results, cell, found, RC_STEPS_PA, RC_STEP_S
 
     def test_rheobase_sweep_is_the_first_spiking_step(self, measured):
         results, cell, found, steps, _ = measured
