@@ -27,7 +27,7 @@ def main() -> None:
     parser.add_argument("--files", type=int, default=200)
     args = parser.parse_args()
     from spikemeasure.reading import find_recordings, read_recording
-    from spikemeasure.runner import measure_paths
+    from spikemeasure.run import measure_paths
     from spikemeasure.tables import cell_summary, measure_recording
 
     samples = sorted(p for p in (ROOT / "sample_data").iterdir() if p.suffix in (".nwb", ".nix"))

@@ -243,7 +243,7 @@ def measure(ctx: click.Context, paths, out_dir, jobs, force, patterns, cluster, 
     (figures/) and report.html. A rerun measures only the files that changed (or whose
     parameters did) since the last run into the same --out.
     """
-    from .runner import default_jobs, measure_paths
+    from .run import default_jobs, measure_paths
 
     groups = None
     if groups_path is not None:
@@ -410,7 +410,7 @@ def check(ctx: click.Context, paths, out_dir, jobs, junit_path, as_json, max_row
     try:
         project, settings = _check_settings(paths, config_path)
         if out_dir is not None:
-            from .runner import default_jobs, measure_paths
+            from .run import default_jobs, measure_paths
 
             params = _run_parameters(ctx, paths, str(project) if project else None, {})
             _check_step_options(params.step_times, params.step_sizes)

@@ -42,7 +42,7 @@ from spikemeasure.config import (QUALITY_KEYS, CheckSettings, ConfigError, Toler
 from spikemeasure.detection import DetectionSettings
 from spikemeasure.junit import junit_xml
 from spikemeasure.quality_rules import quality_rules_markdown
-from spikemeasure.runner import measure_paths
+from spikemeasure.run import measure_paths
 from spikemeasure.testing import simulate_current_steps
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -618,7 +618,7 @@ class TestCommandLine:
         # POSIX shell convention (common practice): a process ended by signal N exits 128 + N.
         import signal as signals
 
-        from spikemeasure import runner
+        from spikemeasure import run as runner
 
         def stopped(*args, **kwargs):
             raise runner.RunStopped(int(signals.SIGTERM))

@@ -17,7 +17,7 @@ from test_cell_features import rc_recording  # the analytic RC membrane
 from spikemeasure.cli import main
 from spikemeasure.detection import DetectionSettings
 from spikemeasure.reading import read_recording
-from spikemeasure.runner import measure_paths
+from spikemeasure.run import measure_paths
 from spikemeasure.tables import cell_summary, measure_recording, spike_table, sweep_table
 
 RATE = RC_RATE_HZ

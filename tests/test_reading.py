@@ -13,7 +13,7 @@ from conftest import (gaussian_train, set_hdf5_values, step_command, write_nix,
 from spikemeasure import reading
 from spikemeasure.errors import UnreadableInputError
 from spikemeasure.reading import find_recordings, read_recording
-from spikemeasure.runner import measure_paths
+from spikemeasure.run import measure_paths
 from spikemeasure.tables import measure_recording, spike_table
 
 RATE = 20_000.0

@@ -44,6 +44,7 @@ def test_readme_has_the_two_setup_commands():
     assert "qualified person" in README and "clinical" in README
 
 
+@pytest.mark.slow
 def test_readme_commands_produce_the_csv(tmp_path):
     commands = readme_commands()
     assert any(c.startswith("spikemeasure measure sample_data/") for c in commands)
