@@ -111,19 +111,16 @@ def report_html(record: dict, cells: ColumnTable, folder: str | os.PathLike) -> 
         The run's cells table (typed columns of :data:`~spikemeasure.columns.CELL_COLUMNS`).
     folder : str or path-like
         The output folder; figure paths in `record` are relative to it.
+
+    Returns
+    -------
+    str
+        The page: the run (summary, failures, notes, files, parameters), the cells table,
+        and the figures.
     """
-    folder = Path(folder)
-    cell_rows = cells.formatted_rows()
-    totals = record.get("totals", {})
     inputs = record.get("inputs", [])
-    failures = record.get("failures", [])
-    figures = record.get("figures") or {}
-    per_cell = figures.get("cells") or {}
-    listed = [p for paths in per_cell.values() for p in paths]
-    if figures.get("batch"):
-        listed.append(figures["batch"])
-    size = sum((folder / p).stat().st_size for p in listed if (folder / p).is_file())
-    embed = size <= EMBED_LIMIT_BYTES
+    per_cell = (record.get("figures") or {}).get("cells") or {}
+    anchors = {f: f"cell-{k}" for k, f in enumerate(per_cell)}
     title = f"spikemeasure report: {len(inputs)} file" + ("" if len(inputs) == 1 else "s")
     parts = [
         "<!DOCTYPE html>", '<html lang="en">', "<head>", '<meta charset="utf-8">',
@@ -134,6 +131,18 @@ def report_html(record: dict, cells: ColumnTable, folder: str | os.PathLike) -> 
         "person, who looks at the traces below; not for clinical decisions.</p>",
         '<h2 id="run">Run</h2>',
     ]
+    parts += _run_section(record)
+    parts += _cells_section(record, cells, anchors)
+    parts += _figures_section(record, Path(folder), anchors)
+    parts += ["</body>", "</html>", ""]
+    return "\n".join(parts)
+
+
+def _run_section(record: dict) -> list[str]:
+    """The run's summary, failures, notes, files and parameters."""
+    totals = record.get("totals", {})
+    inputs = record.get("inputs", [])
+    failures = record.get("failures", [])
     versions = record.get("versions", {})
     status = _RUN_STATUS_TEXT.get(record.get("status") or (
         "interrupted" if record.get("interrupted") else "complete"), "unknown")
@@ -156,7 +165,7 @@ def report_html(record: dict, cells: ColumnTable, folder: str | os.PathLike) -> 
     groups = record.get("groups")
     if groups:
         summary_rows.append(("groups", f"{groups['column']} from {groups['file']}"))
-    parts.append(_table([], [(f"<b>{_e(k)}</b>", _e(v)) for k, v in summary_rows]))
+    parts = [_table([], [(f"<b>{_e(k)}</b>", _e(v)) for k, v in summary_rows])]
     parts.append(f'<h3 id="failures">Failures and problems ({len(failures)})</h3>')
     if failures:
         parts.append(_table(["file", "stage", "reason"],
@@ -178,8 +187,14 @@ def report_html(record: dict, cells: ColumnTable, folder: str | os.PathLike) -> 
     parts.append("<h3>Parameters</h3>")
     parts.append(_table(["parameter", "value"], [(_e(k), _e("not set" if v is None else v))
                                                  for k, v in record.get("parameters", {}).items()]))
-    parts.append(f'<h2 id="cells">Cells ({len(cell_rows)})</h2>')
-    anchors = {f: f"cell-{k}" for k, f in enumerate(per_cell)}
+    return parts
+
+
+def _cells_section(record: dict, cells: ColumnTable, anchors: dict[str, str]) -> list[str]:
+    """The cells table, formatted as cells.csv, with each file's group when there are groups."""
+    cell_rows = cells.formatted_rows()
+    parts = [f'<h2 id="cells">Cells ({len(cell_rows)})</h2>']
+    groups = record.get("groups")
     header = [c.name for c in CELL_COLUMNS]
     members = (groups or {}).get("members")
     if members is not None:
@@ -198,22 +213,33 @@ def report_html(record: dict, cells: ColumnTable, folder: str | os.PathLike) -> 
                             + numeric))
     else:
         parts.append("<p>No cell could be measured.</p>")
+    return parts
+
+
+def _figures_section(record: dict, folder: Path, anchors: dict[str, str]) -> list[str]:
+    """The batch figure and each cell's figures, embedded up to EMBED_LIMIT_BYTES in all."""
+    figures = record.get("figures") or {}
     if not figures.get("format"):
-        parts.append("<p>Figures were not drawn in this run (<code>--no-figures</code>).</p>")
-    else:
-        if figures.get("batch"):
-            parts.append('<h2 id="across-cells">Across cells</h2>')
-            parts.append(_image(folder, figures["batch"], "cell features across cells", embed))
-        if not embed:
-            parts.append(f"<p>The figures ({size / 1e6:.0f} MB) are linked, not embedded: copy "
-                         "the whole output folder with this page.</p>")
-        for file, paths in per_cell.items():
-            parts.append(f'<h2 id="{anchors[file]}">{_e(file)}</h2>')
-            for p in paths:
-                what = Path(p).stem.replace("_", " ")
-                parts.append(_image(folder, p, f"{what} of {file}", embed))
-    parts += ["</body>", "</html>", ""]
-    return "\n".join(parts)
+        return ["<p>Figures were not drawn in this run (<code>--no-figures</code>).</p>"]
+    per_cell = figures.get("cells") or {}
+    listed = [p for paths in per_cell.values() for p in paths]
+    if figures.get("batch"):
+        listed.append(figures["batch"])
+    size = sum((folder / p).stat().st_size for p in listed if (folder / p).is_file())
+    embed = size <= EMBED_LIMIT_BYTES
+    parts = []
+    if figures.get("batch"):
+        parts.append('<h2 id="across-cells">Across cells</h2>')
+        parts.append(_image(folder, figures["batch"], "cell features across cells", embed))
+    if not embed:
+        parts.append(f"<p>The figures ({size / 1e6:.0f} MB) are linked, not embedded: copy "
+                     "the whole output folder with this page.</p>")
+    for file, paths in per_cell.items():
+        parts.append(f'<h2 id="{anchors[file]}">{_e(file)}</h2>')
+        for p in paths:
+            what = Path(p).stem.replace("_", " ")
+            parts.append(_image(folder, p, f"{what} of {file}", embed))
+    return parts
 
 
 def write_report(path: str | os.PathLike, record: dict, cells: ColumnTable) -> Path:

@@ -28,9 +28,9 @@ def tables(out: Path) -> dict:
 
 @pytest.fixture(scope="module")
 def many_cells(tmp_path_factory):
-    """Twelve recordings in nested folders (copies of the sample cells)."""
+    """Eight recordings in two nested folders (two copies of each sample cell)."""
     root = tmp_path_factory.mktemp("many")
-    for k in range(12):
+    for k in range(8):
         src = SAMPLES[k % len(SAMPLES)]
         dst = root / f"day_{k // 4}" / f"cell_{k:02d}{src.suffix}"
         dst.parent.mkdir(parents=True, exist_ok=True)
@@ -88,7 +88,7 @@ def test_parallel_and_serial_tables_are_byte_identical(many_cells, many_cells_se
                                                        tmp_path):
     serial, serial_out = many_cells_serial
     parallel = measure_paths([str(many_cells)], tmp_path / "parallel", jobs=2)
-    assert serial.files_measured == parallel.files_measured == 12
+    assert serial.files_measured == parallel.files_measured == 8
     assert tables(serial_out) == tables(tmp_path / "parallel")
     with open(serial_out / "cells.csv", newline="") as fh:
         files = [row["file"] for row in csv.DictReader(fh)]
@@ -140,7 +140,7 @@ def test_rerun_reuses_unchanged_files_and_force_redoes(many_cells, many_cells_se
     out = tmp_path / "out"
     shutil.copytree(first_out, out)  # the first run, with its kept outcomes
     again = measure_paths([str(many_cells)], out, jobs=1)
-    assert (again.files_reused, again.files_measured) == (12, 0)
+    assert (again.files_reused, again.files_measured) == (8, 0)
     assert tables(out) == tables(first_out) and again.spikes == first.spikes > 0
     # four of the files (one copy of each sample), kept under the same content hashes
     day = [str(many_cells / "day_0")]
@@ -217,10 +217,10 @@ def test_dask_cluster_gives_the_same_tables(many_cells, many_cells_serial, tmp_p
                                   dashboard_address=None) as cluster:
         remote = tmp_path / "remote"
         summary = measure_paths([str(many_cells)], remote, cluster=cluster.scheduler_address)
-        assert summary.files_measured == 12
+        assert summary.files_measured == 8
         assert tables(remote) == tables(local)
         again = measure_paths([str(many_cells)], remote, cluster=cluster.scheduler_address)
-        assert again.files_reused == 12 and tables(remote) == tables(local)
+        assert again.files_reused == 8 and tables(remote) == tables(local)
 
 
 def test_unreachable_cluster_is_a_clear_error(tmp_path):
@@ -354,19 +354,21 @@ def test_unsearchable_folders_and_outside_links_are_failures_of_the_run(tmp_path
     assert "a file outside" not in (tmp_path / "out" / "errors.csv").read_text()
 
 
-@pytest.mark.slow
-def test_names_like_formulas_are_escaped_and_matched_by_check(tmp_path):
+def test_names_like_formulas_are_escaped_and_matched_by_check(tmp_path, monkeypatch):
     """The escape is the OWASP guidance on CSV injection: a leading ' and quotes."""
+    from click.testing import CliRunner
+    from spikemeasure.cli import main
+
     folder = tmp_path / "cells"
     folder.mkdir()
     _small_cell(folder / "=cell.nix")
     _small_cell(folder / "+cell.nix")
     (folder / "@broken.nix").write_bytes(b"")
     out, accepted = tmp_path / "out", tmp_path / "accepted"
-    run = [sys.executable, "-m", "spikemeasure"]
-    first = subprocess.run(run + ["measure", str(folder), "--out", str(out), "--jobs", "1",
-                                  "--no-figures"], capture_output=True, text=True)
-    assert first.returncode == 1  # the empty file
+    monkeypatch.chdir(tmp_path)
+    first = CliRunner().invoke(main, ["measure", str(folder), "--out", str(out), "--jobs", "1",
+                                      "--no-figures"])
+    assert first.exit_code == 1  # the empty file
     cells = (out / "cells.csv").read_text().splitlines()
     assert [line.split(",")[0] for line in cells[1:]] == ['"\'+cell.nix"', '"\'=cell.nix"']
     assert all(line.split(",")[2].startswith("-") for line in cells[1:])  # numbers as they are
@@ -377,17 +379,15 @@ def test_names_like_formulas_are_escaped_and_matched_by_check(tmp_path):
     record = json.loads((out / "run.json").read_text())
     assert {i["file"] for i in record["inputs"]} == {"=cell.nix", "+cell.nix", "@broken.nix"}
     (folder / "@broken.nix").unlink()
-    second = subprocess.run(run + ["measure", str(folder), "--out", str(out), "--jobs", "1",
-                                   "--no-figures"], capture_output=True, text=True)
-    assert second.returncode == 0, second.stderr
+    second = CliRunner().invoke(main, ["measure", str(folder), "--out", str(out), "--jobs", "1",
+                                       "--no-figures"])
+    assert second.exit_code == 0, second.output
     # without a project file, the accepted results are ./accepted
-    accept = subprocess.run(run + ["accept", str(out)], capture_output=True, text=True,
-                            cwd=tmp_path)
-    assert accept.returncode == 0, accept.stderr
+    accept = CliRunner().invoke(main, ["accept", str(out)])
+    assert accept.exit_code == 0, accept.output
     assert "'=cell.nix" in (accepted / "cells.csv").read_text()
-    check = subprocess.run(run + ["check", str(out), "--json"], capture_output=True,
-                           text=True, cwd=tmp_path)
-    assert check.returncode == 0, check.stdout + check.stderr
+    check = CliRunner().invoke(main, ["check", str(out), "--json"])
+    assert check.exit_code == 0, check.output
     # the tables' names read back as run.json has them: every file measured and compared
     cases = json.loads(check.stdout)["cases"]
     assert {c["file"] for c in cases} == {"=cell.nix", "+cell.nix"}
