@@ -26,7 +26,8 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--files", type=int, default=200)
     args = parser.parse_args()
-    from spikemeasure.reading import find_recordings, read_recording
+    from spikemeasure.io import read_recording
+    from spikemeasure.run.discovery import find_recordings
     from spikemeasure.run import measure_paths
     from spikemeasure.tables import cell_summary, measure_recording
 

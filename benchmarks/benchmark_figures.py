@@ -94,7 +94,7 @@ def main() -> None:
     parser.add_argument("--sweep-s", type=float, default=1.0)
     parser.add_argument("--repeats", type=int, default=3)
     args = parser.parse_args()
-    from spikemeasure.reading import read_recording
+    from spikemeasure.io import read_recording
     from spikemeasure.tables import cell_summary, measure_recording
 
     with tempfile.TemporaryDirectory() as tmp:

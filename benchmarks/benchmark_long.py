@@ -96,7 +96,7 @@ def _child(kind: str, path: str, out: str) -> None:
     import resource
 
     from spikemeasure.measurement import PIECE_SAMPLES
-    from spikemeasure.reading import read_recording
+    from spikemeasure.io import read_recording
     from spikemeasure.run import measure_paths
 
     imported_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024

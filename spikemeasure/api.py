@@ -18,7 +18,7 @@ from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, Column
 from .detection import DetectionSettings
 from .errors import InvalidSettingError
 from .measurement import measure_trace as _measure_spikes_of_trace
-from .reading import Recording, read_recording
+from .io import Recording, read_recording
 from .tables import cell_summary, cell_table, measure_recording, spike_table, sweep_table
 
 __all__ = ["Table", "Results", "measure", "measure_trace", "read_recording"]

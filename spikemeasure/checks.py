@@ -767,7 +767,8 @@ def accepted_folder_problem(accepted_dir: str | os.PathLike, results_dir: str | 
     files that are not the run's recordings are taken for notes); or holds a file named like an accepted file that is not one (a
     folder or symlink, or tables without the run.json ``accept`` writes).
     """
-    from .reading import TEXT_SUFFIXES, find_recordings
+    from .io import TEXT_SUFFIXES
+    from .run.discovery import find_recordings
 
     given = Path(accepted_dir)
     target = given.resolve()

@@ -118,7 +118,7 @@ class RunParameters:
         The project file the values came from, or None when none was used.
     max_sweep_samples : int or None
         Sweeps declaring more samples are refused before they are read; None: the reader's
-        default (:data:`spikemeasure.reading.DEFAULT_MAX_SWEEP_SAMPLES`).
+        default (:data:`spikemeasure.io.DEFAULT_MAX_SWEEP_SAMPLES`).
     """
 
     settings: DetectionSettings

@@ -38,7 +38,7 @@ from .cell_features import CellFeatures, passive_sweeps
 from .detection import DetectionSettings, smoothed_trace
 from .errors import SpikemeasureError, printable_name
 from .output import write_bytes_atomic
-from .reading import Recording
+from .io import Recording
 from .sweeps import MIN_SAMPLING_RATE_HZ
 from .tables import SweepResult, cell_summary
 

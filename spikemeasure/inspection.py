@@ -6,7 +6,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from .detection import DetectionSettings
-from .reading import Recording, read_recording
+from .io import Recording, read_recording
 from .cell_features import CELL_FLAG_TEXT
 from .tables import SweepResult, cell_summary, measure_recording
 

@@ -2,7 +2,7 @@
 
 A :class:`Sweep` holds the membrane voltage in mV, the command current in pA (or ``None`` when
 the file has no command channel), the sampling rate in Hz and where it came from. Nothing here
-knows about file formats; :mod:`spikemeasure.reading` builds sweeps from files.
+knows about file formats; :mod:`spikemeasure.io` builds sweeps from files.
 """
 from __future__ import annotations
 

@@ -15,7 +15,7 @@ from .detection import DetectionSettings, detect_spikes, smoothed_trace
 from .errors import InvalidSettingError, SpikemeasureError, UnmeasurableDataError
 from .measurement import (PIECE_SAMPLES, SpikeMeasurements, measure_around_gaps,
                           measure_in_pieces_with_gaps, measure_spikes)
-from .reading import Recording
+from .io import Recording
 from .sweep_features import SweepFeatures, sweep_features
 from .sweeps import (CurrentStep, Sweep, check_sweep, missing_stretches, protocol_steps,
                      spikes_measurable, stretches_text)

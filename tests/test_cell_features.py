@@ -8,7 +8,7 @@ from click.testing import CliRunner
 from conftest import step_command, write_nix
 from spikemeasure.cell_features import fit_membrane_tau, rheobase
 from spikemeasure.cli import main
-from spikemeasure.reading import Recording, read_recording
+from spikemeasure.io import Recording, read_recording
 from spikemeasure.testing import simulate_current_steps
 from spikemeasure.sweeps import Sweep, protocol_steps
 from spikemeasure.tables import (cell_summary, cell_table, format_rows, measure_recording,

@@ -16,7 +16,7 @@ from spikemeasure import figures
 from test_cell_features import rc_recording  # the analytic RC membrane
 from spikemeasure.cli import main
 from spikemeasure.detection import DetectionSettings
-from spikemeasure.reading import read_recording
+from spikemeasure.io import read_recording
 from spikemeasure.run import measure_paths
 from spikemeasure.tables import cell_summary, measure_recording, spike_table, sweep_table
 

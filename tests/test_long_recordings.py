@@ -16,7 +16,8 @@ import numpy as np
 import pytest
 from scipy.ndimage import gaussian_filter1d
 
-from spikemeasure import measurement, reading
+from spikemeasure import measurement
+from spikemeasure.io import limits, read_recording
 from spikemeasure.detection import DetectionSettings
 from spikemeasure.errors import InvalidSettingError, UnreadableInputError
 from spikemeasure.measurement import (SpikeMeasurements, measure_in_pieces, measure_trace,
@@ -184,7 +185,7 @@ def _rows(path):
 @pytest.fixture()
 def small_pieces(monkeypatch):
     """Make 'long' mean more than 60,000 samples and pieces 40,000, so a 4 s file is long."""
-    monkeypatch.setattr(reading, "LONG_SWEEP_SAMPLES", 60_000)
+    monkeypatch.setattr(limits, "LONG_SWEEP_SAMPLES", 60_000)
     monkeypatch.setattr(measurement, "PIECE_SAMPLES", 40_000)
 
 
@@ -199,12 +200,12 @@ def test_a_long_file_read_in_pieces_gives_the_spikes_of_a_whole_read(
 
     whole = measure_paths([str(folder)], tmp_path / "whole", jobs=1)
     assert whole.files_failed == 0
-    with reading.read_recording(folder / f"gap_free{suffix}") as rec:
+    with read_recording(folder / f"gap_free{suffix}") as rec:
         assert not rec.sweeps[0].is_lazy
 
-    monkeypatch.setattr(reading, "LONG_SWEEP_SAMPLES", 60_000)
+    monkeypatch.setattr(limits, "LONG_SWEEP_SAMPLES", 60_000)
     monkeypatch.setattr(measurement, "PIECE_SAMPLES", 40_000)
-    with reading.read_recording(folder / f"gap_free{suffix}") as rec:
+    with read_recording(folder / f"gap_free{suffix}") as rec:
         assert rec.sweeps[0].is_lazy and rec.sweeps[0].command_pa is None
     pieces = measure_paths([str(folder)], tmp_path / "pieces", jobs=1)
     assert pieces.files_failed == 0
@@ -217,7 +218,7 @@ def test_a_long_sweep_whose_command_steps_is_read_whole(tmp_path, gap_free, smal
     command = np.zeros(gap_free.size)
     command[20_000:60_000] = 50.0
     path = write_nwb(tmp_path / "stepped.nwb", [(gap_free, command)], rate_hz=RATE_HZ)
-    with reading.read_recording(path) as rec:
+    with read_recording(path) as rec:
         sweep = rec.sweeps[0]
         assert not sweep.is_lazy and sweep.command_pa is not None
         assert isinstance(sweep.voltage_mv, np.ndarray)
@@ -225,7 +226,7 @@ def test_a_long_sweep_whose_command_steps_is_read_whole(tmp_path, gap_free, smal
 
 def test_the_documented_sizes_hold():
     """docs/measurements.md says sweeps over twice the piece size are read in pieces."""
-    assert reading.LONG_SWEEP_SAMPLES == 2 * measurement.PIECE_SAMPLES
+    assert limits.LONG_SWEEP_SAMPLES == 2 * measurement.PIECE_SAMPLES
 
 
 def test_a_piece_that_cannot_be_read_names_the_file_and_sweep(tmp_path, gap_free, small_pieces,
@@ -283,7 +284,7 @@ def test_a_long_response_with_a_shorter_stimulus(tmp_path, gap_free, small_piece
     short_stimulus = np.zeros(gap_free.size // 2)
     path = write_nwb(tmp_path / "short_stimulus.nwb", [(gap_free, short_stimulus)],
                      rate_hz=RATE_HZ)
-    with reading.read_recording(path, shown_as="short_stimulus.nwb") as rec:
+    with read_recording(path, shown_as="short_stimulus.nwb") as rec:
         sweep, = rec.sweeps
         assert sweep.is_lazy and sweep.command_pa is None
         assert rec.problems == [
@@ -304,7 +305,7 @@ def test_a_long_stimulus_that_starts_earlier_is_cut_to_the_response(tmp_path, ga
     stimulus[lead + 20_000:lead + 60_000] = 50.0
     path = write_nwb(tmp_path / "early.nwb", [(gap_free, stimulus)], rate_hz=RATE_HZ,
                      stimulus_offset_s=-0.5)
-    with reading.read_recording(path) as rec:
+    with read_recording(path) as rec:
         sweep, = rec.sweeps
         assert rec.problems == []
         assert not sweep.is_lazy
@@ -321,7 +322,7 @@ def test_a_short_response_in_a_long_stimulus_gets_its_part(tmp_path, gap_free, s
     response = gap_free[:int(RATE_HZ)]
     path = write_nwb(tmp_path / "inside.nwb", [(response, stimulus)], rate_hz=RATE_HZ,
                      stimulus_offset_s=-1.0)
-    with reading.read_recording(path) as rec:
+    with read_recording(path) as rec:
         sweep, = rec.sweeps
         assert rec.problems == [] and not sweep.is_lazy
         assert isinstance(sweep.command_pa, np.ndarray)
@@ -352,7 +353,7 @@ def test_a_sweep_declaring_ten_billion_samples_is_refused_unread(tmp_path, no_sa
     path = write_nwb_huge_declared(tmp_path / "huge.nwb")
     assert path.stat().st_size < 1_000_000
     with pytest.raises(UnreadableInputError) as caught:
-        reading.read_recording(path, shown_as="huge.nwb")
+        read_recording(path, shown_as="huge.nwb")
     message = str(caught.value)
     assert message.startswith("huge.nwb, sweep 0, series voltage_0 (sweep_number 0): the file "
                               "declares 10,000,000,000 samples for this sweep, more than "
@@ -378,7 +379,7 @@ def test_a_nix_sweep_declaring_ten_billion_samples_is_refused_the_other_kept(tmp
         return real_load(self, *args, **kwargs)
 
     monkeypatch.setattr(AnalogSignalProxy, "load", load_small_only)
-    with reading.read_recording(path, shown_as="huge.nix") as rec:
+    with read_recording(path, shown_as="huge.nix") as rec:
         (kept,) = [s.index for s in rec.sweeps]  # which segment the huge array is in varies
         assert rec.problems == [
             f"huge.nix, sweep {1 - kept}: the file declares 10,000,000,000 samples for this "
@@ -399,14 +400,14 @@ def test_the_limit_is_a_run_parameter(tmp_path):
     folder = tmp_path / "in"
     folder.mkdir()
     write_nix(folder / "cell.nix", short, rate_hz=RATE_HZ)
-    with reading.read_recording(folder / "cell.nix", max_sweep_samples=2000) as rec:
+    with read_recording(folder / "cell.nix", max_sweep_samples=2000) as rec:
         assert len(rec.sweeps) == 1
     with pytest.raises(UnreadableInputError,
                        match=r"cell\.nix, sweep 0: the file declares 2,000 samples for this "
                              r"sweep, more than max_sweep_samples \(1,999\)"):
-        reading.read_recording(folder / "cell.nix", shown_as="cell.nix", max_sweep_samples=1999)
+        read_recording(folder / "cell.nix", shown_as="cell.nix", max_sweep_samples=1999)
     with pytest.raises(InvalidSettingError, match="max_sweep_samples"):
-        reading.read_recording(folder / "cell.nix", max_sweep_samples=0)
+        read_recording(folder / "cell.nix", max_sweep_samples=0)
     with pytest.raises(InvalidSettingError, match="max_sweep_samples"):
         measure_paths([str(folder)], tmp_path / "none", max_sweep_samples=2.5)
     assert not (tmp_path / "none").exists()
@@ -444,13 +445,13 @@ def test_the_project_file_limit_is_checked(tmp_path, line):
 def test_a_sweep_larger_than_the_memory_available_is_not_read_whole(tmp_path, monkeypatch):
     """The declared size as float64 against the memory available (here said to be 1 kB):
     a 2,000-sample sweep (16 kB) read whole is refused before it is read."""
-    monkeypatch.setattr(reading, "_available_memory_bytes", lambda: 1000, raising=False)
+    monkeypatch.setattr(limits, "available_memory_bytes", lambda: 1000)
     for writer, name in ((write_nwb, "cell.nwb"), (write_nix, "cell.nix")):
         path = writer(tmp_path / name, [(np.full(2000, -70.0), np.zeros(2000))],
                       rate_hz=RATE_HZ)
         with pytest.raises(UnreadableInputError, match=r"GiB of memory available; it was not "
                                                        r"read"):
-            reading.read_recording(path)
+            read_recording(path)
 
 
 def test_lazy_sweep_with_a_gap_gets_the_same_spikes_and_flags_as_whole(gap_free):

@@ -1,5 +1,6 @@
-"""The ``measure`` job: plan, execute and record a run over files and folders
-(see :mod:`spikemeasure.run.runner`)."""
+"""Running measurements over many recordings: the ``measure`` job, planned, executed and
+recorded (see :mod:`spikemeasure.run.runner`); file discovery in
+:mod:`spikemeasure.run.discovery`."""
 from .cache import CACHE_FOLDER, OutcomeCache, file_sha256
 from .execute import STOP_SIGNALS, RunStopped
 from .folder import (CELLS_FILE, ERRORS_FILE, OWN_OUTPUTS, REPORT_FILE, RUN_RECORD_FILE,

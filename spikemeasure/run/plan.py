@@ -7,8 +7,9 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from ..errors import printable_name
-from ..reading import TEXT_SUFFIXES, search_recordings
+from ..io import TEXT_SUFFIXES
 from .cache import OutcomeCache, file_sha256
+from .discovery import search_recordings
 from .execute import StopRequest, Task
 from .outcome import FileOutcome, failure
 from .task import figures_present

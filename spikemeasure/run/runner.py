@@ -76,7 +76,7 @@ def measure_paths(paths: list[str], out_dir: str | Path,
     ----------
     paths : list of str
         Files and folders (searched recursively; see
-        :func:`~spikemeasure.reading.search_recordings`: how files are named, each once;
+        :func:`~spikemeasure.run.discovery.search_recordings`: how files are named, each once;
         folders that cannot be searched and links not followed are failures of stage
         ``input``, files reached twice a note).
     out_dir : str or Path
@@ -90,7 +90,7 @@ def measure_paths(paths: list[str], out_dir: str | Path,
         For text files without a time column.
     max_sweep_samples : int, optional
         Sweeps declaring more samples are refused before they are read (default
-        :data:`spikemeasure.reading.DEFAULT_MAX_SWEEP_SAMPLES`).
+        :data:`spikemeasure.io.DEFAULT_MAX_SWEEP_SAMPLES`).
     jobs : int, optional
         Processes to measure files in (1: this process).
     force : bool, optional

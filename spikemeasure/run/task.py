@@ -12,7 +12,7 @@ from typing import Callable
 from ..columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS
 from ..detection import DetectionSettings
 from ..errors import InvalidSettingError, SpikemeasureError
-from ..reading import read_recording
+from ..io import read_recording
 from ..tables import (cell_summary, cell_table, count_spikes, flag_counts, measure_recording,
                       spike_table, sweep_table)
 from .outcome import ColumnTable, FileOutcome, failure, internal_error_outcome

@@ -608,7 +608,7 @@ def test_measuring_can_be_cancelled_between_sweeps_and_pieces():
     its exception stops the work there."""
     from conftest import GaussianSpike
     from spikemeasure.measurement import measure_in_pieces
-    from spikemeasure.reading import Recording
+    from spikemeasure.io import Recording
     from spikemeasure.sweeps import Sweep
     from spikemeasure.tables import measure_recording
 

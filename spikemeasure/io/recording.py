@@ -1,0 +1,53 @@
+"""What reading a file gives: its sweeps, its channels and the parts that were skipped."""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+from ..sweeps import Sweep
+
+__all__ = ["ChannelInfo", "Recording"]
+
+
+@dataclass(frozen=True)
+class ChannelInfo:
+    """A channel as the file declares it, and the role spikemeasure gave it."""
+
+    name: str
+    units: str
+    role: str  # "voltage", "command", or "ignored"
+
+
+@dataclass(frozen=True)
+class Recording:
+    """The sweeps of one file and what the file said about itself.
+
+    Attributes
+    ----------
+    path : str
+        The path as given.
+    format : str
+        Which reader read it.
+    sweeps : list of Sweep
+    channels : list of ChannelInfo
+        Channels of the first sweep.
+    problems : list of str
+        Parts of the file that were skipped, each naming the sweep and why.
+    """
+
+    path: str
+    format: str
+    sweeps: list[Sweep]
+    channels: list[ChannelInfo] = field(default_factory=list)
+    problems: list[str] = field(default_factory=list)
+    release: object = field(default=None, compare=False, repr=False)
+
+    def close(self) -> None:
+        """Close the file that long sweeps (:attr:`Sweep.is_lazy`) are read from."""
+        if callable(self.release):
+            self.release()
+
+    def __enter__(self) -> "Recording":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
