@@ -122,7 +122,8 @@ def _run_parameters(ctx: click.Context, paths, config_path, values: dict):
 def _checked_project_file(path):
     """The [measure] values and the check settings of a project file, every table checked:
     a bad project file is the same error in every command."""
-    from .config import load_check_settings, load_config
+    from .checks.settings import load_check_settings
+    from .config import load_config
 
     return load_config(path), load_check_settings(path)
 
@@ -361,7 +362,8 @@ def _project_option(func):
 def _check_settings(paths, config_path):
     from pathlib import Path
 
-    from .config import find_project_file, load_check_settings
+    from .checks.settings import load_check_settings
+    from .config import find_project_file
 
     path = Path(config_path) if config_path else find_project_file(list(paths))
     if path is None:
@@ -401,8 +403,9 @@ def check(ctx: click.Context, paths, out_dir, jobs, junit_path, as_json, max_row
     `spikemeasure accept`) from [regression]'s accepted_folder, with a tolerance per
     column. Exit codes: 0 all passed, 1 a check failed, 2 a usage or input error.
     """
-    from .checks import check_run, report_dict, report_text
-    from .junit import write_junit
+    from .checks.apply import check_run, check_tables
+    from .checks.findings import report_dict, report_text
+    from .checks.junit import write_junit
 
     if out_dir is None and len(paths) != 1:
         raise click.UsageError("give one folder of a run's tables, or recordings with "
@@ -437,10 +440,15 @@ def check(ctx: click.Context, paths, out_dir, jobs, junit_path, as_json, max_row
             if not quiet:
                 click.echo(f"measured {summary.files_measured + summary.files_reused} files "
                            f"({summary.files_failed} failed) -> {out_dir}", err=True)
-            results = out_dir
+            from .checks.run_tables import tables_from_columns
+
+            # the run's typed tables, as in memory: nothing is read back from its folder
+            report = check_tables(tables_from_columns(
+                out_dir, summary.tables["spikes"].values, summary.tables["sweeps"].values,
+                summary.tables["cells"].values, errors=summary.error_columns,
+                record=summary.record), settings)
         else:
-            results = paths[0]
-        report = check_run(results, settings)
+            report = check_run(paths[0], settings)
         if junit_path:
             write_junit(junit_path, report)
     except SpikemeasureError as exc:
@@ -474,7 +482,7 @@ def accept(ctx: click.Context, results_dir, config_path):
     """
     from pathlib import Path
 
-    from .checks import accept_results
+    from .checks.accept import accept_results
 
     try:
         project, settings = _check_settings([results_dir], config_path)

@@ -21,9 +21,11 @@ import pytest
 from click.testing import CliRunner
 
 from conftest import ACCEPTED, MEASURED_SETS
-from spikemeasure.checks import check_run, read_tables, report_text
+from spikemeasure.checks.apply import check_run
+from spikemeasure.checks.findings import report_text
+from spikemeasure.checks.run_tables import read_tables
+from spikemeasure.checks.settings import CheckSettings
 from spikemeasure.cli import main
-from spikemeasure.config import CheckSettings
 
 SETS = sorted(MEASURED_SETS)
 
@@ -45,8 +47,8 @@ def test_tables_equal_the_accepted_ones(measured_runs, name):
     report = check_run(measured_runs[name], regression_only(accepted_dir))
     assert report.passed and not report.findings, report_text(report)
     assert not unexpected_notes(report.notes), report.notes
-    accepted_files = {row["file"] for row in read_tables(accepted_dir, "accepted results")
-                      .table("cells.csv")}
+    accepted_files = set(read_tables(accepted_dir, "accepted results").table("cells.csv")
+                         ["file"])
     compared = {c.file for c in report.cases if c.check == "regression"}
     assert accepted_files and compared == accepted_files
 

@@ -57,7 +57,7 @@ def test_out_holding_files_this_tool_did_not_write_is_refused(tmp_path, foreign)
 def test_out_holding_accepted_results_is_refused_and_a_results_folder_is_reused(tmp_path):
     """The folder of an earlier run is written again (its run.json is this tool's); a folder
     of accepted results is not a place for a run."""
-    from spikemeasure.checks import accept_results
+    from spikemeasure.checks.accept import accept_results
     from spikemeasure.errors import UnusableOutputError
 
     cell = _one_cell(tmp_path)

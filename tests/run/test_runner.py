@@ -721,3 +721,38 @@ def test_a_bug_in_drawing_keeps_the_files_tables(few_cells, tmp_path, monkeypatc
     entry = {i["file"]: i for i in record["inputs"]}["cell_02.nix"]
     assert "a drawing bug" in entry["traceback"]
     assert (out / "figures" / "cell_03.nix").is_dir()
+
+
+def test_check_after_measuring_checks_the_tables_in_memory(few_cells, tmp_path, monkeypatch):
+    """`check --out` checks the run's typed tables as the run holds them, without reading its
+    CSV files back; the source of truth is `check` of the same folder afterwards, which reads
+    them with the csv module: the same cases, the same verdicts."""
+    from click.testing import CliRunner
+
+    from spikemeasure.checks import apply
+    from spikemeasure.cli import main
+
+    monkeypatch.chdir(tmp_path)
+    # accepted results (./accepted, without a project file) from a first run: the check
+    # compares with them as well as applying the quality limits
+    first = CliRunner().invoke(main, ["measure", str(few_cells), "--out", "first", "--jobs", "1",
+                                      "--no-figures"])
+    assert first.exit_code == 0, first.output
+    assert CliRunner().invoke(main, ["accept", "first"]).exit_code == 0
+    out = tmp_path / "res"
+    read = []
+    original = apply.read_tables
+
+    def watched(folder, *args, **kwargs):
+        read.append(Path(folder).resolve())
+        return original(folder, *args, **kwargs)
+
+    monkeypatch.setattr(apply, "read_tables", watched)
+    measured = CliRunner().invoke(main, ["check", str(few_cells), "--out", str(out), "--json",
+                                         "--quiet", "--jobs", "1"])
+    assert out.resolve() not in read
+    again = CliRunner().invoke(main, ["check", str(out), "--json"])
+    assert out.resolve() in read
+    assert measured.exit_code == again.exit_code, measured.output
+    cases = json.loads(measured.stdout)["cases"]
+    assert cases and cases == json.loads(again.stdout)["cases"]

@@ -1,16 +1,22 @@
-"""The quality limits a project file may set under ``[quality]``, each declared once.
+"""The keys of the project file's check tables: each ``[quality]`` limit declared once, and
+the keys of ``[regression]``.
 
-A rule carries its key, the kind of limit it takes (validated by :mod:`spikemeasure.config`),
-an example value for messages, the table and column it reads, and when a value passes; the
-project-file validation, ``spikemeasure check`` (:mod:`spikemeasure.checks`) and the table in
-docs/ci.md (:func:`quality_rules_markdown`) all read :data:`QUALITY_RULES`.
+A rule carries its key, the kind of limit it takes (validated by
+:mod:`spikemeasure.checks.settings`), an example value for messages, the table and column it
+reads, and when a value passes; the project-file validation, ``spikemeasure check``
+(:mod:`spikemeasure.checks.limits`) and the table in docs/ci.md
+(:func:`quality_rules_markdown`) all read :data:`QUALITY_RULES`.
+
+This module imports nothing else of spikemeasure, so that the reading of the project file
+(:mod:`spikemeasure.config`) can name every key of every table it may hold.
 """
 from __future__ import annotations
 
 from dataclasses import dataclass
 from typing import Callable
 
-__all__ = ["QualityRule", "QUALITY_RULES", "LIMIT_KINDS", "quality_rules_markdown"]
+__all__ = ["QualityRule", "QUALITY_RULES", "QUALITY_KEYS", "REGRESSION_KEYS", "LIMIT_KINDS",
+           "quality_rules_markdown"]
 
 #: Kinds of limit: a positive number, a whole number 0 or more, a [low, high] pair, any number.
 LIMIT_KINDS = ("positive", "count", "range", "number")
@@ -38,6 +44,14 @@ class QualityRule:
         What the rule requires, for the docs (Markdown).
     test : callable
         (value, limit) -> True when the value passes.
+    judges_highest : bool, optional
+        True: the rule judges the file's highest measured value of the column; False (the
+        default): each row of the table.
+    failure_text : str, optional
+        What failed, for messages (``{column}``, ``{text}`` (the cell as written), ``{value}``
+        and ``{limit}`` are filled in).
+    missing_text : str, optional
+        What failed when there is no value to judge, for messages (``{column}`` is filled in).
     """
 
     key: str
@@ -48,6 +62,9 @@ class QualityRule:
     text: str
     passes_when: str
     test: Callable[[float, object], bool]
+    judges_highest: bool = False
+    failure_text: str = "{column} = {text}"
+    missing_text: str = "{column} is empty (not measured), so the limit cannot be checked"
 
     def __post_init__(self) -> None:
         if self.kind not in LIMIT_KINDS:
@@ -84,8 +101,17 @@ QUALITY_RULES: tuple[QualityRule, ...] = (
     QualityRule("min_highest_peak_mv", "number", "0.0", "spikes.csv", "peak_mv",
                 "at least one spike peaking at {limit} mV or above",
                 "at least one spike's `peak_mv` reaches the limit (0 mV: an overshooting spike)",
-                lambda v, lim: v >= lim),
+                lambda v, lim: v >= lim, judges_highest=True,
+                failure_text="highest spike peak {value:g} mV is below {limit} mV",
+                missing_text="no spike with a measured peak in the file"),
 )
+
+#: Keys of ``[quality]``, each with the kind of limit it takes (from :data:`QUALITY_RULES`).
+QUALITY_KEYS: dict[str, str] = {rule.key: rule.kind for rule in QUALITY_RULES}
+
+#: Keys of ``[regression]``.
+REGRESSION_KEYS: tuple[str, ...] = ("enabled", "accepted_folder", "allow_new_files",
+                                    "default_tolerance", "tolerances")
 
 
 def quality_rules_markdown() -> str:

@@ -18,9 +18,9 @@ import time
 import xml.etree.ElementTree as ET
 from pathlib import Path
 
-from . import __version__
-from .checks import CheckReport
-from .output import write_text_atomic
+from .. import __version__
+from ..output import write_text_atomic
+from .findings import CheckReport
 
 __all__ = ["junit_xml", "write_junit"]
 
