@@ -1,4 +1,5 @@
-"""Time to draw a cell's figures, as a ratio to the time to measure the same cell, in one run.
+"""Time to draw a cell's figures, as a ratio to the time to read and measure the same cell, in
+one run.
 
 Usage:  python benchmarks/benchmark_figures.py [--cells 6] [--sweeps 30] [--sweep-s 1.0]
                                                [--repeats 3]
@@ -9,20 +10,22 @@ Usage:  python benchmarks/benchmark_figures.py [--cells 6] [--sweeps 30] [--swee
    each file with its own 0.2 mV of measurement noise. Consecutive cells therefore differ in
    their values, their step range (colour bar, f-I axes) and their file name (titles), as the
    cells of a folder do.
-2. Baseline: measuring each cell as a run's per-file task does without figures: read the
-   file, measure every sweep, summarize the cell (read_recording, measure_recording,
-   cell_summary); best of `--repeats` per cell, averaged over the cells.
-3. Figures in a worker that has drawn cells before (the usual case in a run): every cell's
-   write_cell_figures once, one after the other, under names not drawn before in the process,
-   so no title is already rendered; the best of `--repeats` such rounds, per cell, in PNG, SVG
-   and PDF.
+2. Baseline: reading and measuring each cell as a run's per-file task does without figures:
+   read the file, measure every sweep, summarize the cell (read_recording,
+   measure_recording, cell_summary).
+3. Figures in a warm worker (one that has drawn cells before, the usual case in a run): every
+   cell's write_cell_figures, under names not drawn before, in PNG, SVG and PDF.
 4. Figures of the first cell a worker draws: the kept figures and the rendered texts
    forgotten before each cell (the matplotlib import excluded, reported on its own).
-5. For comparison, the same figures drawn the plain way: new figures on matplotlib's own Agg
-   canvas, written by savefig through Pillow (at its fastest PNG setting), as spikemeasure
-   did before it kept figures and rendered texts.
+5. The same as 3 in PNG on matplotlib's plain Agg canvas (spikemeasure.figures.common.CACHE_TEXT
+   false), its own figures kept: what rendering each distinct text once saves.
 6. The floor matplotlib sets: the warm figures drawn again with every line and collection
-   hidden (axes, ticks, labels, legends and titles only) and encoded as PNG.
+   hidden (axes, ticks, labels, legends and titles only) and saved as PNG.
+Each is timed by the wall clock (time.perf_counter) and by the processor time of this process
+(time.process_time, which another job sharing the cores moves much less), in `--repeats`
+rounds, a round taking the cells in turn and each cell through 2 to 6 before the next, so
+that a change of the machine's load touches the baseline and the figures alike; best of the
+rounds per cell, averaged over the cells.
 Prints JSON and writes it to benchmarks/output/benchmark_figures.json.
 """
 from __future__ import annotations
@@ -40,6 +43,11 @@ import numpy as np
 
 RATE_HZ = 50_000.0
 PROTOCOLS = ((-100.0, 20.0), (-150.0, 25.0))  # first step and increment, pA
+
+
+def clock() -> np.ndarray:
+    """(wall, processor) seconds: time.perf_counter and time.process_time."""
+    return np.array([time.perf_counter(), time.process_time()])
 
 
 def simulate(sweeps: int, sweep_s: float, first_pa: float, step_pa: float):
@@ -78,15 +86,6 @@ def write_cell(path: Path, voltage_mv: np.ndarray, command_pa: np.ndarray) -> No
             io.write(nwb)
 
 
-def best(fn, repeats: int) -> float:
-    times = []
-    for _ in range(repeats):
-        start = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - start)
-    return min(times)
-
-
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--cells", type=int, default=6)
@@ -110,94 +109,91 @@ def main() -> None:
 
         measured = {}
 
-        def measure(path: Path):
+        def measure(path: Path) -> np.ndarray:
+            start = clock()
             recording = read_recording(path, shown_as=path.name)
             results = measure_recording(recording)
             measured[path] = (recording, results, cell_summary(results))
+            return clock() - start
 
         for path in paths:
             measure(path)  # warm: imports, file cache
-        t_measure = float(np.mean([best(lambda: measure(p), args.repeats) for p in paths]))
         spikes = float(np.mean([sum(len(r.spikes) for r in results if r.spikes is not None)
                                 for _, results, _ in measured.values()]))
 
         start = time.perf_counter()
-        from spikemeasure import figure_canvas, figures
+        from matplotlib.figure import Figure  # the import cost, reported on its own
+
+        from spikemeasure import figures
+        from spikemeasure.figures import cell as cell_figures_module
+        from spikemeasure.figures import common, text_cache
 
         t_import = time.perf_counter() - start
-        rounds = iter(range(10 ** 6))
+        del Figure
+        kept = cell_figures_module._kept_for_this_thread()
+        kept_plain: dict = {}
 
-        def per_cell(draw) -> float:
-            """Mean seconds per cell of `draw(name, recording, results, cell)` (which returns
-            the seconds it timed) over one round of all cells, each under a name not drawn
-            before, so no title is already rendered."""
-            r = next(rounds)
-            times = []
+        def figures_of(path: Path, name: str, how: str) -> np.ndarray:
+            """Seconds (wall, processor) to write the cell's figures `how`, under a title not
+            drawn before."""
+            recording, results, cell = measured[path]
+            recording = dataclasses.replace(recording, path=name)
+            folder = tmp / "figures" / how / name
+            if how == "first_png":  # a worker's first cell: no figure kept, no text rendered
+                kept.clear()
+                text_cache.clear_text_cache()
+            if how == "plain_png":  # the same, drawn and saved on matplotlib's plain canvas
+                start = clock()
+                common.CACHE_TEXT = False
+                try:
+                    drawn = figures.cell_figures(results, cell, name=name, reuse=kept_plain)
+                finally:
+                    common.CACHE_TEXT = True
+                for stem, fig in drawn.items():
+                    common.save_figure(fig, folder / f"{stem}.png", "png")
+                return clock() - start
+            if how == "decorations_png":  # axes, ticks, labels, legends and titles only
+                drawn = figures.cell_figures(results, cell, name=name, reuse=kept)
+                for fig in drawn.values():
+                    for ax in fig.axes:
+                        for artist in [*ax.lines, *ax.collections]:
+                            artist.set_visible(False)
+                start = clock()
+                for stem, fig in drawn.items():
+                    common.save_figure(fig, folder / f"{stem}.png", "png")
+                return clock() - start
+            start = clock()
+            figures.write_cell_figures(recording, results, folder, how.split("_")[-1],
+                                       cell=cell)
+            return clock() - start
+
+        kinds = ("png", "svg", "pdf", "first_png", "plain_png", "decorations_png")
+        for path in paths:  # warm up matplotlib itself (fonts, first draws) and both canvases
+            figures_of(path, f"warm/{path.name}", "png")
+            figures_of(path, f"warm/{path.name}", "plain_png")
+        # rounds: each cell read and measured, then drawn every way, in turn, so that a change
+        # of the machine's load touches the baseline and the figures alike
+        times = {kind: {p: [] for p in paths} for kind in ("measure",) + kinds}
+        for r in range(args.repeats):
             for path in paths:
-                recording, results, cell = measured[path]
-                name = f"round_{r}/{path.name}"
-                times.append(draw(name, dataclasses.replace(recording, path=name), results,
-                                  cell))
-            return float(np.mean(times))
-
-        def best_round(draw) -> float:
-            return min(per_cell(draw) for _ in range(args.repeats))
-
-        def written(fmt: str, cold: bool):
-            def draw(name, recording, results, cell):
-                if cold:  # a worker's first cell: nothing kept, no text rendered
-                    figure_canvas.clear_text_cache()
-                    figures._kept_for_this_thread().clear()
-                start = time.perf_counter()
-                figures.write_cell_figures(recording, results, tmp / "figures" / name, fmt,
-                                           cell=cell)
-                return time.perf_counter() - start
-            return draw
-
-        def plain(name, recording, results, cell):
-            import io
-
-            from matplotlib.backends.backend_agg import FigureCanvasAgg
-
-            start = time.perf_counter()
-            for fig in figures.cell_figures(results, cell, name=name).values():
-                FigureCanvasAgg(fig)
-                fig.savefig(io.BytesIO(), format="png", dpi=figures.DPI,
-                            pil_kwargs={"compress_level": 1})
-            return time.perf_counter() - start
-
-        def decorations_only(name, recording, results, cell):
-            drawn = figures.cell_figures(results, cell, name=name,
-                                         reuse=figures._kept_for_this_thread())
-            for fig in drawn.values():
-                for ax in fig.axes:
-                    for artist in [*ax.lines, *ax.collections]:
-                        artist.set_visible(False)
-            start = time.perf_counter()
-            for fig in drawn.values():
-                fig.canvas.draw()
-                figure_canvas.png_bytes(np.asarray(fig.canvas.buffer_rgba()), dpi=figures.DPI)
-            return time.perf_counter() - start
-
-        per_cell(written("png", cold=True))  # warm up matplotlib itself (fonts, first draws)
-        t_warm = {fmt: best_round(written(fmt, cold=False)) for fmt in ("png", "svg", "pdf")}
-        t_cold = {"png": best_round(written("png", cold=True))}
-        t_plain = best_round(plain)
-        t_floor = best_round(decorations_only)
-    result = {
-        "cells": args.cells, "sweeps": args.sweeps, "sweep_s": args.sweep_s,
-        "samples_per_cell": samples, "mean_spikes_per_cell": round(spikes, 1),
-        "measure_s_per_cell": round(t_measure, 3),
-        "figures_s_per_cell": {fmt: round(t, 3) for fmt, t in t_warm.items()},
-        "ratio_to_measure": {fmt: round(t / t_measure, 3) for fmt, t in t_warm.items()},
-        "first_cell_of_a_worker_png_s": round(t_cold["png"], 3),
-        "first_cell_ratio_to_measure": round(t_cold["png"] / t_measure, 3),
-        "matplotlib_import_s": round(t_import, 3),
-        "plain_matplotlib_png_s_per_cell": round(t_plain, 3),
-        "speedup_over_plain_png": round(t_plain / t_warm["png"], 2),
-        "decorations_only_png_s_per_cell": round(t_floor, 3),
-        "decorations_ratio_to_measure": round(t_floor / t_measure, 3),
-    }
+                times["measure"][path].append(measure(path))
+                for kind in kinds:
+                    times[kind][path].append(figures_of(path, f"round_{r}/{path.name}", kind))
+        kept.clear()
+    # per cell the best round, by wall time and by processor time apart; mean over the cells
+    best = {kind: np.mean([np.min(np.array(t), axis=0) for t in by_path.values()], axis=0)
+            for kind, by_path in times.items()}
+    result = {"cells": args.cells, "sweeps": args.sweeps, "sweep_s": args.sweep_s,
+              "samples_per_cell": samples, "mean_spikes_per_cell": round(spikes, 1),
+              "matplotlib_import_s": round(t_import, 3)}
+    for clock_name, j in (("wall", 0), ("processor", 1)):
+        base = float(best["measure"][j])
+        result[clock_name] = {
+            "read_and_measure_s_per_cell": round(base, 3),
+            "figures_s_per_cell": {k: round(float(best[k][j]), 3) for k in kinds},
+            "ratio_to_read_and_measure": {k: round(float(best[k][j]) / base, 3) for k in kinds},
+            "text_cache_speedup": round(float(best["plain_png"][j] / best["png"][j]), 2),
+        }
     text = json.dumps(result, indent=2)
     print(text)
     target = Path(__file__).resolve().parent / "output"

@@ -9,7 +9,7 @@ from typing import Callable
 
 import numpy as np
 
-from .cell_features import CellFeatures, cell_features
+from .cell_features import CellFeatures, cell_features, rheobase
 from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, Column
 from .detection import DetectionSettings, detect_spikes, smoothed_trace
 from .errors import InvalidSettingError, SpikemeasureError, UnmeasurableDataError
@@ -22,7 +22,7 @@ from .sweeps import (CurrentStep, Sweep, check_sweep, missing_stretches, protoco
 
 __all__ = ["SweepResult", "measure_sweep", "measure_recording", "cell_summary", "spike_table",
            "sweep_table", "cell_table", "format_value", "format_rows", "count_spikes",
-           "flag_counts"]
+           "flag_counts", "first_spike_in_step", "rheobase_result"]
 
 
 @dataclass(frozen=True)
@@ -194,13 +194,10 @@ def cell_summary(results: list[SweepResult]) -> CellFeatures:
     firsts = []
     for r in measured:
         first = None
-        if r.step is not None and len(r.spikes):
-            t = _spike_times(r.spikes)
-            inside = np.flatnonzero((t >= r.step.onset_s) & (t < r.step.offset_s))
-            if inside.size:
-                k = int(inside[0])
-                first = {name: float(getattr(r.spikes, name)[k]) for name in
-                         ("threshold_mv", "amplitude_mv", "half_width_ms", "ahp_depth_mv")}
+        k = first_spike_in_step(r)
+        if k is not None:
+            first = {name: float(getattr(r.spikes, name)[k]) for name in
+                     ("threshold_mv", "amplitude_mv", "half_width_ms", "ahp_depth_mv")}
         firsts.append(first)
     return cell_features([r.features.as_dict() for r in measured],
                          [(r.sweep.voltage_mv, r.sweep.sampling_rate_hz) for r in measured],
@@ -291,3 +288,53 @@ def flag_counts(results: list[SweepResult]) -> dict[str, int]:
             for f in flags:
                 counts[f] = counts.get(f, 0) + 1
     return counts
+
+
+def first_spike_in_step(result: SweepResult) -> int | None:
+    """Position of the sweep's first spike inside its current step, or None.
+
+    Parameters
+    ----------
+    result : SweepResult
+
+    Returns
+    -------
+    int or None
+        Index into ``result.spikes`` of the first spike whose time (threshold, or peak where
+        the threshold is unknown) lies in ``[step.onset_s, step.offset_s)``: the spike whose
+        values fill the cell table's ``rheobase_*`` columns when this is the rheobase sweep.
+        None without a step, without spikes, or with none in the step.
+    """
+    if result.step is None or result.spikes is None or not len(result.spikes):
+        return None
+    t = _spike_times(result.spikes)
+    inside = np.flatnonzero((t >= result.step.onset_s) & (t < result.step.offset_s))
+    return int(inside[0]) if inside.size else None
+
+
+def rheobase_result(results: list[SweepResult], cell: CellFeatures) -> SweepResult | None:
+    """The rheobase sweep: the result the cell's ``rheobase_*`` values were taken from.
+
+    Parameters
+    ----------
+    results : list of SweepResult
+        The results `cell` was summarized from (:func:`cell_summary`).
+    cell : CellFeatures
+
+    Returns
+    -------
+    SweepResult or None
+        The measured sweep :func:`~spikemeasure.cell_features.rheobase` picks (the first of
+        the smallest step with a spike, counts flagged ``spike_count_lower_bound`` not known
+        exactly, as :func:`~spikemeasure.cell_features.cell_features` counts them); None when
+        the cell has no rheobase.
+    """
+    if not np.isfinite(cell.rheobase_pa):
+        return None
+    measured = [r for r in results if r.features is not None]
+    stimulus = np.array([r.features.stimulus_pa for r in measured], dtype=float)
+    count = np.array([r.features.spike_count for r in measured], dtype=float)
+    lower = np.array(["spike_count_lower_bound" in r.features.flags for r in measured],
+                     dtype=bool)
+    position = rheobase(stimulus, count, np.isfinite(count) & ~lower)[2]
+    return measured[position] if position >= 0 else None

@@ -1,30 +1,32 @@
-"""The drawing surface of the cell figures: matplotlib's Agg canvas with text drawn once, and
-PNG encoding.
+"""Text drawn once per process: the Agg canvas of the cell figures, with a text cache.
 
-Imported only by :mod:`spikemeasure.figures`, and only inside its functions, so that importing
-spikemeasure, or a run without figures, never imports matplotlib.
+Why this exists: nearly every text of a cell figure (tick labels, axis labels, legend entries)
+is the same in every figure of every cell, and rendering text is the largest part of drawing
+the figures after matplotlib's own layout (``docs/benchmark.md``).
+:class:`TextCachingRenderer` renders each distinct text once per process, as a small image,
+and composites that image wherever the text is drawn again. Every text goes through that
+image, the first time too, so a figure's pixels do not depend on what was drawn before.
 
-Why this exists: drawing a cell's four figures with a plain Agg canvas cost about as much as
-measuring the cell (``docs/benchmark.md``). Half of the drawing time went to text, and nearly
-all of the text is the same in every figure of every cell (tick labels, axis labels, legend
-entries). :class:`TextCachingCanvas` renders each distinct text once per process, as a small
-image, and composites that image wherever the text is drawn again. Every text goes through
-that image, the first time too, so a figure's pixels do not depend on what was drawn before.
+Built on matplotlib's public backend interface only: a renderer's ``draw_text`` and
+``draw_image``, a canvas' ``get_renderer``. A text the cache cannot take (math text, or one
+whose image would not fit the scratch area) is drawn by matplotlib's own Agg renderer, and
+:data:`spikemeasure.figures.common.CACHE_TEXT` set false draws every figure the plain way.
 Vector formats (SVG, PDF) are written by matplotlib's own canvases and are not affected.
+
+Imported only inside the functions of :mod:`spikemeasure.figures.common`, so that importing
+spikemeasure never imports matplotlib.
 """
 from __future__ import annotations
 
 import math
-import struct
 import threading
-import zlib
 
 import matplotlib as mpl
 import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg, RendererAgg
 
-__all__ = ["TextCachingCanvas", "TextCachingRenderer", "png_bytes", "clear_text_cache",
-           "TEXT_CACHE_SIZE", "TEXT_CACHE_BYTES"]
+__all__ = ["TextCachingCanvas", "TextCachingRenderer", "clear_text_cache", "TEXT_CACHE_SIZE",
+           "TEXT_CACHE_BYTES"]
 
 #: Texts kept per process, at most this many and this many bytes of images; the cache is
 #: emptied when either is reached. A cell's figures draw about a hundred texts, most of them
@@ -141,64 +143,15 @@ class TextCachingCanvas(FigureCanvasAgg):
     """A :class:`~matplotlib.backends.backend_agg.FigureCanvasAgg` drawing with
     :class:`TextCachingRenderer`."""
 
+    def __init__(self, figure=None):
+        super().__init__(figure)
+        self._caching_renderer_key = None
+
     def get_renderer(self):
-        # as FigureCanvasAgg.get_renderer, with the caching renderer
+        # as FigureCanvasAgg.get_renderer: one renderer while size and resolution stay
         w, h = self.get_width_height(physical=True)
         key = w, h, self.figure.dpi
-        if self._lastKey != key:
+        if self._caching_renderer_key != key:
             self.renderer = TextCachingRenderer(w, h, self.figure.dpi)
-            self._lastKey = key
+            self._caching_renderer_key = key
         return self.renderer
-
-
-def _chunk(tag: bytes, data: bytes) -> bytes:
-    return (struct.pack(">I", len(data)) + tag + data
-            + struct.pack(">I", zlib.crc32(tag + data) & 0xFFFFFFFF))
-
-
-def png_bytes(rgba: np.ndarray, dpi: float | None = None, level: int = 1) -> bytes:
-    """Encode an 8-bit RGBA image as PNG.
-
-    Parameters
-    ----------
-    rgba : ndarray
-        Shape (rows, columns, 4), dtype uint8, the first row the top of the image.
-    dpi : float, optional
-        Written as the image's physical pixel size (pHYs chunk, pixels per metre).
-    level : int, optional
-        zlib compression level, 0 to 9.
-
-    Returns
-    -------
-    bytes
-        A PNG file: 8-bit truecolour, with alpha only when some pixel is not opaque.
-
-    Notes
-    -----
-    Every row uses filter type 0 (none) and the image data is one zlib stream in one IDAT
-    chunk, as the PNG specification (W3C / ISO/IEC 15948) allows. At level 1 this encodes a
-    figure about twice as fast as Pillow's encoder at its fastest setting, at a similar size.
-
-    References
-    ----------
-    .. [1] Portable Network Graphics (PNG) Specification, W3C Recommendation / ISO/IEC 15948.
-    """
-    image = np.asarray(rgba)
-    if image.ndim != 3 or image.shape[2] != 4 or image.dtype != np.uint8:
-        raise ValueError("`rgba` must be a (rows, columns, 4) array of uint8")
-    if not 0 <= level <= 9:
-        raise ValueError("`level` must be 0 to 9")
-    opaque = bool((image[..., 3] == 255).all())
-    pixels = image[..., :3] if opaque else image
-    rows, cols, channels = pixels.shape
-    raw = np.empty((rows, 1 + cols * channels), dtype=np.uint8)
-    raw[:, 0] = 0  # each row's filter type: none
-    raw[:, 1:].reshape(rows, cols, channels)[...] = pixels  # one copy, no temporary
-    header = struct.pack(">IIBBBBB", cols, rows, 8, 2 if opaque else 6, 0, 0, 0)
-    out = [b"\x89PNG\r\n\x1a\n", _chunk(b"IHDR", header)]
-    if dpi is not None and dpi > 0:
-        per_metre = int(round(dpi / 0.0254))
-        out.append(_chunk(b"pHYs", struct.pack(">IIB", per_metre, per_metre, 1)))
-    out.append(_chunk(b"IDAT", zlib.compress(raw.tobytes(), level)))
-    out.append(_chunk(b"IEND", b""))
-    return b"".join(out)

@@ -13,6 +13,9 @@ from scipy.signal import peak_prominences, peak_widths
 from conftest import (RC_R_GOHM as R_GOHM, RC_RATE_HZ, RC_SPIKES_PER_STEP as SPIKES_PER_STEP,
                       RC_STEP_S, RC_STEPS_PA as STEPS_PA, rc_cell_sweeps, write_nix, write_text)
 from spikemeasure import figures
+from spikemeasure.figures import windows
+from spikemeasure.figures.selection import shown_spike
+from spikemeasure.figures.traces import TRACE_LINE_PT
 from test_cell_features import rc_recording  # the analytic RC membrane
 from spikemeasure.cli import main
 from spikemeasure.detection import DetectionSettings
@@ -89,6 +92,30 @@ class TestEnvelope:
         assert v.max() == y.max() and v.min() == y.min()
 
 
+    @pytest.mark.parametrize("bad, argument", [({"bins": 0}, "bins"), ({"bins": 2.5}, "bins"),
+                                               ({"sampling_rate_hz": 0.0}, "sampling_rate_hz")])
+    def test_bad_arguments_are_named(self, bad, argument):
+        kw = {"y": np.zeros(10), "sampling_rate_hz": 1000.0, **bad}
+        with pytest.raises(ValueError, match=f"`{argument}`"):
+            figures.envelope(**kw)
+
+
+class TestShownSpike:
+    def test_the_rheobase_sweep_and_its_first_spike_in_the_step(self, cell):
+        # Source: the simulated cell's construction (conftest): the first step with one spike
+        # per step is the rheobase, and its spike lies inside the step
+        result, spike, chosen = shown_spike(cell["results"], cell["cell"])
+        assert chosen == "rheobase sweep"
+        assert result.features.stimulus_pa == STEPS_PA[SPIKES_PER_STEP.index(1)]
+        assert ONSET_S <= result.spikes.threshold_s[spike] < OFFSET_S
+        # the values the cell table took from it
+        assert result.spikes.threshold_mv[spike] == cell["cell"].rheobase_threshold_mv
+
+    def test_without_spikes_there_is_nothing_to_show(self, odd_cells):
+        results = odd_cells["no_spikes.nix"]["results"]
+        assert shown_spike(results, cell_summary(results)) == (None, None, "")
+
+
 class TestTracesFigure:
     def test_markers_sit_at_the_spike_table_values(self, cell):
         table = spike_table(cell["results"])
@@ -133,7 +160,7 @@ class TestTracesFigure:
         sweeps = [r.sweep for r in sorted(cell["results"], key=lambda r: r.features.stimulus_pa)
                   if r.features.stimulus_pa != rheobase]
         drawn = ax.transData.transform([[0, 0], [0, 1]])
-        widen_mv = (figures._TRACE_LINE_PT / 72 * ax.figure.dpi / (drawn[1, 1] - drawn[0, 1])
+        widen_mv = (TRACE_LINE_PT / 72 * ax.figure.dpi / (drawn[1, 1] - drawn[0, 1])
                     / 2 + 1e-9)
         for path, sweep in zip(ax.collections[0].get_paths(), sweeps):
             v = sweep.voltage_mv
@@ -254,6 +281,18 @@ class TestStepResponses:
         px, py = lines(ax, "fitted sweeps")
         assert sorted(px) == [-40.0, -20.0]
         assert np.allclose(py, R_GOHM * px, atol=0.2)
+
+    def test_legend_names_only_the_points_there_are(self, cell):
+        # Source: the analytic RC membrane (closed form): every step hyperpolarizing, so every
+        # sweep is spike-free and fitted, and there are no "other sweeps" to name.
+        ax = figures.step_response_figure(measure_recording(rc_recording())).axes[1]
+        entries = [t.get_text() for t in ax.get_legend().get_texts()]
+        assert "fitted sweeps" in entries and "other sweeps" not in entries
+        assert lines(ax, "fitted sweeps")[0].size == 4
+        # the simulated cell (conftest) has depolarizing steps as well: both are named
+        ax = cell["figures"]["step_responses"].axes[1]
+        entries = [t.get_text() for t in ax.get_legend().get_texts()]
+        assert "fitted sweeps" in entries and "other sweeps" in entries
 
 
 class TestAwkwardCells:
@@ -390,7 +429,7 @@ def _assert_legends_cover_no_point(fig):
             points = ax.transData.transform(xy)
             inside = ((points[:, 0] > box.x0) & (points[:, 0] < box.x1)
                       & (points[:, 1] > box.y0) & (points[:, 1] < box.y1))
-            assert not inside.any(), (fig._suptitle.get_text(), line.get_label())
+            assert not inside.any(), (fig.get_suptitle(), line.get_label())
 
 
 class TestReadable:
@@ -408,7 +447,7 @@ class TestReadable:
     @pytest.mark.parametrize("stem", figures.CELL_FIGURE_NAMES)
     def test_every_axis_has_a_unit_and_the_title_names_the_file(self, cell, stem):
         fig = cell["figures"][stem]
-        assert "rc_cell.nix" in fig._suptitle.get_text()
+        assert "rc_cell.nix" in fig.get_suptitle()
         for ax in fig.axes[:2] if stem != "traces" else fig.axes[:2]:
             for label in (ax.get_ylabel(), ax.get_xlabel() or fig.axes[1].get_xlabel()):
                 assert label.endswith(")") and "(" in label, (stem, label)
@@ -438,19 +477,19 @@ class TestReadable:
 class TestShow:
     def test_inspect_show_opens_the_same_figures(self, cell_file, monkeypatch):
         shown = []
-        monkeypatch.setattr(figures, "_has_display", lambda: True)
-        monkeypatch.setattr(figures, "_window_backend", lambda where: None)
-        monkeypatch.setattr(figures, "_open_window", lambda figs: shown.extend(figs))
+        monkeypatch.setattr(windows, "_has_display", lambda: True)
+        monkeypatch.setattr(windows, "_window_backend", lambda where: None)
+        monkeypatch.setattr(windows, "_open_window", lambda figs: shown.extend(figs))
         r = CliRunner().invoke(main, ["inspect", str(cell_file), "--show"])
         assert r.exit_code == 0, r.output
         assert "sweeps measured" in r.output
         assert len(shown) == len(figures.CELL_FIGURE_NAMES)
-        assert all(str(cell_file) in f._suptitle.get_text() for f in shown)
+        assert all(str(cell_file) in f.get_suptitle() for f in shown)
         import matplotlib.pyplot as plt
         plt.close("all")
 
     def test_without_a_display_it_is_a_clear_error(self, cell_file, monkeypatch):
-        monkeypatch.setattr(figures.sys, "platform", "linux")
+        monkeypatch.setattr(windows.sys, "platform", "linux")
         monkeypatch.delenv("DISPLAY", raising=False)
         monkeypatch.delenv("WAYLAND_DISPLAY", raising=False)
         r = CliRunner().invoke(main, ["inspect", str(cell_file), "--show"])
@@ -464,7 +503,7 @@ def test_sample_cell_figures_are_readable():
     no text over text, no legend over a data point."""
     from pathlib import Path
 
-    path = Path(__file__).resolve().parents[1] / "sample_data" / "region_a_cell_2.nix"
+    path = Path(__file__).resolve().parents[2] / "sample_data" / "region_a_cell_2.nix"
     results = measure_recording(read_recording(path, shown_as=path.name))
     for fig in figures.cell_figures(results).values():
         _assert_no_overlaps(fig)
@@ -501,7 +540,7 @@ def test_fi_legend_stands_where_no_line_runs_under_it():
     from pathlib import Path
 
     moved = 0
-    for path in sorted((Path(__file__).resolve().parents[1] / "sample_data").glob("*.n*")):
+    for path in sorted((Path(__file__).resolve().parents[2] / "sample_data").glob("*.n*")):
         results = measure_recording(read_recording(path, shown_as=path.name))
         ax = figures.step_response_figure(results).axes[0]
         where = ax.get_legend()._loc  # matplotlib's location codes: 2 upper left
@@ -520,7 +559,7 @@ def test_title_of_a_name_not_utf8_is_drawn_as_text(cell):
     drawn = figures.cell_figures(cell["results"], cell["cell"], name="caf\udce9.nix")
     for fig in drawn.values():
         fig.canvas.draw()  # raised TypeError before
-        assert fig._suptitle.get_text().startswith("caf\\xe9.nix: ")
+        assert fig.get_suptitle().startswith("caf\\xe9.nix: ")
 
 
 def test_figure_folders_of_distinct_names_are_distinct():

@@ -1,76 +1,12 @@
-"""The figure canvas: PNG encoding checked against the PNG specification and Pillow's decoder,
-and cached text against matplotlib's own Agg text rendering."""
-import io
-import struct
-import zlib
-
+"""The text cache: cached text against matplotlib's own Agg text rendering."""
 import numpy as np
 import pytest
-from matplotlib.backends.backend_agg import RendererAgg
+from matplotlib.backends.backend_agg import FigureCanvasAgg, RendererAgg
 from matplotlib.figure import Figure
 from matplotlib.font_manager import FontProperties
-from PIL import Image
 
-from spikemeasure import figure_canvas
-from spikemeasure.figure_canvas import TextCachingCanvas, TextCachingRenderer, png_bytes
-
-
-def _chunks(data: bytes):
-    """(type, body) of every chunk, checking each CRC as the PNG specification defines it
-    (CRC-32 of type and body, the polynomial zlib.crc32 implements)."""
-    assert data[:8] == b"\x89PNG\r\n\x1a\n"  # the PNG signature
-    position, found = 8, []
-    while position < len(data):
-        (length,) = struct.unpack(">I", data[position:position + 4])
-        kind = data[position + 4:position + 8]
-        body = data[position + 8:position + 8 + length]
-        (crc,) = struct.unpack(">I", data[position + 8 + length:position + 12 + length])
-        assert crc == zlib.crc32(kind + body) & 0xFFFFFFFF, kind
-        found.append((kind, body))
-        position += 12 + length
-    return found
-
-
-class TestPngBytes:
-    def test_opaque_image_decodes_to_the_same_pixels_as_rgb(self):
-        rng = np.random.default_rng(1)
-        rgba = rng.integers(0, 256, size=(37, 53, 4), dtype=np.uint8)
-        rgba[..., 3] = 255
-        data = png_bytes(rgba, dpi=110)
-        image = Image.open(io.BytesIO(data))
-        assert image.mode == "RGB" and image.size == (53, 37)
-        assert np.array_equal(np.asarray(image), rgba[..., :3])  # Pillow's decoder
-
-    def test_transparency_is_kept(self):
-        rng = np.random.default_rng(2)
-        rgba = rng.integers(0, 256, size=(9, 11, 4), dtype=np.uint8)
-        image = Image.open(io.BytesIO(png_bytes(rgba)))
-        assert image.mode == "RGBA" and np.array_equal(np.asarray(image), rgba)
-
-    def test_chunks_follow_the_specification(self):
-        rgba = np.full((4, 6, 4), 255, dtype=np.uint8)
-        kinds = _chunks(png_bytes(rgba, dpi=110))
-        assert [k for k, _ in kinds] == [b"IHDR", b"pHYs", b"IDAT", b"IEND"]
-        width, height, depth, colour, *_ = struct.unpack(">IIBBBBB", kinds[0][1])
-        assert (width, height, depth, colour) == (6, 4, 8, 2)
-        # pHYs: pixels per metre, unit 1 (metre); 110 dpi is 4331 per metre (110 / 0.0254)
-        assert struct.unpack(">IIB", kinds[1][1]) == (4331, 4331, 1)
-        assert Image.open(io.BytesIO(png_bytes(rgba, dpi=110))).info["dpi"] == pytest.approx(
-            (110, 110), abs=0.01)
-
-    def test_without_dpi_there_is_no_physical_size(self):
-        kinds = [k for k, _ in _chunks(png_bytes(np.zeros((2, 2, 4), np.uint8)))]
-        assert b"pHYs" not in kinds
-
-    @pytest.mark.parametrize("bad", [np.zeros((4, 4, 3), np.uint8), np.zeros((4, 4, 4)),
-                                     np.zeros((4, 4), np.uint8)])
-    def test_rejects_what_is_not_rgba_bytes(self, bad):
-        with pytest.raises(ValueError, match="rgba"):
-            png_bytes(bad)
-
-    def test_rejects_a_level_zlib_does_not_have(self):
-        with pytest.raises(ValueError, match="level"):
-            png_bytes(np.zeros((2, 2, 4), np.uint8), level=10)
+from spikemeasure.figures import common, text_cache
+from spikemeasure.figures.text_cache import TextCachingCanvas, TextCachingRenderer
 
 
 def _ink(renderer):
@@ -84,9 +20,9 @@ def _ink(renderer):
 class TestTextCachingRenderer:
     @pytest.fixture(autouse=True)
     def _empty_cache(self):
-        figure_canvas.clear_text_cache()
+        text_cache.clear_text_cache()
         yield
-        figure_canvas.clear_text_cache()
+        text_cache.clear_text_cache()
 
     @pytest.mark.parametrize("text, angle, alpha", [("-60", 0.0, None),
                                                     ("membrane voltage (mV)", 90.0, None),
@@ -137,7 +73,7 @@ class TestTextCachingRenderer:
             gc = renderer.new_gc()
             gc.set_foreground(colour)
             renderer.draw_text(gc, 10.0, 30.0, "peak", FontProperties(size=size), 0.0)
-        assert len(figure_canvas._cache) == 3
+        assert len(text_cache._cache) == 3
 
     def test_clipped_to_the_axes_like_any_text(self):
         from matplotlib.transforms import Bbox
@@ -149,24 +85,24 @@ class TestTextCachingRenderer:
             renderer.draw_text(gc, 10.0, 50.0, "a long label", FontProperties(size=10), 0.0)
             alpha = np.asarray(renderer.buffer_rgba())[..., 3]
             assert alpha[:, :30].any() and not alpha[:, 31:].any()
-        assert len(figure_canvas._cache) == 1
+        assert len(text_cache._cache) == 1
 
     def test_a_full_cache_starts_again(self, monkeypatch):
-        monkeypatch.setattr(figure_canvas, "TEXT_CACHE_SIZE", 5)
+        monkeypatch.setattr(text_cache, "TEXT_CACHE_SIZE", 5)
         renderer = TextCachingRenderer(100, 60, 110)
         for k in range(12):
             renderer.draw_text(renderer.new_gc(), 10.0, 30.0, str(k), FontProperties(), 0.0)
-        assert 1 <= len(figure_canvas._cache) <= 5
+        assert 1 <= len(text_cache._cache) <= 5
 
     def test_the_cache_holds_at_most_its_bytes_of_images(self, monkeypatch):
-        monkeypatch.setattr(figure_canvas, "TEXT_CACHE_BYTES", 20_000)
+        monkeypatch.setattr(text_cache, "TEXT_CACHE_BYTES", 20_000)
         renderer = TextCachingRenderer(600, 60, 110)
         for k in range(40):  # unique, title-like texts
             renderer.draw_text(renderer.new_gc(), 10.0, 30.0, f"cell_{k:03d}.nwb: sweeps",
                                FontProperties(size=11), 0.0)
-            held = sum(e[0].nbytes for e in figure_canvas._cache.values() if e)
-            assert held == figure_canvas._cache_bytes[0] <= 20_000
-        assert 1 <= len(figure_canvas._cache) < 40
+            held = sum(e[0].nbytes for e in text_cache._cache.values() if e)
+            assert held == text_cache._cache_bytes[0] <= 20_000
+        assert 1 <= len(text_cache._cache) < 40
 
     def test_a_figure_draws_through_it(self):
         fig = Figure(figsize=(3, 2), dpi=100)
@@ -177,4 +113,24 @@ class TestTextCachingRenderer:
         canvas.draw()
         assert np.array_equal(first, np.asarray(canvas.buffer_rgba()))
         assert isinstance(canvas.get_renderer(), TextCachingRenderer)
-        assert any(key[0] == "time (s)" for key in figure_canvas._cache)
+        assert any(key[0] == "time (s)" for key in text_cache._cache)
+
+    def test_a_renderer_swapped_by_size_draws_the_same(self):
+        # savefig at another resolution resizes the canvas: a new renderer, the same text
+        fig = Figure(figsize=(3, 2), dpi=100)
+        canvas = TextCachingCanvas(fig)
+        fig.add_subplot().set_xlabel("time (s)")
+        first = canvas.get_renderer()
+        fig.set_dpi(50)
+        assert canvas.get_renderer() is not first
+        fig.set_dpi(100)
+        canvas.draw()
+        assert isinstance(canvas.get_renderer(), TextCachingRenderer)
+
+
+def test_the_plain_canvas_when_the_cache_is_off(monkeypatch):
+    monkeypatch.setattr(common, "CACHE_TEXT", False)
+    fig = common.make_figure(2.0)
+    assert type(fig.canvas) is FigureCanvasAgg  # matplotlib's own
+    monkeypatch.setattr(common, "CACHE_TEXT", True)
+    assert isinstance(common.make_figure(2.0).canvas, TextCachingCanvas)
