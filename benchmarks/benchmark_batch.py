@@ -28,7 +28,7 @@ def main() -> None:
     args = parser.parse_args()
     from spikemeasure.io import read_recording
     from spikemeasure.run.discovery import find_recordings
-    from spikemeasure.runner import measure_paths
+    from spikemeasure.run import measure_paths
     from spikemeasure.tables.build import cell_summary, measure_recording
 
     samples = sorted(p for p in (ROOT / "sample_data").iterdir() if p.suffix in (".nwb", ".nix"))

@@ -97,7 +97,7 @@ def _child(kind: str, path: str, out: str) -> None:
 
     from spikemeasure.analysis.spikes import PIECE_SAMPLES
     from spikemeasure.io import read_recording
-    from spikemeasure.runner import measure_paths
+    from spikemeasure.run import measure_paths
 
     imported_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
     started = time.perf_counter()

@@ -7,7 +7,7 @@ Usage:  python benchmarks/benchmark_measure.py [--samples 10000000] [--repeats 3
    matching command channel.
 2. Baseline: neo alone loads the file (``NWBIO.read_block``) and one numpy pass runs over the
    voltage samples (``np.max`` of each signal).
-3. Job: ``spikemeasure.runner.measure_paths`` on the file (read, detect, measure spikes,
+3. Job: ``spikemeasure.run.measure_paths`` on the file (read, detect, measure spikes,
    sweeps and the cell, hash the input, keep the outcome, write the tables and run.json), as
    ``spikemeasure measure --force`` runs it.
 Times are the best of `--repeats` runs of each. Peak memory is the peak of tracemalloc (numpy
@@ -80,7 +80,7 @@ def baseline(path: Path) -> float:
 
 
 def job(path: Path, out: Path) -> int:
-    from spikemeasure.runner import measure_paths
+    from spikemeasure.run import measure_paths
 
     # force: every repeat measures again instead of reusing the outcome kept by the first
     return measure_paths([str(path)], out, force=True).spikes

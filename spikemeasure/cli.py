@@ -244,7 +244,7 @@ def measure(ctx: click.Context, paths, out_dir, jobs, force, patterns, cluster, 
     (figures/) and report.html. A rerun measures only the files that changed (or whose
     parameters did) since the last run into the same --out.
     """
-    from .runner import default_jobs, measure_paths
+    from .run import default_jobs, measure_paths
 
     groups = None
     if groups_path is not None:
@@ -403,7 +403,7 @@ def check(ctx: click.Context, paths, out_dir, jobs, junit_path, as_json, max_row
     `spikemeasure accept`) from [regression]'s accepted_folder, with a tolerance per
     column. Exit codes: 0 all passed, 1 a check failed, 2 a usage or input error.
     """
-    from .checks.apply import check_run
+    from .checks.apply import check_run, check_tables
     from .checks.findings import report_dict, report_text
     from .checks.junit import write_junit
 
@@ -413,7 +413,7 @@ def check(ctx: click.Context, paths, out_dir, jobs, junit_path, as_json, max_row
     try:
         project, settings = _check_settings(paths, config_path)
         if out_dir is not None:
-            from .runner import default_jobs, measure_paths
+            from .run import default_jobs, measure_paths
 
             params = _run_parameters(ctx, paths, str(project) if project else None, {})
             _check_step_options(params.step_times, params.step_sizes)
@@ -440,10 +440,15 @@ def check(ctx: click.Context, paths, out_dir, jobs, junit_path, as_json, max_row
             if not quiet:
                 click.echo(f"measured {summary.files_measured + summary.files_reused} files "
                            f"({summary.files_failed} failed) -> {out_dir}", err=True)
-            results = out_dir
+            from .checks.run_tables import tables_from_columns
+
+            # the run's typed tables, as in memory: nothing is read back from its folder
+            report = check_tables(tables_from_columns(
+                out_dir, summary.tables["spikes"].values, summary.tables["sweeps"].values,
+                summary.tables["cells"].values, errors=summary.error_columns,
+                record=summary.record), settings)
         else:
-            results = paths[0]
-        report = check_run(results, settings)
+            report = check_run(paths[0], settings)
         if junit_path:
             write_junit(junit_path, report)
     except SpikemeasureError as exc:

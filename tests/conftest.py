@@ -360,7 +360,7 @@ def measured_runs(tmp_path_factory) -> dict[str, Path]:
     checkout lies. The folders are shared: read them, or copy one before changing it.
     """
     from spikemeasure.config import load_config, merge_parameters
-    from spikemeasure.runner import measure_paths
+    from spikemeasure.run import measure_paths
 
     base = tmp_path_factory.mktemp("measured_runs")
     runs = {}

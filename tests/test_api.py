@@ -10,7 +10,7 @@ import pytest
 import spikemeasure as sm
 from conftest import GaussianSpike, sampled, textbook_trace
 from spikemeasure.columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS
-from spikemeasure.runner import measure_paths
+from spikemeasure.run import measure_paths
 
 SAMPLE = "sample_data/region_a_cell_1.nwb"
 

@@ -8,6 +8,8 @@ at irregular times and some land on the borders between pieces.
 from __future__ import annotations
 
 import csv
+import fcntl
+import os
 from dataclasses import fields
 
 import numpy as np
@@ -20,7 +22,7 @@ from spikemeasure.analysis.detection import DetectionSettings
 from spikemeasure.errors import InvalidSettingError, UnreadableInputError
 from spikemeasure.analysis.spikes import SpikeMeasurements, measure_trace
 from spikemeasure.analysis.spikes_in_parts import measure_in_pieces, piece_margin_samples
-from spikemeasure.runner import measure_paths
+from spikemeasure.run import measure_paths
 from spikemeasure.testing import simulate_current_waveform
 from spikemeasure.analysis.sweeps import LazyTrace
 
@@ -30,8 +32,27 @@ RATE_HZ = 20_000.0
 
 
 @pytest.fixture(scope="module")
-def gap_free() -> np.ndarray:
-    """4 s of irregular firing (Wang & Buzsaki 1996 model) with 0.3 mV recording noise."""
+def gap_free(tmp_path_factory) -> np.ndarray:
+    """4 s of irregular firing (Wang & Buzsaki 1996 model) with 0.3 mV recording noise.
+
+    Simulated once per test session: under pytest-xdist the first worker to get here writes
+    it (.npy, read back without pickle) to the session's folder, under a lock, for the others.
+    """
+    worker = os.environ.get("PYTEST_XDIST_WORKER")
+    if worker is None:
+        return _simulate_gap_free()
+    shared = tmp_path_factory.getbasetemp().parent  # this session's, common to its workers
+    path = shared / "gap_free_trace.npy"
+    with open(shared / "gap_free_trace.lock", "w") as lock:
+        fcntl.flock(lock, fcntl.LOCK_EX)  # released when the file closes
+        if not path.exists():
+            partial = shared / f"gap_free_trace.{worker}.npy"
+            np.save(partial, _simulate_gap_free())
+            os.replace(partial, path)
+    return np.load(path, allow_pickle=False)
+
+
+def _simulate_gap_free() -> np.ndarray:
     rng = np.random.default_rng(7)
     n = int(4 * RATE_HZ)
     drive = np.repeat(rng.normal(0.0, 1.0, n // 200 + 1), 200)[:n]

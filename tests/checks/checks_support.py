@@ -25,7 +25,7 @@ from spikemeasure.checks.apply import check_run
 from spikemeasure.checks.findings import CheckReport
 from spikemeasure.checks.settings import CheckSettings
 from spikemeasure.cli import main
-from spikemeasure.runner import measure_paths
+from spikemeasure.run import measure_paths
 from spikemeasure.testing import simulate_current_steps
 
 ROOT = Path(__file__).resolve().parents[2]

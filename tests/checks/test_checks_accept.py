@@ -10,7 +10,7 @@ import pytest
 
 from checks_support import SAMPLE, run, lab, sample_results, read_rows, keep_files, accepted
 from spikemeasure.checks.accept import accept_results
-from spikemeasure.runner import measure_paths
+from spikemeasure.run import measure_paths
 
 
 class TestAccept:

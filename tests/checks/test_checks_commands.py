@@ -47,7 +47,7 @@ class TestCommandLine:
         # POSIX shell convention (common practice): a process ended by signal N exits 128 + N.
         import signal as signals
 
-        from spikemeasure import runner
+        from spikemeasure import run as runner
 
         def stopped(*args, **kwargs):
             raise runner.RunStopped(int(signals.SIGTERM))

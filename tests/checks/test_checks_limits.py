@@ -17,7 +17,7 @@ from spikemeasure.checks.apply import check_run
 from spikemeasure.checks.findings import report_text
 from spikemeasure.checks.rules import QUALITY_KEYS
 from spikemeasure.checks.settings import CheckSettings
-from spikemeasure.runner import measure_paths
+from spikemeasure.run import measure_paths
 
 
 class TestQualityRules:

@@ -17,7 +17,7 @@ from spikemeasure.checks.regression import regression_cases
 from spikemeasure.checks.run_tables import CheckInputError, read_tables
 from spikemeasure.checks.settings import CheckSettings, Tolerance
 from spikemeasure.analysis.detection import DetectionSettings
-from spikemeasure.runner import measure_paths
+from spikemeasure.run import measure_paths
 
 
 class TestRegression:

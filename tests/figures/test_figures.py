@@ -20,7 +20,7 @@ from conftest import rc_recording  # the analytic RC membrane
 from spikemeasure.cli import main
 from spikemeasure.analysis.detection import DetectionSettings
 from spikemeasure.io import read_recording
-from spikemeasure.runner import measure_paths
+from spikemeasure.run import measure_paths
 from spikemeasure.tables.build import cell_summary, measure_recording, spike_table, sweep_table
 
 RATE = RC_RATE_HZ

@@ -11,7 +11,7 @@ from conftest import (gaussian_train, set_hdf5_values, step_command, write_nix,
                       write_nix_sampling_interval, write_nwb, write_text)
 from spikemeasure.errors import UnreadableInputError
 from spikemeasure.io import limits, read_recording
-from spikemeasure.runner import measure_paths
+from spikemeasure.run import measure_paths
 from spikemeasure.tables.build import measure_recording, spike_table
 
 RATE = 20_000.0

@@ -10,7 +10,7 @@ import sys
 
 import pytest
 
-PIPELINE = ("spikemeasure.runner", "spikemeasure.tables.build", "spikemeasure.cli")
+PIPELINE = ("spikemeasure.run", "spikemeasure.tables.build", "spikemeasure.cli")
 
 
 def loaded_spikemeasure_modules(imports: tuple[str, ...]) -> list[str]:
@@ -43,7 +43,7 @@ def test_whole_pipeline_together_does_not_import_testing():
 def test_probe_sees_an_import_of_testing():
     # Control: the same probe reports the subpackage and its modules when they are imported,
     # so an empty answer above means "not imported", not "not looked for".
-    loaded = loaded_spikemeasure_modules(("spikemeasure.runner", "spikemeasure.testing"))
+    loaded = loaded_spikemeasure_modules(("spikemeasure.run", "spikemeasure.testing"))
     for name in ("spikemeasure.testing", "spikemeasure.testing.models",
                  "spikemeasure.testing.integration", "spikemeasure.testing.protocols"):
         assert name in loaded

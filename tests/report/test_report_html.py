@@ -1,4 +1,4 @@
-"""report.html, the groups file, and figures in batch runs (cache, formats, tables unchanged)."""
+"""report.html, and figures in batch runs (cache, formats, tables unchanged)."""
 import base64
 import csv
 import hashlib
@@ -15,8 +15,7 @@ from browser import find_chromium
 from conftest import RC_RATE_HZ as RATE, rc_cell_sweeps, step_command, write_nix
 from spikemeasure.cli import main
 from spikemeasure.figures import BATCH_FIGURE_NAME, CELL_FIGURE_NAMES
-from spikemeasure.report import GroupsFileError, read_groups
-from spikemeasure.runner import measure_paths
+from spikemeasure.run import measure_paths
 
 TABLES = ("spikes.csv", "sweeps.csv", "cells.csv")
 ODD_NAME = 'cell <b>&"1".nix'
@@ -228,47 +227,13 @@ class TestFiguresInBatchRuns:
         assert "figures/plain.nix/traces.pdf" in links and len(links) == 5
 
 
-class TestGroupsFile:
-    def test_reads_files_and_groups(self, tmp_path):
-        p = tmp_path / "g.csv"
-        p.write_text("genotype,file\nwt,a.nix\nko,./day 1\\b.nwb\n")
-        groups = read_groups(p)
-        assert groups.label == "genotype"
-        assert groups.mapping == {"a.nix": "wt", "day 1/b.nwb": "ko"}
-
-    @pytest.mark.parametrize("text, message", [
-        ("", "empty"),
-        ("name,group\na.nix,wt\n", "no `file` column"),
-        ("file,group,age\na.nix,wt,3\n", "exactly one group column"),
-        ("file,group\na.nix\n", "line 2: 1 cells"),
-        ("file,group\na.nix,\n", "line 2"),
-        ("file,group\na.nix,wt\na.nix,ko\n", "line 3: a.nix is in 'wt' already"),
-    ])
-    def test_bad_files_are_named_with_what_is_wrong(self, tmp_path, text, message):
-        p = tmp_path / "groups.csv"
-        p.write_text(text)
-        with pytest.raises(GroupsFileError, match=re.escape(message)) as info:
-            read_groups(p)
-        assert str(p) in str(info.value)
-
-    def test_a_bad_groups_file_is_a_usage_error(self, folder, tmp_path):
-        p = tmp_path / "groups.csv"
-        p.write_text("cell,group\na.nix,wt\n")
-        r = CliRunner().invoke(main, ["measure", str(folder / "plain.nix"), "--out",
-                                      str(tmp_path / "out"), "--groups", str(p)])
-        assert r.exit_code == 2
-        assert "--groups" in r.output and str(p) in r.output and "no `file` column" in r.output
-        assert "Traceback" not in r.output
-        assert not (tmp_path / "out").exists()  # nothing measured
-
-
 def test_no_figures_never_imports_matplotlib(folder, tmp_path):
     """`--help` and runs without figures stay fast: matplotlib is imported only to draw."""
     import subprocess
     import sys
 
     code = ("import sys\nfrom spikemeasure.cli import main\n"
-            "from spikemeasure.runner import measure_paths\n"
+            "from spikemeasure.run import measure_paths\n"
             f"measure_paths([{str(folder / 'plain.nix')!r}], {str(tmp_path / 'out')!r})\n"
             "print(sorted(m for m in sys.modules if m.split('.')[0] == 'matplotlib'))\n")
     result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
@@ -278,20 +243,16 @@ def test_no_figures_never_imports_matplotlib(folder, tmp_path):
     assert (tmp_path / "out" / "report.html").is_file()
 
 
-def test_groups_file_names_copied_from_cells_csv_match(tmp_path):
-    """A name cells.csv writes escaped ('=cell.nix) names the file =cell.nix."""
-    path = tmp_path / "groups.csv"
-    path.write_text("file,genotype\n\"'=cell.nix\",mutant\n'plain.nix,control\n")
-    assert read_groups(path).mapping == {"=cell.nix": "mutant", "'plain.nix": "control"}
-
-
 def test_report_of_a_run_with_a_name_not_utf8_is_written(tmp_path):
     """Text from outside (a command line, a message) may hold surrogates; the page is UTF-8."""
+    from spikemeasure.columns import CELL_COLUMNS
     from spikemeasure.report import write_report
+    from spikemeasure.run import ColumnTable
 
     record = {"command": ["spikemeasure", "measure", "caf\udce9.nix"],
               "inputs": [{"file": "caf\\xe9.nix", "status": "failed"}],
               "failures": [{"file": "caf\\xe9.nix", "stage": "read",
                             "message": "caf\udce9.nix: damaged"}]}
-    page = write_report(tmp_path / "report.html", record, []).read_bytes().decode("utf-8")
+    page = write_report(tmp_path / "report.html", record,
+                        ColumnTable.empty(CELL_COLUMNS)).read_bytes().decode("utf-8")
     assert "measure caf\\xe9.nix" in page and "caf\\xe9.nix: damaged" in page

@@ -12,11 +12,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from conftest import gaussian_train, step_command, write_nix, write_text
+from conftest import gaussian_train, step_command, write_nix
 from spikemeasure.analysis.detection import DetectionSettings
-from spikemeasure.runner import CACHE_FOLDER, measure_paths
+from spikemeasure.run import CACHE_FOLDER, measure_paths
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 SAMPLES = sorted(p for p in (ROOT / "sample_data").iterdir() if p.suffix in (".nwb", ".nix"))
 TABLES = ("spikes.csv", "sweeps.csv", "cells.csv", "errors.csv")
 RATE = 20_000.0
@@ -28,9 +28,9 @@ def tables(out: Path) -> dict:
 
 @pytest.fixture(scope="module")
 def many_cells(tmp_path_factory):
-    """Twelve recordings in nested folders (copies of the sample cells)."""
+    """Eight recordings in two nested folders (two copies of each sample cell)."""
     root = tmp_path_factory.mktemp("many")
-    for k in range(12):
+    for k in range(8):
         src = SAMPLES[k % len(SAMPLES)]
         dst = root / f"day_{k // 4}" / f"cell_{k:02d}{src.suffix}"
         dst.parent.mkdir(parents=True, exist_ok=True)
@@ -62,24 +62,40 @@ def distinct_cells(tmp_path_factory):
 
 
 @pytest.fixture(scope="module")
-def distinct_reference(distinct_cells, tmp_path_factory):
-    """The tables of one uninterrupted run over `distinct_cells`."""
-    out = tmp_path_factory.mktemp("reference")
+def distinct_run(distinct_cells, tmp_path_factory):
+    """The folder of one uninterrupted run over `distinct_cells` (read only: copy it first)."""
+    out = tmp_path_factory.mktemp("reference") / "out"
     measure_paths([str(distinct_cells)], out, jobs=1)
-    return tables(out)
+    return out
+
+
+@pytest.fixture(scope="module")
+def distinct_reference(distinct_run):
+    """The tables of `distinct_run`."""
+    return tables(distinct_run)
+
+
+@pytest.fixture(scope="module")
+def few_cells(distinct_cells, tmp_path_factory):
+    """The first four of `distinct_cells`, for tests that need a few files, not twelve."""
+    root = tmp_path_factory.mktemp("few")
+    for k in range(4):
+        shutil.copy(distinct_cells / f"cell_{k:02d}.nix", root)
+    return root
 
 
 def test_parallel_and_serial_tables_are_byte_identical(many_cells, many_cells_serial,
                                                        tmp_path):
     serial, serial_out = many_cells_serial
     parallel = measure_paths([str(many_cells)], tmp_path / "parallel", jobs=2)
-    assert serial.files_measured == parallel.files_measured == 12
+    assert serial.files_measured == parallel.files_measured == 8
     assert tables(serial_out) == tables(tmp_path / "parallel")
     with open(serial_out / "cells.csv", newline="") as fh:
         files = [row["file"] for row in csv.DictReader(fh)]
     assert files == sorted(files) and files[0] == "day_0/cell_00.nwb"
 
 
+@pytest.mark.slow
 def test_bad_files_are_listed_and_the_rest_measured(tmp_path):
     d = tmp_path / "mixed"
     d.mkdir()
@@ -119,25 +135,28 @@ def test_bad_files_are_listed_and_the_rest_measured(tmp_path):
     assert "1 file measured, 5 failed" in result.stderr
 
 
-def test_rerun_reuses_unchanged_files_and_force_redoes(many_cells, tmp_path):
+def test_rerun_reuses_unchanged_files_and_force_redoes(many_cells, many_cells_serial, tmp_path):
+    first, first_out = many_cells_serial
     out = tmp_path / "out"
-    first = measure_paths([str(many_cells)], out, jobs=1)
-    before = tables(out)
+    shutil.copytree(first_out, out)  # the first run, with its kept outcomes
     again = measure_paths([str(many_cells)], out, jobs=1)
-    assert (again.files_reused, again.files_measured) == (12, 0)
-    assert tables(out) == before
-    changed = measure_paths([str(many_cells)], out, jobs=1,
-                            settings=DetectionSettings(
-                                onset_rate_v_per_s=25.0))
-    assert changed.files_measured == 12  # a parameter changed: everything is measured again
-    forced = measure_paths([str(many_cells)], out, jobs=1, force=True,
-                           settings=DetectionSettings(
-                               onset_rate_v_per_s=25.0))
-    assert forced.files_measured == 12 and forced.files_reused == 0
-    assert first.spikes > 0
+    assert (again.files_reused, again.files_measured) == (8, 0)
+    assert tables(out) == tables(first_out) and again.spikes == first.spikes > 0
+    # four of the files (one copy of each sample), kept under the same content hashes
+    day = [str(many_cells / "day_0")]
+    assert measure_paths(day, out, jobs=1).files_reused == 4
+    changed = measure_paths(day, out, jobs=1,
+                            settings=DetectionSettings(onset_rate_v_per_s=25.0))
+    assert changed.files_measured == 4  # a parameter changed: everything is measured again
+    forced = measure_paths(day, out, jobs=1, force=True,
+                           settings=DetectionSettings(onset_rate_v_per_s=25.0))
+    assert forced.files_measured == 4 and forced.files_reused == 0
 
 
-@pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM, signal.SIGHUP, signal.SIGKILL])
+# SIGINT and SIGHUP reach the very handler SIGTERM does (tests/run/test_execute.py); SIGKILL
+# cannot be handled at all
+@pytest.mark.slow
+@pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGKILL])
 def test_interrupted_run_resumes_to_the_same_tables(distinct_cells, distinct_reference,
                                                     tmp_path, sig):
     out = tmp_path / "out"
@@ -189,6 +208,7 @@ def test_interrupted_run_resumes_to_the_same_tables(distinct_cells, distinct_ref
     assert tables(out) == distinct_reference
 
 
+@pytest.mark.slow
 def test_dask_cluster_gives_the_same_tables(many_cells, many_cells_serial, tmp_path):
     """Source of truth: the local run; the cluster is a distributed.LocalCluster."""
     distributed = pytest.importorskip("distributed")
@@ -197,10 +217,10 @@ def test_dask_cluster_gives_the_same_tables(many_cells, many_cells_serial, tmp_p
                                   dashboard_address=None) as cluster:
         remote = tmp_path / "remote"
         summary = measure_paths([str(many_cells)], remote, cluster=cluster.scheduler_address)
-        assert summary.files_measured == 12
+        assert summary.files_measured == 8
         assert tables(remote) == tables(local)
         again = measure_paths([str(many_cells)], remote, cluster=cluster.scheduler_address)
-        assert again.files_reused == 12 and tables(remote) == tables(local)
+        assert again.files_reused == 8 and tables(remote) == tables(local)
 
 
 def test_unreachable_cluster_is_a_clear_error(tmp_path):
@@ -334,18 +354,21 @@ def test_unsearchable_folders_and_outside_links_are_failures_of_the_run(tmp_path
     assert "a file outside" not in (tmp_path / "out" / "errors.csv").read_text()
 
 
-def test_names_like_formulas_are_escaped_and_matched_by_check(tmp_path):
+def test_names_like_formulas_are_escaped_and_matched_by_check(tmp_path, monkeypatch):
     """The escape is the OWASP guidance on CSV injection: a leading ' and quotes."""
+    from click.testing import CliRunner
+    from spikemeasure.cli import main
+
     folder = tmp_path / "cells"
     folder.mkdir()
     _small_cell(folder / "=cell.nix")
     _small_cell(folder / "+cell.nix")
     (folder / "@broken.nix").write_bytes(b"")
     out, accepted = tmp_path / "out", tmp_path / "accepted"
-    run = [sys.executable, "-m", "spikemeasure"]
-    first = subprocess.run(run + ["measure", str(folder), "--out", str(out), "--jobs", "1",
-                                  "--no-figures"], capture_output=True, text=True)
-    assert first.returncode == 1  # the empty file
+    monkeypatch.chdir(tmp_path)
+    first = CliRunner().invoke(main, ["measure", str(folder), "--out", str(out), "--jobs", "1",
+                                      "--no-figures"])
+    assert first.exit_code == 1  # the empty file
     cells = (out / "cells.csv").read_text().splitlines()
     assert [line.split(",")[0] for line in cells[1:]] == ['"\'+cell.nix"', '"\'=cell.nix"']
     assert all(line.split(",")[2].startswith("-") for line in cells[1:])  # numbers as they are
@@ -356,17 +379,15 @@ def test_names_like_formulas_are_escaped_and_matched_by_check(tmp_path):
     record = json.loads((out / "run.json").read_text())
     assert {i["file"] for i in record["inputs"]} == {"=cell.nix", "+cell.nix", "@broken.nix"}
     (folder / "@broken.nix").unlink()
-    second = subprocess.run(run + ["measure", str(folder), "--out", str(out), "--jobs", "1",
-                                   "--no-figures"], capture_output=True, text=True)
-    assert second.returncode == 0, second.stderr
+    second = CliRunner().invoke(main, ["measure", str(folder), "--out", str(out), "--jobs", "1",
+                                       "--no-figures"])
+    assert second.exit_code == 0, second.output
     # without a project file, the accepted results are ./accepted
-    accept = subprocess.run(run + ["accept", str(out)], capture_output=True, text=True,
-                            cwd=tmp_path)
-    assert accept.returncode == 0, accept.stderr
+    accept = CliRunner().invoke(main, ["accept", str(out)])
+    assert accept.exit_code == 0, accept.output
     assert "'=cell.nix" in (accepted / "cells.csv").read_text()
-    check = subprocess.run(run + ["check", str(out), "--json"], capture_output=True,
-                           text=True, cwd=tmp_path)
-    assert check.returncode == 0, check.stdout + check.stderr
+    check = CliRunner().invoke(main, ["check", str(out), "--json"])
+    assert check.exit_code == 0, check.output
     # the tables' names read back as run.json has them: every file measured and compared
     cases = json.loads(check.stdout)["cases"]
     assert {c["file"] for c in cases} == {"=cell.nix", "+cell.nix"}
@@ -420,14 +441,14 @@ def _kept(out: Path) -> int:
     return len(list(cache.glob("*.json"))) if cache.exists() else 0
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGKILL])
-def test_rerun_stopped_midway_never_passes_for_the_previous_run(distinct_cells, tmp_path, sig):
+def test_rerun_stopped_midway_never_passes_for_the_previous_run(distinct_cells, distinct_run,
+                                                                tmp_path, sig):
     """A rerun with a changed parameter, stopped midway: run.json and report.html speak of the
     new run (its parameters, not complete), never of the previous complete one."""
     out = tmp_path / "out"
-    first = subprocess.run(_measure_command(distinct_cells, out, "--jobs", "1", "--no-figures"),
-                           capture_output=True, text=True, timeout=300)
-    assert first.returncode == 0, first.stderr
+    shutil.copytree(distinct_run, out)  # the previous run, complete
     assert json.loads((out / "run.json").read_text())["status"] == "complete"
     kept_before = _kept(out)
     proc = subprocess.Popen(_measure_command(distinct_cells, out, "--jobs", "1", "--no-figures",
@@ -450,12 +471,12 @@ def test_rerun_stopped_midway_never_passes_for_the_previous_run(distinct_cells, 
 
 
 def test_run_record_says_running_from_the_start_and_agrees_with_each_refresh(
-        distinct_cells, tmp_path, monkeypatch):
+        few_cells, tmp_path, monkeypatch):
     """Before the first file is measured run.json says "running", with this run's parameters
     and inputs; every refresh of the tables rewrites it to list the same files as they do."""
-    from spikemeasure import runner
+    from spikemeasure.run import record
 
-    monkeypatch.setattr(runner, "TABLE_REFRESH_S", -1.0)  # refresh after every file
+    monkeypatch.setattr(record, "TABLE_REFRESH_S", -1.0)  # refresh after every file
     out = tmp_path / "out"
     seen = []
 
@@ -463,7 +484,7 @@ def test_run_record_says_running_from_the_start_and_agrees_with_each_refresh(
         record = json.loads((out / "run.json").read_text())
         assert record["status"] == "running" and record["interrupted"] is False
         assert record["parameters"]["onset_rate_v_per_s"] == 21.0
-        assert len(record["inputs"]) == 12
+        assert len(record["inputs"]) == 4
         cells = []
         if (out / "cells.csv").exists():
             with open(out / "cells.csv", newline="") as fh:
@@ -471,9 +492,9 @@ def test_run_record_says_running_from_the_start_and_agrees_with_each_refresh(
         assert cells == [i["file"] for i in record["inputs"] if i["status"] == "measured"]
         seen.append(len(cells))
 
-    summary = measure_paths([str(distinct_cells)], out, DetectionSettings(onset_rate_v_per_s=21.0),
+    summary = measure_paths([str(few_cells)], out, DetectionSettings(onset_rate_v_per_s=21.0),
                             jobs=1, progress=look)
-    assert seen == list(range(12)) and summary.files_measured == 12
+    assert seen == list(range(4)) and summary.files_measured == 4
     assert json.loads((out / "run.json").read_text())["status"] == "complete"
 
 
@@ -497,6 +518,7 @@ def _ended(pid: int) -> bool:
     return stat.rsplit(")", 1)[1].split()[0] == "Z"
 
 
+@pytest.mark.slow
 @pytest.mark.skipif(not Path("/proc/self/task").is_dir(), reason="needs Linux's /proc")
 @pytest.mark.parametrize("sig", [signal.SIGKILL, signal.SIGTERM])
 def test_worker_processes_end_with_the_run(many_cells, tmp_path, sig):
@@ -515,25 +537,25 @@ def test_worker_processes_end_with_the_run(many_cells, tmp_path, sig):
         f"worker processes still running after the run ended: {sorted(workers)}"
 
 
-def test_a_bug_in_one_file_fails_that_file_only(distinct_cells, tmp_path, monkeypatch):
+def test_a_bug_in_one_file_fails_that_file_only(few_cells, tmp_path, monkeypatch):
     """An unexpected exception in one file's task: that file fails (stage "internal error",
     the exception's type named, the traceback kept in run.json and shown with --debug), the
     other files keep their rows, exit 1."""
     from click.testing import CliRunner
 
-    from spikemeasure import runner
     from spikemeasure.cli import main
+    from spikemeasure.run import task
 
-    original = runner.measure_recording
+    original = task.measure_recording
 
     def buggy(recording, *args, **kwargs):
         if recording.sweeps and recording.sweeps[0].file == "cell_03.nix":
             return 1 / 0
         return original(recording, *args, **kwargs)
 
-    monkeypatch.setattr(runner, "measure_recording", buggy)
+    monkeypatch.setattr(task, "measure_recording", buggy)
     out = tmp_path / "out"
-    r = CliRunner().invoke(main, ["measure", str(distinct_cells), "--out", str(out), "--jobs",
+    r = CliRunner().invoke(main, ["measure", str(few_cells), "--out", str(out), "--jobs",
                                   "1", "--no-figures"])
     assert r.exit_code == 1, r.output
     assert "Traceback" not in r.output
@@ -543,19 +565,19 @@ def test_a_bug_in_one_file_fails_that_file_only(distinct_cells, tmp_path, monkey
     assert [(e["file"], e["stage"]) for e in errors] == [("cell_03.nix", "internal error")]
     with open(out / "cells.csv", newline="") as fh:
         cells = [row["file"] for row in csv.DictReader(fh)]
-    assert cells == [f"cell_{k:02d}.nix" for k in range(12) if k != 3]
+    assert cells == [f"cell_{k:02d}.nix" for k in range(4) if k != 3]
     record = json.loads((out / "run.json").read_text())
     entry = {i["file"]: i for i in record["inputs"]}["cell_03.nix"]
     assert entry["status"] == "failed" and "ZeroDivisionError" in entry["traceback"]
     assert record["status"] == "complete"
-    debug = CliRunner().invoke(main, ["--debug", "measure", str(distinct_cells), "--out",
+    debug = CliRunner().invoke(main, ["--debug", "measure", str(few_cells), "--out",
                                       str(tmp_path / "debug"), "--jobs", "1", "--no-figures"])
     assert debug.exit_code == 1
     assert "Traceback" in debug.output and "ZeroDivisionError" in debug.output
     # not kept: the next run tries the file again
-    monkeypatch.setattr(runner, "measure_recording", original)
-    again = measure_paths([str(distinct_cells)], out, jobs=1)
-    assert (again.files_reused, again.files_measured, again.files_failed) == (11, 1, 0)
+    monkeypatch.setattr(task, "measure_recording", original)
+    again = measure_paths([str(few_cells)], out, jobs=1)
+    assert (again.files_reused, again.files_measured, again.files_failed) == (3, 1, 0)
 
 
 def test_first_ctrl_c_stops_inside_a_file_between_sweeps(distinct_cells, tmp_path, monkeypatch):
@@ -614,16 +636,17 @@ def test_measuring_can_be_cancelled_between_sweeps_and_pieces():
     assert len(calls) == 3
 
 
-def test_edited_kept_outcome_is_measured_again(distinct_cells, distinct_reference, tmp_path):
+def test_edited_kept_outcome_is_measured_again(distinct_cells, distinct_run, distinct_reference,
+                                               tmp_path):
     """A kept outcome whose content no longer matches its checksum is not reused: the file
     is measured again, with a note; the tables equal a fresh run's."""
     out = tmp_path / "out"
-    measure_paths([str(distinct_cells)], out, jobs=1)
+    shutil.copytree(distinct_run, out)
     kept = sorted((out / CACHE_FOLDER).glob("*.json"))
     assert len(kept) == 12
     data = json.loads(kept[0].read_text())
     body = data.get("outcome", data)
-    body["cell_rows"][0][2] = "999"  # a hand edit of one cell value
+    body["tables"]["cells"]["resting_mv"]["values"][0] = 999.0  # a hand edit of one value
     kept[0].write_text(json.dumps(data))
     again = measure_paths([str(distinct_cells)], out, jobs=1)
     assert (again.files_reused, again.files_measured) == (11, 1)
@@ -631,49 +654,50 @@ def test_edited_kept_outcome_is_measured_again(distinct_cells, distinct_referenc
     assert tables(out) == distinct_reference
 
 
-def test_changed_column_declarations_measure_files_again(distinct_cells, tmp_path, monkeypatch):
-    """Kept outcomes hold formatted rows: a changed column declaration must not reuse them."""
+def test_changed_column_declarations_measure_files_again(few_cells, tmp_path, monkeypatch):
+    """Kept outcomes are keyed by the column declarations: a changed one measures again."""
     import dataclasses
 
-    from spikemeasure import runner
+    from spikemeasure.run import cache, record
 
     out = tmp_path / "out"
-    measure_paths([str(distinct_cells)], out, jobs=1)
+    measure_paths([str(few_cells)], out, jobs=1)
     changed = tuple(dataclasses.replace(c, decimals=2) if c.name == "threshold_mv" else c
-                    for c in runner.SPIKE_COLUMNS)
-    monkeypatch.setattr(runner, "SPIKE_COLUMNS", changed)
-    again = measure_paths([str(distinct_cells)], out, jobs=1)
-    assert (again.files_reused, again.files_measured) == (0, 12)
+                    for c in cache.SPIKE_COLUMNS)
+    for module in (cache, record):
+        monkeypatch.setattr(module, "SPIKE_COLUMNS", changed)
+    again = measure_paths([str(few_cells)], out, jobs=1)
+    assert (again.files_reused, again.files_measured) == (0, 4)
     with open(out / "spikes.csv", newline="") as fh:
         values = [row["threshold_mv"] for row in csv.DictReader(fh)]
     assert values and all(len(v.split(".")[1]) == 2 for v in values if v)
 
 
-def test_a_worker_that_dies_fails_its_file_only(distinct_cells, tmp_path, monkeypatch):
+def test_a_worker_that_dies_fails_its_file_only(few_cells, tmp_path, monkeypatch):
     """A worker killed while measuring one file (as by the out-of-memory killer) breaks the
     process pool; the files it took with it are measured again, and only that file fails."""
     import multiprocessing
     import os
 
-    from spikemeasure import runner
+    from spikemeasure.run import task
 
     if multiprocessing.get_start_method() != "fork":
         pytest.skip("the replaced function reaches the workers only when they are forked")
-    original = runner.measure_recording
+    original = task.measure_recording
 
     def killed(recording, *args, **kwargs):
         if recording.sweeps and recording.sweeps[0].file == "cell_03.nix":
             os.kill(os.getpid(), signal.SIGKILL)
         return original(recording, *args, **kwargs)
 
-    monkeypatch.setattr(runner, "measure_recording", killed)
-    summary = measure_paths([str(distinct_cells)], tmp_path / "out", jobs=2)
+    monkeypatch.setattr(task, "measure_recording", killed)
+    summary = measure_paths([str(few_cells)], tmp_path / "out", jobs=2)
     assert [f["file"] for f in summary.failures] == ["cell_03.nix"]
     assert "ended unexpectedly" in summary.failures[0]["message"]
-    assert (summary.files_measured, summary.files_failed) == (11, 1)
+    assert (summary.files_measured, summary.files_failed) == (3, 1)
 
 
-def test_a_bug_in_drawing_keeps_the_files_tables(distinct_cells, tmp_path, monkeypatch):
+def test_a_bug_in_drawing_keeps_the_files_tables(few_cells, tmp_path, monkeypatch):
     """An unexpected exception while drawing one cell's figures is a failure of its figures;
     its rows stand and the other cells are drawn."""
     from spikemeasure import figures
@@ -681,115 +705,54 @@ def test_a_bug_in_drawing_keeps_the_files_tables(distinct_cells, tmp_path, monke
     original = figures.write_cell_figures
 
     def buggy(recording, *args, **kwargs):
-        if recording.sweeps[0].file == "cell_05.nix":
+        if recording.sweeps[0].file == "cell_02.nix":
             raise ValueError("a drawing bug")
         return original(recording, *args, **kwargs)
 
     monkeypatch.setattr(figures, "write_cell_figures", buggy)
     out = tmp_path / "out"
-    summary = measure_paths([str(distinct_cells)], out, jobs=1, figure_format="png")
-    assert summary.files_measured == 12
-    assert [(f["file"], f["stage"]) for f in summary.failures] == [("cell_05.nix", "figures")]
+    summary = measure_paths([str(few_cells)], out, jobs=1, figure_format="png")
+    assert summary.files_measured == 4
+    assert [(f["file"], f["stage"]) for f in summary.failures] == [("cell_02.nix", "figures")]
     assert "ValueError" in summary.failures[0]["message"]
     with open(out / "cells.csv", newline="") as fh:
-        assert len(list(csv.DictReader(fh))) == 12
+        assert len(list(csv.DictReader(fh))) == 4
     record = json.loads((out / "run.json").read_text())
-    entry = {i["file"]: i for i in record["inputs"]}["cell_05.nix"]
+    entry = {i["file"]: i for i in record["inputs"]}["cell_02.nix"]
     assert "a drawing bug" in entry["traceback"]
-    assert (out / "figures" / "cell_04.nix").is_dir()
+    assert (out / "figures" / "cell_03.nix").is_dir()
 
 
-# --------------------------------------------------------------------------- output folder
+def test_check_after_measuring_checks_the_tables_in_memory(few_cells, tmp_path, monkeypatch):
+    """`check --out` checks the run's typed tables as the run holds them, without reading its
+    CSV files back; the source of truth is `check` of the same folder afterwards, which reads
+    them with the csv module: the same cases, the same verdicts."""
+    from click.testing import CliRunner
 
+    from spikemeasure.checks import apply
+    from spikemeasure.cli import main
 
-def _one_cell(folder: Path) -> Path:
-    n = int(0.6 * RATE)
-    _, v = gaussian_train(RATE, [150.0, 250.0], n / RATE * 1e3)
-    path = folder / "cell.nix"
-    write_nix(path, [(v, step_command(n, RATE, 50.0, 0.1, 0.5))], rate_hz=RATE)
-    return path
+    monkeypatch.chdir(tmp_path)
+    # accepted results (./accepted, without a project file) from a first run: the check
+    # compares with them as well as applying the quality limits
+    first = CliRunner().invoke(main, ["measure", str(few_cells), "--out", "first", "--jobs", "1",
+                                      "--no-figures"])
+    assert first.exit_code == 0, first.output
+    assert CliRunner().invoke(main, ["accept", "first"]).exit_code == 0
+    out = tmp_path / "res"
+    read = []
+    original = apply.read_tables
 
+    def watched(folder, *args, **kwargs):
+        read.append(Path(folder).resolve())
+        return original(folder, *args, **kwargs)
 
-def _files(folder: Path) -> dict:
-    return {p.relative_to(folder).as_posix(): p.read_bytes()
-            for p in sorted(folder.rglob("*")) if p.is_file()}
-
-
-@pytest.mark.parametrize("foreign", [
-    {"spikes.csv": b"my,own,table\n"},
-    {"report.html": b"<p>my notes</p>\n", "notes.txt": b"kept\n"},
-    {"figures/plan.png": b"\x89PNG not really\n"},
-    {"run.json": b'{"tool": "something else"}\n', "cells.csv": b"x\n"},
-    {"run.json": b"not json\n"},
-])
-def test_out_holding_files_this_tool_did_not_write_is_refused(tmp_path, foreign):
-    """A run never overwrites what it did not write: a folder that holds a table, report,
-    figures folder or run.json of someone else's (no run.json of this tool) is refused before
-    anything is measured, and every file in it stays byte for byte."""
-    from spikemeasure.errors import UnusableOutputError
-
-    cell = _one_cell(tmp_path)
-    out = tmp_path / "out"
-    for name, data in foreign.items():
-        (out / name).parent.mkdir(parents=True, exist_ok=True)
-        (out / name).write_bytes(data)
-    before = _files(out)
-    with pytest.raises(UnusableOutputError, match="without a run.json written by spikemeasure"):
-        measure_paths([str(cell)], out)
-    assert _files(out) == before
-
-
-def test_out_holding_accepted_results_is_refused_and_a_results_folder_is_reused(tmp_path):
-    """The folder of an earlier run is written again (its run.json is this tool's); a folder
-    of accepted results is not a place for a run."""
-    from spikemeasure.checks.accept import accept_results
-    from spikemeasure.errors import UnusableOutputError
-
-    cell = _one_cell(tmp_path)
-    out = tmp_path / "out"
-    measure_paths([str(cell)], out)
-    first = tables(out)
-    measure_paths([str(cell)], out, force=True)
-    assert tables(out) == first
-    accept_results(out, tmp_path / "accepted", project_dir=tmp_path)
-    before = _files(tmp_path / "accepted")
-    with pytest.raises(UnusableOutputError, match="holds accepted results"):
-        measure_paths([str(cell)], tmp_path / "accepted")
-    assert _files(tmp_path / "accepted") == before
-
-
-def test_a_second_run_into_a_folder_being_written_is_refused(tmp_path):
-    """Two runs into one folder at once would mix their tables: while one holds the folder's
-    lock, another is refused, naming the folder; once the first ends, the folder is free."""
-    from spikemeasure.errors import UnusableOutputError
-    from spikemeasure.runner import _RunLock
-
-    cell = _one_cell(tmp_path)
-    out = tmp_path / "out"
-    out.mkdir()
-    with _RunLock(out):
-        with pytest.raises(UnusableOutputError, match="another spikemeasure run is writing"):
-            measure_paths([str(cell)], out)
-        assert not (out / "spikes.csv").exists()
-    summary = measure_paths([str(cell)], out)
-    assert summary.files_measured == 1
-
-
-def test_a_rerun_removes_temporaries_a_killed_run_left_and_nothing_else(tmp_path):
-    # A SIGKILL or a power cut inside an atomic write leaves `.NAME.XXXXXXXX.part` (mkstemp's
-    # name) beside the file; the next run into the folder removes its own such files only.
-    v = np.full(4000, -70.0)
-    rec = tmp_path / "rec"
-    rec.mkdir()
-    write_text(rec / "flat.txt", v)
-    out = tmp_path / "out"
-    measure_paths([str(rec)], out, jobs=1, figure_format=None)
-    stale = [out / ".spikes.csv.abcd1234.part", out / ".run.json.x_y9z0aB.part",
-             out / "figures" / "flat" / ".traces.png.k2j3h4g5.part"]
-    kept = [out / ".notes.txt.abcd1234.part", out / "spikes.csv.part", out / "mine.part"]
-    for path in stale + kept:
-        path.parent.mkdir(parents=True, exist_ok=True)
-        path.write_text("partial")
-    measure_paths([str(rec)], out, jobs=1, figure_format=None)
-    assert not any(p.exists() for p in stale)
-    assert all(p.read_text() == "partial" for p in kept)
+    monkeypatch.setattr(apply, "read_tables", watched)
+    measured = CliRunner().invoke(main, ["check", str(few_cells), "--out", str(out), "--json",
+                                         "--quiet", "--jobs", "1"])
+    assert out.resolve() not in read
+    again = CliRunner().invoke(main, ["check", str(out), "--json"])
+    assert out.resolve() in read
+    assert measured.exit_code == again.exit_code, measured.output
+    cases = json.loads(measured.stdout)["cases"]
+    assert cases and cases == json.loads(again.stdout)["cases"]

@@ -1,4 +1,4 @@
-"""The run's report, ``report.html``, and the groups file that sorts cells for it.
+"""The run's report, ``report.html``.
 
 The report is one static page: plain HTML with inline CSS, no scripts and no external
 resources. PNG and SVG figures are embedded as ``data:`` URIs, so the page can be copied
@@ -7,150 +7,38 @@ anywhere or attached to an email; when the figures of a run together exceed
 paths relative to the report, which hold as long as the output folder is copied whole.
 Every text from a file, a parameter or a message is escaped with :func:`html.escape`.
 
-This module reads only the figure files the run itself wrote, and the groups file.
+The cells come as typed columns (:class:`~spikemeasure.run.outcome.ColumnTable`) and are
+formatted here as cells.csv formats them. This module reads only the figure files the run
+itself wrote.
 """
 from __future__ import annotations
 
 import base64
-import csv
 import html
 import os
-from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Sequence
 
-from .columns import CELL_COLUMNS
-from .errors import SpikemeasureError, valid_text
-from .tables.write import unescape_csv_text, write_text_atomic
+from ..columns import CELL_COLUMNS
+from ..errors import valid_text
+from ..tables.write import write_text_atomic
+from ..run.outcome import ColumnTable, column_kind
 
-__all__ = ["Groups", "GroupsFileError", "read_groups", "cell_values", "report_html",
-           "write_report", "EMBED_LIMIT_BYTES"]
+__all__ = ["cell_values", "report_html", "write_report", "EMBED_LIMIT_BYTES"]
 
 #: Figures of a run up to this many bytes in all are embedded in the page; beyond, linked.
 EMBED_LIMIT_BYTES = 40_000_000
 _MIME = {".png": "image/png", ".svg": "image/svg+xml"}
 
 
-class GroupsFileError(SpikemeasureError):
-    """The groups file cannot be read or is not a table of files and groups."""
-
-
-@dataclass(frozen=True)
-class Groups:
-    """Which group each file belongs to, from a groups file.
-
-    Attributes
-    ----------
-    path : str
-        The groups file.
-    label : str
-        The name of its group column (``genotype``, ``region``, ...).
-    mapping : dict
-        File (as the tables name it) -> group.
-    """
-
-    path: str
-    label: str
-    mapping: dict[str, str] = field(default_factory=dict)
-
-    def notes(self, files: Sequence[str]) -> list[str]:
-        """Messages about files of the run missing from the groups file, and the reverse."""
-        run = set(files)
-        missing = [f for f in files if f not in self.mapping]
-        unknown = [f for f in self.mapping if f not in run]
-        out = []
-        if missing:
-            out.append(f"{self.path}: {len(missing)} measured file(s) not listed, shown as "
-                       f"'(no group)': {', '.join(missing[:10])}"
-                       + (", ..." if len(missing) > 10 else ""))
-        if unknown:
-            out.append(f"{self.path}: {len(unknown)} listed file(s) not measured in this run "
-                       f"(names must match the `file` column of cells.csv): "
-                       f"{', '.join(unknown[:10])}" + (", ..." if len(unknown) > 10 else ""))
-        return out
-
-
-def read_groups(path: str | os.PathLike) -> Groups:
-    """Read a groups file: a CSV table with a ``file`` column and one group column.
-
-    Parameters
-    ----------
-    path : str or path-like
-        Comma-separated, UTF-8, a header row naming the two columns, e.g.
-        ``file,genotype``; each further row a file, named as in the ``file`` column of
-        cells.csv (its path relative to the folder measured), and its group.
-
-    Returns
-    -------
-    Groups
-
-    Raises
-    ------
-    GroupsFileError
-        If the file cannot be read, is not UTF-8, has no ``file`` column, has not exactly one
-        other column, or a row has an empty file or group, the wrong number of cells, or names
-        a file already given a different group. The message names the file and the line.
-    """
-    name = str(path)
-    try:
-        with open(path, newline="", encoding="utf-8-sig") as fh:
-            rows = list(csv.reader(fh))
-    except OSError as exc:
-        raise GroupsFileError(f"{name}: cannot read the groups file "
-                              f"({exc.strerror or exc})") from exc
-    except UnicodeDecodeError as exc:
-        raise GroupsFileError(f"{name}: the groups file is not UTF-8 text; save it as UTF-8 "
-                              "CSV") from exc
-    except csv.Error as exc:
-        raise GroupsFileError(f"{name}: not a CSV table ({exc})") from exc
-    rows = [r for r in rows if any(cell.strip() for cell in r)]
-    if not rows:
-        raise GroupsFileError(f"{name}: the groups file is empty; it needs a header row "
-                              "`file,GROUP` and a row per file")
-    header = [h.strip() for h in rows[0]]
-    if "file" not in header:
-        raise GroupsFileError(f"{name}: no `file` column in the header row ({', '.join(header)});"
-                              " the first row must name the columns, e.g. `file,genotype`")
-    others = [h for h in header if h != "file"]
-    if len(others) != 1 or header.count("file") != 1 or not others[0]:
-        raise GroupsFileError(f"{name}: the header must name `file` and exactly one group "
-                              f"column (got {', '.join(header)})")
-    fi, gi = header.index("file"), header.index(others[0])
-    mapping: dict[str, str] = {}
-    for line, row in enumerate(rows[1:], start=2):
-        if len(row) != len(header):
-            raise GroupsFileError(f"{name}, line {line}: {len(row)} cells, the header has "
-                                  f"{len(header)}")
-        file = row[fi].strip().replace("\\", "/")
-        file = file[2:] if file.startswith("./") else file
-        file = unescape_csv_text(file)  # copied from cells.csv: '=cell.nwb is =cell.nwb
-        group = row[gi].strip()
-        if not file or not group:
-            raise GroupsFileError(f"{name}, line {line}: the file and its {others[0]} must "
-                                  "both be given")
-        if mapping.get(file, group) != group:
-            raise GroupsFileError(f"{name}, line {line}: {file} is in {mapping[file]!r} "
-                                  f"already, now in {group!r}")
-        mapping[file] = group
-    return Groups(name, others[0], mapping)
-
-
-def _float(text: str) -> float:
-    try:
-        return float(text) if text != "" else float("nan")
-    except ValueError:
-        return float("nan")
-
-
-def cell_values(cell_rows: Sequence[Sequence[str]]) -> list[dict]:
-    """Rows of cells.csv (as formatted text) as dicts: ``file`` and every numeric column as a
-    float (NaN when empty)."""
-    names = [c.name for c in CELL_COLUMNS]
-    out = []
-    for row in cell_rows:
-        values = dict(zip(names, row))
-        out.append({k: (v if k in ("file", "flags") else _float(v)) for k, v in values.items()})
-    return out
+def cell_values(cells: ColumnTable) -> list[dict]:
+    """The cells table as one dict per cell: ``file``, ``flags`` and every numeric column as a
+    float (NaN when not measured)."""
+    names = [c.name for c in cells.columns]
+    text = {c.name for c in cells.columns if column_kind(c) == "text"}
+    columns = [cells.column(n) if n in text else cells.column(n).tolist() for n in names]
+    return [{n: (v if n in text else float(v)) for n, v in zip(names, row)}
+            for row in zip(*columns)]
 
 
 _CSS = """
@@ -211,8 +99,7 @@ _RUN_STATUS_TEXT = {
 }
 
 
-def report_html(record: dict, cell_rows: Sequence[Sequence[str]],
-                folder: str | os.PathLike) -> str:
+def report_html(record: dict, cells: ColumnTable, folder: str | os.PathLike) -> str:
     """The text of ``report.html``.
 
     Parameters
@@ -220,22 +107,20 @@ def report_html(record: dict, cell_rows: Sequence[Sequence[str]],
     record : dict
         The run record, as written to run.json (inputs, failures, parameters, totals,
         figures, groups, notes).
-    cell_rows : sequence of sequence of str
-        The rows of cells.csv, formatted as in the file.
+    cells : ColumnTable
+        The run's cells table (typed columns of :data:`~spikemeasure.columns.CELL_COLUMNS`).
     folder : str or path-like
         The output folder; figure paths in `record` are relative to it.
+
+    Returns
+    -------
+    str
+        The page: the run (summary, failures, notes, files, parameters), the cells table,
+        and the figures.
     """
-    folder = Path(folder)
-    totals = record.get("totals", {})
     inputs = record.get("inputs", [])
-    failures = record.get("failures", [])
-    figures = record.get("figures") or {}
-    per_cell = figures.get("cells") or {}
-    listed = [p for paths in per_cell.values() for p in paths]
-    if figures.get("batch"):
-        listed.append(figures["batch"])
-    size = sum((folder / p).stat().st_size for p in listed if (folder / p).is_file())
-    embed = size <= EMBED_LIMIT_BYTES
+    per_cell = (record.get("figures") or {}).get("cells") or {}
+    anchors = {f: f"cell-{k}" for k, f in enumerate(per_cell)}
     title = f"spikemeasure report: {len(inputs)} file" + ("" if len(inputs) == 1 else "s")
     parts = [
         "<!DOCTYPE html>", '<html lang="en">', "<head>", '<meta charset="utf-8">',
@@ -246,6 +131,18 @@ def report_html(record: dict, cell_rows: Sequence[Sequence[str]],
         "person, who looks at the traces below; not for clinical decisions.</p>",
         '<h2 id="run">Run</h2>',
     ]
+    parts += _run_section(record)
+    parts += _cells_section(record, cells, anchors)
+    parts += _figures_section(record, Path(folder), anchors)
+    parts += ["</body>", "</html>", ""]
+    return "\n".join(parts)
+
+
+def _run_section(record: dict) -> list[str]:
+    """The run's summary, failures, notes, files and parameters."""
+    totals = record.get("totals", {})
+    inputs = record.get("inputs", [])
+    failures = record.get("failures", [])
     versions = record.get("versions", {})
     status = _RUN_STATUS_TEXT.get(record.get("status") or (
         "interrupted" if record.get("interrupted") else "complete"), "unknown")
@@ -268,7 +165,7 @@ def report_html(record: dict, cell_rows: Sequence[Sequence[str]],
     groups = record.get("groups")
     if groups:
         summary_rows.append(("groups", f"{groups['column']} from {groups['file']}"))
-    parts.append(_table([], [(f"<b>{_e(k)}</b>", _e(v)) for k, v in summary_rows]))
+    parts = [_table([], [(f"<b>{_e(k)}</b>", _e(v)) for k, v in summary_rows])]
     parts.append(f'<h3 id="failures">Failures and problems ({len(failures)})</h3>')
     if failures:
         parts.append(_table(["file", "stage", "reason"],
@@ -290,8 +187,14 @@ def report_html(record: dict, cell_rows: Sequence[Sequence[str]],
     parts.append("<h3>Parameters</h3>")
     parts.append(_table(["parameter", "value"], [(_e(k), _e("not set" if v is None else v))
                                                  for k, v in record.get("parameters", {}).items()]))
-    parts.append(f'<h2 id="cells">Cells ({len(cell_rows)})</h2>')
-    anchors = {f: f"cell-{k}" for k, f in enumerate(per_cell)}
+    return parts
+
+
+def _cells_section(record: dict, cells: ColumnTable, anchors: dict[str, str]) -> list[str]:
+    """The cells table, formatted as cells.csv, with each file's group when there are groups."""
+    cell_rows = cells.formatted_rows()
+    parts = [f'<h2 id="cells">Cells ({len(cell_rows)})</h2>']
+    groups = record.get("groups")
     header = [c.name for c in CELL_COLUMNS]
     members = (groups or {}).get("members")
     if members is not None:
@@ -310,26 +213,36 @@ def report_html(record: dict, cell_rows: Sequence[Sequence[str]],
                             + numeric))
     else:
         parts.append("<p>No cell could be measured.</p>")
+    return parts
+
+
+def _figures_section(record: dict, folder: Path, anchors: dict[str, str]) -> list[str]:
+    """The batch figure and each cell's figures, embedded up to EMBED_LIMIT_BYTES in all."""
+    figures = record.get("figures") or {}
     if not figures.get("format"):
-        parts.append("<p>Figures were not drawn in this run (<code>--no-figures</code>).</p>")
-    else:
-        if figures.get("batch"):
-            parts.append('<h2 id="across-cells">Across cells</h2>')
-            parts.append(_image(folder, figures["batch"], "cell features across cells", embed))
-        if not embed:
-            parts.append(f"<p>The figures ({size / 1e6:.0f} MB) are linked, not embedded: copy "
-                         "the whole output folder with this page.</p>")
-        for file, paths in per_cell.items():
-            parts.append(f'<h2 id="{anchors[file]}">{_e(file)}</h2>')
-            for p in paths:
-                what = Path(p).stem.replace("_", " ")
-                parts.append(_image(folder, p, f"{what} of {file}", embed))
-    parts += ["</body>", "</html>", ""]
-    return "\n".join(parts)
+        return ["<p>Figures were not drawn in this run (<code>--no-figures</code>).</p>"]
+    per_cell = figures.get("cells") or {}
+    listed = [p for paths in per_cell.values() for p in paths]
+    if figures.get("batch"):
+        listed.append(figures["batch"])
+    size = sum((folder / p).stat().st_size for p in listed if (folder / p).is_file())
+    embed = size <= EMBED_LIMIT_BYTES
+    parts = []
+    if figures.get("batch"):
+        parts.append('<h2 id="across-cells">Across cells</h2>')
+        parts.append(_image(folder, figures["batch"], "cell features across cells", embed))
+    if not embed:
+        parts.append(f"<p>The figures ({size / 1e6:.0f} MB) are linked, not embedded: copy "
+                     "the whole output folder with this page.</p>")
+    for file, paths in per_cell.items():
+        parts.append(f'<h2 id="{anchors[file]}">{_e(file)}</h2>')
+        for p in paths:
+            what = Path(p).stem.replace("_", " ")
+            parts.append(_image(folder, p, f"{what} of {file}", embed))
+    return parts
 
 
-def write_report(path: str | os.PathLike, record: dict,
-                 cell_rows: Sequence[Sequence[str]]) -> Path:
+def write_report(path: str | os.PathLike, record: dict, cells: ColumnTable) -> Path:
     """Write :func:`report_html` to `path` atomically; figures are found beside it."""
     path = Path(path)
-    return write_text_atomic(path, report_html(record, cell_rows, path.parent))
+    return write_text_atomic(path, report_html(record, cells, path.parent))

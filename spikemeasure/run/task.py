@@ -1,0 +1,140 @@
+"""One file's task: read it, measure every sweep, draw its figures; a typed outcome.
+
+It runs in this process, in a worker process or on a cluster's worker, so it takes plain
+values and returns a :class:`~spikemeasure.run.outcome.FileOutcome`.
+"""
+from __future__ import annotations
+
+import traceback
+from pathlib import Path
+from typing import Callable
+
+from ..columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS
+from ..analysis.detection import DetectionSettings
+from ..errors import InvalidSettingError, SpikemeasureError
+from ..io import read_recording
+from ..tables.build import (cell_summary, cell_table, count_spikes, flag_counts, measure_recording,
+                      spike_table, sweep_table)
+from .outcome import ColumnTable, FileOutcome, failure, internal_error_outcome
+
+__all__ = ["measure_file", "cell_figure_folder", "figures_present", "FIGURES_FOLDER"]
+
+FIGURES_FOLDER = "figures"
+
+
+def cell_figure_folder(shown: str) -> str:
+    """Where a file's figures go, relative to the output folder (``/`` separated)."""
+    from ..figures import figure_folder_name  # matplotlib itself is imported only to draw
+
+    return f"{FIGURES_FOLDER}/{figure_folder_name(shown)}"
+
+
+def measure_file(path: str, shown: str, parameters: dict, figures: dict | None = None, *,
+                 cancel: Callable[[], None] | None = None) -> FileOutcome:
+    """Read and measure one file.
+
+    Parameters
+    ----------
+    path : str
+        The file.
+    shown : str
+        Its name in the tables.
+    parameters : dict
+        ``settings`` (:meth:`DetectionSettings.as_dict`), ``step_s``, ``step_sizes_pa``,
+        ``sampling_rate_hz`` and ``max_sweep_samples``, as plain values.
+    figures : dict, optional
+        ``{"out": output folder, "format": "png"}``: write the cell's figures too.
+    cancel : callable, optional
+        Called between sweeps and between the pieces of long sweeps; it stops the work by
+        raising (``KeyboardInterrupt`` when a run is stopped), which propagates.
+
+    Returns
+    -------
+    FileOutcome
+        Its tables, failures and counts; ``figures`` lists the figures written, relative to
+        the output folder.
+
+    Notes
+    -----
+    An unexpected exception (a bug) does not escape: the outcome holds one failure of stage
+    ``internal error`` naming the file and the exception's type, with its traceback under
+    ``traceback``; such an outcome is never kept for a rerun.
+    """
+    if cancel is not None and not callable(cancel):
+        raise InvalidSettingError("`cancel` must be callable or None")
+    try:
+        return _measure_file(path, shown, parameters, figures, cancel)
+    except Exception as exc:  # a bug in one file's task must not stop the batch
+        return internal_error_outcome(shown, exc, traceback.format_exc())
+
+
+def _measure_file(path: str, shown: str, parameters: dict, figures: dict | None,
+                  cancel: Callable[[], None] | None) -> FileOutcome:
+    settings = DetectionSettings(**parameters["settings"])
+    step_times = tuple(parameters["step_s"]) if parameters.get("step_s") else None
+    step_sizes = tuple(parameters["step_sizes_pa"]) if parameters.get("step_sizes_pa") else None
+    outcome = FileOutcome(shown, figure_format=figures["format"] if figures else None)
+    try:
+        recording = read_recording(path, shown_as=shown,
+                                   sampling_rate_hz=parameters.get("sampling_rate_hz"),
+                                   max_sweep_samples=parameters.get("max_sweep_samples"))
+    except SpikemeasureError as exc:
+        outcome.failures.append(failure(shown, "read", str(exc)))
+        return outcome
+    with recording:  # open until its figures are drawn: long sweeps are read from it
+        results = measure_recording(recording, settings, step_times, step_sizes, cancel=cancel)
+        measured = [r for r in results if r.error is None]
+        for problem in recording.problems:
+            outcome.failures.append(failure(shown, "read", problem))
+        for r in results:
+            if r.error:
+                outcome.failures.append(failure(shown, f"sweep {r.sweep.index}", r.error))
+        outcome.format = recording.format
+        outcome.sweep_count = len(recording.sweeps)
+        outcome.sweeps_measured = len(measured)
+        outcome.spike_count = count_spikes(results)
+        outcome.spike_flags = flag_counts(results)
+        outcome.spikes = ColumnTable.from_lists(spike_table(results), SPIKE_COLUMNS)
+        outcome.sweeps = ColumnTable.from_lists(sweep_table(results), SWEEP_COLUMNS)
+        if measured:
+            cell = cell_summary(results)
+            outcome.cells = ColumnTable.from_lists(cell_table([(shown, cell)]), CELL_COLUMNS)
+            if figures:
+                outcome.figures = _cell_figures(recording, results, cell, settings, shown,
+                                                figures, outcome.failures)
+    return outcome
+
+
+def _cell_figures(recording, results, cell, settings: DetectionSettings, shown: str,
+                  figures: dict, failures: list[dict]) -> list[str]:
+    """Draw one cell's figures while its recording is in memory; their paths, relative to the
+    output folder. A figure that cannot be written (disk full, permissions) is a failure of
+    the file's ``figures`` stage, and so is an unexpected exception while drawing (with its
+    traceback); its tables stand either way."""
+    from ..figures import write_cell_figures
+
+    folder = cell_figure_folder(shown)
+    try:
+        names = write_cell_figures(recording, results, Path(figures["out"]) / folder,
+                                   figures["format"], settings=settings, cell=cell)
+    except OSError as exc:
+        failures.append(failure(shown, "figures", f"{shown}: cannot write its figures ({exc})"))
+        return []
+    except Exception as exc:  # a bug in drawing: the measurements stand
+        failures.append(dict(failure(
+            shown, "figures", f"{shown}: internal error ({type(exc).__name__}) while drawing "
+            "its figures; its tables stand. This is a bug: please report it with the traceback "
+            "in run.json (or run with --debug)"), traceback=traceback.format_exc()))
+        return []
+    return [f"{folder}/{name}" for name in names]
+
+
+def figures_present(out: Path, outcome: FileOutcome, shown: str, fmt: str | None) -> bool:
+    """Whether a kept outcome's figures are those this run asks for, and all on disk."""
+    if outcome.figure_format != fmt:
+        return False
+    folder = cell_figure_folder(shown)
+    if outcome.sweeps_measured and not outcome.figures:
+        return False
+    return all(p.startswith(folder + "/") and p.endswith("." + fmt) and (out / p).is_file()
+               for p in outcome.figures)
