@@ -48,6 +48,7 @@ from .detection import DetectionSettings
 from .errors import (InvalidSettingError, OutputWriteError, SpikemeasureError,
                      UnusableOutputError, printable_name)
 from .output import json_text, rows_csv_text, write_files_atomic, write_json, write_text_atomic
+from .params import parameters_record
 from .reading import TEXT_SUFFIXES, read_recording, search_recordings
 from .tables import (cell_summary, cell_table, count_spikes, flag_counts, format_rows,
                      measure_recording, spike_table, sweep_table)
@@ -974,10 +975,7 @@ class _Run:
             "status": status,
             "interrupted": status == "interrupted",
             "config_file": self.config_file,
-            "parameters": {**self.parameters["settings"], "step_s": self.parameters["step_s"],
-                           "step_sizes_pa": self.parameters["step_sizes_pa"],
-                           "sampling_rate_hz": self.parameters["sampling_rate_hz"],
-                           "max_sweep_samples": self.parameters["max_sweep_samples"]},
+            "parameters": parameters_record(self.parameters["settings"], self.parameters),
             "inputs": counts.inputs,
             "failures": [{k: v for k, v in f.items() if k != "traceback"}
                          for f in counts.failures],

@@ -17,17 +17,17 @@ import sys
 
 import click
 
-from . import __version__
-from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, columns_markdown
-from .detection import THRESHOLD_METHODS, DetectionSettings
-from .errors import SpikemeasureError, UnusableOutputError, printable_name
+from .. import __version__
+from ..columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, columns_markdown
+from ..detection import THRESHOLD_METHODS, DetectionSettings
+from ..errors import SpikemeasureError, UnusableOutputError, printable_name
 
 
 
 def _step_sizes(ctx: click.Context, param: click.Parameter, value):
     if value is None:
         return None
-    from .sweeps import parse_step_sizes
+    from ..sweeps import parse_step_sizes
 
     try:
         return parse_step_sizes(value)
@@ -108,7 +108,7 @@ def _run_parameters(ctx: click.Context, paths, config_path, values: dict):
     """Command line over the project file over the defaults (see spikemeasure.config)."""
     from click.core import ParameterSource
 
-    from .config import find_project_file, merge_parameters
+    from ..config import find_project_file, merge_parameters
 
     path = config_path or find_project_file(list(paths))
     file_values = _checked_project_file(path)[0] if path else {}
@@ -122,7 +122,7 @@ def _run_parameters(ctx: click.Context, paths, config_path, values: dict):
 def _checked_project_file(path):
     """The [measure] values and the check settings of a project file, every table checked:
     a bad project file is the same error in every command."""
-    from .config import load_check_settings, load_config
+    from ..config import load_check_settings, load_config
 
     return load_config(path), load_check_settings(path)
 
@@ -150,8 +150,8 @@ class _InputError(click.ClickException):
 def _fail(ctx: click.Context, exc: Exception) -> None:
     """Library errors become one 'Error:' line, unless --debug asks for the traceback: exit
     2 for a usage error (a bad project file or option value), 1 for the rest."""
-    from .config import ConfigError
-    from .errors import InvalidSettingError
+    from ..config import ConfigError
+    from ..errors import InvalidSettingError
 
     if ctx.find_object(_Context).debug:
         raise exc
@@ -243,11 +243,11 @@ def measure(ctx: click.Context, paths, out_dir, jobs, force, patterns, cluster, 
     (figures/) and report.html. A rerun measures only the files that changed (or whose
     parameters did) since the last run into the same --out.
     """
-    from .runner import default_jobs, measure_paths
+    from ..runner import default_jobs, measure_paths
 
     groups = None
     if groups_path is not None:
-        from .report import GroupsFileError, read_groups
+        from ..report import GroupsFileError, read_groups
 
         try:
             groups = read_groups(groups_path)
@@ -256,9 +256,9 @@ def measure(ctx: click.Context, paths, out_dir, jobs, force, patterns, cluster, 
     progress = None if quiet else _Progress(sys.stderr.isatty())
     try:
         params = _run_parameters(ctx, paths, config_path, kw)
-        _check_step_options(params.step_times, params.step_sizes)
+        _check_step_options(params.step_s, params.step_sizes_pa)
         summary = measure_paths(list(paths), out_dir, params.settings,
-                                step_times=params.step_times, step_sizes=params.step_sizes,
+                                step_times=params.step_s, step_sizes=params.step_sizes_pa,
                                 sampling_rate_hz=params.sampling_rate_hz,
                                 max_sweep_samples=params.max_sweep_samples,
                                 jobs=jobs or default_jobs(), force=force,
@@ -316,13 +316,13 @@ def measure(ctx: click.Context, paths, out_dir, jobs, force, patterns, cluster, 
 @click.pass_context
 def inspect(ctx: click.Context, file, show, config_path, **kw):
     """Show what FILE holds: format, channels, each sweep's step and spikes, the cell summary."""
-    from .inspection import inspect_file
+    from ..inspection import inspect_file
 
     try:
         params = _run_parameters(ctx, [file], config_path, kw)
-        _check_step_options(params.step_times, params.step_sizes)
-        found = inspect_file(file, params.settings, step_times=params.step_times,
-                             step_sizes=params.step_sizes,
+        _check_step_options(params.step_s, params.step_sizes_pa)
+        found = inspect_file(file, params.settings, step_times=params.step_s,
+                             step_sizes=params.step_sizes_pa,
                              sampling_rate_hz=params.sampling_rate_hz,
                              max_sweep_samples=params.max_sweep_samples)
     except SpikemeasureError as exc:
@@ -331,7 +331,7 @@ def inspect(ctx: click.Context, file, show, config_path, **kw):
     click.echo(found.text)
     try:
         if show and found.ok:
-            from .figures import show_figures
+            from ..figures import show_figures
 
             show_figures(found.results, settings=params.settings, file=file)
     except SpikemeasureError as exc:
@@ -361,7 +361,7 @@ def _project_option(func):
 def _check_settings(paths, config_path):
     from pathlib import Path
 
-    from .config import find_project_file, load_check_settings
+    from ..config import find_project_file, load_check_settings
 
     path = Path(config_path) if config_path else find_project_file(list(paths))
     if path is None:
@@ -401,8 +401,8 @@ def check(ctx: click.Context, paths, out_dir, jobs, junit_path, as_json, max_row
     `spikemeasure accept`) from [regression]'s accepted_folder, with a tolerance per
     column. Exit codes: 0 all passed, 1 a check failed, 2 a usage or input error.
     """
-    from .checks import check_run, report_dict, report_text
-    from .junit import write_junit
+    from ..checks import check_run, report_dict, report_text
+    from ..junit import write_junit
 
     if out_dir is None and len(paths) != 1:
         raise click.UsageError("give one folder of a run's tables, or recordings with "
@@ -410,15 +410,15 @@ def check(ctx: click.Context, paths, out_dir, jobs, junit_path, as_json, max_row
     try:
         project, settings = _check_settings(paths, config_path)
         if out_dir is not None:
-            from .runner import default_jobs, measure_paths
+            from ..runner import default_jobs, measure_paths
 
             params = _run_parameters(ctx, paths, str(project) if project else None, {})
-            _check_step_options(params.step_times, params.step_sizes)
+            _check_step_options(params.step_s, params.step_sizes_pa)
             progress = None if quiet else _Progress(sys.stderr.isatty())
             try:
                 summary = measure_paths(list(paths), out_dir, params.settings,
-                                        step_times=params.step_times,
-                                        step_sizes=params.step_sizes,
+                                        step_times=params.step_s,
+                                        step_sizes=params.step_sizes_pa,
                                         sampling_rate_hz=params.sampling_rate_hz,
                                         max_sweep_samples=params.max_sweep_samples,
                                         jobs=jobs or default_jobs(),
@@ -474,7 +474,7 @@ def accept(ctx: click.Context, results_dir, config_path):
     """
     from pathlib import Path
 
-    from .checks import accept_results
+    from ..checks import accept_results
 
     try:
         project, settings = _check_settings([results_dir], config_path)

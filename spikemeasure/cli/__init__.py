@@ -1,0 +1,4 @@
+"""The command line (``spikemeasure``)."""
+from .main import main
+
+__all__ = ["main"]
