@@ -8,7 +8,7 @@ from typing import Any, NoReturn, Sequence
 
 import click
 
-from ..errors import UnusableOutputError, printable_name
+from ..errors import UnusableOutputError
 
 __all__ = ["CliState", "InputError", "debugging", "fail", "input_error", "Progress",
            "measure_into"]
