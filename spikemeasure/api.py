@@ -7,9 +7,8 @@ the project file's keys (``onset_rate_v_per_s=30``); a wrong name or value raise
 """
 from __future__ import annotations
 
-import math
 import os
-from dataclasses import dataclass, field, fields
+from dataclasses import dataclass, field
 from typing import Any, Iterator, Mapping, Sequence
 
 import numpy as np
@@ -19,13 +18,15 @@ from .analysis.detection import DetectionSettings
 from .errors import InvalidSettingError
 from .analysis.spikes import measure_trace as _measure_spikes_of_trace
 from .io import Recording, read_recording
+from .params import SETTING_PARAMETERS, check_value
 from .tables.build import (cell_summary, cell_table, measure_recording, spike_table, spike_values,
                            sweep_table)
 
 __all__ = ["Table", "Results", "measure", "measure_trace", "read_recording"]
 
-#: The settings :func:`measure` and :func:`measure_trace` take by keyword, with their types.
-SETTING_TYPES: dict[str, type] = {f.name: type(f.default) for f in fields(DetectionSettings)}
+#: The settings :func:`measure` and :func:`measure_trace` take by keyword, with their types
+#: (declared in :data:`spikemeasure.params.PARAMETERS`).
+SETTING_TYPES: dict[str, type] = {p.name: p.python_type for p in SETTING_PARAMETERS}
 
 
 class Table:
@@ -113,44 +114,17 @@ class Results:
 
 
 def _checked_settings(settings: Mapping[str, Any]) -> DetectionSettings:
-    """:class:`DetectionSettings` from keywords, each name and type checked first."""
-    values = {}
-    for name, value in settings.items():
+    """:class:`DetectionSettings` from keywords, each name and value checked first."""
+    for name in settings:
         if name not in SETTING_TYPES:
             raise InvalidSettingError(
                 f"`{name}` is not a setting; settings are: {', '.join(SETTING_TYPES)}")
-        kind = SETTING_TYPES[name]
-        if kind is str:
-            if not isinstance(value, str):
-                raise InvalidSettingError(f"`{name}` must be text (got {value!r})")
-        elif isinstance(value, bool) or not isinstance(value, (int, float, np.integer,
-                                                               np.floating)):
-            raise InvalidSettingError(f"`{name}` must be a number (got {value!r})")
-        elif kind is int and value != int(value):
-            raise InvalidSettingError(f"`{name}` must be a whole number (got {value!r})")
-        values[name] = kind(value)
-    return DetectionSettings(**values)
+    return DetectionSettings(**settings)  # each value checked by its declaration there
 
 
-def _checked_pair(name: str, value) -> tuple[float, float] | None:
-    if value is None:
-        return None
-    try:
-        pair = tuple(float(v) for v in value)
-    except (TypeError, ValueError):
-        pair = ()
-    if len(pair) != 2 or not all(math.isfinite(v) for v in pair):
-        raise InvalidSettingError(f"`{name}` must be two finite numbers (got {value!r})")
-    return pair  # type: ignore[return-value]
-
-
-def _checked_rate(sampling_rate_hz) -> float:
-    if isinstance(sampling_rate_hz, bool) or not isinstance(
-            sampling_rate_hz, (int, float, np.integer, np.floating)) \
-            or not (math.isfinite(sampling_rate_hz) and sampling_rate_hz > 0):
-        raise InvalidSettingError(
-            f"`sampling_rate_hz` must be a positive number (got {sampling_rate_hz!r})")
-    return float(sampling_rate_hz)
+def _checked_option(name: str, value: Any) -> Any:
+    """A run option checked by its declaration; None: not given."""
+    return None if value is None else check_value(name, value)
 
 
 def measure(recording: str | os.PathLike | Recording, *, step_s: Sequence[float] | None = None,
@@ -165,7 +139,7 @@ def measure(recording: str | os.PathLike | Recording, *, step_s: Sequence[float]
         read with :func:`read_recording`.
     step_s : (start_s, end_s), optional
         The current step's times, for sweeps without a command channel.
-    step_sizes_pa : (first_pa, increment_pa), optional
+    step_sizes_pa : (first_pa, increment_pa) or "FIRST:INCREMENT", optional
         The step sizes of sweeps without a command channel.
     sampling_rate_hz : float, optional
         The sampling rate of a text file without a time column.
@@ -192,10 +166,9 @@ def measure(recording: str | os.PathLike | Recording, *, step_s: Sequence[float]
     definitions of every column are in docs/measurements.md.
     """
     detection = _checked_settings(settings)
-    step_times = _checked_pair("step_s", step_s)
-    step_sizes = _checked_pair("step_sizes_pa", step_sizes_pa)
-    if sampling_rate_hz is not None:
-        sampling_rate_hz = _checked_rate(sampling_rate_hz)
+    step_times = _checked_option("step_s", step_s)
+    step_sizes = _checked_option("step_sizes_pa", step_sizes_pa)
+    sampling_rate_hz = _checked_option("sampling_rate_hz", sampling_rate_hz)
     if isinstance(recording, Recording):
         return _measure_recording(recording, detection, step_times, step_sizes)
     if not isinstance(recording, (str, os.PathLike)):
@@ -242,6 +215,6 @@ def measure_trace(voltage_mv, sampling_rate_hz: float, **settings: Any) -> Table
         A setting, the voltage or the rate that cannot be used, named.
     """
     detection = _checked_settings(settings)
-    rate = _checked_rate(sampling_rate_hz)
+    rate = check_value("sampling_rate_hz", sampling_rate_hz)
     spikes = _measure_spikes_of_trace(np.asarray(voltage_mv, dtype=float), rate, detection)
     return Table(SPIKE_COLUMNS, spike_values(spikes, "", 0))

@@ -1,36 +1,32 @@
 """A lab's project file, ``spikemeasure.toml``: the settings a team measures with.
 
-The file holds one table, ``[measure]``, whose keys are named like the fields of
-:class:`~spikemeasure.detection.DetectionSettings` plus four run options::
+The file's ``[measure]`` table holds parameters by name, as declared in
+:data:`spikemeasure.params.PARAMETERS` (the detection settings and four run options), each
+value checked by :func:`spikemeasure.params.check_value`::
 
     [measure]
-    onset_rate_v_per_s = 20.0
     threshold_method = "max_rate_fraction"
-    threshold_fraction = 0.05
     step_s = [0.1, 0.7]          # current step start and end, s
     step_sizes_pa = "-100:20"    # FIRST:INCREMENT, pA
-    sampling_rate_hz = 20000
-    max_sweep_samples = 1000000000   # sweeps declaring more are refused unread
 
-Values given on the command line win over the file, and the file wins over the defaults of
-:class:`~spikemeasure.detection.DetectionSettings`. The file is only ever parsed as TOML;
-nothing in it is executed.
+Values given on the command line win over the file, and the file wins over the declared
+defaults. The file is only ever parsed as TOML; nothing in it is executed.
 """
 from __future__ import annotations
 
 import difflib
-import math
 import os
 import re
 import sys
-from dataclasses import dataclass, fields
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Callable, Mapping, Sequence
 
-from .analysis.detection import THRESHOLD_METHODS, DetectionSettings
-from .errors import InvalidSettingError, SpikemeasureError
 from .checks.rules import QUALITY_KEYS, REGRESSION_KEYS
-from .analysis.sweeps import parse_step_sizes
+from .analysis.detection import DetectionSettings
+from .errors import InvalidSettingError, SpikemeasureError
+from .params import (RUN_OPTION_PARAMETERS, SETTING_PARAMETERS, check_value, parameter,
+                     parameters_record)
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -51,20 +47,13 @@ CONFIG_FILE_NAME = "spikemeasure.toml"
 CONFIG_SECTION = "measure"
 
 #: Keys that set :class:`DetectionSettings` fields, in field order.
-SETTING_KEYS: tuple[str, ...] = tuple(f.name for f in fields(DetectionSettings))
+SETTING_KEYS: tuple[str, ...] = tuple(p.name for p in SETTING_PARAMETERS)
 
 #: Keys for the run options outside :class:`DetectionSettings`.
-RUN_KEYS: tuple[str, ...] = ("step_s", "step_sizes_pa", "sampling_rate_hz", "max_sweep_samples")
+RUN_KEYS: tuple[str, ...] = tuple(p.name for p in RUN_OPTION_PARAMETERS)
 
 #: Every key ``[measure]`` accepts.
 KNOWN_KEYS: tuple[str, ...] = SETTING_KEYS + RUN_KEYS
-
-_INTEGER_KEYS = frozenset({"min_samples_across_width"})
-_STRING_KEYS = frozenset({"threshold_method"})
-
-_EXAMPLES = {"step_s": "[0.1, 0.7]", "step_sizes_pa": '"-100:20"',
-             "sampling_rate_hz": "20000.0", "threshold_method": f'"{THRESHOLD_METHODS[0]}"',
-             "min_samples_across_width": "3", "max_sweep_samples": "1000000000"}
 
 
 #: The table of quality limits, read by ``spikemeasure check``.
@@ -89,9 +78,9 @@ class RunParameters:
     ----------
     settings : DetectionSettings
         Detection and measurement settings.
-    step_times : (float, float) or None
+    step_s : (float, float) or None
         Start and end of the current step in s, for files without a command channel.
-    step_sizes : (float, float) or None
+    step_sizes_pa : (float, float) or None
         First step size and increment in pA (sweep k gets first + k * increment).
     sampling_rate_hz : float or None
         Sampling rate for text files without a time column.
@@ -103,8 +92,8 @@ class RunParameters:
     """
 
     settings: DetectionSettings
-    step_times: tuple[float, float] | None
-    step_sizes: tuple[float, float] | None
+    step_s: tuple[float, float] | None
+    step_sizes_pa: tuple[float, float] | None
     sampling_rate_hz: float | None
     config_file: str | None
     max_sweep_samples: int | None = None
@@ -124,12 +113,10 @@ class RunParameters:
         :meth:`from_dict` turns the result (also after a JSON round trip) back into an equal
         :class:`RunParameters`.
         """
-        return {**self.settings.as_dict(),
-                "step_s": list(self.step_times) if self.step_times is not None else None,
-                "step_sizes_pa": list(self.step_sizes) if self.step_sizes is not None else None,
-                "sampling_rate_hz": self.sampling_rate_hz,
-                "max_sweep_samples": self.max_sweep_samples,
-                "config_file": self.config_file}
+        run_options = {"step_s": self.step_s, "step_sizes_pa": self.step_sizes_pa,
+                       "sampling_rate_hz": self.sampling_rate_hz,
+                       "max_sweep_samples": self.max_sweep_samples}
+        return {**parameters_record(self.settings, run_options), "config_file": self.config_file}
 
     @classmethod
     def from_dict(cls, values: Mapping[str, Any]) -> "RunParameters":
@@ -156,16 +143,9 @@ class RunParameters:
                 f"unknown parameter key(s) {', '.join(map(repr, unknown))}; expected the keys "
                 f"RunParameters.as_dict writes: {', '.join(KNOWN_KEYS + ('config_file',))}")
         settings = DetectionSettings(**{k: values[k] for k in SETTING_KEYS if k in values})
-        pair = lambda v: None if v is None else (float(v[0]), float(v[1]))  # noqa: E731
-        rate = values.get("sampling_rate_hz")
-        limit = values.get("max_sweep_samples")
-        if limit is not None:
-            limit = _checked("max_sweep_samples", limit, "`max_sweep_samples`", from_file=False,
-                             error=InvalidSettingError)
-        return cls(settings=settings, step_times=pair(values.get("step_s")),
-                   step_sizes=pair(values.get("step_sizes_pa")),
-                   sampling_rate_hz=None if rate is None else float(rate),
-                   config_file=values.get("config_file"), max_sweep_samples=limit)
+        run_options = {k: None if values.get(k) is None else check_value(k, values[k])
+                       for k in RUN_KEYS}
+        return cls(settings=settings, config_file=values.get("config_file"), **run_options)
 
 
 def find_config_file(paths: Sequence[str | os.PathLike]) -> Path | None:
@@ -208,12 +188,9 @@ def load_config(path: str | os.PathLike) -> dict:
     Returns
     -------
     dict
-        The keys the file sets, named as in the file, with checked values: floats for the
-        numeric settings and ``sampling_rate_hz``, an int for ``min_samples_across_width`` and
-        ``max_sweep_samples``, a
-        str for ``threshold_method``, ``(start_s, end_s)`` for ``step_s`` and
-        ``(first_pa, increment_pa)`` for ``step_sizes_pa``. A file without ``[measure]``
-        gives an empty dict.
+        The keys the file sets, named as in the file, with values checked and converted by
+        :func:`spikemeasure.params.check_value` (floats, ints, text, and pairs of floats for
+        ``step_s`` and ``step_sizes_pa``). A file without ``[measure]`` gives an empty dict.
 
     Raises
     ------
@@ -242,8 +219,7 @@ def load_config(path: str | os.PathLike) -> dict:
         if key not in KNOWN_KEYS:
             raise ConfigError(f"{name}: {_unknown_key_message(key, f'[{CONFIG_SECTION}]')}")
 
-    where = {key: f"{name}: key `{key}` in [{CONFIG_SECTION}]" for key in table}
-    values = {key: _checked(key, value, where[key], from_file=True)
+    values = {key: _checked(key, value, f"{name}: [{CONFIG_SECTION}]", ConfigError)
               for key, value in table.items()}
     _settings_from(values, lambda keys, exc: ConfigError(
         f"{name}: [{CONFIG_SECTION}] {_keys_phrase(keys)}: {exc}; change "
@@ -302,10 +278,8 @@ def merge_parameters(file_values: Mapping[str, Any], cli_values: Mapping[str, An
     file_values : mapping
         Values from :func:`load_config` (empty when there is no project file).
     cli_values : mapping
-        Only the options the user gave on the command line, keyed like the project file: the
-        :class:`DetectionSettings` field names, ``step_s`` (start, end), ``step_sizes_pa``
-        (``"FIRST:INCREMENT"`` or (first, increment)), ``sampling_rate_hz`` and
-        ``max_sweep_samples``.
+        Only the options the user gave on the command line, keyed by parameter name
+        (:data:`spikemeasure.params.PARAMETERS`).
     config_file : str or None
         The project file `file_values` came from, for messages and the run record.
 
@@ -340,14 +314,12 @@ def merge_parameters(file_values: Mapping[str, Any], cli_values: Mapping[str, An
     values: dict[str, Any] = {}
     for key, value in file_values.items():
         if value is not None:
-            values[key] = _checked(key, value, f"{source_name}: key `{key}` in "
-                                   f"[{CONFIG_SECTION}]", from_file=False,
-                                   error=ConfigError)
+            values[key] = _checked(key, value, f"{source_name}: [{CONFIG_SECTION}]",
+                                   ConfigError)
             origin[key] = "file"
     for key, value in cli_values.items():
         if value is not None:
-            values[key] = _checked(key, value, f"the command-line value for `{key}`",
-                                   from_file=False, error=InvalidSettingError)
+            values[key] = _checked(key, value, "the command line:", InvalidSettingError)
             origin[key] = "command line"
 
     def error_for(keys: list[str]) -> type[SpikemeasureError]:
@@ -368,10 +340,11 @@ def merge_parameters(file_values: Mapping[str, Any], cli_values: Mapping[str, An
         where = (source_name if origin["step_sizes_pa"] == "file" else "the command line")
         raise error_for(["step_sizes_pa"])(
             f"`step_sizes_pa` (from {where}) needs the step times `step_s`: add "
-            f"step_s = {_EXAMPLES['step_s']} (start and end in s) under [{CONFIG_SECTION}] in "
+            f"step_s = {parameter('step_s').example} (start and end in s) under "
+            f"[{CONFIG_SECTION}] in "
             f"{source_name}, or give the step's start and end on the command line")
-    return RunParameters(settings=settings, step_times=values.get("step_s"),
-                         step_sizes=values.get("step_sizes_pa"),
+    return RunParameters(settings=settings, step_s=values.get("step_s"),
+                         step_sizes_pa=values.get("step_sizes_pa"),
                          sampling_rate_hz=values.get("sampling_rate_hz"),
                          config_file=config_file,
                          max_sweep_samples=values.get("max_sweep_samples"))
@@ -394,59 +367,14 @@ def _settings_from(values: Mapping[str, Any],
         raise blame(named or list(given), exc) from exc
 
 
-def _checked(key: str, value: Any, where: str, *, from_file: bool,
-             error: type[SpikemeasureError] = ConfigError) -> Any:
-    """`value` for `key` with its type checked and converted; `where` starts any message.
-
-    With `from_file`, ``step_sizes_pa`` must be the text the file format asks for; otherwise
-    (values already read, or from the command line) a (first, increment) pair is accepted too.
-    """
-    def fail(expected: str) -> None:
-        example = _EXAMPLES.get(key, "20.0")
-        raise error(f"{where} must be {expected} (got {_describe(value)}); write for example "
-                    f"{key} = {example}")
-
-    if key in _STRING_KEYS:
-        if not isinstance(value, str):
-            fail(f"a quoted text value, one of {', '.join(map(repr, THRESHOLD_METHODS))}")
-        return value
-    if key in _INTEGER_KEYS:
-        if isinstance(value, bool) or not isinstance(value, int):
-            fail("a whole number without a decimal point")
-        return int(value)
-    if key == "step_s":
-        if (isinstance(value, (str, bytes)) or not isinstance(value, Sequence)
-                or len(value) != 2 or not all(_is_number(v) for v in value)):
-            fail("a list of two numbers, the step's start and end in s")
-        start, end = float(value[0]), float(value[1])
-        if not (math.isfinite(start) and math.isfinite(end) and 0 <= start < end):
-            raise error(f"{where} must satisfy 0 <= START < END, in s (got {start} to {end}); "
-                        f"give the start and end of the current step")
-        return start, end
-    if key == "step_sizes_pa":
-        if isinstance(value, str):
-            try:
-                return parse_step_sizes(value)
-            except InvalidSettingError as exc:
-                raise error(f"{where}: {exc}") from exc
-        if (not from_file and isinstance(value, Sequence) and len(value) == 2
-                and all(_is_number(v) for v in value)):
-            first, increment = float(value[0]), float(value[1])
-            if math.isfinite(first) and math.isfinite(increment):
-                return first, increment
-        fail('text "FIRST:INCREMENT" in pA (quoted)')
-    if key == "max_sweep_samples":
-        if (not _is_number(value) or not math.isfinite(float(value)) or float(value) < 1
-                or float(value) != int(value)):
-            fail("a positive whole number of samples")
-        return int(value)
-    if not _is_number(value):
-        fail("a number")
-    number = float(value)
-    if key == "sampling_rate_hz" and not (math.isfinite(number) and number > 0):
-        raise error(f"{where} must be a positive number of samples per second (got {value}); "
-                    f"write for example sampling_rate_hz = {_EXAMPLES['sampling_rate_hz']}")
-    return number
+def _checked(key: str, value: Any, where: str, error: type[SpikemeasureError]) -> Any:
+    """`value` for `key` checked and converted by its declaration; a bad one raises `error`
+    with the parameter's own message after `where`, and an example of the key."""
+    try:
+        return check_value(key, value)
+    except InvalidSettingError as exc:
+        raise error(f"{where} {exc}; write for example {key} = {parameter(key).example}"
+                    ) from exc
 
 
 def _is_number(value: Any) -> bool:

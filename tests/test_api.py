@@ -50,10 +50,10 @@ class TestMeasureTrace:
     @pytest.mark.parametrize("kwargs, named", [
         ({"settings": {"onset_rate_v_per_s": 30}}, "`settings` is not a setting"),
         ({"onset_rate": 30}, "`onset_rate` is not a setting"),
-        ({"onset_rate_v_per_s": "fast"}, "`onset_rate_v_per_s` must be a number"),
+        ({"onset_rate_v_per_s": "fast"}, r"`onset_rate_v_per_s` must be a positive number, in V/s \(got 'fast'\)"),
         ({"onset_rate_v_per_s": -5}, "`onset_rate_v_per_s` must be a positive number"),
         ({"min_samples_across_width": 2.5}, "`min_samples_across_width` must be a whole"),
-        ({"threshold_method": 3}, "`threshold_method` must be text"),
+        ({"threshold_method": 3}, r"`threshold_method` must be one of .* \(got 3\)"),
         ({"threshold_method": "guess"}, "`threshold_method` must be one of"),
     ])
     def test_wrong_settings_name_the_argument(self, kwargs, named):

@@ -37,7 +37,7 @@ class TestPrecedence:
     def test_defaults_without_file_or_options(self):
         run = merge_parameters({}, {}, None)
         assert run.settings == DEFAULTS
-        assert (run.step_times, run.step_sizes, run.sampling_rate_hz, run.config_file) == (
+        assert (run.step_s, run.step_sizes_pa, run.sampling_rate_hz, run.config_file) == (
             None, None, None, None)
 
     def test_file_over_defaults_and_command_line_over_file(self, tmp_path):
@@ -60,8 +60,8 @@ class TestPrecedence:
         assert run.settings.threshold_method == "max_rate_fraction"  # file
         assert run.settings.lowest_peak_mv == DEFAULTS.lowest_peak_mv  # default
         assert run.settings.peak_window_ms == DEFAULTS.peak_window_ms  # default
-        assert run.step_times == (0.1, 0.6)                   # file
-        assert run.step_sizes == (-100.0, 20.0)               # file, parsed
+        assert run.step_s == (0.1, 0.6)                   # file
+        assert run.step_sizes_pa == (-100.0, 20.0)               # file, parsed
         assert run.sampling_rate_hz == 50000.0                # command line
         assert run.config_file == str(path)
 
@@ -76,19 +76,19 @@ class TestPrecedence:
     def test_command_line_step_with_file_step_sizes(self, tmp_path):
         path = write_config(tmp_path, '[measure]\nstep_sizes_pa = "-50:10"\n')
         run = merge_parameters(load_config(path), {"step_s": (0.2, 0.8)}, str(path))
-        assert run.step_times == (0.2, 0.8)
-        assert run.step_sizes == (-50.0, 10.0)
+        assert run.step_s == (0.2, 0.8)
+        assert run.step_sizes_pa == (-50.0, 10.0)
 
     def test_command_line_step_sizes_as_text_or_pair(self):
         for given in ("-100:25", (-100.0, 25.0)):
             run = merge_parameters({}, {"step_s": (0.1, 0.5), "step_sizes_pa": given}, None)
-            assert run.step_sizes == (-100.0, 25.0)
+            assert run.step_sizes_pa == (-100.0, 25.0)
 
     def test_none_counts_as_not_given(self):
         run = merge_parameters({"onset_rate_v_per_s": 30.0},
                                {"onset_rate_v_per_s": None, "step_s": None}, "lab.toml")
         assert run.settings.onset_rate_v_per_s == 30.0
-        assert run.step_times is None
+        assert run.step_s is None
 
     def test_empty_file_gives_nothing(self, tmp_path):
         assert load_config(write_config(tmp_path, "# no settings yet\n")) == {}
@@ -128,16 +128,18 @@ class TestUnknownKeys:
 
 class TestTypes:
     @pytest.mark.parametrize("text, key, expected", [
-        ('onset_rate_v_per_s = "20"', "onset_rate_v_per_s", "a number"),
-        ("min_rise_mv = true", "min_rise_mv", "a number"),
-        ("sampling_rate_hz = false", "sampling_rate_hz", "a number"),
-        ("min_samples_across_width = 3.0", "min_samples_across_width", "a whole number"),
+        ('onset_rate_v_per_s = "20"', "onset_rate_v_per_s", "a positive number"),
+        ("min_rise_mv = true", "min_rise_mv", "a positive number"),
+        ("sampling_rate_hz = false", "sampling_rate_hz", "a positive number"),
+        ('lowest_peak_mv = "low"', "lowest_peak_mv", "a number, in mV"),
+        ("min_samples_across_width = 3.5", "min_samples_across_width", "a whole number"),
         ("min_samples_across_width = true", "min_samples_across_width", "a whole number"),
-        ("threshold_method = 1", "threshold_method", "a quoted text value"),
-        ("step_s = 0.1", "step_s", "a list of two numbers"),
-        ("step_s = [0.1, 0.2, 0.3]", "step_s", "a list of two numbers"),
-        ("step_s = [0.1, true]", "step_s", "a list of two numbers"),
-        ("step_sizes_pa = [-100, 20]", "step_sizes_pa", "FIRST:INCREMENT"),
+        ("threshold_method = 1", "threshold_method", "one of onset_rate, max_rate_fraction"),
+        ("step_s = 0.1", "step_s", "two numbers START END"),
+        ("step_s = [0.1, 0.2, 0.3]", "step_s", "two numbers START END"),
+        ("step_s = [0.1, true]", "step_s", "two numbers START END"),
+        ("step_sizes_pa = [-100]", "step_sizes_pa", "FIRST:INCREMENT"),
+        ('step_sizes_pa = "-100"', "step_sizes_pa", "FIRST:INCREMENT"),
     ])
     def test_wrong_type_names_file_key_and_expectation(self, tmp_path, text, key, expected):
         message = load_error(tmp_path, f"[measure]\n{text}\n")
@@ -146,7 +148,7 @@ class TestTypes:
         assert f"for example {key} = " in message
 
     def test_bool_in_file_values_rejected_at_merge(self):
-        with pytest.raises(ConfigError, match="lab.toml.*`min_rise_mv`.*a number"):
+        with pytest.raises(ConfigError, match="lab.toml.*`min_rise_mv`.*a positive number"):
             merge_parameters({"min_rise_mv": True}, {}, "lab.toml")
 
 
@@ -294,7 +296,7 @@ class TestRunRecord:
         run = RunParameters(
             settings=replace(DEFAULTS, onset_rate_v_per_s=33.0, threshold_method="max_rate_fraction",
                              min_samples_across_width=4),
-            step_times=(0.1, 0.6), step_sizes=(-100.0, 20.0), sampling_rate_hz=20000.0,
+            step_s=(0.1, 0.6), step_sizes_pa=(-100.0, 20.0), sampling_rate_hz=20000.0,
             config_file="spikemeasure.toml")
         record = json.loads(json.dumps(run.as_dict()))
         assert RunParameters.from_dict(record) == run

@@ -12,12 +12,13 @@ from scipy.ndimage import maximum_filter1d
 from scipy.signal import savgol_filter
 
 from ..errors import InvalidSettingError
+from ..params import check_value, default_of, parameter
 
 __all__ = ["DetectionSettings", "THRESHOLD_METHODS", "DetectedSpikes", "smoothing_window_samples",
            "smoothed_trace", "detect_spikes"]
 
 #: Threshold definitions offered (see :func:`spikemeasure.analysis.spike_features.spike_thresholds`).
-THRESHOLD_METHODS = ("onset_rate", "max_rate_fraction", "second_derivative_peak")
+THRESHOLD_METHODS = parameter("threshold_method").choices
 
 #: Savitzky-Golay polynomial order: a local quadratic fit, so the smoothed derivative of any
 #: quadratic stretch is exact and the noise gain stays low at the window lengths used.
@@ -60,37 +61,22 @@ class DetectionSettings:
         same result as whole.
     """
 
-    onset_rate_v_per_s: float = 20.0
-    min_rise_mv: float = 20.0
-    lowest_peak_mv: float = -20.0
-    peak_window_ms: float = 5.0
-    smoothing_ms: float = 0.3
-    rate_smoothing_ms: float = 0.1
-    threshold_method: str = "onset_rate"
-    threshold_fraction: float = 0.05
-    min_samples_across_width: int = 3
-    search_window_ms: float = 200.0
+    onset_rate_v_per_s: float = default_of("onset_rate_v_per_s")
+    min_rise_mv: float = default_of("min_rise_mv")
+    lowest_peak_mv: float = default_of("lowest_peak_mv")
+    peak_window_ms: float = default_of("peak_window_ms")
+    smoothing_ms: float = default_of("smoothing_ms")
+    rate_smoothing_ms: float = default_of("rate_smoothing_ms")
+    threshold_method: str = default_of("threshold_method")
+    threshold_fraction: float = default_of("threshold_fraction")
+    min_samples_across_width: int = default_of("min_samples_across_width")
+    search_window_ms: float = default_of("search_window_ms")
 
     def __post_init__(self) -> None:
-        positive = {"onset_rate_v_per_s": self.onset_rate_v_per_s,
-                    "min_rise_mv": self.min_rise_mv, "peak_window_ms": self.peak_window_ms,
-                    "smoothing_ms": self.smoothing_ms,
-                    "rate_smoothing_ms": self.rate_smoothing_ms,
-                    "search_window_ms": self.search_window_ms}
-        for name, value in positive.items():
-            if not (np.isfinite(value) and value > 0):
-                raise InvalidSettingError(f"`{name}` must be a positive number (got {value})")
-        if not np.isfinite(self.lowest_peak_mv):
-            raise InvalidSettingError(f"`lowest_peak_mv` must be a number (got {self.lowest_peak_mv})")
-        if self.threshold_method not in THRESHOLD_METHODS:
-            raise InvalidSettingError(
-                f"`threshold_method` must be one of {', '.join(THRESHOLD_METHODS)} "
-                f"(got {self.threshold_method!r})")
-        if not 0 < self.threshold_fraction < 1:
-            raise InvalidSettingError(
-                f"`threshold_fraction` must lie between 0 and 1 (got {self.threshold_fraction})")
-        if int(self.min_samples_across_width) < 1:
-            raise InvalidSettingError("`min_samples_across_width` must be at least 1")
+        # each value by its declaration in spikemeasure.params (one message wherever it was
+        # given), stored as the declared type; then how the windows must relate
+        for name in self.__dataclass_fields__:
+            object.__setattr__(self, name, check_value(name, getattr(self, name)))
         if self.search_window_ms < self.peak_window_ms:
             raise InvalidSettingError(
                 f"`search_window_ms` ({self.search_window_ms}) must be at least `peak_window_ms` "

@@ -9,6 +9,8 @@ import os
 
 import numpy as np
 
+from ..params import DEFAULT_MAX_SWEEP_SAMPLES
+
 __all__ = ["LONG_SWEEP_SAMPLES", "DEFAULT_MAX_SWEEP_SAMPLES", "available_memory_bytes",
            "size_problem", "is_long_shape"]
 
@@ -20,8 +22,7 @@ LONG_SWEEP_SAMPLES = 1 << 22
 #: (the run parameter ``max_sweep_samples``). 10^9 samples is about 14 hours at 20 kHz, or
 #: 8 GB as float64: more than any single current-clamp sweep, while a file that declares more
 #: (a damaged or hostile header over a few kB of compressed fill values) would otherwise be
-#: read for hours.
-DEFAULT_MAX_SWEEP_SAMPLES = 1_000_000_000
+#: read for hours. Declared with the run parameter, in :mod:`spikemeasure.params`.
 
 
 def available_memory_bytes() -> int | None:

@@ -19,6 +19,7 @@ from .. import __version__
 from ..columns import CELL_COLUMNS, ERROR_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS
 from ..errors import OutputWriteError
 from ..tables.write import json_text, rows_csv_text, write_files_atomic, write_json
+from ..params import parameters_record
 from .cache import OutcomeCache
 from .folder import (CELLS_FILE, ERRORS_FILE, REPORT_FILE, RUN_RECORD_FILE, SPIKES_FILE,
                      SWEEPS_FILE)
@@ -210,10 +211,7 @@ class RunRecord:
             "status": status,
             "interrupted": status == "interrupted",
             "config_file": self.config_file,
-            "parameters": {**parameters["settings"], "step_s": parameters["step_s"],
-                           "step_sizes_pa": parameters["step_sizes_pa"],
-                           "sampling_rate_hz": parameters["sampling_rate_hz"],
-                           "max_sweep_samples": parameters["max_sweep_samples"]},
+            "parameters": parameters_record(parameters["settings"], parameters),
             "inputs": counts.inputs,
             "failures": [{k: v for k, v in f.items() if k != "traceback"}
                          for f in counts.failures],

@@ -179,7 +179,7 @@ def test_refused_inputs_exit_1_with_the_reason(tmp_path, kind):
 def test_inspect_shows_the_cell_summary():
     from pathlib import Path
 
-    path = Path(__file__).resolve().parents[1] / "sample_data" / "region_a_cell_1.nwb"
+    path = Path(__file__).resolve().parents[2] / "sample_data" / "region_a_cell_1.nwb"
     r = run(["inspect", str(path)])
     assert r.exit_code == 0
     for label in ("cell:", "resting potential", "rheobase", "input resistance",
