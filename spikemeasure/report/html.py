@@ -22,7 +22,7 @@ from typing import Sequence
 from ..columns import CELL_COLUMNS
 from ..errors import valid_text
 from ..tables.write import write_text_atomic
-from ..run.outcome import ColumnTable, column_kind
+from ..tables.typed import ColumnTable, column_kind
 
 __all__ = ["cell_values", "report_html", "write_report", "EMBED_LIMIT_BYTES"]
 

@@ -23,7 +23,8 @@ from ..params import parameters_record
 from .cache import OutcomeCache
 from .folder import (CELLS_FILE, ERRORS_FILE, REPORT_FILE, RUN_RECORD_FILE, SPIKES_FILE,
                      SWEEPS_FILE)
-from .outcome import ColumnTable, FileOutcome, internal_error_outcome
+from ..tables.typed import ColumnTable
+from .outcome import FileOutcome, internal_error_outcome
 from .task import FIGURES_FOLDER
 
 __all__ = ["RunSummary", "RunRecord", "TABLE_REFRESH_S"]

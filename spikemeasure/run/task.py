@@ -15,7 +15,8 @@ from ..errors import InvalidSettingError, SpikemeasureError
 from ..io import read_recording
 from ..tables.build import (cell_summary, cell_table, count_spikes, flag_counts, measure_recording,
                       spike_table, sweep_table)
-from .outcome import ColumnTable, FileOutcome, failure, internal_error_outcome
+from ..tables.typed import ColumnTable
+from .outcome import FileOutcome, failure, internal_error_outcome
 
 __all__ = ["measure_file", "cell_figure_folder", "figures_present", "FIGURES_FOLDER"]
 

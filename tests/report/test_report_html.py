@@ -247,7 +247,7 @@ def test_report_of_a_run_with_a_name_not_utf8_is_written(tmp_path):
     """Text from outside (a command line, a message) may hold surrogates; the page is UTF-8."""
     from spikemeasure.columns import CELL_COLUMNS
     from spikemeasure.report import write_report
-    from spikemeasure.run import ColumnTable
+    from spikemeasure.tables.typed import ColumnTable
 
     record = {"command": ["spikemeasure", "measure", "caf\udce9.nix"],
               "inputs": [{"file": "caf\\xe9.nix", "status": "failed"}],

@@ -10,7 +10,8 @@ import numpy as np
 import pytest
 
 from spikemeasure.columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS
-from spikemeasure.run import CACHE_FOLDER, ColumnTable, FileOutcome, OutcomeCache
+from spikemeasure.run import CACHE_FOLDER, FileOutcome, OutcomeCache
+from spikemeasure.tables.typed import ColumnTable
 
 
 def _sweeps(values: dict) -> ColumnTable:
