@@ -94,9 +94,15 @@ def suffix_table() -> dict[str, FormatReader]:
 
 
 def _suffix_list() -> str:
-    neo_suffixes = sorted(s or "(none)" for s in suffix_table() if s not in OWN_FORMATS)
+    neo_suffixes = [s for s in suffix_table() if s not in OWN_FORMATS]
+    # numbered parts (.1, .2, ...) and files without a suffix are named once, not one by one
+    named = sorted(s for s in neo_suffixes if s and not s[1:].isdigit())
+    if any(s[1:].isdigit() for s in neo_suffixes if s):
+        named.append("numbered parts (.1, .2, ...)")
+    if "" in neo_suffixes:
+        named.append("no suffix")
     return (f"NWB (.nwb), NIX (.nix), text ({', '.join(TEXT_SUFFIXES)}) and, through neo, "
-            f"{', '.join(neo_suffixes)}")
+            f"{', '.join(named)}")
 
 
 def reader_for(path: Path, shown: str) -> FormatReader:
