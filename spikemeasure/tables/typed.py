@@ -54,7 +54,7 @@ class ColumnTable:
 
     @classmethod
     def from_lists(cls, table: dict[str, list], columns: tuple[Column, ...]) -> "ColumnTable":
-        """From a dict of column lists (as :mod:`spikemeasure.tables` builds them)."""
+        """From a dict of column lists (as :mod:`spikemeasure.tables.build` builds them)."""
         values = {}
         for c in columns:
             raw = table[c.name]
@@ -94,7 +94,7 @@ class ColumnTable:
         return replace(self, values=dict(self.values, file=[file] * len(self)))
 
     def formatted_rows(self) -> list[list[str]]:
-        """The rows as CSV cell text, as :func:`spikemeasure.tables.format_rows` formats them."""
+        """The rows as CSV cell text, as :func:`spikemeasure.tables.build.format_rows` formats them."""
         plain = {}
         for c in self.columns:
             v = self.values[c.name]
