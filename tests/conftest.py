@@ -245,7 +245,7 @@ def rc_recording(noise_mv=0.0, steps_pa=(-100.0, -75.0, -50.0, -25.0), seed=0,
                  rate=PASSIVE_RATE_HZ):
     """A passive RC membrane: V(t) = rest + R I (1 - exp(-t / RC)) during the step, relaxing
     back after it (analytic; R in MOhm times I in pA is 1e-3 mV)."""
-    from spikemeasure.analysis.sweeps import Sweep
+    from spikemeasure.io import Sweep
     from spikemeasure.io import Recording
     rng = np.random.default_rng(seed)
     n = int(0.8 * rate)

@@ -17,14 +17,13 @@ import pytest
 from scipy.ndimage import gaussian_filter1d
 
 from spikemeasure.analysis import spikes_in_parts as measurement
-from spikemeasure.io import limits, read_recording
+from spikemeasure.io import LazyTrace, limits, read_recording
 from spikemeasure.analysis.detection import DetectionSettings
 from spikemeasure.errors import InvalidSettingError, UnreadableInputError
 from spikemeasure.analysis.spikes import SpikeMeasurements, measure_trace
 from spikemeasure.analysis.spikes_in_parts import measure_in_pieces, piece_margin_samples
 from spikemeasure.run import measure_paths
 from spikemeasure.testing import simulate_current_waveform
-from spikemeasure.analysis.sweeps import LazyTrace
 
 from conftest import write_nix, write_nix_huge_declared, write_nwb, write_nwb_huge_declared
 
@@ -111,17 +110,6 @@ def test_a_lazy_trace_is_read_in_bounded_pieces(gap_free):
                        measure_trace(gap_free, RATE_HZ, settings))
     assert max(reads) <= piece + 2 * piece_margin_samples(settings, RATE_HZ)
     assert sum(reads) < 1.5 * gap_free.size
-
-
-def test_lazy_trace_slices_and_scales():
-    data = np.arange(10.0)
-    trace = LazyTrace(lambda a, b: data[a:b], data.size) * 1e3
-    np.testing.assert_array_equal(trace[2:5], data[2:5] * 1e3)
-    np.testing.assert_array_equal(trace[-3:], data[-3:] * 1e3)
-    np.testing.assert_array_equal(np.asarray(trace), data * 1e3)
-    assert trace[5:5].size == 0 and len(trace) == 10
-    with pytest.raises(TypeError):
-        trace[3]
 
 
 def test_nan_in_a_piece_is_measured_as_in_the_whole_trace(gap_free):
@@ -457,7 +445,7 @@ def test_a_sweep_larger_than_the_memory_available_is_not_read_whole(tmp_path, mo
 def test_lazy_sweep_with_a_gap_gets_the_same_spikes_and_flags_as_whole(gap_free):
     """Source: the same trace with the same gap measured whole (measure_around_gaps); a long
     sweep kept in its file has the same spikes, and its count is flagged a lower bound."""
-    from spikemeasure.analysis.sweeps import Sweep
+    from spikemeasure.io import Sweep
     from spikemeasure.tables.build import measure_sweep
 
     v = gap_free.copy()

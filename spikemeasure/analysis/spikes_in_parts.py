@@ -233,7 +233,7 @@ def measure_in_pieces(voltage_mv, sampling_rate_hz: float,
     voltage_mv : ndarray or LazyTrace
         Membrane voltage in mV, 1-D; anything that returns float arrays for slices
         ``voltage_mv[a:b]`` and has a length, so a trace kept in its file
-        (:class:`~spikemeasure.analysis.sweeps.LazyTrace`) is read piece by piece.
+        (:class:`~spikemeasure.io.sweep.LazyTrace`) is read piece by piece.
     sampling_rate_hz : float
     settings : DetectionSettings, optional
     piece_samples : int, optional

@@ -1,4 +1,4 @@
-"""Read current-clamp recordings into :class:`~spikemeasure.analysis.sweeps.Sweep` objects.
+"""Read current-clamp recordings into :class:`~spikemeasure.io.sweep.Sweep` objects.
 
 This is the only package that imports neo. One module per format, chosen by the file's suffix
 (:mod:`~spikemeasure.io.suffixes`):
@@ -28,7 +28,9 @@ from .limits import DEFAULT_MAX_SWEEP_SAMPLES, LONG_SWEEP_SAMPLES
 from .read import read_recording
 from .recording import ChannelInfo, Recording
 from .suffixes import RECORDING_SUFFIXES, reader_for, suffix_table
+from .sweep import LazyTrace, Sweep
 from .text import TEXT_SUFFIXES
 
-__all__ = ["read_recording", "Recording", "ChannelInfo", "TEXT_SUFFIXES", "RECORDING_SUFFIXES",
-           "LONG_SWEEP_SAMPLES", "DEFAULT_MAX_SWEEP_SAMPLES", "reader_for", "suffix_table"]
+__all__ = ["read_recording", "Recording", "ChannelInfo", "Sweep", "LazyTrace", "TEXT_SUFFIXES",
+           "RECORDING_SUFFIXES", "LONG_SWEEP_SAMPLES", "DEFAULT_MAX_SWEEP_SAMPLES", "reader_for",
+           "suffix_table"]

@@ -1,7 +1,7 @@
 """Long sweeps left in their file and read in pieces through neo's lazy loading.
 
 NWB and NIX sweeps longer than :data:`~spikemeasure.io.limits.LONG_SWEEP_SAMPLES` samples stay
-in the file as :class:`~spikemeasure.analysis.sweeps.LazyTrace` objects when their command current is
+in the file as :class:`~spikemeasure.io.sweep.LazyTrace` objects when their command current is
 constant (gap-free); a sweep whose command steps is read whole.
 """
 from __future__ import annotations
@@ -9,7 +9,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..errors import UnreadableInputError
-from ..analysis.sweeps import LazyTrace, Sweep
+from .sweep import LazyTrace, Sweep
 from . import limits
 from .messages import library_failure, safe_name
 

@@ -11,7 +11,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import UnreadableInputError
-from ..analysis.sweeps import LazyTrace, Sweep
+from .sweep import LazyTrace, Sweep
 from . import limits
 from .lazy import LongSignal, is_long, settle_long_sweep
 from .messages import library_failure, safe_name

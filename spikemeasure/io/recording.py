@@ -3,7 +3,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-from ..analysis.sweeps import Sweep
+from .sweep import Sweep
 
 __all__ = ["ChannelInfo", "Recording"]
 

@@ -10,7 +10,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import UnreadableInputError
-from ..analysis.sweeps import Sweep
+from .sweep import Sweep
 from .lazy import LongSignal, settle_long_sweep
 from .messages import safe_name
 from .recording import ChannelInfo, Recording

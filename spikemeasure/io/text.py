@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import UnreadableInputError
-from ..analysis.sweeps import Sweep
+from .sweep import Sweep
 from . import limits
 from .messages import safe_name
 from .recording import ChannelInfo, Recording

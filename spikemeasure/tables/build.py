@@ -16,9 +16,9 @@ from ..errors import InvalidSettingError, SpikemeasureError, UnmeasurableDataErr
 from ..analysis.spikes import (PIECE_SAMPLES, SpikeMeasurements, first_in_step, measure_spikes,
                                spike_times)
 from ..analysis.spikes_in_parts import measure_around_gaps, measure_in_pieces_with_gaps
-from ..io import Recording
+from ..io import Recording, Sweep
 from ..analysis.sweep_features import SweepFeatures, sweep_features
-from ..analysis.sweeps import (CurrentStep, Sweep, check_sweep, missing_stretches, protocol_steps,
+from ..analysis.sweeps import (CurrentStep, check_sweep, missing_stretches, protocol_steps,
                      spikes_measurable, stretches_text)
 
 __all__ = ["SweepResult", "measure_sweep", "measure_recording", "measured_results",

@@ -11,7 +11,8 @@ from spikemeasure.analysis.cell_features import fit_membrane_tau, rheobase
 from spikemeasure.cli import main
 from spikemeasure.io import Recording, read_recording
 from spikemeasure.testing import simulate_current_steps
-from spikemeasure.analysis.sweeps import Sweep, protocol_steps
+from spikemeasure.analysis.sweeps import protocol_steps
+from spikemeasure.io import Sweep
 from spikemeasure.tables.build import (cell_summary, cell_table, format_rows, measure_recording,
                                  sweep_table)
 from spikemeasure.columns import CELL_COLUMNS, SWEEP_COLUMNS

@@ -4,7 +4,8 @@ import pytest
 
 from conftest import step_command
 from spikemeasure.errors import InvalidSettingError, UnmeasurableDataError
-from spikemeasure.analysis.sweeps import Sweep, check_sweep, find_current_step, step_from_times
+from spikemeasure.analysis.sweeps import check_sweep, find_current_step, step_from_times
+from spikemeasure.io import Sweep
 
 RATE = 20_000.0
 

@@ -609,7 +609,7 @@ def test_measuring_can_be_cancelled_between_sweeps_and_pieces():
     from conftest import GaussianSpike
     from spikemeasure.analysis.spikes_in_parts import measure_in_pieces
     from spikemeasure.io import Recording
-    from spikemeasure.analysis.sweeps import Sweep
+    from spikemeasure.io import Sweep
     from spikemeasure.tables.build import measure_recording
 
     class Stop(Exception):

@@ -1,0 +1,118 @@
+"""The data model of a recording: sweeps as plain objects.
+
+A :class:`Sweep` holds the membrane voltage in mV, the command current in pA (or ``None`` when
+the file has no command channel), the sampling rate in Hz and where it came from; a
+:class:`LazyTrace` is a long voltage left in its file and read by slices. The readers of this
+package build them; :mod:`spikemeasure.analysis` measures them.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Callable
+
+import numpy as np
+
+__all__ = ["Sweep", "LazyTrace"]
+
+
+class LazyTrace:
+    """A long 1-D signal that stays in its file: ``trace[a:b]`` reads samples a to b-1.
+
+    Long gap-free recordings are handed to the measurement stage this way, so that they can be
+    measured in pieces in bounded memory. Slicing returns float64 arrays, scaled by `scale`
+    (a unit conversion); ``trace * k`` gives the same trace scaled by k. ``numpy.asarray``
+    reads all of it.
+
+    Parameters
+    ----------
+    read : callable
+        ``read(start, stop)`` returns samples ``start`` to ``stop - 1`` as a 1-D array.
+    n_samples : int
+    scale : float, optional
+    """
+
+    ndim = 1
+    dtype = np.dtype(np.float64)
+
+    def __init__(self, read: Callable[[int, int], np.ndarray], n_samples: int,
+                 scale: float = 1.0) -> None:
+        self._read = read
+        self.size = int(n_samples)
+        self.shape = (self.size,)
+        self.scale = float(scale)
+
+    def __len__(self) -> int:
+        return self.size
+
+    def __mul__(self, factor: float) -> "LazyTrace":
+        return LazyTrace(self._read, self.size, self.scale * float(factor))
+
+    __rmul__ = __mul__
+
+    def __getitem__(self, key) -> np.ndarray:
+        if not isinstance(key, slice):
+            raise TypeError("a LazyTrace is read by slices, such as trace[a:b]")
+        start, stop, step = key.indices(self.size)
+        if stop <= start:
+            return np.zeros(0)
+        part = np.asarray(self._read(start, stop), dtype=np.float64).reshape(-1)
+        if part.size != stop - start:
+            raise ValueError(f"reading samples {start}-{stop} gave {part.size} samples")
+        if self.scale != 1.0:
+            part = part * self.scale
+        return part[::step] if step != 1 else part
+
+    def __array__(self, dtype=None, copy=None) -> np.ndarray:
+        whole = self[0:self.size]
+        return whole.astype(dtype) if dtype is not None else whole
+
+    def __repr__(self) -> str:
+        return f"LazyTrace({self.size} samples, scale {self.scale:g})"
+
+
+@dataclass(frozen=True)
+class Sweep:
+    """One sweep of a current-clamp recording.
+
+    Attributes
+    ----------
+    voltage_mv : ndarray or LazyTrace
+        Membrane voltage in mV, 1-D float64 (a :class:`LazyTrace` for a long recording read
+        in pieces).
+    sampling_rate_hz : float
+        Samples per second.
+    command_pa : ndarray or None
+        Command (injected) current in pA, same length as the voltage, or None.
+    file : str
+        The path the sweep was read from, as given to the reader.
+    index : int
+        0-based sweep index in file order.
+    label : str
+        A name the file gives the sweep (segment name, NWB series name), for messages.
+    """
+
+    voltage_mv: np.ndarray
+    sampling_rate_hz: float
+    command_pa: np.ndarray | None = None
+    file: str = ""
+    index: int = 0
+    label: str = ""
+    channel_info: tuple = field(default=(), compare=False)
+
+    @property
+    def n_samples(self) -> int:
+        return int(self.voltage_mv.shape[0])
+
+    @property
+    def is_lazy(self) -> bool:
+        """True when the voltage stays in the file and is read in pieces."""
+        return isinstance(self.voltage_mv, LazyTrace)
+
+    @property
+    def duration_s(self) -> float:
+        return self.n_samples / self.sampling_rate_hz
+
+    def where(self) -> str:
+        """'file, sweep N' for messages."""
+        shown_label = self.label and self.label != f"sweep {self.index}"
+        return f"{self.file}, sweep {self.index}" + (f" ({self.label})" if shown_label else "")
