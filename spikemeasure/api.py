@@ -166,21 +166,21 @@ def measure(recording: str | os.PathLike | Recording, *, step_s: Sequence[float]
     definitions of every column are in docs/measurements.md.
     """
     detection = _checked_settings(settings)
-    step_times = _checked_option("step_s", step_s)
-    step_sizes = _checked_option("step_sizes_pa", step_sizes_pa)
+    step_s = _checked_option("step_s", step_s)
+    step_sizes_pa = _checked_option("step_sizes_pa", step_sizes_pa)
     sampling_rate_hz = _checked_option("sampling_rate_hz", sampling_rate_hz)
     if isinstance(recording, Recording):
-        return _measure_recording(recording, detection, step_times, step_sizes)
+        return _measure_recording(recording, detection, step_s, step_sizes_pa)
     if not isinstance(recording, (str, os.PathLike)):
         raise InvalidSettingError(
             f"`recording` must be a file path or a Recording (got {type(recording).__name__})")
     with read_recording(recording, sampling_rate_hz=sampling_rate_hz) as opened:
-        return _measure_recording(opened, detection, step_times, step_sizes)
+        return _measure_recording(opened, detection, step_s, step_sizes_pa)
 
 
 def _measure_recording(recording: Recording, settings: DetectionSettings,
-                       step_times, step_sizes) -> Results:
-    results = measure_recording(recording, settings, step_times, step_sizes)
+                       step_s, step_sizes_pa) -> Results:
+    results = measure_recording(recording, settings, step_s, step_sizes_pa)
     problems = list(recording.problems)
     problems += [f"{recording.path}, sweep {r.sweep.index}: {r.error}"
                  for r in results if r.error]

@@ -34,23 +34,23 @@ def _fmt(value: float, unit: str, digits: int = 1) -> str:
 
 
 def describe_file(path: str, settings: DetectionSettings = DetectionSettings(), *,
-                  step_times: tuple[float, float] | None = None,
-                  step_sizes: tuple[float, float] | None = None,
+                  step_s: tuple[float, float] | None = None,
+                  step_sizes_pa: tuple[float, float] | None = None,
                   sampling_rate_hz: float | None = None) -> tuple[str, bool]:
     """Describe a recording: format, channels, sweeps, steps and spike counts.
 
     Returns (text, ok) where ok is False when no sweep could be measured.
     Raises :class:`~spikemeasure.errors.UnreadableInputError` when the file cannot be read.
     """
-    found = inspect_file(path, settings, step_times=step_times, step_sizes=step_sizes,
+    found = inspect_file(path, settings, step_s=step_s, step_sizes_pa=step_sizes_pa,
                          sampling_rate_hz=sampling_rate_hz)
     found.close()
     return found.text, found.ok
 
 
 def inspect_file(path: str, settings: DetectionSettings = DetectionSettings(), *,
-                 step_times: tuple[float, float] | None = None,
-                 step_sizes: tuple[float, float] | None = None,
+                 step_s: tuple[float, float] | None = None,
+                 step_sizes_pa: tuple[float, float] | None = None,
                  sampling_rate_hz: float | None = None,
                  max_sweep_samples: int | None = None) -> Inspection:
     """As :func:`describe_file`, keeping the sweep results and the recording too (for figures;
@@ -58,7 +58,7 @@ def inspect_file(path: str, settings: DetectionSettings = DetectionSettings(), *
     recording = read_recording(path, sampling_rate_hz=sampling_rate_hz,
                                max_sweep_samples=max_sweep_samples)
     try:
-        results = measure_recording(recording, settings, step_times, step_sizes)
+        results = measure_recording(recording, settings, step_s, step_sizes_pa)
     except BaseException:
         recording.close()
         raise

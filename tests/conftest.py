@@ -369,7 +369,7 @@ def measured_runs(tmp_path_factory) -> dict[str, Path]:
         params = merge_parameters(load_config(project_file) if project_file else {}, {},
                                   project_file.name if project_file else None)
         summary = measure_paths([str(recordings)], base / name, params.settings,
-                                step_times=params.step_s, step_sizes=params.step_sizes_pa,
+                                step_s=params.step_s, step_sizes_pa=params.step_sizes_pa,
                                 sampling_rate_hz=params.sampling_rate_hz,
                                 max_sweep_samples=params.max_sweep_samples,
                                 config_file=params.config_file, jobs=1, figure_format=None)

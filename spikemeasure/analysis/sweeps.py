@@ -241,17 +241,17 @@ def parse_step_sizes(text: str) -> tuple[float, float]:
     return first, increment
 
 
-def protocol_steps(sweeps: list[Sweep], step_times: tuple[float, float] | None = None,
-                   step_sizes: tuple[float, float] | None = None) -> list[CurrentStep | None]:
+def protocol_steps(sweeps: list[Sweep], step_s: tuple[float, float] | None = None,
+                   step_sizes_pa: tuple[float, float] | None = None) -> list[CurrentStep | None]:
     """The current step of every sweep of a recording.
 
     Parameters
     ----------
     sweeps : list of Sweep
-    step_times : (start_s, end_s), optional
+    step_s : (start_s, end_s), optional
         For sweeps without a command channel.
-    step_sizes : (first_pa, increment_pa), optional
-        With `step_times`: sweep k's step is first + k * increment.
+    step_sizes_pa : (first_pa, increment_pa), optional
+        With `step_s`: sweep k's step is first + k * increment.
 
     Returns
     -------
@@ -268,9 +268,9 @@ def protocol_steps(sweeps: list[Sweep], step_times: tuple[float, float] | None =
         found = None
         if sweep.command_pa is not None and sweep.command_pa.size >= 3:
             found = find_current_step(sweep.command_pa, sweep.sampling_rate_hz)
-        if found is None and step_times is not None and sweep.command_pa is None:
-            size = step_sizes[0] + k * step_sizes[1] if step_sizes else float("nan")
-            found = step_from_times(step_times[0], step_times[1], sweep.duration_s, size)
+        if found is None and step_s is not None and sweep.command_pa is None:
+            size = step_sizes_pa[0] + k * step_sizes_pa[1] if step_sizes_pa else float("nan")
+            found = step_from_times(step_s[0], step_s[1], sweep.duration_s, size)
         steps.append(found)
     known = [s for s in steps if s is not None]
     for k, sweep in enumerate(sweeps):
@@ -286,6 +286,6 @@ def protocol_steps(sweeps: list[Sweep], step_times: tuple[float, float] | None =
                 continue  # a gap in the command may hide this sweep's step: not 0 pA
             steps[k] = CurrentStep(onset, min(offset, sweep.duration_s), 0.0,
                                    float(np.mean(sweep.command_pa)))
-        elif step_times is not None:
-            steps[k] = step_from_times(step_times[0], step_times[1], sweep.duration_s, 0.0)
+        elif step_s is not None:
+            steps[k] = step_from_times(step_s[0], step_s[1], sweep.duration_s, 0.0)
     return steps

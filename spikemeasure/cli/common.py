@@ -98,8 +98,8 @@ def measure_into(ctx: click.Context, paths: Sequence[str], out_dir: str, params:
 
     progress = None if quiet else Progress(sys.stderr.isatty())
     try:
-        return measure_paths(list(paths), out_dir, params.settings, step_times=params.step_s,
-                             step_sizes=params.step_sizes_pa,
+        return measure_paths(list(paths), out_dir, params.settings, step_s=params.step_s,
+                             step_sizes_pa=params.step_sizes_pa,
                              sampling_rate_hz=params.sampling_rate_hz,
                              max_sweep_samples=params.max_sweep_samples,
                              jobs=jobs or default_jobs(), config_file=params.config_file,

@@ -112,8 +112,8 @@ def inspect(ctx: click.Context, file, show, config_path, **values):
 
     try:
         params = run_parameters(ctx, values)
-        found = inspect_file(file, params.settings, step_times=params.step_s,
-                             step_sizes=params.step_sizes_pa,
+        found = inspect_file(file, params.settings, step_s=params.step_s,
+                             step_sizes_pa=params.step_sizes_pa,
                              sampling_rate_hz=params.sampling_rate_hz,
                              max_sweep_samples=params.max_sweep_samples)
     except SpikemeasureError as exc:

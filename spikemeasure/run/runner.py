@@ -61,8 +61,8 @@ def describe_outcome(outcome: FileOutcome) -> str:
 
 def measure_paths(paths: list[str], out_dir: str | Path,
                   settings: DetectionSettings = DetectionSettings(), *,
-                  step_times: tuple[float, float] | None = None,
-                  step_sizes: tuple[float, float] | None = None,
+                  step_s: tuple[float, float] | None = None,
+                  step_sizes_pa: tuple[float, float] | None = None,
                   sampling_rate_hz: float | None = None, max_sweep_samples: int | None = None,
                   jobs: int = 1, force: bool = False,
                   extra_patterns: tuple[str, ...] = (), config_file: str | None = None,
@@ -82,10 +82,10 @@ def measure_paths(paths: list[str], out_dir: str | Path,
     out_dir : str or Path
         Created if missing; skipped when searching an input folder that contains it.
     settings : DetectionSettings
-    step_times : (start_s, end_s), optional
+    step_s : (start_s, end_s), optional
         The current step for sweeps without a command channel.
-    step_sizes : (first_pa, increment_pa), optional
-        With `step_times`: the step sizes of such sweeps, by sweep index.
+    step_sizes_pa : (first_pa, increment_pa), optional
+        With `step_s`: the step sizes of such sweeps, by sweep index.
     sampling_rate_hz : float, optional
         For text files without a time column.
     max_sweep_samples : int, optional
@@ -149,8 +149,8 @@ def measure_paths(paths: list[str], out_dir: str | Path,
     started = time.time()
     summary = RunSummary(out_dir=out)
     parameters = {"settings": settings.as_dict(),
-                  "step_s": list(step_times) if step_times else None,
-                  "step_sizes_pa": list(step_sizes) if step_sizes else None,
+                  "step_s": list(step_s) if step_s else None,
+                  "step_sizes_pa": list(step_sizes_pa) if step_sizes_pa else None,
                   "sampling_rate_hz": sampling_rate_hz,
                   "max_sweep_samples": max_sweep_samples}
     # absolute: workers elsewhere (a cluster) may start in another folder

@@ -72,8 +72,8 @@ def measure_file(path: str, shown: str, parameters: dict, figures: dict | None =
 def _measure_file(path: str, shown: str, parameters: dict, figures: dict | None,
                   cancel: Callable[[], None] | None) -> FileOutcome:
     settings = DetectionSettings(**parameters["settings"])
-    step_times = tuple(parameters["step_s"]) if parameters.get("step_s") else None
-    step_sizes = tuple(parameters["step_sizes_pa"]) if parameters.get("step_sizes_pa") else None
+    step_s = tuple(parameters["step_s"]) if parameters.get("step_s") else None
+    step_sizes_pa = tuple(parameters["step_sizes_pa"]) if parameters.get("step_sizes_pa") else None
     outcome = FileOutcome(shown, figure_format=figures["format"] if figures else None)
     try:
         recording = read_recording(path, shown_as=shown,
@@ -83,7 +83,7 @@ def _measure_file(path: str, shown: str, parameters: dict, figures: dict | None,
         outcome.failures.append(failure(shown, "read", str(exc)))
         return outcome
     with recording:  # open until its figures are drawn: long sweeps are read from it
-        results = measure_recording(recording, settings, step_times, step_sizes, cancel=cancel)
+        results = measure_recording(recording, settings, step_s, step_sizes_pa, cancel=cancel)
         measured = [r for r in results if r.error is None]
         for problem in recording.problems:
             outcome.failures.append(failure(shown, "read", problem))

@@ -159,19 +159,19 @@ def _lazy_gaps(sweep: Sweep, cancel=None) -> np.ndarray:
 
 
 def measure_recording(recording: Recording, settings: DetectionSettings = DetectionSettings(),
-                      step_times: tuple[float, float] | None = None,
-                      step_sizes: tuple[float, float] | None = None, *,
+                      step_s: tuple[float, float] | None = None,
+                      step_sizes_pa: tuple[float, float] | None = None, *,
                       cancel: Callable[[], None] | None = None) -> list[SweepResult]:
     """Measure every sweep of a recording, in file order.
 
-    `step_times` (start_s, end_s) and `step_sizes` (first_pa, increment_pa) describe the step
+    `step_s` (start_s, end_s) and `step_sizes_pa` (first_pa, increment_pa) describe the step
     of sweeps without a command channel. `cancel` (optional) is called with no arguments
     before each sweep and between the pieces of long sweeps; it stops the work by raising
     (a run being stopped raises ``KeyboardInterrupt``), and its exception propagates.
     """
     if cancel is not None and not callable(cancel):
         raise InvalidSettingError("`cancel` must be callable or None")
-    steps = protocol_steps(recording.sweeps, step_times, step_sizes)
+    steps = protocol_steps(recording.sweeps, step_s, step_sizes_pa)
     results = []
     for s, step in zip(recording.sweeps, steps):
         if cancel is not None:

@@ -130,12 +130,12 @@ class TestProtocolSteps:
 def test_unknown_sizes_leave_cell_features_empty():
     rec = rc_recording()
     bare = Recording("rc", "t", [Sweep(s.voltage_mv, RATE, None, "rc", s.index) for s in rec.sweeps])
-    cell = cell_summary(measure_recording(bare, step_times=(0.1, 0.6)))
+    cell = cell_summary(measure_recording(bare, step_s=(0.1, 0.6)))
     assert "step_sizes_unknown" in cell.flags and np.isnan(cell.input_resistance_mohm)
     stepless = cell_summary(measure_recording(bare))  # no --step: no sweep has a step
     assert stepless.flags == ("no_current_steps",)
-    sized = cell_summary(measure_recording(bare, step_times=(0.1, 0.6),
-                                           step_sizes=(-100.0, 25.0)))
+    sized = cell_summary(measure_recording(bare, step_s=(0.1, 0.6),
+                                           step_sizes_pa=(-100.0, 25.0)))
     assert sized.input_resistance_mohm == pytest.approx(R_MOHM, rel=0.01)
 
 

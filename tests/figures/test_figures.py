@@ -52,11 +52,11 @@ def odd_cells(tmp_path_factory):
     write_nix(root / "one_sweep.nix", [sweeps[4]], rate_hz=RATE)
     write_text(root / "no_command.txt", sweeps[5][0], rate_hz=RATE)
     cases = {}
-    for name, step_times, step_sizes in (("no_spikes.nix", None, None),
+    for name, step_s, step_sizes_pa in (("no_spikes.nix", None, None),
                                          ("one_sweep.nix", None, None),
                                          ("no_command.txt", (ONSET_S, OFFSET_S), (60.0, 0.0))):
         recording = read_recording(root / name, shown_as=name)
-        results = measure_recording(recording, DetectionSettings(), step_times, step_sizes)
+        results = measure_recording(recording, DetectionSettings(), step_s, step_sizes_pa)
         with warnings.catch_warnings():
             warnings.simplefilter("error")  # a warning while drawing is a defect too
             written = figures.write_cell_figures(recording, results, root / "out" / name, "png")
