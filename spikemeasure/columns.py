@@ -9,7 +9,7 @@ spike), and its test.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from typing import Any, Callable
 
 import numpy as np
@@ -21,7 +21,7 @@ from .analysis.spikes import CLIPPED_RUN_SAMPLES, FLAG_TEXT, PIECE_SAMPLES
 from .analysis.sweep_features import DRIFT_WINDOW_MS, MIN_WINDOW_MS, SWEEP_FLAG_TEXT
 
 __all__ = ["Column", "SPIKE_COLUMNS", "SPIKE_MARKS", "SWEEP_COLUMNS", "CELL_COLUMNS",
-           "ERROR_COLUMNS", "KEY_COLUMN_NAMES", "spike_column_names", "shift_spike_times",
+           "ERROR_COLUMNS", "KEY_COLUMN_NAMES", "spike_column_names",
            "columns_markdown"]
 
 #: Columns that name the row (the file, the sweep, the spike) rather than hold a measurement;
@@ -44,8 +44,9 @@ class Column:
     decimals : int or None
         Digits after the point in the CSV; None for text and integers.
     is_time : bool
-        A time in seconds from the sweep's first sample: moved with the sweep's samples when
-        a trace is measured in parts (:func:`shift_spike_times`).
+        A time in seconds from the sweep's first sample. For the spike columns these are the
+        fields :meth:`~spikemeasure.analysis.spikes.SpikeMeasurements.shifted` moves when a
+        trace is measured in parts (``analysis.spikes.TIME_FIELDS``; a test keeps them equal).
     compute : callable or None
         Takes the measured results of one row group (a sweep's ``SpikeMeasurements``, a
         ``SweepFeatures``, a ``CellFeatures``) and returns this column's values. None: the
@@ -272,29 +273,6 @@ ERROR_COLUMNS: tuple[Column, ...] = (
 def spike_column_names() -> list[str]:
     """The header of spikes.csv."""
     return [c.name for c in SPIKE_COLUMNS]
-
-
-def shift_spike_times(spikes: Any, shift_s: float) -> Any:
-    """The same spikes with every time moved by `shift_s` seconds.
-
-    Parameters
-    ----------
-    spikes : SpikeMeasurements
-        Spikes measured on a part of a trace, times from the part's first sample.
-    shift_s : float
-        Time of the part's first sample in the whole trace.
-
-    Returns
-    -------
-    SpikeMeasurements
-        Times from the whole trace's first sample: every measured field declared a time
-        (``is_time``) among :data:`SPIKE_COLUMNS` and :data:`SPIKE_MARKS` is moved; columns
-        computed from them follow when computed.
-    """
-    moved = {c.name: np.asarray(getattr(spikes, c.name)) + shift_s
-             for c in SPIKE_COLUMNS + SPIKE_MARKS
-             if c.is_time and c.compute is None}
-    return replace(spikes, **moved)
 
 
 def _column_rows(columns: tuple[Column, ...]) -> list[str]:

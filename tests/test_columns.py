@@ -5,7 +5,7 @@ import numpy as np
 import pytest
 
 from spikemeasure.columns import SPIKE_COLUMNS, SPIKE_MARKS, columns_markdown, spike_column_names
-from spikemeasure.analysis.spikes import FLAG_TEXT, SpikeMeasurements
+from spikemeasure.analysis.spikes import FLAG_TEXT, TIME_FIELDS, SpikeMeasurements
 
 DOCS = Path(__file__).resolve().parents[1] / "docs" / "measurements.md"
 
@@ -24,6 +24,32 @@ def test_every_measured_field_is_declared():
     """Each field of the spike results is a column of spikes.csv or a mark kept for figures."""
     measured = set(SpikeMeasurements.__dataclass_fields__)
     assert measured <= set(spike_column_names()) | {c.name for c in SPIKE_MARKS}
+
+
+def test_time_columns_are_the_time_fields():
+    """The spike columns declared times are exactly the fields the results move as times
+    (SpikeMeasurements.shifted), so neither list can drift from the other."""
+    declared = {c.name for c in SPIKE_COLUMNS + SPIKE_MARKS if c.is_time}
+    assert declared == set(TIME_FIELDS)
+
+
+def test_analysis_does_not_import_columns():
+    """Imports flow one way: columns declares the output over analysis results, not the
+    reverse. Checked in a fresh interpreter through Python's record of loaded modules."""
+    import json
+    import subprocess
+    import sys
+
+    program = ("import json, sys\n"
+               "import spikemeasure.analysis.spikes_in_parts, spikemeasure.analysis.cell_features\n"
+               "import spikemeasure.analysis.sweep_features\n"
+               "print(json.dumps(sorted(sys.modules)))\n")
+    done = subprocess.run([sys.executable, "-c", program], capture_output=True, text=True,
+                          check=False)
+    assert done.returncode == 0, done.stderr
+    loaded = json.loads(done.stdout.strip().splitlines()[-1])
+    assert "spikemeasure.analysis.spikes_in_parts" in loaded  # the probe sees what it imports
+    assert "spikemeasure.columns" not in loaded
 
 
 def test_units_are_name_suffixes():
