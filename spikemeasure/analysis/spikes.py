@@ -28,6 +28,11 @@ __all__ = ["SpikeMeasurements", "spike_times", "first_in_step", "measure_spikes"
 #: Samples per piece when a long trace is measured in pieces (about 16 MB of float64 each).
 PIECE_SAMPLES = 1 << 21
 
+#: Consecutive samples equal to a spike's largest sample that mark its peak as clipped. A
+#: smooth peak sampled finely enough to measure has distinct samples around its maximum;
+#: two equal samples can straddle a maximum by chance, three in a row hardly ever.
+CLIPPED_RUN_SAMPLES = 3
+
 #: Every flag a spike can carry, with what it means (written to the docs).
 FLAG_TEXT = {
     "threshold_not_found": "the threshold criterion was not met before the peak; threshold, "
@@ -47,18 +52,13 @@ FLAG_TEXT = {
                    "depend on that window (threshold; peak; half-width; trough, AHP and fall "
                    "rate; interspike interval) are empty, the others are as without the gap",
     "clipped_peak": "the spike's largest sample repeats over at least "
-                    "`CLIPPED_RUN_SAMPLES` (3) consecutive samples, as when the amplifier or "
-                    "digitizer range was exceeded: the true peak was higher, so peak, amplitude "
-                    "and half-width are too small",
+                    f"`CLIPPED_RUN_SAMPLES` ({CLIPPED_RUN_SAMPLES}) consecutive samples, as when "
+                    "the amplifier or digitizer range was exceeded: the true peak was higher, so "
+                    "peak, amplitude and half-width are too small",
 }
 
 #: The flag of a spike with a value left empty because a missing stretch reaches it.
 GAP_FLAG = "touches_gap"
-
-#: Consecutive samples equal to a spike's largest sample that mark its peak as clipped. A
-#: smooth peak sampled finely enough to measure has distinct samples around its maximum;
-#: two equal samples can straddle a maximum by chance, three in a row hardly ever.
-CLIPPED_RUN_SAMPLES = 3
 
 
 def _time() -> Any:
