@@ -18,6 +18,7 @@ from .analysis.detection import DetectionSettings, smoothing_window_samples
 from .analysis.cell_features import (CELL_FLAG_TEXT, END_FRACTION, HOLDING_TOLERANCE_PA,
                             MAX_RESIDUAL_TO_NOISE, MIN_DEFLECTION_TO_NOISE, NOISE_FLOOR_MV,
                             SLOW_SWEEP_MAX_RISE_MV, TAU_SMOOTHING_MS)
+from .analysis.spike_features import SECOND_DERIVATIVE_LOOKBACK_MS
 from .analysis.spikes import CLIPPED_RUN_SAMPLES, FLAG_TEXT, PIECE_SAMPLES
 from .analysis.sweep_features import (BASELINE_WINDOW_MS, DRIFT_WINDOW_MS, MIN_WINDOW_MS,
                                       STEADY_STATE_WINDOW_MS, SWEEP_FLAG_TEXT)
@@ -125,7 +126,8 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
            "interpolated between samples. `max_rate_fraction`: the last upward crossing of "
            f"{_option('threshold_fraction')} ({_default('threshold_fraction')}) times the "
            "spike's maximum dV/dt before that maximum. "
-           "`second_derivative_peak`: the time of the largest d2V/dt2 from 1 ms before the onset "
+           "`second_derivative_peak`: the time of the largest d2V/dt2 from "
+           f"{SECOND_DERIVATIVE_LOOKBACK_MS:g} ms before the onset "
            "crossing to the maximum of dV/dt (Sekerli et al. 2004 compare such definitions).", 7,
            is_time=True),
     Column("threshold_mv", "mV", "Smoothed membrane voltage at threshold_s, linearly "
