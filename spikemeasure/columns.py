@@ -9,19 +9,23 @@ spike), and its test.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from typing import Any, Callable
 
 import numpy as np
 
-from .analysis.detection import DetectionSettings
-from .analysis.cell_features import (CELL_FLAG_TEXT, HOLDING_TOLERANCE_PA, MAX_RESIDUAL_TO_NOISE,
-                            MIN_DEFLECTION_TO_NOISE, SLOW_SWEEP_MAX_RISE_MV)
+from .analysis.detection import DetectionSettings, smoothing_window_samples
+from .analysis.cell_features import (CELL_FLAG_TEXT, END_FRACTION, HOLDING_TOLERANCE_PA,
+                            MAX_RESIDUAL_TO_NOISE, MIN_DEFLECTION_TO_NOISE, NOISE_FLOOR_MV,
+                            SLOW_SWEEP_MAX_RISE_MV, TAU_SMOOTHING_MS)
+from .analysis.spike_features import SECOND_DERIVATIVE_LOOKBACK_MS
 from .analysis.spikes import CLIPPED_RUN_SAMPLES, FLAG_TEXT, PIECE_SAMPLES
-from .analysis.sweep_features import DRIFT_WINDOW_MS, MIN_WINDOW_MS, SWEEP_FLAG_TEXT
+from .analysis.sweep_features import (BASELINE_WINDOW_MS, DRIFT_WINDOW_MS, MIN_WINDOW_MS,
+                                      STEADY_STATE_WINDOW_MS, SWEEP_FLAG_TEXT)
+from .params import parameter
 
 __all__ = ["Column", "SPIKE_COLUMNS", "SPIKE_MARKS", "SWEEP_COLUMNS", "CELL_COLUMNS",
-           "ERROR_COLUMNS", "KEY_COLUMN_NAMES", "spike_column_names", "shift_spike_times",
+           "ERROR_COLUMNS", "KEY_COLUMN_NAMES", "spike_column_names",
            "columns_markdown"]
 
 #: Columns that name the row (the file, the sweep, the spike) rather than hold a measurement;
@@ -44,8 +48,9 @@ class Column:
     decimals : int or None
         Digits after the point in the CSV; None for text and integers.
     is_time : bool
-        A time in seconds from the sweep's first sample: moved with the sweep's samples when
-        a trace is measured in parts (:func:`shift_spike_times`).
+        A time in seconds from the sweep's first sample. For the spike columns these are the
+        fields :meth:`~spikemeasure.analysis.spikes.SpikeMeasurements.shifted` moves when a
+        trace is measured in parts (``analysis.spikes.TIME_FIELDS``; a test keeps them equal).
     compute : callable or None
         Takes the measured results of one row group (a sweep's ``SpikeMeasurements``, a
         ``SweepFeatures``, a ``CellFeatures``) and returns this column's values. None: the
@@ -65,6 +70,19 @@ class Column:
         if self.compute is not None:
             return self.compute(measured)
         return getattr(measured, self.name)
+
+
+def _option(name: str) -> str:
+    """The command-line option of parameter `name`, as the definitions quote it."""
+    return f"`{parameter(name).option}`"
+
+
+def _default(name: str) -> str:
+    """The default of parameter `name` with its unit, as the definitions quote it."""
+    declared = parameter(name)
+    value = declared.default
+    text = f"{value:g}" if isinstance(value, (int, float)) else str(value)
+    return f"{text} {declared.unit}".strip()
 
 
 def _spike_flags_text(spikes: Any) -> list[str]:
@@ -101,11 +119,15 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
     Column("sweep", "", "0-based sweep index in file order (for NWB, in order of sweep number)."),
     Column("spike", "", "0-based index of the spike within its sweep."),
     Column("threshold_s", "s", "Time of threshold, seconds from the sweep's first sample. By "
-           "default (`--threshold-method onset_rate`) the last upward crossing of the onset rate "
-           "(`--onset-rate`, 20 V/s) by the smoothed dV/dt before the peak, linearly "
+           f"default (`{parameter('threshold_method').option} "
+           f"{_default('threshold_method')}`) the last upward crossing of the onset rate "
+           f"({_option('onset_rate_v_per_s')}, {_default('onset_rate_v_per_s')}) by the "
+           "smoothed dV/dt before the peak, linearly "
            "interpolated between samples. `max_rate_fraction`: the last upward crossing of "
-           "`--threshold-fraction` (0.05) times the spike's maximum dV/dt before that maximum. "
-           "`second_derivative_peak`: the time of the largest d2V/dt2 from 1 ms before the onset "
+           f"{_option('threshold_fraction')} ({_default('threshold_fraction')}) times the "
+           "spike's maximum dV/dt before that maximum. "
+           "`second_derivative_peak`: the time of the largest d2V/dt2 from "
+           f"{SECOND_DERIVATIVE_LOOKBACK_MS:g} ms before the onset "
            "crossing to the maximum of dV/dt (Sekerli et al. 2004 compare such definitions).", 7,
            is_time=True),
     Column("threshold_mv", "mV", "Smoothed membrane voltage at threshold_s, linearly "
@@ -119,12 +141,14 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
            "and the downward crossing (the first after it) of threshold_mv + amplitude_mv / 2 "
            "by the raw voltage, each linearly interpolated between samples. Empty when the "
            "voltage does not come back down before the next spike, within "
-           "`--search-window` (200 ms) of the peak, or when fewer than `--min-samples-across-width` (3) samples lie above the "
-           "level.", 5),
+           f"{_option('search_window_ms')} ({_default('search_window_ms')}) of the peak, or "
+           f"when fewer than {_option('min_samples_across_width')} "
+           f"({_default('min_samples_across_width')}) samples lie above the level.", 5),
     Column("rise_time_ms", "ms", "peak_s - threshold_s.", 5),
     Column("max_dvdt_v_per_s", "V/s", "Largest dV/dt from threshold to peak, refined between "
            "samples with a parabola. This dV/dt has its own, shorter smoothing window "
-           "(`--rate-smoothing`, 0.1 ms) so that the sharp extreme is not flattened.", 3),
+           f"({_option('rate_smoothing_ms')}, {_default('rate_smoothing_ms')}) so that the "
+           "sharp extreme is not flattened.", 3),
     Column("min_dvdt_v_per_s", "V/s", "Most negative dV/dt (same window as max_dvdt_v_per_s) "
            "from peak to trough, refined between samples with a parabola.", 3),
     Column("trough_s", "s", "Time of the minimum of the smoothed voltage after the peak and "
@@ -132,7 +156,8 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
            "current step when the spike lies inside one, else to the end of the sweep. (A last "
            "spike that falls through half amplitude only after the step ends is searched to the "
            "end of the sweep and flagged `trough_after_step_end`.) Never more than "
-           "`--search-window` (200 ms) after the peak.", 7, is_time=True),
+           f"{_option('search_window_ms')} ({_default('search_window_ms')}) after the peak.", 7,
+           is_time=True),
     Column("trough_mv", "mV", "Smoothed voltage at trough_s.", 4),
     Column("ahp_depth_mv", "mV", "Depth of the afterhyperpolarization: threshold_mv - trough_mv "
            "(positive when the trough lies below threshold).", 4),
@@ -168,7 +193,8 @@ SWEEP_COLUMNS: tuple[Column, ...] = (
            "median), or `--step`.", 6, is_time=True),
     Column("stimulus_end_s", "s", "Step offset: the first sample after the step.", 6,
            is_time=True),
-    Column("baseline_mv", "mV", "Mean voltage over the 100 ms before onset (all of it if "
+    Column("baseline_mv", "mV", f"Mean voltage over the {BASELINE_WINDOW_MS:g} ms before onset "
+           "(all of it if "
            "shorter).", 4),
     Column("baseline_noise_mv", "mV", "Standard deviation (ddof=0) of the voltage over the same "
            "window.", 4),
@@ -188,7 +214,8 @@ SWEEP_COLUMNS: tuple[Column, ...] = (
     Column("adaptation_index", "", "Mean over consecutive interval pairs of (ISI[k+1] - ISI[k]) "
            "/ (ISI[k+1] + ISI[k]) (Druckmann et al. 2007); needs at least 2 intervals. Positive "
            "when firing slows during the step, near 0 for regular firing.", 5),
-    Column("steady_state_mv", "mV", "Mean voltage over the last 100 ms of the step.", 4),
+    Column("steady_state_mv", "mV", f"Mean voltage over the last {STEADY_STATE_WINDOW_MS:g} ms "
+           "of the step.", 4),
     Column("min_mv", "mV", f"Minimum during the step of the voltage averaged over a sliding "
            f"{MIN_WINDOW_MS:g} ms window (so noise does not pull it down).", 4),
     Column("sag_fraction", "", "Hyperpolarizing steps only: (steady_state_mv - min_mv) / "
@@ -229,8 +256,9 @@ CELL_COLUMNS: tuple[Column, ...] = (
            f"sample of its step lies more than {SLOW_SWEEP_MAX_RISE_MV:g} mV above its baseline "
            "(`slow_sweeps_taken_as_spike_free`).", 3),
     Column("membrane_tau_ms", "ms", "Time constant of a single exponential fitted "
-           "(scipy.optimize.curve_fit) to the voltage from onset to its minimum (on a 1 ms "
-           "moving average; the fit ends where that average first comes within 2 % of the "
+           "(scipy.optimize.curve_fit) to the voltage from onset to its minimum (on a "
+           f"{TAU_SMOOTHING_MS:g} ms moving average; the fit ends where that average first "
+           f"comes within {END_FRACTION * 100:g} % of the "
            "deflection from the minimum, about 4 tau, since the flat stretch after carries noise "
            "but no information about tau) on the smallest hyperpolarizing spike-free step. "
            f"Empty, flagged `tau_fit_poor`, when the residual RMS is over "
@@ -248,7 +276,8 @@ CELL_COLUMNS: tuple[Column, ...] = (
     Column("membrane_tau_fit_r2", "", "R^2 of the time-constant fit over the fitted samples "
            "(noise caps it: a good fit to a small deflection can have a low R^2).", 5),
     Column("membrane_tau_residual_to_noise", "", "RMS residual of that fit over the sweep's "
-           "baseline_noise_mv (at least 0.05 mV): near 1 when one exponential explains all but "
+           f"baseline_noise_mv (at least {NOISE_FLOOR_MV:g} mV): near 1 when one exponential "
+           "explains all but "
            "the noise.", 4),
     Column("flags", "", "Why values are empty or less certain, separated by ';' (see the list of "
            "cell flags).", compute=_flags_text),
@@ -272,29 +301,6 @@ ERROR_COLUMNS: tuple[Column, ...] = (
 def spike_column_names() -> list[str]:
     """The header of spikes.csv."""
     return [c.name for c in SPIKE_COLUMNS]
-
-
-def shift_spike_times(spikes: Any, shift_s: float) -> Any:
-    """The same spikes with every time moved by `shift_s` seconds.
-
-    Parameters
-    ----------
-    spikes : SpikeMeasurements
-        Spikes measured on a part of a trace, times from the part's first sample.
-    shift_s : float
-        Time of the part's first sample in the whole trace.
-
-    Returns
-    -------
-    SpikeMeasurements
-        Times from the whole trace's first sample: every measured field declared a time
-        (``is_time``) among :data:`SPIKE_COLUMNS` and :data:`SPIKE_MARKS` is moved; columns
-        computed from them follow when computed.
-    """
-    moved = {c.name: np.asarray(getattr(spikes, c.name)) + shift_s
-             for c in SPIKE_COLUMNS + SPIKE_MARKS
-             if c.is_time and c.compute is None}
-    return replace(spikes, **moved)
 
 
 def _column_rows(columns: tuple[Column, ...]) -> list[str]:
@@ -400,7 +406,9 @@ def _detection_lines(d: DetectionSettings) -> list[str]:
         "symmetric, hence zero-phase: it does not shift times. For white noise of SD sigma at "
         "sampling rate fs and a window of N samples the derivative noise has SD "
         "sigma * fs * sqrt(12 / (N (N^2 - 1))): 0.3 mV of noise at 50 kHz gives about 21 V/s "
-        "for a raw first difference, 4.7 V/s over 0.1 ms and 0.9 V/s over the default 0.3 ms. "
+        f"for a raw first difference, {derivative_noise_v_per_s(0.3, 50e3, 0.1):.1f} V/s over "
+        f"0.1 ms and {derivative_noise_v_per_s(0.3, 50e3, d.smoothing_ms):.1f} V/s over the "
+        f"default {d.smoothing_ms:g} ms. "
         "Near threshold dV/dt rises slowly, so noise there moves the crossing of the onset "
         "rate: in a Hodgkin-Huxley (1952) spike train with 0.3 mV of noise at 50 kHz, "
         "thresholds moved by up to 2.9 mV with a 0.1 ms window and 0.8 mV with 0.3 ms. A long "
@@ -415,6 +423,41 @@ def _detection_lines(d: DetectionSettings) -> list[str]:
         "recording the next spike may come seconds later, and the lowest point of those "
         "seconds is not the spike's afterhyperpolarization.",
     ]
+
+
+def derivative_noise_v_per_s(noise_mv: float, sampling_rate_hz: float,
+                             smoothing_ms: float) -> float:
+    """SD of the smoothed dV/dt of white noise, as the detection section quotes it.
+
+    Parameters
+    ----------
+    noise_mv : float
+        SD of the white noise on the voltage, in mV.
+    sampling_rate_hz : float
+        Samples per second.
+    smoothing_ms : float
+        Savitzky-Golay window, rounded to an odd number of samples N (at least 3) as the
+        detection rounds it.
+
+    Returns
+    -------
+    float
+        ``noise_mv * sampling_rate_hz * sqrt(12 / (N (N^2 - 1)))`` in V/s.
+
+    Notes
+    -----
+    The first-derivative Savitzky-Golay filter of a quadratic (or linear) fit over N samples
+    is the least-squares slope, with weights ``k / sum(k^2)`` for k = -(N-1)/2 .. (N-1)/2;
+    the SD of white noise through it is sigma * fs / sqrt(sum(k^2)) and
+    ``sum(k^2) = N (N^2 - 1) / 12``.
+
+    References
+    ----------
+    Savitzky A, Golay MJE (1964) Smoothing and differentiation of data by simplified least
+    squares procedures. Anal Chem 36:1627-1639.
+    """
+    n = smoothing_window_samples(smoothing_ms, sampling_rate_hz)
+    return noise_mv * sampling_rate_hz * np.sqrt(12.0 / (n * (n * n - 1))) / 1e3
 
 
 def _long_recording_lines() -> list[str]:

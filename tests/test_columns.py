@@ -5,7 +5,7 @@ import numpy as np
 import pytest
 
 from spikemeasure.columns import SPIKE_COLUMNS, SPIKE_MARKS, columns_markdown, spike_column_names
-from spikemeasure.analysis.spikes import FLAG_TEXT, SpikeMeasurements
+from spikemeasure.analysis.spikes import FLAG_TEXT, TIME_FIELDS, SpikeMeasurements
 
 DOCS = Path(__file__).resolve().parents[1] / "docs" / "measurements.md"
 
@@ -24,6 +24,80 @@ def test_every_measured_field_is_declared():
     """Each field of the spike results is a column of spikes.csv or a mark kept for figures."""
     measured = set(SpikeMeasurements.__dataclass_fields__)
     assert measured <= set(spike_column_names()) | {c.name for c in SPIKE_MARKS}
+
+
+def test_time_columns_are_the_time_fields():
+    """The spike columns declared times are exactly the fields the results move as times
+    (SpikeMeasurements.shifted), so neither list can drift from the other."""
+    declared = {c.name for c in SPIKE_COLUMNS + SPIKE_MARKS if c.is_time}
+    assert declared == set(TIME_FIELDS)
+
+
+def test_analysis_does_not_import_columns():
+    """Imports flow one way: columns declares the output over analysis results, not the
+    reverse. Checked in a fresh interpreter through Python's record of loaded modules."""
+    import json
+    import subprocess
+    import sys
+
+    program = ("import json, sys\n"
+               "import spikemeasure.analysis.spikes_in_parts, spikemeasure.analysis.cell_features\n"
+               "import spikemeasure.analysis.sweep_features\n"
+               "print(json.dumps(sorted(sys.modules)))\n")
+    done = subprocess.run([sys.executable, "-c", program], capture_output=True, text=True,
+                          check=False)
+    assert done.returncode == 0, done.stderr
+    loaded = json.loads(done.stdout.strip().splitlines()[-1])
+    assert "spikemeasure.analysis.spikes_in_parts" in loaded  # the probe sees what it imports
+    assert "spikemeasure.columns" not in loaded
+
+
+def test_definitions_quote_the_declared_defaults():
+    """Every default the column definitions and docs/measurements.md quote beside an option
+    ("`--search-window` (200 ms)", "(`--onset-rate`, 20 V/s)", "0.1 ms (`--rate-smoothing`)")
+    is the one params.py declares."""
+    import re
+
+    from spikemeasure.params import PARAMETERS
+
+    by_option = {p.option: p for p in PARAMETERS}
+    text = " ".join(columns_markdown().split())
+    after = re.finditer(r"`(--[\w-]+)`(?:,| \() ?([-\d.]+)[ ),]", text)
+    before = re.finditer(r"([-\d.]+) (?:V/s|mV|ms) \(`(--[\w-]+)`", text)
+    quotes = [m.group(1, 2) for m in after] + [m.group(2, 1) for m in before]
+    for option, value in quotes:
+        assert float(value) == pytest.approx(by_option[option].default), (option, value)
+    assert {o for o, _ in quotes} >= {"--onset-rate", "--threshold-fraction", "--search-window",
+                                      "--min-samples-across-width", "--rate-smoothing",
+                                      "--lowest-peak", "--peak-window"}
+
+
+class TestDerivativeNoise:
+    """Source: scipy.signal.savgol_coeffs. The SD of white noise (SD sigma) through a linear
+    filter is sigma * sqrt(sum of the squared coefficients)."""
+
+    @pytest.mark.parametrize("window_ms", [0.06, 0.1, 0.3, 1.0])
+    def test_closed_form_matches_the_filter_coefficients(self, window_ms):
+        from scipy.signal import savgol_coeffs
+
+        from spikemeasure.analysis.detection import SMOOTHING_POLYORDER, smoothing_window_samples
+        from spikemeasure.columns import derivative_noise_v_per_s
+
+        rate, sigma = 50e3, 0.3
+        n = smoothing_window_samples(window_ms, rate)
+        coeffs = savgol_coeffs(n, SMOOTHING_POLYORDER, deriv=1, delta=1.0 / rate)
+        expected_v_per_s = sigma * np.sqrt(np.sum(coeffs ** 2)) / 1e3
+        assert derivative_noise_v_per_s(sigma, rate, window_ms) == pytest.approx(
+            expected_v_per_s, rel=1e-9)
+
+    def test_the_quoted_values(self):
+        from spikemeasure.columns import derivative_noise_v_per_s
+
+        # 0.3 mV at 50 kHz: 4.7 V/s over 0.1 ms (5 samples), 0.9 V/s over 0.3 ms (15 samples),
+        # by the formula N (N^2 - 1) / 12 = sum of k^2 (Savitzky & Golay 1964)
+        assert derivative_noise_v_per_s(0.3, 50e3, 0.1) == pytest.approx(
+            0.3 * 50e3 / np.sqrt(10) / 1e3)
+        assert round(derivative_noise_v_per_s(0.3, 50e3, 0.3), 1) == 0.9
 
 
 def test_units_are_name_suffixes():

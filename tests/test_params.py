@@ -245,6 +245,27 @@ class TestDocs:
         assert parameters_markdown() in docs, \
             "regenerate the table in docs/batch.md from parameters_markdown()"
 
+    def test_defaults_quoted_in_prose_are_the_declared_ones(self):
+        """Where README.md or docs/*.md quote an option's default in prose ("`--opt` ...
+        default 200 ms", "(`--opt`, 20 V/s by default)"), it is the default params.py declares
+        (the parameter table's `default` column)."""
+        by_option = {p.option: p for p in PARAMETERS}
+        texts = [ROOT / "README.md"] + sorted((ROOT / "docs").glob("*.md"))
+        pattern = re.compile(r"`(--[\w-]+)`[^`.;:]*?default ([-\d.]+)"
+                             r"|`(--[\w-]+)`, ([-\d.]+) \S+ by\s+default")
+        seen = set()
+        for path in texts:
+            text = " ".join(path.read_text(encoding="utf-8").split())
+            for m in pattern.finditer(text):
+                option, value = (m.group(1), m.group(2)) if m.group(1) else m.group(3, 4)
+                declared = by_option[option]
+                expected = declared.default if declared.default is not None \
+                    else float(declared.default_text)
+                assert float(value) == pytest.approx(expected), (path.name, option, value)
+                seen.add(option)
+        # the probe finds the quotes it is meant to check
+        assert {"--max-sweep-samples", "--search-window", "--onset-rate"} <= seen
+
     def test_the_table_has_a_row_per_parameter(self):
         rows = [line for line in parameters_markdown().splitlines()[2:]]
         assert [re.match(r"\| `(\w+)` ", row).group(1) for row in rows] == \

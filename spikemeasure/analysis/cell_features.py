@@ -15,7 +15,7 @@ from scipy.optimize import OptimizeWarning, curve_fit
 
 __all__ = ["CellFeatures", "ExponentialFit", "fit_membrane_tau", "rheobase", "fi_slope",
            "input_resistance", "cell_features", "passive_sweeps", "CELL_FLAG_TEXT", "MAX_RESIDUAL_TO_NOISE",
-           "MIN_DEFLECTION_TO_NOISE", "NOISE_FLOOR_MV",
+           "MIN_DEFLECTION_TO_NOISE", "NOISE_FLOOR_MV", "END_FRACTION", "TAU_SMOOTHING_MS",
            "HOLDING_TOLERANCE_PA", "SLOW_SWEEP_MAX_RISE_MV"]
 
 #: A time-constant fit is poor when its residual RMS exceeds this multiple of the sweep's
@@ -28,6 +28,8 @@ NOISE_FLOOR_MV = 0.05
 #: The time-constant fit ends where the response is this close (as a fraction of its
 #: deflection) to its minimum.
 END_FRACTION = 0.02
+#: Width of the moving average on which the time-constant fit finds the response's minimum.
+TAU_SMOOTHING_MS = 1.0
 #: Sweeps whose holding current is within this of zero count as "no holding current".
 HOLDING_TOLERANCE_PA = 1.0
 #: A hyperpolarizing sweep sampled too slowly to count spikes is taken as spike-free when no
@@ -139,7 +141,8 @@ def _exponential(t, v_inf, delta, tau):
 
 
 def fit_membrane_tau(voltage_mv: np.ndarray, sampling_rate_hz: float, onset_s: float,
-                     offset_s: float, smooth_ms: float = 1.0) -> ExponentialFit | None:
+                     offset_s: float, smooth_ms: float = TAU_SMOOTHING_MS
+                     ) -> ExponentialFit | None:
     """Fit a single exponential to the voltage from step onset to its minimum.
 
     Parameters

@@ -16,7 +16,11 @@ from .detection import (SMOOTHING_POLYORDER, DetectedSpikes, DetectionSettings, 
 from .sweeps import CurrentStep
 
 __all__ = ["spike_thresholds", "interpolated_peaks", "flat_peak_runs", "half_widths", "troughs",
-           "rate_extremes", "search_ends", "SPLINE_HALF_SAMPLES"]
+           "rate_extremes", "search_ends", "SPLINE_HALF_SAMPLES", "SECOND_DERIVATIVE_LOOKBACK_MS"]
+
+#: How far before the onset crossing the ``second_derivative_peak`` threshold searches for the
+#: largest d2V/dt2.
+SECOND_DERIVATIVE_LOOKBACK_MS = 1.0
 
 _GATHER_CAP = 256           # spans longer than this are searched one by one
 _GATHER_ELEMENTS = 2_000_000  # samples gathered at once, to bound memory
@@ -233,7 +237,8 @@ def spike_thresholds(trace: SmoothedTrace, detected: DetectedSpikes,
         The last upward crossing, before the time of the spike's maximum dV/dt, of
         ``threshold_fraction`` times that maximum [1]_.
     ``second_derivative_peak``
-        The time of the largest d2V/dt2 from 1 ms before the onset crossing to the time of
+        The time of the largest d2V/dt2 from :data:`SECOND_DERIVATIVE_LOOKBACK_MS` (1 ms)
+        before the onset crossing to the time of
         maximum dV/dt, refined to sub-sample precision with a parabola through the three
         samples around it [1]_.
     Searches never reach back past the previous spike's peak, nor further than
@@ -264,8 +269,9 @@ def spike_thresholds(trace: SmoothedTrace, detected: DetectedSpikes,
             level = settings.threshold_fraction * dvdt[top]
             index = _upward_crossings_before(dvdt, level, floor, top)
         else:  # second_derivative_peak
-            one_ms = max(1, int(round(1e-3 * trace.sampling_rate_hz)))
-            lo = np.maximum(floor, onset - one_ms)
+            lookback = max(1, int(round(SECOND_DERIVATIVE_LOOKBACK_MS * 1e-3
+                                        * trace.sampling_rate_hz)))
+            lo = np.maximum(floor, onset - lookback)
             index = _vertices(d2, _span_argmax(d2, lo, top))[0]
     return index, _interp_many(trace.smooth_mv, index)
 

@@ -9,7 +9,8 @@ say why.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, field, fields, replace
+from typing import Any
 
 import numpy as np
 
@@ -22,10 +23,15 @@ from .sweeps import CurrentStep
 
 __all__ = ["SpikeMeasurements", "spike_times", "first_in_step", "measure_spikes",
            "measure_spikes_with_positions", "measure_trace", "PIECE_SAMPLES", "FLAG_TEXT",
-           "GAP_FLAG", "CLIPPED_RUN_SAMPLES"]
+           "GAP_FLAG", "CLIPPED_RUN_SAMPLES", "TIME_FIELDS"]
 
 #: Samples per piece when a long trace is measured in pieces (about 16 MB of float64 each).
 PIECE_SAMPLES = 1 << 21
+
+#: Consecutive samples equal to a spike's largest sample that mark its peak as clipped. A
+#: smooth peak sampled finely enough to measure has distinct samples around its maximum;
+#: two equal samples can straddle a maximum by chance, three in a row hardly ever.
+CLIPPED_RUN_SAMPLES = 3
 
 #: Every flag a spike can carry, with what it means (written to the docs).
 FLAG_TEXT = {
@@ -46,18 +52,19 @@ FLAG_TEXT = {
                    "depend on that window (threshold; peak; half-width; trough, AHP and fall "
                    "rate; interspike interval) are empty, the others are as without the gap",
     "clipped_peak": "the spike's largest sample repeats over at least "
-                    "`CLIPPED_RUN_SAMPLES` (3) consecutive samples, as when the amplifier or "
-                    "digitizer range was exceeded: the true peak was higher, so peak, amplitude "
-                    "and half-width are too small",
+                    f"`CLIPPED_RUN_SAMPLES` ({CLIPPED_RUN_SAMPLES}) consecutive samples, as when "
+                    "the amplifier or digitizer range was exceeded: the true peak was higher, so "
+                    "peak, amplitude and half-width are too small",
 }
 
 #: The flag of a spike with a value left empty because a missing stretch reaches it.
 GAP_FLAG = "touches_gap"
 
-#: Consecutive samples equal to a spike's largest sample that mark its peak as clipped. A
-#: smooth peak sampled finely enough to measure has distinct samples around its maximum;
-#: two equal samples can straddle a maximum by chance, three in a row hardly ever.
-CLIPPED_RUN_SAMPLES = 3
+
+def _time() -> Any:
+    """A field holding times in s from the sweep's first sample (moved by
+    :meth:`SpikeMeasurements.shifted`)."""
+    return field(metadata={"is_time": True})
 
 
 @dataclass(frozen=True)
@@ -67,24 +74,25 @@ class SpikeMeasurements:
     The columns of spikes.csv are declared, with what each field means, in
     :mod:`spikemeasure.columns` (``SPIKE_COLUMNS``); ``half_width_start_s`` and
     ``half_width_end_s``, the crossings that bound ``half_width_ms``, are kept for figures
-    (``SPIKE_MARKS``).
+    (``SPIKE_MARKS``). The fields declared times (``is_time`` in their metadata, listed in
+    :data:`TIME_FIELDS`) are seconds from the sweep's first sample.
     """
 
-    threshold_s: np.ndarray
+    threshold_s: np.ndarray = _time()
     threshold_mv: np.ndarray
-    peak_s: np.ndarray
+    peak_s: np.ndarray = _time()
     peak_mv: np.ndarray
     amplitude_mv: np.ndarray
     half_width_ms: np.ndarray
     rise_time_ms: np.ndarray
     max_dvdt_v_per_s: np.ndarray
     min_dvdt_v_per_s: np.ndarray
-    trough_s: np.ndarray
+    trough_s: np.ndarray = _time()
     trough_mv: np.ndarray
     ahp_depth_mv: np.ndarray
     isi_ms: np.ndarray
-    half_width_start_s: np.ndarray
-    half_width_end_s: np.ndarray
+    half_width_start_s: np.ndarray = _time()
+    half_width_end_s: np.ndarray = _time()
     flags: tuple[tuple[str, ...], ...]
 
     @classmethod
@@ -102,6 +110,31 @@ class SpikeMeasurements:
         return SpikeMeasurements(flags=tuple(fl for fl, k in zip(self.flags, keep) if k),
                                  **values)
 
+    def shifted(self, offset_s: float) -> "SpikeMeasurements":
+        """The same spikes with every time field (:data:`TIME_FIELDS`) moved by `offset_s`.
+
+        Parameters
+        ----------
+        offset_s : float
+            Seconds to add: for spikes measured on a part of a trace, the time of the part's
+            first sample in the whole trace.
+
+        Returns
+        -------
+        SpikeMeasurements
+            Times from the whole trace's first sample; the other fields (intervals, widths,
+            voltages, flags) unchanged.
+        """
+        offset_s = float(offset_s)
+        if not np.isfinite(offset_s):
+            raise InvalidSettingError(f"`offset_s` must be a finite number, got {offset_s}")
+        return replace(self, **{name: np.asarray(getattr(self, name)) + offset_s
+                                for name in TIME_FIELDS})
+
+
+#: The fields of :class:`SpikeMeasurements` that hold times from the sweep's first sample.
+TIME_FIELDS: tuple[str, ...] = tuple(f.name for f in fields(SpikeMeasurements)
+                                     if f.metadata.get("is_time", False))
 
 
 def spike_times(spikes: SpikeMeasurements) -> np.ndarray:

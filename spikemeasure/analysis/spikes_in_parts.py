@@ -12,7 +12,6 @@ from typing import Callable
 
 import numpy as np
 
-from ..columns import shift_spike_times
 from ..errors import InvalidSettingError
 from .detection import (DetectedSpikes, DetectionSettings, SmoothedTrace, detect_spikes,
                         smoothed_trace, smoothing_window_samples)
@@ -118,7 +117,7 @@ def _measure_stretches(voltage_mv: np.ndarray, sampling_rate_hz: float,
                                                       step.size_pa, step.holding_pa)
         spikes, extra = measure_spikes_with_positions(trace, detected, settings, local)
         spikes = _blank_near_gaps(spikes, detected, extra, trace, settings, a > 0, b < v.size)
-        parts.append(shift_spike_times(spikes, a / rate))
+        parts.append(spikes.shifted(a / rate))
         onsets.append(detected.onset_index + a)
     return _concatenate(parts), (np.concatenate(onsets) if onsets
                                  else np.zeros(0, dtype=np.int64))
@@ -317,7 +316,7 @@ def measure_in_pieces_with_gaps(voltage_mv, sampling_rate_hz: float,
         onset = onset + lo
         keep = (onset >= start) & (onset < stop)
         if keep.any():
-            parts.append(shift_spike_times(measured.subset(keep), lo / rate))
+            parts.append(measured.subset(keep).shifted(lo / rate))
     whole = _concatenate(parts)
     stretches = np.array(gaps, dtype=np.int64).reshape(-1, 2)
     return _intervals_across_gaps(whole, stretches / rate), stretches

@@ -15,7 +15,7 @@ from .sweeps import MIN_SAMPLING_RATE_HZ, CurrentStep, missing_stretches
 
 __all__ = ["SweepFeatures", "baseline", "baseline_drift", "firing", "adaptation_index",
            "passive_response", "sweep_features", "MIN_WINDOW_MS", "DRIFT_WINDOW_MS",
-           "SWEEP_FLAG_TEXT"]
+           "BASELINE_WINDOW_MS", "STEADY_STATE_WINDOW_MS", "SWEEP_FLAG_TEXT"]
 
 #: Width of the moving average under the minimum during the step (noise would pull a raw
 #: minimum down by two to three noise SDs).
@@ -24,6 +24,12 @@ MIN_WINDOW_MS = 1.0
 #: Length of the window at the end of the sweep, after the step, whose mean voltage is
 #: compared with the baseline to measure drift.
 DRIFT_WINDOW_MS = 100.0
+
+#: Length of the window before the step whose mean is the baseline (and its SD the noise).
+BASELINE_WINDOW_MS = 100.0
+
+#: Length of the window at the end of the step whose mean is the steady-state voltage.
+STEADY_STATE_WINDOW_MS = 100.0
 
 
 #: Every flag a sweep can carry, with what it means (written to the docs). "Gap": a stretch
@@ -37,7 +43,8 @@ SWEEP_FLAG_TEXT = {
                    "so are firing_rate_hz, mean_isi_ms, isi_cv and adaptation_index (spikes in "
                    "the gap are not seen); first_spike_latency_ms is kept only when the first "
                    "spike comes before the gap",
-    "gap_in_steady_state_window": "a gap lies in the last 100 ms of the step: steady_state_mv "
+    "gap_in_steady_state_window": f"a gap lies in the last {STEADY_STATE_WINDOW_MS:g} ms of the "
+                                  "step: steady_state_mv "
                                   "and sag_fraction are empty",
     "spike_count_lower_bound": "a gap lies where spikes are counted (the step, or the whole "
                                "sweep without a step), or a spike beside a gap has no time: "
@@ -92,7 +99,7 @@ class SweepFeatures:
 
 
 def baseline(voltage_mv: np.ndarray, sampling_rate_hz: float, onset_s: float,
-             window_ms: float = 100.0) -> tuple[float, float]:
+             window_ms: float = BASELINE_WINDOW_MS) -> tuple[float, float]:
     """Mean and standard deviation (ddof=0) of the voltage over `window_ms` before `onset_s`.
 
     All of the pre-step stretch when it is shorter; (NaN, NaN) when there is none.
@@ -212,7 +219,8 @@ def firing(spike_times_s: np.ndarray, step: CurrentStep) -> dict:
 
 
 def passive_response(voltage_mv: np.ndarray, sampling_rate_hz: float, step: CurrentStep,
-                     baseline_mv: float, steady_window_ms: float = 100.0) -> tuple[float, float, float]:
+                     baseline_mv: float, steady_window_ms: float = STEADY_STATE_WINDOW_MS
+                     ) -> tuple[float, float, float]:
     """Steady state, minimum and sag of the response to a step.
 
     Returns
@@ -249,8 +257,10 @@ def _touches(gaps: np.ndarray, lo: int, hi: int) -> bool:
 
 
 def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: CurrentStep | None,
-                   spike_times_s: np.ndarray, *, baseline_window_ms: float = 100.0,
-                   steady_window_ms: float = 100.0, clipped_spike_count: int = 0,
+                   spike_times_s: np.ndarray, *,
+                   baseline_window_ms: float = BASELINE_WINDOW_MS,
+                   steady_window_ms: float = STEADY_STATE_WINDOW_MS,
+                   clipped_spike_count: int = 0,
                    duration_s: float | None = None, gaps: np.ndarray | None = None,
                    spikes_counted: bool | None = None) -> SweepFeatures:
     """All features of one sweep.

@@ -7,7 +7,6 @@ from typing import Callable, Sequence
 import numpy as np
 
 from ..analysis.cell_features import CellFeatures
-from ..analysis.spike_features import half_widths
 from ..tables.build import SweepResult, cell_summary
 from .common import (PEAK_COLOUR, STYLE, THRESHOLD_COLOUR, TROUGH_COLOUR, cell_figure,
                      matplotlib, note)
@@ -74,19 +73,15 @@ def first_spike_figure(results: Sequence[SweepResult], cell: CellFeatures | None
         ax.annotate(f"peak {peak_mv:.1f} mV", ((peak_s - zero) * 1e3, peak_mv), xytext=(8, 0),
                     textcoords="offset points", ha="left", va="center")
         width = float(s.half_width_ms[k])
-        if math.isfinite(width) and math.isfinite(thr_mv):
+        up_s, down_s = float(s.half_width_start_s[k]), float(s.half_width_end_s[k])
+        if math.isfinite(width) and math.isfinite(up_s) and math.isfinite(down_s):
             level = thr_mv + 0.5 * (peak_mv - thr_mv)
-            # the crossings as measured, found in the samples shown
-            _, up, down, _ = half_widths(v, rate, np.array([thr_s * rate - lo]),
-                                         np.array([thr_mv]), np.array([int(np.argmax(v))]),
-                                         np.array([peak_mv]), np.array([v.size]))
-            up, down = float(up[0]), float(down[0])
-            if math.isfinite(up) and math.isfinite(down):
-                x = [((lo + up) / rate - zero) * 1e3, ((lo + down) / rate - zero) * 1e3]
-                ax.plot(x, [level, level], color=THRESHOLD_COLOUR, lw=1.5, marker="|", ms=8,
-                        label="half-width", zorder=4)
-                ax.annotate(f"half-width {width:.2f} ms", (x[1], level), xytext=(8, 0),
-                            textcoords="offset points", ha="left", va="center")
+            # the crossings as measured, kept in the spike results
+            x = [(up_s - zero) * 1e3, (down_s - zero) * 1e3]
+            ax.plot(x, [level, level], color=THRESHOLD_COLOUR, lw=1.5, marker="|", ms=8,
+                    label="half-width", zorder=4)
+            ax.annotate(f"half-width {width:.2f} ms", (x[1], level), xytext=(8, 0),
+                        textcoords="offset points", ha="left", va="center")
         if math.isfinite(trough_s) and trough_s <= end_s:
             ahp = float(s.ahp_depth_mv[k])
             ax.plot([(trough_s - zero) * 1e3], [trough_mv], ls="none", marker="^", ms=6,

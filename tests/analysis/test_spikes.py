@@ -103,32 +103,40 @@ class TestHalfWidthCrossings:
         assert np.isnan(m.half_width_start_s[0]) and np.isnan(m.half_width_end_s[0])
 
 
-class TestTimesShiftedByTheRegistry:
+class TestShifted:
     """Source: the same spike later in a trace (the trace with a flat baseline in front) has
     every time later by the baseline's duration and every other value unchanged."""
+
+    def test_time_fields_are_the_fields_in_seconds(self):
+        from spikemeasure.analysis.spikes import TIME_FIELDS
+
+        # the times from the sweep's start, by the unit suffix of the field names
+        assert set(TIME_FIELDS) == {"threshold_s", "peak_s", "trough_s", "half_width_start_s",
+                                    "half_width_end_s"}
 
     def test_shift_matches_a_later_spike(self, gaussian_spike):
         from dataclasses import fields
 
-        from spikemeasure.analysis.spikes import SpikeMeasurements
-        from spikemeasure.columns import SPIKE_COLUMNS, SPIKE_MARKS, shift_spike_times
+        from spikemeasure.analysis.spikes import TIME_FIELDS, SpikeMeasurements
 
         rate, pad = 20_000.0, 1000
         t, v = sampled(gaussian_spike, rate)
         early = measure_trace(v, rate)
         late = measure_trace(np.concatenate([np.full(pad, v[0]), v]), rate)
-        shifted = shift_spike_times(early, pad / rate)
-        times = {c.name for c in SPIKE_COLUMNS + SPIKE_MARKS if c.is_time}
-        assert times == {"threshold_s", "peak_s", "trough_s", "half_width_start_s",
-                         "half_width_end_s"}
+        shifted = early.shifted(pad / rate)
         for f in fields(SpikeMeasurements):
             if f.name == "flags":
                 assert shifted.flags == late.flags
                 continue
             np.testing.assert_allclose(getattr(shifted, f.name), getattr(late, f.name),
                                        rtol=1e-9, atol=1e-9, err_msg=f.name)
-            if f.name not in times:
+            if f.name not in TIME_FIELDS:
                 np.testing.assert_array_equal(getattr(shifted, f.name), getattr(early, f.name))
+
+    def test_offset_must_be_finite(self, gaussian_spike):
+        t, v = sampled(gaussian_spike, 20_000.0)
+        with pytest.raises(InvalidSettingError, match="`offset_s`"):
+            measure_trace(v, 20_000.0).shifted(float("nan"))
 
 
 class TestHalfWidthAgainstScipy:
