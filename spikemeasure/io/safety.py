@@ -27,7 +27,9 @@ HDF5_SIGNATURE = b"\x89HDF\r\n\x1a\n"
 #: bar (PlexonIO). neo's shared base classes touch ``joblib`` only for an optional cache that
 #: is off unless asked for (``use_cache``), and it is never asked for here.
 #:
-#: Left out: PickleIO (unpickles), ElphyIO (calls ``eval`` on text of the file); readers that
+#: Left out: PickleIO (unpickles), ElphyIO (calls ``eval`` on text of the file), ExampleIO
+#: (it reads nothing: it makes up signals, so a stray ``.fake`` file would give invented
+#: sweeps); readers that
 #: hand the file to a compiled or third-party library that could not be checked the same way
 #: (CedIO, EDFIO, IgorIO, KwikIO, MEArecIO, StimfitIO), load a system library (Plexon2IO,
 #: NeurosharectypesIO) or may download one (MaxwellIO); readers of folders rather than files
@@ -37,7 +39,7 @@ HDF5_SIGNATURE = b"\x89HDF\r\n\x1a\n"
 VETTED_NEO_READERS = (
     "AlphaOmegaIO", "AsciiSignalIO", "AxographIO", "AxonaIO", "AxonIO", "BCI2000IO",
     "BiocamIO", "BlackrockIO", "BrainVisionIO", "BrainwareDamIO", "BrainwareF32IO",
-    "BrainwareSrcIO", "ElanIO", "ExampleIO", "IntanIO", "MicromedIO", "NeoMatlabIO", "NestIO",
+    "BrainwareSrcIO", "ElanIO", "IntanIO", "MicromedIO", "NeoMatlabIO", "NestIO",
     "NeuroExplorerIO", "NeuroNexusIO", "NeuroScopeIO", "PlexonIO", "RawBinarySignalIO",
     "RawMCSIO", "Spike2IO", "SpikeGadgetsIO", "WinEdrIO", "WinWcpIO",
 )

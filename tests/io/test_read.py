@@ -497,9 +497,27 @@ def test_names_from_a_file_are_shown_only_when_plain(tmp_path):
     assert SECRET not in str(caught.value)
 
 
-def test_a_reader_failure_is_named_by_its_type_only(tmp_path, monkeypatch):
-    """Other formats go to the one neo reader their suffix names (``.fake``: neo's example
-    reader); a reader's exception text can quote the file, so only its type is kept."""
+@pytest.fixture
+def example_reader_route(monkeypatch):
+    """Route ``.fake`` to neo's example reader for one test: a neo reader that needs no file
+    content (it makes up its signals, which is why the suffix table leaves it out)."""
+    import neo.io
+
+    from spikemeasure.io.neo_formats import read_with_neo
+    from spikemeasure.io.suffixes import FormatReader, suffix_table
+
+    def read(path, shown, sampling_rate_hz, max_sweep_samples):
+        return read_with_neo(neo.io.ExampleIO, path, shown, max_sweep_samples)
+
+    monkeypatch.setitem(suffix_table(), ".fake",
+                        FormatReader("neo ExampleIO", read, neo.io.ExampleIO))
+
+
+def test_a_reader_failure_is_named_by_its_type_only(tmp_path, monkeypatch,
+                                                    example_reader_route):
+    """Other formats go to the one neo reader their suffix names (``.fake`` routed to neo's
+    example reader for the test); a reader's exception text can quote the file, so only its
+    type is kept."""
     import neo.io
 
     def quoting_read(self, lazy=False):
@@ -533,7 +551,7 @@ def test_a_library_failure_keeps_its_type_not_its_text(tmp_path, monkeypatch):
     assert SECRET not in str(caught.value)
 
 
-def test_other_formats_are_size_checked_before_loading(tmp_path):
+def test_other_formats_are_size_checked_before_loading(tmp_path, example_reader_route):
     """neo's example reader (suffix .fake; it makes two segments of 100,000 samples of 8, 6
     and 2 channels, as neo generates them): with a limit under its declared size the sweeps
     are refused from their shapes, and the refusal names the file, sweep and limit."""

@@ -65,7 +65,7 @@ class TestVettedReaders:
                 expected[suffix] = first
         table = suffix_table()
         assert {s: r.neo_class for s, r in table.items() if s not in OWN_FORMATS} == expected
-        assert table[".fake"].neo_class is neo.io.ExampleIO
+        assert ".fake" not in table  # neo's example reader invents signals
         assert table[".mat"].neo_class is neo.io.NeoMatlabIO
 
     def test_own_formats_are_read_by_own_readers(self):
