@@ -19,6 +19,7 @@ from .analysis.cell_features import (CELL_FLAG_TEXT, END_FRACTION, HOLDING_TOLER
                             MAX_RESIDUAL_TO_NOISE, MIN_DEFLECTION_TO_NOISE, NOISE_FLOOR_MV,
                             SLOW_SWEEP_MAX_RISE_MV, TAU_SMOOTHING_MS)
 from .analysis.spike_features import SECOND_DERIVATIVE_LOOKBACK_MS
+from .analysis.sweeps import COMMAND_MEDIAN_SAMPLES
 from .analysis.spikes import CLIPPED_RUN_SAMPLES, FLAG_TEXT, PIECE_SAMPLES
 from .analysis.sweep_features import (BASELINE_WINDOW_MS, DRIFT_WINDOW_MS, MIN_WINDOW_MS,
                                       STEADY_STATE_WINDOW_MS, SWEEP_FLAG_TEXT)
@@ -189,8 +190,8 @@ SWEEP_COLUMNS: tuple[Column, ...] = (
            "`--step-sizes` when the file has no command channel).", 2),
     Column("holding_pa", "pA", "Mean command current before the step.", 2),
     Column("stimulus_start_s", "s", "Step onset: the first sample of the step, from the command "
-           "channel (the half-way level between holding and step, after a 5-sample running "
-           "median), or `--step`.", 6, is_time=True),
+           "channel (the half-way level between holding and step, after a "
+           f"{COMMAND_MEDIAN_SAMPLES}-sample running median), or `--step`.", 6, is_time=True),
     Column("stimulus_end_s", "s", "Step offset: the first sample after the step.", 6,
            is_time=True),
     Column("baseline_mv", "mV", f"Mean voltage over the {BASELINE_WINDOW_MS:g} ms before onset "

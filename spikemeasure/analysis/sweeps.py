@@ -14,9 +14,9 @@ from scipy.ndimage import median_filter
 from ..errors import InvalidSettingError, UnmeasurableDataError
 from ..io.sweep import LazyTrace, Sweep
 
-__all__ = ["CurrentStep", "find_current_step", "step_from_times", "check_sweep", "parse_step_sizes",
-           "protocol_steps", "missing_stretches", "stretches_text",
-           "spikes_measurable", "MIN_SAMPLING_RATE_HZ", "MIN_FINITE_RUN_SAMPLES"]
+__all__ = ["CurrentStep", "find_current_step", "step_from_times", "check_sweep",
+           "parse_step_sizes", "protocol_steps", "COMMAND_MEDIAN_SAMPLES", "missing_stretches",
+           "stretches_text", "spikes_measurable", "MIN_SAMPLING_RATE_HZ", "MIN_FINITE_RUN_SAMPLES"]
 
 #: Below this an action potential (about 1 ms) spans two samples or fewer, and may fall
 #: between samples altogether: spikes are neither counted nor measured, while the sweep's
@@ -26,6 +26,10 @@ MIN_SAMPLING_RATE_HZ = 2_000.0
 #: A sweep whose longest stretch of finite voltage samples is shorter than this has nothing
 #: left to measure.
 MIN_FINITE_RUN_SAMPLES = 3
+
+#: Width of the running median that removes isolated noise samples from a recorded command
+#: before its step is found.
+COMMAND_MEDIAN_SAMPLES = 5
 
 
 @dataclass(frozen=True)
@@ -196,7 +200,8 @@ def find_current_step(command_pa: np.ndarray, sampling_rate_hz: float, *,
         return CurrentStep(onset_s=first / sampling_rate_hz,
                            offset_s=(last + 1) / sampling_rate_hz,
                            size_pa=float(np.nanmean(during)) - holding, holding_pa=holding)
-    filtered = median_filter(cmd, size=5, mode="nearest") if cmd.size >= 5 else cmd
+    filtered = (median_filter(cmd, size=COMMAND_MEDIAN_SAMPLES, mode="nearest")
+                if cmd.size >= COMMAND_MEDIAN_SAMPLES else cmd)
     n_head = max(3, int(round(1e-3 * sampling_rate_hz)))
     holding = float(np.median(filtered[:n_head]))
     deviation = filtered - holding
