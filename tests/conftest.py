@@ -6,6 +6,9 @@ published model, or a general-purpose library.
 from __future__ import annotations
 
 import datetime
+import json
+import subprocess
+import sys
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -376,3 +379,21 @@ def measured_runs(tmp_path_factory) -> dict[str, Path]:
         assert not summary.failures, summary.failures
         runs[name] = base / name
     return runs
+
+
+# -- imports in a fresh interpreter ---------------------------------------------------
+
+def loaded_spikemeasure_modules(imports: tuple[str, ...]) -> list[str]:
+    """Import ``imports`` in a new interpreter; return the spikemeasure modules then loaded
+    (Python's own record, ``sys.modules``: modules imported by other tests in this process
+    cannot hide or fake an import)."""
+    program = (
+        "import importlib, json, sys\n"
+        f"for name in {list(imports)!r}:\n"
+        "    importlib.import_module(name)\n"
+        "print(json.dumps(sorted(m for m in sys.modules if m.startswith('spikemeasure'))))\n"
+    )
+    done = subprocess.run([sys.executable, "-c", program], capture_output=True, text=True,
+                          check=False)
+    assert done.returncode == 0, done.stderr
+    return json.loads(done.stdout.strip().splitlines()[-1])

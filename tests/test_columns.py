@@ -36,18 +36,11 @@ def test_time_columns_are_the_time_fields():
 def test_analysis_does_not_import_columns():
     """Imports flow one way: columns declares the output over analysis results, not the
     reverse. Checked in a fresh interpreter through Python's record of loaded modules."""
-    import json
-    import subprocess
-    import sys
+    from conftest import loaded_spikemeasure_modules
 
-    program = ("import json, sys\n"
-               "import spikemeasure.analysis.spikes_in_parts, spikemeasure.analysis.cell_features\n"
-               "import spikemeasure.analysis.sweep_features\n"
-               "print(json.dumps(sorted(sys.modules)))\n")
-    done = subprocess.run([sys.executable, "-c", program], capture_output=True, text=True,
-                          check=False)
-    assert done.returncode == 0, done.stderr
-    loaded = json.loads(done.stdout.strip().splitlines()[-1])
+    loaded = loaded_spikemeasure_modules(("spikemeasure.analysis.spikes_in_parts",
+                                          "spikemeasure.analysis.cell_features",
+                                          "spikemeasure.analysis.sweep_features"))
     assert "spikemeasure.analysis.spikes_in_parts" in loaded  # the probe sees what it imports
     assert "spikemeasure.columns" not in loaded
 

@@ -4,27 +4,11 @@ Each check runs in a fresh interpreter, so modules imported by other tests in th
 (the simulations in the test files) cannot hide or fake an import.  The reference is
 Python's own record of loaded modules, ``sys.modules``.
 """
-import json
-import subprocess
-import sys
+from conftest import loaded_spikemeasure_modules
 
 import pytest
 
 PIPELINE = ("spikemeasure.run", "spikemeasure.tables.build", "spikemeasure.cli")
-
-
-def loaded_spikemeasure_modules(imports: tuple[str, ...]) -> list[str]:
-    """Import ``imports`` in a new interpreter; return the spikemeasure modules then loaded."""
-    program = (
-        "import importlib, json, sys\n"
-        f"for name in {list(imports)!r}:\n"
-        "    importlib.import_module(name)\n"
-        "print(json.dumps(sorted(m for m in sys.modules if m.startswith('spikemeasure'))))\n"
-    )
-    done = subprocess.run([sys.executable, "-c", program], capture_output=True, text=True,
-                          check=False)
-    assert done.returncode == 0, done.stderr
-    return json.loads(done.stdout.strip().splitlines()[-1])
 
 
 @pytest.mark.parametrize("module", PIPELINE)
