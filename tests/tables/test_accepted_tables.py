@@ -21,8 +21,9 @@ ADDED = "peak_to_trough_ms"
 #: Columns added to each table since the pins below.
 ADDED_COLUMNS = {
     "spikes.csv": ("peak_to_trough_ms",),
-    "sweeps.csv": (),
-    "cells.csv": (),
+    "sweeps.csv": ("stimulus_shape", "test_pulse_pa", "ramp_rate_pa_per_s",
+                   "first_spike_current_pa"),
+    "cells.csv": ("ramp_rheobase_pa",),
 }
 
 BEFORE_THE_COLUMN = {
