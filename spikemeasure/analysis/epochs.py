@@ -288,7 +288,11 @@ def _epoch(raw: np.ndarray, smooth: np.ndarray, kept: np.ndarray, a: int, b: int
     """One epoch from finite samples a to b - 1 (positions in `kept`)."""
     start, stop = int(kept[a]), int(kept[b - 1]) + 1
     t = (kept[a:b] - start).astype(float)
-    slope, intercept = np.polyfit(t, smooth, 1) if t.size >= 2 else (0.0, float(smooth[0]))
+    # the running median bends the last samples before a jump: fit without them
+    trim = EPOCH_MEDIAN_SAMPLES // 2 if t.size > 4 * EPOCH_MEDIAN_SAMPLES else 0
+    t_fit, y_fit = t[trim:t.size - trim], smooth[trim:t.size - trim]
+    slope, intercept = (np.polyfit(t_fit, y_fit, 1) if t_fit.size >= 2
+                        else (0.0, float(smooth[0])))
     mean = float(np.mean(raw))
     if abs(slope) * (stop - start) <= tolerance_pa:
         return Epoch(start, stop, "level", mean, mean, mean, 0.0, rate)
