@@ -385,10 +385,7 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
             flags=tuple(flags), **fire)
     onset_i = int(round(step.onset_s * rate))
     offset_i = min(voltage_mv.size, int(round(step.offset_s * rate)))
-    base_lo = max(0, onset_i - int(round(baseline_window_ms * 1e-3 * rate)))
-    if int(round(step.baseline_start_s * rate)) > base_lo:
-        base_lo = int(round(step.baseline_start_s * rate))
-        flags.append("baseline_window_cut_by_epoch")
+    base_lo = _baseline_first_sample(step, rate, baseline_window_ms, flags)
     if _touches(gaps, base_lo, onset_i):
         flags.append("gap_in_baseline_window")
     drift_lo = max(int(round(step.offset_s * rate)),
@@ -413,11 +410,28 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
         stimulus_pa=step.size_pa, holding_pa=step.holding_pa, stimulus_start_s=step.onset_s,
         stimulus_end_s=step.offset_s, baseline_mv=base, baseline_noise_mv=noise,
         steady_state_mv=steady, min_mv=lowest, sag_fraction=sag, sampling_rate_hz=rate,
-        baseline_drift_mv=drift, flags=tuple(flags), stimulus_shape=step.shape,
-        test_pulse_pa=step.test_pulse_pa, ramp_rate_pa_per_s=step.ramp_rate_pa_per_s,
-        first_spike_current_pa=first_spike_current(step, fire["first_spike_latency_ms"],
-                                                   rate, command_pa),
-        **fire)
+        baseline_drift_mv=drift, flags=tuple(flags),
+        **_stimulus_values(step, fire["first_spike_latency_ms"], rate, command_pa), **fire)
+
+
+def _baseline_first_sample(step: CurrentStep, rate: float, window_ms: float,
+                           flags: list[str]) -> int:
+    """First sample of the baseline window: `window_ms` before onset, but not before the
+    quiet stretch starts (flag ``baseline_window_cut_by_epoch`` when a test pulse cuts it)."""
+    first = max(0, int(round(step.onset_s * rate)) - int(round(window_ms * 1e-3 * rate)))
+    quiet = int(round(step.baseline_start_s * rate))
+    if quiet > first:
+        flags.append("baseline_window_cut_by_epoch")
+    return max(first, quiet)
+
+
+def _stimulus_values(step: CurrentStep, latency_ms: float, sampling_rate_hz: float,
+                     command_pa: np.ndarray | None) -> dict:
+    """The stimulus fields of :class:`SweepFeatures` beyond its size and times."""
+    return {"stimulus_shape": step.shape, "test_pulse_pa": step.test_pulse_pa,
+            "ramp_rate_pa_per_s": step.ramp_rate_pa_per_s,
+            "first_spike_current_pa": first_spike_current(step, latency_ms, sampling_rate_hz,
+                                                          command_pa)}
 
 
 def first_spike_current(step: CurrentStep, latency_ms: float, sampling_rate_hz: float,
