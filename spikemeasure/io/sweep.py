@@ -89,6 +89,10 @@ class Sweep:
         0-based sweep index in file order.
     label : str
         A name the file gives the sweep (segment name, NWB series name), for messages.
+    electrode : str
+        The electrode (the cell) the sweep was recorded from: the electrode's name in NWB;
+        in other formats the voltage channel's name (or index) when the file holds several,
+        else "". A file's sweeps of one electrode are one cell.
     """
 
     voltage_mv: np.ndarray
@@ -98,6 +102,7 @@ class Sweep:
     index: int = 0
     label: str = ""
     channel_info: tuple = field(default=(), compare=False)
+    electrode: str = ""
 
     @property
     def n_samples(self) -> int:
@@ -113,6 +118,8 @@ class Sweep:
         return self.n_samples / self.sampling_rate_hz
 
     def where(self) -> str:
-        """'file, sweep N' for messages."""
+        """'file, sweep N' (or 'file, electrode E, sweep N') for messages."""
         shown_label = self.label and self.label != f"sweep {self.index}"
-        return f"{self.file}, sweep {self.index}" + (f" ({self.label})" if shown_label else "")
+        cell = f", electrode {self.electrode}" if self.electrode else ""
+        return (f"{self.file}{cell}, sweep {self.index}"
+                + (f" ({self.label})" if shown_label else ""))
