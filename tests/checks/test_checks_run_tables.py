@@ -91,7 +91,8 @@ class TestTypedColumns:
         given = {}
         for name, (_, columns) in TABLE_FILES.items():
             cells = csv_columns(sample_results / name)
-            given[name] = {c.name: [v if c.name in ("file", "flags") or v == "" else float(v)
+            given[name] = {c.name: [v if c.name in ("file", "electrode", "flags") or v == ""
+                                    else float(v)
                                     for v in cells[c.name]] for c in columns}
         in_memory = tables_from_columns(sample_results, given["spikes.csv"],
                                         given["sweeps.csv"], given["cells.csv"], record=record)
