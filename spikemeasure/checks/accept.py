@@ -146,9 +146,9 @@ def accept_results(results_dir: str | os.PathLike, accepted_dir: str | os.PathLi
     Returns
     -------
     dict
-        ``files``, ``cells`` (rows of cells.csv), ``sweeps``, ``spikes`` (counts), ``failures`` (rows of errors.csv, which
-        are not part of the accepted results), ``accepted_dir`` (the folder written, resolved)
-        and ``replaced`` (the names written).
+        ``files``, ``cells`` (rows of cells.csv), ``sweeps``, ``spikes`` (counts),
+        ``failures`` (rows of errors.csv, which are not part of the accepted results),
+        ``accepted_dir`` (the folder written, resolved) and ``replaced`` (the names written).
 
     Raises
     ------
