@@ -20,9 +20,9 @@ ADDED = "peak_to_trough_ms"
 
 #: Columns added to each table since the pins below.
 ADDED_COLUMNS = {
-    "spikes.csv": ("peak_to_trough_ms",),
-    "sweeps.csv": (),
-    "cells.csv": (),
+    "spikes.csv": ("peak_to_trough_ms", "electrode"),
+    "sweeps.csv": ("electrode",),
+    "cells.csv": ("electrode",),
 }
 
 BEFORE_THE_COLUMN = {
