@@ -155,8 +155,9 @@ def _nwb_signals(path: Path, shown: str, max_sweep_samples: int
     Series whose time axis or scale is unusable, or whose declared size is beyond
     `max_sweep_samples` or the memory available, are not loaded.
 
-    Returns ({object id: _Series}, the neurodata types found, the recordings, the open pynwb
-    reader, to be closed when the long ones are read).
+    Returns ({object id: _Series}, the neurodata types found, the recordings, whether they
+    come from the intracellular tables, the open pynwb reader, to be closed when the long
+    ones are read).
     """
     import pynwb
     from neo.io.nwbio import AnalogSignalProxy
@@ -196,12 +197,13 @@ def _nwb_signals(path: Path, shown: str, max_sweep_samples: int
                 proxy = AnalogSignalProxy(one, group_name)
                 entry.signal = LongSignal(proxy, shown) if is_long(proxy) else proxy.load()
         recorded = _table_recordings(nwbfile, series)
+        tables = recorded is not None
         if recorded is None:
             recorded = _series_recordings(series)
     except BaseException:
         reader.close()
         raise
-    return series, types, recorded, reader
+    return series, types, recorded, tables, reader
 
 
 def read_nwb(path: Path, shown: str, max_sweep_samples: int) -> Recording:
@@ -246,12 +248,13 @@ def read_nwb(path: Path, shown: str, max_sweep_samples: int) -> Recording:
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            series, types, recorded, reader = _nwb_signals(path, shown, max_sweep_samples)
+            series, types, recorded, tables, reader = _nwb_signals(path, shown,
+                                                                   max_sweep_samples)
     except Exception as exc:  # the NWB stack raises many types; keep the cause
         raise UnreadableInputError(
             f"{shown}: cannot be read as NWB ({library_failure(exc)})") from exc
     try:
-        recording = _nwb_recording(series, types, recorded, path, shown)
+        recording = _nwb_recording(series, types, recorded, path, shown, tables)
     except BaseException:
         reader.close()
         raise
@@ -281,7 +284,7 @@ def _neo_segments_recording(path: Path, shown: str, types: set) -> Recording:
 
 
 def _nwb_recording(series: dict, types: set, recorded: list[_Recorded], path: Path,
-                   shown: str) -> Recording:
+                   shown: str, tables: bool) -> Recording:
     if not any(s.kind == "response" for s in series.values()) and not any(
             s.refused for s in series.values()):
         return _neo_segments_recording(path, shown, types)
@@ -311,8 +314,10 @@ def _nwb_recording(series: dict, types: set, recorded: list[_Recorded], path: Pa
         raise UnreadableInputError(
             f"{shown}: no current-clamp sweeps found" if not problems else problems[0]
             if len(problems) == 1 else f"{problems[0]} (and {len(problems) - 1} more problems)")
-    return Recording(shown, "NWB (intracellular series paired by sweep number)", sweeps,
-                     first_channels, problems, problem_electrodes=problem_electrodes)
+    how = ("paired by the intracellular recordings table" if tables
+           else "paired by sweep number")
+    return Recording(shown, f"NWB (intracellular series {how})", sweeps, first_channels,
+                     problems, problem_electrodes=problem_electrodes)
 
 
 def _part(signal, part: tuple[int, int] | None, where: str):
