@@ -288,7 +288,7 @@ def _nwb_recording(series: dict, types: set, recorded: list[_Recorded], path: Pa
     if not any(s.kind == "response" for s in series.values()) and not any(
             s.refused for s in series.values()):
         return _neo_segments_recording(path, shown, types)
-    several = len({r.electrode for r in recorded}) > 1
+    cells = len({r.electrode for r in recorded})
     index_of = {key: k for k, key in enumerate(sorted({r.key for r in recorded}))}
     sweeps, first_channels, problems, problem_electrodes = [], [], [], []
     shared: dict[tuple, int] = {}
@@ -299,8 +299,7 @@ def _nwb_recording(series: dict, types: set, recorded: list[_Recorded], path: Pa
         if (r.electrode, r.key) in done:
             continue
         done.add((r.electrode, r.key))
-        sweep, channels, found = _recorded_sweep(r, series, shown, index_of[r.key],
-                                                 r.electrode if several else "")
+        sweep, channels, found = _recorded_sweep(r, series, shown, index_of[r.key], cells)
         if not first_channels:
             first_channels = channels
         if shared[(r.electrode, r.key)] > 1 and sweep is not None:
@@ -309,7 +308,7 @@ def _nwb_recording(series: dict, types: set, recorded: list[_Recorded], path: Pa
         problems.extend(found)
         problem_electrodes.extend([r.electrode] * len(found))
         if sweep is not None:
-            sweeps.append(replace(sweep, electrode=r.electrode))
+            sweeps.append(sweep)
     if not sweeps:
         raise UnreadableInputError(
             f"{shown}: no current-clamp sweeps found" if not problems else problems[0]
@@ -332,11 +331,12 @@ def _part(signal, part: tuple[int, int] | None, where: str):
     return signal[start:stop], None
 
 
-def _recorded_sweep(r: _Recorded, series: dict, shown: str, index: int, electrode: str
+def _recorded_sweep(r: _Recorded, series: dict, shown: str, index: int, cells: int
                     ) -> tuple[Sweep | None, list, list[str]]:
     """The sweep of one intracellular recording: its response with its stimulus as the
-    command; (sweep or None, channels, problems)."""
-    cell = f", electrode {electrode}" if electrode else ""
+    command, of its electrode, in a file of `cells` electrodes (messages name the electrode
+    when there are several); (sweep or None, channels, problems)."""
+    cell = f", electrode {r.electrode}" if cells > 1 else ""
     response = series.get(r.response) if r.response else None
     stimulus = series.get(r.stimulus) if r.stimulus else None
     for refused in (response, stimulus):
@@ -359,8 +359,9 @@ def _recorded_sweep(r: _Recorded, series: dict, shown: str, index: int, electrod
         return None, [], [problem or problem_s]
     parts = [voltage] + ([command] if command is not None else [])
     sweep, channels, found = sweep_from_signals(parts, shown, index, label)
-    if sweep is not None and electrode:
-        sweep = replace(sweep, electrode=electrode)
+    if sweep is not None:
+        sweep = replace(sweep, electrode=r.electrode, cells_in_file=cells)
+    if cell:
         found = [m.replace(f"{shown}, sweep {index}", f"{shown}{cell}, sweep {index}", 1)
                  for m in found]
     if (command is not None and sweep is not None and sweep.command_pa is None

@@ -169,7 +169,8 @@ def sweeps_from_signals(signals, path: str, index: int, label: str
         try:
             sweeps.append(settle_long_sweep(Sweep(
                 voltage_mv=v, sampling_rate_hz=rate, command_pa=cmd, file=path, index=index,
-                label=label, channel_info=tuple(channels), electrode=electrodes[k])))
+                label=label, channel_info=tuple(channels), electrode=electrodes[k],
+                cells_in_file=len(voltages))))
         except UnreadableInputError as exc:
             problems.append((electrodes[k], str(exc)))
     return sweeps, channels, problems
@@ -188,7 +189,8 @@ def sweep_from_signals(signals, path: str, index: int, label: str
     if len(voltages) <= 1:
         return (sweeps[0] if sweeps else None), channels, [m for _, m in found]
     first = _electrode_names([(n,) for n in voltages])[0]
-    sweep = next((replace(s, electrode="") for s in sweeps if s.electrode == first), None)
+    sweep = next((replace(s, electrode="", cells_in_file=1) for s in sweeps
+                  if s.electrode == first), None)
     seen_first = False
     kept = []
     for c in channels:

@@ -93,6 +93,9 @@ class Sweep:
         The electrode (the cell) the sweep was recorded from: the electrode's name in NWB;
         in other formats the voltage channel's name (or index) when the file holds several,
         else "". A file's sweeps of one electrode are one cell.
+    cells_in_file : int
+        How many electrodes (cells) the sweep's file holds; messages name the electrode only
+        when there are several.
     """
 
     voltage_mv: np.ndarray
@@ -103,6 +106,7 @@ class Sweep:
     label: str = ""
     channel_info: tuple = field(default=(), compare=False)
     electrode: str = ""
+    cells_in_file: int = field(default=1, compare=False)
 
     @property
     def n_samples(self) -> int:
@@ -120,6 +124,7 @@ class Sweep:
     def where(self) -> str:
         """'file, sweep N' (or 'file, electrode E, sweep N') for messages."""
         shown_label = self.label and self.label != f"sweep {self.index}"
-        cell = f", electrode {self.electrode}" if self.electrode else ""
+        named = self.electrode and self.cells_in_file > 1
+        cell = f", electrode {self.electrode}" if named else ""
         return (f"{self.file}{cell}, sweep {self.index}"
                 + (f" ({self.label})" if shown_label else ""))

@@ -333,7 +333,7 @@ def read_text(path: Path, shown: str, sampling_rate_hz: float | None,
             continue
         sweeps.append(Sweep(voltage_mv=voltage, sampling_rate_hz=rate, command_pa=command,
                             file=shown, index=0, label="", channel_info=tuple(channels),
-                            electrode=electrode))
+                            electrode=electrode, cells_in_file=len(pairs)))
     if not sweeps:
         raise UnreadableInputError(f"{problems[0]} (and {len(problems) - 1} more problems)")
     return Recording(shown, "plain text (numpy, float64)", sweeps, channels, problems,

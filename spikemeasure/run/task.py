@@ -113,9 +113,9 @@ def _measure_file(path: str, shown: str, parameters: dict, figures: dict | None,
             cells.append(ColumnTable.from_lists(cell_table([(shown, electrode, cell)]),
                                                 CELL_COLUMNS))
             if figures:
-                folder = cell_figure_folder(shown, electrode if len(electrodes) > 1 else "")
+                named = electrode if len(electrodes) > 1 else ""  # a file of several cells
                 outcome.figures += _cell_figures(one_cell, results, cell, settings, shown,
-                                                 figures, outcome.failures, folder, electrode)
+                                                 figures, outcome.failures, electrode, named)
         outcome.sweeps_measured = sum(r.error is None for r in all_results)
         outcome.spike_count = count_spikes(all_results)
         outcome.spike_flags = flag_counts(all_results)
@@ -126,24 +126,26 @@ def _measure_file(path: str, shown: str, parameters: dict, figures: dict | None,
 
 
 def _cell_figures(recording, results, cell, settings: DetectionSettings, shown: str,
-                  figures: dict, failures: list[dict], folder: str,
-                  electrode: str) -> list[str]:
+                  figures: dict, failures: list[dict], electrode: str,
+                  named: str) -> list[str]:
     """Draw one cell's figures while its recording is in memory; their paths, relative to the
-    output folder. A figure that cannot be written (disk full, permissions) is a failure of
+    output folder. `named` is the cell's electrode in a file of several cells (its own folder,
+    and named in messages), else "". A figure that cannot be written (disk full, permissions) is a failure of
     the file's ``figures`` stage, and so is an unexpected exception while drawing (with its
     traceback); its tables stand either way."""
     from ..figures import write_cell_figures
 
+    folder = cell_figure_folder(shown, named)
     try:
         names = write_cell_figures(recording, results, Path(figures["out"]) / folder,
                                    figures["format"], settings=settings, cell=cell)
     except OSError as exc:
-        failures.append(failure(shown, "figures", f"{_cell_name(shown, electrode)}: cannot "
+        failures.append(failure(shown, "figures", f"{_cell_name(shown, named)}: cannot "
                                 f"write its figures ({exc})", electrode))
         return []
     except Exception as exc:  # a bug in drawing: the measurements stand
         failures.append(dict(failure(
-            shown, "figures", f"{_cell_name(shown, electrode)}: internal error "
+            shown, "figures", f"{_cell_name(shown, named)}: internal error "
             f"({type(exc).__name__}) while drawing its figures; its tables stand. This is a "
             "bug: please report it with the traceback in run.json (or run with --debug)",
             electrode), traceback=traceback.format_exc()))
@@ -167,7 +169,8 @@ def figures_present(out: Path, outcome: FileOutcome, shown: str, fmt: str | None
     """Whether a kept outcome's figures are those this run asks for, and all on disk."""
     if outcome.figure_format != fmt:
         return False
-    folders = cell_folders(shown, list(dict.fromkeys(outcome.cells.column("electrode"))))
+    electrodes = list(dict.fromkeys(outcome.cells.column("electrode")))
+    folders = [cell_figure_folder(shown)] + [cell_figure_folder(shown, e) for e in electrodes]
     if outcome.sweeps_measured and not outcome.figures:
         return False
     return all(any(p.startswith(folder + "/") for folder in folders) and p.endswith("." + fmt)
