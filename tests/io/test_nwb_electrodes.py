@@ -121,3 +121,37 @@ class TestSeriesWithoutTables:
                 assert sweep.index == k
                 np.testing.assert_allclose(sweep.voltage_mv, voltage[k], rtol=1e-12)
                 np.testing.assert_allclose(sweep.command_pa, command[k], rtol=1e-12)
+
+
+def test_table_rows_referring_to_parts_of_one_series(tmp_path):
+    """Two intracellular recordings referring to halves of one series (pynwb's
+    response_start_index and response_index_count): two sweeps, each its own half."""
+    from pynwb import NWBHDF5IO, NWBFile
+    from pynwb.icephys import CurrentClampSeries, CurrentClampStimulusSeries
+
+    nwb = NWBFile(session_description="simulated", identifier="parts",
+                  session_start_time=datetime.datetime(2026, 1, 1,
+                                                       tzinfo=datetime.timezone.utc))
+    electrode = nwb.create_icephys_electrode(name="e", description="simulated",
+                                             device=nwb.create_device(name="amplifier"))
+    voltage = np.concatenate([np.full(N, -70.0), np.full(N, -60.0)])
+    command = np.concatenate([np.zeros(N), np.full(N, 5.0)])
+    response = CurrentClampSeries(name="v", data=voltage, electrode=electrode, gain=1.0,
+                                  rate=RATE, starting_time=0.0, conversion=1e-3)
+    stimulus = CurrentClampStimulusSeries(name="i", data=command, electrode=electrode,
+                                          gain=1.0, rate=RATE, starting_time=0.0,
+                                          conversion=1e-12)
+    for k in range(2):
+        nwb.add_intracellular_recording(
+            electrode=electrode, stimulus=stimulus, response=response,
+            stimulus_start_index=k * N, stimulus_index_count=N,
+            response_start_index=k * N, response_index_count=N)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        with NWBHDF5IO(str(tmp_path / "parts.nwb"), "w") as io:
+            io.write(nwb)
+    rec = read_recording(tmp_path / "parts.nwb")
+    assert rec.problems == [] and [s.index for s in rec.sweeps] == [0, 1]
+    for k, sweep in enumerate(rec.sweeps):
+        np.testing.assert_allclose(sweep.voltage_mv, voltage[k * N:(k + 1) * N], rtol=1e-12)
+        np.testing.assert_allclose(sweep.command_pa, command[k * N:(k + 1) * N], rtol=1e-12)

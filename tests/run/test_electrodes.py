@@ -242,3 +242,42 @@ def test_a_text_file_of_two_voltage_columns_is_two_cells(recorded, tmp_path):
     for name, rec in (("left", a), ("right", b)):
         counted = sum(r["electrode"] == name for r in spikes)
         assert counted == _upward_zero_crossings(rec.membrane_mv[3:4])[0] > 0
+
+
+def test_the_api_and_inspect_give_a_cell_per_electrode(measured):
+    """Python API and `inspect` on the two-electrode file: the same two cells as cells.csv."""
+    import spikemeasure as sm
+    from spikemeasure.inspection import describe_file
+
+    data, out, _ = measured
+    res = sm.measure(data / "pair.nwb")
+    assert list(res.cells["electrode"]) == ["cell_a", "cell_b"]
+    rows = [r for r in read_rows(out / "cells.csv") if r["file"] == "pair.nwb"]
+    np.testing.assert_allclose(res.cells["resting_mv"],
+                               [float(r["resting_mv"]) for r in rows], atol=1e-4)
+    text, ok = describe_file(str(data / "pair.nwb"))
+    assert ok and "8 (2 cells, one per electrode)" in text
+    assert "cell (electrode cell_a):" in text and "cell (electrode cell_b):" in text
+    sweep_lines = [ln.split() for ln in text.splitlines() if ln.startswith("cell_")]
+    assert [(ln[0], ln[1]) for ln in sweep_lines] == [
+        (name, str(k)) for name in CELLS for k in range(4)]
+
+
+def test_a_sweep_failure_names_its_electrode(recorded, tmp_path):
+    """One sweep of the second electrode all NaN: its row of errors.csv carries that
+    electrode and its message names it; the other cell is measured whole."""
+    rec_a, rec_b = recorded["cell_a"][0], recorded["cell_b"][0]
+    broken = rec_b.voltage_mv.copy()
+    broken[1] = np.nan
+    write_electrodes_nwb(tmp_path / "pair.nwb", [
+        ElectrodeSweeps("cell_a", rec_a.voltage_mv, rec_a.command_pa, rec_a.sampling_rate_hz),
+        ElectrodeSweeps("cell_b", broken, rec_b.command_pa, rec_b.sampling_rate_hz)])
+    out = tmp_path / "out"
+    measure_paths([str(tmp_path / "pair.nwb")], out, jobs=1)
+    error, = read_rows(out / "errors.csv")
+    assert (error["file"], error["electrode"], error["stage"]) == ("pair.nwb", "cell_b",
+                                                                   "sweep 1")
+    assert error["message"].startswith("pair.nwb, electrode cell_b, sweep 1 (")
+    sweeps = read_rows(out / "sweeps.csv")
+    assert sum(r["electrode"] == "cell_a" for r in sweeps) == 4
+    assert sum(r["electrode"] == "cell_b" for r in sweeps) == 3
