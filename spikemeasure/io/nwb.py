@@ -133,10 +133,13 @@ def _table_recordings(nwbfile, series: dict) -> list[_Recorded] | None:
 
 
 def _series_recordings(series: dict) -> list[_Recorded]:
-    """Older NWB files: responses and stimuli paired by electrode and sweep number."""
+    """Older NWB files: responses and stimuli paired by electrode and sweep number (a series
+    refused without a sweep number is a problem of the file, in no sweep)."""
     slots: dict[tuple, _Recorded] = {}
     extra: list[_Recorded] = []
     for order, (oid, s) in enumerate(series.items()):
+        if s.refused and s.number is None:
+            continue
         key = (1, s.number if s.number is not None else order)
         slot = slots.setdefault((s.electrode, key), _Recorded(s.electrode, key, None, None))
         if getattr(slot, s.kind) is None:
@@ -290,7 +293,11 @@ def _nwb_recording(series: dict, types: set, recorded: list[_Recorded], path: Pa
         return _neo_segments_recording(path, shown, types)
     cells = len({r.electrode for r in recorded})
     index_of = {key: k for k, key in enumerate(sorted({r.key for r in recorded}))}
-    sweeps, first_channels, problems, problem_electrodes = [], [], [], []
+    referenced = {r.response for r in recorded} | {r.stimulus for r in recorded}
+    unplaced = [(oid, s) for oid, s in series.items() if s.refused and oid not in referenced]
+    problems = [s.refused for _, s in unplaced]
+    problem_electrodes = [s.electrode for _, s in unplaced]
+    sweeps, first_channels = [], []
     shared: dict[tuple, int] = {}
     for r in recorded:
         shared[(r.electrode, r.key)] = shared.get((r.electrode, r.key), 0) + 1
@@ -304,7 +311,8 @@ def _nwb_recording(series: dict, types: set, recorded: list[_Recorded], path: Pa
             first_channels = channels
         if shared[(r.electrode, r.key)] > 1 and sweep is not None:
             found.append(f"{sweep.where()}: {shared[(r.electrode, r.key)]} responses share "
-                         "this sweep and electrode; the first was used")
+                         + ("this sweep and electrode" if cells > 1 else "this sweep number")
+                         + "; the first was used")
         problems.extend(found)
         problem_electrodes.extend([r.electrode] * len(found))
         if sweep is not None:
