@@ -188,7 +188,11 @@ def measured_results(results: list[SweepResult]) -> list[SweepResult]:
 
 
 def cell_summary(results: list[SweepResult]) -> CellFeatures:
-    """Cell features from the measured sweeps of one recording."""
+    """Cell features from the measured sweeps of one cell: one recording's sweeps of one
+    electrode (InvalidSettingError when `results` hold several electrodes' sweeps)."""
+    if len({r.sweep.electrode for r in results}) > 1:
+        raise InvalidSettingError("`results` must be the sweeps of one cell (one electrode); "
+                                  "measure each electrode's sweeps on their own")
     measured = measured_results(results)
     firsts = []
     for r in measured:
