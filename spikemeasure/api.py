@@ -8,7 +8,7 @@ the project file's keys (``onset_rate_v_per_s=30``); a wrong name or value raise
 from __future__ import annotations
 
 import os
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any, Iterator, Mapping, Sequence
 
 import numpy as np
@@ -101,7 +101,8 @@ class Results:
     ----------
     spikes, sweeps, cells : Table
         The tables of ``spikes.csv``, ``sweeps.csv`` and ``cells.csv`` for this recording
-        (``cells`` has one row, or none when no sweep could be measured).
+        (``cells`` has one row per cell: per electrode of a file that holds several; none
+        for a cell with no sweep measured). The ``electrode`` column tells the cells apart.
     problems : list of str
         Sweeps that could not be measured and parts of the file that could not be read, each
         naming the file and the sweep, as in ``errors.csv``.
@@ -180,12 +181,18 @@ def measure(recording: str | os.PathLike | Recording, *, step_s: Sequence[float]
 
 def _measure_recording(recording: Recording, settings: DetectionSettings,
                        step_s, step_sizes_pa) -> Results:
-    results = measure_recording(recording, settings, step_s, step_sizes_pa)
+    """Each electrode's sweeps measured as one cell (its own step series)."""
+    results, cells = [], []
+    for electrode in recording.electrodes():
+        one_cell = replace(recording, sweeps=recording.sweeps_of(electrode), problems=[],
+                           problem_electrodes=[], release=None)
+        found = measure_recording(one_cell, settings, step_s, step_sizes_pa)
+        results += found
+        if any(r.error is None and r.features is not None for r in found):
+            cells.append((recording.path, electrode, cell_summary(found)))
     problems = list(recording.problems)
     problems += [f"{recording.path}, sweep {r.sweep.index}: {r.error}"
                  for r in results if r.error]
-    measured = [r for r in results if r.error is None and r.features is not None]
-    cells = [(recording.path, cell_summary(results))] if measured else []
     return Results(spikes=Table(SPIKE_COLUMNS, spike_table(results)),
                    sweeps=Table(SWEEP_COLUMNS, sweep_table(results)),
                    cells=Table(CELL_COLUMNS, cell_table(cells)), problems=problems)
@@ -206,8 +213,8 @@ def measure_trace(voltage_mv, sampling_rate_hz: float, **settings: Any) -> Table
     Returns
     -------
     Table
-        One row per spike, with the spike columns of ``spikes.csv`` (``file`` empty,
-        ``sweep`` 0); zero rows when there is no spike.
+        One row per spike, with the spike columns of ``spikes.csv`` (``file`` and
+        ``electrode`` empty, ``sweep`` 0); zero rows when there is no spike.
 
     Raises
     ------

@@ -31,9 +31,9 @@ __all__ = ["Column", "SPIKE_COLUMNS", "SPIKE_MARKS", "SWEEP_COLUMNS", "CELL_COLU
            "ERROR_COLUMNS", "KEY_COLUMN_NAMES", "spike_column_names",
            "columns_markdown"]
 
-#: Columns that name the row (the file, the sweep, the spike) rather than hold a measurement;
-#: the table builders fill them.
-KEY_COLUMN_NAMES = frozenset({"file", "sweep", "spike"})
+#: Columns that name the row (the file, the electrode, the sweep, the spike) rather than hold
+#: a measurement; the table builders fill them.
+KEY_COLUMN_NAMES = frozenset({"file", "electrode", "sweep", "spike"})
 
 
 @dataclass(frozen=True)
@@ -119,7 +119,12 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
     Column("file", "", "The input file: its path relative to the folder given on the command "
            "line, or its file name when the file itself was given; distinct for every file "
            "(see *File names* above)."),
-    Column("sweep", "", "0-based sweep index in file order (for NWB, in order of sweep number)."),
+    Column("electrode", "", "The cell within the file: in NWB the name of the intracellular "
+           "electrode that recorded it; in other formats, when a file holds several voltage "
+           "channels, that channel's name (its position, from 0, when the names are missing "
+           "or alike), else empty. A file and electrode name one cell."),
+    Column("sweep", "", "0-based sweep index in file order (for NWB, in order of the "
+           "simultaneous recordings, or of sweep number in files without them)."),
     Column("spike", "", "0-based index of the spike within its sweep."),
     Column("threshold_s", "s", "Time of threshold, seconds from the sweep's first sample. By "
            f"default (`{parameter('threshold_method').option} "
@@ -183,9 +188,11 @@ SPIKE_MARKS: tuple[Column, ...] = (
 
 
 _FILE = Column("file", "", "The input file, named as in spikes.csv.")
+_ELECTRODE = Column("electrode", "", "The cell within the file, named as in spikes.csv.")
 
 SWEEP_COLUMNS: tuple[Column, ...] = (
     _FILE,
+    _ELECTRODE,
     Column("sweep", "", "0-based sweep index in file order."),
     Column("stimulus_pa", "pA", "Step size: the mean command current during the step minus the "
            "holding current (0 for a sweep of a step series whose command has no step; from "
@@ -261,6 +268,7 @@ SWEEP_COLUMNS: tuple[Column, ...] = (
 
 CELL_COLUMNS: tuple[Column, ...] = (
     _FILE,
+    _ELECTRODE,
     Column("sweeps", "", "Sweeps measured."),
     Column("resting_mv", "mV", f"Median baseline_mv over sweeps whose holding current is within "
            f"{HOLDING_TOLERANCE_PA:g} pA of zero.", 4),
@@ -314,6 +322,8 @@ CELL_COLUMNS: tuple[Column, ...] = (
 ERROR_COLUMNS: tuple[Column, ...] = (
     Column("file", "", "The input file, or the path given or found that could not be "
            "searched or followed."),
+    Column("electrode", "", "The cell within the file the failure concerns, named as in "
+           "spikes.csv; empty for a failure of the file as a whole."),
     Column("stage", "", "Where it failed: `input` (a path given that does not exist, a folder "
            "that cannot be searched, a path longer than the system allows, a symbolic link not "
            "followed, a file that is not a regular file), `read` (the file or one of its "
@@ -352,7 +362,8 @@ def columns_markdown() -> str:
     for title, intro, cols in (
             ("sweeps.csv", "One row per measured sweep; times are seconds from the sweep's "
              "first sample.", SWEEP_COLUMNS),
-            ("cells.csv", "One row per recording file (a cell's step series).", CELL_COLUMNS),
+            ("cells.csv", "One row per cell: per recording file, and per electrode in a file "
+             "that holds several (a cell's step series).", CELL_COLUMNS),
             ("errors.csv", "One row per failure; the run goes on with the other files.",
              ERROR_COLUMNS)):
         lines += ["", f"## {title}", "", intro, ""] + _column_rows(cols)
@@ -377,8 +388,8 @@ def _introduction_lines() -> list[str]:
         "",
         "## Text cells in the CSV files",
         "",
-        "Every table is UTF-8 CSV. A text cell (`file`, `flags`, `stage`, `message`) that "
-        "starts with `=`, `+`, `-`, `@`, a tab or a carriage return, which a spreadsheet would "
+        "Every table is UTF-8 CSV. A text cell (`file`, `electrode`, `flags`, `stage`, "
+        "`message`) that starts with `=`, `+`, `-`, `@`, a tab or a carriage return, which a spreadsheet would "
         "run as a formula, is written with a leading `'` and in double quotes "
         "(`\"'=cell.nwb\"`), as the OWASP guidance on CSV injection recommends; so is a text "
         "cell that starts with `'` followed by one of those characters or by another `'`, so "

@@ -2,7 +2,7 @@
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -61,21 +61,30 @@ def inspect_file(path: str, settings: DetectionSettings = DetectionSettings(), *
     call :meth:`Inspection.close` when done with them)."""
     recording = read_recording(path, sampling_rate_hz=sampling_rate_hz,
                                max_sweep_samples=max_sweep_samples)
-    try:
-        results = measure_recording(recording, settings, step_s, step_sizes_pa)
+    electrodes = recording.electrodes()
+    try:  # each electrode's sweeps are one cell, with its own step series
+        by_cell = [measure_recording(replace(recording, sweeps=recording.sweeps_of(e),
+                                             release=None), settings, step_s, step_sizes_pa)
+                   for e in electrodes]
     except BaseException:
         recording.close()
         raise
+    results = [r for found in by_cell for r in found]
+    named = len(electrodes) > 1  # an electrode column for a file of several cells
+    width = max([9] + [len(e) for e in electrodes])
     rates = sorted({s.sampling_rate_hz for s in recording.sweeps})
     lines = [
         f"file:          {recording.path} ({Path(path).stat().st_size / 1e6:.2f} MB)",
         f"format:        {recording.format}",
-        f"sweeps:        {len(recording.sweeps)}",
+        f"sweeps:        {len(recording.sweeps)}"
+        + (f" ({len(electrodes)} cells, one per electrode)" if named
+           else f" (electrode {electrodes[0]})" if electrodes and electrodes[0] else ""),
         "sampling rate: " + ", ".join(f"{r / 1e3:g} kHz" for r in rates),
         "channels:      " + (", ".join(f"{c.name} [{c.units}] as {c.role}"
                                        for c in recording.channels) or "-"),
         "",
-        f"{'sweep':>5}  {'duration':>9}  {'holding':>10}  {'step':>10}  {'step from':>9}  "
+        (f"{'electrode':<{width}}  " if named else "")
+        + f"{'sweep':>5}  {'duration':>9}  {'holding':>10}  {'step':>10}  {'step from':>9}  "
         f"{'to':>7}  {'spikes':>6}  note",
     ]
     measured = 0
@@ -104,15 +113,18 @@ def inspect_file(path: str, settings: DetectionSettings = DetectionSettings(), *
                 note = f"{step.shape}, {note}" if note else step.shape
             hold, size = _fmt(step.holding_pa, "pA"), _fmt(step.size_pa, "pA")
             start, stop = _fmt(step.onset_s, "s", 3), _fmt(step.offset_s, "s", 3)
-        lines.append(f"{s.index:>5}  {s.duration_s:>7.3f} s  {hold:>10}  {size:>10}  "
+        lines.append((f"{s.electrode:<{width}}  " if named else "")
+                     + f"{s.index:>5}  {s.duration_s:>7.3f} s  {hold:>10}  {size:>10}  "
                      f"{start:>9}  {stop:>7}  {spikes:>6}  {note}")
     lines += _epoch_lines(results)
     if recording.problems:
         lines += ["", "skipped:"] + [f"  {p}" for p in recording.problems]
     total = sum(len(r.spikes) for r in results if r.spikes is not None)
     lines += ["", f"{measured} of {len(results)} sweeps measured, {total} spikes"]
-    if measured:
-        lines += ["", "cell:"] + _cell_lines(cell_summary(results))
+    for electrode, found in zip(electrodes, by_cell):
+        if any(r.error is None for r in found):
+            title = f"cell (electrode {electrode}):" if len(electrodes) > 1 else "cell:"
+            lines += ["", title] + _cell_lines(cell_summary(found))
     return Inspection("\n".join(lines), measured > 0, results, recording)
 
 

@@ -10,7 +10,7 @@ from spikemeasure.analysis.spikes import FLAG_TEXT, TIME_FIELDS, SpikeMeasuremen
 DOCS = Path(__file__).resolve().parents[1] / "docs" / "measurements.md"
 
 # The order the spike table must start with (the project's output contract).
-REQUIRED_ORDER = ["file", "sweep", "spike", "threshold_s", "threshold_mv", "peak_s", "peak_mv",
+REQUIRED_ORDER = ["file", "electrode", "sweep", "spike", "threshold_s", "threshold_mv", "peak_s", "peak_mv",
                   "amplitude_mv", "half_width_ms", "rise_time_ms", "max_dvdt_v_per_s",
                   "min_dvdt_v_per_s", "trough_s", "trough_mv", "ahp_depth_mv", "isi_ms"]
 

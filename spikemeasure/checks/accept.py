@@ -146,9 +146,9 @@ def accept_results(results_dir: str | os.PathLike, accepted_dir: str | os.PathLi
     Returns
     -------
     dict
-        ``files``, ``sweeps``, ``spikes`` (counts), ``failures`` (rows of errors.csv, which
-        are not part of the accepted results), ``accepted_dir`` (the folder written, resolved)
-        and ``replaced`` (the names written).
+        ``files``, ``cells`` (rows of cells.csv), ``sweeps``, ``spikes`` (counts),
+        ``failures`` (rows of errors.csv, which are not part of the accepted results),
+        ``accepted_dir`` (the folder written, resolved) and ``replaced`` (the names written).
 
     Raises
     ------
@@ -208,7 +208,8 @@ def accept_results(results_dir: str | os.PathLike, accepted_dir: str | os.PathLi
                               f"({exc.strerror or exc}); nothing was written") from exc
     replaced = _replace_files(target, contents)
     failures = [dict(zip(tables.errors, row)) for row in zip(*tables.errors.values())]
-    return {"files": len(set(tables.cells["file"])), "sweeps": len(tables.sweeps["file"]),
+    return {"files": len(set(tables.cells["file"])), "cells": len(tables.cells["file"]),
+            "sweeps": len(tables.sweeps["file"]),
             "spikes": len(tables.spikes["file"]), "failures": failures,
             "accepted_dir": str(target), "replaced": replaced}
 

@@ -33,6 +33,9 @@ class Finding:
         What is wrong, in a sentence naming the values.
     accepted, value, limit : str or None
         The accepted value, the value of this run, and the limit or tolerance, as text.
+    electrode : str
+        The cell within the file (the ``electrode`` column), "" for a file of one cell or a
+        finding about the whole file.
     """
 
     check: str
@@ -44,6 +47,7 @@ class Finding:
     accepted: str | None = None
     value: str | None = None
     limit: str | None = None
+    electrode: str = ""
 
 
 @dataclass(frozen=True)
@@ -114,7 +118,8 @@ def report_text(report: CheckReport, max_rows: int | None = None) -> str:
     shown = findings if max_rows is None else findings[:max_rows]
     if shown:
         header = ("check", "file", "sweep", "spike", "column", "what")
-        rows = [(f.check, f.file, "" if f.sweep is None else str(f.sweep),
+        rows = [(f.check, f.file + (f", electrode {f.electrode}" if f.electrode else ""),
+                 "" if f.sweep is None else str(f.sweep),
                  "" if f.spike is None else str(f.spike), f.column or "", f.message)
                 for f in shown]
         widths = [max(len(r[k]) for r in rows + [header]) for k in range(5)]
@@ -126,7 +131,7 @@ def report_text(report: CheckReport, max_rows: int | None = None) -> str:
         counts: dict[tuple[str, str], set] = {}
         for f in findings:
             counts.setdefault((f.check, f.column or "-"), set()).add(
-                (f.file, f.sweep, f.spike))
+                (f.file, f.sweep, f.spike, f.electrode))
         if len(findings) > len(shown) or len(counts) > 1:
             lines.append("findings by check and column:")
             for (check, column), where in counts.items():

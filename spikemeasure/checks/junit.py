@@ -29,6 +29,8 @@ _SUITES = ("quality", "regression")
 
 def _where(finding) -> str:
     parts = [finding.file]
+    if finding.electrode:
+        parts.append(f"electrode {finding.electrode}")
     if finding.sweep is not None:
         parts.append(f"sweep {finding.sweep}")
     if finding.spike is not None:

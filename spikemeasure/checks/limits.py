@@ -1,4 +1,5 @@
-"""The quality limits of ``[quality]`` applied to a run's typed tables, file by file."""
+"""The quality limits of ``[quality]`` applied to a run's typed tables, file by file (each
+cell of a file with several electrodes judged on its own rows)."""
 from __future__ import annotations
 
 import math
@@ -32,7 +33,7 @@ def _declared(rule: QualityRule) -> Column:
 
 
 def _finding(rule: QualityRule, limit, file: str, where: tuple[int | None, int | None],
-             value: float) -> Finding:
+             value: float, electrode: str = "") -> Finding:
     """The finding of a value that fails the rule, or of a missing value (NaN)."""
     requirement = rule.text.format(limit=_limit_text(limit))
     text = cell_text(_declared(rule), value)
@@ -42,31 +43,37 @@ def _finding(rule: QualityRule, limit, file: str, where: tuple[int | None, int |
         what = rule.failure_text.format(column=rule.column, text=text, value=value,
                                         limit=_limit_text(limit))
     return Finding(rule.key, file, where[0], where[1], rule.column,
-                   f"{what}; required: {requirement}", value=text, limit=_limit_text(limit))
+                   f"{what}; required: {requirement}", value=text, limit=_limit_text(limit),
+                   electrode=electrode)
 
 
 def _rule_findings(rule: QualityRule, limit, file: str, rows: dict[str, Table]
                    ) -> list[Finding]:
     """Findings of a rule on one file: each row that fails it or has no value, or, for a
-    rule on the file's highest value, that value (the first row of it) when it fails."""
+    rule on a cell's highest value, that value (the first row of it) when it fails; each
+    cell (electrode) of the file judged on its own rows."""
     table = rows[rule.table]
-    values = table[rule.column]
-    sweeps = table.get("sweep")
-    spikes = table.get("spike")
-    if rule.judges_highest:
-        measured = np.flatnonzero(~np.isnan(values))
-        if measured.size == 0:
-            return [_finding(rule, limit, file, (None, None), math.nan)]
-        candidates = [int(measured[np.argmax(values[measured])])]  # the first of equal ones
-    else:
-        candidates = range(len(values))
+    electrodes = table["electrode"]
     findings = []
-    for row in candidates:
-        value = float(values[row])
-        if math.isnan(value) or not rule.test(value, limit):
-            where = (None if sweeps is None else int(sweeps[row]),
-                     None if spikes is None else int(spikes[row]))
-            findings.append(_finding(rule, limit, file, where, value))
+    for electrode in dict.fromkeys(electrodes.tolist()) or [""]:
+        own = np.flatnonzero(electrodes == electrode)
+        values = table[rule.column][own]
+        sweeps = table["sweep"][own] if "sweep" in table else None
+        spikes = table["spike"][own] if "spike" in table else None
+        if rule.judges_highest:
+            measured = np.flatnonzero(~np.isnan(values))
+            if measured.size == 0:
+                findings.append(_finding(rule, limit, file, (None, None), math.nan, electrode))
+                continue
+            candidates = [int(measured[np.argmax(values[measured])])]  # the first of equal ones
+        else:
+            candidates = range(len(values))
+        for row in candidates:
+            value = float(values[row])
+            if math.isnan(value) or not rule.test(value, limit):
+                where = (None if sweeps is None else int(sweeps[row]),
+                         None if spikes is None else int(spikes[row]))
+                findings.append(_finding(rule, limit, file, where, value, electrode))
     return findings
 
 
@@ -103,20 +110,23 @@ def quality_cases(tables: RunTables, limits: dict) -> list[CaseResult]:
     Notes
     -----
     A rule of sweeps.csv or cells.csv is judged row by row: an empty (not measured) value
-    fails, since the limit cannot be checked. ``min_highest_peak_mv`` is judged on the
-    file's highest measured spike peak.
+    fails, since the limit cannot be checked. ``min_highest_peak_mv`` is judged on each
+    cell's highest measured spike peak (one cell per file, or per electrode of a file that
+    holds several).
     """
     by_file = _rows_of_file(tables)
-    errors: dict[str, list[tuple[str, str]]] = {}
-    for file, stage, message in zip(tables.errors["file"], tables.errors["stage"],
-                                    tables.errors["message"]):
-        errors.setdefault(file, []).append((stage, message))
+    errors: dict[str, list[tuple[str, str, str]]] = {}
+    for file, electrode, stage, message in zip(tables.errors["file"],
+                                               tables.errors["electrode"],
+                                               tables.errors["stage"], tables.errors["message"]):
+        errors.setdefault(file, []).append((electrode, stage, message))
     unfinished = {i["file"]: i["status"] for i in tables.record.get("inputs", [])
                   if str(i.get("status", "")).startswith("not measured")}
     cases = []
     for file in tables.files():
-        failed = [Finding(MEASURED_CHECK, file, _sweep_of(stage), None, None, message)
-                  for stage, message in errors.get(file, [])]
+        failed = [Finding(MEASURED_CHECK, file, _sweep_of(stage), None, None, message,
+                          electrode=electrode)
+                  for electrode, stage, message in errors.get(file, [])]
         if file in unfinished:
             failed.append(Finding(MEASURED_CHECK, file, None, None, None,
                                   f"{file}: not measured ({unfinished[file]}); run the same "

@@ -2,10 +2,13 @@
 from __future__ import annotations
 
 import math
+from dataclasses import replace
+
+import numpy as np
 
 from ..columns import Column
 from .findings import REGRESSION_CHECK, CaseResult, Finding
-from .run_tables import TABLE_FILES, RunTables, Table, cell_text
+from .run_tables import OPTIONAL_KEY, TABLE_FILES, RunTables, Table, cell_text
 from .settings import CheckSettings, Tolerance, default_tolerance, tolerance_for
 
 __all__ = ["regression_cases"]
@@ -90,9 +93,10 @@ def _rows_by_key(table: Table, keys: tuple[str, ...], name: str, side: str,
     for key, rows in by_key.items():
         if len(rows) < 2:
             continue
-        sweep = key[1] if len(key) > 1 else None
-        spike = key[2] if len(key) > 2 else None
-        where = ", ".join(f"{k} {v}" for k, v in zip(keys[1:], key[1:])) or "the file's row"
+        named = dict(zip(keys, key))
+        sweep, spike = named.get("sweep"), named.get("spike")
+        where = ", ".join(f"{k} {v}" for k, v in zip(keys[1:], key[1:])
+                          if k != "electrode" or v) or "the cell's row"
         lines = ", ".join(str(row + 2) for row in rows)
         differ = [c for c, values in table.items()
                   if any(not _same(values[r], values[rows[0]]) for r in rows[1:])]
@@ -101,18 +105,18 @@ def _rows_by_key(table: Table, keys: tuple[str, ...], name: str, side: str,
         findings.setdefault(key[0], []).append(Finding(
             REGRESSION_CHECK, key[0], sweep, spike, None,
             f"{name}: {where} is in {side} {len(rows)} times ({what}, lines {lines}); "
-            f"only the first is compared"))
+            f"only the first is compared", electrode=named.get("electrode", "")))
     return {key: rows[0] for key, rows in by_key.items()}
 
 
 def _spike_counts(old_keys: list[tuple], new_keys: list[tuple], common: set[str],
-                  findings: dict[str, list[Finding]]) -> set[tuple[str, int]]:
-    """Findings for sweeps whose spike count (distinct (file, sweep, spike) keys) changed;
-    returns those (file, sweep) keys."""
+                  findings: dict[str, list[Finding]]) -> set[tuple[str, str, int]]:
+    """Findings for sweeps whose spike count (distinct (file, electrode, sweep, spike) keys)
+    changed; returns those (file, electrode, sweep) keys."""
     def counts(keys):
-        out: dict[tuple[str, int], int] = {}
-        for file, sweep, _ in keys:
-            out[(file, sweep)] = out.get((file, sweep), 0) + 1
+        out: dict[tuple[str, str, int], int] = {}
+        for file, electrode, sweep, _ in keys:
+            out[(file, electrode, sweep)] = out.get((file, electrode, sweep), 0) + 1
         return out
 
     old, new = counts(old_keys), counts(new_keys)
@@ -126,21 +130,24 @@ def _spike_counts(old_keys: list[tuple], new_keys: list[tuple], common: set[str]
             what = f"{b - a} spike{'s' if abs(b - a) > 1 else ''} added" if b > a else \
                 f"{a - b} spike{'s' if abs(b - a) > 1 else ''} lost"
             findings[key[0]].append(Finding(
-                REGRESSION_CHECK, key[0], key[1], None, "spike",
+                REGRESSION_CHECK, key[0], key[2], None, "spike",
                 f"{what}: accepted {a}, now {b} (the sweep's spikes are not compared one "
-                f"by one)", accepted=str(a), value=str(b), limit="exact"))
+                f"by one)", accepted=str(a), value=str(b), limit="exact", electrode=key[1]))
     return changed
 
 
-def _row_missing(name: str, file: str, sweep: int | None, in_accepted: bool) -> Finding:
+def _row_missing(name: str, file: str, electrode: str, sweep: int | None,
+                 in_accepted: bool) -> Finding:
     """A sweep's or a cell's row found on one side only."""
     if name == "sweeps.csv":
         what = ("sweep removed: in the accepted results but not in this run" if in_accepted
                 else "sweep added: not in the accepted results")
-        return Finding(REGRESSION_CHECK, file, sweep, None, None, what)
+        return Finding(REGRESSION_CHECK, file, sweep, None, None, what, electrode=electrode)
+    whose = f"the row of electrode {electrode}" if electrode else "the file's row"
     return Finding(REGRESSION_CHECK, file, None, None, None,
-                   f"cells.csv: the file's row is {'' if in_accepted else 'not '}in the "
-                   f"accepted results but {'not' if in_accepted else 'is'} in this run")
+                   f"cells.csv: {whose} is {'' if in_accepted else 'not '}in the "
+                   f"accepted results but {'not' if in_accepted else 'is'} in this run",
+                   electrode=electrode)
 
 
 def _compare_table(name: str, accepted: RunTables, new: RunTables, settings: CheckSettings,
@@ -151,21 +158,22 @@ def _compare_table(name: str, accepted: RunTables, new: RunTables, settings: Che
     old_table, new_table = accepted.table(name), new.table(name)
     old_by_key = _rows_by_key(old_table, keys, name, "the accepted results", findings)
     new_by_key = _rows_by_key(new_table, keys, name, "this run", findings)
-    changed_count: set[tuple[str, int]] = set()
+    changed_count: set[tuple[str, str, int]] = set()
     if name == "spikes.csv":
         changed_count = _spike_counts(list(old_by_key), list(new_by_key), common, findings)
     old_values = {c.name: old_table[c.name].tolist() for c in compared}
     new_values = {c.name: new_table[c.name].tolist() for c in compared}
     for key in dict.fromkeys(list(old_by_key) + list(new_by_key)):
         file = key[0]
-        if file not in common or (name == "spikes.csv" and key[:2] in changed_count):
+        if file not in common or (name == "spikes.csv" and key[:3] in changed_count):
             continue
-        sweep = key[1] if len(key) > 1 else None
-        spike = key[2] if len(key) > 2 else None
+        named = dict(zip(keys, key))
+        electrode, sweep, spike = named["electrode"], named.get("sweep"), named.get("spike")
         old, now = old_by_key.get(key), new_by_key.get(key)
         if old is None or now is None:
             if name != "spikes.csv":  # spikes: counted above
-                findings[file].append(_row_missing(name, file, sweep, in_accepted=now is None))
+                findings[file].append(_row_missing(name, file, electrode, sweep,
+                                                   in_accepted=now is None))
             continue
         for column in compared:
             tolerance = tolerance_for(column, settings)
@@ -177,7 +185,7 @@ def _compare_table(name: str, accepted: RunTables, new: RunTables, settings: Che
                     REGRESSION_CHECK, file, sweep, spike, column.name,
                     f"{name} {column.name}: accepted {a_text or 'empty'}, now "
                     f"{b_text or 'empty'} (tolerance {limit})", accepted=a_text,
-                    value=b_text, limit=limit))
+                    value=b_text, limit=limit, electrode=electrode))
     return notes
 
 
@@ -193,6 +201,28 @@ def _record_notes(old: dict, new: dict) -> list[str]:
             notes.append(f"{part} changed since the results were accepted: "
                          + "; ".join(changed))
     return notes
+
+
+def _one_cell_per_file(new: RunTables, accepted: RunTables) -> RunTables:
+    """This run as accepted results without the electrode column (an older version: one cell
+    per file) compare it: the electrode of a file of one cell taken as "" (a file of several
+    cells keeps its electrodes, and the cells the accepted results lack are found)."""
+    if not accepted.headers or any(OPTIONAL_KEY in (accepted.headers.get(name) or ())
+                                   for name in TABLE_FILES):
+        return new
+    cells: dict[str, set] = {}
+    for name in TABLE_FILES:
+        for file, electrode in zip(new.table(name)["file"], new.table(name)[OPTIONAL_KEY]):
+            cells.setdefault(file, set()).add(electrode)
+    single = {f for f, electrodes in cells.items() if len(electrodes) == 1}
+
+    def plain(table: Table) -> Table:
+        keep = np.array([f not in single for f in table["file"]], dtype=bool)
+        blank = np.where(keep, table[OPTIONAL_KEY], "").astype(object)
+        return dict(table, **{OPTIONAL_KEY: blank})
+
+    return replace(new, spikes=plain(new.spikes), sweeps=plain(new.sweeps),
+                   cells=plain(new.cells))
 
 
 def regression_cases(new: RunTables, accepted: RunTables, settings: CheckSettings
@@ -216,8 +246,10 @@ def regression_cases(new: RunTables, accepted: RunTables, settings: CheckSetting
 
     Notes
     -----
-    Rows are matched by their key columns: (file, sweep, spike) in spikes.csv, (file, sweep)
-    in sweeps.csv, (file) in cells.csv; the order of the rows does not matter. A file, a
+    Rows are matched by their key columns: (file, electrode, sweep, spike) in spikes.csv,
+    (file, electrode, sweep) in sweeps.csv, (file, electrode) in cells.csv; the order of the
+    rows does not matter. Accepted results without the electrode column (an older version,
+    one cell per file) compare with a file of one cell as if its electrode were "". A file, a
     sweep or a cell row present in one run only fails. A key found more than once in a table
     (a duplicated row, or rows sharing a key) fails, naming the key, the side and the lines;
     only its first row is compared. When a sweep's spike count (distinct spike keys) changed,
@@ -230,6 +262,7 @@ def regression_cases(new: RunTables, accepted: RunTables, settings: CheckSetting
     (so a relative tolerance still passes rounding of a value near zero); an empty value
     against a number fails; text passes only when equal.
     """
+    new = _one_cell_per_file(new, accepted)
     findings = _file_findings(accepted, new, settings.allow_new_files)
     # rows are compared only for files measured in both runs; the rest failed above
     common = (set(accepted.files()) & set(new.files()) & set(new.sweeps["file"])

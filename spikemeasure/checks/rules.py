@@ -45,7 +45,7 @@ class QualityRule:
     test : callable
         (value, limit) -> True when the value passes.
     judges_highest : bool, optional
-        True: the rule judges the file's highest measured value of the column; False (the
+        True: the rule judges a cell's highest measured value of the column; False (the
         default): each row of the table.
     failure_text : str, optional
         What failed, for messages (``{column}``, ``{text}`` (the cell as written), ``{value}``
@@ -100,7 +100,8 @@ QUALITY_RULES: tuple[QualityRule, ...] = (
                 lambda v, lim: lim[0] <= v <= lim[1]),
     QualityRule("min_highest_peak_mv", "number", "0.0", "spikes.csv", "peak_mv",
                 "at least one spike peaking at {limit} mV or above",
-                "at least one spike's `peak_mv` reaches the limit (0 mV: an overshooting spike)",
+                "at least one spike's `peak_mv` of each cell reaches the limit (0 mV: an "
+                "overshooting spike)",
                 lambda v, lim: v >= lim, judges_highest=True,
                 failure_text="highest spike peak {value:g} mV is below {limit} mV",
                 missing_text="no spike with a measured peak in the file"),

@@ -26,15 +26,17 @@ from ..tables.write import TEXT_COLUMN_NAMES, unescape_csv_text
 from ..tables.build import format_value
 
 __all__ = ["CheckInputError", "RunTables", "TABLE_FILES", "ERRORS_FILE", "RUN_RECORD_FILE",
-           "COMPLETE_STATUS", "INDEX_COLUMNS", "Table", "read_tables", "tables_from_columns",
+           "COMPLETE_STATUS", "INDEX_COLUMNS", "OPTIONAL_KEY", "Table", "read_tables", "tables_from_columns",
            "typed_columns", "cell_text", "check_finished"]
 
 #: The tables a run's folder must hold, with their key columns and declarations.
 TABLE_FILES: dict[str, tuple[tuple[str, ...], tuple[Column, ...]]] = {
-    "spikes.csv": (("file", "sweep", "spike"), SPIKE_COLUMNS),
-    "sweeps.csv": (("file", "sweep"), SWEEP_COLUMNS),
-    "cells.csv": (("file",), CELL_COLUMNS),
+    "spikes.csv": (("file", "electrode", "sweep", "spike"), SPIKE_COLUMNS),
+    "sweeps.csv": (("file", "electrode", "sweep"), SWEEP_COLUMNS),
+    "cells.csv": (("file", "electrode"), CELL_COLUMNS),
 }
+#: A key column that accepted results of older versions lack: read as "" (one cell per file).
+OPTIONAL_KEY = "electrode"
 ERRORS_FILE = "errors.csv"
 RUN_RECORD_FILE = "run.json"
 
@@ -217,6 +219,19 @@ def _read_csv(path: Path, what: str, required: tuple[str, ...]
     return header, cells
 
 
+def _with_electrode(table: Table) -> Table:
+    """A table of an older version, without the electrode column, as one cell per file: its
+    electrode "" on every row (the column stays absent from the headers)."""
+    if OPTIONAL_KEY in table or "file" not in table:
+        return table
+    typed = {}
+    for name, values in table.items():
+        typed[name] = values
+        if name == "file":
+            typed[OPTIONAL_KEY] = np.array([""] * len(values), dtype=object)
+    return typed
+
+
 def _folder_hints(what: str, suggest_out: bool) -> tuple[str, str]:
     """What to do when the folder is missing, and when it holds no tables."""
     measure_first = ", or recordings with --out DIR to measure them first" if suggest_out else ""
@@ -276,14 +291,17 @@ def read_tables(folder: str | os.PathLike, what: str = "results", *,
     tables, headers = {}, {}
     for name, (keys, columns) in TABLE_FILES.items():
         # accepted results may come from an older version: only their keys must be there
-        required = keys if what == "accepted results" else tuple(c.name for c in columns)
+        required = (tuple(k for k in keys if k != OPTIONAL_KEY) if what == "accepted results"
+                    else tuple(c.name for c in columns))
         header, cells = _read_csv(base / name, empty_hint, required)
         headers[name] = tuple(header)
-        tables[name] = typed_columns(cells, columns, str(base / name), first_line=2)
+        tables[name] = _with_electrode(typed_columns(cells, columns, str(base / name),
+                                                     first_line=2))
     errors: Table = typed_columns({c.name: [] for c in ERROR_COLUMNS}, ERROR_COLUMNS, "")
     if (base / ERRORS_FILE).exists():
         _, cells = _read_csv(base / ERRORS_FILE, "", ("file", "stage", "message"))
-        errors = typed_columns(cells, ERROR_COLUMNS, str(base / ERRORS_FILE), first_line=2)
+        errors = _with_electrode(typed_columns(cells, ERROR_COLUMNS, str(base / ERRORS_FILE),
+                                               first_line=2))
     return RunTables(base, tables["spikes.csv"], tables["sweeps.csv"], tables["cells.csv"],
                      errors, _read_record(base / RUN_RECORD_FILE), headers, str(folder))
 
@@ -395,6 +413,9 @@ def check_finished(tables: RunTables) -> None:
     for name in TABLE_FILES:
         for file in tables.table(name)["file"]:
             rows.setdefault(file, dict.fromkeys(TABLE_FILES, 0))[name] += 1
+    cells_of: dict[str, set] = {}  # the cells each file's measured sweeps belong to
+    for file, electrode in zip(tables.sweeps["file"], tables.sweeps["electrode"]):
+        cells_of.setdefault(file, set()).add(electrode)
     problems = []
     unlisted = [f for f in rows if f not in listed]
     if unlisted:
@@ -408,9 +429,10 @@ def check_finished(tables: RunTables) -> None:
                         f"the tables do not hold ({some_of(missing)})")
     for file, entry in listed.items():
         have = rows.get(file, dict.fromkeys(TABLE_FILES, 0))
-        if file in rows and have["sweeps.csv"] and have["cells.csv"] != 1:
+        expected_cells = len(cells_of.get(file, ()))
+        if file in rows and have["sweeps.csv"] and have["cells.csv"] != expected_cells:
             problems.append(f"{file}: cells.csv holds {have['cells.csv']} rows of it, "
-                            f"not 1")
+                            f"not {expected_cells} (one per electrode of sweeps.csv)")
         for key, name, what in (("sweeps_measured", "sweeps.csv", "sweep"),
                                 ("spikes", "spikes.csv", "spike")):
             expected = _whole(entry.get(key))

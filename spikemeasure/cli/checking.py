@@ -126,7 +126,8 @@ def accept(ctx: click.Context, results_dir, config_path):
         info = accept_results(results_dir, settings.accepted_dir, project_dir=project_dir)
     except SpikemeasureError as exc:
         input_error(ctx, exc)
-    click.echo(f"accepted {info['files']} files, {info['sweeps']} sweeps, {info['spikes']} "
+    cells = f" ({info['cells']} cells)" if info["cells"] != info["files"] else ""
+    click.echo(f"accepted {info['files']} files{cells}, {info['sweeps']} sweeps, {info['spikes']} "
                f"spikes from {results_dir} -> {settings.accepted_dir} (replaced "
                f"{', '.join(info['replaced'])}; commit that folder)")
     if info["failures"]:

@@ -123,7 +123,11 @@ def inspect(ctx: click.Context, file, show, config_path, **values):
         if show and found.ok:
             from ..figures import show_figures
 
-            show_figures(found.results, settings=params.settings, file=file)
+            for electrode in dict.fromkeys(r.sweep.electrode for r in found.results):
+                cell = [r for r in found.results if r.sweep.electrode == electrode]
+                several = len({r.sweep.electrode for r in found.results}) > 1
+                show_figures(cell, settings=params.settings,
+                             file=f"{file}, electrode {electrode}" if several else file)
     except SpikemeasureError as exc:
         fail(ctx, exc)
     finally:

@@ -6,6 +6,8 @@ constant (gap-free); a sweep whose command steps is read whole.
 """
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 
 from ..errors import UnreadableInputError
@@ -69,8 +71,7 @@ def settle_long_sweep(sweep: Sweep) -> Sweep:
     """
     if not sweep.is_lazy:
         if isinstance(sweep.command_pa, LazyTrace):  # a long stimulus cut to a short response
-            return Sweep(sweep.voltage_mv, sweep.sampling_rate_hz, np.asarray(sweep.command_pa),
-                         sweep.file, sweep.index, sweep.label, sweep.channel_info)
+            return replace(sweep, command_pa=np.asarray(sweep.command_pa))
         return sweep
     command = sweep.command_pa
     if isinstance(command, LazyTrace):
@@ -85,9 +86,7 @@ def settle_long_sweep(sweep: Sweep) -> Sweep:
                 if problem:
                     raise UnreadableInputError(
                         problem + " (its command current steps, so it must be read whole)")
-                return Sweep(np.asarray(sweep.voltage_mv), sweep.sampling_rate_hz,
-                             np.asarray(command), sweep.file, sweep.index, sweep.label,
-                             sweep.channel_info)
+                return replace(sweep, voltage_mv=np.asarray(sweep.voltage_mv),
+                               command_pa=np.asarray(command))
         command = None
-    return Sweep(sweep.voltage_mv, sweep.sampling_rate_hz, command, sweep.file, sweep.index,
-                 sweep.label, sweep.channel_info)
+    return replace(sweep, command_pa=command)

@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import os
 import warnings
+from dataclasses import replace
 from pathlib import Path
 from typing import Callable
 
@@ -67,8 +68,7 @@ def _read_nix_lazily(path: Path | str, shown: str, max_sweep_samples: int) -> Re
     if not any(sw.is_lazy for sw in recording.sweeps):
         close_rawio(io)
         return recording
-    return Recording(recording.path, recording.format, recording.sweeps, recording.channels,
-                     recording.problems, release=lambda: close_rawio(io))
+    return replace(recording, release=lambda: close_rawio(io))
 
 
 def _openable_text_path(path: Path) -> tuple[str, Callable[[], None]]:
@@ -133,8 +133,7 @@ def read_nix(path: Path, shown: str, max_sweep_samples: int) -> Recording:
         done()
         return recording
     release = recording.release
-    return Recording(recording.path, recording.format, recording.sweeps, recording.channels,
-                     recording.problems, release=lambda: (release(), done()))
+    return replace(recording, release=lambda: (release(), done()))
 
 
 def _read_nix_from(path: Path, path_text: str, shown: str,

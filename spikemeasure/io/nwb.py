@@ -1,4 +1,5 @@
-"""NWB files (``.nwb``): current-clamp series paired with their stimulus series by sweep number.
+"""NWB files (``.nwb``): each electrode's current-clamp series paired with its stimulus series,
+by NWB's intracellular tables or, in older files, by sweep number.
 
 Files not written with the intracellular series types are read as neo segments, each sweep
 by the units its channels declare.
@@ -6,6 +7,7 @@ by the units its channels declare.
 from __future__ import annotations
 
 import warnings
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -25,11 +27,6 @@ __all__ = ["read_nwb"]
 _CC_RESPONSE = {"CurrentClampSeries", "IZeroClampSeries"}
 _CC_STIMULUS = {"CurrentClampStimulusSeries"}
 _VC_TYPES = {"VoltageClampSeries", "VoltageClampStimulusSeries"}
-
-
-def _nwb_type(signal) -> str:
-    kind = signal.annotations.get("nwb_neurodata_type", ("", ""))
-    return kind[-1] if isinstance(kind, (tuple, list)) else str(kind)
 
 
 def _nwb_series_problem(series, where: str) -> str | None:
@@ -55,59 +52,172 @@ def _nwb_series_problem(series, where: str) -> str | None:
     return None
 
 
+@dataclass
+class _Series:
+    """One current-clamp series of an NWB file: its neo signal (None when refused, with why),
+    its electrode's name, its sweep number and name."""
+
+    kind: str  # "response" or "stimulus"
+    electrode: str
+    number: int | None
+    name: str
+    signal: object = None
+    refused: str = ""
+
+
+@dataclass
+class _Recorded:
+    """One intracellular recording: an electrode's response (and stimulus) in one sweep."""
+
+    electrode: str
+    key: tuple
+    response: str | None  # object id of the series
+    stimulus: str | None
+    response_part: tuple[int, int] | None = None  # (first sample, count) of the series
+    stimulus_part: tuple[int, int] | None = None
+
+
+def _electrode_name(series) -> str:
+    electrode = getattr(series, "electrode", None)
+    return safe_name(getattr(electrode, "name", "") or "", "electrode")
+
+
+def _reference(ref, series: dict) -> tuple[str | None, tuple[int, int] | None]:
+    """An intracellular table's reference to a series: its object id and the part of it
+    referred to ((first sample, count), None for all of it); (None, None) when absent."""
+    ts = getattr(ref, "timeseries", None)
+    if ts is None or int(getattr(ref, "idx_start", -1)) < 0 or ts.object_id not in series:
+        return None, None
+    start, count = int(ref.idx_start), int(ref.count)
+    whole = start == 0 and count in (-1, int(ts.data.shape[0]))
+    return ts.object_id, None if whole else (start, count)
+
+
+def _table_recordings(nwbfile, series: dict) -> list[_Recorded] | None:
+    """The rows of the file's intracellular-recordings table, each keyed by the position of
+    its simultaneous recording (in the order of the sequential recordings); rows in no
+    simultaneous recording come after, keyed by their series' sweep number. None when the
+    file has no such table (older NWB files: series with sweep numbers only)."""
+    table = getattr(nwbfile, "intracellular_recordings", None)
+    if table is None or len(table) == 0:
+        return None
+    categories = table.category_tables
+    electrodes = categories["electrodes"]["electrode"]
+    responses = categories["responses"]["response"]
+    stimuli = categories["stimuli"]["stimulus"] if "stimuli" in categories else None
+    position: dict[int, int] = {}
+    simultaneous = getattr(nwbfile, "icephys_simultaneous_recordings", None)
+    if simultaneous is not None and len(simultaneous):
+        order = list(range(len(simultaneous)))
+        sequential = getattr(nwbfile, "icephys_sequential_recordings", None)
+        if sequential is not None and len(sequential):
+            listed = [int(k) for k in sequential["simultaneous_recordings"].target.data[:]]
+            order = list(dict.fromkeys(listed + order))
+        rows = simultaneous["recordings"]
+        ends = [int(k) for k in rows.data[:]]
+        targets = [int(k) for k in rows.target.data[:]]
+        for rank, group in enumerate(order):
+            for row in targets[(ends[group - 1] if group else 0):ends[group]]:
+                position.setdefault(row, rank)
+    recorded = []
+    for row in range(len(table)):
+        response, response_part = _reference(responses[row], series)
+        stimulus, stimulus_part = (_reference(stimuli[row], series) if stimuli is not None
+                                   else (None, None))
+        number = series[response].number if response in series else None
+        key = ((0, position[row]) if row in position else
+               (1, number if number is not None else row))
+        recorded.append(_Recorded(safe_name(electrodes[row].name, "electrode"), key, response,
+                                  stimulus, response_part, stimulus_part))
+    return recorded
+
+
+def _series_recordings(series: dict) -> list[_Recorded]:
+    """Older NWB files: responses and stimuli paired by electrode and sweep number (a series
+    refused without a sweep number is a problem of the file, in no sweep)."""
+    slots: dict[tuple, _Recorded] = {}
+    extra: list[_Recorded] = []
+    for order, (oid, s) in enumerate(series.items()):
+        if s.refused and s.number is None:
+            continue
+        key = (1, s.number if s.number is not None else order)
+        slot = slots.setdefault((s.electrode, key), _Recorded(s.electrode, key, None, None))
+        if getattr(slot, s.kind) is None:
+            setattr(slot, s.kind, oid)
+        elif s.kind == "response":
+            extra.append(_Recorded(s.electrode, key, oid, None))
+    return list(slots.values()) + extra
+
+
 def _nwb_signals(path: Path, shown: str, max_sweep_samples: int
-                 ) -> tuple[list, object, dict]:
-    """The analog series of an NWB file as neo signals: neo's lazy proxies opened on the
-    file's acquisition and stimulus series, short ones loaded, long ones left in the file.
+                 ) -> tuple[dict, set, list[_Recorded], object]:
+    """The current-clamp series of an NWB file as neo signals: neo's lazy proxies opened on
+    the file's acquisition and stimulus series, short ones loaded, long ones left in the file;
+    and the intracellular recordings they form.
 
     Series whose time axis or scale is unusable, or whose declared size is beyond
     `max_sweep_samples` or the memory available, are not loaded.
 
-    Returns (signals, the open pynwb reader, to be closed when the long ones are read,
-    {sweep number or None: why that series was refused}).
+    Returns ({object id: _Series}, the neurodata types found, the recordings, whether they
+    come from the intracellular tables, the open pynwb reader, to be closed when the long
+    ones are read).
     """
     import pynwb
     from neo.io.nwbio import AnalogSignalProxy
 
     reader = pynwb.NWBHDF5IO(str(path), mode="r", load_namespaces=True)
-    refused: dict = {}
+    series: dict[str, _Series] = {}
+    types: set[str] = set()
     try:
         nwbfile = reader.read()
-        signals = []
         for group_name in ("acquisition", "stimulus"):
-            for series in getattr(nwbfile, group_name).values():
-                if isinstance(series, pynwb.misc.AnnotationSeries):
+            for one in getattr(nwbfile, group_name).values():
+                kind = type(one).__name__
+                types.add(kind)
+                if kind not in _CC_RESPONSE | _CC_STIMULUS:
                     continue
-                number = getattr(series, "sweep_number", None)
-                name = safe_name(series.name)
+                number = getattr(one, "sweep_number", None)
+                number = None if number is None else int(number)
+                name = safe_name(one.name)
+                entry = _Series("response" if kind in _CC_RESPONSE else "stimulus",
+                                _electrode_name(one), number, name)
+                series[one.object_id] = entry
                 where = (f"{shown}, series {name or 'without a plain name'}"
-                         + (f" (sweep_number {int(number)})" if number is not None else ""))
-                if getattr(series, "rate", None) is None:
-                    if type(series).__name__ in _CC_RESPONSE | _CC_STIMULUS:
-                        refused.setdefault(None if number is None else int(number), (
-                            f"{where}: sampled at listed times (timestamps), not at a "
-                            "constant rate; spikemeasure needs a constant sampling rate, so "
-                            "the sweep was not read"))
-                    continue  # other series without a rate (timestamps) are not signals here
-                problem = _nwb_series_problem(series, where)
+                         + (f" (sweep_number {number})" if number is not None else ""))
+                if getattr(one, "rate", None) is None:
+                    entry.refused = (f"{where}: sampled at listed times (timestamps), not at a "
+                                     "constant rate; spikemeasure needs a constant sampling "
+                                     "rate, so the sweep was not read")
+                    continue
+                problem = _nwb_series_problem(one, where)
                 if problem is None:
-                    shape = tuple(series.data.shape)
+                    shape = tuple(one.data.shape)
                     problem = limits.size_problem(where, shape, max_sweep_samples,
                                                   whole=not limits.is_long_shape(shape))
                 if problem is not None:
-                    refused.setdefault(None if number is None else int(number), problem)
+                    entry.refused = problem
                     continue
-                proxy = AnalogSignalProxy(series, group_name)
-                signals.append(LongSignal(proxy, shown) if is_long(proxy) else proxy.load())
+                proxy = AnalogSignalProxy(one, group_name)
+                entry.signal = LongSignal(proxy, shown) if is_long(proxy) else proxy.load()
+        recorded = _table_recordings(nwbfile, series)
+        tables = recorded is not None
+        if recorded is None:
+            recorded = _series_recordings(series)
     except BaseException:
         reader.close()
         raise
-    return signals, reader, refused
+    return series, types, recorded, tables, reader
 
 
 def read_nwb(path: Path, shown: str, max_sweep_samples: int) -> Recording:
-    """Read an NWB file: its current-clamp series, each paired with the stimulus series of
-    the same sweep number (or, in files without those types, neo's segments).
+    """Read an NWB file: each electrode's current-clamp responses, each paired with its
+    stimulus (or, in files without those types, neo's segments).
+
+    The intracellular-recordings table pairs each response with its stimulus and electrode,
+    and the simultaneous-recordings table groups the recordings of one sweep (their order in
+    the sequential-recordings table, where there is one, orders the sweeps). Files without
+    these tables pair responses and stimuli by electrode and ``sweep_number``. Each sweep's
+    ``electrode`` is its electrode's name: a file with several electrodes holds several cells.
 
     Parameters
     ----------
@@ -127,6 +237,11 @@ def read_nwb(path: Path, shown: str, max_sweep_samples: int) -> Recording:
     ------
     UnreadableInputError
         The file is not HDF5, cannot be read as NWB, or holds no measurable sweep.
+
+    References
+    ----------
+    NWB format specification 2.4+: IntracellularRecordingsTable, SimultaneousRecordingsTable,
+    SequentialRecordingsTable; PatchClampSeries ``sweep_number`` in older files.
     """
     with open(path, "rb") as fh:
         if fh.read(8) != HDF5_SIGNATURE:
@@ -136,92 +251,134 @@ def read_nwb(path: Path, shown: str, max_sweep_samples: int) -> Recording:
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            signals, reader, refused = _nwb_signals(path, shown, max_sweep_samples)
+            series, types, recorded, tables, reader = _nwb_signals(path, shown,
+                                                                   max_sweep_samples)
     except Exception as exc:  # the NWB stack raises many types; keep the cause
         raise UnreadableInputError(
             f"{shown}: cannot be read as NWB ({library_failure(exc)})") from exc
     try:
-        recording = _nwb_recording(signals, path, shown, refused)
+        recording = _nwb_recording(series, types, recorded, path, shown, tables)
     except BaseException:
         reader.close()
         raise
     if not any(sw.is_lazy for sw in recording.sweeps):
         reader.close()
         return recording
-    return Recording(recording.path, recording.format, recording.sweeps, recording.channels,
-                     recording.problems, release=reader.close)
+    return replace(recording, release=reader.close)
 
 
-def _nwb_recording(signals: list, path: Path, shown: str, refused: dict) -> Recording:
+def _neo_segments_recording(path: Path, shown: str, types: set) -> Recording:
+    """A file without current-clamp series: refused as voltage clamp, or read as neo's
+    segments (from the series' notes), each sweep by the units its channels declare."""
     import neo
 
-    by_sweep: dict[int, dict[str, list]] = {}
-    types = {_nwb_type(s) for s in signals}
-    if not types & _CC_RESPONSE and not refused:
-        if types & _VC_TYPES:
-            raise UnreadableInputError(
-                f"{shown}: a voltage-clamp recording (it holds VoltageClampSeries and no "
-                "CurrentClampSeries); spikemeasure measures current clamp")
-        # not written with the intracellular types: neo's segments (from the series' notes),
-        # each sweep by the units its channels declare, read whole
-        try:
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore")
-                block = neo.io.NWBIO(str(path), mode="r").read_block(lazy=False)
-        except Exception as exc:  # the NWB stack raises many types; keep the cause
-            raise UnreadableInputError(
-                f"{shown}: cannot be read as NWB ({library_failure(exc)})") from exc
-        return segments_to_recording(block.segments, shown, "NWB (by channel units)")
-    for order, s in enumerate(signals):
-        kind = _nwb_type(s)
-        if kind not in _CC_RESPONSE | _CC_STIMULUS:
-            continue
-        number = s.annotations.get("nwb:sweep_number")
-        key = int(number) if number is not None else order
-        slot = by_sweep.setdefault(key, {"response": [], "stimulus": []})
-        slot["response" if kind in _CC_RESPONSE else "stimulus"].append(s)
-    problems = [why for number, why in refused.items() if number is None]
-    for number in refused:
-        if number is not None:
-            by_sweep.setdefault(number, {"response": [], "stimulus": []})
+    if types & _VC_TYPES:
+        raise UnreadableInputError(
+            f"{shown}: a voltage-clamp recording (it holds VoltageClampSeries and no "
+            "CurrentClampSeries); spikemeasure measures current clamp")
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            block = neo.io.NWBIO(str(path), mode="r").read_block(lazy=False)
+    except Exception as exc:  # the NWB stack raises many types; keep the cause
+        raise UnreadableInputError(
+            f"{shown}: cannot be read as NWB ({library_failure(exc)})") from exc
+    return segments_to_recording(block.segments, shown, "NWB (by channel units)")
+
+
+def _nwb_recording(series: dict, types: set, recorded: list[_Recorded], path: Path,
+                   shown: str, tables: bool) -> Recording:
+    if not any(s.kind == "response" for s in series.values()) and not any(
+            s.refused for s in series.values()):
+        return _neo_segments_recording(path, shown, types)
+    cells = len({r.electrode for r in recorded})
+    index_of = {key: k for k, key in enumerate(sorted({r.key for r in recorded}))}
+    referenced = {r.response for r in recorded} | {r.stimulus for r in recorded}
+    unplaced = [(oid, s) for oid, s in series.items() if s.refused and oid not in referenced]
+    problems = [s.refused for _, s in unplaced]
+    problem_electrodes = [s.electrode for _, s in unplaced]
     sweeps, first_channels = [], []
-    for index, number in enumerate(sorted(by_sweep)):
-        slot = by_sweep[number]
-        label = f"sweep_number {number}"
-        if number in refused:
-            problems.append(refused[number].replace(
-                f"{shown}, ", f"{shown}, sweep {index}, ", 1))
+    shared: dict[tuple, int] = {}
+    for r in recorded:
+        shared[(r.electrode, r.key)] = shared.get((r.electrode, r.key), 0) + 1
+    done: set = set()
+    for r in sorted(recorded, key=lambda r: (index_of[r.key],)):
+        if (r.electrode, r.key) in done:
             continue
-        if not slot["response"]:
-            problems.append(f"{shown}, sweep {index} ({label}): a stimulus with no voltage "
-                            "response; skipped")
-            continue
-        response = slot["response"][0]
-        stimulus = slot["stimulus"][0] if slot["stimulus"] else None
-        name = safe_name(response.name)
-        label = f"sweep_number {number}" + (f", {name}" if name else "")
-        parts = [response] + ([stimulus] if stimulus is not None else [])
-        sweep, channels, found = sweep_from_signals(parts, shown, index, label)
-        if (stimulus is not None and sweep is not None and sweep.command_pa is None
-                and found and found[-1].endswith("it was not used as the command")):
-            # align a stimulus that starts later or is longer than the response
-            sweep, aligned = _align_stimulus(sweep, response, stimulus)
-            if aligned:
-                found = found[:-1]
+        done.add((r.electrode, r.key))
+        sweep, channels, found = _recorded_sweep(r, series, shown, index_of[r.key], cells)
         if not first_channels:
             first_channels = channels
+        if shared[(r.electrode, r.key)] > 1 and sweep is not None:
+            found.append(f"{sweep.where()}: {shared[(r.electrode, r.key)]} responses share "
+                         + ("this sweep and electrode" if cells > 1 else "this sweep number")
+                         + "; the first was used")
         problems.extend(found)
-        if len(slot["response"]) > 1:
-            problems.append(f"{shown}, sweep {index} ({label}): {len(slot['response'])} responses "
-                            "share this sweep number; the first was used")
+        problem_electrodes.extend([r.electrode] * len(found))
         if sweep is not None:
             sweeps.append(sweep)
     if not sweeps:
         raise UnreadableInputError(
             f"{shown}: no current-clamp sweeps found" if not problems else problems[0]
             if len(problems) == 1 else f"{problems[0]} (and {len(problems) - 1} more problems)")
-    return Recording(shown, "NWB (intracellular series paired by sweep number)", sweeps,
-                     first_channels, problems)
+    how = ("paired by the intracellular recordings table" if tables
+           else "paired by sweep number")
+    return Recording(shown, f"NWB (intracellular series {how})", sweeps, first_channels,
+                     problems, problem_electrodes=problem_electrodes)
+
+
+def _part(signal, part: tuple[int, int] | None, where: str):
+    """The part of a series an intracellular table refers to; (signal, problem)."""
+    if part is None or signal is None:
+        return signal, None
+    start, count = part
+    if isinstance(signal, LongSignal):
+        return None, (f"{where}: the intracellular table refers to part of a long series "
+                      f"(samples {start} to {start + count}); only whole long series are read")
+    stop = signal.shape[0] if count < 0 else start + count
+    return signal[start:stop], None
+
+
+def _recorded_sweep(r: _Recorded, series: dict, shown: str, index: int, cells: int
+                    ) -> tuple[Sweep | None, list, list[str]]:
+    """The sweep of one intracellular recording: its response with its stimulus as the
+    command, of its electrode, in a file of `cells` electrodes (messages name the electrode
+    when there are several); (sweep or None, channels, problems)."""
+    cell = f", electrode {r.electrode}" if cells > 1 else ""
+    response = series.get(r.response) if r.response else None
+    stimulus = series.get(r.stimulus) if r.stimulus else None
+    for refused in (response, stimulus):
+        if refused is not None and refused.refused:
+            return None, [], [refused.refused.replace(
+                f"{shown}, ", f"{shown}{cell}, sweep {index}, ", 1)]
+    number = next((s.number for s in (response, stimulus) if s is not None
+                   and s.number is not None), None)
+    label = f"sweep_number {number}" if number is not None else ""
+    if response is None:
+        return None, [], [f"{shown}{cell}, sweep {index}"
+                          + (f" ({label})" if label else "")
+                          + ": a stimulus with no voltage response; skipped"]
+    label = ", ".join(x for x in (label, response.name) if x)
+    where = f"{shown}{cell}, sweep {index}" + (f" ({label})" if label else "")
+    voltage, problem = _part(response.signal, r.response_part, where)
+    command, problem_s = (_part(stimulus.signal, r.stimulus_part, where) if stimulus
+                          else (None, None))
+    if problem or problem_s:
+        return None, [], [problem or problem_s]
+    parts = [voltage] + ([command] if command is not None else [])
+    sweep, channels, found = sweep_from_signals(parts, shown, index, label)
+    if sweep is not None:
+        sweep = replace(sweep, electrode=r.electrode, cells_in_file=cells)
+    if cell:
+        found = [m.replace(f"{shown}, sweep {index}", f"{shown}{cell}, sweep {index}", 1)
+                 for m in found]
+    if (command is not None and sweep is not None and sweep.command_pa is None
+            and found and found[-1].endswith("it was not used as the command")):
+        # align a stimulus that starts later or is longer than the response
+        sweep, aligned = _align_stimulus(sweep, voltage, command)
+        if aligned:
+            found = found[:-1]
+    return sweep, channels, found
 
 
 def _align_stimulus(sweep: Sweep, response, stimulus) -> tuple[Sweep, bool]:
@@ -252,8 +409,7 @@ def _align_stimulus(sweep: Sweep, response, stimulus) -> tuple[Sweep, bool]:
     else:
         aligned = column[offset:offset + n]
     try:
-        settled = settle_long_sweep(Sweep(sweep.voltage_mv, rate, aligned, sweep.file,
-                                           sweep.index, sweep.label, sweep.channel_info))
+        settled = settle_long_sweep(replace(sweep, command_pa=aligned))
     except UnreadableInputError:
         return sweep, False
     return settled, True

@@ -32,6 +32,9 @@ class Recording:
         Channels of the first sweep.
     problems : list of str
         Parts of the file that were skipped, each naming the sweep and why.
+    problem_electrodes : list of str
+        The electrode each problem belongs to ("" for the file as a whole), aligned with
+        `problems`; empty when no problem names an electrode.
     """
 
     path: str
@@ -40,6 +43,21 @@ class Recording:
     channels: list[ChannelInfo] = field(default_factory=list)
     problems: list[str] = field(default_factory=list)
     release: object = field(default=None, compare=False, repr=False)
+    problem_electrodes: list[str] = field(default_factory=list)
+
+    def electrodes(self) -> list[str]:
+        """The electrodes of the sweeps, in order of first appearance: one cell each."""
+        return list(dict.fromkeys(sw.electrode for sw in self.sweeps))
+
+    def sweeps_of(self, electrode: str) -> list[Sweep]:
+        """The sweeps recorded by one electrode, in file order."""
+        return [sw for sw in self.sweeps if sw.electrode == electrode]
+
+    def electrode_of_problem(self, position: int) -> str:
+        """The electrode problem number `position` belongs to ("" for the whole file)."""
+        if position < len(self.problem_electrodes):
+            return self.problem_electrodes[position]
+        return ""
 
     def close(self) -> None:
         """Close the file that long sweeps (:attr:`Sweep.is_lazy`) are read from."""

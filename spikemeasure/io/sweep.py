@@ -89,6 +89,13 @@ class Sweep:
         0-based sweep index in file order.
     label : str
         A name the file gives the sweep (segment name, NWB series name), for messages.
+    electrode : str
+        The electrode (the cell) the sweep was recorded from: the electrode's name in NWB;
+        in other formats the voltage channel's name (or index) when the file holds several,
+        else "". A file's sweeps of one electrode are one cell.
+    cells_in_file : int
+        How many electrodes (cells) the sweep's file holds; messages name the electrode only
+        when there are several.
     """
 
     voltage_mv: np.ndarray
@@ -98,6 +105,8 @@ class Sweep:
     index: int = 0
     label: str = ""
     channel_info: tuple = field(default=(), compare=False)
+    electrode: str = ""
+    cells_in_file: int = field(default=1, compare=False)
 
     @property
     def n_samples(self) -> int:
@@ -113,6 +122,9 @@ class Sweep:
         return self.n_samples / self.sampling_rate_hz
 
     def where(self) -> str:
-        """'file, sweep N' for messages."""
+        """'file, sweep N' (or 'file, electrode E, sweep N') for messages."""
         shown_label = self.label and self.label != f"sweep {self.index}"
-        return f"{self.file}, sweep {self.index}" + (f" ({self.label})" if shown_label else "")
+        named = self.electrode and self.cells_in_file > 1
+        cell = f", electrode {self.electrode}" if named else ""
+        return (f"{self.file}{cell}, sweep {self.index}"
+                + (f" ({self.label})" if shown_label else ""))

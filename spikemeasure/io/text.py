@@ -1,6 +1,7 @@
 """Plain text (``.txt``, ``.csv``, ``.tsv``): columns under a header row naming their units.
 
-One sweep per file, parsed with numpy in float64. (neo's text reader parses as float32, which
+One sweep per file (one per voltage column: a file with several holds several cells, each
+with the current column of the same rank as its command), parsed with numpy in float64. (neo's text reader parses as float32, which
 rounds a voltage of -70.1 mV to -70.09999847, and gives every column one unit, so a file
 holding mV and pA columns cannot be read with it.) Messages say what is wrong (the encoding,
 the separator, the line and column) without quoting the file.
@@ -164,10 +165,10 @@ def _text_size_problem(path: Path, shown: str, header: str, first_row: str, n_co
 
 def _header_roles(shown: str, header: str, second: str
                   ) -> tuple[str | None, list[str], dict[str, tuple[int, float]],
-                             list[ChannelInfo], list[str]]:
+                             list[ChannelInfo], list[tuple[int, float]]]:
     """Read the header row: the separator, the column names, the column and scale of the
     time, voltage and command columns (the first column of each kind of unit), every
-    column's channel, and the names of voltage columns after the first."""
+    column's channel, and every voltage and current column as (column, scale), in order."""
     if not header.strip():
         raise UnreadableInputError(
             f"{shown}: the first line is blank; it must be the header row naming each column "
@@ -185,7 +186,7 @@ def _header_roles(shown: str, header: str, second: str
             "e.g. time_s, voltage_mV, current_pA")
     roles: dict[str, tuple[int, float]] = {}
     channels = []
-    extra_voltages = []
+    voltages, currents = [], []
     for col, raw in enumerate(names):
         _, unit = split_unit(raw)
         role = "ignored"
@@ -196,15 +197,24 @@ def _header_roles(shown: str, header: str, second: str
                 role = kind
                 break
         name = safe_name(raw.strip('"').strip("'"), f"column {col + 1}")
-        if role == "ignored" and unit in VOLT_TO_MV:
-            extra_voltages.append(name)
+        if unit in VOLT_TO_MV:
+            voltages.append((col, VOLT_TO_MV[unit]))
+        elif unit in AMP_TO_PA:
+            currents.append((col, AMP_TO_PA[unit]))
         known = unit in SECOND_TO_S or unit in VOLT_TO_MV or unit in AMP_TO_PA
         channels.append(ChannelInfo(name, unit if known else "?", role))
+    # the k-th voltage column is a cell of its own, with the k-th current column as command
+    for k, (col, _) in enumerate(voltages):
+        if k < len(currents):
+            c = channels[currents[k][0]]
+            channels[currents[k][0]] = ChannelInfo(c.name, c.units, "command")
+        channels[col] = ChannelInfo(channels[col].name, channels[col].units, "voltage")
+    pairs = [(v, currents[k] if k < len(currents) else None) for k, v in enumerate(voltages)]
     if "voltage" not in roles:
         raise UnreadableInputError(
             f"{shown}: no voltage column: none of the {len(names)} column names of the header "
             "row ends in a voltage unit; name one such as voltage_mV or voltage_V")
-    return delimiter, names, roles, channels, extra_voltages
+    return delimiter, names, roles, channels, pairs
 
 
 def _load_rows(path: Path, shown: str, delimiter: str | None, n_columns: int,
@@ -275,7 +285,8 @@ def _sampling_rate(shown: str, data: np.ndarray, roles: dict[str, tuple[int, flo
 
 def read_text(path: Path, shown: str, sampling_rate_hz: float | None,
               max_sweep_samples: int) -> Recording:
-    """Read a text file of columns under a header row naming their units: one sweep.
+    """Read a text file of columns under a header row naming their units: one sweep per
+    voltage column (one cell each).
 
     Parameters
     ----------
@@ -299,29 +310,43 @@ def read_text(path: Path, shown: str, sampling_rate_hz: float | None,
         or an uneven time column; the message says where, without quoting the file.
     """
     header, second = _text_head(path, shown)
-    delimiter, names, roles, channels, extra_voltages = _header_roles(shown, header, second)
+    delimiter, names, roles, channels, pairs = _header_roles(shown, header, second)
     problem = _text_size_problem(path, shown, header, second, len(names), max_sweep_samples)
     if problem:
         raise UnreadableInputError(problem)
     data = _load_rows(path, shown, delimiter, len(names), max_sweep_samples)
     rate = _sampling_rate(shown, data, roles, sampling_rate_hz)
-    v_col, v_scale = roles["voltage"]
-    command = None
-    if "command" in roles:
-        c_col, c_scale = roles["command"]
-        command = data[:, c_col] * c_scale
-    voltage = data[:, v_col] * v_scale
-    sweep = Sweep(voltage_mv=voltage, sampling_rate_hz=rate, command_pa=command, file=shown,
-                  index=0, label="", channel_info=tuple(channels))
-    problems = []
-    if extra_voltages:
-        problems.append(
-            f"{shown}, sweep 0: {len(extra_voltages)} more voltage column"
-            f"{'s were' if len(extra_voltages) != 1 else ' was'} not measured "
-            f"({', '.join(extra_voltages)}); only the first, {channels[v_col].name}, was. Split "
-            "the columns into files of their own to measure them")
-    if command is not None and looks_like_command(voltage) and not looks_like_command(command):
-        raise UnreadableInputError(
-            f"{shown}: this looks like a voltage-clamp recording (the voltage column is a few "
-            "flat command levels); spikemeasure measures current clamp")
-    return Recording(shown, "plain text (numpy, float64)", [sweep], channels, problems)
+    electrodes = _column_electrodes(names, [v[0] for v, _ in pairs])
+    sweeps, problems, problem_electrodes = [], [], []
+    for ((v_col, v_scale), current), electrode in zip(pairs, electrodes):
+        voltage = data[:, v_col] * v_scale
+        command = None if current is None else data[:, current[0]] * current[1]
+        if command is not None and looks_like_command(voltage) and not looks_like_command(
+                command):
+            message = (f"{shown}: this looks like a voltage-clamp recording (the voltage column "
+                       "is a few flat command levels); spikemeasure measures current clamp")
+            if len(pairs) == 1:
+                raise UnreadableInputError(message)
+            problems.append(message.replace(f"{shown}: ", f"{shown}, electrode {electrode}, "
+                                            "sweep 0: ", 1))
+            problem_electrodes.append(electrode)
+            continue
+        sweeps.append(Sweep(voltage_mv=voltage, sampling_rate_hz=rate, command_pa=command,
+                            file=shown, index=0, label="", channel_info=tuple(channels),
+                            electrode=electrode, cells_in_file=len(pairs)))
+    if not sweeps:
+        raise UnreadableInputError(f"{problems[0]} (and {len(problems) - 1} more problems)")
+    return Recording(shown, "plain text (numpy, float64)", sweeps, channels, problems,
+                     problem_electrodes=problem_electrodes)
+
+
+def _column_electrodes(names: list[str], voltage_columns: list[int]) -> list[str]:
+    """Each voltage column's electrode: "" when there is one; else the column's name without
+    its unit when those are distinct, else its position among the voltage columns."""
+    if len(voltage_columns) <= 1:
+        return [""] * len(voltage_columns)
+    bases = [safe_name(split_unit(names[c].strip('"').strip("'"))[0].rstrip("_ "), "")
+             for c in voltage_columns]
+    if all(bases) and len(set(bases)) == len(bases):
+        return bases
+    return [str(k) for k in range(len(voltage_columns))]

@@ -119,8 +119,9 @@ def report_html(record: dict, cells: ColumnTable, folder: str | os.PathLike) -> 
         and the figures.
     """
     inputs = record.get("inputs", [])
-    per_cell = (record.get("figures") or {}).get("cells") or {}
-    anchors = {f: f"cell-{k}" for k, f in enumerate(per_cell)}
+    per_file = (record.get("figures") or {}).get("cells") or {}
+    figured = _cell_figures(per_file, cells)
+    anchors = {cell: f"cell-{k}" for k, cell in enumerate(figured)}
     title = f"spikemeasure report: {len(inputs)} file" + ("" if len(inputs) == 1 else "s")
     parts = [
         "<!DOCTYPE html>", '<html lang="en">', "<head>", '<meta charset="utf-8">',
@@ -133,9 +134,33 @@ def report_html(record: dict, cells: ColumnTable, folder: str | os.PathLike) -> 
     ]
     parts += _run_section(record)
     parts += _cells_section(record, cells, anchors)
-    parts += _figures_section(record, Path(folder), anchors)
+    parts += _figures_section(record, Path(folder), figured, anchors)
     parts += ["</body>", "</html>", ""]
     return "\n".join(parts)
+
+
+def _cell_figures(per_file: dict, cells: ColumnTable) -> dict[tuple[str, str], list[str]]:
+    """Each cell's figures, by (file, electrode): run.json lists them by file; a file of
+    several cells has a figure folder per cell
+    (:func:`~spikemeasure.run.task.cell_figure_folder`)."""
+    from ..run.task import cell_folders
+
+    electrodes: dict[str, list[str]] = {}
+    for file, electrode in zip(cells.column("file"), cells.column("electrode")):
+        electrodes.setdefault(file, []).append(electrode)
+    out: dict[tuple[str, str], list[str]] = {}
+    for file, paths in per_file.items():
+        names = electrodes.get(file) or [""]
+        if len(names) == 1:
+            out[(file, names[0])] = list(paths)
+            continue
+        for electrode, folder in zip(names, cell_folders(file, names)):
+            out[(file, electrode)] = [p for p in paths if p.startswith(folder + "/")]
+    return out
+
+
+def _cell_name(file: str, electrode: str) -> str:
+    return f"{file}, electrode {electrode}" if electrode else file
 
 
 def _run_section(record: dict) -> list[str]:
@@ -169,7 +194,8 @@ def _run_section(record: dict) -> list[str]:
     parts.append(f'<h3 id="failures">Failures and problems ({len(failures)})</h3>')
     if failures:
         parts.append(_table(["file", "stage", "reason"],
-                            [(_e(f.get("file")), _e(f.get("stage")),
+                            [(_e(_cell_name(f.get("file"), f.get("electrode", ""))),
+                              _e(f.get("stage")),
                               f'<span class="failed">{_e(f.get("message"))}</span>')
                              for f in failures]))
     else:
@@ -200,9 +226,10 @@ def _cells_section(record: dict, cells: ColumnTable, anchors: dict[str, str]) ->
     if members is not None:
         header.insert(1, groups["column"])
     rows = []
-    for row in cell_rows:
-        file = row[0]
-        name = (f'<a href="#{anchors[file]}">{_e(file)}</a>' if file in anchors else _e(file))
+    for file, electrode, row in zip(cells.column("file"), cells.column("electrode"), cell_rows):
+        cell = (file, electrode)
+        name = (f'<a href="#{anchors[cell]}">{_e(row[0])}</a>' if cell in anchors
+                else _e(row[0]))
         group = [_e(members.get(file, "(no group)"))] if members is not None else []
         rows.append([name] + group + [_e(v) for v in row[1:]])
     if rows:
@@ -216,12 +243,12 @@ def _cells_section(record: dict, cells: ColumnTable, anchors: dict[str, str]) ->
     return parts
 
 
-def _figures_section(record: dict, folder: Path, anchors: dict[str, str]) -> list[str]:
+def _figures_section(record: dict, folder: Path, per_cell: dict[tuple[str, str], list[str]],
+                     anchors: dict[tuple[str, str], str]) -> list[str]:
     """The batch figure and each cell's figures, embedded up to EMBED_LIMIT_BYTES in all."""
     figures = record.get("figures") or {}
     if not figures.get("format"):
         return ["<p>Figures were not drawn in this run (<code>--no-figures</code>).</p>"]
-    per_cell = figures.get("cells") or {}
     listed = [p for paths in per_cell.values() for p in paths]
     if figures.get("batch"):
         listed.append(figures["batch"])
@@ -234,11 +261,12 @@ def _figures_section(record: dict, folder: Path, anchors: dict[str, str]) -> lis
     if not embed:
         parts.append(f"<p>The figures ({size / 1e6:.0f} MB) are linked, not embedded: copy "
                      "the whole output folder with this page.</p>")
-    for file, paths in per_cell.items():
-        parts.append(f'<h2 id="{anchors[file]}">{_e(file)}</h2>')
+    for cell, paths in per_cell.items():
+        name = _cell_name(*cell)
+        parts.append(f'<h2 id="{anchors[cell]}">{_e(name)}</h2>')
         for p in paths:
             what = Path(p).stem.replace("_", " ")
-            parts.append(_image(folder, p, f"{what} of {file}", embed))
+            parts.append(_image(folder, p, f"{what} of {name}", embed))
     return parts
 
 

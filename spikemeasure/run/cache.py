@@ -21,7 +21,7 @@ __all__ = ["OutcomeCache", "CACHE_FOLDER", "file_sha256"]
 
 CACHE_FOLDER = ".spikemeasure-cache"
 #: The layout of a kept outcome; a new layout never reads an older one.
-CACHE_LAYOUT = 2
+CACHE_LAYOUT = 3
 
 
 def file_sha256(path: Path, chunk: int = 1 << 20) -> str:

@@ -18,9 +18,10 @@ __all__ = ["FileOutcome", "INTERNAL_ERROR_STAGE", "failure", "internal_error_out
 #: The stage of a file's failure when its task raised an unexpected exception (a bug).
 INTERNAL_ERROR_STAGE = "internal error"
 
-def failure(file: str, stage: str, message: str) -> dict:
-    """One row of errors.csv as a dict (``file``, ``stage``, ``message``)."""
-    return {"file": file, "stage": stage, "message": message}
+def failure(file: str, stage: str, message: str, electrode: str = "") -> dict:
+    """One row of errors.csv as a dict (``file``, ``electrode``, ``stage``, ``message``);
+    the electrode is "" for a failure of the file as a whole."""
+    return {"file": file, "electrode": electrode, "stage": stage, "message": message}
 
 
 _TABLES = (("spikes", SPIKE_COLUMNS), ("sweeps", SWEEP_COLUMNS), ("cells", CELL_COLUMNS))
@@ -28,7 +29,8 @@ _TABLES = (("spikes", SPIKE_COLUMNS), ("sweeps", SWEEP_COLUMNS), ("cells", CELL_
 
 @dataclass
 class FileOutcome:
-    """What measuring one file gave: its three tables, its failures and counts.
+    """What measuring one file gave: its three tables (one cell per electrode), its failures
+    and counts.
 
     Attributes
     ----------
@@ -37,7 +39,8 @@ class FileOutcome:
     spikes, sweeps, cells : ColumnTable
         Its rows of spikes.csv, sweeps.csv and cells.csv.
     failures : list of dict
-        Rows of errors.csv (``file``, ``stage``, ``message``; ``traceback`` for a bug).
+        Rows of errors.csv (``file``, ``electrode``, ``stage``, ``message``; ``traceback``
+        for a bug).
     sweep_count, sweeps_measured, spike_count : int
         Sweeps in the file, sweeps measured, spikes found.
     spike_flags : dict
@@ -45,7 +48,7 @@ class FileOutcome:
     format : str or None
         The file's format, as the reader names it (None when it could not be read).
     figures : list of str
-        Its figures, relative to the output folder.
+        Its figures, relative to the output folder (each cell's in a folder of its own).
     figure_format : str or None
         The format the figures were asked in (None: none asked).
     """
@@ -94,7 +97,7 @@ class FileOutcome:
         failures = data.get("failures")
         if not isinstance(failures, list) or not all(
                 isinstance(f, dict) and all(isinstance(f.get(k), str)
-                                            for k in ("file", "stage", "message"))
+                                            for k in ("file", "electrode", "stage", "message"))
                 for f in failures):
             raise ValueError("the failures are not rows of errors.csv")
         flags, figures = data.get("spike_flags"), data.get("figures")

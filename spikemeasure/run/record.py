@@ -236,7 +236,7 @@ class RunRecord:
             summary.sweeps_path: rows_csv_text(SWEEP_COLUMNS, tables["sweeps"].formatted_rows()),
             summary.cells_path: rows_csv_text(CELL_COLUMNS, tables["cells"].formatted_rows()),
             summary.errors_path: rows_csv_text(
-                ERROR_COLUMNS, [[f["file"], f["stage"], f["message"]] for f in failures]),
+                ERROR_COLUMNS, [[f[c.name] for c in ERROR_COLUMNS] for f in failures]),
             summary.record_path: json_text(record),
         }
         return {path: text.encode("utf-8") for path, text in texts.items()}

@@ -188,7 +188,11 @@ def measured_results(results: list[SweepResult]) -> list[SweepResult]:
 
 
 def cell_summary(results: list[SweepResult]) -> CellFeatures:
-    """Cell features from the measured sweeps of one recording."""
+    """Cell features from the measured sweeps of one cell: one recording's sweeps of one
+    electrode (InvalidSettingError when `results` hold several electrodes' sweeps)."""
+    if len({r.sweep.electrode for r in results}) > 1:
+        raise InvalidSettingError("`results` must be the sweeps of one cell (one electrode); "
+                                  "measure each electrode's sweeps on their own")
     measured = measured_results(results)
     firsts = []
     for r in measured:
@@ -207,27 +211,36 @@ def sweep_table(results: list[SweepResult]) -> dict[str, list]:
     for r in results:
         if r.features is None:
             continue
-        keys = {"file": r.sweep.file, "sweep": r.sweep.index}
+        keys = {"file": r.sweep.file, "electrode": r.sweep.electrode, "sweep": r.sweep.index}
         for c in SWEEP_COLUMNS:
             table[c.name].append(keys[c.name] if c.name in KEY_COLUMN_NAMES
                                  else c.values_from(r.features))
     return table
 
 
-def cell_table(cells: list[tuple[str, CellFeatures]]) -> dict[str, list]:
-    """One row per recording, columns of :data:`~spikemeasure.columns.CELL_COLUMNS`."""
+def cell_table(cells: list[tuple]) -> dict[str, list]:
+    """One row per cell, columns of :data:`~spikemeasure.columns.CELL_COLUMNS`.
+
+    `cells` holds ``(file, electrode, CellFeatures)`` per cell (``(file, CellFeatures)``: the
+    electrode is "").
+    """
     table: dict[str, list] = {c.name: [] for c in CELL_COLUMNS}
-    for file, features in cells:
+    for row in cells:
+        file, electrode, features = row if len(row) == 3 else (row[0], "", row[1])
+        keys = {"file": file, "electrode": electrode}
         for c in CELL_COLUMNS:
-            table[c.name].append(file if c.name in KEY_COLUMN_NAMES else c.values_from(features))
+            table[c.name].append(keys[c.name] if c.name in KEY_COLUMN_NAMES
+                                 else c.values_from(features))
     return table
 
 
-def spike_values(spikes: SpikeMeasurements, file: str, sweep: int) -> dict[str, list]:
+def spike_values(spikes: SpikeMeasurements, file: str, sweep: int,
+                 electrode: str = "") -> dict[str, list]:
     """The spike rows of one sweep, columns of :data:`~spikemeasure.columns.SPIKE_COLUMNS`,
     each computed by its declaration."""
     n = len(spikes)
-    keys = {"file": [file] * n, "sweep": [sweep] * n, "spike": list(range(n))}
+    keys = {"file": [file] * n, "electrode": [electrode] * n, "sweep": [sweep] * n,
+            "spike": list(range(n))}
     return {c.name: keys[c.name] if c.name in KEY_COLUMN_NAMES else list(c.values_from(spikes))
             for c in SPIKE_COLUMNS}
 
@@ -242,7 +255,7 @@ def spike_table(results: list[SweepResult]) -> dict[str, list]:
         if result.spikes is None or len(result.spikes) == 0:
             continue
         for name, values in spike_values(result.spikes, result.sweep.file,
-                                         result.sweep.index).items():
+                                         result.sweep.index, result.sweep.electrode).items():
             table[name].extend(values)
     return table
 

@@ -155,10 +155,12 @@ def test_measure_tables_agree_with_the_api(tmp_path):
     assert cell_rows[0] == [c.name for c in CELL_COLUMNS]
     expected_sweeps, expected_cells = [], []
     for path in sorted(p for p in data.iterdir() if p.suffix in (".nwb", ".nix")):
-        results = measure_recording(read_recording(path, shown_as=path.name))
+        recording = read_recording(path, shown_as=path.name)
+        results = measure_recording(recording)
         expected_sweeps += format_rows(sweep_table(results), SWEEP_COLUMNS)
-        expected_cells += format_rows(cell_table([(path.name, cell_summary(results))]),
-                                      CELL_COLUMNS)
+        electrode, = recording.electrodes()  # one cell per sample file
+        expected_cells += format_rows(cell_table([(path.name, electrode,
+                                                   cell_summary(results))]), CELL_COLUMNS)
     assert sweep_rows[1:] == expected_sweeps
     assert cell_rows[1:] == expected_cells
     assert len(cell_rows) == 5

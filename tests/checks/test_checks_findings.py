@@ -20,4 +20,4 @@ class TestReports:
         assert data["checks_failed"] == len(BROKEN)
         assert {f["file"] for f in data["failures"]} == set(BROKEN)
         assert {"check", "file", "sweep", "spike", "column", "message", "accepted", "value",
-                "limit"} == set(data["failures"][0])
+                "limit", "electrode"} == set(data["failures"][0])

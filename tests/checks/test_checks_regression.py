@@ -126,8 +126,9 @@ class TestRegression:
         rows = read_rows(accepted_dir / "cells.csv")
         write_rows(accepted_dir / "cells.csv", rows[1:])
         finding, = regression(run_dir, accepted_dir).findings
-        assert finding.file == rows[0]["file"]
-        assert "cells.csv: the file's row is not in the accepted results" in finding.message
+        assert finding.file == rows[0]["file"] and finding.electrode == rows[0]["electrode"]
+        assert (f"cells.csv: the row of electrode {rows[0]['electrode']} is not in the "
+                "accepted results") in finding.message
 
     def test_a_column_this_version_does_not_write_gets_a_note(self, accepted):
         accepted_dir, run_dir = accepted
@@ -167,7 +168,8 @@ class TestRegression:
     def test_empty_against_number_fails_empty_against_empty_passes(self, accepted):
         accepted_dir, run_dir = accepted
         rows = read_rows(run_dir / "cells.csv")
-        column = next(c for c in rows[0] if c not in ("file", "flags") and rows[0][c] != "")
+        column = next(c for c in rows[0] if c not in ("file", "electrode", "flags")
+                      and rows[0][c] != "")
         edit_cell(run_dir, "cells.csv", column, lambda v: "")
         report = regression(run_dir, accepted_dir, default_tolerance=Tolerance(1e9))
         finding, = report.findings

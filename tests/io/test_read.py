@@ -327,10 +327,11 @@ class TestDamagedTimeAxis:
 
 # ------------------------------------------------------------------ several voltage channels
 
-def test_voltage_channels_after_the_first_are_named_as_not_measured(tmp_path):
-    """A NIX sweep (neo's NixIO) holding two voltage channels in one signal and a third in a
-    second signal: the first is measured, the others are named in the problems, which land
-    in errors.csv."""
+def test_each_voltage_channel_of_a_nix_sweep_is_a_cell_of_its_own(tmp_path):
+    """A NIX sweep (neo's NixIO) holding two voltage channels in one signal, a third in a
+    second signal and two current channels: each voltage channel is a cell, named by its
+    channel, with the current channel of the same rank as its command. Source: the arrays
+    written, read back exactly."""
     import neo
     import quantities as pq
 
@@ -340,35 +341,48 @@ def test_voltage_channels_after_the_first_are_named_as_not_measured(tmp_path):
                                               sampling_rate=RATE * pq.Hz, name="vm"))
     seg.analogsignals.append(neo.AnalogSignal(v[:, None] * 1e-3, units="V",
                                               sampling_rate=RATE * pq.Hz, name="second"))
-    seg.analogsignals.append(neo.AnalogSignal(i[:, None], units="pA",
+    seg.analogsignals.append(neo.AnalogSignal(np.column_stack([i, 2 * i]), units="pA",
                                               sampling_rate=RATE * pq.Hz, name="command"))
     block = neo.Block()
     block.segments.append(seg)
-    path = tmp_path / "two_cells.nix"
+    path = tmp_path / "three_cells.nix"
     with neo.io.NixIO(str(path), mode="ow") as io:
         io.write_block(block)
     rec = read_recording(path)
-    np.testing.assert_allclose(rec.sweeps[0].voltage_mv, v, rtol=1e-12)
-    assert rec.problems == [
-        f"{path}, sweep 0: 2 more voltage channels were not measured (vm[1], second); only "
-        "the first, vm[0], was. Split the channels into files of their own to measure them"]
-    summary = measure_paths([str(path)], tmp_path / "out", jobs=1)
-    assert summary.files_measured == 1
-    assert any("vm[1], second" in f["message"] for f in summary.failures)
-    assert "vm[1], second" in (tmp_path / "out" / "errors.csv").read_text()
+    assert rec.problems == []
+    assert rec.electrodes() == ["vm[0]", "vm[1]", "second"]
+    first, second, third = rec.sweeps
+    np.testing.assert_allclose(first.voltage_mv, v, rtol=1e-12)
+    np.testing.assert_allclose(second.voltage_mv, v + 1.0, rtol=1e-12)
+    np.testing.assert_allclose(third.voltage_mv, v, rtol=1e-12)
+    np.testing.assert_allclose(first.command_pa, i, rtol=1e-12)
+    np.testing.assert_allclose(second.command_pa, 2 * i, rtol=1e-12)
+    assert third.command_pa is None
+    assert [s.index for s in rec.sweeps] == [0, 0, 0]
 
 
-def test_a_second_voltage_column_of_a_text_file_is_named(tmp_path):
+def test_each_voltage_column_of_a_text_file_is_a_cell_with_its_own_command(tmp_path):
+    """Source: the columns written with numpy.savetxt, read back."""
     (v, i), = _sweeps(1)
     t = np.arange(v.size) / RATE
     path = tmp_path / "two.csv"
-    np.savetxt(path, np.column_stack([t, v, v, i]), delimiter=",", comments="",
-               header="time_s,cell_a_mV,cell_b_mV,current_pA", fmt="%.10g")
+    np.savetxt(path, np.column_stack([t, v, i, v - 5.0, 3 * i]), delimiter=",", comments="",
+               header="time_s,cell_a_mV,cell_a_pA,cell_b_mV,cell_b_pA", fmt="%.10g")
     rec = read_recording(path)
-    np.testing.assert_allclose(rec.sweeps[0].voltage_mv, v, rtol=1e-9)
-    assert rec.problems == [
-        f"{path}, sweep 0: 1 more voltage column was not measured (cell_b_mV); only the first, "
-        "cell_a_mV, was. Split the columns into files of their own to measure them"]
+    assert rec.problems == [] and rec.electrodes() == ["cell_a", "cell_b"]
+    a, b = rec.sweeps
+    np.testing.assert_allclose(a.voltage_mv, v, rtol=1e-9)
+    np.testing.assert_allclose(b.voltage_mv, v - 5.0, rtol=1e-9)
+    np.testing.assert_allclose(a.command_pa, i, rtol=1e-9)
+    np.testing.assert_allclose(b.command_pa, 3 * i, rtol=1e-9)
+    assert [c.role for c in rec.channels] == ["time", "voltage", "command", "voltage",
+                                              "command"]
+
+
+def test_one_voltage_column_keeps_an_empty_electrode(tmp_path):
+    (v, i), = _sweeps(1)
+    rec = read_recording(write_text(tmp_path / "cell.txt", v, i, rate_hz=RATE))
+    assert rec.electrodes() == [""]
 
 
 # ------------------------------------------------------------------ text files: what is wrong
@@ -558,7 +572,9 @@ def test_other_formats_are_size_checked_before_loading(tmp_path, example_reader_
     path = tmp_path / "cell.fake"
     path.write_text("placeholder")
     rec = read_recording(path, shown_as="cell.fake")
-    assert len(rec.sweeps) == 2 and rec.sweeps[0].n_samples == 100_000
+    # one cell per voltage channel, each with the two segments as its sweeps
+    assert len(rec.electrodes()) > 1 and {s.n_samples for s in rec.sweeps} == {100_000}
+    assert all([s.index for s in rec.sweeps_of(e)] == [0, 1] for e in rec.electrodes())
     with pytest.raises(UnreadableInputError,
                        match=r"^cell\.fake, sweep 0: the file declares 800,000 samples for "
                              r"this sweep, more than max_sweep_samples \(500,000\); it was "

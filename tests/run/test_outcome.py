@@ -18,7 +18,7 @@ def _sweeps(values: dict) -> ColumnTable:
     table = {c.name: [] for c in SWEEP_COLUMNS}
     n = len(next(iter(values.values())))
     for c in SWEEP_COLUMNS:
-        table[c.name] = values.get(c.name, ["" if c.name in ("file", "flags") else float("nan")]
+        table[c.name] = values.get(c.name, ["" if c.name in ("file", "electrode", "flags") else float("nan")]
                                    * n)
     return ColumnTable.from_lists(table, SWEEP_COLUMNS)
 
@@ -91,7 +91,7 @@ class TestKeptData:
 
     def test_a_file_outcome_round_trips(self):
         outcome = FileOutcome("a.nix", sweeps=_sweeps({"file": ["a.nix"], "sweep": [0]}),
-                              failures=[{"file": "a.nix", "stage": "sweep 1",
+                              failures=[{"file": "a.nix", "electrode": "", "stage": "sweep 1",
                                          "message": "a.nix, sweep 1: too short"}],
                               sweep_count=2, sweeps_measured=1, spike_flags={"clipped_peak": 2},
                               format="NIX")

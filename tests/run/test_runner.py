@@ -371,7 +371,8 @@ def test_names_like_formulas_are_escaped_and_matched_by_check(tmp_path, monkeypa
     assert first.exit_code == 1  # the empty file
     cells = (out / "cells.csv").read_text().splitlines()
     assert [line.split(",")[0] for line in cells[1:]] == ['"\'+cell.nix"', '"\'=cell.nix"']
-    assert all(line.split(",")[2].startswith("-") for line in cells[1:])  # numbers as they are
+    assert all(line.split(",")[1] == "" for line in cells[1:])  # one cell per file: no electrode
+    assert all(line.split(",")[3].startswith("-") for line in cells[1:])  # numbers as they are
     for table in ("spikes.csv", "sweeps.csv"):
         assert {line.split(",")[0] for line in (out / table).read_text().splitlines()[1:]} \
             == {'"\'+cell.nix"', '"\'=cell.nix"'}
@@ -406,19 +407,20 @@ def test_text_cells_escaped_numbers_not_and_read_back_by_csv(tmp_path):
         assert unescape_csv_text(escape_csv_text(t)) == t
     assert escape_csv_text("'plain") == "'plain"  # a quote before ordinary text stays as is
     path = write_rows_csv(tmp_path / "errors.csv", ERROR_COLUMNS,
-                          [[t, "sweep 1", f"{t}: -55.2 mV"] for t in texts])
+                          [[t, t, "sweep 1", f"{t}: -55.2 mV"] for t in texts])
     with open(path, newline="", encoding="utf-8") as fh:
         rows = list(csv.reader(fh))[1:]
     for t, row in zip(texts, rows):
-        assert row[0] == escape_csv_text(t) and row[0][:1] not in ("=", "+", "-", "@", "\t",
+        for cell in row[:2]:  # the file and the electrode, both text from outside
+            assert cell == escape_csv_text(t) and cell[:1] not in ("=", "+", "-", "@", "\t",
                                                                    "\r")
     lines = path.read_text().split("\n")
-    assert lines[1] == "\"'=1+1\",sweep 1,\"'=1+1: -55.2 mV\""
+    assert lines[1] == "\"'=1+1\",\"'=1+1\",sweep 1,\"'=1+1: -55.2 mV\""
     # a number in a numeric column is never changed
     from spikemeasure.columns import CELL_COLUMNS
-    row = ["=c.nix"] + ["-55.2"] * (len(CELL_COLUMNS) - 1)
+    row = ["=c.nix", "-e"] + ["-55.2"] * (len(CELL_COLUMNS) - 2)
     cells = write_rows_csv(tmp_path / "cells.csv", CELL_COLUMNS, [row]).read_text()
-    assert cells.splitlines()[1].startswith("\"'=c.nix\",-55.2,-55.2")
+    assert cells.splitlines()[1].startswith("\"'=c.nix\",\"'-e\",-55.2,-55.2")
 
 
 def _wait_for(condition, limit_s: float = 120.0) -> bool:

@@ -20,10 +20,10 @@ ADDED = "peak_to_trough_ms"
 
 #: Columns added to each table since the pins below.
 ADDED_COLUMNS = {
-    "spikes.csv": ("peak_to_trough_ms",),
-    "sweeps.csv": ("stimulus_shape", "test_pulse_pa", "ramp_rate_pa_per_s",
+    "spikes.csv": ("peak_to_trough_ms", "electrode"),
+    "sweeps.csv": ("electrode", "stimulus_shape", "test_pulse_pa", "ramp_rate_pa_per_s",
                    "first_spike_current_pa"),
-    "cells.csv": ("ramp_rheobase_pa",),
+    "cells.csv": ("electrode", "ramp_rheobase_pa"),
 }
 
 BEFORE_THE_COLUMN = {
