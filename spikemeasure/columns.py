@@ -15,7 +15,7 @@ from typing import Any, Callable
 import numpy as np
 
 from .analysis.detection import DetectionSettings, smoothing_window_samples
-from .analysis.bridge import EDGE_FIT_MS, SETTLE_MS
+from .analysis.bridge import CHARGING_FIT_MS, EDGE_FIT_MS, SETTLE_MS
 from .analysis.cell_features import (CELL_FLAG_TEXT, END_FRACTION, HOLDING_TOLERANCE_PA,
                             MAX_RESIDUAL_TO_NOISE, MIN_DEFLECTION_TO_NOISE, NOISE_FLOOR_MV,
                             SAG_NOISE_FACTOR, SLOW_SWEEP_MAX_RISE_MV, TAU_SMOOTHING_MS)
@@ -265,11 +265,15 @@ CELL_COLUMNS: tuple[Column, ...] = (
            "(`slow_sweeps_taken_as_spike_free`).", 3),
     Column("bridge_error_mohm", "MOhm", "Uncompensated electrode (series) resistance: the "
            "median over the sweeps of input_resistance_mohm (those without gaps) of the "
-           "instantaneous voltage jump at the step's edges over the current change there, "
-           "averaged over onset and offset. The jump is the charging curve after the edge "
+           "instantaneous voltage jump at the step's onset over the step size (the offset, "
+           "often followed by a rebound, is not used). The jump is the charging curve after "
+           "the onset "
            f"(one exponential fitted from {SETTLE_MS:g} ms, past the filter's settling, to "
-           f"{SETTLE_MS + EDGE_FIT_MS:g} ms) extrapolated back to the edge, minus a straight "
-           f"line over the {EDGE_FIT_MS:g} ms before it. input_resistance_mohm includes it.",
+           f"{SETTLE_MS + EDGE_FIT_MS:g} ms, with the time constant of the charging over up to "
+           f"{CHARGING_FIT_MS:g} ms) extrapolated back to the onset, minus a straight "
+           f"line over the {EDGE_FIT_MS:g} ms before it. Empty, flagged "
+           "`bridge_error_not_separable`, when the charging is too fast to tell from the "
+           "jump. input_resistance_mohm includes it.",
            3),
     Column("membrane_tau_ms", "ms", "Time constant of a single exponential fitted "
            "(scipy.optimize.curve_fit) to the voltage from onset to its minimum (on a "

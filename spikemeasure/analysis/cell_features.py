@@ -13,7 +13,7 @@ import numpy as np
 from scipy.ndimage import uniform_filter1d
 from scipy.optimize import OptimizeWarning, curve_fit
 
-from .bridge import SETTLE_MS, bridge_error
+from .bridge import MIN_TAU_TO_SETTLE, SETTLE_MS, bridge_error
 from .sweep_features import BASELINE_WINDOW_MS, MIN_WINDOW_MS
 
 __all__ = ["CellFeatures", "ExponentialFit", "fit_membrane_tau", "rheobase", "fi_slope",
@@ -105,6 +105,10 @@ CELL_FLAG_TEXT = {
                     "times the recording noise (the response is not one exponential), or the "
                     f"deflection is under {MIN_DEFLECTION_TO_NOISE:g} times the noise: the "
                     "time constant is left empty",
+    "bridge_error_not_separable": "the membrane charges too fast after the step edges (time "
+                                  f"constant under {MIN_TAU_TO_SETTLE * SETTLE_MS:g} ms) to "
+                                  "tell an electrode's voltage jump from the charging: "
+                                  "bridge_error_mohm is empty",
     "baseline_fluctuates": "the baseline's slow fluctuation (SD of its "
                            f"{TAU_SMOOTHING_MS:g} ms moving average over the "
                            f"{BASELINE_WINDOW_MS:g} ms before the step) exceeds "
@@ -475,6 +479,8 @@ def _passive_values(col: dict, slow: np.ndarray, lower: np.ndarray, gapped: np.n
     if not np.isfinite(values["input_resistance_mohm"]):
         flags.append("too_few_passive_sweeps")
     values["bridge_error_mohm"] = _bridge_median(col, passive[~gapped[passive]], traces)
+    if passive[~gapped[passive]].size and not np.isfinite(values["bridge_error_mohm"]):
+        flags.append("bridge_error_not_separable")
     hyper = np.flatnonzero(hyper_all)
     if hyper.size == 0:
         flags.append("no_hyperpolarizing_step")

@@ -37,6 +37,14 @@ class TestQualityRules:
         assert failing(report).get(name) == {BROKEN[name]}, [
             f.message for f in report.findings if f.file == name]
 
+    def test_bridge_error_is_the_resistance_added(self, lab):
+        # source: Ohm's law, the 30 MOhm x command current added to unbalanced.nwb
+        report = check_run(lab / "all", CheckSettings(quality=LIMITS, compare=False))
+        found = [f for f in report.findings if f.file == "unbalanced.nwb"]
+        assert [f.column for f in found] == ["bridge_error_mohm"]
+        assert float(found[0].value) == pytest.approx(30.0, abs=2.0)
+        assert "at most 10 MOhm" in found[0].message
+
     def test_messages_name_file_sweep_rule_and_values(self, lab):
         report = check_run(lab / "all", CheckSettings(quality=LIMITS, compare=False))
         by = {(f.file, f.check): f for f in report.findings}
