@@ -24,6 +24,10 @@ class TestQualityRules:
     def test_sample_cells_and_the_good_cell_pass_every_rule(self, lab):
         report = check_run(lab / "all", CheckSettings(quality=LIMITS, compare=False))
         bad = failing(report)
+        # the squid-axon model's membrane charges within about 1 ms (Hodgkin & Huxley 1952):
+        # its bridge error cannot be told from the charging (bridge_error_not_separable),
+        # and a limit on an empty value fails, since it cannot be checked
+        assert bad.pop("region_b_cell_2.nix") == {"max_bridge_error_mohm"}
         for name in ["good.nwb"] + [p.name for p in SAMPLE.iterdir() if p.suffix in
                                     (".nwb", ".nix")]:
             assert name not in bad, (name, [f.message for f in report.findings
