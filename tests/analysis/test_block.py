@@ -58,8 +58,10 @@ class TestDepolarizationBlock:
         assert FULL_SPIKE_PEAK_MV == 0.0
 
     def test_a_pause_shorter_than_the_minimum_is_not_block(self):
-        # 2 ms intervals, then half the minimum silence (over 10 intervals) to the end
-        times = np.arange(ONSET, OFFSET - 0.5 * BLOCK_MIN_SILENCE_MS * 1e-3, 0.002)
+        # 1 ms intervals, then 15 ms of silence to the end: over 10 intervals, under the
+        # minimum silence
+        times = np.arange(ONSET, OFFSET - 0.015, 0.001)
+        assert 15.0 < BLOCK_MIN_SILENCE_MS
         found = depolarization_block(train(times), RATE, times, ONSET, OFFSET)
         assert found.silence_ms > 10 * found.last_isi_ms and not found.blocked
 
