@@ -14,13 +14,14 @@ from scipy.ndimage import uniform_filter1d
 from scipy.optimize import OptimizeWarning, curve_fit
 
 from .bridge import MIN_TAU_TO_SETTLE, SETTLE_MS, bridge_error
+from .fluctuation import slow_fluctuation_mv
 from .sweep_features import BASELINE_WINDOW_MS, MIN_WINDOW_MS
 
 __all__ = ["CellFeatures", "ExponentialFit", "fit_membrane_tau", "rheobase", "fi_slope",
            "input_resistance", "cell_features", "passive_sweeps", "CELL_FLAG_TEXT", "MAX_RESIDUAL_TO_NOISE",
            "MIN_DEFLECTION_TO_NOISE", "NOISE_FLOOR_MV", "END_FRACTION", "TAU_SMOOTHING_MS",
            "HOLDING_TOLERANCE_PA", "SLOW_SWEEP_MAX_RISE_MV", "MAX_FLUCTUATION_TO_DEFLECTION",
-           "SAG_NOISE_FACTOR", "slow_fluctuation_mv"]
+           "SAG_NOISE_FACTOR"]
 
 #: A time-constant fit is poor when its residual RMS exceeds this multiple of the sweep's
 #: baseline noise (the response is not one exponential: resonance, sag, active currents) ...
@@ -244,38 +245,6 @@ def fit_membrane_tau(voltage_mv: np.ndarray, sampling_rate_hz: float, onset_s: f
     r2 = 1.0 - float(np.sum(residual ** 2)) / total if total > 0 else float("nan")
     rms = float(np.sqrt(np.mean(residual ** 2)))
     return ExponentialFit(tau, v_inf + delta, v_inf, r2, rms, int(y.size))
-
-
-def slow_fluctuation_mv(voltage_mv: np.ndarray, sampling_rate_hz: float, onset_s: float,
-                        smooth_ms: float, window_ms: float = BASELINE_WINDOW_MS) -> float:
-    """Standard deviation (ddof=0) of the voltage's `smooth_ms` moving average over the
-    `window_ms` before `onset_s`: the fluctuation left once fast measurement noise is
-    averaged out (synaptic background, hum). NaN without a finite baseline stretch.
-
-    Parameters
-    ----------
-    voltage_mv : ndarray
-        Voltage, mV.
-    sampling_rate_hz : float
-    onset_s : float
-        Step onset, s from the first sample.
-    smooth_ms, window_ms : float
-        Width of the moving average, length of the window.
-
-    Returns
-    -------
-    float
-        mV.
-    """
-    rate = float(sampling_rate_hz)
-    stop = int(round(onset_s * rate))
-    part = np.asarray(voltage_mv[max(0, stop - int(round(window_ms * 1e-3 * rate))):stop],
-                      dtype=float)
-    if part.size < 2 or not np.isfinite(part).all():
-        return float("nan")
-    width = max(1, int(round(smooth_ms * 1e-3 * rate)))
-    smooth = uniform_filter1d(part, size=min(width, part.size), mode="nearest")
-    return float(np.std(smooth))
 
 
 def rheobase(stimulus_pa: np.ndarray, spike_count: np.ndarray,

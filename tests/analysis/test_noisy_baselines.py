@@ -14,6 +14,8 @@ import numpy as np
 import pytest
 
 from spikemeasure.analysis.cell_features import MAX_FLUCTUATION_TO_DEFLECTION
+from spikemeasure.analysis.fluctuation import slow_fluctuation_mv
+from spikemeasure.errors import InvalidSettingError
 from spikemeasure.io import Recording, Sweep
 from spikemeasure.tables.build import cell_summary, measure_recording
 from spikemeasure.testing.acquisition import record_commands
@@ -41,6 +43,34 @@ def noise_free_sag(membrane_mv, rate):
     step = membrane_mv[int(ONSET * rate):int(OFFSET * rate)]
     steady = step[-int(0.1 * rate):].mean()
     return (steady - step.min()) / (base - step.min())
+
+
+class TestSlowFluctuation:
+    RATE = 20_000.0
+
+    def test_white_noise_is_averaged_down(self):
+        # source: the SD of a mean of n independent samples is SD / sqrt(n) (n = 20 in 1 ms)
+        v = np.random.default_rng(0).normal(-70.0, 1.0, int(2.0 * self.RATE))
+        found = slow_fluctuation_mv(v, self.RATE, 2.0, 1.0, window_ms=2000.0)
+        assert found == pytest.approx(1.0 / np.sqrt(20.0), rel=0.05)
+
+    def test_hum_keeps_its_size(self):
+        # source: a sine of amplitude A has SD A / sqrt(2); a 1 ms average barely damps
+        # 50 Hz (sinc(0.05) = 0.996)
+        t = np.arange(int(0.2 * self.RATE)) / self.RATE
+        v = -70.0 + 0.3 * np.sin(2 * np.pi * 50.0 * t)
+        found = slow_fluctuation_mv(v, self.RATE, 0.2, 1.0, window_ms=200.0)
+        assert found == pytest.approx(0.3 / np.sqrt(2.0) * np.sinc(0.05), rel=0.01)
+
+    def test_gap_or_no_baseline_gives_nan_and_arguments_are_checked(self):
+        v = np.full(4000, -70.0)
+        v[100] = np.nan
+        assert np.isnan(slow_fluctuation_mv(v, self.RATE, 0.1, 1.0))
+        assert np.isnan(slow_fluctuation_mv(v, self.RATE, 0.0, 1.0))
+        with pytest.raises(InvalidSettingError, match="smooth_ms"):
+            slow_fluctuation_mv(v, self.RATE, 0.1, 0.0)
+        with pytest.raises(InvalidSettingError, match="sampling_rate_hz"):
+            slow_fluctuation_mv(v, 0.0, 0.1, 1.0)
 
 
 class TestSynapticBackground:
