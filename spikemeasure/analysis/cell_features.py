@@ -110,12 +110,13 @@ CELL_FLAG_TEXT = {
                                   f"constant under {MIN_TAU_TO_SETTLE * SETTLE_MS:g} ms) to "
                                   "tell an electrode's voltage jump from the charging: "
                                   "bridge_error_mohm is empty",
-    "baseline_fluctuates": "the baseline's slow fluctuation (SD of its "
+    "baseline_fluctuates": "the baseline fluctuates (synaptic background): the SD of its "
                            f"{TAU_SMOOTHING_MS:g} ms moving average over the "
-                           f"{BASELINE_WINDOW_MS:g} ms before the step) exceeds "
-                           f"{MAX_FLUCTUATION_TO_DEFLECTION:g} of the deflection fitted "
-                           "(synaptic background): one exponential means nothing there, so "
-                           "the time constant is left empty",
+                           f"{BASELINE_WINDOW_MS:g} ms before the step exceeds "
+                           f"{MAX_FLUCTUATION_TO_DEFLECTION:g} of the deflection "
+                           "(baseline_mv - min_mv, or the fitted one when smaller), "
+                           "where one exponential means nothing, so the time constant is "
+                           "left empty",
     "sag_within_noise": "the sag of the most hyperpolarizing sweep (steady_state_mv - "
                         f"min_mv) is not over {SAG_NOISE_FACTOR:g} times the baseline's slow "
                         f"fluctuation (SD of its {MIN_WINDOW_MS:g} ms moving average) plus "
@@ -521,9 +522,12 @@ def _tau_value(col: dict, j: int, traces: list[tuple[np.ndarray, float]], values
     values["membrane_tau_residual_to_noise"] = ratio
     deflection = abs(fit.v0_mv - fit.v_inf_mv)
     fluctuation = slow_fluctuation_mv(v, rate, onset, TAU_SMOOTHING_MS)
+    # the deflection as measured, not as fitted: a fit bent by fluctuations can put v0 and
+    # v_inf anywhere
+    measured = min(deflection, abs(col["min_mv"][j] - col["baseline_mv"][j]))
     if ratio > MAX_RESIDUAL_TO_NOISE or deflection < MIN_DEFLECTION_TO_NOISE * noise:
         flags.append("tau_fit_poor")
-    elif np.isfinite(fluctuation) and fluctuation > MAX_FLUCTUATION_TO_DEFLECTION * deflection:
+    elif np.isfinite(fluctuation) and fluctuation > MAX_FLUCTUATION_TO_DEFLECTION * measured:
         flags.append("baseline_fluctuates")
     else:
         values["membrane_tau_ms"] = fit.tau_ms
@@ -568,7 +572,8 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
       :data:`NOISE_FLOOR_MV`). R^2 alone would reject good fits to small, noisy deflections,
       since noise caps it. Empty too (flag ``baseline_fluctuates``) when the baseline's slow
       fluctuation (:func:`slow_fluctuation_mv`, :data:`TAU_SMOOTHING_MS` average) exceeds
-      :data:`MAX_FLUCTUATION_TO_DEFLECTION` of the deflection. When bridge_error_mohm times
+      :data:`MAX_FLUCTUATION_TO_DEFLECTION` of the deflection (baseline_mv - min_mv, or the
+      fitted v0 - v_inf when smaller). When bridge_error_mohm times
       that sweep's step is over its noise, the first
       :data:`~spikemeasure.analysis.bridge.SETTLE_MS` (the jump and the filter's settling)
       are left out of the fit.

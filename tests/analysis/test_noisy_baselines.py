@@ -86,6 +86,16 @@ class TestSynapticBackground:
         assert np.isnan(cell.membrane_tau_ms)
         assert {"baseline_fluctuates", "tau_fit_poor"} & set(cell.flags)
 
+    def test_a_fit_bent_by_the_background_is_not_reported(self):
+        # on a -10 pA step (about 2.6 mV) the background can bend the fit into a nearly
+        # straight line with an enormous time constant and a deflection to match
+        sim, _, cell = recorded("cortical_adapting", (-70.0, -50.0, -30.0, -10.0, 100.0),
+                                noise_mv=0.1, synaptic_sd_pa=18.0, seed=0)
+        before = sim.membrane_mv[:, :int(ONSET * sim.sampling_rate_hz)]
+        assert 1.5 <= before.std() <= 3.0
+        assert np.isnan(cell.membrane_tau_ms)
+        assert {"baseline_fluctuates", "tau_fit_poor"} & set(cell.flags)
+
     def test_fluctuation_flags_what_the_residual_test_passes(self):
         # larger steps: deflections well over 5 times the baseline SD
         sim, _, cell = recorded("cortical_adapting", (-150.0, -120.0, -100.0, -80.0),
