@@ -105,10 +105,10 @@ def depolarization_block(voltage_mv: np.ndarray, sampling_rate_hz: float,
     A rule of our own (common practice in spirit: block is named when a cell firing fast
     stops making full, overshooting spikes under a current it should answer with more
     firing). Only full spikes count: those whose peak, the largest sample within
-    :data:`PEAK_SEARCH_MS` after the spike's time (or up to the next spike), reaches :data:`FULL_SPIKE_PEAK_MV` (an
-    overshooting action potential [1]_), since near block the spikes shrink into
-    oscillations that a derivative detector still counts. With at least 2 full spikes in
-    the step, block is found when the mean of their last up to
+    :data:`PEAK_SEARCH_MS` after the spike's time (or up to the next spike), reaches
+    :data:`FULL_SPIKE_PEAK_MV` (an overshooting action potential [1]_), since near block
+    the spikes shrink into oscillations that a derivative detector still counts. With at
+    least 2 full spikes in the step, block is found when the mean of their last up to
     :data:`BLOCK_LAST_INTERVALS` intervals is under `max_isi_ms` and no full spike follows
     for the rest of the step, a stretch at least `silence_to_isi` of those intervals and at
     least `min_silence_ms` long. An adapting cell whose intervals lengthen before it falls

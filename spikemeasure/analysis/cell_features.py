@@ -571,18 +571,19 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
       :data:`MIN_DEFLECTION_TO_NOISE` times it (noise taken as at least
       :data:`NOISE_FLOOR_MV`). R^2 alone would reject good fits to small, noisy deflections,
       since noise caps it. Empty too (flag ``baseline_fluctuates``) when the baseline's slow
-      fluctuation (:func:`slow_fluctuation_mv`, :data:`TAU_SMOOTHING_MS` average) exceeds
-      :data:`MAX_FLUCTUATION_TO_DEFLECTION` of the deflection (baseline_mv - min_mv, or the
-      fitted v0 - v_inf when smaller). When bridge_error_mohm times
-      that sweep's step is over its noise, the first
+      fluctuation (:func:`~spikemeasure.analysis.fluctuation.slow_fluctuation_mv` over a
+      :data:`TAU_SMOOTHING_MS` average) exceeds :data:`MAX_FLUCTUATION_TO_DEFLECTION` of the
+      deflection (baseline_mv - min_mv, or the fitted v0 - v_inf when smaller). When
+      bridge_error_mohm times that sweep's step is over its noise, the first
       :data:`~spikemeasure.analysis.bridge.SETTLE_MS` (the jump and the filter's settling)
       are left out of the fit.
-    - sag_fraction: that of the most hyperpolarizing sweep; 0 (flag ``sag_within_noise``:
-      a sag the trace cannot tell from noise is, to its resolution, no sag, and a cell
-      without one keeps its place among cells compared by sag) when its steady_state_mv - min_mv is not over
-      :data:`SAG_NOISE_FACTOR` times the baseline's slow fluctuation
-      (:func:`slow_fluctuation_mv`, :data:`~spikemeasure.analysis.sweep_features.MIN_WINDOW_MS`
-      average) plus the sweep's abs(baseline_drift_mv).
+    - sag_fraction: that of the most hyperpolarizing sweep; 0 (flag ``sag_within_noise``)
+      when its steady_state_mv - min_mv is not over :data:`SAG_NOISE_FACTOR` times the
+      baseline's slow fluctuation
+      (:func:`~spikemeasure.analysis.fluctuation.slow_fluctuation_mv` over a
+      :data:`~spikemeasure.analysis.sweep_features.MIN_WINDOW_MS` average) plus the sweep's
+      abs(baseline_drift_mv): a sag the trace cannot tell from noise is, to its resolution,
+      no sag, and a cell without one keeps its place among cells compared by sag.
     - rheobase_*: threshold, amplitude, half-width and AHP depth of the rheobase sweep's first
       spike in the step.
 

@@ -11,7 +11,8 @@ import numpy as np
 from scipy.ndimage import uniform_filter1d
 
 from ..errors import InvalidSettingError
-from .block import BLOCK_MAX_ISI_MS, BLOCK_MIN_SILENCE_MS, BLOCK_SILENCE_TO_ISI, depolarization_block
+from .block import (BLOCK_MAX_ISI_MS, BLOCK_MIN_SILENCE_MS, BLOCK_SILENCE_TO_ISI,
+                    depolarization_block)
 from .sweeps import MIN_SAMPLING_RATE_HZ, CurrentStep, missing_stretches
 
 __all__ = ["SweepFeatures", "baseline", "baseline_drift", "firing", "adaptation_index",
