@@ -19,6 +19,8 @@ from .analysis.bridge import CHARGING_FIT_MS, EDGE_FIT_MS, SETTLE_MS
 from .analysis.cell_features import (CELL_FLAG_TEXT, END_FRACTION, HOLDING_TOLERANCE_PA,
                             MAX_RESIDUAL_TO_NOISE, MIN_DEFLECTION_TO_NOISE, NOISE_FLOOR_MV,
                             SAG_NOISE_FACTOR, SLOW_SWEEP_MAX_RISE_MV, TAU_SMOOTHING_MS)
+from .analysis.epochs import (MAX_EDGE_MS, MIN_LEVEL_CHANGE_PA, NOISE_MULTIPLE,
+                              RESIDUAL_WINDOW_MS)
 from .analysis.spike_features import SECOND_DERIVATIVE_LOOKBACK_MS
 from .analysis.sweeps import COMMAND_MEDIAN_SAMPLES
 from .analysis.spikes import CLIPPED_RUN_SAMPLES, FLAG_TEXT, PIECE_SAMPLES
@@ -187,17 +189,31 @@ SWEEP_COLUMNS: tuple[Column, ...] = (
     _FILE,
     Column("sweep", "", "0-based sweep index in file order."),
     Column("stimulus_pa", "pA", "Step size: the mean command current during the step minus the "
-           "mean before it (0 for a sweep of a step series whose command has no step; from "
-           "`--step-sizes` when the file has no command channel).", 2),
-    Column("holding_pa", "pA", "Mean command current before the step.", 2),
-    Column("stimulus_start_s", "s", "Step onset: the first sample of the step, from the command "
-           "channel (the half-way level between holding and step, after a "
-           f"{COMMAND_MEDIAN_SAMPLES}-sample running median), or `--step`.", 6, is_time=True),
-    Column("stimulus_end_s", "s", "Step offset: the first sample after the step.", 6,
-           is_time=True),
+           "holding current (0 for a sweep of a step series whose command has no step; from "
+           "`--step-sizes` when the file has no command channel). For a ramp, its fitted "
+           "current at its end minus holding; for another shape, the mean command over it "
+           "minus holding.", 2),
+    Column("holding_pa", "pA", "Mean command current at holding before the main stimulus (see "
+           "*Stimulus epochs*), never across a test pulse.", 2),
+    Column("stimulus_start_s", "s", "Onset of the main stimulus (a ramp's start): the first "
+           "sample of its first epoch, from the command channel (see *Stimulus epochs*; a "
+           f"{COMMAND_MEDIAN_SAMPLES}-sample running median removes isolated noise samples "
+           "first), or `--step`.", 6, is_time=True),
+    Column("stimulus_end_s", "s", "Offset of the main stimulus (a ramp's end): the first "
+           "sample after it.", 6, is_time=True),
+    Column("stimulus_shape", "", "The main stimulus: `step` (one constant level), `ramp` (one "
+           "linear ramp), `other` (any other run of epochs away from holding; still measured "
+           "for spikes), or `none` (the command never leaves holding, or the sweep has no "
+           "command and no `--step`)."),
+    Column("test_pulse_pa", "pA", "Size of a short pulse before the main stimulus: the mean "
+           "command over it minus holding_pa (the last single level away from holding before "
+           "the main stimulus). Empty when there is none.", 2),
+    Column("ramp_rate_pa_per_s", "pA/s", "Slope of the line fitted to the ramp. Empty unless "
+           "stimulus_shape is `ramp`.", 3),
     Column("baseline_mv", "mV", f"Mean voltage over the {BASELINE_WINDOW_MS:g} ms before onset "
            "(all of it if "
-           "shorter).", 4),
+           "shorter), starting no earlier than the end of the epoch before the quiet stretch "
+           "(a test pulse; flag `baseline_window_cut_by_epoch`).", 4),
     Column("baseline_noise_mv", "mV", "Standard deviation (ddof=0) of the voltage over the same "
            "window.", 4),
     Column("spike_count", "", "Spikes whose threshold time lies in [stimulus_start_s, "
@@ -209,6 +225,11 @@ SWEEP_COLUMNS: tuple[Column, ...] = (
            "has no step).", 4),
     Column("first_spike_latency_ms", "ms", "First threshold time in the step minus onset "
            "(empty without a step).", 4),
+    Column("first_spike_current_pa", "pA", "The command current, holding included, at that "
+           "first spike's threshold time: holding_pa + stimulus_pa for a step, the ramp's "
+           "fitted line for a ramp, the command's nearest sample for another shape. Empty "
+           "when first_spike_latency_ms is, or when the holding current is unknown (no "
+           "command channel).", 2),
     Column("mean_isi_ms", "ms", "Mean interval between consecutive spikes inside the step (of "
            "the whole sweep when it has no step).", 4),
     Column("isi_cv", "", "Standard deviation (ddof=1) over mean of those intervals; needs at "
@@ -217,7 +238,7 @@ SWEEP_COLUMNS: tuple[Column, ...] = (
            "/ (ISI[k+1] + ISI[k]) (Druckmann et al. 2007); needs at least 2 intervals. Positive "
            "when firing slows during the step, near 0 for regular firing.", 5),
     Column("steady_state_mv", "mV", f"Mean voltage over the last {STEADY_STATE_WINDOW_MS:g} ms "
-           "of the step.", 4),
+           "of the step; empty for a ramp (flag `ramp_has_no_steady_state`).", 4),
     Column("min_mv", "mV", f"Minimum during the step of the voltage averaged over a sliding "
            f"{MIN_WINDOW_MS:g} ms window (so noise does not pull it down).", 4),
     Column("sag_fraction", "", "Hyperpolarizing steps only: (steady_state_mv - min_mv) / "
@@ -244,11 +265,16 @@ CELL_COLUMNS: tuple[Column, ...] = (
     Column("sweeps", "", "Sweeps measured."),
     Column("resting_mv", "mV", f"Median baseline_mv over sweeps whose holding current is within "
            f"{HOLDING_TOLERANCE_PA:g} pA of zero.", 4),
-    Column("rheobase_pa", "pA", "The smallest step (stimulus_pa) with at least one spike in it. "
+    Column("rheobase_pa", "pA", "The smallest step (stimulus_pa) with at least one spike in it; "
+           "this and the other step values (f-I slope, input resistance, time constant, sag) "
+           "use only sweeps whose stimulus_shape is `step`. "
            "It is known only to the protocol's resolution: see rheobase_resolution_pa. A "
            "smaller step whose spikes a gap may hide widens that resolution "
            "(`rheobase_skips_gap_sweeps`); one sampled too slowly to count spikes empties "
            "rheobase (`spikes_not_counted_in_slow_sweeps`).", 2),
+    Column("ramp_rheobase_pa", "pA", "The smallest first_spike_current_pa over the sweeps "
+           "whose stimulus is a ramp (flag `no_spiking_ramp` when ramps were measured and none "
+           "fired). Empty without ramps.", 2),
     Column("fi_slope_hz_per_pa", "Hz/pA", "Least-squares slope of firing_rate_hz on "
            "stimulus_pa over the steps at or above rheobase (at least 2) and below "
            "block_stimulus_pa.", 5),
@@ -357,6 +383,7 @@ def columns_markdown() -> str:
               "value is left to measure; otherwise the values whose windows stay clear of its "
               "gaps are measured as without them.", ""] + _flag_rows(SWEEP_FLAG_TEXT)
     lines += ["", "## Cell flags", ""] + _flag_rows(CELL_FLAG_TEXT)
+    lines += _stimulus_lines()
     lines += _detection_lines(DetectionSettings()) + _long_recording_lines()
     return "\n".join(lines)
 
@@ -406,6 +433,51 @@ def _introduction_lines() -> list[str]:
         "in the name, more than 120 characters), the first 8 hex digits of the name's "
         "SHA-256 follow a `-`, so every file has its own folder.",
         "",
+    ]
+
+
+def _stimulus_lines() -> list[str]:
+    """The stimulus epochs section of ``docs/measurements.md``."""
+    return [
+        "",
+        "## Stimulus epochs",
+        "",
+        "A sweep's command channel is cut into epochs, each a constant level or a linear "
+        f"ramp. A {COMMAND_MEDIAN_SAMPLES}-sample running median first removes isolated noise "
+        f"samples. The tolerance is {NOISE_MULTIPLE:g} times the command's noise SD (1.4826 "
+        "times the median absolute deviation of its sample-to-sample differences, over "
+        f"sqrt(2)), at least {MIN_LEVEL_CHANGE_PA:g} pA. A stretch is one epoch when its "
+        f"residual from a least-squares line, averaged over {RESIDUAL_WINDOW_MS:g} ms, stays "
+        "within half the tolerance; otherwise it is split where two separate lines fit best "
+        "(for a step, at its first sample) and each part tested again. A piece shorter than "
+        f"{MAX_EDGE_MS:g} ms between two epochs is the edge between them, cut at its first "
+        "sample past half-way. A level that a ramp leaves or reaches without a jump ends "
+        "where the ramp's fitted line meets it. An epoch whose fitted line changes by no more "
+        "than the tolerance is a level, otherwise a ramp. Missing command samples are left "
+        "out; a gap at the border between two epochs belongs to neither.",
+        "",
+        "The holding level is the level the sweep starts at; an epoch is at holding when it "
+        "is a level within the tolerance of it. A stimulus is a run of epochs away from "
+        "holding. The main stimulus, the one the sweep is measured over, is the longest "
+        "(of equally long ones, the later): a short pulse followed later by a longer stimulus "
+        "is a test pulse, whatever their sizes. holding_pa is the mean command over the "
+        "epochs at holding before the main stimulus (after it when none lies before), so "
+        "never across a pulse. A sweep whose only stimulus lies where the other sweeps of "
+        "its file have their test pulse has no stimulus of its own: like a 0 pA sweep, it "
+        "gets the window of the others' steps, with stimulus_pa 0.",
+        "",
+        "The baseline is measured over the quiet stretch: the epoch at holding that ends at "
+        f"the main stimulus's onset, its last {BASELINE_WINDOW_MS:g} ms. When less than that "
+        "is free because another epoch (a test pulse) ends closer to onset, the baseline is "
+        "the mean over the free stretch only, however short, and the sweep is flagged "
+        "`baseline_window_cut_by_epoch` (empty when nothing is free); when the sweep itself "
+        "starts less than that before onset, the baseline is all of the stretch before "
+        "onset, as without a test pulse.",
+        "",
+        "A ramp's spike count, firing rate and latency are counted from its start to its "
+        "end; first_spike_current_pa is read on its fitted line. Rheobase, f-I slope, input "
+        "resistance, time constant and sag use step sweeps only; ramp_rheobase_pa is the "
+        "smallest first_spike_current_pa over the ramps.",
     ]
 
 

@@ -5,7 +5,11 @@ import math
 from dataclasses import dataclass
 from pathlib import Path
 
+import numpy as np
+
 from .analysis.detection import DetectionSettings
+from .analysis.epochs import Epoch, Stimulus, main_stimulus
+from .analysis.sweeps import CurrentStep
 from .io import Recording, read_recording
 from .analysis.cell_features import CELL_FLAG_TEXT
 from .tables.build import SweepResult, cell_summary, measure_recording
@@ -96,10 +100,13 @@ def inspect_file(path: str, settings: DetectionSettings = DetectionSettings(), *
                                 "no command channel: give --step START END"
                                 if s.command_pa is None else "no current step")
         else:
+            if step.shape != "step":
+                note = f"{step.shape}, {note}" if note else step.shape
             hold, size = _fmt(step.holding_pa, "pA"), _fmt(step.size_pa, "pA")
             start, stop = _fmt(step.onset_s, "s", 3), _fmt(step.offset_s, "s", 3)
         lines.append(f"{s.index:>5}  {s.duration_s:>7.3f} s  {hold:>10}  {size:>10}  "
                      f"{start:>9}  {stop:>7}  {spikes:>6}  {note}")
+    lines += _epoch_lines(results)
     if recording.problems:
         lines += ["", "skipped:"] + [f"  {p}" for p in recording.problems]
     total = sum(len(r.spikes) for r in results if r.spikes is not None)
@@ -109,6 +116,64 @@ def inspect_file(path: str, settings: DetectionSettings = DetectionSettings(), *
     return Inspection("\n".join(lines), measured > 0, results, recording)
 
 
+#: At most this many epochs of a sweep are listed (an oscillating command has hundreds).
+MAX_EPOCHS_LISTED = 12
+
+
+def _pa(value: float) -> str:
+    text = f"{value:.1f}"
+    return "0.0" if text == "-0.0" else text
+
+
+def _epoch_text(epoch: Epoch, role: str) -> str:
+    span = f"{epoch.start_s:.3f}-{epoch.end_s:.3f} s"
+    if epoch.shape == "ramp":
+        what = (f"ramp {_pa(epoch.start_pa)} to {_pa(epoch.end_pa)} pA "
+                f"({_pa(epoch.rate_pa_per_s)} pA/s)")
+    else:
+        what = f"{_pa(epoch.mean_pa)} pA"
+    return f"{span} {what}" + (f" ({role})" if role else "")
+
+
+def _epoch_roles(found: Stimulus, step: CurrentStep | None) -> list[str]:
+    """'main' for the epochs of the stimulus the sweep was measured over, 'test pulse' for
+    its test pulse (a sweep's only pulse, where the protocol's other sweeps have theirs,
+    included)."""
+    roles = []
+    pulse_known = step is not None and np.isfinite(step.test_pulse_pa)
+    for k, e in enumerate(found.epochs.epochs):
+        if step is not None and step.onset_s <= e.start_s < step.offset_s:
+            roles.append("main")
+        elif pulse_known and (e.start_s == found.test_pulse_s[0]
+                              or found.main[0] <= k <= found.main[1]):
+            roles.append("test pulse")
+        else:
+            roles.append("")
+    return roles
+
+
+def _epoch_lines(results: list[SweepResult]) -> list[str]:
+    """Each sweep's command as epochs, the main stimulus and test pulse marked."""
+    lines = []
+    for r in results:
+        s = r.sweep
+        if s.command_pa is None or s.is_lazy or s.command_pa.size < 3:
+            continue
+        found = main_stimulus(np.asarray(s.command_pa, dtype=float), s.sampling_rate_hz)
+        roles = _epoch_roles(found, r.step)
+        texts = [_epoch_text(e, role) for e, role in zip(found.epochs.epochs, roles)]
+        if r.step is not None and "main" not in roles:
+            texts.append(f"no stimulus of its own: measured over {r.step.onset_s:.3f}-"
+                         f"{r.step.offset_s:.3f} s as a {_pa(r.step.size_pa)} pA step")
+        more = len(texts) - MAX_EPOCHS_LISTED
+        texts = texts[:MAX_EPOCHS_LISTED] + ([f"and {more} more"] if more > 0 else [])
+        shape = r.step.shape if r.step is not None else "none"
+        lines.append(f"  sweep {s.index}: {shape}; " + ", ".join(texts))
+    if not lines:
+        return []
+    return ["", "command epochs (levels and ramps; main stimulus and test pulse marked):"] + lines
+
+
 def _cell_lines(cell) -> list[str]:
     rheobase = _fmt(cell.rheobase_pa, "pA")
     if rheobase != "-" and cell.rheobase_resolution_pa == cell.rheobase_resolution_pa:
@@ -116,6 +181,7 @@ def _cell_lines(cell) -> list[str]:
     rows = [
         ("resting potential", _fmt(cell.resting_mv, "mV")),
         ("rheobase", rheobase),
+        ("ramp rheobase", _fmt(cell.ramp_rheobase_pa, "pA")),
         ("f-I slope", _fmt(cell.fi_slope_hz_per_pa, "Hz/pA", 3)),
         ("max firing rate", _fmt(cell.max_firing_rate_hz, "Hz")),
         ("input resistance", _fmt(cell.input_resistance_mohm, "MOhm")),

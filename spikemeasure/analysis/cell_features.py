@@ -17,8 +17,8 @@ from .bridge import MIN_TAU_TO_SETTLE, SETTLE_MS, bridge_error
 from .fluctuation import slow_fluctuation_mv
 from .sweep_features import BASELINE_WINDOW_MS, MIN_WINDOW_MS
 
-__all__ = ["CellFeatures", "ExponentialFit", "fit_membrane_tau", "rheobase", "fi_slope",
-           "input_resistance", "cell_features", "passive_sweeps", "CELL_FLAG_TEXT", "MAX_RESIDUAL_TO_NOISE",
+__all__ = ["CellFeatures", "ExponentialFit", "fit_membrane_tau", "rheobase", "ramp_rheobase",
+           "fi_slope", "input_resistance", "cell_features", "passive_sweeps", "CELL_FLAG_TEXT", "MAX_RESIDUAL_TO_NOISE",
            "MIN_DEFLECTION_TO_NOISE", "NOISE_FLOOR_MV", "END_FRACTION", "TAU_SMOOTHING_MS",
            "HOLDING_TOLERANCE_PA", "SLOW_SWEEP_MAX_RISE_MV", "MAX_FLUCTUATION_TO_DEFLECTION",
            "SAG_NOISE_FACTOR"]
@@ -102,6 +102,9 @@ CELL_FLAG_TEXT = {
     "sag_skips_gap_sweeps": "the most hyperpolarizing sweep has a gap in a window sag is "
                             "measured over: sag_fraction is that of the most hyperpolarizing "
                             "sweep without one",
+    "no_step_stimuli": "no sweep's stimulus is a step (only ramps or other shapes), so "
+                       "rheobase, f-I slope, input resistance, time constant and sag are empty",
+    "no_spiking_ramp": "ramp sweeps were measured but none fired: ramp_rheobase_pa is empty",
     "tau_fit_poor": f"the exponential fit leaves a residual over {MAX_RESIDUAL_TO_NOISE:g} "
                     "times the recording noise (the response is not one exponential), or the "
                     f"deflection is under {MIN_DEFLECTION_TO_NOISE:g} times the noise: the "
@@ -161,6 +164,8 @@ class CellFeatures:
     #: Position of the rheobase sweep among the sweeps given to :func:`cell_features` (-1
     #: without a rheobase); not a column of cells.csv.
     rheobase_sweep: int = -1
+    #: The smallest first_spike_current_pa over ramp sweeps (:func:`ramp_rheobase`).
+    ramp_rheobase_pa: float = float("nan")
 
     def as_dict(self) -> dict:
         out = asdict(self)
@@ -355,6 +360,7 @@ def passive_sweeps(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]
     col = {k: np.array([r[k] for r in sweep_rows], dtype=float) for k in
            ("stimulus_pa", "spike_count", "baseline_mv", "steady_state_mv", "stimulus_start_s",
             "stimulus_end_s")}
+    _steps_only(sweep_rows, col)
     flags = [set(filter(None, str(r.get("flags", "")).split(";"))) for r in sweep_rows]
     slow = np.array(["too_slow_for_spikes" in f for f in flags], dtype=bool)
     lower = np.array(["spike_count_lower_bound" in f for f in flags], dtype=bool)
@@ -372,6 +378,37 @@ def _before_block(col: dict, sweep_flags: list[set], values: dict) -> None:
         values["block_stimulus_pa"] = float(stim[blocked].min())
     after = stim >= values["block_stimulus_pa"]  # all False without block (NaN compares so)
     col["rate_before_block_hz"] = np.where(after, np.nan, col["firing_rate_hz"])
+
+
+def ramp_rheobase(shapes: list[str], first_spike_current_pa: np.ndarray) -> float:
+    """The smallest current at a first spike over the ramp sweeps.
+
+    Parameters
+    ----------
+    shapes : list of str
+        Each sweep's stimulus_shape.
+    first_spike_current_pa : ndarray
+        Each sweep's command current at its first spike in the stimulus (NaN without one).
+
+    Returns
+    -------
+    float
+        pA; NaN when no ramp sweep has a first spike.
+    """
+    current = np.asarray(first_spike_current_pa, dtype=float)
+    ramps = np.array([shape == "ramp" for shape in shapes], dtype=bool)
+    fired = current[ramps & np.isfinite(current)]
+    return float(fired.min()) if fired.size else float("nan")
+
+
+def _steps_only(sweep_rows: list[dict], col: dict) -> np.ndarray:
+    """Blank stimulus_pa of sweeps whose stimulus is not a step (a ramp, another shape), so
+    the step-only values leave them out; returns which sweeps are not steps."""
+    other = np.array([r.get("stimulus_shape", "step") not in ("step", "none")
+                      for r in sweep_rows], dtype=bool)
+    if other.size:
+        col["stimulus_pa"] = np.where(other, np.nan, col["stimulus_pa"])
+    return other
 
 
 def _resting(col: dict, sweep_flags: list[set], flags: list[str]) -> float:
@@ -612,8 +649,16 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
     col = {k: np.array([r[k] for r in sweep_rows], dtype=float) for k in
            ("stimulus_pa", "holding_pa", "baseline_mv", "baseline_noise_mv", "spike_count",
             "firing_rate_hz", "steady_state_mv", "sag_fraction", "stimulus_start_s",
-            "stimulus_end_s", "min_mv", "baseline_drift_mv")} if n else {}
+            "stimulus_end_s")} if n else {}
+    for k in ("min_mv", "baseline_drift_mv"):  # judge sag and tau against noise; optional
+        if n:
+            col[k] = np.array([r.get(k, nan) for r in sweep_rows], dtype=float)
     sweep_flags = [set(filter(None, str(r.get("flags", "")).split(";"))) for r in sweep_rows]
+    shapes = [str(r.get("stimulus_shape", "step")) for r in sweep_rows]
+    ramp_rb = ramp_rheobase(shapes, [r.get("first_spike_current_pa", nan) for r in sweep_rows])
+    if "ramp" in shapes and not np.isfinite(ramp_rb):
+        flags.append("no_spiking_ramp")
+    not_steps = _steps_only(sweep_rows, col) if n else np.zeros(0, dtype=bool)
     slow = np.array(["too_slow_for_spikes" in f for f in sweep_flags], dtype=bool)
     lower = np.array(["spike_count_lower_bound" in f for f in sweep_flags], dtype=bool)
     gapped = np.array([any(g in f for g in _GAP_FLAGS) for f in sweep_flags], dtype=bool)
@@ -632,9 +677,11 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
             flags.append("max_firing_rate_skips_gap_sweeps")
     if not n or not np.isfinite(col["stimulus_pa"]).any():
         if n:
-            flags.append("step_sizes_unknown" if np.isfinite(col["stimulus_start_s"]).any()
+            flags.append("no_step_stimuli" if not_steps.any() else
+                         "step_sizes_unknown" if np.isfinite(col["stimulus_start_s"]).any()
                          else "no_current_steps")
-        return CellFeatures(n, resting, flags=tuple(flags), **values)
+        return CellFeatures(n, resting, flags=tuple(flags), ramp_rheobase_pa=ramp_rb, **values)
     rheobase_sweep = _firing_values(col, slow, lower, first_spikes, values, flags)
     _passive_values(col, slow, lower, gapped, traces, values, flags)
-    return CellFeatures(n, resting, flags=tuple(flags), rheobase_sweep=rheobase_sweep, **values)
+    return CellFeatures(n, resting, flags=tuple(flags), rheobase_sweep=rheobase_sweep,
+                        ramp_rheobase_pa=ramp_rb, **values)

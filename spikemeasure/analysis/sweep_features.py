@@ -15,7 +15,7 @@ from .block import (BLOCK_MAX_ISI_MS, BLOCK_MIN_SILENCE_MS, BLOCK_SILENCE_TO_ISI
                     depolarization_block)
 from .sweeps import MIN_SAMPLING_RATE_HZ, CurrentStep, missing_stretches
 
-__all__ = ["SweepFeatures", "baseline", "baseline_drift", "firing", "adaptation_index",
+__all__ = ["SweepFeatures", "baseline", "first_spike_current", "baseline_drift", "firing", "adaptation_index",
            "passive_response", "sweep_features", "MIN_WINDOW_MS", "DRIFT_WINDOW_MS",
            "BASELINE_WINDOW_MS", "STEADY_STATE_WINDOW_MS", "SWEEP_FLAG_TEXT"]
 
@@ -67,6 +67,12 @@ SWEEP_FLAG_TEXT = {
                            "isi_cv, adaptation_index and clipped_spike_count are empty and "
                            "spikes.csv has no rows for the sweep; baseline, steady state, "
                            "minimum, sag and drift are measured",
+    "baseline_window_cut_by_epoch": "another epoch of the command (a test pulse) ends less "
+                                    f"than {BASELINE_WINDOW_MS:g} ms before the main stimulus: "
+                                    "baseline_mv and baseline_noise_mv are over the quiet "
+                                    "stretch between them only, empty when there is none",
+    "ramp_has_no_steady_state": "the main stimulus is a ramp, whose current never settles: "
+                                "steady_state_mv and sag_fraction are empty",
     "depolarization_block": "full (overshooting) spikes stopped before the end of the "
                             f"depolarizing step after intervals under {BLOCK_MAX_ISI_MS:g} "
                             "ms, with no full spike for at "
@@ -99,6 +105,10 @@ class SweepFeatures:
     baseline_drift_mv: float
     clipped_spike_count: int
     flags: tuple[str, ...] = ()
+    stimulus_shape: str = "none"
+    test_pulse_pa: float = float("nan")
+    ramp_rate_pa_per_s: float = float("nan")
+    first_spike_current_pa: float = float("nan")
 
     def as_dict(self) -> dict:
         out = asdict(self)
@@ -107,13 +117,17 @@ class SweepFeatures:
 
 
 def baseline(voltage_mv: np.ndarray, sampling_rate_hz: float, onset_s: float,
-             window_ms: float = BASELINE_WINDOW_MS) -> tuple[float, float]:
+             window_ms: float = BASELINE_WINDOW_MS, earliest_s: float = 0.0
+             ) -> tuple[float, float]:
     """Mean and standard deviation (ddof=0) of the voltage over `window_ms` before `onset_s`.
 
-    All of the pre-step stretch when it is shorter; (NaN, NaN) when there is none.
+    The window starts no earlier than `earliest_s` (the start of the quiet stretch before the
+    stimulus, after any test pulse): all of the stretch from there when it is shorter;
+    (NaN, NaN) when there is none.
     """
     stop = int(round(onset_s * sampling_rate_hz))
-    start = max(0, stop - int(round(window_ms * 1e-3 * sampling_rate_hz)))
+    start = max(0, int(round(earliest_s * sampling_rate_hz)),
+                stop - int(round(window_ms * 1e-3 * sampling_rate_hz)))
     if stop - start < 1:
         return float("nan"), float("nan")
     part = voltage_mv[start:stop]
@@ -270,7 +284,8 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
                    steady_window_ms: float = STEADY_STATE_WINDOW_MS,
                    clipped_spike_count: int = 0,
                    duration_s: float | None = None, gaps: np.ndarray | None = None,
-                   spikes_counted: bool | None = None) -> SweepFeatures:
+                   spikes_counted: bool | None = None,
+                   command_pa: np.ndarray | None = None) -> SweepFeatures:
     """All features of one sweep.
 
     Parameters
@@ -301,6 +316,9 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
         False when spikes could not be counted (a sweep sampled below
         :data:`~spikemeasure.analysis.sweeps.MIN_SAMPLING_RATE_HZ`); by default, whether the rate
         reaches it.
+    command_pa : ndarray, optional
+        The command current, for the current at the first spike when the stimulus is
+        neither a step nor a ramp (read at the nearest sample).
 
     Returns
     -------
@@ -315,6 +333,13 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
     interval statistics are NaN, as a gap may hide spikes and intervals, and the latency is
     kept only when the first spike precedes every gap in the step. Without the spikes
     (``spikes_counted`` false) every firing value and the clipped count are NaN.
+
+    The baseline window ends at onset and starts no earlier than the step's
+    ``baseline_start_s`` (flag ``baseline_window_cut_by_epoch`` when that shortens it). A
+    ramp's firing values count from its start; its steady state and sag are NaN (flag
+    ``ramp_has_no_steady_state``). The current at the first spike is the command at the
+    first spike's time in the stimulus (:meth:`CurrentStep.current_at`, or `command_pa`
+    for another shape).
     """
     if not (baseline_window_ms > 0 and steady_window_ms > 0):
         raise InvalidSettingError("`baseline_window_ms` and `steady_window_ms` must be positive")
@@ -368,7 +393,7 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
             flags=tuple(flags), **fire)
     onset_i = int(round(step.onset_s * rate))
     offset_i = min(voltage_mv.size, int(round(step.offset_s * rate)))
-    base_lo = max(0, onset_i - int(round(baseline_window_ms * 1e-3 * rate)))
+    base_lo = _baseline_first_sample(step, rate, baseline_window_ms, flags)
     if _touches(gaps, base_lo, onset_i):
         flags.append("gap_in_baseline_window")
     drift_lo = max(int(round(step.offset_s * rate)),
@@ -380,17 +405,80 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
     n_tail = max(1, int(round(steady_window_ms * 1e-3 * rate)))
     if _touches(gaps, max(onset_i, offset_i - n_tail), offset_i):
         flags.append("gap_in_steady_state_window")
-    base, noise = baseline(voltage_mv, sampling_rate_hz, step.onset_s, baseline_window_ms)
+    base, noise = baseline(voltage_mv, sampling_rate_hz, step.onset_s, baseline_window_ms,
+                           step.baseline_start_s)
     drift = baseline_drift(voltage_mv, sampling_rate_hz, step.offset_s, base)
     fire = fire_over(step, onset_i, offset_i)
-    if (spikes_counted and step.size_pa > 0 and "gap_in_step" not in flags
+    if (spikes_counted and step.shape == "step" and step.size_pa > 0
+            and "gap_in_step" not in flags
             and depolarization_block(voltage_mv, rate, times, step.onset_s,
                                      step.offset_s).blocked):
         flags.append("depolarization_block")
     steady, lowest, sag = passive_response(voltage_mv, sampling_rate_hz, step, base,
                                            steady_window_ms)
+    if step.shape == "ramp":
+        steady = sag = nan
+        flags.append("ramp_has_no_steady_state")
     return SweepFeatures(
         stimulus_pa=step.size_pa, holding_pa=step.holding_pa, stimulus_start_s=step.onset_s,
         stimulus_end_s=step.offset_s, baseline_mv=base, baseline_noise_mv=noise,
         steady_state_mv=steady, min_mv=lowest, sag_fraction=sag, sampling_rate_hz=rate,
-        baseline_drift_mv=drift, flags=tuple(flags), **fire)
+        baseline_drift_mv=drift, flags=tuple(flags),
+        **_stimulus_values(step, fire["first_spike_latency_ms"], rate, command_pa), **fire)
+
+
+def _baseline_first_sample(step: CurrentStep, rate: float, window_ms: float,
+                           flags: list[str]) -> int:
+    """First sample of the baseline window: `window_ms` before onset, but not before the
+    quiet stretch starts (flag ``baseline_window_cut_by_epoch`` when a test pulse cuts it)."""
+    first = max(0, int(round(step.onset_s * rate)) - int(round(window_ms * 1e-3 * rate)))
+    quiet = int(round(step.baseline_start_s * rate))
+    if quiet > first:
+        flags.append("baseline_window_cut_by_epoch")
+    return max(first, quiet)
+
+
+def _stimulus_values(step: CurrentStep, latency_ms: float, sampling_rate_hz: float,
+                     command_pa: np.ndarray | None) -> dict:
+    """The stimulus fields of :class:`SweepFeatures` beyond its size and times."""
+    return {"stimulus_shape": step.shape, "test_pulse_pa": step.test_pulse_pa,
+            "ramp_rate_pa_per_s": step.ramp_rate_pa_per_s,
+            "first_spike_current_pa": first_spike_current(step, latency_ms, sampling_rate_hz,
+                                                          command_pa)}
+
+
+def first_spike_current(step: CurrentStep, latency_ms: float, sampling_rate_hz: float,
+                        command_pa: np.ndarray | None = None) -> float:
+    """The command current (holding included) at the first spike in the stimulus.
+
+    Parameters
+    ----------
+    step : CurrentStep
+        The sweep's main stimulus.
+    latency_ms : float
+        First spike time in the stimulus minus onset (NaN without one).
+    sampling_rate_hz : float
+    command_pa : ndarray, optional
+        The command, read at the sample nearest the spike for a stimulus that is neither a
+        step nor a ramp.
+
+    Returns
+    -------
+    float
+        pA; NaN without a first spike, with an unknown holding current, or for another shape
+        without `command_pa`.
+
+    Notes
+    -----
+    A step's current is holding_pa + size_pa and a ramp's its fitted line
+    (:meth:`CurrentStep.current_at`): the epochs' fits, free of the command's noise.
+    """
+    if not np.isfinite(latency_ms):
+        return float("nan")
+    t = step.onset_s + latency_ms * 1e-3
+    if step.shape in ("step", "ramp"):
+        return float(step.current_at(t))
+    if command_pa is None:
+        return float("nan")
+    k = min(len(command_pa) - 1, int(round(t * sampling_rate_hz)))
+    return float(command_pa[k])

@@ -6,13 +6,13 @@ builds them from files; nothing here knows about file formats.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
-from scipy.ndimage import median_filter
 
 from ..errors import InvalidSettingError, UnmeasurableDataError
 from ..io.sweep import LazyTrace, Sweep
+from .epochs import EPOCH_MEDIAN_SAMPLES, Stimulus, find_epochs, main_stimulus
 
 __all__ = ["CurrentStep", "find_current_step", "step_from_times", "check_sweep",
            "parse_step_sizes", "protocol_steps", "COMMAND_MEDIAN_SAMPLES", "missing_stretches",
@@ -28,30 +28,47 @@ MIN_SAMPLING_RATE_HZ = 2_000.0
 MIN_FINITE_RUN_SAMPLES = 3
 
 #: Width of the running median that removes isolated noise samples from a recorded command
-#: before its step is found.
-COMMAND_MEDIAN_SAMPLES = 5
+#: before its step is found (the epochs' running median).
+COMMAND_MEDIAN_SAMPLES = EPOCH_MEDIAN_SAMPLES
 
 
 @dataclass(frozen=True)
 class CurrentStep:
-    """A rectangular current step within a sweep.
+    """The main stimulus of a sweep: a rectangular current step, a ramp, or another shape.
 
     Attributes
     ----------
     onset_s, offset_s : float
-        Step start and end, seconds from the sweep's first sample (offset is the first sample
-        back at the holding level).
+        Stimulus start and end, seconds from the sweep's first sample (offset is the first
+        sample after it); a ramp's start and end.
     size_pa : float
         Step current relative to the holding current, in pA; NaN when unknown (the step was
-        given as times on the command line and the file has no command channel).
+        given as times on the command line and the file has no command channel). A ramp's
+        fitted current at its end (offset_s) relative to holding; for another shape, the mean
+        command over it relative to holding.
     holding_pa : float
-        Current before the step, in pA; NaN when unknown.
+        Current at holding before the stimulus (never across a test pulse), in pA; NaN when
+        unknown.
+    shape : str
+        ``"step"``, ``"ramp"`` or ``"other"`` (see
+        :func:`~spikemeasure.analysis.epochs.main_stimulus`).
+    test_pulse_pa : float
+        Size of a short pulse before the stimulus, relative to holding; NaN when none.
+    ramp_rate_pa_per_s : float
+        A ramp's slope; NaN for other shapes.
+    baseline_start_s : float
+        Start of the quiet stretch before onset that the baseline may use (the end of a test
+        pulse, or 0 when the sweep is at holding from its start).
     """
 
     onset_s: float
     offset_s: float
     size_pa: float = float("nan")
     holding_pa: float = float("nan")
+    shape: str = "step"
+    test_pulse_pa: float = float("nan")
+    ramp_rate_pa_per_s: float = float("nan")
+    baseline_start_s: float = 0.0
 
     @property
     def duration_s(self) -> float:
@@ -62,6 +79,22 @@ class CurrentStep:
         spike in the step, by its time (:func:`~spikemeasure.analysis.spikes.spike_times`)."""
         t = np.asarray(times_s, dtype=float)
         return (t >= self.onset_s) & (t < self.offset_s)
+
+    def current_at(self, times_s) -> np.ndarray:
+        """The command current (holding included) at each time inside the stimulus, in pA.
+
+        A step's holding_pa + size_pa; on a ramp, its fitted line; NaN outside the stimulus,
+        for another shape, and when the holding current is unknown.
+        """
+        t = np.asarray(times_s, dtype=float)
+        if self.shape == "step":
+            level = np.full(t.shape, self.holding_pa + self.size_pa)
+        elif self.shape == "ramp":
+            level = (self.holding_pa + self.size_pa
+                     - self.ramp_rate_pa_per_s * (self.offset_s - t))
+        else:
+            level = np.full(t.shape, np.nan)
+        return np.where(self.holds(t), level, np.nan)
 
 
 def missing_stretches(values) -> np.ndarray:
@@ -148,33 +181,32 @@ def check_sweep(sweep: Sweep) -> None:
 
 def find_current_step(command_pa: np.ndarray, sampling_rate_hz: float, *,
                       min_step_pa: float = 1.0) -> CurrentStep | None:
-    """Find the main rectangular current step in a command-current trace.
+    """Find the main stimulus (a step, a ramp or another shape) in a command-current trace.
 
     Parameters
     ----------
     command_pa : ndarray
-        Command current in pA, 1-D.
+        Command current in pA, 1-D; NaN or infinite where samples are missing.
     sampling_rate_hz : float
         Samples per second.
     min_step_pa : float, optional
-        Deviations from the holding current smaller than this (pA) are not a step.
+        Departures from the holding current smaller than this (pA) are not a stimulus (the
+        smallest tolerance of :func:`~spikemeasure.analysis.epochs.find_epochs`).
 
     Returns
     -------
     CurrentStep or None
-        None when the command never leaves the holding level by ``min_step_pa``.
+        None when the command never leaves the holding level.
 
     Notes
     -----
-    1. A 5-sample running median removes isolated noise samples from a recorded command.
-    2. The holding current is the median of the first 1 ms (at least 3 samples).
-    3. The step is the stretch from the first to the last sample whose deviation from holding
-       exceeds half of the largest deviation; so a step riding on noise, or with a small
-       overshoot, is still found once, and the largest step wins in a multi-step protocol.
-    4. The holding current is the mean of the command before the step, and the step size the
-       mean over the step minus the holding current.
-    Onset is the time of the first sample of the step, offset the time of the first sample
-    after it, both from the sweep's first sample.
+    The command is cut into levels and ramps
+    (:func:`~spikemeasure.analysis.epochs.find_epochs`) and the main stimulus chosen among
+    them (:func:`~spikemeasure.analysis.epochs.main_stimulus`): the longest stretch away from
+    holding, so a short test pulse before a longer step is not taken for the step. For a
+    rectangular step, onset is the time of the first sample of the step, offset the time of
+    the first sample after it, the holding current the mean command before it (outside any
+    test pulse) and the size the mean over the step minus the holding current.
     """
     cmd = np.asarray(command_pa, dtype=float)
     if cmd.ndim != 1 or cmd.size < 3:
@@ -182,40 +214,20 @@ def find_current_step(command_pa: np.ndarray, sampling_rate_hz: float, *,
     if not (np.isfinite(sampling_rate_hz) and sampling_rate_hz > 0):
         raise InvalidSettingError(
             f"`sampling_rate_hz` must be a positive, finite number (got {sampling_rate_hz})")
-    finite = np.isfinite(cmd)
-    if not finite.all():
-        # a command with missing samples: find the step on the samples that are there, and
-        # place it back at their positions
-        cmd = np.where(finite, cmd, np.nan)
-        kept = np.flatnonzero(finite)
-        if kept.size < 3:
-            return None
-        found = find_current_step(cmd[kept], sampling_rate_hz, min_step_pa=min_step_pa)
-        if found is None:
-            return None
-        first = int(kept[int(round(found.onset_s * sampling_rate_hz))])
-        last = int(kept[int(round(found.offset_s * sampling_rate_hz)) - 1])
-        before, during = cmd[:first], cmd[first:last + 1]
-        holding = float(np.nanmean(before)) if np.isfinite(before).any() else found.holding_pa
-        return CurrentStep(onset_s=first / sampling_rate_hz,
-                           offset_s=(last + 1) / sampling_rate_hz,
-                           size_pa=float(np.nanmean(during)) - holding, holding_pa=holding)
-    filtered = (median_filter(cmd, size=COMMAND_MEDIAN_SAMPLES, mode="nearest")
-                if cmd.size >= COMMAND_MEDIAN_SAMPLES else cmd)
-    n_head = max(3, int(round(1e-3 * sampling_rate_hz)))
-    holding = float(np.median(filtered[:n_head]))
-    deviation = filtered - holding
-    largest = float(np.max(np.abs(deviation)))
-    if not np.isfinite(largest) or largest < min_step_pa:
+    found = main_stimulus(cmd, sampling_rate_hz, epochs=find_epochs(
+        cmd, sampling_rate_hz, min_level_change_pa=min_step_pa))
+    return _step_of(found)
+
+
+def _step_of(found: Stimulus) -> CurrentStep | None:
+    """A sweep's CurrentStep from its main stimulus (None when there is none)."""
+    if found.shape == "none":
         return None
-    inside = np.abs(deviation) > 0.5 * largest
-    first = int(np.argmax(inside))
-    last = int(cmd.size - 1 - np.argmax(inside[::-1]))
-    if first > 0:
-        holding = float(np.mean(cmd[:first]))
-    size = float(np.mean(cmd[first:last + 1])) - holding
-    return CurrentStep(onset_s=first / sampling_rate_hz, offset_s=(last + 1) / sampling_rate_hz,
-                       size_pa=size, holding_pa=holding)
+    return CurrentStep(onset_s=found.onset_s, offset_s=found.offset_s, size_pa=found.size_pa,
+                       holding_pa=found.holding_pa, shape=found.shape,
+                       test_pulse_pa=found.test_pulse_pa,
+                       ramp_rate_pa_per_s=found.ramp_rate_pa_per_s,
+                       baseline_start_s=found.baseline_start_s)
 
 
 def step_from_times(start_s: float, end_s: float, duration_s: float,
@@ -248,7 +260,7 @@ def parse_step_sizes(text: str) -> tuple[float, float]:
 
 def protocol_steps(sweeps: list[Sweep], step_s: tuple[float, float] | None = None,
                    step_sizes_pa: tuple[float, float] | None = None) -> list[CurrentStep | None]:
-    """The current step of every sweep of a recording.
+    """The main stimulus of every sweep of a recording.
 
     Parameters
     ----------
@@ -264,20 +276,30 @@ def protocol_steps(sweeps: list[Sweep], step_s: tuple[float, float] | None = Non
 
     Notes
     -----
-    A sweep whose command channel shows no step (a 0 pA sweep of a step series) gets the
-    protocol's window, the median onset and offset of the other sweeps' steps, with size 0 and
-    the mean command as holding current; with no other steps to borrow from it has none.
+    Each command is cut into epochs and its main stimulus chosen
+    (:func:`~spikemeasure.analysis.epochs.main_stimulus`). A sweep whose only stimulus lies
+    where other sweeps have their test pulse (within two samples) has no stimulus of its own
+    but that test pulse. A sweep without a stimulus of its own (a 0 pA sweep of a step
+    series) gets the protocol's window, the median onset and offset of the other sweeps'
+    steps, with size 0, its own test pulse and quiet stretch, and as holding current the mean
+    command at holding (outside any test pulse); with no other steps to borrow from it has
+    none.
     """
     steps: list[CurrentStep | None] = []
+    stimuli: list[Stimulus | None] = []
     for k, sweep in enumerate(sweeps):
-        found = None
+        found = stimulus = None
         if sweep.command_pa is not None and sweep.command_pa.size >= 3:
-            found = find_current_step(sweep.command_pa, sweep.sampling_rate_hz)
+            cmd = np.asarray(sweep.command_pa, dtype=float)
+            stimulus = main_stimulus(cmd, sweep.sampling_rate_hz)
+            found = _step_of(stimulus)
         if found is None and step_s is not None and sweep.command_pa is None:
             size = step_sizes_pa[0] + k * step_sizes_pa[1] if step_sizes_pa else float("nan")
             found = step_from_times(step_s[0], step_s[1], sweep.duration_s, size)
         steps.append(found)
-    known = [s for s in steps if s is not None]
+        stimuli.append(stimulus)
+    _drop_lone_test_pulses(sweeps, steps, stimuli)
+    known = [s for s in steps if s is not None and s.shape == "step"]
     for k, sweep in enumerate(sweeps):
         if steps[k] is not None or sweep.command_pa is None:
             continue
@@ -289,8 +311,38 @@ def protocol_steps(sweeps: list[Sweep], step_s: tuple[float, float] | None = Non
                                       int(round(offset * rate)) + 1]
             if not np.isfinite(window).all():
                 continue  # a gap in the command may hide this sweep's step: not 0 pA
-            steps[k] = CurrentStep(onset, min(offset, sweep.duration_s), 0.0,
-                                   float(np.mean(sweep.command_pa)))
+            steps[k] = _zero_step(sweep, stimuli[k], onset, offset)
         elif step_s is not None:
             steps[k] = step_from_times(step_s[0], step_s[1], sweep.duration_s, 0.0)
     return steps
+
+
+def _drop_lone_test_pulses(sweeps: list[Sweep], steps: list[CurrentStep | None],
+                           stimuli: list[Stimulus | None]) -> None:
+    """Empty the step of a sweep whose only stimulus is where the others have a test pulse."""
+    pulses = [s.test_pulse_s for s in stimuli if s is not None and np.isfinite(s.test_pulse_pa)]
+    for k, stimulus in enumerate(stimuli):
+        if stimulus is None or stimulus.shape != "step" or np.isfinite(stimulus.test_pulse_pa):
+            continue
+        near = 2.0 / sweeps[k].sampling_rate_hz
+        if any(abs(stimulus.onset_s - a) <= near and abs(stimulus.offset_s - b) <= near
+               for a, b in pulses):
+            stimuli[k] = replace(stimulus, shape="none", test_pulse_pa=stimulus.size_pa,
+                                 test_pulse_s=(stimulus.onset_s, stimulus.offset_s))
+            steps[k] = None
+
+
+def _zero_step(sweep: Sweep, stimulus: Stimulus | None, onset_s: float,
+               offset_s: float) -> CurrentStep:
+    """The 0 pA step of a sweep with no stimulus of its own, in the protocol's window."""
+    cmd = np.asarray(sweep.command_pa, dtype=float)
+    rate = sweep.sampling_rate_hz
+    holding, pulse, quiet = float(np.mean(cmd)), float("nan"), 0.0
+    if stimulus is not None and np.isfinite(stimulus.test_pulse_pa):
+        a, b = (int(round(x * rate)) for x in stimulus.test_pulse_s)
+        outside = np.concatenate([cmd[:a], cmd[b:]])
+        holding = float(np.mean(outside))
+        pulse = float(np.mean(cmd[a:b])) - holding
+        quiet = stimulus.test_pulse_s[1] if stimulus.test_pulse_s[1] <= onset_s else 0.0
+    return CurrentStep(onset_s, min(offset_s, sweep.duration_s), 0.0, holding,
+                       test_pulse_pa=pulse, baseline_start_s=quiet)

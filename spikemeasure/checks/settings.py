@@ -17,6 +17,7 @@ from typing import Any, Sequence
 from ..columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, Column
 from ..config import (QUALITY_SECTION, REGRESSION_SECTION, ConfigError, _check_sections,
                       _describe, _is_number, _read_document)
+from ..tables.write import TEXT_COLUMN_NAMES
 from .rules import QUALITY_KEYS, QUALITY_RULES, REGRESSION_KEYS
 
 __all__ = ["DEFAULT_ACCEPTED_FOLDER", "UNTOLERATED_COLUMNS", "Tolerance", "CheckSettings",
@@ -266,7 +267,7 @@ def default_tolerance(column: Column) -> Tolerance | None:
         rounds the other way on another machine passes; 0 for a whole-number column; None
         for text, which is compared exactly.
     """
-    if column.name in ("file", "flags"):
+    if column.name in TEXT_COLUMN_NAMES:
         return None
     if column.decimals is None:
         return Tolerance(0.0)

@@ -38,7 +38,9 @@ def step_response_figure(results: Sequence[SweepResult], cell: CellFeatures | No
         (mV/pA) and the least-squares intercept for that slope.
     """
     cell = cell_summary(list(results)) if cell is None else cell
-    measured = measured_results(results)
+    # ramps and other shapes have no step size: the step values leave them out
+    measured = [r for r in measured_results(results)
+                if r.features.stimulus_shape in ("step", "none")]
     with matplotlib().rc_context(STYLE):
         kept = cell_figure("step_responses", 3.6,
                            [(0.09, 0.14, 0.375, 0.73), (0.6, 0.14, 0.375, 0.73)], new_figure,
@@ -53,7 +55,8 @@ def step_response_figure(results: Sequence[SweepResult], cell: CellFeatures | No
         if not measured or not np.isfinite(stim).any():
             for ax in (ax_f, ax_v):
                 note(ax, "step sizes unknown\n(no command channel: give --step-sizes)"
-                     if measured else "no sweep could be measured")
+                     if measured else "no step sweeps\n(ramps or other stimuli only)"
+                     if measured_results(results) else "no sweep could be measured")
             return fig
         rate = np.array([r.features.firing_rate_hz for r in measured], dtype=float)
         dv = np.array([r.features.steady_state_mv - r.features.baseline_mv for r in measured],

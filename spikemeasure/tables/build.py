@@ -117,7 +117,7 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
             all_gaps = np.concatenate([gaps, edge_gaps]) if edge_gaps.size else gaps
             features = sweep_features(voltage, rate, step, spike_times(spikes),
                                       clipped_spike_count=_clipped(spikes), gaps=all_gaps,
-                                      spikes_counted=counted)
+                                      spikes_counted=counted, command_pa=sweep.command_pa)
             if edge_gaps.size:
                 features = replace(features,
                                    flags=features.flags + ("gap_at_step_edge_in_command",))

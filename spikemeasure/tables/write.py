@@ -28,7 +28,7 @@ __all__ = ["write_text_atomic", "write_bytes_atomic", "write_files_atomic", "wri
            "unescape_csv_text", "TEXT_COLUMN_NAMES"]
 
 #: Columns of the tables that hold text (all others hold numbers, empty when not measured).
-TEXT_COLUMN_NAMES = frozenset({"file", "flags", "stage", "message"})
+TEXT_COLUMN_NAMES = frozenset({"file", "flags", "stage", "message", "stimulus_shape"})
 #: First characters that make a spreadsheet read a cell as a formula (common practice, as
 #: the OWASP guidance on CSV injection lists them).
 FORMULA_START = ("=", "+", "-", "@", "\t", "\r")

@@ -4,8 +4,9 @@ import pytest
 
 from conftest import step_command
 from spikemeasure.errors import InvalidSettingError, UnmeasurableDataError
-from spikemeasure.analysis.sweeps import check_sweep, find_current_step, step_from_times
+from spikemeasure.analysis.sweeps import check_sweep, find_current_step, protocol_steps, step_from_times
 from spikemeasure.io import Sweep
+from spikemeasure.testing.commands import steps_after_test_pulse
 
 RATE = 20_000.0
 
@@ -144,3 +145,31 @@ class TestStepHolds:
         step = CurrentStep(0.1, 0.6, 20.0, 0.0)
         times = np.array([0.0999, 0.1, 0.35, 0.5999, 0.6, np.nan])
         assert step.holds(times).tolist() == [False, True, True, True, False, False]
+
+
+class TestProtocolStepsWithATestPulse:
+    """Source: the commands built (spikemeasure/testing/commands.py): holding -10 pA, a -50 pA
+    test pulse over 0.02-0.07 s, steps over 0.3-0.8 s."""
+
+    def _sweeps(self, sizes):
+        cmd = steps_after_test_pulse(sizes, sampling_rate_hz=RATE, holding_pa=-10.0)
+        return [Sweep(np.full(cmd.shape[1], -70.0), RATE, c, file="p.nwb", index=k)
+                for k, c in enumerate(cmd)]
+
+    def test_a_sweep_with_only_the_test_pulse_is_the_0_pa_step(self):
+        steps = protocol_steps(self._sweeps([-50.0, 0.0, 50.0]))
+        zero = steps[1]
+        assert (zero.onset_s, zero.offset_s) == pytest.approx((0.3, 0.8))
+        assert zero.size_pa == 0.0 and zero.shape == "step"
+        assert zero.holding_pa == pytest.approx(-10.0)   # the pulse is not averaged in
+        assert zero.test_pulse_pa == pytest.approx(-50.0)
+        assert zero.baseline_start_s == pytest.approx(0.07)
+        for step, size in zip(steps, (-50.0, 0.0, 50.0)):
+            assert step.size_pa == pytest.approx(size)
+
+    def test_without_a_command_the_step_times_are_used(self):
+        sweeps = [Sweep(np.full(4000, -70.0), RATE, None, file="t.txt", index=0)]
+        step, = protocol_steps(sweeps, step_s=(0.05, 0.15), step_sizes_pa=(20.0, 10.0))
+        assert (step.onset_s, step.offset_s, step.size_pa) == (0.05, 0.15, 20.0)
+        assert step.shape == "step" and step.baseline_start_s == 0.0
+        assert np.isnan(step.holding_pa) and np.isnan(step.test_pulse_pa)

@@ -21,6 +21,7 @@ from spikemeasure.checks.run_tables import (TABLE_FILES, CheckInputError, cell_t
                                             read_tables, tables_from_columns, typed_columns)
 from spikemeasure.checks.settings import CheckSettings
 from spikemeasure.columns import SPIKE_COLUMNS, SWEEP_COLUMNS
+from spikemeasure.tables.write import TEXT_COLUMN_NAMES
 
 
 def csv_columns(path) -> dict[str, list[str]]:
@@ -91,7 +92,7 @@ class TestTypedColumns:
         given = {}
         for name, (_, columns) in TABLE_FILES.items():
             cells = csv_columns(sample_results / name)
-            given[name] = {c.name: [v if c.name in ("file", "flags") or v == "" else float(v)
+            given[name] = {c.name: [v if c.name in TEXT_COLUMN_NAMES or v == "" else float(v)
                                     for v in cells[c.name]] for c in columns}
         in_memory = tables_from_columns(sample_results, given["spikes.csv"],
                                         given["sweeps.csv"], given["cells.csv"], record=record)

@@ -24,4 +24,5 @@ def test_probe_sees_a_later_stage():
     # Control: the same probe reports the analysis modules when they are imported, so an
     # empty answer above means "not imported", not "not looked for".
     loaded = loaded_spikemeasure_modules(("spikemeasure.io", "spikemeasure.analysis.sweeps"))
-    assert later_stage_modules(loaded) == ["spikemeasure.analysis", "spikemeasure.analysis.sweeps"]
+    assert later_stage_modules(loaded) == ["spikemeasure.analysis", "spikemeasure.analysis.epochs",
+                                           "spikemeasure.analysis.sweeps"]

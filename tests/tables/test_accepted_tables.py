@@ -23,8 +23,9 @@ ADDED = "peak_to_trough_ms"
 #: Columns added to each table since the pins below.
 ADDED_COLUMNS = {
     "spikes.csv": ("peak_to_trough_ms",),
-    "sweeps.csv": (),
-    "cells.csv": ("block_stimulus_pa", "bridge_error_mohm"),
+    "sweeps.csv": ("stimulus_shape", "test_pulse_pa", "ramp_rate_pa_per_s",
+                   "first_spike_current_pa"),
+    "cells.csv": ("ramp_rheobase_pa", "block_stimulus_pa", "bridge_error_mohm"),
 }
 
 #: Columns whose values were changed on purpose since the pins, left out of the comparison:
