@@ -15,9 +15,10 @@ from typing import Any, Callable
 import numpy as np
 
 from .analysis.detection import DetectionSettings, smoothing_window_samples
+from .analysis.bridge import CHARGING_FIT_MS, EDGE_FIT_MS, SETTLE_MS
 from .analysis.cell_features import (CELL_FLAG_TEXT, END_FRACTION, HOLDING_TOLERANCE_PA,
                             MAX_RESIDUAL_TO_NOISE, MIN_DEFLECTION_TO_NOISE, NOISE_FLOOR_MV,
-                            SLOW_SWEEP_MAX_RISE_MV, TAU_SMOOTHING_MS)
+                            SAG_NOISE_FACTOR, SLOW_SWEEP_MAX_RISE_MV, TAU_SMOOTHING_MS)
 from .analysis.epochs import (MAX_EDGE_MS, MIN_LEVEL_CHANGE_PA, NOISE_MULTIPLE,
                               RESIDUAL_WINDOW_MS)
 from .analysis.spike_features import SECOND_DERIVATIVE_LOOKBACK_MS
@@ -283,13 +284,31 @@ CELL_COLUMNS: tuple[Column, ...] = (
            "whose stimulus is a ramp (flag `no_spiking_ramp` when ramps were measured and none "
            "fired). Empty without ramps.", 2),
     Column("fi_slope_hz_per_pa", "Hz/pA", "Least-squares slope of firing_rate_hz on "
-           "stimulus_pa over the steps at or above rheobase (at least 2).", 5),
-    Column("max_firing_rate_hz", "Hz", "The largest firing_rate_hz of the cell's sweeps.", 4),
+           "stimulus_pa over the steps at or above rheobase (at least 2) and below "
+           "block_stimulus_pa.", 5),
+    Column("max_firing_rate_hz", "Hz", "The largest firing_rate_hz of the cell's sweeps below "
+           "block_stimulus_pa.", 4),
+    Column("block_stimulus_pa", "pA", "The smallest step whose sweep has the flag "
+           "`depolarization_block` (full spikes stopped early under the current); the f-I "
+           "slope and the largest firing rate use only the steps below it. Empty when no "
+           "sweep shows block.", 2),
     Column("input_resistance_mohm", "MOhm", "Least-squares slope of (steady_state_mv - "
            "baseline_mv) on stimulus_pa over hyperpolarizing, spike-free sweeps (at least 2), "
            f"times 1000. A sweep sampled too slowly to count spikes counts as spike-free when no "
            f"sample of its step lies more than {SLOW_SWEEP_MAX_RISE_MV:g} mV above its baseline "
            "(`slow_sweeps_taken_as_spike_free`).", 3),
+    Column("bridge_error_mohm", "MOhm", "Uncompensated electrode (series) resistance: the "
+           "median over the sweeps of input_resistance_mohm (those without gaps) of the "
+           "instantaneous voltage jump at the step's onset over the step size (the offset, "
+           "often followed by a rebound, is not used). The jump is the charging curve after "
+           "the onset "
+           f"(one exponential fitted from {SETTLE_MS:g} ms, past the filter's settling, to "
+           f"{SETTLE_MS + EDGE_FIT_MS:g} ms, with the time constant of the charging over up to "
+           f"{CHARGING_FIT_MS:g} ms) extrapolated back to the onset, minus a straight "
+           f"line over the {EDGE_FIT_MS:g} ms before it. Empty, flagged "
+           "`bridge_error_not_separable`, when the charging is too fast to tell from the "
+           "jump. input_resistance_mohm includes it.",
+           3),
     Column("membrane_tau_ms", "ms", "Time constant of a single exponential fitted "
            "(scipy.optimize.curve_fit) to the voltage from onset to its minimum (on a "
            f"{TAU_SMOOTHING_MS:g} ms moving average; the fit ends where that average first "
@@ -299,7 +318,10 @@ CELL_COLUMNS: tuple[Column, ...] = (
            f"Empty, flagged `tau_fit_poor`, when the residual RMS is over "
            f"{MAX_RESIDUAL_TO_NOISE:g} times the sweep's baseline noise (the response is not "
            f"one exponential) or the deflection under {MIN_DEFLECTION_TO_NOISE:g} times it.", 4),
-    Column("sag_fraction", "", "sag_fraction of the most hyperpolarizing sweep.", 5),
+    Column("sag_fraction", "", "sag_fraction of the most hyperpolarizing sweep; 0, flagged "
+           "`sag_within_noise`, when its steady_state_mv - min_mv is not over "
+           f"{SAG_NOISE_FACTOR:g} times the SD of the {MIN_WINDOW_MS:g} ms moving average of "
+           "the voltage over the baseline window plus abs(baseline_drift_mv).", 5),
     Column("rheobase_threshold_mv", "mV", "threshold_mv of the first spike in the step of the "
            "rheobase sweep.", 4),
     Column("rheobase_amplitude_mv", "mV", "amplitude_mv of that spike.", 4),

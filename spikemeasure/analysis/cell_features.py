@@ -13,11 +13,15 @@ import numpy as np
 from scipy.ndimage import uniform_filter1d
 from scipy.optimize import OptimizeWarning, curve_fit
 
+from .bridge import MIN_TAU_TO_SETTLE, SETTLE_MS, bridge_error
+from .fluctuation import slow_fluctuation_mv
+from .sweep_features import BASELINE_WINDOW_MS, MIN_WINDOW_MS
+
 __all__ = ["CellFeatures", "ExponentialFit", "fit_membrane_tau", "rheobase", "ramp_rheobase",
-           "fi_slope",
-           "input_resistance", "cell_features", "passive_sweeps", "CELL_FLAG_TEXT", "MAX_RESIDUAL_TO_NOISE",
+           "fi_slope", "input_resistance", "cell_features", "passive_sweeps", "CELL_FLAG_TEXT", "MAX_RESIDUAL_TO_NOISE",
            "MIN_DEFLECTION_TO_NOISE", "NOISE_FLOOR_MV", "END_FRACTION", "TAU_SMOOTHING_MS",
-           "HOLDING_TOLERANCE_PA", "SLOW_SWEEP_MAX_RISE_MV"]
+           "HOLDING_TOLERANCE_PA", "SLOW_SWEEP_MAX_RISE_MV", "MAX_FLUCTUATION_TO_DEFLECTION",
+           "SAG_NOISE_FACTOR"]
 
 #: A time-constant fit is poor when its residual RMS exceeds this multiple of the sweep's
 #: baseline noise (the response is not one exponential: resonance, sag, active currents) ...
@@ -37,6 +41,16 @@ HOLDING_TOLERANCE_PA = 1.0
 #: sample of its step lies more than this above its baseline (a rule of our own: a spike
 #: rises tens of mV, noise and rebound a few).
 SLOW_SWEEP_MAX_RISE_MV = 10.0
+#: The time constant is left empty when the baseline's slow fluctuation (SD of its
+#: TAU_SMOOTHING_MS moving average) exceeds this fraction of the deflection fitted: synaptic
+#: background moves the voltage on the time constant's own time scale, which no residual
+#: test against that same background can see (a rule of our own).
+MAX_FLUCTUATION_TO_DEFLECTION = 0.05
+#: Sag counts as present only when steady_state_mv - min_mv exceeds this many times the
+#: baseline's slow fluctuation (SD of its MIN_WINDOW_MS moving average, the smoothing under
+#: min_mv) plus the sweep's drift: over a 0.5 s step, noise alone pulls the smoothed
+#: minimum about 3 SD below the mean (the expected largest of ~500 Gaussian values).
+SAG_NOISE_FACTOR = 4.0
 
 #: Sweep flags that mean a gap emptied some of a sweep's passive values.
 _GAP_FLAGS = ("gap_in_baseline_window", "gap_in_step", "gap_in_steady_state_window",
@@ -95,6 +109,21 @@ CELL_FLAG_TEXT = {
                     "times the recording noise (the response is not one exponential), or the "
                     f"deflection is under {MIN_DEFLECTION_TO_NOISE:g} times the noise: the "
                     "time constant is left empty",
+    "bridge_error_not_separable": "the membrane charges too fast after the step edges (time "
+                                  f"constant under {MIN_TAU_TO_SETTLE * SETTLE_MS:g} ms) to "
+                                  "tell an electrode's voltage jump from the charging: "
+                                  "bridge_error_mohm is empty",
+    "baseline_fluctuates": "the baseline fluctuates (synaptic background): the SD of its "
+                           f"{TAU_SMOOTHING_MS:g} ms moving average over the "
+                           f"{BASELINE_WINDOW_MS:g} ms before the step exceeds "
+                           f"{MAX_FLUCTUATION_TO_DEFLECTION:g} of the deflection "
+                           "(baseline_mv - min_mv, or the fitted one when smaller), "
+                           "where one exponential means nothing, so the time constant is "
+                           "left empty",
+    "sag_within_noise": "the sag of the most hyperpolarizing sweep (steady_state_mv - "
+                        f"min_mv) is not over {SAG_NOISE_FACTOR:g} times the baseline's slow "
+                        f"fluctuation (SD of its {MIN_WINDOW_MS:g} ms moving average) plus "
+                        "its drift, so it cannot be told from noise: sag_fraction is 0",
 }
 
 
@@ -120,7 +149,9 @@ class CellFeatures:
     rheobase_resolution_pa: float
     fi_slope_hz_per_pa: float
     max_firing_rate_hz: float
+    block_stimulus_pa: float
     input_resistance_mohm: float
+    bridge_error_mohm: float
     membrane_tau_ms: float
     membrane_tau_fit_r2: float
     membrane_tau_residual_to_noise: float
@@ -147,8 +178,8 @@ def _exponential(t, v_inf, delta, tau):
 
 
 def fit_membrane_tau(voltage_mv: np.ndarray, sampling_rate_hz: float, onset_s: float,
-                     offset_s: float, smooth_ms: float = TAU_SMOOTHING_MS
-                     ) -> ExponentialFit | None:
+                     offset_s: float, smooth_ms: float = TAU_SMOOTHING_MS,
+                     skip_ms: float = 0.0) -> ExponentialFit | None:
     """Fit a single exponential to the voltage from step onset to its minimum.
 
     Parameters
@@ -161,6 +192,10 @@ def fit_membrane_tau(voltage_mv: np.ndarray, sampling_rate_hz: float, onset_s: f
     smooth_ms : float, optional
         The minimum that ends the fit is found on a moving average of this width, so noise
         does not end it early.
+    skip_ms : float, optional
+        Samples this close after onset are left out of the fit (time still counts from
+        onset): an electrode's voltage jump at the step edge, and the filter settling after
+        it, are not the membrane's charging (:mod:`spikemeasure.analysis.bridge`).
 
     Returns
     -------
@@ -173,7 +208,8 @@ def fit_membrane_tau(voltage_mv: np.ndarray, sampling_rate_hz: float, onset_s: f
     samples from onset towards the minimum of the smoothed response (for a cell with sag, the
     minimum before the sag; for a passive cell, the end of the step), ending where the
     smoothed response first comes within :data:`END_FRACTION` (2 %) of the deflection from
-    that minimum, about 4 tau for an exponential. Starting values: the end value, the drop,
+    that minimum, about 4 tau for an exponential; the first `skip_ms` are left out. Starting
+    values: the end value, the drop,
     and the time to 63 % of the drop. The quality is R^2 = 1 - SS_res / SS_tot over the
     fitted samples.
     """
@@ -190,10 +226,11 @@ def fit_membrane_tau(voltage_mv: np.ndarray, sampling_rate_hz: float, onset_s: f
     # no information about tau
     near = smooth <= smooth[low] + END_FRACTION * (smooth[0] - smooth[low])
     low = min(low, int(np.argmax(near)))
-    if low < 5:
+    skip = int(np.ceil(max(0.0, skip_ms) * 1e-3 * sampling_rate_hz))
+    if low - skip < 5:
         return None
-    y = span[:low + 1]
-    t = np.arange(y.size) / sampling_rate_hz * 1e3
+    y = span[skip:low + 1]
+    t = (skip + np.arange(y.size)) / sampling_rate_hz * 1e3
     v_inf0, v00 = float(y[-max(1, y.size // 20):].mean()), float(y[:3].mean())
     drop = v00 - v_inf0
     target = v00 - 0.632 * drop
@@ -331,6 +368,18 @@ def passive_sweeps(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]
             & np.isfinite(col["steady_state_mv"] - col["baseline_mv"]))
 
 
+def _before_block(col: dict, sweep_flags: list[set], values: dict) -> None:
+    """block_stimulus_pa (see :func:`cell_features`) into `values`, and into `col` the key
+    ``rate_before_block_hz``: firing_rate_hz, NaN from that step up."""
+    stim = col["stimulus_pa"]
+    blocked = np.array(["depolarization_block" in f for f in sweep_flags], dtype=bool)
+    blocked &= np.isfinite(stim)
+    if blocked.any():
+        values["block_stimulus_pa"] = float(stim[blocked].min())
+    after = stim >= values["block_stimulus_pa"]  # all False without block (NaN compares so)
+    col["rate_before_block_hz"] = np.where(after, np.nan, col["firing_rate_hz"])
+
+
 def ramp_rheobase(shapes: list[str], first_spike_current_pa: np.ndarray) -> float:
     """The smallest current at a first spike over the ramp sweeps.
 
@@ -403,7 +452,7 @@ def _firing_values(col: dict, slow: np.ndarray, lower: np.ndarray,
         if not np.isfinite(resolution):
             flags.append("rheobase_is_first_step")
         if not (slow & (stim >= rb)).any():
-            values["fi_slope_hz_per_pa"] = fi_slope(stim, col["firing_rate_hz"], rb)
+            values["fi_slope_hz_per_pa"] = fi_slope(stim, col["rate_before_block_hz"], rb)
             if (lower & (stim >= rb) & ~np.isfinite(col["firing_rate_hz"])).any():
                 flags.append("fi_slope_skips_gap_sweeps")
             if not np.isfinite(values["fi_slope_hz_per_pa"]):
@@ -436,6 +485,9 @@ def _passive_values(col: dict, slow: np.ndarray, lower: np.ndarray, gapped: np.n
     values["input_resistance_mohm"] = input_resistance(stim[passive], deflection[passive])
     if not np.isfinite(values["input_resistance_mohm"]):
         flags.append("too_few_passive_sweeps")
+    values["bridge_error_mohm"] = _bridge_median(col, passive[~gapped[passive]], traces)
+    if passive[~gapped[passive]].size and not np.isfinite(values["bridge_error_mohm"]):
+        flags.append("bridge_error_not_separable")
     hyper = np.flatnonzero(hyper_all)
     if hyper.size == 0:
         flags.append("no_hyperpolarizing_step")
@@ -445,29 +497,77 @@ def _passive_values(col: dict, slow: np.ndarray, lower: np.ndarray, gapped: np.n
         if gapped[deepest] and clear.size:
             flags.append("sag_skips_gap_sweeps")
             deepest = clear[np.argmin(stim[clear])]
-        values["sag_fraction"] = float(col["sag_fraction"][deepest])
+        values["sag_fraction"] = _sag_beyond_noise(col, int(deepest), traces, flags)
         # hyperpolarizing and spike-free, or it would be but for a gap in its step
         pool = np.flatnonzero(hyper_all & (candidates | (lower & ~(count > 0) & ~slow)))
         fit_ok = np.flatnonzero(candidates & ~gapped)
         if pool.size and (fit_ok.size == 0 or stim[fit_ok].max() < stim[pool].max()):
             flags.append("membrane_tau_skips_gap_sweeps")
         if fit_ok.size:
-            j = int(fit_ok[np.argmax(stim[fit_ok])])  # smallest hyperpolarizing step
-            v, rate = traces[j]
-            fit = fit_membrane_tau(v, rate, col["stimulus_start_s"][j], col["stimulus_end_s"][j])
-            if fit is None:
-                flags.append("tau_fit_failed")
-            else:
-                noise = max(float(col["baseline_noise_mv"][j]), NOISE_FLOOR_MV) \
-                    if np.isfinite(col["baseline_noise_mv"][j]) else NOISE_FLOOR_MV
-                ratio = fit.rms_residual_mv / noise
-                values["membrane_tau_fit_r2"] = fit.r_squared
-                values["membrane_tau_residual_to_noise"] = ratio
-                deflection = abs(fit.v0_mv - fit.v_inf_mv)
-                if ratio <= MAX_RESIDUAL_TO_NOISE and deflection >= MIN_DEFLECTION_TO_NOISE * noise:
-                    values["membrane_tau_ms"] = fit.tau_ms
-                else:
-                    flags.append("tau_fit_poor")
+            _tau_value(col, int(fit_ok[np.argmax(stim[fit_ok])]), traces, values, flags)
+
+
+def _bridge_median(col: dict, sweeps: np.ndarray, traces: list[tuple[np.ndarray, float]]
+                   ) -> float:
+    """bridge_error_mohm (see :func:`cell_features`): the median over `sweeps` of
+    :func:`~spikemeasure.analysis.bridge.bridge_error`."""
+    found = [bridge_error(traces[j][0], traces[j][1], col["stimulus_start_s"][j],
+                          col["stimulus_end_s"][j], col["stimulus_pa"][j]).bridge_error_mohm
+             for j in sweeps]
+    found = [r for r in found if np.isfinite(r)]
+    return float(np.median(found)) if found else float("nan")
+
+
+def _sag_beyond_noise(col: dict, j: int, traces: list[tuple[np.ndarray, float]],
+                      flags: list[str]) -> float:
+    """sag_fraction of sweep `j`, or 0 (flag ``sag_within_noise``) when its sag is not over
+    SAG_NOISE_FACTOR times the baseline's slow fluctuation plus the sweep's drift."""
+    sag = float(col["sag_fraction"][j])
+    if not np.isfinite(sag):
+        return sag
+    v, rate = traces[j]
+    fluctuation = slow_fluctuation_mv(v, rate, col["stimulus_start_s"][j], MIN_WINDOW_MS)
+    drift = abs(col["baseline_drift_mv"][j]) if np.isfinite(col["baseline_drift_mv"][j]) else 0.0
+    if not np.isfinite(fluctuation):
+        return sag
+    if col["steady_state_mv"][j] - col["min_mv"][j] <= SAG_NOISE_FACTOR * fluctuation + drift:
+        flags.append("sag_within_noise")
+        return 0.0
+    return sag
+
+
+def _tau_value(col: dict, j: int, traces: list[tuple[np.ndarray, float]], values: dict,
+               flags: list[str]) -> None:
+    """membrane_tau_ms and its fit's quality (see :func:`cell_features`) from sweep `j` into
+    `values`, their flags into `flags`."""
+    v, rate = traces[j]
+    onset, offset = col["stimulus_start_s"][j], col["stimulus_end_s"][j]
+    noise = max(float(col["baseline_noise_mv"][j]), NOISE_FLOOR_MV) \
+        if np.isfinite(col["baseline_noise_mv"][j]) else NOISE_FLOOR_MV
+    # an electrode jump (the cell's bridge error times this step) above the noise is left
+    # out with the filter's settling after it; one below the noise moves the fit less than
+    # the noise does, and leaving its samples in keeps the fit of a trace without a jump as
+    # it was
+    jump = values["bridge_error_mohm"] * col["stimulus_pa"][j] * 1e-3
+    skip = SETTLE_MS if np.isfinite(jump) and abs(jump) > noise else 0.0
+    fit = fit_membrane_tau(v, rate, onset, offset, skip_ms=skip)
+    if fit is None:
+        flags.append("tau_fit_failed")
+        return
+    ratio = fit.rms_residual_mv / noise
+    values["membrane_tau_fit_r2"] = fit.r_squared
+    values["membrane_tau_residual_to_noise"] = ratio
+    deflection = abs(fit.v0_mv - fit.v_inf_mv)
+    fluctuation = slow_fluctuation_mv(v, rate, onset, TAU_SMOOTHING_MS)
+    # the deflection as measured, not as fitted: a fit bent by fluctuations can put v0 and
+    # v_inf anywhere
+    measured = min(deflection, abs(col["min_mv"][j] - col["baseline_mv"][j]))
+    if ratio > MAX_RESIDUAL_TO_NOISE or deflection < MIN_DEFLECTION_TO_NOISE * noise:
+        flags.append("tau_fit_poor")
+    elif np.isfinite(fluctuation) and fluctuation > MAX_FLUCTUATION_TO_DEFLECTION * measured:
+        flags.append("baseline_fluctuates")
+    else:
+        values["membrane_tau_ms"] = fit.tau_ms
 
 
 def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]],
@@ -494,16 +594,33 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
       :data:`HOLDING_TOLERANCE_PA` of zero.
     - rheobase_pa: :func:`rheobase`, over steps of known size; rheobase_resolution_pa says how
       finely the protocol pinned it down.
-    - fi_slope_hz_per_pa: :func:`fi_slope`; max_firing_rate_hz: the largest firing_rate_hz.
+    - block_stimulus_pa: the smallest step whose sweep has the flag ``depolarization_block``
+      (:func:`~spikemeasure.analysis.block.depolarization_block`).
+    - fi_slope_hz_per_pa: :func:`fi_slope`; max_firing_rate_hz: the largest firing_rate_hz;
+      both over the steps below block_stimulus_pa only (all steps without block).
     - input_resistance_mohm: :func:`input_resistance` of steady_state_mv - baseline_mv over
       hyperpolarizing, spike-free sweeps.
+    - bridge_error_mohm: the median over those sweeps (without gaps) of
+      :func:`~spikemeasure.analysis.bridge.bridge_error`.
     - membrane_tau_ms: :func:`fit_membrane_tau` on the smallest hyperpolarizing spike-free
       step; empty (flag ``tau_fit_poor``) when the residual RMS exceeds
       :data:`MAX_RESIDUAL_TO_NOISE` times the sweep's baseline noise or the deflection is under
       :data:`MIN_DEFLECTION_TO_NOISE` times it (noise taken as at least
       :data:`NOISE_FLOOR_MV`). R^2 alone would reject good fits to small, noisy deflections,
-      since noise caps it.
-    - sag_fraction: that of the most hyperpolarizing sweep.
+      since noise caps it. Empty too (flag ``baseline_fluctuates``) when the baseline's slow
+      fluctuation (:func:`~spikemeasure.analysis.fluctuation.slow_fluctuation_mv` over a
+      :data:`TAU_SMOOTHING_MS` average) exceeds :data:`MAX_FLUCTUATION_TO_DEFLECTION` of the
+      deflection (baseline_mv - min_mv, or the fitted v0 - v_inf when smaller). When
+      bridge_error_mohm times that sweep's step is over its noise, the first
+      :data:`~spikemeasure.analysis.bridge.SETTLE_MS` (the jump and the filter's settling)
+      are left out of the fit.
+    - sag_fraction: that of the most hyperpolarizing sweep; 0 (flag ``sag_within_noise``)
+      when its steady_state_mv - min_mv is not over :data:`SAG_NOISE_FACTOR` times the
+      baseline's slow fluctuation
+      (:func:`~spikemeasure.analysis.fluctuation.slow_fluctuation_mv` over a
+      :data:`~spikemeasure.analysis.sweep_features.MIN_WINDOW_MS` average) plus the sweep's
+      abs(baseline_drift_mv): a sag the trace cannot tell from noise is, to its resolution,
+      no sag, and a cell without one keeps its place among cells compared by sag.
     - rheobase_*: threshold, amplitude, half-width and AHP depth of the rheobase sweep's first
       spike in the step.
 
@@ -533,6 +650,9 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
            ("stimulus_pa", "holding_pa", "baseline_mv", "baseline_noise_mv", "spike_count",
             "firing_rate_hz", "steady_state_mv", "sag_fraction", "stimulus_start_s",
             "stimulus_end_s")} if n else {}
+    for k in ("min_mv", "baseline_drift_mv"):  # judge sag and tau against noise; optional
+        if n:
+            col[k] = np.array([r.get(k, nan) for r in sweep_rows], dtype=float)
     sweep_flags = [set(filter(None, str(r.get("flags", "")).split(";"))) for r in sweep_rows]
     shapes = [str(r.get("stimulus_shape", "step")) for r in sweep_rows]
     ramp_rb = ramp_rheobase(shapes, [r.get("first_spike_current_pa", nan) for r in sweep_rows])
@@ -544,12 +664,15 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
     gapped = np.array([any(g in f for g in _GAP_FLAGS) for f in sweep_flags], dtype=bool)
     resting = _resting(col, sweep_flags, flags) if n else nan
     values = dict(rheobase_pa=nan, rheobase_resolution_pa=nan, fi_slope_hz_per_pa=nan,
-                  max_firing_rate_hz=nan, input_resistance_mohm=nan, membrane_tau_ms=nan,
+                  max_firing_rate_hz=nan, block_stimulus_pa=nan, input_resistance_mohm=nan,
+                  bridge_error_mohm=nan, membrane_tau_ms=nan,
                   membrane_tau_fit_r2=nan, membrane_tau_residual_to_noise=nan, sag_fraction=nan, rheobase_threshold_mv=nan,
                   rheobase_amplitude_mv=nan, rheobase_half_width_ms=nan,
                   rheobase_ahp_depth_mv=nan)
-    if n and np.isfinite(col["firing_rate_hz"]).any() and not slow.any():
-        values["max_firing_rate_hz"] = float(np.nanmax(col["firing_rate_hz"]))
+    if n:
+        _before_block(col, sweep_flags, values)
+    if n and np.isfinite(col["rate_before_block_hz"]).any() and not slow.any():
+        values["max_firing_rate_hz"] = float(np.nanmax(col["rate_before_block_hz"]))
         if (lower & ~np.isfinite(col["firing_rate_hz"])).any():
             flags.append("max_firing_rate_skips_gap_sweeps")
     if not n or not np.isfinite(col["stimulus_pa"]).any():

@@ -11,6 +11,8 @@ import numpy as np
 from scipy.ndimage import uniform_filter1d
 
 from ..errors import InvalidSettingError
+from .block import (BLOCK_MAX_ISI_MS, BLOCK_MIN_SILENCE_MS, BLOCK_SILENCE_TO_ISI,
+                    depolarization_block)
 from .sweeps import MIN_SAMPLING_RATE_HZ, CurrentStep, missing_stretches
 
 __all__ = ["SweepFeatures", "baseline", "first_spike_current", "baseline_drift", "firing", "adaptation_index",
@@ -71,6 +73,12 @@ SWEEP_FLAG_TEXT = {
                                     "stretch between them only, empty when there is none",
     "ramp_has_no_steady_state": "the main stimulus is a ramp, whose current never settles: "
                                 "steady_state_mv and sag_fraction are empty",
+    "depolarization_block": "full (overshooting) spikes stopped before the end of the "
+                            f"depolarizing step after intervals under {BLOCK_MAX_ISI_MS:g} "
+                            "ms, with no full spike for at "
+                            f"least {BLOCK_SILENCE_TO_ISI:g} of those intervals and "
+                            f"{BLOCK_MIN_SILENCE_MS:g} ms: the cell stopped firing under the "
+                            "current (depolarization block)",
 }
 
 
@@ -401,6 +409,11 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
                            step.baseline_start_s)
     drift = baseline_drift(voltage_mv, sampling_rate_hz, step.offset_s, base)
     fire = fire_over(step, onset_i, offset_i)
+    if (spikes_counted and step.shape == "step" and step.size_pa > 0
+            and "gap_in_step" not in flags
+            and depolarization_block(voltage_mv, rate, times, step.onset_s,
+                                     step.offset_s).blocked):
+        flags.append("depolarization_block")
     steady, lowest, sag = passive_response(voltage_mv, sampling_rate_hz, step, base,
                                            steady_window_ms)
     if step.shape == "ramp":

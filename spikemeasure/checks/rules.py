@@ -98,6 +98,12 @@ QUALITY_RULES: tuple[QualityRule, ...] = (
                 "resting potential within {limit} mV",
                 "`resting_mv` of cells.csv lies within [low, high]",
                 lambda v, lim: lim[0] <= v <= lim[1]),
+    QualityRule("max_bridge_error_mohm", "positive", "20.0", "cells.csv", "bridge_error_mohm",
+                "bridge error (uncompensated electrode resistance) at most {limit} MOhm "
+                "either way",
+                "`bridge_error_mohm` of cells.csv (the voltage jump at the step onset over "
+                "the step) is within the limit either way",
+                lambda v, lim: abs(v) <= lim),
     QualityRule("min_highest_peak_mv", "number", "0.0", "spikes.csv", "peak_mv",
                 "at least one spike peaking at {limit} mV or above",
                 "at least one spike's `peak_mv` of each cell reaches the limit (0 mV: an "

@@ -6,7 +6,9 @@ accepted table of today, with the added columns taken out, must give the same ro
 files, sweeps and spikes, same values to the last digit); peak_to_trough_ms must be
 trough_s - peak_s, in ms, as its definition says. A new column is added to ADDED_COLUMNS when
 the tables are re-accepted with it. The next intended change of values re-accepts the tables
-and replaces these pins (and empties ADDED_COLUMNS).
+and replaces these pins (and empties ADDED_COLUMNS); a change of values in some columns only
+may instead list them in CHANGED_COLUMNS and pin the old tables without them, so the other
+columns are still proved unmoved.
 """
 import csv
 import hashlib
@@ -23,16 +25,27 @@ ADDED_COLUMNS = {
     "spikes.csv": ("peak_to_trough_ms", "electrode"),
     "sweeps.csv": ("electrode", "stimulus_shape", "test_pulse_pa", "ramp_rate_pa_per_s",
                    "first_spike_current_pa"),
-    "cells.csv": ("electrode", "ramp_rheobase_pa"),
+    "cells.csv": ("electrode", "ramp_rheobase_pa", "block_stimulus_pa", "bridge_error_mohm"),
+}
+
+#: Columns whose values were changed on purpose since the pins, left out of the comparison:
+#: a cell's sag within the noise is now 0 with the flag sag_within_noise (the models of the
+#: sample data and of the example lab's cell_1 have no sag current, yet their old values
+#: were 0.003 to 0.035, noise). The cells.csv pins below are those of the accepted tables
+#: before that change, with these columns taken out.
+CHANGED_COLUMNS = {
+    "spikes.csv": (),
+    "sweeps.csv": (),
+    "cells.csv": ("sag_fraction", "flags"),
 }
 
 BEFORE_THE_COLUMN = {
     ("sample_data", "spikes.csv"): "e8efe5e79ffb31af2f9572a082dd085fa04a1f870e04497360bd1874bd0b9b55",
     ("sample_data", "sweeps.csv"): "05d04420989d1ea1c47aa341d8a010d42df94cc2f231a083d662e5b89697a002",
-    ("sample_data", "cells.csv"): "82f360b3d327f19e98fdf3f977f7ea1eca33bf24dcea49e70373a135ab190e68",
+    ("sample_data", "cells.csv"): "074c8194027429afc6d93427ad9e89c1aceecc842cdb61bab0df1ab696cac4dc",
     ("example_lab", "spikes.csv"): "ed7766a3e972e12902bdf81f28cb9e4e3e466973ae803467402586122f6698e2",
     ("example_lab", "sweeps.csv"): "e1e4c083f3b37e2ffa52c95df2cd4b064e4a6bc5572c9f0ccb5e2f58999729f7",
-    ("example_lab", "cells.csv"): "35fdc69213be8ff3ad641418e2d00f21cef846f960d848ddaca345e01e5b0310",
+    ("example_lab", "cells.csv"): "ebc593a9a7c171b110984d83b0cdbc0b72056b796f1e4172c721996c13ea7d81",
 }
 
 
@@ -49,7 +62,7 @@ def without(rows: list[list[str]], column: str) -> list[list[str]]:
 @pytest.mark.parametrize("folder, table", sorted(BEFORE_THE_COLUMN))
 def test_identical_but_for_the_added_column(folder, table):
     rows = rows_of(ACCEPTED / folder / table)
-    for column in ADDED_COLUMNS[table]:
+    for column in ADDED_COLUMNS[table] + CHANGED_COLUMNS[table]:
         rows = without(rows, column)
     digest = hashlib.sha256(json.dumps(rows).encode()).hexdigest()
     assert digest == BEFORE_THE_COLUMN[(folder, table)]
