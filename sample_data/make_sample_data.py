@@ -10,11 +10,17 @@ Two cells are written as NWB with pynwb's intracellular API (one CurrentClampSer
 one CurrentClampStimulusSeries per sweep, paired in the intracellular recordings table
 and sharing a sweep number) and two as NIX with neo's NixIO (one segment per sweep).
 
+Two more files show protocols of real rigs, recorded through a simulated acquisition chain
+(:func:`spikemeasure.testing.record_commands`: 4-pole Bessel filter, noise, sampling at a lower
+rate): a cell given current ramps of three slopes, and a pair of cells recorded at once on two
+electrodes (one NWB file), each sweep a -50 pA test pulse and then a step, one electrode with an
+uncompensated series resistance.
+
 Run from anywhere with::
 
-    python sample_data/make_sample_data.py
+    python sample_data/make_sample_data.py [FILE ...]
 
-The files are written next to this script.  Noise seeds are fixed, so the data are the
+The files (all, or only those named) are written next to this script.  Noise seeds are fixed, so the data are the
 same on every run (the files' creation metadata aside).
 """
 from __future__ import annotations
@@ -33,8 +39,11 @@ sys.path.insert(0, str(HERE.parent))
 from spikemeasure.testing import (  # noqa: E402
     SimulatedSweeps,
     default_membrane_area_cm2,
+    record_commands,
     simulate_current_steps,
 )
+from spikemeasure.testing.commands import ramps, steps_after_test_pulse  # noqa: E402
+from spikemeasure.testing.nwb_files import ElectrodeSweeps, write_electrodes_nwb  # noqa: E402
 
 DURATION_S = 0.8
 STEP_START_S = 0.1
@@ -328,15 +337,89 @@ def write_nix(cell: CellPlan, sweeps: SimulatedSweeps, path: Path) -> None:
         io.write_block(block)
 
 
-def main() -> int:
-    """Simulate and write every sample cell next to this script.
+#: The acquisition chain of the two protocol files: simulated at 100 kHz, filtered by a
+#: 4-pole Bessel at 10 kHz, sampled at 20 kHz.
+SIMULATION_RATE_HZ = 100_000.0
+DECIMATION = 5
+BESSEL_HZ = 10_000.0
+
+RAMP_FILE = "region_a_cell_3_ramps.nwb"
+#: Ramps from 0 pA at 0.5 s to slope x 2 s at 2.5 s, in sweeps of 3 s.
+RAMP_SLOPES_PA_PER_S = (100.0, 150.0, 200.0)
+RAMP_S = (0.5, 2.5)
+RAMP_SWEEP_S = 3.0
+
+PAIR_FILE = "region_b_pair_1.nwb"
+#: Steps from 0.3 to 0.8 s after a -50 pA test pulse from 0.02 to 0.07 s, in sweeps of 1 s.
+PAIR_STEPS_PA = tuple(float(x) for x in np.arange(-100.0, 301.0, 50.0))
+PAIR_STEP_S = (0.3, 0.8)
+PAIR_PULSE_S = (0.02, 0.07)
+PAIR_PULSE_PA = -50.0
+PAIR_SWEEP_S = 1.0
+#: (electrode name, model, membrane area cm^2 or None, noise SD mV, series resistance MOhm, seed)
+PAIR_CELLS = (
+    ("electrode_b3", "wang_buzsaki_1996", None, 0.25, 12.0, 401),
+    ("electrode_b4", "cortical_adapting", 1.6e-4, 0.2, 0.0, 402),
+)
+
+
+def write_ramp_file(path: Path) -> None:
+    """Cell A3 (invented): the adapting cortical model under three current ramps."""
+    commands = ramps(RAMP_SLOPES_PA_PER_S, sampling_rate_hz=SIMULATION_RATE_HZ,
+                     duration_s=RAMP_SWEEP_S, ramp_s=RAMP_S)
+    rec = record_commands("cortical_adapting", commands, simulation_rate_hz=SIMULATION_RATE_HZ,
+                          decimation=DECIMATION, bessel_hz=BESSEL_HZ, noise_mv=0.2,
+                          membrane_area_cm2=1.4e-4, seed=301)
+    cell = ElectrodeSweeps(
+        "electrode_a3", rec.voltage_mv, rec.command_pa, rec.sampling_rate_hz,
+        description="Simulated cell A3 of region A (invented): model cortical_adapting, "
+        "membrane area 1.4e-4 cm^2, ramps of 100, 150 and 200 pA/s from 0.5 to 2.5 s, "
+        "4-pole Bessel 10 kHz, 20 kHz, noise 0.2 mV SD.")
+    write_electrodes_nwb(path, [cell], session_description=SCENARIO + " Cell A3: current "
+                         "ramps.", identifier="sample-region-a-cell-3", sweep_gap_s=5.0,
+                         stimulus_type="current ramps", compact=True)
+
+
+def write_pair_file(path: Path) -> None:
+    """Cells B3 and B4 (invented), recorded at once: a test pulse, then a step, each sweep."""
+    commands = steps_after_test_pulse(PAIR_STEPS_PA, sampling_rate_hz=SIMULATION_RATE_HZ,
+                                      duration_s=PAIR_SWEEP_S, step_s=PAIR_STEP_S,
+                                      pulse_pa=PAIR_PULSE_PA, pulse_s=PAIR_PULSE_S)
+    electrodes = []
+    for name, model, area, noise, series, seed in PAIR_CELLS:
+        rec = record_commands(model, commands, simulation_rate_hz=SIMULATION_RATE_HZ,
+                              decimation=DECIMATION, bessel_hz=BESSEL_HZ, noise_mv=noise,
+                              series_resistance_mohm=series, membrane_area_cm2=area, seed=seed)
+        electrodes.append(ElectrodeSweeps(
+            name, rec.voltage_mv, rec.command_pa, rec.sampling_rate_hz,
+            description=f"Simulated cell (invented): model {model}, noise {noise:g} mV SD, "
+            f"uncompensated series resistance {series:g} MOhm, 4-pole Bessel 10 kHz, 20 kHz."))
+    write_electrodes_nwb(path, electrodes, session_description=SCENARIO + " Cells B3 and B4, "
+                         "recorded at once on two electrodes.", identifier="sample-region-b-pair-1",
+                         sweep_gap_s=3.0, stimulus_type="test pulse and current steps", compact=True)
+
+
+def main(names: list[str] | None = None) -> int:
+    """Simulate and write the sample files next to this script (all, or those named).
 
     Returns
     -------
     int
-        Exit status, 0 on success.
+        Exit status, 0 on success; 2 for a name that is not a sample file.
     """
+    known = [c.file_name for c in CELLS] + [RAMP_FILE, PAIR_FILE]
+    wanted = set(names or known)
+    if wanted - set(known):
+        print(f"not a sample file: {', '.join(sorted(wanted - set(known)))}; "
+              f"the files are {', '.join(known)}", file=sys.stderr)
+        return 2
+    for name, write in ((RAMP_FILE, write_ramp_file), (PAIR_FILE, write_pair_file)):
+        if name in wanted:
+            write(HERE / name)
+            print(f"{name}: {(HERE / name).stat().st_size / 1e6:.2f} MB")
     for cell in CELLS:
+        if cell.file_name not in wanted:
+            continue
         sweeps = simulate(cell)
         path = HERE / cell.file_name
         if path.suffix == ".nwb":
@@ -350,4 +433,4 @@ def main() -> int:
 
 
 if __name__ == "__main__":
-    sys.exit(main())
+    sys.exit(main(sys.argv[1:]))

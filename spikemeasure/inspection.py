@@ -84,7 +84,7 @@ def inspect_file(path: str, settings: DetectionSettings = DetectionSettings(), *
                                        for c in recording.channels) or "-"),
         "",
         (f"{'electrode':<{width}}  " if named else "")
-        + f"{'sweep':>5}  {'duration':>9}  {'holding':>10}  {'step':>10}  {'step from':>9}  "
+        + f"{'sweep':>5}  {'duration':>9}  {'holding':>10}  {'stimulus':>10}  {'from':>9}  "
         f"{'to':>7}  {'spikes':>6}  note",
     ]
     measured = 0
@@ -116,7 +116,7 @@ def inspect_file(path: str, settings: DetectionSettings = DetectionSettings(), *
         lines.append((f"{s.electrode:<{width}}  " if named else "")
                      + f"{s.index:>5}  {s.duration_s:>7.3f} s  {hold:>10}  {size:>10}  "
                      f"{start:>9}  {stop:>7}  {spikes:>6}  {note}")
-    lines += _epoch_lines(results)
+    lines += _epoch_lines(results, named)
     if recording.problems:
         lines += ["", "skipped:"] + [f"  {p}" for p in recording.problems]
     total = sum(len(r.spikes) for r in results if r.spikes is not None)
@@ -164,8 +164,9 @@ def _epoch_roles(found: Stimulus, step: CurrentStep | None) -> list[str]:
     return roles
 
 
-def _epoch_lines(results: list[SweepResult]) -> list[str]:
-    """Each sweep's command as epochs, the main stimulus and test pulse marked."""
+def _epoch_lines(results: list[SweepResult], named: bool = False) -> list[str]:
+    """Each sweep's command as epochs, the main stimulus and test pulse marked (each sweep
+    named by its electrode too when `named`: a file of several cells)."""
     lines = []
     for r in results:
         s = r.sweep
@@ -180,7 +181,8 @@ def _epoch_lines(results: list[SweepResult]) -> list[str]:
         more = len(texts) - MAX_EPOCHS_LISTED
         texts = texts[:MAX_EPOCHS_LISTED] + ([f"and {more} more"] if more > 0 else [])
         shape = r.step.shape if r.step is not None else "none"
-        lines.append(f"  sweep {s.index}: {shape}; " + ", ".join(texts))
+        where = f"{s.electrode}, sweep {s.index}" if named else f"sweep {s.index}"
+        lines.append(f"  {where}: {shape}; " + ", ".join(texts))
     if not lines:
         return []
     return ["", "command epochs (levels and ramps; main stimulus and test pulse marked):"] + lines
@@ -201,6 +203,9 @@ def _cell_lines(cell) -> list[str]:
          + (f" (fit R^2 {cell.membrane_tau_fit_r2:.3f})"
             if cell.membrane_tau_fit_r2 == cell.membrane_tau_fit_r2 else "")),
         ("sag fraction", _fmt(cell.sag_fraction, "", 3).strip()),
+        ("bridge error", _fmt(cell.bridge_error_mohm, "MOhm")),
+        ("depolarization block", "-" if cell.block_stimulus_pa != cell.block_stimulus_pa
+         else f"from the {cell.block_stimulus_pa:g} pA step"),
         ("first spike at rheobase", "-" if cell.rheobase_threshold_mv != cell.rheobase_threshold_mv
          else f"threshold {cell.rheobase_threshold_mv:.1f} mV, amplitude "
               f"{cell.rheobase_amplitude_mv:.1f} mV, half-width {cell.rheobase_half_width_ms:.2f}"

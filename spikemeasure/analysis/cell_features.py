@@ -13,7 +13,7 @@ import numpy as np
 from scipy.ndimage import uniform_filter1d
 from scipy.optimize import OptimizeWarning, curve_fit
 
-from .bridge import MIN_TAU_TO_SETTLE, SETTLE_MS, bridge_error
+from .bridge import MIN_TAU_TO_SETTLE, SETTLE_MS, bridge_error, edge_jump
 from .fluctuation import slow_fluctuation_mv
 from .sweep_features import BASELINE_WINDOW_MS, MIN_WINDOW_MS
 
@@ -510,10 +510,17 @@ def _passive_values(col: dict, slow: np.ndarray, lower: np.ndarray, gapped: np.n
 def _bridge_median(col: dict, sweeps: np.ndarray, traces: list[tuple[np.ndarray, float]]
                    ) -> float:
     """bridge_error_mohm (see :func:`cell_features`): the median over `sweeps` of
-    :func:`~spikemeasure.analysis.bridge.bridge_error`."""
+    :func:`~spikemeasure.analysis.bridge.bridge_error`, and over the onsets of every sweep's
+    hyperpolarizing test pulse (a test pulse is there to show the electrode's jump; with one
+    per sweep the median rests on many edges, not only on the few hyperpolarizing steps)."""
     found = [bridge_error(traces[j][0], traces[j][1], col["stimulus_start_s"][j],
                           col["stimulus_end_s"][j], col["stimulus_pa"][j]).bridge_error_mohm
              for j in sweeps]
+    pulse_pa = np.asarray(col.get("test_pulse_pa", []), dtype=float)
+    pulse_s = np.asarray(col.get("test_pulse_start_s", []), dtype=float)
+    for j in np.flatnonzero(np.isfinite(pulse_s) & (pulse_pa < 0)) if pulse_s.size else ():
+        jump = edge_jump(traces[j][0], traces[j][1], float(pulse_s[j]))
+        found.append(jump / float(pulse_pa[j]) * 1e3)  # mV / pA = GOhm
     found = [r for r in found if np.isfinite(r)]
     return float(np.median(found)) if found else float("nan")
 
@@ -601,7 +608,9 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
     - input_resistance_mohm: :func:`input_resistance` of steady_state_mv - baseline_mv over
       hyperpolarizing, spike-free sweeps.
     - bridge_error_mohm: the median over those sweeps (without gaps) of
-      :func:`~spikemeasure.analysis.bridge.bridge_error`.
+      :func:`~spikemeasure.analysis.bridge.bridge_error`, and over every sweep's
+      hyperpolarizing test pulse of its onset's :func:`~spikemeasure.analysis.bridge.edge_jump`
+      over the pulse size.
     - membrane_tau_ms: :func:`fit_membrane_tau` on the smallest hyperpolarizing spike-free
       step; empty (flag ``tau_fit_poor``) when the residual RMS exceeds
       :data:`MAX_RESIDUAL_TO_NOISE` times the sweep's baseline noise or the deflection is under
@@ -650,7 +659,7 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
            ("stimulus_pa", "holding_pa", "baseline_mv", "baseline_noise_mv", "spike_count",
             "firing_rate_hz", "steady_state_mv", "sag_fraction", "stimulus_start_s",
             "stimulus_end_s")} if n else {}
-    for k in ("min_mv", "baseline_drift_mv"):  # judge sag and tau against noise; optional
+    for k in ("min_mv", "baseline_drift_mv", "test_pulse_pa", "test_pulse_start_s"):  # optional
         if n:
             col[k] = np.array([r.get(k, nan) for r in sweep_rows], dtype=float)
     sweep_flags = [set(filter(None, str(r.get("flags", "")).split(";"))) for r in sweep_rows]

@@ -109,6 +109,7 @@ class SweepFeatures:
     test_pulse_pa: float = float("nan")
     ramp_rate_pa_per_s: float = float("nan")
     first_spike_current_pa: float = float("nan")
+    test_pulse_start_s: float = float("nan")
 
     def as_dict(self) -> dict:
         out = asdict(self)
@@ -442,6 +443,7 @@ def _stimulus_values(step: CurrentStep, latency_ms: float, sampling_rate_hz: flo
                      command_pa: np.ndarray | None) -> dict:
     """The stimulus fields of :class:`SweepFeatures` beyond its size and times."""
     return {"stimulus_shape": step.shape, "test_pulse_pa": step.test_pulse_pa,
+            "test_pulse_start_s": step.test_pulse_start_s,
             "ramp_rate_pa_per_s": step.ramp_rate_pa_per_s,
             "first_spike_current_pa": first_spike_current(step, latency_ms, sampling_rate_hz,
                                                           command_pa)}

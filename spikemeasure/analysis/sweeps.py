@@ -59,6 +59,8 @@ class CurrentStep:
     baseline_start_s : float
         Start of the quiet stretch before onset that the baseline may use (the end of a test
         pulse, or 0 when the sweep is at holding from its start).
+    test_pulse_start_s, test_pulse_end_s : float
+        The test pulse's first sample and the first sample after it, s; NaN when none.
     """
 
     onset_s: float
@@ -69,6 +71,8 @@ class CurrentStep:
     test_pulse_pa: float = float("nan")
     ramp_rate_pa_per_s: float = float("nan")
     baseline_start_s: float = 0.0
+    test_pulse_start_s: float = float("nan")
+    test_pulse_end_s: float = float("nan")
 
     @property
     def duration_s(self) -> float:
@@ -227,7 +231,9 @@ def _step_of(found: Stimulus) -> CurrentStep | None:
                        holding_pa=found.holding_pa, shape=found.shape,
                        test_pulse_pa=found.test_pulse_pa,
                        ramp_rate_pa_per_s=found.ramp_rate_pa_per_s,
-                       baseline_start_s=found.baseline_start_s)
+                       baseline_start_s=found.baseline_start_s,
+                       test_pulse_start_s=found.test_pulse_s[0],
+                       test_pulse_end_s=found.test_pulse_s[1])
 
 
 def step_from_times(start_s: float, end_s: float, duration_s: float,
@@ -338,11 +344,14 @@ def _zero_step(sweep: Sweep, stimulus: Stimulus | None, onset_s: float,
     cmd = np.asarray(sweep.command_pa, dtype=float)
     rate = sweep.sampling_rate_hz
     holding, pulse, quiet = float(np.mean(cmd)), float("nan"), 0.0
+    pulse_s = (float("nan"), float("nan"))
     if stimulus is not None and np.isfinite(stimulus.test_pulse_pa):
         a, b = (int(round(x * rate)) for x in stimulus.test_pulse_s)
         outside = np.concatenate([cmd[:a], cmd[b:]])
         holding = float(np.mean(outside))
         pulse = float(np.mean(cmd[a:b])) - holding
         quiet = stimulus.test_pulse_s[1] if stimulus.test_pulse_s[1] <= onset_s else 0.0
+        pulse_s = tuple(stimulus.test_pulse_s)
     return CurrentStep(onset_s, min(offset_s, sweep.duration_s), 0.0, holding,
-                       test_pulse_pa=pulse, baseline_start_s=quiet)
+                       test_pulse_pa=pulse, baseline_start_s=quiet,
+                       test_pulse_start_s=pulse_s[0], test_pulse_end_s=pulse_s[1])

@@ -80,7 +80,8 @@ def write_electrodes_nwb(path: str | Path, electrodes: Sequence[ElectrodeSweeps]
                          session_description: str = "simulated recording: model cells under "
                          "current steps, one per electrode, recorded at once",
                          identifier: str = "simulated-electrodes",
-                         sweep_gap_s: float = 1.0) -> Path:
+                         sweep_gap_s: float = 1.0, stimulus_type: str = "current steps",
+                         compact: bool = False) -> Path:
     """Write the sweeps of several electrodes, recorded at once, as one NWB file.
 
     Parameters
@@ -96,6 +97,11 @@ def write_electrodes_nwb(path: str | Path, electrodes: Sequence[ElectrodeSweeps]
         The file's identifier.
     sweep_gap_s : float, optional
         Start of sweep k is ``k * sweep_gap_s`` seconds after the session start.
+    stimulus_type : str, optional
+        The sequential recording's stimulus type.
+    compact : bool, optional
+        Store float32, gzip-compressed with the shuffle filter (as an acquisition program
+        would, for small files) instead of float64 as given.
 
     Returns
     -------
@@ -117,6 +123,15 @@ def write_electrodes_nwb(path: str | Path, electrodes: Sequence[ElectrodeSweeps]
     from pynwb.icephys import CurrentClampSeries, CurrentClampStimulusSeries
 
     checked = _checked(electrodes)
+
+    def stored(data: np.ndarray):
+        if not compact:
+            return data
+        from hdmf.backends.hdf5.h5_utils import H5DataIO
+
+        return H5DataIO(data.astype(np.float32), compression="gzip", compression_opts=4,
+                        shuffle=True)
+
     nwb = NWBFile(session_description=session_description, identifier=identifier,
                   session_start_time=datetime.datetime(2026, 1, 1,
                                                        tzinfo=datetime.timezone.utc))
@@ -129,18 +144,18 @@ def write_electrodes_nwb(path: str | Path, electrodes: Sequence[ElectrodeSweeps]
         for electrode, e, v, c in made:
             start = sweep * float(sweep_gap_s)
             response = CurrentClampSeries(
-                name=f"{e.name}_voltage_{sweep}", data=v[sweep], electrode=electrode,
+                name=f"{e.name}_voltage_{sweep}", data=stored(v[sweep]), electrode=electrode,
                 gain=1.0, rate=float(e.sampling_rate_hz), starting_time=start,
                 sweep_number=sweep, conversion=_VOLT_PER_MV)
             stimulus = CurrentClampStimulusSeries(
-                name=f"{e.name}_command_{sweep}", data=c[sweep], electrode=electrode,
+                name=f"{e.name}_command_{sweep}", data=stored(c[sweep]), electrode=electrode,
                 gain=1.0, rate=float(e.sampling_rate_hz), starting_time=start,
                 sweep_number=sweep, conversion=_AMPERE_PER_PA)
             rows.append(nwb.add_intracellular_recording(electrode=electrode, stimulus=stimulus,
                                                         response=response))
         simultaneous.append(nwb.add_icephys_simultaneous_recording(recordings=rows))
     nwb.add_icephys_sequential_recording(simultaneous_recordings=simultaneous,
-                                         stimulus_type="current steps")
+                                         stimulus_type=stimulus_type)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         with NWBHDF5IO(str(path), "w") as io:

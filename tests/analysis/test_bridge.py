@@ -118,3 +118,29 @@ class TestBridgeErrorInModels:
         cell, _ = recorded_cell("hodgkin_huxley_1952", 15.0, noise_mv=0.1, seed=5)
         assert np.isnan(cell.bridge_error_mohm)
         assert "bridge_error_not_separable" in cell.flags
+
+
+class TestBridgeErrorFromTestPulses:
+    """Source: record_commands adds R_s x I (Ohm's law) before its 4-pole Bessel filter; the
+    protocol is a -50 pA test pulse then a step in every sweep, at 0.25 mV of noise, where a
+    single -50 pA edge scatters by about 3 MOhm (measured on the noise-free and noisy runs of
+    this simulation), so the median needs the test pulses' edges too."""
+
+    @pytest.mark.parametrize("model, area, rs, seed", [
+        ("wang_buzsaki_1996", None, 12.0, 401),
+        ("cortical_adapting", 1.6e-4, 0.0, 402),
+        ("cortical_adapting", 1.6e-4, 20.0, 403),
+    ])
+    def test_series_resistance_is_recovered_with_test_pulses(self, model, area, rs, seed):
+        from spikemeasure.testing.commands import steps_after_test_pulse
+
+        sizes = np.arange(-100.0, 301.0, 50.0)
+        cmd = steps_after_test_pulse(sizes, sampling_rate_hz=SIM_RATE, duration_s=1.0,
+                                     step_s=(0.3, 0.8), pulse_pa=-50.0, pulse_s=(0.02, 0.07))
+        sim = record_commands(model, cmd, simulation_rate_hz=SIM_RATE, decimation=5,
+                              bessel_hz=10_000.0, noise_mv=0.25, series_resistance_mohm=rs,
+                              membrane_area_cm2=area, seed=seed)
+        sweeps = [Sweep(v, sim.sampling_rate_hz, c, file="pulses.nwb", index=k)
+                  for k, (v, c) in enumerate(zip(sim.voltage_mv, sim.command_pa))]
+        cell = cell_summary(measure_recording(Recording("pulses.nwb", "simulated", sweeps)))
+        assert cell.bridge_error_mohm == pytest.approx(rs, abs=2.0)

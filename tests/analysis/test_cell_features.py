@@ -158,12 +158,13 @@ def test_measure_tables_agree_with_the_api(tmp_path):
         recording = read_recording(path, shown_as=path.name)
         results = measure_recording(recording)
         expected_sweeps += format_rows(sweep_table(results), SWEEP_COLUMNS)
-        electrode, = recording.electrodes()  # one cell per sample file
-        expected_cells += format_rows(cell_table([(path.name, electrode,
-                                                   cell_summary(results))]), CELL_COLUMNS)
+        for electrode in recording.electrodes():  # one cell per electrode
+            mine = [r for r in results if r.sweep.electrode == electrode]
+            expected_cells += format_rows(cell_table([(path.name, electrode,
+                                                       cell_summary(mine))]), CELL_COLUMNS)
     assert sweep_rows[1:] == expected_sweeps
     assert cell_rows[1:] == expected_cells
-    assert len(cell_rows) == 5
+    assert len(cell_rows) == 1 + 7  # six files, one of them two cells
 
 
 def test_rheobase_resolution():
