@@ -48,5 +48,8 @@ def shown_spike(results: Sequence[SweepResult], cell: CellFeatures
 
 
 def figure_title(name: str | None, results: Sequence[SweepResult], what: str) -> str:
-    """A cell figure's title: `name` (default: the sweeps' file), then `what`."""
+    """A cell figure's title: `name` (default: the sweeps' file, with the electrode when the
+    file holds several cells), then `what`."""
+    if results and results[0].sweep.cells_in_file > 1:
+        name = f"{name or results[0].sweep.file}, {results[0].sweep.electrode}"
     return title(name, results[0].sweep.file if results else "", what)

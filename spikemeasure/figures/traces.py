@@ -171,12 +171,17 @@ def _colour_bar(kept, measured: Sequence[SweepResult], cmap, norm) -> None:
     if cmap is None or len(steps) < 2:  # one step size needs no colour key
         return
     mappable = matplotlib().cm.ScalarMappable(norm=norm, cmap=cmap)
+    shapes = {r.step.shape for r in measured if r.step is not None}
+    label = ("step size (pA)" if shapes <= {"step"} else
+             "current at the ramp's end (pA)" if shapes == {"ramp"} else "stimulus (pA)")
     if kept.colorbar is None:
         fig = kept.fig
         kept.colorbar = fig.colorbar(mappable, cax=fig.add_axes((0.875, 0.085, 0.018, 0.825)))
-        kept.colorbar.set_label("step size (pA)")
+        kept.colorbar.set_label(label)
         return
     bar = kept.colorbar
+    if bar.ax.get_ylabel() != label:
+        bar.set_label(label)
     if (bar.norm.vmin, bar.norm.vmax, bar.cmap.name) != (norm.vmin, norm.vmax, cmap.name):
         bar.update_normal(mappable)
     bar.ax.set_visible(True)

@@ -157,9 +157,9 @@ def test_measure_tables_agree_with_the_api(tmp_path):
     for path in sorted(p for p in data.iterdir() if p.suffix in (".nwb", ".nix")):
         recording = read_recording(path, shown_as=path.name)
         results = measure_recording(recording)
-        expected_sweeps += format_rows(sweep_table(results), SWEEP_COLUMNS)
-        for electrode in recording.electrodes():  # one cell per electrode
+        for electrode in recording.electrodes():  # one cell per electrode, its rows together
             mine = [r for r in results if r.sweep.electrode == electrode]
+            expected_sweeps += format_rows(sweep_table(mine), SWEEP_COLUMNS)
             expected_cells += format_rows(cell_table([(path.name, electrode,
                                                        cell_summary(mine))]), CELL_COLUMNS)
     assert sweep_rows[1:] == expected_sweeps

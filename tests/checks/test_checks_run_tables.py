@@ -101,7 +101,8 @@ class TestTypedColumns:
         one = check_tables(in_memory, settings, accepted=from_folder)
         two = check_run(sample_results, settings)
         assert report_dict(one) == report_dict(two)
-        assert one.passed and len(one.cases) == 4 * (1 + len(LIMITS)) + 4
+        # six sample files (sample_data/README.md): "measured" and each limit, and regression
+        assert one.passed and len(one.cases) == 6 * (1 + len(LIMITS)) + 6
 
     def test_a_missing_column_in_memory_is_named(self, sample_results):
         spikes = csv_columns(sample_results / "spikes.csv")
