@@ -128,9 +128,9 @@ def reference_spikes(voltage_mv: np.ndarray, sampling_rate_hz: float,
         thresholds.append(_crossing(rate, last_up, ONSET_RATE_V_PER_S))
     search = int(round(SEARCH_WINDOW_S * fs))
     for k, (onset, peak) in enumerate(pairs):
-        thr_i = thresholds[k]
-        thr_mv = float(np.interp(thr_i, np.arange(v.size), v))
-        peak_i, peak_mv = _parabola(v, peak)
+        threshold_at = thresholds[k]
+        thr_mv = float(np.interp(threshold_at, np.arange(v.size), v))
+        peak_at, peak_mv = _parabola(v, peak)
         if k + 1 < n:
             stop = int(np.floor(thresholds[k + 1]))
         elif step_end_s is not None and peak < step_end_s * fs:
@@ -150,17 +150,17 @@ def reference_spikes(voltage_mv: np.ndarray, sampling_rate_hz: float,
             values["ahp_depth_mv"][k] = thr_mv - v[trough]
             values["min_dvdt_v_per_s"][k] = _parabola(rate, peak + int(np.argmin(
                 rate[peak:trough + 1])))[1]
-        first = int(np.ceil(thr_i))
+        first = int(np.ceil(threshold_at))
         values["max_dvdt_v_per_s"][k] = _parabola(rate, first + int(np.argmax(
             rate[first:peak + 1])))[1]
-        values["threshold_s"][k] = thr_i / fs
+        values["threshold_s"][k] = threshold_at / fs
         values["threshold_mv"][k] = thr_mv
-        values["peak_s"][k] = peak_i / fs
+        values["peak_s"][k] = peak_at / fs
         values["peak_mv"][k] = peak_mv
         values["amplitude_mv"][k] = peak_mv - thr_mv
-        values["rise_time_ms"][k] = (peak_i - thr_i) / fs * 1e3
+        values["rise_time_ms"][k] = (peak_at - threshold_at) / fs * 1e3
         if k:
-            values["isi_ms"][k] = (thr_i - thresholds[k - 1]) / fs * 1e3
+            values["isi_ms"][k] = (threshold_at - thresholds[k - 1]) / fs * 1e3
     return ReferenceSpikes(**values)
 
 
