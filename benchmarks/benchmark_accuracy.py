@@ -23,6 +23,7 @@ import datetime
 import sys
 import tempfile
 import time
+from collections import Counter
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -101,20 +102,24 @@ class Comparisons:
     truth: dict[str, list[float]] = field(default_factory=dict)
     measured: dict[str, list[float]] = field(default_factory=dict)
     sd: dict[str, list[float]] = field(default_factory=dict)
-    acquisition: dict[str, list[str]] = field(default_factory=dict)
+    condition: dict[str, list[dict[str, str]]] = field(default_factory=dict)
+    empty_flags: dict[str, Counter] = field(default_factory=dict)
     true_spikes: int = 0
     missed_spikes: int = 0
     extra_spikes: int = 0
     cells: int = 0
 
     def add(self, feature: str, truth: float, measured: float, sd: float,
-            acquisition: str) -> None:
+            condition: dict[str, str], flags: str = "") -> None:
         if np.isnan(truth) and np.isnan(measured):
             return  # empty by definition on both sides (no sag on a depolarizing step)
         self.truth.setdefault(feature, []).append(float(truth))
         self.measured.setdefault(feature, []).append(float(measured))
         self.sd.setdefault(feature, []).append(float(sd))
-        self.acquisition.setdefault(feature, []).append(acquisition)
+        self.condition.setdefault(feature, []).append(condition)
+        if np.isnan(measured):
+            reasons = self.empty_flags.setdefault(feature, Counter())
+            reasons.update(flags.split(";") if flags else ["no flag"])
 
 
 def step_commands(steps_pa: tuple[int, ...]) -> np.ndarray:
@@ -156,7 +161,7 @@ def _column(table, name: str, rows: np.ndarray) -> np.ndarray:
 
 
 def compare_spikes(out: Comparisons, truth: Truth, spikes, electrode: str,
-                   acquisition: str) -> None:
+                   condition: dict[str, str]) -> None:
     """Match measured spikes to true ones by peak time; compare each matched spike."""
     in_cell = spikes["electrode"] == electrode
     for sweep, true in enumerate(truth.spikes):
@@ -175,12 +180,13 @@ def compare_spikes(out: Comparisons, truth: Truth, spikes, electrode: str,
                 if level == "spike":
                     out.add(feature, getattr(true, feature)[k],
                             _column(spikes, feature, rows)[j],
-                            _column(spikes, feature + "_sd", rows)[j], acquisition)
+                            _column(spikes, feature + "_sd", rows)[j], condition,
+                            str(spikes["flags"][rows][j]))
         out.extra_spikes += int(np.count_nonzero(~used))
 
 
 def compare_sweeps_and_cell(out: Comparisons, truth: Truth, results, electrode: str,
-                            acquisition: str) -> None:
+                            condition: dict[str, str]) -> None:
     """Compare the sweep rows of one cell and its cell row."""
     rows = results.sweeps["electrode"] == electrode
     sweep_index = results.sweeps["sweep"][rows]
@@ -188,17 +194,24 @@ def compare_sweeps_and_cell(out: Comparisons, truth: Truth, results, electrode: 
         if level == "sweep":
             measured = _column(results.sweeps, feature, rows)
             sds = _column(results.sweeps, feature + "_sd", rows)
+            flags = results.sweeps["flags"][rows]
             for sweep, true in enumerate(truth.sweeps):
                 at = np.nonzero(sweep_index == sweep)[0]
-                value, sd = (measured[at[0]], sds[at[0]]) if at.size else (np.nan, np.nan)
-                out.add(feature, float(getattr(true, feature)), value, sd, acquisition)
+                if at.size == 0:
+                    out.add(feature, float(getattr(true, feature)), np.nan, np.nan, condition,
+                            "sweep not measured")
+                    continue
+                out.add(feature, float(getattr(true, feature)), measured[at[0]], sds[at[0]],
+                        condition, str(flags[at[0]]))
     cell_rows = results.cells["electrode"] == electrode
     for feature, (level, _, _) in TOLERANCES.items():
         if level == "cell":
             measured = _column(results.cells, feature, cell_rows)
             sds = _column(results.cells, feature + "_sd", cell_rows)
+            flags = results.cells["flags"][cell_rows]
             out.add(feature, truth.cell[feature], measured[0] if measured.size else np.nan,
-                    sds[0] if sds.size else np.nan, acquisition)
+                    sds[0] if sds.size else np.nan, condition,
+                    str(flags[0]) if flags.size else "cell not measured")
     out.cells += 1
 
 
@@ -229,9 +242,11 @@ def run_condition(out: Comparisons, model: str, acquisition: str, artefacts: str
     seconds = time.perf_counter() - start
     for problem in results.problems:
         print(f"problem: {problem}", file=sys.stderr)
-    for electrode in electrodes:
-        compare_spikes(out, truth, results.spikes, electrode.name, acquisition)
-        compare_sweeps_and_cell(out, truth, results, electrode.name, acquisition)
+    for noise, electrode in zip(noise_levels, electrodes):
+        condition = {"model": model, "acquisition": acquisition, "artefacts": artefacts,
+                     "noise": f"{noise:g} mV"}
+        compare_spikes(out, truth, results.spikes, electrode.name, condition)
+        compare_sweeps_and_cell(out, truth, results, electrode.name, condition)
     return seconds
 
 
@@ -285,9 +300,10 @@ def feature_table(out: Comparisons) -> list[str]:
     return lines
 
 
-def acquisition_table(out: Comparisons) -> list[str]:
-    """Markdown rows: share within tolerance per feature and acquisition."""
-    names = list(ACQUISITIONS)
+def group_table(out: Comparisons, key: str) -> list[str]:
+    """Markdown rows: share within tolerance per feature and per value of a condition `key`
+    (model, acquisition, artefacts, noise), in the order first met."""
+    names = list(dict.fromkeys(c[key] for conds in out.condition.values() for c in conds))
     lines = ["| feature | " + " | ".join(names) + " |",
              "| --- |" + " --- |" * len(names)]
     for feature in TOLERANCES:
@@ -295,10 +311,20 @@ def acquisition_table(out: Comparisons) -> list[str]:
             continue
         truth = np.asarray(out.truth[feature])
         ok = within_tolerance(feature, truth, np.asarray(out.measured[feature]))
-        where = np.asarray(out.acquisition[feature])
+        where = np.asarray([c[key] for c in out.condition[feature]])
         cells = [f"{ok[where == name].mean():.1%}" if np.any(where == name) else "-"
                  for name in names]
         lines.append(f"| {feature} | " + " | ".join(cells) + " |")
+    return lines
+
+
+def empty_table(out: Comparisons) -> list[str]:
+    """Markdown rows: values left empty where the truth has one, with the rows' flags."""
+    lines = ["| feature | empty | flags of those rows (count) |", "| --- | --- | --- |"]
+    for feature, reasons in out.empty_flags.items():
+        empty = int(np.count_nonzero(np.isnan(out.measured[feature])))
+        text = ", ".join(f"{flag} ({n})" for flag, n in reasons.most_common())
+        lines.append(f"| {feature} | {empty} | {text} |")
     return lines
 
 
@@ -354,7 +380,9 @@ def main() -> None:
             f" mV x {len(CELLS)} models)")
     lines = summary(out, time.perf_counter() - start, measuring, plan)
     lines += ["", "### Per feature", ""] + feature_table(out)
-    lines += ["", "### Share within tolerance per acquisition", ""] + acquisition_table(out)
+    for key in ("acquisition", "noise", "artefacts", "model"):
+        lines += ["", f"### Share within tolerance per {key}", ""] + group_table(out, key)
+    lines += ["", "### Empty values", ""] + empty_table(out)
     text = "\n".join(lines)
     print(text)
     target = Path(__file__).resolve().parent / "output"
