@@ -300,20 +300,33 @@ def feature_table(out: Comparisons) -> list[str]:
     return lines
 
 
-def group_table(out: Comparisons, key: str) -> list[str]:
-    """Markdown rows: share within tolerance per feature and per value of a condition `key`
-    (model, acquisition, artefacts, noise), in the order first met."""
+def group_table(out: Comparisons, key: str, median: bool = False) -> list[str]:
+    """Markdown rows: per feature and per value of a condition `key` (model, acquisition,
+    artefacts, noise), in the order first met, the share within tolerance or (`median`) the
+    median error, relative for features with a relative tolerance."""
     names = list(dict.fromkeys(c[key] for conds in out.condition.values() for c in conds))
     lines = ["| feature | " + " | ".join(names) + " |",
              "| --- |" + " --- |" * len(names)]
-    for feature in TOLERANCES:
+    for feature, (_, _, relative) in TOLERANCES.items():
         if feature not in out.truth:
             continue
         truth = np.asarray(out.truth[feature])
-        ok = within_tolerance(feature, truth, np.asarray(out.measured[feature]))
+        measured = np.asarray(out.measured[feature])
+        ok = within_tolerance(feature, truth, measured)
+        error = (measured - truth) / np.abs(truth) if relative else measured - truth
         where = np.asarray([c[key] for c in out.condition[feature]])
-        cells = [f"{ok[where == name].mean():.1%}" if np.any(where == name) else "-"
-                 for name in names]
+        cells = []
+        for name in names:
+            here = (where == name) & np.isfinite(error)
+            if not np.any(where == name):
+                cells.append("-")
+            elif not median:
+                cells.append(f"{ok[where == name].mean():.1%}")
+            elif not here.any():
+                cells.append("empty")
+            else:
+                value = np.median(error[here])
+                cells.append(f"{value:+.1%}" if relative else f"{value:+.3g}")
         lines.append(f"| {feature} | " + " | ".join(cells) + " |")
     return lines
 
@@ -382,6 +395,8 @@ def main() -> None:
     lines += ["", "### Per feature", ""] + feature_table(out)
     for key in ("acquisition", "noise", "artefacts", "model"):
         lines += ["", f"### Share within tolerance per {key}", ""] + group_table(out, key)
+    lines += ["", "### Median error per acquisition (relative where the tolerance is)", ""]
+    lines += group_table(out, "acquisition", median=True)
     lines += ["", "### Empty values", ""] + empty_table(out)
     text = "\n".join(lines)
     print(text)
