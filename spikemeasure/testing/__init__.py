@@ -1,6 +1,6 @@
 """Simulated recordings with a known answer, for the sample data, examples, benchmarks and tests.
 
-Published single-compartment conductance models (:mod:`.models`), their time integration
+Published single-compartment conductance models and two passive membranes (:mod:`.models`), their time integration
 under a current command (:mod:`.integration`) and square current-step protocols with
 measurement noise (:mod:`.protocols`), and an acquisition chain (bridge error, synaptic
 background, hum, drift, Bessel filter, noise, sampling: :mod:`.acquisition`).  numpy only.  The measuring pipeline never

@@ -122,7 +122,8 @@ def _integrate(
     for inf, rate in model.kinetic_gates(grid):
         decay = np.exp(-dt * rate)
         rows.extend([decay, inf * (1.0 - decay)])
-    gate_table = _VoltageTable(rows)
+    # A passive membrane has no gate: no table, no gate update.
+    gate_table = _VoltageTable(rows) if rows else None
     instantaneous_rows = model.instantaneous_gates(grid)
     instant_table = _VoltageTable(instantaneous_rows) if instantaneous_rows else None
 
@@ -144,9 +145,10 @@ def _integrate(
             for _ in range(n_sub):
                 # Gates advance from t - dt/2 to t + dt/2 by the exact solution of
                 # their linear equations at fixed V(t): a Rush-Larsen step centred on t.
-                coef = gate_table(v)
-                gates *= coef[0::2]
-                gates += coef[1::2]
+                if gate_table is not None:
+                    coef = gate_table(v)
+                    gates *= coef[0::2]
+                    gates += coef[1::2]
                 if instant_table is None:
                     instant = no_instant
                 else:

@@ -1,6 +1,6 @@
 """Published single-compartment conductance models, numpy only.
 
-Three Hodgkin-Huxley-type models, each giving the steady states and relaxation rates of
+Three Hodgkin-Huxley-type models and two passive membranes, each giving the steady states and relaxation rates of
 its gates and its membrane conductances, for the integrator in
 :mod:`spikemeasure.testing.integration`:
 
@@ -19,6 +19,12 @@ its gates and its membrane conductances, for the integrator in
     A regular-spiking cortical pyramidal cell whose slow M-type K+ current produces
     spike-frequency adaptation (last interspike interval 1.3-2 times the first);
     spikes peak near +48 mV with a half-width of ~0.7 ms.
+``"passive_rc"``
+    A passive RC membrane (tau 20 ms, 200 MOhm, rest -70 mV): a step response with a
+    closed form, for input resistance and time constant.
+``"passive_sag"``
+    The same membrane with an Ih-like hyperpolarization-activated current: a sag on
+    hyperpolarizing steps, no spikes.
 
 The behaviour described is as simulated here, with the default membrane areas.
 Membrane currents in the models are densities (uA/cm^2); a command in pA is
@@ -254,9 +260,66 @@ class _CorticalAdapting(_Model):
         return g_total, g_e
 
 
+class _PassiveMembrane(_Model):
+    """A passive RC membrane: capacitance and one leak, no voltage-gated current.
+
+    C dV/dt = -g_leak (V - E_leak) + I.  The response to a current step I from rest is the
+    closed form V(t) = E_leak + I R (1 - exp(-t / tau)) with R = 1 / (g_leak A) and
+    tau = C / g_leak (the RC circuit; any text on passive membranes).  Here tau = 20 ms and,
+    with the default area, R = 200 MOhm.
+    """
+
+    name = "passive_rc"
+    capacitance_uf_cm2 = 1.0
+    # 10 000 um^2 with g_leak 0.05 mS/cm^2: 1 / (5e-6 mS) = 200 MOhm.
+    default_area_cm2 = 1.0e-4
+
+    g_leak = 0.05
+    e_leak = -70.0
+
+    def kinetic_gates(self, v: np.ndarray) -> list[tuple[np.ndarray, np.ndarray]]:
+        return []
+
+    def conductances(
+        self, kinetic: Sequence[np.ndarray], instantaneous: Sequence[np.ndarray]
+    ) -> tuple[np.ndarray, np.ndarray]:
+        return np.full(1, self.g_leak), np.full(1, self.g_leak * self.e_leak)
+
+
+class _PassiveWithSag(_PassiveMembrane):
+    """The passive membrane plus an Ih-like hyperpolarization-activated cation current.
+
+    I_h = g_h q (V - E_h), one gate q with first-order kinetics (Hodgkin & Huxley 1952 form):
+    q_inf(V) = 1 / (1 + exp((V - V_half) / k)), relaxation time tau_q, constant.  V_half
+    -80 mV, k 6 mV, tau_q 40 ms and E_h -30 mV lie in the range reported for HCN channel
+    currents (from memory); g_h 0.05 mS/cm^2 gives a sag of about a third of the deflection
+    for steps to -90 mV.  At steady state the model is a conductance g_leak + g_h q_inf(V), so
+    its steady voltage under any current follows from the closed form of q_inf.
+    """
+
+    name = "passive_sag"
+    g_h = 0.05
+    e_h = -30.0
+    v_half = -80.0
+    slope_mv = 6.0
+    tau_q_ms = 40.0
+
+    def kinetic_gates(self, v: np.ndarray) -> list[tuple[np.ndarray, np.ndarray]]:
+        q_inf = 1.0 / (1.0 + np.exp((v - self.v_half) / self.slope_mv))
+        return [(q_inf, np.full_like(q_inf, 1.0 / self.tau_q_ms))]
+
+    def conductances(
+        self, kinetic: Sequence[np.ndarray], instantaneous: Sequence[np.ndarray]
+    ) -> tuple[np.ndarray, np.ndarray]:
+        (q,) = kinetic
+        g_h = self.g_h * q
+        return g_h + self.g_leak, g_h * self.e_h + self.g_leak * self.e_leak
+
+
 _MODEL_CLASSES: dict[str, Callable[[], _Model]] = {
     cls.name: cls
-    for cls in (_HodgkinHuxley1952, _WangBuzsaki1996, _CorticalAdapting)
+    for cls in (_HodgkinHuxley1952, _WangBuzsaki1996, _CorticalAdapting, _PassiveMembrane,
+                _PassiveWithSag)
 }
 
 #: Names accepted by :func:`simulate_current_steps` and :func:`simulate_current_waveform`.
@@ -322,6 +385,8 @@ def default_membrane_area_cm2(model: str) -> float:
     ``hodgkin_huxley_1952`` 1 000       -65.0       ~90 MOhm  ~23 pA
     ``wang_buzsaki_1996``   15 000      -64.0       ~90 MOhm  ~25 pA
     ``cortical_adapting``   15 000      -71.9       ~270 MOhm ~70 pA
+    ``passive_rc``          10 000      -70.0       200 MOhm  none
+    ``passive_sag``         10 000      -66.5       ~125 MOhm none
     ======================= =========== =========== ========= ==========
 
     The squid membrane is leaky (about 1 kOhm cm^2 at rest), hence its small

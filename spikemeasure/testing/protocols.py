@@ -69,8 +69,8 @@ def simulate_current_steps(
     Parameters
     ----------
     model : str
-        One of :data:`MODELS`: ``"hodgkin_huxley_1952"``, ``"wang_buzsaki_1996"``
-        or ``"cortical_adapting"``.
+        One of :data:`MODELS`: ``"hodgkin_huxley_1952"``, ``"wang_buzsaki_1996"``,
+        ``"cortical_adapting"``, ``"passive_rc"`` or ``"passive_sag"``.
     step_amplitudes_pa : sequence of float
         Step amplitude of each sweep, pA, added to ``holding_pa`` during the step.
     sampling_rate_hz : float, optional

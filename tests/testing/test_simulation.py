@@ -87,6 +87,7 @@ class TestOtherModels:
 
 
 def test_models_listed_and_unknown_refused():
-    assert set(MODELS) == {"hodgkin_huxley_1952", "wang_buzsaki_1996", "cortical_adapting"}
+    assert set(MODELS) == {"hodgkin_huxley_1952", "wang_buzsaki_1996", "cortical_adapting",
+                           "passive_rc", "passive_sag"}
     with pytest.raises(ValueError, match="hodgkin_huxley_1952"):
         simulate_current_steps("no_such_model", [0.0])
