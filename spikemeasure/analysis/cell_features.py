@@ -14,11 +14,12 @@ from scipy.ndimage import uniform_filter1d
 from scipy.optimize import OptimizeWarning, curve_fit
 
 from .bridge import MIN_TAU_TO_SETTLE, SETTLE_MS, bridge_error
-from .fluctuation import slow_fluctuation_mv
-from .sweep_features import BASELINE_WINDOW_MS, MIN_WINDOW_MS
+from .fluctuation import baseline_stretch, slow_fluctuation_mv, weighted_sums_covariance
+from .sweep_features import BASELINE_WINDOW_MS, MIN_WINDOW_MS, SAG_NOISE_FACTOR
 
 __all__ = ["CellFeatures", "ExponentialFit", "fit_membrane_tau", "rheobase", "ramp_rheobase",
-           "fi_slope", "input_resistance", "cell_features", "passive_sweeps", "CELL_FLAG_TEXT", "MAX_RESIDUAL_TO_NOISE",
+           "fi_slope", "input_resistance", "input_resistance_sd", "exponential_fit_sd",
+           "cell_features", "passive_sweeps", "CELL_FLAG_TEXT", "MAX_RESIDUAL_TO_NOISE",
            "MIN_DEFLECTION_TO_NOISE", "NOISE_FLOOR_MV", "END_FRACTION", "TAU_SMOOTHING_MS",
            "HOLDING_TOLERANCE_PA", "SLOW_SWEEP_MAX_RISE_MV", "MAX_FLUCTUATION_TO_DEFLECTION",
            "SAG_NOISE_FACTOR"]
@@ -46,11 +47,6 @@ SLOW_SWEEP_MAX_RISE_MV = 10.0
 #: background moves the voltage on the time constant's own time scale, which no residual
 #: test against that same background can see (a rule of our own).
 MAX_FLUCTUATION_TO_DEFLECTION = 0.05
-#: Sag counts as present only when steady_state_mv - min_mv exceeds this many times the
-#: baseline's slow fluctuation (SD of its MIN_WINDOW_MS moving average, the smoothing under
-#: min_mv) plus the sweep's drift: over a 0.5 s step, noise alone pulls the smoothed
-#: minimum about 3 SD below the mean (the expected largest of ~500 Gaussian values).
-SAG_NOISE_FACTOR = 4.0
 
 #: Sweep flags that mean a gap emptied some of a sweep's passive values.
 _GAP_FLAGS = ("gap_in_baseline_window", "gap_in_step", "gap_in_steady_state_window",
@@ -120,10 +116,10 @@ CELL_FLAG_TEXT = {
                            "(baseline_mv - min_mv, or the fitted one when smaller), "
                            "where one exponential means nothing, so the time constant is "
                            "left empty",
-    "sag_within_noise": "the sag of the most hyperpolarizing sweep (steady_state_mv - "
-                        f"min_mv) is not over {SAG_NOISE_FACTOR:g} times the baseline's slow "
-                        f"fluctuation (SD of its {MIN_WINDOW_MS:g} ms moving average) plus "
-                        "its drift, so it cannot be told from noise: sag_fraction is 0",
+    "sag_within_noise": "the most hyperpolarizing sweep has the sweep flag "
+                        "`sag_within_noise` (its sag is not over "
+                        f"{SAG_NOISE_FACTOR:g} times the SD its baseline's noise leaves on "
+                        "the smoothing under min_mv, plus its drift): sag_fraction is 0",
 }
 
 
@@ -137,6 +133,10 @@ class ExponentialFit:
     r_squared: float
     rms_residual_mv: float
     n_samples: int
+    #: Time of the first fitted sample from onset (the skipped settling), ms.
+    start_ms: float = 0.0
+    #: The fitted samples minus the fitted curve, mV (the noise the SD copies).
+    residual_mv: np.ndarray | None = None
 
 
 @dataclass(frozen=True)
@@ -166,6 +166,8 @@ class CellFeatures:
     rheobase_sweep: int = -1
     #: The smallest first_spike_current_pa over ramp sweeps (:func:`ramp_rheobase`).
     ramp_rheobase_pa: float = float("nan")
+    input_resistance_mohm_sd: float = float("nan")
+    membrane_tau_ms_sd: float = float("nan")
 
     def as_dict(self) -> dict:
         out = asdict(self)
@@ -250,7 +252,53 @@ def fit_membrane_tau(voltage_mv: np.ndarray, sampling_rate_hz: float, onset_s: f
     total = float(np.sum((y - y.mean()) ** 2))
     r2 = 1.0 - float(np.sum(residual ** 2)) / total if total > 0 else float("nan")
     rms = float(np.sqrt(np.mean(residual ** 2)))
-    return ExponentialFit(tau, v_inf + delta, v_inf, r2, rms, int(y.size))
+    return ExponentialFit(tau, v_inf + delta, v_inf, r2, rms, int(y.size), float(t[0]),
+                          residual)
+
+
+def exponential_fit_sd(fit: ExponentialFit, sampling_rate_hz: float,
+                       noise_mv: np.ndarray | None = None) -> float:
+    """SD of an exponential fit's time constant that the recording's noise implies.
+
+    Parameters
+    ----------
+    fit : ExponentialFit
+        From :func:`fit_membrane_tau` (with its residual).
+    sampling_rate_hz : float
+    noise_mv : ndarray, optional
+        A stretch of the recording's noise (the sweep's baseline); by default the fit's
+        residual.
+
+    Returns
+    -------
+    float
+        ms; NaN when the noise is too short to estimate its spectrum (under 16 samples).
+
+    Notes
+    -----
+    Linearized at the solution, the least-squares fit moves (v_inf, delta, tau) by
+    P e for noise e, P = (J^T J)^-1 J^T the pseudo-inverse of the Jacobian J of
+    v_inf + delta exp(-t / tau) at the fitted samples. The covariance of P e for noise with
+    the spectrum of `noise_mv` (:func:`~spikemeasure.analysis.fluctuation.weighted_sums_covariance`)
+    is the sandwich P C P^T, C the noise's covariance: for white noise, sigma^2 (J^T J)^-1,
+    the covariance curve_fit reports (Press et al. 2007, section 15.5, from memory); for
+    correlated noise (filtered, hum, synaptic background) larger, as neighbouring samples
+    then bring less new information.
+
+    References
+    ----------
+    .. [1] W. H. Press, S. A. Teukolsky, W. T. Vetterling and B. P. Flannery, *Numerical
+       Recipes*, 3rd ed., Cambridge University Press, 2007.
+    """
+    if fit.residual_mv is None or not sampling_rate_hz > 0:
+        return float("nan")
+    t = fit.start_ms + np.arange(fit.n_samples) / sampling_rate_hz * 1e3
+    decay = np.exp(-t / fit.tau_ms)
+    delta = fit.v0_mv - fit.v_inf_mv
+    jacobian = np.column_stack([np.ones_like(t), decay, delta * t / fit.tau_ms ** 2 * decay])
+    noise = fit.residual_mv if noise_mv is None else noise_mv
+    cov = weighted_sums_covariance(np.linalg.pinv(jacobian), noise, sampling_rate_hz)
+    return float(np.sqrt(max(0.0, cov[2, 2]))) if cov is not None else float("nan")
 
 
 def rheobase(stimulus_pa: np.ndarray, spike_count: np.ndarray,
@@ -316,6 +364,35 @@ def input_resistance(stimulus_pa: np.ndarray, deflection_mv: np.ndarray) -> floa
     if np.unique(stim[use]).size < 2:
         return float("nan")
     return float(np.polyfit(stim[use], dv[use], 1)[0] * 1e3)
+
+
+def input_resistance_sd(stimulus_pa: np.ndarray, deflection_sd_mv: np.ndarray) -> float:
+    """SD (MOhm) of :func:`input_resistance` given each deflection's SD.
+
+    Parameters
+    ----------
+    stimulus_pa : ndarray
+        Step sizes of the sweeps fitted.
+    deflection_sd_mv : ndarray
+        SD of each sweep's steady_state_mv - baseline_mv (the sweep's deflection_sd_mv).
+
+    Returns
+    -------
+    float
+        NaN with fewer than 2 distinct steps or an unknown SD.
+
+    Notes
+    -----
+    The least-squares slope is sum w_j d_j with w_j = (I_j - mean I) / sum (I - mean I)^2;
+    with independent deflections its variance is sum w_j^2 sd_j^2 (the slope's standard
+    error for known, unequal errors: Bevington and Robinson 2003, section 6.4, from memory).
+    """
+    stim = np.asarray(stimulus_pa, dtype=float)
+    sd = np.asarray(deflection_sd_mv, dtype=float)
+    if np.unique(stim).size < 2 or not np.isfinite(stim).all() or not np.isfinite(sd).all():
+        return float("nan")
+    weights = (stim - stim.mean()) / np.sum((stim - stim.mean()) ** 2)
+    return float(np.sqrt(np.sum(weights ** 2 * sd ** 2)) * 1e3)
 
 
 def _spike_free_hyperpolarizing(col: dict, slow: np.ndarray, lower: np.ndarray,
@@ -467,8 +544,8 @@ def _firing_values(col: dict, slow: np.ndarray, lower: np.ndarray,
 
 
 def _passive_values(col: dict, slow: np.ndarray, lower: np.ndarray, gapped: np.ndarray,
-                    traces: list[tuple[np.ndarray, float]], values: dict,
-                    flags: list[str]) -> None:
+                    traces: list[tuple[np.ndarray, float]], sweep_flags: list[set],
+                    values: dict, flags: list[str]) -> None:
     """Input resistance, sag and the membrane time constant (see :func:`cell_features`) into
     `values`, their flags into `flags`."""
     stim, count = col["stimulus_pa"], col["spike_count"]
@@ -483,6 +560,9 @@ def _passive_values(col: dict, slow: np.ndarray, lower: np.ndarray, gapped: np.n
                      | (lower & ~(count > 0) & ~slow))).any():
         flags.append("input_resistance_skips_gap_sweeps")
     values["input_resistance_mohm"] = input_resistance(stim[passive], deflection[passive])
+    if np.isfinite(values["input_resistance_mohm"]):
+        values["input_resistance_mohm_sd"] = input_resistance_sd(
+            stim[passive], col["deflection_sd_mv"][passive])
     if not np.isfinite(values["input_resistance_mohm"]):
         flags.append("too_few_passive_sweeps")
     values["bridge_error_mohm"] = _bridge_median(col, passive[~gapped[passive]], traces)
@@ -497,14 +577,17 @@ def _passive_values(col: dict, slow: np.ndarray, lower: np.ndarray, gapped: np.n
         if gapped[deepest] and clear.size:
             flags.append("sag_skips_gap_sweeps")
             deepest = clear[np.argmin(stim[clear])]
-        values["sag_fraction"] = _sag_beyond_noise(col, int(deepest), traces, flags)
+        values["sag_fraction"] = float(col["sag_fraction"][deepest])
+        if "sag_within_noise" in sweep_flags[deepest]:
+            flags.append("sag_within_noise")
         # hyperpolarizing and spike-free, or it would be but for a gap in its step
         pool = np.flatnonzero(hyper_all & (candidates | (lower & ~(count > 0) & ~slow)))
         fit_ok = np.flatnonzero(candidates & ~gapped)
         if pool.size and (fit_ok.size == 0 or stim[fit_ok].max() < stim[pool].max()):
             flags.append("membrane_tau_skips_gap_sweeps")
         if fit_ok.size:
-            _tau_value(col, int(fit_ok[np.argmax(stim[fit_ok])]), traces, values, flags)
+            _tau_value(col, int(fit_ok[np.argmax(stim[fit_ok])]), traces, sweep_flags, values,
+                       flags)
 
 
 def _bridge_median(col: dict, sweeps: np.ndarray, traces: list[tuple[np.ndarray, float]]
@@ -518,39 +601,17 @@ def _bridge_median(col: dict, sweeps: np.ndarray, traces: list[tuple[np.ndarray,
     return float(np.median(found)) if found else float("nan")
 
 
-def _sag_beyond_noise(col: dict, j: int, traces: list[tuple[np.ndarray, float]],
-                      flags: list[str]) -> float:
-    """sag_fraction of sweep `j`, or 0 (flag ``sag_within_noise``) when its sag is not over
-    SAG_NOISE_FACTOR times the baseline's slow fluctuation plus the sweep's drift."""
-    sag = float(col["sag_fraction"][j])
-    if not np.isfinite(sag):
-        return sag
-    v, rate = traces[j]
-    fluctuation = slow_fluctuation_mv(v, rate, col["stimulus_start_s"][j], MIN_WINDOW_MS)
-    drift = abs(col["baseline_drift_mv"][j]) if np.isfinite(col["baseline_drift_mv"][j]) else 0.0
-    if not np.isfinite(fluctuation):
-        return sag
-    if col["steady_state_mv"][j] - col["min_mv"][j] <= SAG_NOISE_FACTOR * fluctuation + drift:
-        flags.append("sag_within_noise")
-        return 0.0
-    return sag
-
-
-def _tau_value(col: dict, j: int, traces: list[tuple[np.ndarray, float]], values: dict,
-               flags: list[str]) -> None:
+def _tau_value(col: dict, j: int, traces: list[tuple[np.ndarray, float]],
+               sweep_flags: list[set], values: dict, flags: list[str]) -> None:
     """membrane_tau_ms and its fit's quality (see :func:`cell_features`) from sweep `j` into
     `values`, their flags into `flags`."""
     v, rate = traces[j]
     onset, offset = col["stimulus_start_s"][j], col["stimulus_end_s"][j]
     noise = max(float(col["baseline_noise_mv"][j]), NOISE_FLOOR_MV) \
         if np.isfinite(col["baseline_noise_mv"][j]) else NOISE_FLOOR_MV
-    # an electrode jump (the cell's bridge error times this step) above the noise is left
-    # out with the filter's settling after it; one below the noise moves the fit less than
-    # the noise does, and leaving its samples in keeps the fit of a trace without a jump as
-    # it was
-    jump = values["bridge_error_mohm"] * col["stimulus_pa"][j] * 1e-3
-    skip = SETTLE_MS if np.isfinite(jump) and abs(jump) > noise else 0.0
-    fit = fit_membrane_tau(v, rate, onset, offset, skip_ms=skip)
+    # the amplifier filter's settling after the edge (and any electrode jump) is not the
+    # membrane's charging: on a fast membrane it lengthens tau by 10 % and more
+    fit = fit_membrane_tau(v, rate, onset, offset, skip_ms=SETTLE_MS)
     if fit is None:
         flags.append("tau_fit_failed")
         return
@@ -568,6 +629,11 @@ def _tau_value(col: dict, j: int, traces: list[tuple[np.ndarray, float]], values
         flags.append("baseline_fluctuates")
     else:
         values["membrane_tau_ms"] = fit.tau_ms
+        # the baseline is the longer stretch of noise (a steadier spectrum) unless a test
+        # pulse cut it short
+        noise = (None if "baseline_window_cut_by_epoch" in sweep_flags[j]
+                 else baseline_stretch(v, rate, onset))
+        values["membrane_tau_ms_sd"] = exponential_fit_sd(fit, rate, noise)
 
 
 def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]],
@@ -650,7 +716,7 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
            ("stimulus_pa", "holding_pa", "baseline_mv", "baseline_noise_mv", "spike_count",
             "firing_rate_hz", "steady_state_mv", "sag_fraction", "stimulus_start_s",
             "stimulus_end_s")} if n else {}
-    for k in ("min_mv", "baseline_drift_mv"):  # judge sag and tau against noise; optional
+    for k in ("min_mv", "baseline_drift_mv", "deflection_sd_mv"):  # optional
         if n:
             col[k] = np.array([r.get(k, nan) for r in sweep_rows], dtype=float)
     sweep_flags = [set(filter(None, str(r.get("flags", "")).split(";"))) for r in sweep_rows]
@@ -668,7 +734,8 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
                   bridge_error_mohm=nan, membrane_tau_ms=nan,
                   membrane_tau_fit_r2=nan, membrane_tau_residual_to_noise=nan, sag_fraction=nan, rheobase_threshold_mv=nan,
                   rheobase_amplitude_mv=nan, rheobase_half_width_ms=nan,
-                  rheobase_ahp_depth_mv=nan)
+                  rheobase_ahp_depth_mv=nan, input_resistance_mohm_sd=nan,
+                  membrane_tau_ms_sd=nan)
     if n:
         _before_block(col, sweep_flags, values)
     if n and np.isfinite(col["rate_before_block_hz"]).any() and not slow.any():
@@ -682,6 +749,6 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
                          else "no_current_steps")
         return CellFeatures(n, resting, flags=tuple(flags), ramp_rheobase_pa=ramp_rb, **values)
     rheobase_sweep = _firing_values(col, slow, lower, first_spikes, values, flags)
-    _passive_values(col, slow, lower, gapped, traces, values, flags)
+    _passive_values(col, slow, lower, gapped, traces, sweep_flags, values, flags)
     return CellFeatures(n, resting, flags=tuple(flags), rheobase_sweep=rheobase_sweep,
                         ramp_rheobase_pa=ramp_rb, **values)
