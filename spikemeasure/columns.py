@@ -16,7 +16,8 @@ import numpy as np
 
 from .analysis.detection import DetectionSettings, smoothing_window_samples
 from .analysis.bridge import CHARGING_FIT_MS, EDGE_FIT_MS, SETTLE_MS
-from .analysis.cell_features import (CELL_FLAG_TEXT, END_FRACTION, HOLDING_TOLERANCE_PA,
+from .analysis.cell_features import (CELL_FLAG_TEXT, END_FRACTION, FILTER_DELAY_MS,
+                            HOLDING_TOLERANCE_PA,
                             MAX_RESIDUAL_TO_NOISE, MIN_DEFLECTION_TO_NOISE, NOISE_FLOOR_MV,
                             SAG_NOISE_FACTOR, SLOW_SWEEP_MAX_RISE_MV, TAU_SMOOTHING_MS)
 from .analysis.epochs import (MAX_EDGE_MS, MIN_LEVEL_CHANGE_PA, NOISE_MULTIPLE,
@@ -340,10 +341,12 @@ CELL_COLUMNS: tuple[Column, ...] = (
            f"comes within {END_FRACTION * 100:g} % of the "
            "deflection from the minimum, about 4 tau, since the flat stretch after carries noise "
            "but no information about tau) on the smallest hyperpolarizing spike-free step, "
-           f"leaving out the first {SETTLE_MS:g} ms after onset (time still counted from "
-           "onset), where the amplifier's low-pass filter (a 4-pole Bessel at 2-10 kHz) and "
-           "any electrode jump are still settling: the filtered exponential's tail keeps the "
-           "membrane's tau, so a fast membrane (tau 1-2 ms) is not read long. "
+           f"leaving out the first {FILTER_DELAY_MS:g} ms after onset (time still counted "
+           "from onset), the delay of the amplifier's low-pass filter (a 4-pole Bessel at 3 "
+           "kHz or above), after which the filtered exponential keeps the membrane's tau, so "
+           "a fast membrane (tau 1-2 ms) is not read long; the first "
+           f"{SETTLE_MS:g} ms when an electrode jump (bridge_error_mohm times the step) is "
+           "over the noise. "
            f"Empty, flagged `tau_fit_poor`, when the residual RMS is over "
            f"{MAX_RESIDUAL_TO_NOISE:g} times the sweep's baseline noise (the response is not "
            f"one exponential) or the deflection under {MIN_DEFLECTION_TO_NOISE:g} times it.", 4),

@@ -20,7 +20,7 @@ from .sweep_features import BASELINE_WINDOW_MS, MIN_WINDOW_MS, SAG_NOISE_FACTOR
 __all__ = ["CellFeatures", "ExponentialFit", "fit_membrane_tau", "rheobase", "ramp_rheobase",
            "fi_slope", "input_resistance", "input_resistance_sd", "exponential_fit_sd",
            "cell_features", "passive_sweeps", "CELL_FLAG_TEXT", "MAX_RESIDUAL_TO_NOISE",
-           "MIN_DEFLECTION_TO_NOISE", "NOISE_FLOOR_MV", "END_FRACTION", "TAU_SMOOTHING_MS",
+           "MIN_DEFLECTION_TO_NOISE", "NOISE_FLOOR_MV", "FILTER_DELAY_MS", "END_FRACTION", "TAU_SMOOTHING_MS",
            "HOLDING_TOLERANCE_PA", "SLOW_SWEEP_MAX_RISE_MV", "MAX_FLUCTUATION_TO_DEFLECTION",
            "SAG_NOISE_FACTOR"]
 
@@ -36,6 +36,12 @@ NOISE_FLOOR_MV = 0.05
 END_FRACTION = 0.02
 #: Width of the moving average on which the time-constant fit finds the response's minimum.
 TAU_SMOOTHING_MS = 1.0
+#: The time-constant fit leaves out this much after onset: a 4-pole low-pass Bessel filter
+#: at 3 kHz or above delays and rounds the response's start by about this much (its group
+#: delay at 3 kHz is 0.11 ms: scipy.signal.group_delay of scipy.signal.bessel); after it
+#: the filtered exponential keeps the membrane's tau. Kept short, since a conductance-based
+#: membrane's early response is not one exponential and a longer skip would move its tau.
+FILTER_DELAY_MS = 0.1
 #: Sweeps whose holding current is within this of zero count as "no holding current".
 HOLDING_TOLERANCE_PA = 1.0
 #: A hyperpolarizing sweep sampled too slowly to count spikes is taken as spike-free when no
@@ -609,9 +615,12 @@ def _tau_value(col: dict, j: int, traces: list[tuple[np.ndarray, float]],
     onset, offset = col["stimulus_start_s"][j], col["stimulus_end_s"][j]
     noise = max(float(col["baseline_noise_mv"][j]), NOISE_FLOOR_MV) \
         if np.isfinite(col["baseline_noise_mv"][j]) else NOISE_FLOOR_MV
-    # the amplifier filter's settling after the edge (and any electrode jump) is not the
-    # membrane's charging: on a fast membrane it lengthens tau by 10 % and more
-    fit = fit_membrane_tau(v, rate, onset, offset, skip_ms=SETTLE_MS)
+    # an electrode jump (the cell's bridge error times this step) above the noise is left
+    # out with the filter's settling after it; without one, only the low-pass filter's
+    # delay, which lengthens a fast membrane's tau (4 % at 1.5 ms behind a 3 kHz Bessel)
+    jump = values["bridge_error_mohm"] * col["stimulus_pa"][j] * 1e-3
+    skip = SETTLE_MS if np.isfinite(jump) and abs(jump) > noise else FILTER_DELAY_MS
+    fit = fit_membrane_tau(v, rate, onset, offset, skip_ms=skip)
     if fit is None:
         flags.append("tau_fit_failed")
         return
@@ -676,17 +685,16 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
       since noise caps it. Empty too (flag ``baseline_fluctuates``) when the baseline's slow
       fluctuation (:func:`~spikemeasure.analysis.fluctuation.slow_fluctuation_mv` over a
       :data:`TAU_SMOOTHING_MS` average) exceeds :data:`MAX_FLUCTUATION_TO_DEFLECTION` of the
-      deflection (baseline_mv - min_mv, or the fitted v0 - v_inf when smaller). When
-      bridge_error_mohm times that sweep's step is over its noise, the first
-      :data:`~spikemeasure.analysis.bridge.SETTLE_MS` (the jump and the filter's settling)
-      are left out of the fit.
-    - sag_fraction: that of the most hyperpolarizing sweep; 0 (flag ``sag_within_noise``)
-      when its steady_state_mv - min_mv is not over :data:`SAG_NOISE_FACTOR` times the
-      baseline's slow fluctuation
-      (:func:`~spikemeasure.analysis.fluctuation.slow_fluctuation_mv` over a
-      :data:`~spikemeasure.analysis.sweep_features.MIN_WINDOW_MS` average) plus the sweep's
-      abs(baseline_drift_mv): a sag the trace cannot tell from noise is, to its resolution,
-      no sag, and a cell without one keeps its place among cells compared by sag.
+      deflection (baseline_mv - min_mv, or the fitted v0 - v_inf when smaller). The first
+      :data:`FILTER_DELAY_MS` after onset (the low-pass filter's delay) are left out of the
+      fit; when bridge_error_mohm times that sweep's step is over its noise, the first
+      :data:`~spikemeasure.analysis.bridge.SETTLE_MS` (the jump and the filter's settling).
+      membrane_tau_ms_sd: :func:`exponential_fit_sd` with the sweep's baseline noise.
+    - input_resistance_mohm_sd: :func:`input_resistance_sd` of the sweeps' deflection_sd_mv.
+    - sag_fraction: that of the most hyperpolarizing sweep, with the flag
+      ``sag_within_noise`` when that sweep has it (its sag, 0, could not be told from noise:
+      :func:`~spikemeasure.analysis.sweep_features.passive_response`): one rule for both
+      tables.
     - rheobase_*: threshold, amplitude, half-width and AHP depth of the rheobase sweep's first
       spike in the step.
 
