@@ -16,7 +16,8 @@ import numpy as np
 
 from .analysis.detection import DetectionSettings, smoothing_window_samples
 from .analysis.bridge import CHARGING_FIT_MS, EDGE_FIT_MS, SETTLE_MS
-from .analysis.cell_features import (CELL_FLAG_TEXT, END_FRACTION, HOLDING_TOLERANCE_PA,
+from .analysis.cell_features import (CELL_FLAG_TEXT, END_FRACTION, FILTER_DELAY_MS,
+                            HOLDING_TOLERANCE_PA,
                             MAX_RESIDUAL_TO_NOISE, MIN_DEFLECTION_TO_NOISE, NOISE_FLOOR_MV,
                             SAG_NOISE_FACTOR, SLOW_SWEEP_MAX_RISE_MV, TAU_SMOOTHING_MS)
 from .analysis.epochs import (MAX_EDGE_MS, MIN_LEVEL_CHANGE_PA, NOISE_MULTIPLE,
@@ -25,7 +26,8 @@ from .analysis.spike_features import SECOND_DERIVATIVE_LOOKBACK_MS
 from .analysis.sweeps import COMMAND_MEDIAN_SAMPLES
 from .analysis.spikes import CLIPPED_RUN_SAMPLES, FLAG_TEXT, PIECE_SAMPLES
 from .analysis.sweep_features import (BASELINE_WINDOW_MS, DRIFT_WINDOW_MS, MIN_WINDOW_MS,
-                                      STEADY_STATE_WINDOW_MS, SWEEP_FLAG_TEXT)
+                                      STEADY_STATE_WINDOW_MS, SWEEP_FLAG_TEXT,
+                                      TROUGH_WINDOW_FRACTION)
 from .params import parameter
 
 __all__ = ["Column", "SPIKE_COLUMNS", "SPIKE_MARKS", "SWEEP_COLUMNS", "CELL_COLUMNS",
@@ -246,10 +248,27 @@ SWEEP_COLUMNS: tuple[Column, ...] = (
            "when firing slows during the step, near 0 for regular firing.", 5),
     Column("steady_state_mv", "mV", f"Mean voltage over the last {STEADY_STATE_WINDOW_MS:g} ms "
            "of the step; empty for a ramp (flag `ramp_has_no_steady_state`).", 4),
-    Column("min_mv", "mV", f"Minimum during the step of the voltage averaged over a sliding "
-           f"{MIN_WINDOW_MS:g} ms window (so noise does not pull it down).", 4),
+    Column("min_mv", "mV", "Minimum during the step of the voltage averaged over a sliding "
+           "window, so noise does not pull it down. For a hyperpolarizing step the window is "
+           f"{TROUGH_WINDOW_FRACTION:g} x the charging time (from onset until the "
+           f"{MIN_WINDOW_MS:g} ms average first falls 63 % of the way from the mean of the "
+           f"{MIN_WINDOW_MS:g} ms before onset to its minimum; at least {MIN_WINDOW_MS:g} ms), "
+           "placed wholly inside the step: a window matched to the response's own time "
+           "course averages noise away on a plateau and raises a sag's trough (curvature c) "
+           f"only by c w^2 / 12; for other steps it is {MIN_WINDOW_MS:g} ms.", 4),
     Column("sag_fraction", "", "Hyperpolarizing steps only: (steady_state_mv - min_mv) / "
-           "(baseline_mv - min_mv); 0 for no sag.", 5),
+           "(baseline_mv - min_mv); 0 for no sag, and 0 with the sweep flag "
+           "`sag_within_noise` when steady_state_mv - min_mv is not over "
+           f"{SAG_NOISE_FACTOR:g} times the SD of min_mv's window mean (from the baseline's "
+           "noise spectrum, see sag_fraction_sd) plus abs(baseline_drift_mv).", 5),
+    Column("sag_fraction_sd", "", "SD of sag_fraction that the recording's noise implies: "
+           "baseline_mv, steady_state_mv and min_mv are window means, whose covariance "
+           "follows from the noise's power spectrum (the Hann-tapered periodogram of the "
+           "baseline window, smoothed over 15 frequency bins with hum lines kept; "
+           "Wiener-Khinchin theorem, Percival and Walden 1993), carried to the sag by its "
+           "gradient (the delta method, Bevington and Robinson 2003). Leaves out how noise "
+           "picks the minimum's position, which matters only on a flat plateau, where the "
+           "sag is within noise. Empty where sag_fraction is.", 5),
     Column("sampling_rate_hz", "Hz", "Samples per second of the sweep's voltage, as the file "
            "declares it (or `--sampling-rate`).", 3),
     Column("baseline_drift_mv", "mV", f"Mean voltage over the last {DRIFT_WINDOW_MS:g} ms of the "
@@ -297,6 +316,13 @@ CELL_COLUMNS: tuple[Column, ...] = (
            f"times 1000. A sweep sampled too slowly to count spikes counts as spike-free when no "
            f"sample of its step lies more than {SLOW_SWEEP_MAX_RISE_MV:g} mV above its baseline "
            "(`slow_sweeps_taken_as_spike_free`).", 3),
+    Column("input_resistance_mohm_sd", "MOhm", "SD of input_resistance_mohm that the "
+           "recording's noise implies: sqrt(sum w_j^2 s_j^2), w_j = (I_j - mean I) / "
+           "sum (I - mean I)^2 the slope's weights and s_j the SD of sweep j's "
+           "steady_state_mv - baseline_mv from its baseline's noise spectrum (as for "
+           "sag_fraction_sd); the slope's standard error for known errors (Bevington and "
+           "Robinson 2003). Noise only: a sweep-to-sweep drift or a membrane that is not "
+           "linear is not in it.", 3),
     Column("bridge_error_mohm", "MOhm", "Uncompensated electrode (series) resistance: the "
            "median over the sweeps of input_resistance_mohm (those without gaps) of the "
            "instantaneous voltage jump at the step's onset over the step size (the offset, "
@@ -315,14 +341,26 @@ CELL_COLUMNS: tuple[Column, ...] = (
            f"{TAU_SMOOTHING_MS:g} ms moving average; the fit ends where that average first "
            f"comes within {END_FRACTION * 100:g} % of the "
            "deflection from the minimum, about 4 tau, since the flat stretch after carries noise "
-           "but no information about tau) on the smallest hyperpolarizing spike-free step. "
+           "but no information about tau) on the smallest hyperpolarizing spike-free step, "
+           f"leaving out the first {FILTER_DELAY_MS:g} ms after onset (time still counted "
+           "from onset), the delay of the amplifier's low-pass filter (a 4-pole Bessel at 3 "
+           "kHz or above), after which the filtered exponential keeps the membrane's tau, so "
+           "a fast membrane (tau 1-2 ms) is not read long; the first "
+           f"{SETTLE_MS:g} ms when an electrode jump (bridge_error_mohm times the step) is "
+           "over the noise. "
            f"Empty, flagged `tau_fit_poor`, when the residual RMS is over "
            f"{MAX_RESIDUAL_TO_NOISE:g} times the sweep's baseline noise (the response is not "
            f"one exponential) or the deflection under {MIN_DEFLECTION_TO_NOISE:g} times it.", 4),
+    Column("membrane_tau_ms_sd", "ms", "SD of membrane_tau_ms that the recording's noise "
+           "implies: the fit linearized at its solution moves the parameters by P e for "
+           "noise e (P the pseudo-inverse of the fit's Jacobian), whose covariance P C P^T "
+           "(the sandwich form; for white noise the covariance curve_fit reports, Press et "
+           "al. 2007) takes C from the power spectrum of the sweep's baseline window (of the "
+           "fit's residual when a test pulse cut that window), as for sag_fraction_sd: "
+           "filtered, correlated noise and hum count for what they are.", 4),
     Column("sag_fraction", "", "sag_fraction of the most hyperpolarizing sweep; 0, flagged "
-           "`sag_within_noise`, when its steady_state_mv - min_mv is not over "
-           f"{SAG_NOISE_FACTOR:g} times the SD of the {MIN_WINDOW_MS:g} ms moving average of "
-           "the voltage over the baseline window plus abs(baseline_drift_mv).", 5),
+           "`sag_within_noise`, when that sweep has the flag (see sag_fraction in sweeps.csv).",
+           5),
     Column("rheobase_threshold_mv", "mV", "threshold_mv of the first spike in the step of the "
            "rheobase sweep.", 4),
     Column("rheobase_amplitude_mv", "mV", "amplitude_mv of that spike.", 4),

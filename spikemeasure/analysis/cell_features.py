@@ -6,20 +6,21 @@ plain values or a small dataclass; nothing here reads files or prints.
 """
 from __future__ import annotations
 
-import warnings
 from dataclasses import asdict, dataclass
 
 import numpy as np
-from scipy.ndimage import uniform_filter1d
-from scipy.optimize import OptimizeWarning, curve_fit
 
 from .bridge import MIN_TAU_TO_SETTLE, SETTLE_MS, bridge_error, edge_jump
-from .fluctuation import slow_fluctuation_mv
-from .sweep_features import BASELINE_WINDOW_MS, MIN_WINDOW_MS
+from .fluctuation import baseline_stretch, slow_fluctuation_mv
+from .membrane_tau import (END_FRACTION, FILTER_DELAY_MS, TAU_SMOOTHING_MS, ExponentialFit,
+                           exponential_fit_sd, fit_membrane_tau)
+from .sweep_features import BASELINE_WINDOW_MS, MIN_WINDOW_MS, SAG_NOISE_FACTOR
 
 __all__ = ["CellFeatures", "ExponentialFit", "fit_membrane_tau", "rheobase", "ramp_rheobase",
-           "fi_slope", "input_resistance", "cell_features", "passive_sweeps", "CELL_FLAG_TEXT", "MAX_RESIDUAL_TO_NOISE",
-           "MIN_DEFLECTION_TO_NOISE", "NOISE_FLOOR_MV", "END_FRACTION", "TAU_SMOOTHING_MS",
+           "fi_slope", "input_resistance", "input_resistance_sd", "exponential_fit_sd",
+           "cell_features", "passive_sweeps", "CELL_FLAG_TEXT", "MAX_RESIDUAL_TO_NOISE",
+           "MIN_DEFLECTION_TO_NOISE", "NOISE_FLOOR_MV", "FILTER_DELAY_MS", "END_FRACTION",
+           "TAU_SMOOTHING_MS",
            "HOLDING_TOLERANCE_PA", "SLOW_SWEEP_MAX_RISE_MV", "MAX_FLUCTUATION_TO_DEFLECTION",
            "SAG_NOISE_FACTOR"]
 
@@ -30,11 +31,6 @@ MAX_RESIDUAL_TO_NOISE = 1.5
 MIN_DEFLECTION_TO_NOISE = 5.0
 #: Noise below this (mV) counts as this much, so a noise-free trace is not held to zero.
 NOISE_FLOOR_MV = 0.05
-#: The time-constant fit ends where the response is this close (as a fraction of its
-#: deflection) to its minimum.
-END_FRACTION = 0.02
-#: Width of the moving average on which the time-constant fit finds the response's minimum.
-TAU_SMOOTHING_MS = 1.0
 #: Sweeps whose holding current is within this of zero count as "no holding current".
 HOLDING_TOLERANCE_PA = 1.0
 #: A hyperpolarizing sweep sampled too slowly to count spikes is taken as spike-free when no
@@ -46,11 +42,6 @@ SLOW_SWEEP_MAX_RISE_MV = 10.0
 #: background moves the voltage on the time constant's own time scale, which no residual
 #: test against that same background can see (a rule of our own).
 MAX_FLUCTUATION_TO_DEFLECTION = 0.05
-#: Sag counts as present only when steady_state_mv - min_mv exceeds this many times the
-#: baseline's slow fluctuation (SD of its MIN_WINDOW_MS moving average, the smoothing under
-#: min_mv) plus the sweep's drift: over a 0.5 s step, noise alone pulls the smoothed
-#: minimum about 3 SD below the mean (the expected largest of ~500 Gaussian values).
-SAG_NOISE_FACTOR = 4.0
 
 #: Sweep flags that mean a gap emptied some of a sweep's passive values.
 _GAP_FLAGS = ("gap_in_baseline_window", "gap_in_step", "gap_in_steady_state_window",
@@ -120,23 +111,11 @@ CELL_FLAG_TEXT = {
                            "(baseline_mv - min_mv, or the fitted one when smaller), "
                            "where one exponential means nothing, so the time constant is "
                            "left empty",
-    "sag_within_noise": "the sag of the most hyperpolarizing sweep (steady_state_mv - "
-                        f"min_mv) is not over {SAG_NOISE_FACTOR:g} times the baseline's slow "
-                        f"fluctuation (SD of its {MIN_WINDOW_MS:g} ms moving average) plus "
-                        "its drift, so it cannot be told from noise: sag_fraction is 0",
+    "sag_within_noise": "the most hyperpolarizing sweep has the sweep flag "
+                        "`sag_within_noise` (its sag is not over "
+                        f"{SAG_NOISE_FACTOR:g} times the SD its baseline's noise leaves on "
+                        "the smoothing under min_mv, plus its drift): sag_fraction is 0",
 }
-
-
-@dataclass(frozen=True)
-class ExponentialFit:
-    """V(t) = v_inf + (v0 - v_inf) exp(-t / tau_ms), t from step onset."""
-
-    tau_ms: float
-    v0_mv: float
-    v_inf_mv: float
-    r_squared: float
-    rms_residual_mv: float
-    n_samples: int
 
 
 @dataclass(frozen=True)
@@ -166,91 +145,13 @@ class CellFeatures:
     rheobase_sweep: int = -1
     #: The smallest first_spike_current_pa over ramp sweeps (:func:`ramp_rheobase`).
     ramp_rheobase_pa: float = float("nan")
+    input_resistance_mohm_sd: float = float("nan")
+    membrane_tau_ms_sd: float = float("nan")
 
     def as_dict(self) -> dict:
         out = asdict(self)
         out["flags"] = ";".join(self.flags)
         return out
-
-
-def _exponential(t, v_inf, delta, tau):
-    return v_inf + delta * np.exp(-t / tau)
-
-
-def fit_membrane_tau(voltage_mv: np.ndarray, sampling_rate_hz: float, onset_s: float,
-                     offset_s: float, smooth_ms: float = TAU_SMOOTHING_MS,
-                     skip_ms: float = 0.0) -> ExponentialFit | None:
-    """Fit a single exponential to the voltage from step onset to its minimum.
-
-    Parameters
-    ----------
-    voltage_mv : ndarray
-        Raw voltage in mV.
-    sampling_rate_hz : float
-    onset_s, offset_s : float
-        The (hyperpolarizing) step.
-    smooth_ms : float, optional
-        The minimum that ends the fit is found on a moving average of this width, so noise
-        does not end it early.
-    skip_ms : float, optional
-        Samples this close after onset are left out of the fit (time still counts from
-        onset): an electrode's voltage jump at the step edge, and the filter settling after
-        it, are not the membrane's charging (:mod:`spikemeasure.analysis.bridge`).
-
-    Returns
-    -------
-    ExponentialFit or None
-        None when the fit does not converge or the span is too short (fewer than 5 samples).
-
-    Notes
-    -----
-    ``scipy.optimize.curve_fit`` fits V(t) = v_inf + (v0 - v_inf) exp(-t / tau) to the raw
-    samples from onset towards the minimum of the smoothed response (for a cell with sag, the
-    minimum before the sag; for a passive cell, the end of the step), ending where the
-    smoothed response first comes within :data:`END_FRACTION` (2 %) of the deflection from
-    that minimum, about 4 tau for an exponential; the first `skip_ms` are left out. Starting
-    values: the end value, the drop,
-    and the time to 63 % of the drop. The quality is R^2 = 1 - SS_res / SS_tot over the
-    fitted samples.
-    """
-    start = int(round(onset_s * sampling_rate_hz))
-    stop = min(voltage_mv.size, int(round(offset_s * sampling_rate_hz)))
-    if stop - start < 5:
-        return None
-    span = voltage_mv[start:stop]
-    width = max(1, int(round(smooth_ms * 1e-3 * sampling_rate_hz)))
-    smooth = uniform_filter1d(span, size=min(width, span.size), mode="nearest")
-    low = int(np.argmin(smooth))
-    # end where the response first comes within END_FRACTION of the deflection from its
-    # minimum (about 4 tau for an exponential): a long flat stretch after that adds noise but
-    # no information about tau
-    near = smooth <= smooth[low] + END_FRACTION * (smooth[0] - smooth[low])
-    low = min(low, int(np.argmax(near)))
-    skip = int(np.ceil(max(0.0, skip_ms) * 1e-3 * sampling_rate_hz))
-    if low - skip < 5:
-        return None
-    y = span[skip:low + 1]
-    t = (skip + np.arange(y.size)) / sampling_rate_hz * 1e3
-    v_inf0, v00 = float(y[-max(1, y.size // 20):].mean()), float(y[:3].mean())
-    drop = v00 - v_inf0
-    target = v00 - 0.632 * drop
-    crossed = np.flatnonzero(y <= target) if drop > 0 else np.flatnonzero(y >= target)
-    tau0 = float(t[crossed[0]]) if crossed.size and crossed[0] > 0 else float(t[-1]) / 3
-    try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("error", OptimizeWarning)
-            params, _ = curve_fit(_exponential, t, y, p0=(v_inf0, drop, max(tau0, 1e-3)),
-                                  maxfev=5000)
-    except (RuntimeError, OptimizeWarning, ValueError):
-        return None
-    v_inf, delta, tau = (float(p) for p in params)
-    if not (np.isfinite(tau) and tau > 0):
-        return None
-    residual = y - _exponential(t, v_inf, delta, tau)
-    total = float(np.sum((y - y.mean()) ** 2))
-    r2 = 1.0 - float(np.sum(residual ** 2)) / total if total > 0 else float("nan")
-    rms = float(np.sqrt(np.mean(residual ** 2)))
-    return ExponentialFit(tau, v_inf + delta, v_inf, r2, rms, int(y.size))
 
 
 def rheobase(stimulus_pa: np.ndarray, spike_count: np.ndarray,
@@ -316,6 +217,35 @@ def input_resistance(stimulus_pa: np.ndarray, deflection_mv: np.ndarray) -> floa
     if np.unique(stim[use]).size < 2:
         return float("nan")
     return float(np.polyfit(stim[use], dv[use], 1)[0] * 1e3)
+
+
+def input_resistance_sd(stimulus_pa: np.ndarray, deflection_sd_mv: np.ndarray) -> float:
+    """SD (MOhm) of :func:`input_resistance` given each deflection's SD.
+
+    Parameters
+    ----------
+    stimulus_pa : ndarray
+        Step sizes of the sweeps fitted.
+    deflection_sd_mv : ndarray
+        SD of each sweep's steady_state_mv - baseline_mv (the sweep's deflection_sd_mv).
+
+    Returns
+    -------
+    float
+        NaN with fewer than 2 distinct steps or an unknown SD.
+
+    Notes
+    -----
+    The least-squares slope is sum w_j d_j with w_j = (I_j - mean I) / sum (I - mean I)^2;
+    with independent deflections its variance is sum w_j^2 sd_j^2 (the slope's standard
+    error for known, unequal errors: Bevington and Robinson 2003, section 6.4, from memory).
+    """
+    stim = np.asarray(stimulus_pa, dtype=float)
+    sd = np.asarray(deflection_sd_mv, dtype=float)
+    if np.unique(stim).size < 2 or not np.isfinite(stim).all() or not np.isfinite(sd).all():
+        return float("nan")
+    weights = (stim - stim.mean()) / np.sum((stim - stim.mean()) ** 2)
+    return float(np.sqrt(np.sum(weights ** 2 * sd ** 2)) * 1e3)
 
 
 def _spike_free_hyperpolarizing(col: dict, slow: np.ndarray, lower: np.ndarray,
@@ -467,8 +397,8 @@ def _firing_values(col: dict, slow: np.ndarray, lower: np.ndarray,
 
 
 def _passive_values(col: dict, slow: np.ndarray, lower: np.ndarray, gapped: np.ndarray,
-                    traces: list[tuple[np.ndarray, float]], values: dict,
-                    flags: list[str]) -> None:
+                    traces: list[tuple[np.ndarray, float]], sweep_flags: list[set],
+                    values: dict, flags: list[str]) -> None:
     """Input resistance, sag and the membrane time constant (see :func:`cell_features`) into
     `values`, their flags into `flags`."""
     stim, count = col["stimulus_pa"], col["spike_count"]
@@ -483,6 +413,9 @@ def _passive_values(col: dict, slow: np.ndarray, lower: np.ndarray, gapped: np.n
                      | (lower & ~(count > 0) & ~slow))).any():
         flags.append("input_resistance_skips_gap_sweeps")
     values["input_resistance_mohm"] = input_resistance(stim[passive], deflection[passive])
+    if np.isfinite(values["input_resistance_mohm"]):
+        values["input_resistance_mohm_sd"] = input_resistance_sd(
+            stim[passive], col["deflection_sd_mv"][passive])
     if not np.isfinite(values["input_resistance_mohm"]):
         flags.append("too_few_passive_sweeps")
     values["bridge_error_mohm"] = _bridge_median(col, passive[~gapped[passive]], traces)
@@ -497,14 +430,17 @@ def _passive_values(col: dict, slow: np.ndarray, lower: np.ndarray, gapped: np.n
         if gapped[deepest] and clear.size:
             flags.append("sag_skips_gap_sweeps")
             deepest = clear[np.argmin(stim[clear])]
-        values["sag_fraction"] = _sag_beyond_noise(col, int(deepest), traces, flags)
+        values["sag_fraction"] = float(col["sag_fraction"][deepest])
+        if "sag_within_noise" in sweep_flags[deepest]:
+            flags.append("sag_within_noise")
         # hyperpolarizing and spike-free, or it would be but for a gap in its step
         pool = np.flatnonzero(hyper_all & (candidates | (lower & ~(count > 0) & ~slow)))
         fit_ok = np.flatnonzero(candidates & ~gapped)
         if pool.size and (fit_ok.size == 0 or stim[fit_ok].max() < stim[pool].max()):
             flags.append("membrane_tau_skips_gap_sweeps")
         if fit_ok.size:
-            _tau_value(col, int(fit_ok[np.argmax(stim[fit_ok])]), traces, values, flags)
+            _tau_value(col, int(fit_ok[np.argmax(stim[fit_ok])]), traces, sweep_flags, values,
+                       flags)
 
 
 def _bridge_median(col: dict, sweeps: np.ndarray, traces: list[tuple[np.ndarray, float]]
@@ -525,26 +461,8 @@ def _bridge_median(col: dict, sweeps: np.ndarray, traces: list[tuple[np.ndarray,
     return float(np.median(found)) if found else float("nan")
 
 
-def _sag_beyond_noise(col: dict, j: int, traces: list[tuple[np.ndarray, float]],
-                      flags: list[str]) -> float:
-    """sag_fraction of sweep `j`, or 0 (flag ``sag_within_noise``) when its sag is not over
-    SAG_NOISE_FACTOR times the baseline's slow fluctuation plus the sweep's drift."""
-    sag = float(col["sag_fraction"][j])
-    if not np.isfinite(sag):
-        return sag
-    v, rate = traces[j]
-    fluctuation = slow_fluctuation_mv(v, rate, col["stimulus_start_s"][j], MIN_WINDOW_MS)
-    drift = abs(col["baseline_drift_mv"][j]) if np.isfinite(col["baseline_drift_mv"][j]) else 0.0
-    if not np.isfinite(fluctuation):
-        return sag
-    if col["steady_state_mv"][j] - col["min_mv"][j] <= SAG_NOISE_FACTOR * fluctuation + drift:
-        flags.append("sag_within_noise")
-        return 0.0
-    return sag
-
-
-def _tau_value(col: dict, j: int, traces: list[tuple[np.ndarray, float]], values: dict,
-               flags: list[str]) -> None:
+def _tau_value(col: dict, j: int, traces: list[tuple[np.ndarray, float]],
+               sweep_flags: list[set], values: dict, flags: list[str]) -> None:
     """membrane_tau_ms and its fit's quality (see :func:`cell_features`) from sweep `j` into
     `values`, their flags into `flags`."""
     v, rate = traces[j]
@@ -552,11 +470,10 @@ def _tau_value(col: dict, j: int, traces: list[tuple[np.ndarray, float]], values
     noise = max(float(col["baseline_noise_mv"][j]), NOISE_FLOOR_MV) \
         if np.isfinite(col["baseline_noise_mv"][j]) else NOISE_FLOOR_MV
     # an electrode jump (the cell's bridge error times this step) above the noise is left
-    # out with the filter's settling after it; one below the noise moves the fit less than
-    # the noise does, and leaving its samples in keeps the fit of a trace without a jump as
-    # it was
+    # out with the filter's settling after it; without one, only the low-pass filter's
+    # delay, which lengthens a fast membrane's tau (4 % at 1.5 ms behind a 3 kHz Bessel)
     jump = values["bridge_error_mohm"] * col["stimulus_pa"][j] * 1e-3
-    skip = SETTLE_MS if np.isfinite(jump) and abs(jump) > noise else 0.0
+    skip = SETTLE_MS if np.isfinite(jump) and abs(jump) > noise else FILTER_DELAY_MS
     fit = fit_membrane_tau(v, rate, onset, offset, skip_ms=skip)
     if fit is None:
         flags.append("tau_fit_failed")
@@ -575,6 +492,11 @@ def _tau_value(col: dict, j: int, traces: list[tuple[np.ndarray, float]], values
         flags.append("baseline_fluctuates")
     else:
         values["membrane_tau_ms"] = fit.tau_ms
+        # the baseline is the longer stretch of noise (a steadier spectrum) unless a test
+        # pulse cut it short
+        noise = (None if "baseline_window_cut_by_epoch" in sweep_flags[j]
+                 else baseline_stretch(v, rate, onset))
+        values["membrane_tau_ms_sd"] = exponential_fit_sd(fit, rate, noise)
 
 
 def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]],
@@ -619,17 +541,16 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
       since noise caps it. Empty too (flag ``baseline_fluctuates``) when the baseline's slow
       fluctuation (:func:`~spikemeasure.analysis.fluctuation.slow_fluctuation_mv` over a
       :data:`TAU_SMOOTHING_MS` average) exceeds :data:`MAX_FLUCTUATION_TO_DEFLECTION` of the
-      deflection (baseline_mv - min_mv, or the fitted v0 - v_inf when smaller). When
-      bridge_error_mohm times that sweep's step is over its noise, the first
-      :data:`~spikemeasure.analysis.bridge.SETTLE_MS` (the jump and the filter's settling)
-      are left out of the fit.
-    - sag_fraction: that of the most hyperpolarizing sweep; 0 (flag ``sag_within_noise``)
-      when its steady_state_mv - min_mv is not over :data:`SAG_NOISE_FACTOR` times the
-      baseline's slow fluctuation
-      (:func:`~spikemeasure.analysis.fluctuation.slow_fluctuation_mv` over a
-      :data:`~spikemeasure.analysis.sweep_features.MIN_WINDOW_MS` average) plus the sweep's
-      abs(baseline_drift_mv): a sag the trace cannot tell from noise is, to its resolution,
-      no sag, and a cell without one keeps its place among cells compared by sag.
+      deflection (baseline_mv - min_mv, or the fitted v0 - v_inf when smaller). The first
+      :data:`FILTER_DELAY_MS` after onset (the low-pass filter's delay) are left out of the
+      fit; when bridge_error_mohm times that sweep's step is over its noise, the first
+      :data:`~spikemeasure.analysis.bridge.SETTLE_MS` (the jump and the filter's settling).
+      membrane_tau_ms_sd: :func:`exponential_fit_sd` with the sweep's baseline noise.
+    - input_resistance_mohm_sd: :func:`input_resistance_sd` of the sweeps' deflection_sd_mv.
+    - sag_fraction: that of the most hyperpolarizing sweep, with the flag
+      ``sag_within_noise`` when that sweep has it (its sag, 0, could not be told from noise:
+      :func:`~spikemeasure.analysis.sweep_features.passive_response`): one rule for both
+      tables.
     - rheobase_*: threshold, amplitude, half-width and AHP depth of the rheobase sweep's first
       spike in the step.
 
@@ -659,7 +580,8 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
            ("stimulus_pa", "holding_pa", "baseline_mv", "baseline_noise_mv", "spike_count",
             "firing_rate_hz", "steady_state_mv", "sag_fraction", "stimulus_start_s",
             "stimulus_end_s")} if n else {}
-    for k in ("min_mv", "baseline_drift_mv", "test_pulse_pa", "test_pulse_start_s"):  # optional
+    for k in ("min_mv", "baseline_drift_mv", "deflection_sd_mv", "test_pulse_pa",
+              "test_pulse_start_s"):  # optional
         if n:
             col[k] = np.array([r.get(k, nan) for r in sweep_rows], dtype=float)
     sweep_flags = [set(filter(None, str(r.get("flags", "")).split(";"))) for r in sweep_rows]
@@ -677,7 +599,8 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
                   bridge_error_mohm=nan, membrane_tau_ms=nan,
                   membrane_tau_fit_r2=nan, membrane_tau_residual_to_noise=nan, sag_fraction=nan, rheobase_threshold_mv=nan,
                   rheobase_amplitude_mv=nan, rheobase_half_width_ms=nan,
-                  rheobase_ahp_depth_mv=nan)
+                  rheobase_ahp_depth_mv=nan, input_resistance_mohm_sd=nan,
+                  membrane_tau_ms_sd=nan)
     if n:
         _before_block(col, sweep_flags, values)
     if n and np.isfinite(col["rate_before_block_hz"]).any() and not slow.any():
@@ -691,6 +614,6 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
                          else "no_current_steps")
         return CellFeatures(n, resting, flags=tuple(flags), ramp_rheobase_pa=ramp_rb, **values)
     rheobase_sweep = _firing_values(col, slow, lower, first_spikes, values, flags)
-    _passive_values(col, slow, lower, gapped, traces, values, flags)
+    _passive_values(col, slow, lower, gapped, traces, sweep_flags, values, flags)
     return CellFeatures(n, resting, flags=tuple(flags), rheobase_sweep=rheobase_sweep,
                         ramp_rheobase_pa=ramp_rb, **values)

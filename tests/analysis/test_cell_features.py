@@ -35,7 +35,8 @@ class TestPassiveMembrane:
         rec = rc_recording(3.0, steps_pa=(-10.0, -5.0))
         cell = cell_summary(measure_recording(rec))
         assert np.isnan(cell.membrane_tau_ms)
-        assert "tau_fit_poor" in cell.flags or "tau_fit_failed" in cell.flags
+        # which test refuses it depends on the noise's draw: all three say why it is empty
+        assert {"tau_fit_poor", "tau_fit_failed", "baseline_fluctuates"} & set(cell.flags)
 
     def test_exponential_fit_directly(self):
         v = rc_recording().sweeps[3].voltage_mv
@@ -182,7 +183,9 @@ class TestCellsWithGapsAndSlowSweeps:
         results = measure_recording(rec)
         assert all(r.error is None for r in results)
         for r in results:
-            assert r.features.flags == ("too_slow_for_spikes",)
+            # the RC membrane has no sag: every hyperpolarizing step's is within noise
+            no_sag = ("sag_within_noise",) if r.features.stimulus_pa < 0 else ()
+            assert r.features.flags == ("too_slow_for_spikes",) + no_sag
             assert np.isnan(r.features.spike_count) and len(r.spikes) == 0
         cell = cell_summary(results)
         assert cell.input_resistance_mohm == pytest.approx(R_MOHM, rel=0.01)
@@ -197,7 +200,7 @@ class TestCellsWithGapsAndSlowSweeps:
         names = [c.name for c in SWEEP_COLUMNS]
         assert names[-1] == "flags"
         assert rows[0][names.index("spike_count")] == ""
-        assert rows[0][names.index("flags")] == "too_slow_for_spikes"
+        assert rows[0][names.index("flags")] == "too_slow_for_spikes;sag_within_noise"
         assert rows[0][names.index("steady_state_mv")] != ""
 
     def test_gap_in_the_smallest_step_leaves_it_out(self):

@@ -27,7 +27,8 @@ class TestPassiveResponse:
         = its smallest sample, sag = (steady - min) / (baseline - min), computed with numpy."""
         v = sag_trace()
         step = CurrentStep(0.1, 0.6, -100.0, 0.0)
-        steady, lowest, sag = passive_response(v, RATE, step, baseline_mv=-70.0)
+        got = passive_response(v, RATE, step, baseline_mv=-70.0)
+        steady, lowest, sag = got.steady_state_mv, got.min_mv, got.sag_fraction
         inside = v[int(0.1 * RATE):int(0.6 * RATE)]
         hand_steady = inside[-int(0.1 * RATE):].mean()
         hand_min = inside.min()
@@ -41,12 +42,13 @@ class TestPassiveResponse:
         v = sag_trace() + np.random.default_rng(2).normal(0, 0.3, int(0.8 * RATE))
         clean = passive_response(sag_trace(), RATE, CurrentStep(0.1, 0.6, -100.0), -70.0)
         noisy = passive_response(v, RATE, CurrentStep(0.1, 0.6, -100.0), -70.0)
-        assert noisy[1] == pytest.approx(clean[1], abs=0.15)
-        assert noisy[2] == pytest.approx(clean[2], abs=0.02)
+        assert noisy.min_mv == pytest.approx(clean.min_mv, abs=0.15)
+        assert noisy.sag_fraction == pytest.approx(clean.sag_fraction, abs=0.02)
 
     def test_no_sag_on_depolarizing_step(self):
         v = -sag_trace() - 140.0
-        assert np.isnan(passive_response(v, RATE, CurrentStep(0.1, 0.6, 100.0), -70.0)[2])
+        assert np.isnan(passive_response(v, RATE, CurrentStep(0.1, 0.6, 100.0),
+                                         -70.0).sag_fraction)
 
 
 class TestFiring:
@@ -207,7 +209,7 @@ class TestMissingSamples:
         clean = sweep_features(v, RATE, step, np.array([]))
         v[:100] = np.nan
         got = sweep_features(v, RATE, step, np.array([]))
-        assert got.flags == () and got.baseline_mv == clean.baseline_mv
+        assert got.flags == clean.flags and got.baseline_mv == clean.baseline_mv
 
     def test_count_is_a_lower_bound_and_latency_kept_before_the_gap(self):
         """Spike times by hand: 0.12, 0.17, 0.27 and 0.42 s; a gap from 0.3 to 0.31 s may hide
