@@ -534,9 +534,10 @@ def uncertainty_lines() -> list[str]:
         "a spike's values; a 50 or 60 Hz hum is, and stays), and the noise is kept as its "
         "biased autocovariance (Priestley 1981), so its spectrum (white, filtered, hum) "
         "carries over. With less than "
-        f"{MIN_QUIET_MS:g} ms of finite samples there, the SDs are empty; long recordings "
-        "read in pieces have no SDs either. Synaptic background on the quiet stretch counts "
-        "as noise.",
+        f"{MIN_QUIET_MS:g} ms of finite samples there, the SDs are empty; so are they for a "
+        "value whose windows reach an end of the sweep or a gap, and in long recordings read "
+        "in pieces. Synaptic background on the quiet stretch counts as noise (it is noise "
+        "of the spike values too, if not of the recording).",
         "",
         "Each value is, to first order, a weighted sum w of the samples around its spike, "
         "with weights from the estimator's own steps: the Savitzky-Golay weights of the "
