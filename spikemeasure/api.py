@@ -17,7 +17,6 @@ from .columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS, Column
 from .analysis.detection import DetectionSettings
 from .errors import InvalidSettingError
 from .analysis.spikes import measure_trace as _measure_spikes_of_trace
-from .analysis.spike_uncertainty import with_uncertainty
 from .io import Recording, read_recording
 from .params import SETTING_PARAMETERS, check_value
 from .tables.build import (cell_summary, cell_table, measure_recording, spike_table, spike_values,
@@ -215,8 +214,7 @@ def measure_trace(voltage_mv, sampling_rate_hz: float, **settings: Any) -> Table
     -------
     Table
         One row per spike, with the spike columns of ``spikes.csv`` (``file`` and
-        ``electrode`` empty, ``sweep`` 0); zero rows when there is no spike. The SD columns
-        measure the noise on the trace before its first spike (no stimulus is known).
+        ``electrode`` empty, ``sweep`` 0); zero rows when there is no spike.
 
     Raises
     ------
@@ -225,7 +223,5 @@ def measure_trace(voltage_mv, sampling_rate_hz: float, **settings: Any) -> Table
     """
     detection = _checked_settings(settings)
     rate = check_value("sampling_rate_hz", sampling_rate_hz)
-    voltage = np.asarray(voltage_mv, dtype=float)
-    spikes = with_uncertainty(_measure_spikes_of_trace(voltage, rate, detection), voltage, rate,
-                              None, detection)
+    spikes = _measure_spikes_of_trace(np.asarray(voltage_mv, dtype=float), rate, detection)
     return Table(SPIKE_COLUMNS, spike_values(spikes, "", 0))

@@ -145,8 +145,8 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
            "interpolated.", 4),
     Column("threshold_mv_sd", "mV", "SD of threshold_mv that the recording's noise implies "
            "(see *Uncertainty of spike values*). Empty with `--threshold-method "
-           "second_derivative_peak`, and when the sweep has no quiet stretch of "
-           f"{MIN_QUIET_MS:g} ms.", 4, compute=partial(sd_values, name="threshold_mv_sd")),
+           "second_derivative_peak`, and when the sweep has no stimulus or no quiet stretch "
+           f"of {MIN_QUIET_MS:g} ms before it.", 4, compute=partial(sd_values, name="threshold_mv_sd")),
     Column("peak_s", "s", "Time of the peak: the maximum of the cubic spline through the largest "
            "raw sample between threshold and the end of the rise and three samples either side, "
            "so a peak falling between samples is found.", 7, is_time=True),

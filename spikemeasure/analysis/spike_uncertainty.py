@@ -28,7 +28,7 @@ __all__ = ["NoiseModel", "SpikeUncertainty", "SpikesWithUncertainty", "SD_COLUMN
 MIN_QUIET_MS = 20.0
 #: The noise is measured on at most the last this many ms of the quiet stretch.
 MAX_QUIET_MS = 1000.0
-#: Without a stimulus, the quiet stretch ends this long (ms) before the first spike's threshold.
+#: The quiet stretch ends at least this long (ms) before the first spike's threshold.
 SPIKE_CLEARANCE_MS = 5.0
 
 #: The columns this module fills, each named after its value's column.
@@ -102,25 +102,33 @@ def quiet_stretch(n_samples: int, sampling_rate_hz: float, step: CurrentStep | N
         Samples in the sweep.
     sampling_rate_hz : float
     step : CurrentStep or None
-        The main stimulus; its quiet stretch is ``baseline_start_s`` to ``onset_s``.
+        The main stimulus; its quiet stretch is ``baseline_start_s`` to ``onset_s``. Without
+        one no stretch is known to be quiet.
     first_spike_s : float
         Time of the sweep's first spike (NaN without spikes).
 
     Returns
     -------
     (int, int) or None
-        The last :data:`MAX_QUIET_MS` of the stretch before the stimulus, ended before the
-        first spike; without a stimulus, the stretch before the first spike less
-        :data:`SPIKE_CLEARANCE_MS`. None when that is shorter than :data:`MIN_QUIET_MS`.
+        The last :data:`MAX_QUIET_MS` of the stretch before the stimulus, ended
+        :data:`SPIKE_CLEARANCE_MS` before the first spike. None without a stimulus or when
+        that is shorter than :data:`MIN_QUIET_MS`.
+
+    Notes
+    -----
+    Without a stimulus the membrane before the first spike may be moving towards it (a
+    fluctuating drive, a gap-free recording of spontaneous firing): that is signal, not
+    recording noise, and would inflate the SDs many times, so none are given.
     """
     rate = float(sampling_rate_hz)
     if not rate > 0:
         raise InvalidSettingError("`sampling_rate_hz` must be positive")
-    stop_s = step.onset_s if step is not None else np.inf
-    start_s = step.baseline_start_s if step is not None else 0.0
+    if step is None:
+        return None
+    stop_s, start_s = step.onset_s, step.baseline_start_s
     if np.isfinite(first_spike_s):
         stop_s = min(stop_s, first_spike_s - SPIKE_CLEARANCE_MS * 1e-3)
-    stop = int(min(n_samples, np.floor(stop_s * rate))) if np.isfinite(stop_s) else n_samples
+    stop = int(min(n_samples, np.floor(stop_s * rate)))
     start = max(int(np.ceil(start_s * rate)), stop - int(round(MAX_QUIET_MS * 1e-3 * rate)), 0)
     if stop - start < MIN_QUIET_MS * 1e-3 * rate:
         return None
@@ -528,15 +536,16 @@ def uncertainty_lines() -> list[str]:
         "",
         "The noise is measured on the sweep's quiet stretch: from the start of the stretch "
         "the baseline may use to the onset of the main stimulus (its last "
-        f"{MAX_QUIET_MS:g} ms), ended {SPIKE_CLEARANCE_MS:g} ms before the first spike; "
-        f"without a stimulus, the sweep before its first spike less {SPIKE_CLEARANCE_MS:g} "
-        "ms. A least-squares line is removed (a resting level or slow drift is not noise of "
+        f"{MAX_QUIET_MS:g} ms), ended {SPIKE_CLEARANCE_MS:g} ms before the first spike. A "
+        "sweep without a stimulus has no SDs: before its first spike the membrane may be "
+        "moving towards it (a fluctuating drive), which is signal, not noise of the "
+        "recording, and would inflate them. A least-squares line is removed (a resting level or slow drift is not noise of "
         "a spike's values; a 50 or 60 Hz hum is, and stays), and the noise is kept as its "
         "biased autocovariance (Priestley 1981), so its spectrum (white, filtered, hum) "
         "carries over. With less than "
         f"{MIN_QUIET_MS:g} ms of finite samples there, the SDs are empty; so are they for a "
-        "value whose windows reach an end of the sweep or a gap, and in long recordings read "
-        "in pieces. Synaptic background on the quiet stretch counts as noise (it is noise "
+        "value whose windows reach an end of the sweep or a gap, and so in long gap-free "
+        "recordings read in pieces (they have no stimulus). Synaptic background on the quiet stretch counts as noise (it is noise "
         "of the spike values too, if not of the recording).",
         "",
         "Each value is, to first order, a weighted sum w of the samples around its spike, "

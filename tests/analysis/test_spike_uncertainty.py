@@ -115,9 +115,10 @@ class TestQuietStretch:
         step = CurrentStep(0.1, 0.6, 50.0, 0.0)
         assert quiet_stretch(20_000, 20_000.0, step, 0.05) == (0, 900)
 
-    def test_without_a_stimulus_the_stretch_before_the_first_spike(self):
-        assert quiet_stretch(20_000, 20_000.0, None, 0.5) == (0, 9900)
-        assert quiet_stretch(20_000, 20_000.0, None, 0.02) is None
+    def test_none_without_a_stimulus_or_too_short(self):
+        assert quiet_stretch(20_000, 20_000.0, None, 0.5) is None
+        step = CurrentStep(0.1, 0.6, 50.0, 0.0)
+        assert quiet_stretch(20_000, 20_000.0, step, 0.02) is None
 
     def test_rate_must_be_positive(self):
         with pytest.raises(InvalidSettingError, match="sampling_rate_hz"):
