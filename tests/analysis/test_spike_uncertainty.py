@@ -67,15 +67,17 @@ def standard_scores():
 
 
 class TestCalibration:
-    @pytest.mark.parametrize("name", SD_COLUMNS)
-    def test_truth_within_two_sd_in_85_to_99_5_percent(self, standard_scores, name):
+    def test_truth_within_two_sd_in_85_to_99_5_percent(self, standard_scores):
         # source: the noise-free recording of the same simulated cell (record_commands with
-        # noise_mv=0 and no hum, same filter and rate), measured the same way
-        z = standard_scores[name]
-        assert np.isfinite(z).all()
-        assert z.size >= 200
-        within = np.mean(np.abs(z) <= 2.0)
-        assert 0.85 <= within <= 0.995, (name, within)
+        # noise_mv=0 and no hum, same filter and rate), measured the same way. One test for
+        # all columns, so that parallel workers do not each simulate the recordings.
+        within = {}
+        for name in SD_COLUMNS:
+            z = standard_scores[name]
+            assert np.isfinite(z).all(), name
+            assert z.size >= 200, name
+            within[name] = float(np.mean(np.abs(z) <= 2.0))
+        assert all(0.85 <= w <= 0.995 for w in within.values()), within
 
 
 class TestMeasuredNoise:
