@@ -10,6 +10,7 @@ spike), and its test.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import partial
 from typing import Any, Callable
 
 import numpy as np
@@ -23,6 +24,7 @@ from .analysis.cell_features import (CELL_FLAG_TEXT, END_FRACTION, FILTER_DELAY_
 from .analysis.epochs import (MAX_EDGE_MS, MIN_LEVEL_CHANGE_PA, NOISE_MULTIPLE,
                               RESIDUAL_WINDOW_MS)
 from .analysis.spike_features import SECOND_DERIVATIVE_LOOKBACK_MS
+from .analysis.spike_uncertainty import MIN_QUIET_MS, sd_values, uncertainty_lines
 from .analysis.sweeps import COMMAND_MEDIAN_SAMPLES
 from .analysis.spikes import CLIPPED_RUN_SAMPLES, FLAG_TEXT, PIECE_SAMPLES
 from .analysis.sweep_features import (BASELINE_WINDOW_MS, DRIFT_WINDOW_MS, MIN_WINDOW_MS,
@@ -143,10 +145,16 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
            is_time=True),
     Column("threshold_mv", "mV", "Smoothed membrane voltage at threshold_s, linearly "
            "interpolated.", 4),
+    Column("threshold_mv_sd", "mV", "SD of threshold_mv that the recording's noise implies "
+           "(see *Uncertainty of spike values*). Empty with `--threshold-method "
+           "second_derivative_peak`, and when the sweep has no stimulus or no quiet stretch "
+           f"of {MIN_QUIET_MS:g} ms before it.", 4, compute=partial(sd_values, name="threshold_mv_sd")),
     Column("peak_s", "s", "Time of the peak: the maximum of the cubic spline through the largest "
            "raw sample between threshold and the end of the rise and three samples either side, "
            "so a peak falling between samples is found.", 7, is_time=True),
     Column("peak_mv", "mV", "Voltage at that maximum.", 4),
+    Column("peak_mv_sd", "mV", "SD of peak_mv that the recording's noise implies.", 4,
+           compute=partial(sd_values, name="peak_mv_sd")),
     Column("amplitude_mv", "mV", "peak_mv - threshold_mv.", 4),
     Column("half_width_ms", "ms", "Time between the upward crossing (the last before the peak) "
            "and the downward crossing (the first after it) of threshold_mv + amplitude_mv / 2 "
@@ -155,11 +163,15 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
            f"{_option('search_window_ms')} ({_default('search_window_ms')}) of the peak, or "
            f"when fewer than {_option('min_samples_across_width')} "
            f"({_default('min_samples_across_width')}) samples lie above the level.", 5),
+    Column("half_width_ms_sd", "ms", "SD of half_width_ms that the recording's noise "
+           "implies.", 5, compute=partial(sd_values, name="half_width_ms_sd")),
     Column("rise_time_ms", "ms", "peak_s - threshold_s.", 5),
     Column("max_dvdt_v_per_s", "V/s", "Largest dV/dt from threshold to peak, refined between "
            "samples with a parabola. This dV/dt has its own, shorter smoothing window "
            f"({_option('rate_smoothing_ms')}, {_default('rate_smoothing_ms')}) so that the "
            "sharp extreme is not flattened.", 3),
+    Column("max_dvdt_v_per_s_sd", "V/s", "SD of max_dvdt_v_per_s that the recording's noise "
+           "implies.", 3, compute=partial(sd_values, name="max_dvdt_v_per_s_sd")),
     Column("min_dvdt_v_per_s", "V/s", "Most negative dV/dt (same window as max_dvdt_v_per_s) "
            "from peak to trough, refined between samples with a parabola.", 3),
     Column("trough_s", "s", "Time of the minimum of the smoothed voltage after the peak and "
@@ -172,6 +184,8 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
     Column("trough_mv", "mV", "Smoothed voltage at trough_s.", 4),
     Column("ahp_depth_mv", "mV", "Depth of the afterhyperpolarization: threshold_mv - trough_mv "
            "(positive when the trough lies below threshold).", 4),
+    Column("ahp_depth_mv_sd", "mV", "SD of ahp_depth_mv that the recording's noise implies.",
+           4, compute=partial(sd_values, name="ahp_depth_mv_sd")),
     Column("isi_ms", "ms", "Interspike interval: threshold_s minus the previous spike's "
            "threshold_s in the same sweep; empty for a sweep's first spike.", 5),
     Column("peak_to_trough_ms", "ms", "trough_s - peak_s, in ms: how long after its peak the "
@@ -435,6 +449,7 @@ def columns_markdown() -> str:
     lines += ["", "## Cell flags", ""] + _flag_rows(CELL_FLAG_TEXT)
     lines += _stimulus_lines()
     lines += _detection_lines(DetectionSettings()) + _long_recording_lines()
+    lines += uncertainty_lines()
     return "\n".join(lines)
 
 

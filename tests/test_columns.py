@@ -10,9 +10,13 @@ from spikemeasure.analysis.spikes import FLAG_TEXT, TIME_FIELDS, SpikeMeasuremen
 DOCS = Path(__file__).resolve().parents[1] / "docs" / "measurements.md"
 
 # The order the spike table must start with (the project's output contract).
-REQUIRED_ORDER = ["file", "electrode", "sweep", "spike", "threshold_s", "threshold_mv", "peak_s", "peak_mv",
-                  "amplitude_mv", "half_width_ms", "rise_time_ms", "max_dvdt_v_per_s",
-                  "min_dvdt_v_per_s", "trough_s", "trough_mv", "ahp_depth_mv", "isi_ms"]
+# Each SD column follows its value's column.
+REQUIRED_ORDER = ["file", "electrode", "sweep", "spike", "threshold_s", "threshold_mv",
+                  "threshold_mv_sd", "peak_s", "peak_mv", "peak_mv_sd",
+                  "amplitude_mv", "half_width_ms", "half_width_ms_sd", "rise_time_ms",
+                  "max_dvdt_v_per_s", "max_dvdt_v_per_s_sd",
+                  "min_dvdt_v_per_s", "trough_s", "trough_mv", "ahp_depth_mv", "ahp_depth_mv_sd",
+                  "isi_ms"]
 
 
 def test_required_columns_first_in_order():
@@ -96,8 +100,8 @@ class TestDerivativeNoise:
 def test_units_are_name_suffixes():
     suffix = {"s": "_s", "mV": "_mv", "ms": "_ms", "V/s": "_v_per_s"}
     for c in SPIKE_COLUMNS:
-        if c.unit:
-            assert c.name.endswith(suffix[c.unit]), c.name
+        if c.unit:  # an SD column carries its value's unit, then "_sd"
+            assert c.name.removesuffix("_sd").endswith(suffix[c.unit]), c.name
         assert c.definition
 
 

@@ -16,6 +16,7 @@ from ..errors import InvalidSettingError, SpikemeasureError, UnmeasurableDataErr
 from ..analysis.spikes import (PIECE_SAMPLES, SpikeMeasurements, first_in_step, measure_spikes,
                                spike_times)
 from ..analysis.spikes_in_parts import measure_around_gaps, measure_in_pieces_with_gaps
+from ..analysis.spike_uncertainty import with_uncertainty
 from ..io import Recording, Sweep
 from ..analysis.sweep_features import SweepFeatures, sweep_features
 from ..analysis.sweeps import (CurrentStep, check_sweep, missing_stretches, protocol_steps,
@@ -113,6 +114,7 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
                 trace = smoothed_trace(voltage, rate, settings.smoothing_ms,
                                        second_derivative=settings.needs_second_derivative)
                 spikes = measure_spikes(trace, detect_spikes(trace, settings), settings, step)
+            spikes = with_uncertainty(spikes, voltage, rate, step, settings)
             edge_gaps = _command_edge_gaps(sweep, step)
             all_gaps = np.concatenate([gaps, edge_gaps]) if edge_gaps.size else gaps
             features = sweep_features(voltage, rate, step, spike_times(spikes),

@@ -23,7 +23,8 @@ ADDED = "peak_to_trough_ms"
 
 #: Columns added to each table since the pins below.
 ADDED_COLUMNS = {
-    "spikes.csv": ("peak_to_trough_ms", "electrode"),
+    "spikes.csv": ("peak_to_trough_ms", "electrode", "threshold_mv_sd", "peak_mv_sd",
+                   "half_width_ms_sd", "max_dvdt_v_per_s_sd", "ahp_depth_mv_sd"),
     "sweeps.csv": ("electrode", "stimulus_shape", "test_pulse_pa", "ramp_rate_pa_per_s",
                    "first_spike_current_pa", "sag_fraction_sd"),
     "cells.csv": ("electrode", "ramp_rheobase_pa", "block_stimulus_pa", "bridge_error_mohm",

@@ -1,0 +1,576 @@
+"""How much each spike's values could move with the recording's own noise: their SDs.
+
+The noise of a recording is measured on its quiet stretch, where it is all there is, and kept
+as its autocovariance, so its spectrum (white noise, filtered noise, mains hum) carries over.
+Each spike value is, to first order, a weighted sum of the samples around the spike; its SD is
+that sum applied to the measured noise: ``sqrt(w' C w)`` with C the noise autocovariance. The
+weights follow the estimators of :mod:`~spikemeasure.analysis.spike_features` step by step.
+Functions take arrays and a sampling rate and return arrays; nothing here reads files or prints.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, fields
+
+import numpy as np
+from scipy.interpolate import CubicSpline
+from scipy.signal import savgol_coeffs
+
+from ..errors import InvalidSettingError
+from .detection import SMOOTHING_POLYORDER, DetectionSettings, smoothing_window_samples
+from .spikes import SpikeMeasurements
+from .sweeps import CurrentStep
+
+__all__ = ["NoiseModel", "SpikeUncertainty", "SpikesWithUncertainty", "SD_COLUMNS",
+           "MIN_QUIET_MS", "MAX_QUIET_MS", "SPIKE_CLEARANCE_MS", "quiet_stretch",
+           "measured_noise", "spike_uncertainty", "with_uncertainty", "sd_values"]
+
+#: The shortest quiet stretch (ms) the noise is measured on; with less, the SDs are empty.
+MIN_QUIET_MS = 20.0
+#: The noise is measured on at most the last this many ms of the quiet stretch.
+MAX_QUIET_MS = 1000.0
+#: The quiet stretch ends at least this long (ms) before the first spike's threshold.
+SPIKE_CLEARANCE_MS = 5.0
+
+#: The columns this module fills, each named after its value's column.
+SD_COLUMNS: tuple[str, ...] = ("threshold_mv_sd", "peak_mv_sd", "half_width_ms_sd",
+                               "max_dvdt_v_per_s_sd", "ahp_depth_mv_sd")
+
+
+@dataclass(frozen=True)
+class NoiseModel:
+    """The recording noise as its autocovariance.
+
+    Attributes
+    ----------
+    autocovariance_mv2 : ndarray
+        Biased autocovariance (divided by the stretch length, so positive semidefinite) at lags
+        0, 1, ... samples, in mV^2; lags beyond it count as uncorrelated.
+    sampling_rate_hz : float
+    start, stop : int
+        The stretch it was measured on (sample indices, stop exclusive).
+    """
+
+    autocovariance_mv2: np.ndarray
+    sampling_rate_hz: float
+    start: int
+    stop: int
+
+    @property
+    def sd_mv(self) -> float:
+        return float(np.sqrt(self.autocovariance_mv2[0]))
+
+
+@dataclass(frozen=True)
+class SpikeUncertainty:
+    """SDs of spike values, aligned with the spikes (NaN where the value or the noise is
+    unknown); the columns of :data:`SD_COLUMNS`."""
+
+    threshold_mv_sd: np.ndarray
+    peak_mv_sd: np.ndarray
+    half_width_ms_sd: np.ndarray
+    max_dvdt_v_per_s_sd: np.ndarray
+    ahp_depth_mv_sd: np.ndarray
+
+
+@dataclass(frozen=True)
+class SpikesWithUncertainty(SpikeMeasurements):
+    """:class:`~spikemeasure.analysis.spikes.SpikeMeasurements` with the SDs of
+    :data:`SD_COLUMNS` beside the values (kept by ``shifted``, not by ``subset``)."""
+
+    threshold_mv_sd: np.ndarray
+    peak_mv_sd: np.ndarray
+    half_width_ms_sd: np.ndarray
+    max_dvdt_v_per_s_sd: np.ndarray
+    ahp_depth_mv_sd: np.ndarray
+
+
+def sd_values(spikes: SpikeMeasurements, name: str) -> np.ndarray:
+    """The SD column `name` of a sweep's spikes: NaN per spike when they carry no SDs."""
+    if name not in SD_COLUMNS:
+        raise InvalidSettingError(f"`name` must be one of {', '.join(SD_COLUMNS)}, got {name!r}")
+    found = getattr(spikes, name, None)
+    return np.full(len(spikes), np.nan) if found is None else np.asarray(found, dtype=float)
+
+
+def quiet_stretch(n_samples: int, sampling_rate_hz: float, step: CurrentStep | None,
+                  first_spike_s: float) -> tuple[int, int] | None:
+    """The stretch of a sweep the noise is measured on, (start, stop) sample indices.
+
+    Parameters
+    ----------
+    n_samples : int
+        Samples in the sweep.
+    sampling_rate_hz : float
+    step : CurrentStep or None
+        The main stimulus; its quiet stretch is ``baseline_start_s`` to ``onset_s``. Without
+        one no stretch is known to be quiet.
+    first_spike_s : float
+        Time of the sweep's first spike (NaN without spikes).
+
+    Returns
+    -------
+    (int, int) or None
+        The last :data:`MAX_QUIET_MS` of the stretch before the stimulus, ended
+        :data:`SPIKE_CLEARANCE_MS` before the first spike. None without a stimulus or when
+        that is shorter than :data:`MIN_QUIET_MS`.
+
+    Notes
+    -----
+    Without a stimulus the membrane before the first spike may be moving towards it (a
+    fluctuating drive, a gap-free recording of spontaneous firing): that is signal, not
+    recording noise, and would inflate the SDs many times, so none are given.
+    """
+    rate = float(sampling_rate_hz)
+    if not rate > 0:
+        raise InvalidSettingError("`sampling_rate_hz` must be positive")
+    if step is None:
+        return None
+    stop_s, start_s = step.onset_s, step.baseline_start_s
+    if np.isfinite(first_spike_s):
+        stop_s = min(stop_s, first_spike_s - SPIKE_CLEARANCE_MS * 1e-3)
+    stop = int(min(n_samples, np.floor(stop_s * rate)))
+    start = max(int(np.ceil(start_s * rate)), stop - int(round(MAX_QUIET_MS * 1e-3 * rate)), 0)
+    if stop - start < MIN_QUIET_MS * 1e-3 * rate:
+        return None
+    return start, stop
+
+
+def measured_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start: int, stop: int
+                   ) -> NoiseModel | None:
+    """Autocovariance of the noise on ``voltage_mv[start:stop]``.
+
+    Parameters
+    ----------
+    voltage_mv : ndarray
+        The sweep's raw voltage, mV.
+    sampling_rate_hz : float
+    start, stop : int
+        The quiet stretch (see :func:`quiet_stretch`).
+
+    Returns
+    -------
+    NoiseModel or None
+        None when the longest finite run of the stretch is shorter than :data:`MIN_QUIET_MS`.
+
+    Notes
+    -----
+    A least-squares line is removed first (the resting level and a slow drift are not noise
+    of a spike's values; a hum of 50 or 60 Hz is, and stays). The autocovariance is the
+    biased estimate ``sum(x[i] x[i+k]) / n`` [1]_, computed with a zero-padded FFT; the
+    biased estimate is positive semidefinite, so every SD computed from it is real.
+
+    References
+    ----------
+    .. [1] M. B. Priestley, "Spectral Analysis and Time Series", Academic Press, 1981, sec. 5.3.
+    """
+    stretch = np.asarray(voltage_mv[start:stop], dtype=float)
+    finite = np.isfinite(stretch)
+    if not finite.all():
+        start, stop = _longest_finite_run(finite, start)
+        stretch = np.asarray(voltage_mv[start:stop], dtype=float)
+    n = stretch.size
+    if n < max(3, MIN_QUIET_MS * 1e-3 * sampling_rate_hz):
+        return None
+    t = np.arange(n, dtype=float)
+    slope, intercept = np.polyfit(t, stretch, 1)
+    x = stretch - (slope * t + intercept)
+    size = 1 << int(np.ceil(np.log2(2 * n)))
+    spectrum = np.fft.rfft(x, size)
+    acov = np.fft.irfft(spectrum * spectrum.conj(), size)[:n] / n
+    return NoiseModel(acov, float(sampling_rate_hz), int(start), int(stop))
+
+
+def _longest_finite_run(finite: np.ndarray, offset: int) -> tuple[int, int]:
+    """(start, stop) of the longest run of True in `finite`, shifted by `offset`."""
+    edges = np.diff(np.concatenate([[0], finite.astype(np.int8), [0]]))
+    starts, stops = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)
+    if starts.size == 0:
+        return offset, offset
+    k = int(np.argmax(stops - starts))
+    return offset + int(starts[k]), offset + int(stops[k])
+
+
+# A linear functional of the samples, for every spike at once: terms (kernel, centre, coef),
+# each the kernel's dot product with the samples around the centre, times the coefficient;
+# the kernel is a smoothing filter (see _Filter.at) or one row of weights (a unit sample).
+_Term = tuple["_Filter | np.ndarray", np.ndarray, np.ndarray]
+
+
+@dataclass(frozen=True)
+class _Filter:
+    """A Savitzky-Golay filter of the estimators, with its weights at the window centre."""
+
+    window: int
+    deriv: int
+    delta: float
+    centre_weights: np.ndarray
+
+    def at(self, centre: np.ndarray, n_samples: int) -> tuple[np.ndarray, np.ndarray]:
+        """(weights per spike, window centres) of the filtered value at each sample `centre`:
+        within half a window of an end of the trace, the fit to the end window evaluated off
+        its centre, as ``savgol_filter(mode='interp')`` does."""
+        half = self.window // 2
+        centre = np.asarray(centre, dtype=np.int64)
+        inner = np.clip(centre, half, max(half, n_samples - 1 - half))
+        shift = np.clip(centre - inner, -half, half)
+        weights = np.empty((centre.size, self.window))
+        for k in np.unique(shift):
+            weights[shift == k] = (self.centre_weights if k == 0 else savgol_coeffs(
+                self.window, SMOOTHING_POLYORDER, deriv=self.deriv, delta=self.delta,
+                pos=half + int(k), use="dot"))
+        return weights, inner
+_UNIT = np.ones(1)
+_QUADRATIC_ELEMENTS = 4_000_000   # (spikes x weights^2) evaluated at once, to bound memory
+_spline_cache: list[CubicSpline] = []
+
+
+def _peak_spline() -> CubicSpline:
+    """The not-a-knot cubic splines through the unit vectors at nodes -3..3: evaluated at an
+    offset, the weights of the seven samples in the spline's value there."""
+    if not _spline_cache:
+        nodes = np.arange(-3.0, 4.0)
+        _spline_cache.append(CubicSpline(nodes, np.eye(nodes.size), axis=0))
+    return _spline_cache[0]
+
+
+def _windows(v: np.ndarray, kernel: np.ndarray, centre: np.ndarray) -> np.ndarray:
+    """The kernel's dot product with v around each centre; NaN where the window leaves v."""
+    half = kernel.size // 2
+    idx = np.asarray(centre, dtype=np.int64)[..., None] + np.arange(-half, half + 1)
+    inside = ((idx >= 0) & (idx < v.size)).all(axis=-1)
+    out = v[np.clip(idx, 0, v.size - 1)] @ kernel
+    return np.where(inside, out, np.nan)
+
+
+def _span_argmax(v: np.ndarray, kernel: np.ndarray, lo: np.ndarray, hi: np.ndarray
+                 ) -> tuple[np.ndarray, np.ndarray]:
+    """Centre of the largest filtered value in each span [lo, hi], and the filtered values at
+    it and its two neighbours (n, 3)."""
+    width = int(max(1, (hi - lo).max() + 1)) if lo.size else 1
+    centre = lo[:, None] + np.arange(width)
+    values = _windows(v, kernel, np.minimum(centre, hi[:, None]))
+    values = np.where(centre <= hi[:, None], values, -np.inf)
+    top = lo + np.argmax(np.nan_to_num(values, nan=-np.inf), axis=1)
+    around = _windows(v, kernel, top[:, None] + np.arange(-1, 2))
+    return top, around
+
+
+def _vertex_terms(kernel: _Filter, centre: np.ndarray, offset: np.ndarray) -> list[_Term]:
+    """The value at `offset` of the parabola through the filtered values at centre-1, centre,
+    centre+1: the extreme refined between samples (first order: its position held fixed)."""
+    d = offset
+    return [(kernel, centre - 1, 0.5 * (d * d - d)), (kernel, centre, 1.0 - d * d),
+            (kernel, centre + 1, 0.5 * (d * d + d))]
+
+
+def _parabola_offset(around: np.ndarray) -> np.ndarray:
+    """Vertex offset of the parabola through three values, within half a sample."""
+    a, b, c = around[:, 0], around[:, 1], around[:, 2]
+    curvature = a - 2.0 * b + c
+    with np.errstate(divide="ignore", invalid="ignore"):
+        d = np.where(curvature != 0.0, 0.5 * (a - c) / curvature, 0.0)
+    return np.clip(np.nan_to_num(d), -0.5, 0.5)
+
+
+def _scaled(terms: list[_Term], factor) -> list[_Term]:
+    return [(k, c, w * factor) for k, c, w in terms]
+
+
+def _threshold_terms(v: np.ndarray, kernels: dict, position: np.ndarray, peak: np.ndarray,
+                     settings: DetectionSettings) -> list[_Term]:
+    """Threshold voltage: the smoothed voltage at the linear crossing of a level by the
+    smoothed dV/dt between samples i and i+1. Moving dV/dt there by e moves the crossing by
+    -e / (dV/dt[i+1] - dV/dt[i]) samples and the voltage by that times the voltage step."""
+    i = np.floor(np.nan_to_num(position)).astype(np.int64)
+    b = position - i
+    smooth, slope = kernels["smooth"], kernels["slope"]
+    s_step = (_windows(v, smooth.centre_weights, i + 1)
+              - _windows(v, smooth.centre_weights, i))
+    d_step = _windows(v, slope.centre_weights, i + 1) - _windows(v, slope.centre_weights, i)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        gain = s_step / d_step
+    terms = [(smooth, i, 1.0 - b), (smooth, i + 1, b),
+             (slope, i, -gain * (1.0 - b)), (slope, i + 1, -gain * b)]
+    if settings.threshold_method == "max_rate_fraction":
+        # the level is a fraction of the largest smoothed dV/dt, itself noisy
+        top, _ = _span_argmax(v, slope.centre_weights, i + 1, np.maximum(peak, i + 1))
+        terms.append((slope, top, gain * settings.threshold_fraction))
+    elif settings.threshold_method != "onset_rate":
+        # the time of the largest d2V/dt2 is not a smooth function of the samples
+        terms = _scaled(terms, np.nan)
+    return terms
+
+
+def _peak_terms(v: np.ndarray, position: np.ndarray) -> list[_Term]:
+    """Peak voltage: the spline through the largest sample p and three either side, at its
+    maximum; at a maximum the position's own shift changes the value only to second order."""
+    near = np.round(np.nan_to_num(position)).astype(np.int64)
+    around = np.clip(near[:, None] + np.arange(-1, 2), 0, v.size - 1)
+    p = around[np.arange(near.size), np.argmax(v[around], axis=1)]
+    weights = _peak_spline()(np.clip(position - p, -1.0, 1.0))  # (n, 7)
+    return [(_UNIT, p + k, weights[:, k + 3]) for k in range(-3, 4)]
+
+
+def _crossing_terms(v: np.ndarray, position: np.ndarray, level: list[_Term]) -> list[_Term]:
+    """Position (samples) of the linear crossing of a level between samples k and k+1:
+    (level - v[k]) / (v[k+1] - v[k]) from k."""
+    k = np.floor(np.nan_to_num(position)).astype(np.int64)
+    b = position - k
+    inside = (k >= 0) & (k + 1 < v.size)
+    step = np.where(inside, v[np.clip(k + 1, 0, v.size - 1)] - v[np.clip(k, 0, v.size - 1)],
+                    np.nan)
+    inverse = 1.0 / np.where(step != 0.0, step, np.nan)
+    return (_scaled(level, inverse)
+            + [(_UNIT, k, -(1.0 - b) * inverse), (_UNIT, k + 1, -b * inverse)])
+
+
+def _width_terms(v: np.ndarray, rate: float, start: np.ndarray, end: np.ndarray,
+                 threshold: list[_Term], peak: list[_Term]) -> list[_Term]:
+    """Half-width in ms: the downward minus the upward crossing of (threshold + peak) / 2."""
+    level = _scaled(threshold, 0.5) + _scaled(peak, 0.5)
+    ms = 1e3 / rate
+    return (_scaled(_crossing_terms(v, end, level), ms)
+            + _scaled(_crossing_terms(v, start, level), -ms))
+
+
+def _max_rate_terms(v: np.ndarray, kernels: dict, threshold: np.ndarray, peak: np.ndarray
+                    ) -> list[_Term]:
+    """Largest dV/dt (the shorter window) from threshold to peak, refined by a parabola."""
+    rate_kernel = kernels["rate"]
+    lo = np.floor(np.nan_to_num(threshold)).astype(np.int64)
+    hi = np.maximum(np.round(np.nan_to_num(peak)).astype(np.int64), lo)
+    top, around = _span_argmax(v, rate_kernel.centre_weights, lo, hi)
+    return _vertex_terms(rate_kernel, top, _parabola_offset(around))
+
+
+def _trough_terms(kernels: dict, position: np.ndarray) -> list[_Term]:
+    """Trough voltage: the parabola through the smoothed voltage around the lowest sample."""
+    centre = np.round(np.nan_to_num(position)).astype(np.int64)
+    return _vertex_terms(kernels["smooth"], centre, position - centre)
+
+
+def _sd(terms: list[_Term], noise: NoiseModel, n_samples: int) -> np.ndarray:
+    """sqrt(w' C w) per spike, C the noise autocovariance; NaN where a coefficient is NaN or
+    a kernel leaves the trace."""
+    positions, weights = [], []
+    for kernel, centre, coef in terms:
+        if isinstance(kernel, _Filter):
+            kernel, centre = kernel.at(centre, n_samples)
+        half = kernel.shape[-1] // 2
+        positions.append(np.asarray(centre, dtype=np.int64)[:, None]
+                         + np.arange(-half, half + 1))
+        weights.append(np.asarray(coef, dtype=float)[:, None] * np.atleast_2d(kernel))
+    pos, w = np.concatenate(positions, axis=1), np.concatenate(weights, axis=1)
+    valid = np.isfinite(w).all(axis=1) & ((pos >= 0) & (pos < n_samples)).all(axis=1)
+    pos, w = _merged(pos, np.where(valid[:, None], w, 0.0))
+    acov = noise.autocovariance_mv2
+    variance = np.empty(pos.shape[0])
+    per_block = max(1, _QUADRATIC_ELEMENTS // max(1, pos.shape[1] ** 2))
+    for a in range(0, pos.shape[0], per_block):
+        p, ww = pos[a:a + per_block], w[a:a + per_block]
+        lag = np.abs(p[:, :, None] - p[:, None, :])
+        cov = np.where(lag < acov.size, acov[np.minimum(lag, acov.size - 1)], 0.0)
+        variance[a:a + per_block] = np.einsum("ni,nij,nj->n", ww, cov, ww)
+    return np.where(valid, np.sqrt(np.clip(variance, 0.0, None)), np.nan)
+
+
+def _merged(pos: np.ndarray, w: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The same weights with each spike's repeated positions summed into one (terms of one
+    value overlap: the smoothed voltage and dV/dt around one crossing share their samples),
+    so the quadratic form runs over far fewer pairs."""
+    order = np.argsort(pos, axis=1, kind="stable")
+    pos = np.take_along_axis(pos, order, axis=1)
+    w = np.take_along_axis(w, order, axis=1)
+    new = np.ones(pos.shape, dtype=bool)
+    new[:, 1:] = pos[:, 1:] != pos[:, :-1]
+    slot = np.cumsum(new, axis=1) - 1
+    width = int(slot[:, -1].max()) + 1 if pos.size else 0
+    rows = np.broadcast_to(np.arange(pos.shape[0])[:, None], pos.shape)
+    merged_w = np.zeros((pos.shape[0], width))
+    np.add.at(merged_w, (rows, slot), w)
+    merged_pos = np.zeros((pos.shape[0], width), dtype=np.int64)
+    merged_pos[rows[new], slot[new]] = pos[new]
+    return merged_pos, merged_w
+
+
+def _kernels(rate: float, settings: DetectionSettings) -> dict:
+    """The estimators' Savitzky-Golay filters as (window, derivative order, sample spacing in
+    ms; slopes come out in mV/ms = V/s) and their dot-product weights at the window centre."""
+    dt_ms = 1e3 / rate
+    window = smoothing_window_samples(settings.smoothing_ms, rate)
+    short = smoothing_window_samples(settings.rate_smoothing_ms, rate)
+    specs = {"smooth": (window, 0, dt_ms), "slope": (window, 1, dt_ms),
+             "rate": (short, 1, dt_ms)}
+    return {name: _Filter(*spec, savgol_coeffs(spec[0], SMOOTHING_POLYORDER, deriv=spec[1],
+                                                delta=spec[2], use="dot"))
+            for name, spec in specs.items()}
+
+
+def spike_uncertainty(voltage_mv: np.ndarray, sampling_rate_hz: float,
+                      spikes: SpikeMeasurements, noise: NoiseModel | None,
+                      settings: DetectionSettings = DetectionSettings()) -> SpikeUncertainty:
+    """SD of each spike's threshold, peak, half-width, largest dV/dt and AHP depth that the
+    recording's noise implies.
+
+    Parameters
+    ----------
+    voltage_mv : ndarray
+        The sweep's raw voltage in mV, as the spikes were measured on it.
+    sampling_rate_hz : float
+        Samples per second.
+    spikes : SpikeMeasurements
+        The sweep's spikes (times from its first sample).
+    noise : NoiseModel or None
+        From :func:`measured_noise`; None gives NaN everywhere.
+    settings : DetectionSettings, optional
+        The settings the spikes were measured with (windows, threshold definition).
+
+    Returns
+    -------
+    SpikeUncertainty
+        NaN where the value is NaN, where the noise is unknown, and for the threshold (and the
+        values built on it) of the ``second_derivative_peak`` definition.
+
+    Notes
+    -----
+    Each value is linearized around the measured trace: a small change e of the samples
+    changes it by ``w . e``, with w from the estimator's own steps (the Savitzky-Golay
+    weights of the smoothed voltage and dV/dt [1]_, the linear interpolation of crossings,
+    the weights of the cubic spline at the peak, the parabola at an extreme). The noise is a
+    stationary process with the measured autocovariance C, so the SD is ``sqrt(w' C w)``
+    (first-order propagation of error, [2]_ ch. 3). At a maximum or minimum the shift of its
+    position changes the value only to second order (the derivative is zero there), so the
+    peak, the largest dV/dt and the trough are the estimator's curve at its extreme. The
+    threshold voltage moves with the smoothed voltage and with its time: a change e of dV/dt
+    at the crossing of the onset rate shifts it by ``-e / d2V/dt2``. The half-width moves
+    with both crossings of its level, each by (change of the level - change of the voltage)
+    / slope; the level is (threshold + peak) / 2. AHP depth is threshold minus trough, one
+    functional, so noise common to both (a slow hum) cancels as it does in the value.
+
+    References
+    ----------
+    .. [1] A. Savitzky and M. J. E. Golay, "Smoothing and differentiation of data by
+       simplified least squares procedures", Analytical Chemistry 36(8):1627-1639, 1964.
+    .. [2] P. R. Bevington and D. K. Robinson, "Data Reduction and Error Analysis for the
+       Physical Sciences", 3rd ed., McGraw-Hill, 2003.
+    """
+    v = np.asarray(voltage_mv, dtype=float)
+    if v.ndim != 1:
+        raise InvalidSettingError("`voltage_mv` must be a 1-D array")
+    rate = float(sampling_rate_hz)
+    if not rate > 0:
+        raise InvalidSettingError("`sampling_rate_hz` must be positive")
+    n = len(spikes)
+    empty = np.full(n, np.nan)
+    if noise is None or n == 0:
+        return SpikeUncertainty(*(empty.copy() for _ in SD_COLUMNS))
+    kernels = _kernels(rate, settings)
+    thr = np.asarray(spikes.threshold_s, dtype=float) * rate
+    peak_at = np.asarray(spikes.peak_s, dtype=float) * rate
+    peak_sample = np.round(np.nan_to_num(peak_at)).astype(np.int64)
+    threshold = _threshold_terms(v, kernels, thr, peak_sample, settings)
+    peak = _peak_terms(v, peak_at)
+    width = _width_terms(v, rate, np.asarray(spikes.half_width_start_s) * rate,
+                         np.asarray(spikes.half_width_end_s) * rate, threshold, peak)
+    ahp = threshold + _scaled(_trough_terms(kernels, np.asarray(spikes.trough_s) * rate), -1.0)
+    values = {"threshold_mv_sd": (threshold, spikes.threshold_mv),
+              "peak_mv_sd": (peak, spikes.peak_mv),
+              "half_width_ms_sd": (width, spikes.half_width_ms),
+              "max_dvdt_v_per_s_sd": (_max_rate_terms(v, kernels, thr, peak_at),
+                                      spikes.max_dvdt_v_per_s),
+              "ahp_depth_mv_sd": (ahp, spikes.ahp_depth_mv)}
+    out = {}
+    for name, (terms, value) in values.items():
+        known = np.isfinite(np.asarray(value, dtype=float))
+        out[name] = np.where(known, _sd(terms, noise, v.size), np.nan)
+    return SpikeUncertainty(**out)
+
+
+def with_uncertainty(spikes: SpikeMeasurements, voltage_mv: np.ndarray,
+                     sampling_rate_hz: float, step: CurrentStep | None,
+                     settings: DetectionSettings = DetectionSettings()
+                     ) -> SpikesWithUncertainty:
+    """The spikes of one sweep with their SDs (:data:`SD_COLUMNS`), the noise measured on the
+    sweep's quiet stretch (:func:`quiet_stretch`, :func:`measured_noise`).
+
+    Parameters
+    ----------
+    spikes : SpikeMeasurements
+        The sweep's spikes, measured on `voltage_mv` with `settings`.
+    voltage_mv : ndarray
+        The sweep's raw voltage, mV (missing samples NaN).
+    sampling_rate_hz : float
+    step : CurrentStep or None
+        The sweep's main stimulus.
+    settings : DetectionSettings, optional
+
+    Returns
+    -------
+    SpikesWithUncertainty
+        The SDs are NaN when no quiet stretch of :data:`MIN_QUIET_MS` is found.
+    """
+    v = np.asarray(voltage_mv, dtype=float)
+    noise = None
+    if len(spikes):
+        first = np.nanmin(np.where(np.isfinite(spikes.threshold_s), spikes.threshold_s,
+                                   spikes.peak_s))
+        stretch = quiet_stretch(v.size, sampling_rate_hz, step, float(first))
+        if stretch is not None:
+            noise = measured_noise(v, sampling_rate_hz, *stretch)
+    sds = spike_uncertainty(v, sampling_rate_hz, spikes, noise, settings)
+    values = {f.name: getattr(spikes, f.name) for f in fields(SpikeMeasurements)}
+    return SpikesWithUncertainty(**values, **{name: getattr(sds, name) for name in SD_COLUMNS})
+
+
+def uncertainty_lines() -> list[str]:
+    """The section of ``docs/measurements.md`` on the SD columns of spikes.csv."""
+    return [
+        "",
+        "## Uncertainty of spike values",
+        "",
+        "threshold_mv_sd, peak_mv_sd, half_width_ms_sd, max_dvdt_v_per_s_sd and "
+        "ahp_depth_mv_sd are the SDs that the recording's own noise implies for each value: "
+        "how far the value would move if the same spike were recorded again with new noise "
+        "of the same kind. They do not cover a bias of the estimator itself (a window that "
+        "flattens a sharp extreme, a filter before the digitizer).",
+        "",
+        "The noise is measured on the sweep's quiet stretch: from the start of the stretch "
+        "the baseline may use to the onset of the main stimulus (its last "
+        f"{MAX_QUIET_MS:g} ms), ended {SPIKE_CLEARANCE_MS:g} ms before the first spike. A "
+        "sweep without a stimulus has no SDs: before its first spike the membrane may be "
+        "moving towards it (a fluctuating drive), which is signal, not noise of the "
+        "recording, and would inflate them. A least-squares line is removed (a resting level or slow drift is not noise of "
+        "a spike's values; a 50 or 60 Hz hum is, and stays), and the noise is kept as its "
+        "biased autocovariance (Priestley 1981), so its spectrum (white, filtered, hum) "
+        "carries over. With less than "
+        f"{MIN_QUIET_MS:g} ms of finite samples there, the SDs are empty; so are they for a "
+        "value whose windows reach an end of the sweep or a gap, and so in long gap-free "
+        "recordings read in pieces (they have no stimulus). Synaptic background on the quiet stretch counts as noise (it is noise "
+        "of the spike values too, if not of the recording).",
+        "",
+        "Each value is, to first order, a weighted sum w of the samples around its spike, "
+        "with weights from the estimator's own steps: the Savitzky-Golay weights of the "
+        "smoothed voltage and dV/dt (Savitzky and Golay 1964), the linear interpolation of a "
+        "crossing, the cubic spline at the peak, the parabola at an extreme. The SD is "
+        "sqrt(w' C w), C the measured autocovariance (first-order propagation of error, "
+        "Bevington and Robinson 2003). Per value:",
+        "",
+        "- threshold: the smoothed voltage at the crossing of the onset rate by the smoothed "
+        "dV/dt, which a change e of dV/dt there shifts by -e / d2V/dt2 (for "
+        "`max_rate_fraction`, the level moves with the largest dV/dt too); empty with "
+        "`second_derivative_peak`, whose time is not a smooth function of the samples.",
+        "- peak: the spline's value at its maximum (a shift of the maximum's position changes "
+        "the value only to second order); likewise the largest dV/dt on its parabola and "
+        "the trough on the smoothed voltage.",
+        "- half-width: both crossings of the level (threshold + peak) / 2 move by (change of "
+        "the level - change of the voltage) / slope of the voltage there.",
+        "- AHP depth: threshold minus trough as one weighted sum, so noise common to both (a "
+        "slow hum) cancels as it does in the value.",
+        "",
+        "Calibration (tests/analysis/test_spike_uncertainty.py): on recordings simulated "
+        "from published models (Hodgkin and Huxley 1952, Wang and Buzsaki 1996, an adapting "
+        "cortical cell after Pospischil et al. 2008) through a 4-pole Bessel filter of "
+        "3-10 kHz, sampled at 10-50 kHz with 0.1-0.5 mV of noise, one with 50 Hz hum, the "
+        "value measured on the noise-free recording lies within 2 SD of the noisy one in "
+        "85-99.5 % of spikes for each column.",
+    ]

@@ -1,0 +1,212 @@
+"""The SDs of spike values that a recording's noise implies.
+
+Sources: the acquisition chain of spikemeasure.testing.acquisition (published models through a
+4-pole Bessel filter, white noise, hum, sampling), whose noise-free recording (noise_mv=0,
+hum_mv=0, same filter and rate) gives the truth each SD is judged against; the definition of
+white noise (autocovariance sigma^2 at lag 0, zero elsewhere); the autocovariance of a sine of
+amplitude A, (A^2 / 2) cos(2 pi f k / fs); the Savitzky-Golay derivative's noise gain
+sqrt(12 / (N (N^2 - 1))) (Savitzky and Golay 1964); an interpolating spline passes through its
+samples.
+"""
+import numpy as np
+import pytest
+
+from spikemeasure.analysis.detection import DetectionSettings
+from spikemeasure.analysis.spike_uncertainty import (
+    MIN_QUIET_MS, SD_COLUMNS, NoiseModel, SpikesWithUncertainty, measured_noise, quiet_stretch,
+    sd_values, spike_uncertainty, with_uncertainty)
+from spikemeasure.analysis.spikes import SpikeMeasurements, measure_trace
+from spikemeasure.analysis.sweeps import CurrentStep
+from spikemeasure.errors import InvalidSettingError
+from spikemeasure.io import Recording, Sweep
+from spikemeasure.tables.build import measure_recording, spike_table
+from spikemeasure.testing.acquisition import record_commands
+
+SIM_RATE = 100_000.0
+ONSET_S, LENGTH_S = 0.05, 0.2
+# model, step (pA), decimation (output rate = 100 kHz / decimation), Bessel (Hz), noise (mV),
+# hum (mV, 50 Hz): rates 10-50 kHz, filters 3-10 kHz, noise 0.1-0.5 mV, one case with hum
+CASES = [("hodgkin_huxley_1952", 100.0, 5, 5000.0, 0.2, 0.0),
+         ("wang_buzsaki_1996", 60.0, 2, 10000.0, 0.1, 0.0),
+         ("cortical_adapting", 400.0, 10, 3000.0, 0.5, 0.0),
+         ("hodgkin_huxley_1952", 100.0, 4, 10000.0, 0.3, 0.3),
+         ("wang_buzsaki_1996", 60.0, 10, 3000.0, 0.3, 0.0),
+         ("cortical_adapting", 400.0, 2, 10000.0, 0.5, 0.0)]
+REPEATS = 5  # noisy recordings of each case
+
+
+def _step_command(size_pa: float, rows: int) -> np.ndarray:
+    cmd = np.zeros((rows, int(LENGTH_S * SIM_RATE)))
+    cmd[:, int(ONSET_S * SIM_RATE):] = size_pa
+    return cmd
+
+
+@pytest.fixture(scope="module")
+def standard_scores():
+    """Per SD column, (measured - noise-free value) / SD for every spike matched by peak time
+    between a noisy recording and the noise-free one of the same case."""
+    scores = {name: [] for name in SD_COLUMNS}
+    for model, size, decimation, bessel, noise, hum in CASES:
+        truth = record_commands(model, _step_command(size, 1), decimation=decimation,
+                                bessel_hz=bessel)
+        noisy = record_commands(model, _step_command(size, REPEATS), decimation=decimation,
+                                bessel_hz=bessel, noise_mv=noise, hum_mv=hum, seed=7)
+        rate = noisy.sampling_rate_hz
+        step = CurrentStep(ONSET_S, LENGTH_S, size, 0.0)
+        true = measure_trace(truth.voltage_mv[0], rate, step=step)
+        for v in noisy.voltage_mv:
+            spikes = with_uncertainty(measure_trace(v, rate, step=step), v, rate, step)
+            match = np.abs(true.peak_s[None, :] - spikes.peak_s[:, None]).argmin(axis=1)
+            same = np.abs(true.peak_s[match] - spikes.peak_s) < 5e-4
+            for name in SD_COLUMNS:
+                value = name.removesuffix("_sd")
+                error = getattr(spikes, value)[same] - getattr(true, value)[match[same]]
+                known = np.isfinite(error)  # a last spike cut off by the step has no trough
+                scores[name].extend(error[known] / getattr(spikes, name)[same][known])
+    return {name: np.asarray(z) for name, z in scores.items()}
+
+
+class TestCalibration:
+    def test_truth_within_two_sd_in_85_to_99_5_percent(self, standard_scores):
+        # source: the noise-free recording of the same simulated cell (record_commands with
+        # noise_mv=0 and no hum, same filter and rate), measured the same way. One test for
+        # all columns, so that parallel workers do not each simulate the recordings.
+        within = {}
+        for name in SD_COLUMNS:
+            z = standard_scores[name]
+            assert np.isfinite(z).all(), name
+            assert z.size >= 200, name
+            within[name] = float(np.mean(np.abs(z) <= 2.0))
+        assert all(0.85 <= w <= 0.995 for w in within.values()), within
+
+
+class TestMeasuredNoise:
+    RATE = 20_000.0
+
+    def test_white_noise_autocovariance(self):
+        # source: white noise has autocovariance sigma^2 at lag 0 and 0 at other lags
+        v = np.random.default_rng(1).normal(-65.0, 0.3, int(0.5 * self.RATE))
+        noise = measured_noise(v, self.RATE, 0, v.size)
+        assert noise.sd_mv == pytest.approx(0.3, rel=0.03)
+        assert np.abs(noise.autocovariance_mv2[1:20]).max() < 0.05 * 0.09
+
+    def test_hum_keeps_its_spectrum(self):
+        # source: a sine of amplitude A has autocovariance (A^2 / 2) cos(2 pi f k / fs)
+        t = np.arange(int(0.4 * self.RATE)) / self.RATE
+        v = -65.0 + 0.5 * np.sin(2 * np.pi * 50.0 * t) + 0.2 * t  # hum and a drift
+        noise = measured_noise(v, self.RATE, 0, v.size)
+        lags = np.array([0, 100, 200])  # 0, a quarter and half a period
+        expected = 0.125 * np.cos(2 * np.pi * 50.0 * lags / self.RATE)
+        np.testing.assert_allclose(noise.autocovariance_mv2[lags] / (1 - lags / t.size),
+                                   expected, atol=0.01)
+
+    def test_too_short_or_missing_stretch_gives_none(self):
+        v = np.zeros(int(self.RATE))
+        short = int(MIN_QUIET_MS * 1e-3 * self.RATE) - 1
+        assert measured_noise(v, self.RATE, 0, short) is None
+        v[::short] = np.nan  # no finite run long enough
+        assert measured_noise(v, self.RATE, 0, v.size) is None
+
+
+class TestQuietStretch:
+    def test_baseline_before_the_stimulus(self):
+        step = CurrentStep(0.1, 0.6, 50.0, 0.0, baseline_start_s=0.02)
+        assert quiet_stretch(20_000, 20_000.0, step, 0.2) == (400, 2000)
+
+    def test_ends_before_a_spike_in_the_baseline(self):
+        step = CurrentStep(0.1, 0.6, 50.0, 0.0)
+        assert quiet_stretch(20_000, 20_000.0, step, 0.05) == (0, 900)
+
+    def test_none_without_a_stimulus_or_too_short(self):
+        assert quiet_stretch(20_000, 20_000.0, None, 0.5) is None
+        step = CurrentStep(0.1, 0.6, 50.0, 0.0)
+        assert quiet_stretch(20_000, 20_000.0, step, 0.02) is None
+
+    def test_rate_must_be_positive(self):
+        with pytest.raises(InvalidSettingError, match="sampling_rate_hz"):
+            quiet_stretch(100, 0.0, None, 0.1)
+
+
+def _white(sd: float, rate: float) -> NoiseModel:
+    acov = np.zeros(200)
+    acov[0] = sd * sd
+    return NoiseModel(acov, rate, 0, 10_000)
+
+
+class TestKnownAnswers:
+    RATE = 50_000.0
+
+    @pytest.fixture(scope="class")
+    def spikes(self):
+        sim = record_commands("wang_buzsaki_1996", _step_command(60.0, 1), decimation=2)
+        v = sim.voltage_mv[0]
+        return v, measure_trace(v, self.RATE, step=CurrentStep(ONSET_S, LENGTH_S, 60.0, 0.0))
+
+    def test_peak_on_a_sample_has_the_sample_noise(self, spikes):
+        # source: the interpolating spline passes through its samples, so at a sample its
+        # value is that sample and its noise the sample's
+        v, s = spikes
+        on_sample = SpikeMeasurements(**{**{f: getattr(s, f) for f in s.__dataclass_fields__},
+                                         "peak_s": np.round(s.peak_s * self.RATE) / self.RATE})
+        sds = spike_uncertainty(v, self.RATE, on_sample, _white(0.3, self.RATE))
+        np.testing.assert_allclose(sds.peak_mv_sd, 0.3, rtol=1e-9)
+
+    def test_max_rate_at_least_the_derivative_noise(self, spikes):
+        # source: Savitzky-Golay slope over N samples has white-noise gain
+        # fs sqrt(12 / (N (N^2 - 1))) (0.1 ms at 50 kHz: N = 5); a parabola's vertex between
+        # samples averages neighbours, so its SD lies between 0.7 and 1 times that
+        v, s = spikes
+        sds = spike_uncertainty(v, self.RATE, s, _white(0.3, self.RATE))
+        gain = 0.3 * self.RATE * np.sqrt(12.0 / (5 * 24)) / 1e3
+        assert np.all(sds.max_dvdt_v_per_s_sd <= gain * (1 + 1e-9))
+        assert np.all(sds.max_dvdt_v_per_s_sd >= 0.7 * gain)
+
+    def test_sds_scale_with_the_noise(self, spikes):
+        # source: first-order propagation is linear in the noise amplitude
+        v, s = spikes
+        small = spike_uncertainty(v, self.RATE, s, _white(0.1, self.RATE))
+        large = spike_uncertainty(v, self.RATE, s, _white(0.4, self.RATE))
+        for name in SD_COLUMNS:
+            np.testing.assert_allclose(getattr(large, name), 4 * getattr(small, name))
+
+    def test_empty_value_empty_sd_and_unknown_noise(self, spikes):
+        v, s = spikes
+        fields = {f: getattr(s, f) for f in s.__dataclass_fields__}
+        fields["half_width_ms"] = np.where(np.arange(len(s)) == 0, np.nan, s.half_width_ms)
+        sds = spike_uncertainty(v, self.RATE, SpikeMeasurements(**fields),
+                                _white(0.2, self.RATE))
+        assert np.isnan(sds.half_width_ms_sd[0]) and np.isfinite(sds.half_width_ms_sd[1:]).all()
+        unknown = spike_uncertainty(v, self.RATE, s, None)
+        assert all(np.isnan(getattr(unknown, n)).all() for n in SD_COLUMNS)
+
+    def test_second_derivative_threshold_has_no_sd(self, spikes):
+        v, s = spikes
+        settings = DetectionSettings(threshold_method="second_derivative_peak")
+        sds = spike_uncertainty(v, self.RATE, s, _white(0.2, self.RATE), settings)
+        assert np.isnan(sds.threshold_mv_sd).all() and np.isfinite(sds.peak_mv_sd).all()
+
+    def test_arguments_checked(self, spikes):
+        v, s = spikes
+        with pytest.raises(InvalidSettingError, match="voltage_mv"):
+            spike_uncertainty(v[None, :], self.RATE, s, None)
+        with pytest.raises(InvalidSettingError, match="sampling_rate_hz"):
+            spike_uncertainty(v, -1.0, s, None)
+        with pytest.raises(InvalidSettingError, match="name"):
+            sd_values(s, "trough_mv_sd")
+
+
+class TestInTables:
+    def test_spike_table_carries_the_sds(self):
+        sim = record_commands("hodgkin_huxley_1952", _step_command(100.0, 1), noise_mv=0.2)
+        sweep = Sweep(sim.voltage_mv[0], sim.sampling_rate_hz, sim.command_pa[0],
+                      file="cell.nwb", index=0)
+        results = measure_recording(Recording("cell.nwb", "simulated", [sweep]))
+        assert isinstance(results[0].spikes, SpikesWithUncertainty)
+        table = spike_table(results)
+        for name in SD_COLUMNS:
+            values = np.asarray(table[name], dtype=float)
+            assert values.size > 5 and np.isfinite(values).sum() >= values.size - 1
+            assert np.nanmin(values) > 0
+
+    def test_plain_spikes_give_empty_sds(self):
+        assert np.isnan(sd_values(SpikeMeasurements.empty(), "peak_mv_sd")).size == 0
