@@ -16,7 +16,8 @@ from .detection import (SMOOTHING_POLYORDER, DetectedSpikes, DetectionSettings, 
 from .sweeps import CurrentStep
 
 __all__ = ["spike_thresholds", "interpolated_peaks", "flat_peak_runs", "half_widths", "troughs",
-           "rate_extremes", "search_ends", "SPLINE_HALF_SAMPLES", "SECOND_DERIVATIVE_LOOKBACK_MS"]
+           "rate_extremes", "noise_before", "search_ends", "SPLINE_HALF_SAMPLES",
+           "RATE_SPLINE_HALF_SAMPLES", "NOISE_SAMPLES", "SECOND_DERIVATIVE_LOOKBACK_MS"]
 
 #: How far before the onset crossing the ``second_derivative_peak`` threshold searches for the
 #: largest d2V/dt2.
@@ -432,6 +433,85 @@ def troughs(smooth_mv: np.ndarray, peak_sample: np.ndarray, end_index: np.ndarra
     return index, value
 
 
+#: Half the support, in samples, of the quintic spline whose derivative gives max and min
+#: dV/dt (13 samples around the extreme).
+RATE_SPLINE_HALF_SAMPLES = 6
+#: Samples before each spike's threshold in which its recording noise is measured.
+NOISE_SAMPLES = 48
+#: The rate window is the shortest whose dV/dt noise SD stays below this fraction of the
+#: spike's own rate.
+RATE_NOISE_FRACTION = 0.03
+#: Polynomial order of the local fit that smooths the voltage before the rates are taken: a
+#: quartic passes the peak of dV/dt (a cubic stretch of voltage) with no h**2 bias.
+RATE_POLYORDER = 4
+_MAD_TO_SD = 1.4826
+_rate_weights_cache: list[np.ndarray] = []
+
+
+def _rate_spline_weights() -> np.ndarray:
+    """Weights D (steps+1, 13): D @ y is the derivative (per sample) of the not-a-knot quintic
+    spline through samples y[-6..6] (unit spacing), on a grid from -1 to +1 sample."""
+    if not _rate_weights_cache:
+        from scipy.interpolate import make_interp_spline
+        half = RATE_SPLINE_HALF_SAMPLES
+        nodes = np.arange(-half, half + 1, dtype=float)
+        grid = np.linspace(-1.0, 1.0, _SPLINE_STEPS + 1)
+        eye = np.eye(nodes.size)
+        _rate_weights_cache.append(np.stack(
+            [make_interp_spline(nodes, eye[k], k=5)(grid, 1) for k in range(nodes.size)], axis=1))
+    return _rate_weights_cache[0]
+
+
+def _rate_noise_gain(window: int) -> float:
+    """SD of the rate (per sample) that unit white noise gives with this smoothing window."""
+    weights = _rate_spline_weights()[_SPLINE_STEPS // 2]  # the derivative at the centre sample
+    if window > RATE_POLYORDER + 1:
+        smooth = savgol_coeffs(window, RATE_POLYORDER, use="conv")
+        weights = np.convolve(weights, smooth)
+    return float(np.sqrt(np.sum(weights ** 2)))
+
+
+def noise_before(voltage_mv: np.ndarray, position: np.ndarray,
+                 n_samples: int = NOISE_SAMPLES) -> np.ndarray:
+    """Recording noise (SD, mV) in the `n_samples` samples before each position.
+
+    Notes
+    -----
+    The robust SD (1.4826 x median absolute deviation) of the second differences, divided by
+    sqrt(6): for white noise of SD sigma the second difference has SD sigma sqrt(6), while a
+    slowly changing membrane voltage adds almost nothing to it; the median ignores the few
+    large differences of a spike in the span [1]_. NaN where the span leaves the trace.
+
+    References
+    ----------
+    .. [1] P. J. Rousseeuw and C. Croux, "Alternatives to the median absolute deviation",
+       J. Am. Stat. Assoc. 88(424):1273-1283, 1993.
+    """
+    v = np.asarray(voltage_mv, dtype=float)
+    position = np.asarray(position, dtype=float)
+    out = np.full(position.size, np.nan)
+    ok = np.isfinite(position)
+    start = np.floor(np.where(ok, position, 0)).astype(np.int64) - n_samples
+    ok &= start >= 0
+    if ok.any():
+        rows = v[start[ok, None] + np.arange(n_samples)]
+        second = rows[:, 2:] - 2.0 * rows[:, 1:-1] + rows[:, :-2]
+        out[ok] = _MAD_TO_SD * np.median(np.abs(second), axis=1) / np.sqrt(6.0)
+    return out
+
+
+def _rate_window(noise_mv: float, pilot_per_sample: float, longest: int) -> int:
+    """Shortest smoothing window (1: none, then 7, 9, ...) whose rate noise SD is at most
+    RATE_NOISE_FRACTION of the pilot rate; the longest allowed when none is."""
+    candidates = [1] + list(range(RATE_POLYORDER + 3, longest + 1, 2))
+    if not (np.isfinite(noise_mv) and pilot_per_sample > 0):
+        return 1
+    for window in candidates:
+        if noise_mv * _rate_noise_gain(window) <= RATE_NOISE_FRACTION * pilot_per_sample:
+            return window
+    return candidates[-1]
+
+
 def rate_extremes(voltage_mv: np.ndarray, sampling_rate_hz: float,
                   threshold_position: np.ndarray, peak_position: np.ndarray,
                   trough_position: np.ndarray, smoothing_ms: float = 0.1
@@ -446,8 +526,7 @@ def rate_extremes(voltage_mv: np.ndarray, sampling_rate_hz: float,
     threshold_position, peak_position, trough_position : ndarray
         Fractional sample positions per spike (NaN where unknown: that extreme is then NaN).
     smoothing_ms : float, optional
-        Savitzky-Golay window for this derivative (default 0.1 ms), shorter than the one used
-        for detection and threshold.
+        The longest smoothing window the recording's noise may call for (default 0.1 ms).
 
     Returns
     -------
@@ -455,51 +534,80 @@ def rate_extremes(voltage_mv: np.ndarray, sampling_rate_hz: float,
 
     Notes
     -----
-    The extremes of dV/dt are sharp, so a long smoothing window flattens them (for a window of
-    half-length h the bias is about f''' h**2 / 10), while near threshold dV/dt changes slowly
-    and noise matters more. So the rates use their own, shorter window, evaluated only over
-    each spike's span (a local quadratic fit, as in
-    :func:`~spikemeasure.analysis.detection.smoothed_trace`), and the extreme sample is refined with a
-    parabola through it and its neighbours.
+    Per spike and per extreme:
+
+    1. The noise SD sigma is measured before threshold (:func:`noise_before`).
+    2. The smoothing window is the shortest (none, then 7, 9, ... samples up to
+       `smoothing_ms`) for which the dV/dt noise SD, sigma times the noise gain of the
+       estimator, is below :data:`RATE_NOISE_FRACTION` of the spike's rate (its largest
+       central difference). Smoothing is a local quartic least-squares fit [1]_, which
+       leaves a cubic stretch (the peak of dV/dt) unchanged, so where the noise calls for
+       it the bias stays of order h**4.
+    3. The derivative of the not-a-knot quintic spline through the 13 (smoothed) samples
+       around the largest central difference is maximized on a grid of 1/200 sample within
+       one sample of it, and refined with a parabola: the extreme of dV/dt between samples,
+       which a difference at the samples misses [2]_.
+
+    The extreme is NaN when the 13 samples (and the smoothing window) around it leave the
+    trace.
+
+    References
+    ----------
+    .. [1] A. Savitzky and M. J. E. Golay, "Smoothing and differentiation of data by simplified
+       least squares procedures", Analytical Chemistry 36(8):1627-1639, 1964.
+    .. [2] C. de Boor, "A Practical Guide to Splines", Springer, 1978 (not-a-knot end
+       conditions; from memory).
     """
     v = np.asarray(voltage_mv, dtype=float)
-    window = smoothing_window_samples(smoothing_ms, sampling_rate_hz)
-    half = window // 2
-    coeffs = savgol_coeffs(window, SMOOTHING_POLYORDER, deriv=1, delta=1e3 / sampling_rate_hz,
-                           use="conv")
+    fs = float(sampling_rate_hz)
+    longest = smoothing_window_samples(smoothing_ms, fs)
+    noise = noise_before(v, threshold_position)
     n = np.asarray(peak_position).size
     largest = np.full(n, np.nan)
     smallest = np.full(n, np.nan)
-    first, last = half, v.size - 1 - half  # centres where the window fits
     for k in range(n):
         p = int(round(peak_position[k]))
         t, tr = threshold_position[k], trough_position[k]
-        a = max(first, int(np.floor(t))) if np.isfinite(t) else p
-        b = min(last, int(np.ceil(tr))) if np.isfinite(tr) else p
-        if b < a or p < first or p > last:
-            continue
-        lo = a - 1 if a - 1 >= first else a
-        hi = b + 1 if b + 1 <= last else b
-        rates = np.convolve(v[lo - half:hi + half + 1], coeffs, mode="valid")  # centres lo..hi
-        if np.isfinite(t) and p >= a:
-            largest[k] = _refined_extreme(rates, a - lo, p - lo, True)
-        if np.isfinite(tr) and b >= p:
-            smallest[k] = _refined_extreme(rates, p - lo, b - lo, False)
+        if np.isfinite(t):
+            largest[k] = _rate_extreme(v, int(np.floor(t)), p, noise[k], longest, True) * fs / 1e3
+        if np.isfinite(tr):
+            smallest[k] = _rate_extreme(v, p, int(np.ceil(tr)), noise[k], longest,
+                                        False) * fs / 1e3
     return largest, smallest
 
 
-def _refined_extreme(x: np.ndarray, a: int, b: int, largest: bool) -> float:
-    """Extreme of x[a:b+1], refined by a parabola where it has a neighbour on both sides."""
-    seg = x[a:b + 1]
-    j = a + int(np.argmax(seg) if largest else np.argmin(seg))
-    if 0 < j < x.size - 1:
-        prev, here, nxt = float(x[j - 1]), float(x[j]), float(x[j + 1])
-        curvature = prev - 2.0 * here + nxt
-        if curvature != 0.0:  # the same vertex as _vertices, for one point
-            delta = min(0.5, max(-0.5, 0.5 * (prev - nxt) / curvature))
-            return here - 0.25 * (prev - nxt) * delta
-        return here
-    return float(x[j])
+def _rate_extreme(v: np.ndarray, a: int, b: int, noise_mv: float, longest: int,
+                  largest: bool) -> float:
+    """Extreme (per sample) of dV/dt over samples a..b; NaN where the estimator's samples
+    would leave the trace."""
+    a, b = max(a, 1), min(b, v.size - 2)
+    if b <= a:
+        return np.nan
+    sign = 1.0 if largest else -1.0
+    central = sign * 0.5 * (v[a + 1:b + 2] - v[a - 1:b])
+    window = _rate_window(noise_mv, float(central.max()), longest)
+    half, spline_half, slack = window // 2, RATE_SPLINE_HALF_SAMPLES, 2
+    j = a + int(np.argmax(central))
+    reach = spline_half + slack + half
+    if j - reach < 0 or j + reach >= v.size:
+        return np.nan
+    segment = v[j - reach:j + reach + 1]
+    if window > 1:  # the smoothed samples j - spline_half - slack .. j + spline_half + slack
+        segment = np.convolve(segment, savgol_coeffs(window, RATE_POLYORDER, use="conv"),
+                              mode="valid")
+    # re-centre on the largest difference of the (smoothed) samples, within `slack` of j
+    centre = spline_half + slack
+    near = sign * 0.5 * (segment[centre - slack + 1:centre + slack + 2]
+                         - segment[centre - slack - 1:centre + slack])
+    centre += int(np.argmax(near)) - slack
+    centre = min(max(centre, spline_half), segment.size - 1 - spline_half)
+    samples = segment[centre - spline_half:centre + spline_half + 1]
+    curve = sign * (_rate_spline_weights() @ samples)
+    best = int(np.clip(np.argmax(curve), 1, _SPLINE_STEPS - 1))
+    prev, here, nxt = curve[best - 1], curve[best], curve[best + 1]
+    curvature = prev - 2.0 * here + nxt
+    delta = min(0.5, max(-0.5, 0.5 * (prev - nxt) / curvature)) if curvature < 0 else 0.0
+    return sign * (here - 0.25 * (prev - nxt) * delta)
 
 
 def search_ends(n_samples: int, sampling_rate_hz: float, threshold_position: np.ndarray,
