@@ -210,6 +210,59 @@ def _spline_peaks(x: np.ndarray, index: np.ndarray) -> tuple[np.ndarray, np.ndar
     return frac, value
 
 
+#: The onset crossing is found again with the shortest window whose dV/dt noise SD is at
+#: most this fraction of the onset rate.
+ONSET_NOISE_FRACTION = 0.05
+
+
+def _onset_window(noise_mv: float, sampling_rate_hz: float, level: float, longest: int) -> int:
+    """Shortest odd window (at least 3, at most `longest`) of a local quadratic fit whose
+    dV/dt noise SD is at most ONSET_NOISE_FRACTION of `level` (V/s)."""
+    if not np.isfinite(noise_mv):
+        return longest
+    for window in range(3, longest, 2):
+        gain = np.sqrt(12.0 / (window * (window * window - 1)))
+        if noise_mv * sampling_rate_hz / 1e3 * gain <= ONSET_NOISE_FRACTION * level:
+            return window
+    return longest
+
+
+def _noise_matched_onsets(trace: SmoothedTrace, onset: np.ndarray, level: float
+                          ) -> np.ndarray:
+    """The onset crossing of `level` again, with a window matched to the measured noise.
+
+    Returns fractional indices: for each spike, the last upward crossing of `level`, before
+    the span's largest dV/dt, by the dV/dt of a local quadratic fit over
+    :func:`_onset_window` samples, among the centres within half a smoothing window of the
+    onset sample; NaN where the span leaves the trace or
+    holds no such crossing (the smoothed trace's crossing is kept there).
+    """
+    v, fs = trace.voltage_mv, trace.sampling_rate_hz
+    out = np.full(onset.size, np.nan)
+    windows = np.array([_onset_window(noise, fs, level, trace.window)
+                        for noise in noise_before(v, onset - trace.window)], dtype=np.int64)
+    back = ahead = trace.window // 2
+    for window in np.unique(windows):
+        half = window // 2
+        pick = np.flatnonzero((windows == window) & (onset - back - half >= 0)
+                              & (onset + ahead + half < v.size))
+        if pick.size == 0:
+            continue
+        coeffs = savgol_coeffs(window, SMOOTHING_POLYORDER, deriv=1, delta=1e3 / fs,
+                               use="dot")
+        rows = v[onset[pick, None] + np.arange(-back - half, ahead + half + 1)]
+        rate = np.lib.stride_tricks.sliding_window_view(rows, window, axis=1) @ coeffs
+        r, columns = np.arange(rate.shape[0]), np.arange(rate.shape[1])
+        top = np.argmax(rate, axis=1)
+        below = (rate < level) & (columns[None, :] < top[:, None])
+        found = below.any(axis=1) & (rate[r, top] >= level)
+        last = below.shape[1] - 1 - np.argmax(below[:, ::-1], axis=1)
+        before, after = rate[r, last], rate[r, np.minimum(last + 1, rate.shape[1] - 1)]
+        frac = last + (level - before) / np.where(after != before, after - before, 1.0)
+        out[pick[found]] = (onset[pick] - back + frac)[found]
+    return out
+
+
 def spike_thresholds(trace: SmoothedTrace, detected: DetectedSpikes,
                      settings: DetectionSettings) -> tuple[np.ndarray, np.ndarray]:
     """Threshold of each spike as a fractional sample index and a voltage.
@@ -233,7 +286,13 @@ def spike_thresholds(trace: SmoothedTrace, detected: DetectedSpikes,
     -----
     ``onset_rate`` (default)
         The last upward crossing of ``onset_rate_v_per_s`` by dV/dt before the peak, linearly
-        interpolated between the two samples around it.
+        interpolated between the two samples around it. The detector's crossing (on the
+        trace's smoothing window) is found again by the dV/dt of a local quadratic fit over
+        the shortest window whose noise SD, from the noise measured before the onset
+        (:func:`noise_before`), is at most :data:`ONSET_NOISE_FRACTION` of the onset rate:
+        the smoothing bias of an accelerating upstroke (the third derivative times h**2 / 10,
+        see :func:`~spikemeasure.analysis.detection.smoothed_trace`) moves the crossing
+        earlier, so the window is no longer than the noise requires [2]_.
     ``max_rate_fraction``
         The last upward crossing, before the time of the spike's maximum dV/dt, of
         ``threshold_fraction`` times that maximum [1]_.
@@ -251,6 +310,8 @@ def spike_thresholds(trace: SmoothedTrace, detected: DetectedSpikes,
     .. [1] M. Sekerli, C. A. Del Negro, R. H. Lee and R. J. Butera, "Estimating action potential
        thresholds from neuronal time-series: new metrics and evaluation of methodologies",
        IEEE Trans. Biomed. Eng. 51(9):1665-1672, 2004.
+    .. [2] A. Savitzky and M. J. E. Golay, "Smoothing and differentiation of data by
+       simplified least squares procedures", Analytical Chemistry 36(8):1627-1639, 1964.
     """
     dvdt, d2 = trace.dvdt_v_per_s, trace.d2vdt2_v_per_s2
     if settings.needs_second_derivative and d2 is None:
@@ -264,6 +325,8 @@ def spike_thresholds(trace: SmoothedTrace, detected: DetectedSpikes,
         # the detector guarantees dvdt[onset - 1] < rate <= dvdt[onset]
         a, b = dvdt[onset - 1], dvdt[onset]
         index = (onset - 1) + (settings.onset_rate_v_per_s - a) / (b - a)
+        refined = _noise_matched_onsets(trace, onset, settings.onset_rate_v_per_s)
+        index = np.where(np.isfinite(refined), refined, index)
     else:
         top = _span_argmax(dvdt, onset, peak)
         if method == "max_rate_fraction":
@@ -544,7 +607,7 @@ def rate_extremes(voltage_mv: np.ndarray, sampling_rate_hz: float,
        leaves a cubic stretch (the peak of dV/dt) unchanged, so where the noise calls for
        it the bias stays of order h**4.
     3. The derivative of the not-a-knot quintic spline through the 13 (smoothed) samples
-       around the largest central difference is maximized on a grid of 1/200 sample within
+       around the largest central difference of the smoothed samples is maximized on a grid of 1/200 sample within
        one sample of it, and refined with a parabola: the extreme of dV/dt between samples,
        which a difference at the samples misses [2]_.
 
@@ -576,6 +639,16 @@ def rate_extremes(voltage_mv: np.ndarray, sampling_rate_hz: float,
     return largest, smallest
 
 
+def _smoothed(v: np.ndarray, lo: int, hi: int, window: int) -> np.ndarray:
+    """Samples lo..hi (inclusive) after a local quartic fit over `window` samples (1: raw);
+    the caller keeps lo - window // 2 and hi + window // 2 inside v."""
+    if window == 1:
+        return v[lo:hi + 1]
+    half = window // 2
+    return np.convolve(v[lo - half:hi + half + 1],
+                       savgol_coeffs(window, RATE_POLYORDER, use="conv"), mode="valid")
+
+
 def _rate_extreme(v: np.ndarray, a: int, b: int, noise_mv: float, longest: int,
                   largest: bool) -> float:
     """Extreme (per sample) of dV/dt over samples a..b; NaN where the estimator's samples
@@ -584,24 +657,18 @@ def _rate_extreme(v: np.ndarray, a: int, b: int, noise_mv: float, longest: int,
     if b <= a:
         return np.nan
     sign = 1.0 if largest else -1.0
-    central = sign * 0.5 * (v[a + 1:b + 2] - v[a - 1:b])
-    window = _rate_window(noise_mv, float(central.max()), longest)
-    half, spline_half, slack = window // 2, RATE_SPLINE_HALF_SAMPLES, 2
-    j = a + int(np.argmax(central))
-    reach = spline_half + slack + half
-    if j - reach < 0 or j + reach >= v.size:
+    pilot = float(np.max(sign * 0.5 * (v[a + 1:b + 2] - v[a - 1:b])))
+    window = _rate_window(noise_mv, pilot, longest)
+    half, spline_half = window // 2, RATE_SPLINE_HALF_SAMPLES
+    a, b = max(a, 1 + half), min(b, v.size - 2 - half)
+    if b <= a:
         return np.nan
-    segment = v[j - reach:j + reach + 1]
-    if window > 1:  # the smoothed samples j - spline_half - slack .. j + spline_half + slack
-        segment = np.convolve(segment, savgol_coeffs(window, RATE_POLYORDER, use="conv"),
-                              mode="valid")
-    # re-centre on the largest difference of the (smoothed) samples, within `slack` of j
-    centre = spline_half + slack
-    near = sign * 0.5 * (segment[centre - slack + 1:centre + slack + 2]
-                         - segment[centre - slack - 1:centre + slack])
-    centre += int(np.argmax(near)) - slack
-    centre = min(max(centre, spline_half), segment.size - 1 - spline_half)
-    samples = segment[centre - spline_half:centre + spline_half + 1]
+    # where the smoothed samples change fastest, then the spline's extreme around it
+    smooth = _smoothed(v, a - 1, b + 1, window)
+    j = a + int(np.argmax(sign * 0.5 * (smooth[2:] - smooth[:-2])))
+    if j - spline_half - half < 0 or j + spline_half + half >= v.size:
+        return np.nan
+    samples = _smoothed(v, j - spline_half, j + spline_half, window)
     curve = sign * (_rate_spline_weights() @ samples)
     best = int(np.clip(np.argmax(curve), 1, _SPLINE_STEPS - 1))
     prev, here, nxt = curve[best - 1], curve[best], curve[best + 1]

@@ -31,7 +31,7 @@ _SPIKE_FIELDS_BY_WINDOW = {
              "max_dvdt_v_per_s", "min_dvdt_v_per_s"),
     "width": _HALF_WIDTH_FIELDS,
     "trough": ("trough_s", "trough_mv", "ahp_depth_mv", "min_dvdt_v_per_s"),
-    "noise": ("max_dvdt_v_per_s", "min_dvdt_v_per_s"),
+    "rates": ("max_dvdt_v_per_s", "min_dvdt_v_per_s"),
 }
 
 
@@ -57,23 +57,28 @@ def _blank_near_gaps(spikes: SpikeMeasurements, detected: DetectedSpikes, extra:
         return spikes
     rate = trace.sampling_rate_hz
     n = trace.voltage_mv.size
-    # the rates' smoothing window and quintic spline (2 samples of slack to re-centre)
+    # the rates' smoothing window and quintic spline
     rate_half = smoothing_window_samples(settings.rate_smoothing_ms, rate) // 2
-    rate_reach = 2 * rate_half + RATE_SPLINE_HALF_SAMPLES + 2
-    edge = max(trace.window // 2, rate_reach, SPLINE_HALF_SAMPLES) + 1
+    rate_reach = rate_half + RATE_SPLINE_HALF_SAMPLES + 2
+    edge = max(trace.window // 2, SPLINE_HALF_SAMPLES) + 1
     low = edge if gap_before else -np.inf            # first sample not disturbed by a gap
     high = n - 1 - edge if gap_after else np.inf     # last one
     onset, peak = detected.onset_index, detected.peak_sample
     reach = settings.search_window_samples(rate)
     if settings.threshold_method == "onset_rate":
-        thr_lo, thr_hi = onset - 1, onset
+        # the crossing is found again (a noise-matched window) around the onset sample, with
+        # the noise measured in the NOISE_SAMPLES before onset - window
+        thr_lo = onset - trace.window - NOISE_SAMPLES - 1
+        thr_hi = onset + trace.window
     else:
         prev_peak = np.concatenate([[-np.iinfo(np.int64).max // 2], peak[:-1] + 1])
         thr_lo, thr_hi = np.maximum(prev_peak, onset - reach), peak
     touched = {
         "threshold": (thr_lo < low) | (thr_hi > high),
-        # the rates' window follows the noise measured before threshold
-        "noise": thr_lo - NOISE_SAMPLES - 1 < low,
+        # the rates' window follows the noise measured before threshold; their samples
+        # reach rate_reach beyond threshold and trough (the peak, for the rise)
+        "rates": (onset - trace.window - NOISE_SAMPLES - rate_reach < low - edge)
+                 | (np.maximum(extra["trough_ends"], peak) + rate_reach > high + edge),
         "peak": (peak - SPLINE_HALF_SAMPLES < low) | (peak + trace.window // 2 + SPLINE_HALF_SAMPLES > high),
         # a half-width whose downward crossing was found is the first crossing, as without the
         # gap; one not found may have been cut short by it
