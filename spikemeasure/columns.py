@@ -136,7 +136,7 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
            "shortest window (3 samples or more) whose noise SD, from the noise measured before "
            "the onset, is at most 10 % of the onset rate, never longer than "
            f"{_option('smoothing_ms')}: a longer window than the noise needs moves the "
-           "crossing of an accelerating upstroke earlier. `max_rate_fraction`: the last upward crossing of "
+           "crossing of an accelerating rising phase earlier. `max_rate_fraction`: the last upward crossing of "
            f"{_option('threshold_fraction')} ({_default('threshold_fraction')}) times the "
            "spike's maximum dV/dt before that maximum. "
            "`second_derivative_peak`: the time of the largest d2V/dt2 from "
@@ -536,7 +536,7 @@ def _detection_lines(d: DetectionSettings) -> list[str]:
         "(de Boor 1978), so an extreme between samples is not missed. Against the noise-free "
         "filtered recordings of three published models (4-pole Bessel 3-10 kHz, 10-50 kHz), "
         "noise-free: within 1 % at 20 kHz and above, within 5-8 % at 10 kHz behind 3 kHz, "
-        "where the narrowest upstrokes fall between samples (a 0.1 ms window had read 3-25 % "
+        "where the narrowest rising phases fall between samples (a 0.1 ms window had read 3-25 % "
         "low).",
         "",
         f"Each spike's searches reach at most {d.search_window_ms:g} ms (`--search-window`): "

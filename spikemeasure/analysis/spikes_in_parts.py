@@ -15,7 +15,8 @@ import numpy as np
 from ..errors import InvalidSettingError
 from .detection import (DetectedSpikes, DetectionSettings, SmoothedTrace, detect_spikes,
                         smoothed_trace, smoothing_window_samples)
-from .spike_features import NOISE_SAMPLES, RATE_SPLINE_HALF_SAMPLES, SPLINE_HALF_SAMPLES
+from .spike_features import SPLINE_HALF_SAMPLES
+from .spike_rates import NOISE_SAMPLES, RATE_SPLINE_HALF_SAMPLES
 from .spikes import (GAP_FLAG, PIECE_SAMPLES, SpikeMeasurements, measure_spikes,
                      measure_spikes_with_positions, spike_times)
 from .sweeps import CurrentStep

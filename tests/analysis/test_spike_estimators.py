@@ -10,7 +10,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from spikemeasure.analysis.spike_features import noise_before
+from spikemeasure.analysis.spike_rates import noise_before
 from spikemeasure.analysis.spikes import measure_trace
 from spikemeasure.testing.acquisition import record_commands
 
@@ -44,7 +44,7 @@ def _true_rates(truth: np.ndarray, peak_s: np.ndarray) -> tuple[np.ndarray, np.n
 
 class TestRateExtremesOnModels:
     # the sampling rates and Bessel corners of the capability's range; 10 kHz behind 3 kHz is
-    # the coarsest (the adapting cell's sharper upstroke loses up to 8 % there between samples
+    # the coarsest (the adapting cell's sharper rising phase loses up to 8 % there between samples
     # even noise-free, so it is held to the 10 % tolerance below, with noise)
     @pytest.mark.parametrize("model,rate_hz,bessel_hz", [
         ("hodgkin_huxley_1952", 10_000.0, 3_000.0), ("wang_buzsaki_1996", 10_000.0, 3_000.0),
