@@ -136,7 +136,11 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
            f"{_default('threshold_method')}`) the last upward crossing of the onset rate "
            f"({_option('onset_rate_v_per_s')}, {_default('onset_rate_v_per_s')}) by the "
            "smoothed dV/dt before the peak, linearly "
-           "interpolated between samples. `max_rate_fraction`: the last upward crossing of "
+           "interpolated between samples; that dV/dt is a local quadratic fit over the "
+           "shortest window (3 samples or more) whose noise SD, from the noise measured before "
+           "the onset, is at most 10 % of the onset rate, never longer than "
+           f"{_option('smoothing_ms')}: a longer window than the noise needs moves the "
+           "crossing of an accelerating rising phase earlier. `max_rate_fraction`: the last upward crossing of "
            f"{_option('threshold_fraction')} ({_default('threshold_fraction')}) times the "
            "spike's maximum dV/dt before that maximum. "
            "`second_derivative_peak`: the time of the largest d2V/dt2 from "
@@ -166,14 +170,16 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
     Column("half_width_ms_sd", "ms", "SD of half_width_ms that the recording's noise "
            "implies.", 5, compute=partial(sd_values, name="half_width_ms_sd")),
     Column("rise_time_ms", "ms", "peak_s - threshold_s.", 5),
-    Column("max_dvdt_v_per_s", "V/s", "Largest dV/dt from threshold to peak, refined between "
-           "samples with a parabola. This dV/dt has its own, shorter smoothing window "
-           f"({_option('rate_smoothing_ms')}, {_default('rate_smoothing_ms')}) so that the "
-           "sharp extreme is not flattened.", 3),
+    Column("max_dvdt_v_per_s", "V/s", "Largest dV/dt from threshold to peak, between samples: "
+           "the maximum of the derivative of the quintic spline through the 13 samples around "
+           "the largest difference. The samples are smoothed (local quartic fit) only as much "
+           "as the noise measured before threshold demands, at most over "
+           f"{_option('rate_smoothing_ms')} ({_default('rate_smoothing_ms')}); see the "
+           "detection section.", 3),
     Column("max_dvdt_v_per_s_sd", "V/s", "SD of max_dvdt_v_per_s that the recording's noise "
            "implies.", 3, compute=partial(sd_values, name="max_dvdt_v_per_s_sd")),
-    Column("min_dvdt_v_per_s", "V/s", "Most negative dV/dt (same window as max_dvdt_v_per_s) "
-           "from peak to trough, refined between samples with a parabola.", 3),
+    Column("min_dvdt_v_per_s", "V/s", "Most negative dV/dt from peak to trough, measured as "
+           "max_dvdt_v_per_s is.", 3),
     Column("trough_s", "s", "Time of the minimum of the smoothed voltage after the peak and "
            "before the next spike's threshold; for a sweep's last spike, up to the end of the "
            "current step when the spike lies inside one, else to the end of the sweep. (A last "
@@ -573,9 +579,19 @@ def _detection_lines(d: DetectionSettings) -> list[str]:
         "rate: in a Hodgkin-Huxley (1952) spike train with 0.3 mV of noise at 50 kHz, "
         "thresholds moved by up to 2.9 mV with a 0.1 ms window and 0.8 mV with 0.3 ms. A long "
         "window flattens sharp extremes of dV/dt (bias about f''' h^2 / 10 for half-window h: "
-        "12 % on the same spikes at 0.3 ms), so each spike's maximum and minimum rates use "
-        f"their own window of {d.rate_smoothing_ms:g} ms (`--rate-smoothing`), evaluated only "
-        "around the spike.",
+        "12 % on the same spikes at 0.3 ms), so each spike's maximum and minimum rates are "
+        "measured on their own: the noise SD is measured in the 48 samples before threshold "
+        "(1.4826 x the median absolute second difference / sqrt(6); Rousseeuw and Croux "
+        "1993), the voltage is smoothed by a local quartic least-squares fit (which leaves "
+        "the cubic stretch around an extreme of dV/dt unchanged) over the shortest window, "
+        "none or 7, 9, ... samples, whose dV/dt noise stays below 3 % of the spike's rate, at "
+        f"most {d.rate_smoothing_ms:g} ms (`--rate-smoothing`), and the extreme is that of "
+        "the derivative of the not-a-knot quintic spline through the 13 samples around it "
+        "(de Boor 1978), so an extreme between samples is not missed. Against the noise-free "
+        "filtered recordings of three published models (4-pole Bessel 3-10 kHz, 10-50 kHz), "
+        "noise-free: within 1 % at 20 kHz and above, within 5-8 % at 10 kHz behind 3 kHz, "
+        "where the narrowest rising phases fall between samples (a 0.1 ms window had read 3-25 % "
+        "low).",
         "",
         f"Each spike's searches reach at most {d.search_window_ms:g} ms (`--search-window`): "
         "back from the onset crossing for the threshold, forward from the peak for the "

@@ -225,8 +225,9 @@ PARAMETERS: tuple[Parameter, ...] = (
               "Savitzky-Golay window for the dV/dt of detection and threshold and for the "
               "smoothed voltage (shorter than the peak window)", "0.3",
               low=0, low_open=True, metavar="MS"),
-    Parameter("rate_smoothing_ms", "--rate-smoothing", "ms", 0.1, "number",
-              "Shorter window for each spike's maximum and minimum dV/dt", "0.1",
+    Parameter("rate_smoothing_ms", "--rate-smoothing", "ms", 0.4, "number",
+              "Longest smoothing window for each spike's maximum and minimum dV/dt (the "
+              "window used is the shortest that the measured noise allows)", "0.4",
               low=0, low_open=True, metavar="MS"),
     Parameter("threshold_method", "--threshold-method", "", "onset_rate", "choice",
               "Threshold definition (see docs/measurements.md)", '"max_rate_fraction"',

@@ -1,4 +1,4 @@
-"""Per-spike measurements, one function each: threshold, peak, half-width, trough and rates.
+"""Per-spike measurements, one function each: threshold, peak, half-width and trough.
 
 Functions take arrays and a sampling rate and return arrays aligned with the spikes given
 (sample positions are fractional indices); nothing here reads files or prints. The helpers
@@ -11,12 +11,12 @@ from scipy.interpolate import CubicSpline
 from scipy.signal import savgol_coeffs
 
 from ..errors import InvalidSettingError
-from .detection import (SMOOTHING_POLYORDER, DetectedSpikes, DetectionSettings, SmoothedTrace,
-                        smoothing_window_samples)
+from .detection import SMOOTHING_POLYORDER, DetectedSpikes, DetectionSettings, SmoothedTrace
+from .spike_rates import noise_before
 from .sweeps import CurrentStep
 
 __all__ = ["spike_thresholds", "interpolated_peaks", "flat_peak_runs", "half_widths", "troughs",
-           "rate_extremes", "search_ends", "SPLINE_HALF_SAMPLES", "SECOND_DERIVATIVE_LOOKBACK_MS"]
+           "search_ends", "SPLINE_HALF_SAMPLES", "SECOND_DERIVATIVE_LOOKBACK_MS"]
 
 #: How far before the onset crossing the ``second_derivative_peak`` threshold searches for the
 #: largest d2V/dt2.
@@ -209,6 +209,59 @@ def _spline_peaks(x: np.ndarray, index: np.ndarray) -> tuple[np.ndarray, np.ndar
     return frac, value
 
 
+#: The onset crossing is found again with the shortest window whose dV/dt noise SD is at
+#: most this fraction of the onset rate.
+ONSET_NOISE_FRACTION = 0.05
+
+
+def _onset_window(noise_mv: float, sampling_rate_hz: float, level: float, longest: int) -> int:
+    """Shortest odd window (at least 3, at most `longest`) of a local quadratic fit whose
+    dV/dt noise SD is at most ONSET_NOISE_FRACTION of `level` (V/s)."""
+    if not np.isfinite(noise_mv):
+        return longest
+    for window in range(3, longest, 2):
+        gain = np.sqrt(12.0 / (window * (window * window - 1)))
+        if noise_mv * sampling_rate_hz / 1e3 * gain <= ONSET_NOISE_FRACTION * level:
+            return window
+    return longest
+
+
+def _noise_matched_onsets(trace: SmoothedTrace, onset: np.ndarray, level: float
+                          ) -> np.ndarray:
+    """The onset crossing of `level` again, with a window matched to the measured noise.
+
+    Returns fractional indices: for each spike, the last upward crossing of `level`, before
+    the span's largest dV/dt, by the dV/dt of a local quadratic fit over
+    :func:`_onset_window` samples, among the centres within half a smoothing window of the
+    onset sample; NaN where the span leaves the trace or
+    holds no such crossing (the smoothed trace's crossing is kept there).
+    """
+    v, fs = trace.voltage_mv, trace.sampling_rate_hz
+    out = np.full(onset.size, np.nan)
+    windows = np.array([_onset_window(noise, fs, level, trace.window)
+                        for noise in noise_before(v, onset - trace.window)], dtype=np.int64)
+    back = ahead = trace.window // 2
+    for window in np.unique(windows):
+        half = window // 2
+        pick = np.flatnonzero((windows == window) & (onset - back - half >= 0)
+                              & (onset + ahead + half < v.size))
+        if pick.size == 0:
+            continue
+        coeffs = savgol_coeffs(window, SMOOTHING_POLYORDER, deriv=1, delta=1e3 / fs,
+                               use="dot")
+        rows = v[onset[pick, None] + np.arange(-back - half, ahead + half + 1)]
+        rate = np.lib.stride_tricks.sliding_window_view(rows, window, axis=1) @ coeffs
+        r, columns = np.arange(rate.shape[0]), np.arange(rate.shape[1])
+        top = np.argmax(rate, axis=1)
+        below = (rate < level) & (columns[None, :] < top[:, None])
+        found = below.any(axis=1) & (rate[r, top] >= level)
+        last = below.shape[1] - 1 - np.argmax(below[:, ::-1], axis=1)
+        before, after = rate[r, last], rate[r, np.minimum(last + 1, rate.shape[1] - 1)]
+        frac = last + (level - before) / np.where(after != before, after - before, 1.0)
+        out[pick[found]] = (onset[pick] - back + frac)[found]
+    return out
+
+
 def spike_thresholds(trace: SmoothedTrace, detected: DetectedSpikes,
                      settings: DetectionSettings) -> tuple[np.ndarray, np.ndarray]:
     """Threshold of each spike as a fractional sample index and a voltage.
@@ -232,7 +285,13 @@ def spike_thresholds(trace: SmoothedTrace, detected: DetectedSpikes,
     -----
     ``onset_rate`` (default)
         The last upward crossing of ``onset_rate_v_per_s`` by dV/dt before the peak, linearly
-        interpolated between the two samples around it.
+        interpolated between the two samples around it. The detector's crossing (on the
+        trace's smoothing window) is found again by the dV/dt of a local quadratic fit over
+        the shortest window whose noise SD, from the noise measured before the onset
+        (:func:`noise_before`), is at most :data:`ONSET_NOISE_FRACTION` of the onset rate:
+        the smoothing bias of an accelerating rising phase (the third derivative times h**2 / 10,
+        see :func:`~spikemeasure.analysis.detection.smoothed_trace`) moves the crossing
+        earlier, so the window is no longer than the noise requires [2]_.
     ``max_rate_fraction``
         The last upward crossing, before the time of the spike's maximum dV/dt, of
         ``threshold_fraction`` times that maximum [1]_.
@@ -250,6 +309,8 @@ def spike_thresholds(trace: SmoothedTrace, detected: DetectedSpikes,
     .. [1] M. Sekerli, C. A. Del Negro, R. H. Lee and R. J. Butera, "Estimating action potential
        thresholds from neuronal time-series: new metrics and evaluation of methodologies",
        IEEE Trans. Biomed. Eng. 51(9):1665-1672, 2004.
+    .. [2] A. Savitzky and M. J. E. Golay, "Smoothing and differentiation of data by
+       simplified least squares procedures", Analytical Chemistry 36(8):1627-1639, 1964.
     """
     dvdt, d2 = trace.dvdt_v_per_s, trace.d2vdt2_v_per_s2
     if settings.needs_second_derivative and d2 is None:
@@ -263,6 +324,8 @@ def spike_thresholds(trace: SmoothedTrace, detected: DetectedSpikes,
         # the detector guarantees dvdt[onset - 1] < rate <= dvdt[onset]
         a, b = dvdt[onset - 1], dvdt[onset]
         index = (onset - 1) + (settings.onset_rate_v_per_s - a) / (b - a)
+        refined = _noise_matched_onsets(trace, onset, settings.onset_rate_v_per_s)
+        index = np.where(np.isfinite(refined), refined, index)
     else:
         top = _span_argmax(dvdt, onset, peak)
         if method == "max_rate_fraction":
@@ -430,76 +493,6 @@ def troughs(smooth_mv: np.ndarray, peak_sample: np.ndarray, end_index: np.ndarra
     index[ok] = np.where(inside, frac, j)
     value[ok] = np.where(inside, val, smooth_mv[j])
     return index, value
-
-
-def rate_extremes(voltage_mv: np.ndarray, sampling_rate_hz: float,
-                  threshold_position: np.ndarray, peak_position: np.ndarray,
-                  trough_position: np.ndarray, smoothing_ms: float = 0.1
-                  ) -> tuple[np.ndarray, np.ndarray]:
-    """Largest dV/dt from threshold to peak and most negative from peak to trough.
-
-    Parameters
-    ----------
-    voltage_mv : ndarray
-        Raw voltage in mV.
-    sampling_rate_hz : float
-    threshold_position, peak_position, trough_position : ndarray
-        Fractional sample positions per spike (NaN where unknown: that extreme is then NaN).
-    smoothing_ms : float, optional
-        Savitzky-Golay window for this derivative (default 0.1 ms), shorter than the one used
-        for detection and threshold.
-
-    Returns
-    -------
-    max_dvdt_v_per_s, min_dvdt_v_per_s : ndarray
-
-    Notes
-    -----
-    The extremes of dV/dt are sharp, so a long smoothing window flattens them (for a window of
-    half-length h the bias is about f''' h**2 / 10), while near threshold dV/dt changes slowly
-    and noise matters more. So the rates use their own, shorter window, evaluated only over
-    each spike's span (a local quadratic fit, as in
-    :func:`~spikemeasure.analysis.detection.smoothed_trace`), and the extreme sample is refined with a
-    parabola through it and its neighbours.
-    """
-    v = np.asarray(voltage_mv, dtype=float)
-    window = smoothing_window_samples(smoothing_ms, sampling_rate_hz)
-    half = window // 2
-    coeffs = savgol_coeffs(window, SMOOTHING_POLYORDER, deriv=1, delta=1e3 / sampling_rate_hz,
-                           use="conv")
-    n = np.asarray(peak_position).size
-    largest = np.full(n, np.nan)
-    smallest = np.full(n, np.nan)
-    first, last = half, v.size - 1 - half  # centres where the window fits
-    for k in range(n):
-        p = int(round(peak_position[k]))
-        t, tr = threshold_position[k], trough_position[k]
-        a = max(first, int(np.floor(t))) if np.isfinite(t) else p
-        b = min(last, int(np.ceil(tr))) if np.isfinite(tr) else p
-        if b < a or p < first or p > last:
-            continue
-        lo = a - 1 if a - 1 >= first else a
-        hi = b + 1 if b + 1 <= last else b
-        rates = np.convolve(v[lo - half:hi + half + 1], coeffs, mode="valid")  # centres lo..hi
-        if np.isfinite(t) and p >= a:
-            largest[k] = _refined_extreme(rates, a - lo, p - lo, True)
-        if np.isfinite(tr) and b >= p:
-            smallest[k] = _refined_extreme(rates, p - lo, b - lo, False)
-    return largest, smallest
-
-
-def _refined_extreme(x: np.ndarray, a: int, b: int, largest: bool) -> float:
-    """Extreme of x[a:b+1], refined by a parabola where it has a neighbour on both sides."""
-    seg = x[a:b + 1]
-    j = a + int(np.argmax(seg) if largest else np.argmin(seg))
-    if 0 < j < x.size - 1:
-        prev, here, nxt = float(x[j - 1]), float(x[j]), float(x[j + 1])
-        curvature = prev - 2.0 * here + nxt
-        if curvature != 0.0:  # the same vertex as _vertices, for one point
-            delta = min(0.5, max(-0.5, 0.5 * (prev - nxt) / curvature))
-            return here - 0.25 * (prev - nxt) * delta
-        return here
-    return float(x[j])
 
 
 def search_ends(n_samples: int, sampling_rate_hz: float, threshold_position: np.ndarray,

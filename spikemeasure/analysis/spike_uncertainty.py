@@ -18,6 +18,8 @@ from scipy.signal import savgol_coeffs
 from ..errors import InvalidSettingError
 from .detection import SMOOTHING_POLYORDER, DetectionSettings, smoothing_window_samples
 from .spikes import SpikeMeasurements
+from .spike_features import _onset_window
+from .spike_rates import max_rate_weights, noise_before
 from .sweeps import CurrentStep
 
 __all__ = ["NoiseModel", "SpikeUncertainty", "SpikesWithUncertainty", "SD_COLUMNS",
@@ -276,6 +278,30 @@ def _scaled(terms: list[_Term], factor) -> list[_Term]:
     return [(k, c, w * factor) for k, c, w in terms]
 
 
+def _onset_slope_weights(v: np.ndarray, rate_hz: float, position: np.ndarray, longest: int,
+                         level: float) -> np.ndarray:
+    """Per spike, the dV/dt weights (V/s per mV) of the local quadratic fit whose window
+    :func:`~spikemeasure.analysis.spike_features._onset_window` chose for its threshold
+    crossing, padded to a common odd length (n, longest)."""
+    noise = noise_before(v, np.asarray(position, dtype=float) - longest)
+    out = np.zeros((np.asarray(position).size, longest))
+    for k, sigma in enumerate(noise):
+        window = _onset_window(sigma, rate_hz, level, longest)
+        pad = (longest - window) // 2
+        out[k, pad:pad + window] = savgol_coeffs(window, SMOOTHING_POLYORDER, deriv=1,
+                                                 delta=1e3 / rate_hz, use="dot")
+    return out
+
+
+def _rows_dot(v: np.ndarray, rows: np.ndarray, centre: np.ndarray) -> np.ndarray:
+    """Each row's dot product with v around its centre; NaN where the window leaves v."""
+    half = rows.shape[1] // 2
+    idx = np.asarray(centre, dtype=np.int64)[:, None] + np.arange(-half, half + 1)
+    inside = ((idx >= 0) & (idx < v.size)).all(axis=1)
+    out = np.einsum("ij,ij->i", v[np.clip(idx, 0, v.size - 1)], rows)
+    return np.where(inside, out, np.nan)
+
+
 def _threshold_terms(v: np.ndarray, kernels: dict, position: np.ndarray, peak: np.ndarray,
                      settings: DetectionSettings) -> list[_Term]:
     """Threshold voltage: the smoothed voltage at the linear crossing of a level by the
@@ -286,11 +312,21 @@ def _threshold_terms(v: np.ndarray, kernels: dict, position: np.ndarray, peak: n
     smooth, slope = kernels["smooth"], kernels["slope"]
     s_step = (_windows(v, smooth.centre_weights, i + 1)
               - _windows(v, smooth.centre_weights, i))
-    d_step = _windows(v, slope.centre_weights, i + 1) - _windows(v, slope.centre_weights, i)
+    if settings.threshold_method == "onset_rate":
+        # the crossing is found again with a window matched to the noise before it
+        # (spike_features._noise_matched_onsets): that window's slope weights, per spike
+        slopes = _onset_slope_weights(v, kernels["rate_hz"], position, slope.window,
+                                      settings.onset_rate_v_per_s)
+        d_step = _rows_dot(v, slopes, i + 1) - _rows_dot(v, slopes, i)
+        slope_terms = (slopes, slopes)
+    else:
+        d_step = (_windows(v, slope.centre_weights, i + 1)
+                  - _windows(v, slope.centre_weights, i))
+        slope_terms = (slope, slope)
     with np.errstate(divide="ignore", invalid="ignore"):
         gain = s_step / d_step
     terms = [(smooth, i, 1.0 - b), (smooth, i + 1, b),
-             (slope, i, -gain * (1.0 - b)), (slope, i + 1, -gain * b)]
+             (slope_terms[0], i, -gain * (1.0 - b)), (slope_terms[1], i + 1, -gain * b)]
     if settings.threshold_method == "max_rate_fraction":
         # the level is a fraction of the largest smoothed dV/dt, itself noisy
         top, _ = _span_argmax(v, slope.centre_weights, i + 1, np.maximum(peak, i + 1))
@@ -333,14 +369,13 @@ def _width_terms(v: np.ndarray, rate: float, start: np.ndarray, end: np.ndarray,
             + _scaled(_crossing_terms(v, start, level), -ms))
 
 
-def _max_rate_terms(v: np.ndarray, kernels: dict, threshold: np.ndarray, peak: np.ndarray
-                    ) -> list[_Term]:
-    """Largest dV/dt (the shorter window) from threshold to peak, refined by a parabola."""
-    rate_kernel = kernels["rate"]
-    lo = np.floor(np.nan_to_num(threshold)).astype(np.int64)
-    hi = np.maximum(np.round(np.nan_to_num(peak)).astype(np.int64), lo)
-    top, around = _span_argmax(v, rate_kernel.centre_weights, lo, hi)
-    return _vertex_terms(rate_kernel, top, _parabola_offset(around))
+def _max_rate_terms(v: np.ndarray, rate: float, threshold: np.ndarray, peak: np.ndarray,
+                    settings: DetectionSettings) -> list[_Term]:
+    """Largest dV/dt: the estimator's own weights on the samples
+    (:func:`~spikemeasure.analysis.spike_rates.max_rate_weights`: the noise-matched local
+    quartic fit, then the quintic spline's derivative at its extreme)."""
+    centre, weights = max_rate_weights(v, rate, threshold, peak, settings.rate_smoothing_ms)
+    return [(weights, centre, np.ones(centre.size))]
 
 
 def _trough_terms(kernels: dict, position: np.ndarray) -> list[_Term]:
@@ -401,9 +436,11 @@ def _kernels(rate: float, settings: DetectionSettings) -> dict:
     short = smoothing_window_samples(settings.rate_smoothing_ms, rate)
     specs = {"smooth": (window, 0, dt_ms), "slope": (window, 1, dt_ms),
              "rate": (short, 1, dt_ms)}
-    return {name: _Filter(*spec, savgol_coeffs(spec[0], SMOOTHING_POLYORDER, deriv=spec[1],
-                                                delta=spec[2], use="dot"))
-            for name, spec in specs.items()}
+    kernels = {name: _Filter(*spec, savgol_coeffs(spec[0], SMOOTHING_POLYORDER,
+                                                  deriv=spec[1], delta=spec[2], use="dot"))
+               for name, spec in specs.items()}
+    kernels["rate_hz"] = rate
+    return kernels
 
 
 def spike_uncertainty(voltage_mv: np.ndarray, sampling_rate_hz: float,
@@ -476,7 +513,7 @@ def spike_uncertainty(voltage_mv: np.ndarray, sampling_rate_hz: float,
     values = {"threshold_mv_sd": (threshold, spikes.threshold_mv),
               "peak_mv_sd": (peak, spikes.peak_mv),
               "half_width_ms_sd": (width, spikes.half_width_ms),
-              "max_dvdt_v_per_s_sd": (_max_rate_terms(v, kernels, thr, peak_at),
+              "max_dvdt_v_per_s_sd": (_max_rate_terms(v, rate, thr, peak_at, settings),
                                       spikes.max_dvdt_v_per_s),
               "ahp_depth_mv_sd": (ahp, spikes.ahp_depth_mv)}
     out = {}
@@ -555,13 +592,16 @@ def uncertainty_lines() -> list[str]:
         "sqrt(w' C w), C the measured autocovariance (first-order propagation of error, "
         "Bevington and Robinson 2003). Per value:",
         "",
-        "- threshold: the smoothed voltage at the crossing of the onset rate by the smoothed "
-        "dV/dt, which a change e of dV/dt there shifts by -e / d2V/dt2 (for "
+        "- threshold: the smoothed voltage at the crossing of the onset rate by the dV/dt of "
+        "the noise-matched window that found it, which a change e of dV/dt there shifts by "
+        "-e / d2V/dt2 (for "
         "`max_rate_fraction`, the level moves with the largest dV/dt too); empty with "
         "`second_derivative_peak`, whose time is not a smooth function of the samples.",
         "- peak: the spline's value at its maximum (a shift of the maximum's position changes "
-        "the value only to second order); likewise the largest dV/dt on its parabola and "
-        "the trough on the smoothed voltage.",
+        "the value only to second order); likewise the trough on the smoothed voltage.",
+        "- max dV/dt: the derivative of the quintic spline at its extreme, through the samples "
+        "smoothed by the noise-matched local quartic fit: those two sets of weights "
+        "convolved.",
         "- half-width: both crossings of the level (threshold + peak) / 2 move by (change of "
         "the level - change of the voltage) / slope of the voltage there.",
         "- AHP depth: threshold minus trough as one weighted sum, so noise common to both (a "

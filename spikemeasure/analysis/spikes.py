@@ -17,8 +17,9 @@ import numpy as np
 from ..errors import InvalidSettingError
 from .detection import (DetectedSpikes, DetectionSettings, SmoothedTrace, detect_spikes,
                         smoothed_trace)
-from .spike_features import (flat_peak_runs, half_widths, interpolated_peaks, rate_extremes,
-                             search_ends, spike_thresholds, troughs)
+from .spike_features import (flat_peak_runs, half_widths, interpolated_peaks, search_ends,
+                             spike_thresholds, troughs)
+from .spike_rates import rate_extremes
 from .sweeps import CurrentStep
 
 __all__ = ["SpikeMeasurements", "spike_times", "first_in_step", "measure_spikes",

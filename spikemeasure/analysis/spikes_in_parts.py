@@ -16,6 +16,7 @@ from ..errors import InvalidSettingError
 from .detection import (DetectedSpikes, DetectionSettings, SmoothedTrace, detect_spikes,
                         smoothed_trace, smoothing_window_samples)
 from .spike_features import SPLINE_HALF_SAMPLES
+from .spike_rates import NOISE_SAMPLES, RATE_SPLINE_HALF_SAMPLES
 from .spikes import (GAP_FLAG, PIECE_SAMPLES, SpikeMeasurements, measure_spikes,
                      measure_spikes_with_positions, spike_times)
 from .sweeps import CurrentStep
@@ -31,6 +32,7 @@ _SPIKE_FIELDS_BY_WINDOW = {
              "max_dvdt_v_per_s", "min_dvdt_v_per_s"),
     "width": _HALF_WIDTH_FIELDS,
     "trough": ("trough_s", "trough_mv", "ahp_depth_mv", "min_dvdt_v_per_s"),
+    "rates": ("max_dvdt_v_per_s", "min_dvdt_v_per_s"),
 }
 
 
@@ -56,19 +58,28 @@ def _blank_near_gaps(spikes: SpikeMeasurements, detected: DetectedSpikes, extra:
         return spikes
     rate = trace.sampling_rate_hz
     n = trace.voltage_mv.size
+    # the rates' smoothing window and quintic spline
     rate_half = smoothing_window_samples(settings.rate_smoothing_ms, rate) // 2
-    edge = max(trace.window // 2, rate_half, SPLINE_HALF_SAMPLES) + 1
+    rate_reach = rate_half + RATE_SPLINE_HALF_SAMPLES + 2
+    edge = max(trace.window // 2, SPLINE_HALF_SAMPLES) + 1
     low = edge if gap_before else -np.inf            # first sample not disturbed by a gap
     high = n - 1 - edge if gap_after else np.inf     # last one
     onset, peak = detected.onset_index, detected.peak_sample
     reach = settings.search_window_samples(rate)
     if settings.threshold_method == "onset_rate":
-        thr_lo, thr_hi = onset - 1, onset
+        # the crossing is found again (a noise-matched window) around the onset sample, with
+        # the noise measured in the NOISE_SAMPLES before onset - window
+        thr_lo = onset - trace.window - NOISE_SAMPLES - 1
+        thr_hi = onset + trace.window
     else:
         prev_peak = np.concatenate([[-np.iinfo(np.int64).max // 2], peak[:-1] + 1])
         thr_lo, thr_hi = np.maximum(prev_peak, onset - reach), peak
     touched = {
         "threshold": (thr_lo < low) | (thr_hi > high),
+        # the rates' window follows the noise measured before threshold; their samples
+        # reach rate_reach beyond threshold and trough (the peak, for the rise)
+        "rates": (onset - trace.window - NOISE_SAMPLES - rate_reach < low - edge)
+                 | (np.maximum(extra["trough_ends"], peak) + rate_reach > high + edge),
         "peak": (peak - SPLINE_HALF_SAMPLES < low) | (peak + trace.window // 2 + SPLINE_HALF_SAMPLES > high),
         # a half-width whose downward crossing was found is the first crossing, as without the
         # gap; one not found may have been cut short by it
@@ -209,7 +220,7 @@ def piece_margin_samples(settings: DetectionSettings, sampling_rate_hz: float) -
     peak = int(np.ceil(settings.peak_window_ms * 1e-3 * rate))
     one_ms = int(np.ceil(1e-3 * rate))
     return (settings.search_window_samples(rate) + 2 * peak + one_ms + 4 * window
-            + 2 * rate_window + 16)
+            + 2 * rate_window + 2 * RATE_SPLINE_HALF_SAMPLES + NOISE_SAMPLES + 16)
 
 
 def _concatenate(parts: list[SpikeMeasurements]) -> SpikeMeasurements:

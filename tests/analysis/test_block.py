@@ -141,7 +141,9 @@ class TestBlockInModels:
         use = (stim >= cell.rheobase_pa) & (stim < cell.block_stimulus_pa)
         assert use.sum() >= 2
         slope = np.polyfit(stim[use], rate[use], 1)[0]
-        assert cell.fi_slope_hz_per_pa == pytest.approx(slope, rel=0.02)
+        # 3 %: a spike that starts with the step has its threshold within a sample of the
+        # step onset, so whether it counts turns on less than a sample (1 spike in 60)
+        assert cell.fi_slope_hz_per_pa == pytest.approx(slope, rel=0.03)
         assert cell.max_firing_rate_hz == pytest.approx(rate[use].max(), rel=0.02)
 
 

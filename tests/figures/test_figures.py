@@ -251,8 +251,10 @@ class TestPhasePlot:
         rheo = next(r for r in cell["results"]
                     if r.features.stimulus_pa == cell["cell"].rheobase_pa)
         assert np.array_equal(x, rheo.spikes.threshold_mv)
-        # threshold is the onset-rate crossing of the smoothed dV/dt (docs/measurements.md)
-        assert np.allclose(y, onset, atol=0.5)
+        # threshold is the onset-rate crossing of dV/dt over the window the noise calls for
+        # (docs/measurements.md); the plotted dV/dt, over the longer smoothing window, rises
+        # earlier and reads a few V/s above the onset rate there
+        assert np.allclose(y, onset, atol=3.0)
         assert ax.get_xlabel() == "membrane voltage (mV)" and ax.get_ylabel() == "dV/dt (V/s)"
 
 
