@@ -3,12 +3,10 @@ import csv
 
 import numpy as np
 import pytest
-from click.testing import CliRunner
 
 from conftest import (PASSIVE_RATE_HZ as RATE, PASSIVE_R_MOHM as R_MOHM, PASSIVE_REST_MV as REST,
                       PASSIVE_TAU_MS as TAU_MS, rc_recording, step_command, write_nix)
 from spikemeasure.analysis.cell_features import fit_membrane_tau, rheobase
-from spikemeasure.cli import main
 from spikemeasure.io import Recording, read_recording
 from spikemeasure.testing import simulate_current_steps
 from spikemeasure.analysis.sweeps import protocol_steps
@@ -140,14 +138,13 @@ def test_unknown_sizes_leave_cell_features_empty():
     assert sized.input_resistance_mohm == pytest.approx(R_MOHM, rel=0.01)
 
 
-def test_measure_tables_agree_with_the_api(tmp_path):
-    """The CSVs of `spikemeasure measure sample_data/` hold the API's values for the same files."""
+def test_measure_tables_agree_with_the_api(measured_runs):
+    """The CSVs of a batch run over sample_data/ (the session's run, as `spikemeasure measure`
+    makes it) hold the API's values for the same files."""
     from pathlib import Path
 
     data = Path(__file__).resolve().parents[2] / "sample_data"
-    out = tmp_path / "out"
-    r = CliRunner().invoke(main, ["measure", str(data), "--out", str(out), "--quiet"])
-    assert r.exit_code == 0, r.output
+    out = measured_runs["sample_data"]
     with open(out / "sweeps.csv", newline="") as fh:
         sweep_rows = list(csv.reader(fh))
     with open(out / "cells.csv", newline="") as fh:
