@@ -14,7 +14,7 @@ from .bridge import MIN_TAU_TO_SETTLE, SETTLE_MS, bridge_error, edge_jump
 from .fluctuation import baseline_stretch, slow_fluctuation_mv
 from .membrane_tau import (END_FRACTION, FILTER_DELAY_MS, TAU_SMOOTHING_MS, ExponentialFit,
                            exponential_fit_sd, fit_membrane_tau)
-from .sweep_features import BASELINE_WINDOW_MS, MIN_WINDOW_MS, SAG_NOISE_FACTOR
+from .sweep_features import BASELINE_WINDOW_MS, SAG_NOISE_FACTOR
 
 __all__ = ["CellFeatures", "ExponentialFit", "fit_membrane_tau", "rheobase", "ramp_rheobase",
            "fi_slope", "input_resistance", "input_resistance_sd", "exponential_fit_sd",
