@@ -10,6 +10,10 @@ Usage:  python benchmarks/benchmark_measure.py [--samples 10000000] [--repeats 3
 3. Job: ``spikemeasure.run.measure_paths`` on the file (read, detect, measure spikes,
    sweeps and the cell, hash the input, keep the outcome, write the tables and run.json), as
    ``spikemeasure measure --force`` runs it.
+With ``--uncertainty``: the file's spikes lie only inside each sweep's step (a quiet second
+before it, where the noise is measured), and the baseline is the same job with the spike SD
+columns switched off (``tables.build.with_uncertainty`` replaced by a pass-through in this
+process): the ratio is what the SDs cost.
 Times are the best of `--repeats` runs of each. Peak memory is the peak of tracemalloc (numpy
 reports its buffers to it) during one run of each, as a ratio to the voltage signal's size as
 float64. Results print as JSON and go to benchmarks/output/.
@@ -32,7 +36,7 @@ RATE_HZ = 50_000.0
 SWEEP_SAMPLES = 500_000  # 10 s sweeps
 
 
-def write_file(path: Path, n_samples: int, seed: int = 3) -> int:
+def write_file(path: Path, n_samples: int, seed: int = 3, quiet_start: bool = False) -> int:
     from pynwb import NWBHDF5IO, NWBFile
     from pynwb.icephys import CurrentClampSeries, CurrentClampStimulusSeries
 
@@ -41,6 +45,10 @@ def write_file(path: Path, n_samples: int, seed: int = 3) -> int:
     t_ms = np.arange(SWEEP_SAMPLES) / RATE_HZ * 1e3
     phase = np.mod(t_ms, 25.0) - 12.5
     spikes = -65.0 + 100.0 * np.exp(-phase ** 2 / (2 * 0.3 ** 2))
+    if quiet_start:  # spikes only during the step, so each sweep has a quiet stretch
+        outside = np.ones(SWEEP_SAMPLES, dtype=bool)
+        outside[SWEEP_SAMPLES // 10: 9 * SWEEP_SAMPLES // 10] = False
+        spikes[outside] = -65.0
     nwb = NWBFile(session_description="benchmark", identifier="benchmark",
                   session_start_time=datetime.datetime(2026, 1, 1, tzinfo=datetime.timezone.utc))
     device = nwb.create_device(name="amplifier")
@@ -82,8 +90,35 @@ def baseline(path: Path) -> float:
 def job(path: Path, out: Path) -> int:
     from spikemeasure.run import measure_paths
 
-    # force: every repeat measures again instead of reusing the outcome kept by the first
-    return measure_paths([str(path)], out, force=True).spikes
+    # force: every repeat measures again instead of reusing the outcome kept by the first;
+    # one process, so that switching the SDs off in this process holds
+    return measure_paths([str(path)], out, force=True, jobs=1).spikes
+
+
+def job_without_sds(path: Path, out: Path) -> int:
+    """The same job with the spike SD columns switched off."""
+    from spikemeasure.tables import build
+
+    kept = build.with_uncertainty
+    build.with_uncertainty = lambda spikes, *args, **kwargs: spikes
+    try:
+        return job(path, out)
+    finally:
+        build.with_uncertainty = kept
+
+
+def uncertainty_cost(samples: int, repeats: int) -> dict:
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / "benchmark.nwb"
+        n = write_file(path, samples, quiet_start=True)
+        out = Path(tmp) / "results"
+        spikes = job(path, out)
+        job_without_sds(path, out)
+        t_without = best_time(lambda: job_without_sds(path, out), repeats)
+        t_with = best_time(lambda: job(path, out), repeats)
+    return {"samples": n, "spikes": spikes, "without_sds_s": round(t_without, 3),
+            "with_sds_s": round(t_with, 3), "sd_cost_ratio": round(t_with / t_without, 3),
+            "date": datetime.date.today().isoformat()}
 
 
 def best_time(fn, repeats: int) -> float:
@@ -109,7 +144,16 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--samples", type=int, default=10_000_000)
     parser.add_argument("--repeats", type=int, default=3)
+    parser.add_argument("--uncertainty", action="store_true",
+                        help="measure what the spike SD columns cost instead")
     args = parser.parse_args()
+    if args.uncertainty:
+        text = json.dumps(uncertainty_cost(args.samples, args.repeats), indent=2)
+        print(text)
+        target = Path(__file__).resolve().parent / "output"
+        target.mkdir(exist_ok=True)
+        (target / "benchmark_uncertainty.json").write_text(text + "\n")
+        return
     with tempfile.TemporaryDirectory() as tmp:
         path = Path(tmp) / "benchmark.nwb"
         n = write_file(path, args.samples)
