@@ -6,7 +6,8 @@ Usage:  python benchmarks/benchmark_accuracy.py            # quick: 40 cells, a 
 For each model of spikemeasure.testing (three spiking, two passive) and each acquisition (a
 sampling rate and a 4-pole Bessel corner) a step series is simulated at 200 kHz and passed
 through the acquisition chain (record_commands: filter, hum, drift) without noise and without
-decimation: the truth, what a file can still tell. Each recording is that trace decimated to
+decimation; the truth is that trace less its filtered hum and drift (they are not the cell),
+what a file can still tell of the membrane. Each recording is that trace decimated to
 the acquisition's rate with white noise added (the last two steps of record_commands), once
 per noise level, each noise level one electrode of an NWB file (write_electrodes_nwb) in a
 temporary folder, measured by spikemeasure.api.measure as a user would. The truth is measured
@@ -215,6 +216,18 @@ def compare_sweeps_and_cell(out: Comparisons, truth: Truth, results, electrode: 
     out.cells += 1
 
 
+def filtered_artefacts(time_s: np.ndarray, bessel_hz: float, hum_mv: float = 0.0,
+                       hum_hz: float = 50.0, drift_mv_per_s: float = 0.0) -> np.ndarray:
+    """Hum and drift as the recording holds them, through the same 4-pole Bessel filter.
+
+    They are not the cell: the truth is the filtered membrane without them. The filter is
+    linear, so the filtered recording minus this is exactly the filtered membrane."""
+    from spikemeasure.testing.acquisition import bessel_lowpass
+
+    artefact = hum_mv * np.sin(2 * np.pi * hum_hz * time_s) + drift_mv_per_s * time_s
+    return bessel_lowpass(artefact, SIMULATION_RATE_HZ, bessel_hz)
+
+
 def run_condition(out: Comparisons, model: str, acquisition: str, artefacts: str,
                   noise_levels: tuple[float, ...], folder: Path, seed: int) -> float:
     """Simulate one cell for an acquisition, record it at every noise level, measure, compare.
@@ -227,7 +240,8 @@ def run_condition(out: Comparisons, model: str, acquisition: str, artefacts: str
     chain = record_commands(model, command, simulation_rate_hz=SIMULATION_RATE_HZ,
                             decimation=1, bessel_hz=bessel_hz, noise_mv=0.0, seed=seed,
                             **ARTEFACTS[artefacts])
-    truth = true_values(chain.voltage_mv, steps)
+    truth = true_values(chain.voltage_mv - filtered_artefacts(chain.time_s, bessel_hz,
+                                                             **ARTEFACTS[artefacts]), steps)
     decimation = SIMULATION_RATE_HZ // rate_hz
     rng = np.random.default_rng(seed)
     electrodes = [ElectrodeSweeps(
