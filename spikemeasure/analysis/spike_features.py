@@ -16,7 +16,8 @@ from .spike_rates import noise_before
 from .sweeps import CurrentStep
 
 __all__ = ["spike_thresholds", "interpolated_peaks", "flat_peak_runs", "half_widths", "troughs",
-           "search_ends", "SPLINE_HALF_SAMPLES", "SECOND_DERIVATIVE_LOOKBACK_MS"]
+           "search_ends", "onset_window", "ONSET_NOISE_FRACTION", "SPLINE_HALF_SAMPLES",
+           "SECOND_DERIVATIVE_LOOKBACK_MS"]
 
 #: How far before the onset crossing the ``second_derivative_peak`` threshold searches for the
 #: largest d2V/dt2.
@@ -214,7 +215,7 @@ def _spline_peaks(x: np.ndarray, index: np.ndarray) -> tuple[np.ndarray, np.ndar
 ONSET_NOISE_FRACTION = 0.05
 
 
-def _onset_window(noise_mv: float, sampling_rate_hz: float, level: float, longest: int) -> int:
+def onset_window(noise_mv: float, sampling_rate_hz: float, level: float, longest: int) -> int:
     """Shortest odd window (at least 3, at most `longest`) of a local quadratic fit whose
     dV/dt noise SD is at most ONSET_NOISE_FRACTION of `level` (V/s)."""
     if not np.isfinite(noise_mv):
@@ -232,13 +233,13 @@ def _noise_matched_onsets(trace: SmoothedTrace, onset: np.ndarray, level: float
 
     Returns fractional indices: for each spike, the last upward crossing of `level`, before
     the span's largest dV/dt, by the dV/dt of a local quadratic fit over
-    :func:`_onset_window` samples, among the centres within half a smoothing window of the
+    :func:`onset_window` samples, among the centres within half a smoothing window of the
     onset sample; NaN where the span leaves the trace or
     holds no such crossing (the smoothed trace's crossing is kept there).
     """
     v, fs = trace.voltage_mv, trace.sampling_rate_hz
     out = np.full(onset.size, np.nan)
-    windows = np.array([_onset_window(noise, fs, level, trace.window)
+    windows = np.array([onset_window(noise, fs, level, trace.window)
                         for noise in noise_before(v, onset - trace.window)], dtype=np.int64)
     back = ahead = trace.window // 2
     for window in np.unique(windows):

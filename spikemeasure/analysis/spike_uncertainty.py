@@ -18,7 +18,7 @@ from scipy.signal import savgol_coeffs
 from ..errors import InvalidSettingError
 from .detection import SMOOTHING_POLYORDER, DetectionSettings, smoothing_window_samples
 from .spikes import SpikeMeasurements
-from .spike_features import _onset_window
+from .spike_features import onset_window
 from .spike_rates import max_rate_weights, noise_before
 from .sweeps import CurrentStep
 
@@ -281,12 +281,12 @@ def _scaled(terms: list[_Term], factor) -> list[_Term]:
 def _onset_slope_weights(v: np.ndarray, rate_hz: float, position: np.ndarray, longest: int,
                          level: float) -> np.ndarray:
     """Per spike, the dV/dt weights (V/s per mV) of the local quadratic fit whose window
-    :func:`~spikemeasure.analysis.spike_features._onset_window` chose for its threshold
+    :func:`~spikemeasure.analysis.spike_features.onset_window` chose for its threshold
     crossing, padded to a common odd length (n, longest)."""
     noise = noise_before(v, np.asarray(position, dtype=float) - longest)
     out = np.zeros((np.asarray(position).size, longest))
     for k, sigma in enumerate(noise):
-        window = _onset_window(sigma, rate_hz, level, longest)
+        window = onset_window(sigma, rate_hz, level, longest)
         pad = (longest - window) // 2
         out[k, pad:pad + window] = savgol_coeffs(window, SMOOTHING_POLYORDER, deriv=1,
                                                  delta=1e3 / rate_hz, use="dot")
