@@ -281,11 +281,14 @@ def smoothed_trace(voltage_mv: np.ndarray, sampling_rate_hz: float,
     smoothing_ms : float, optional
         Window length in ms, default 0.3 (rounded to an odd number of samples, at least 3).
     second_derivative : bool, optional
-        Also compute d2V/dt2 (needed only by the ``second_derivative_peak`` threshold).
+        Also provide d2V/dt2 (needed only by the ``second_derivative_peak`` threshold).
 
     Returns
     -------
     SmoothedTrace
+        dV/dt computed over every sample (detection scans it whole); the smoothed voltage and
+        d2V/dt2 as :class:`SmoothedSamples`, computed only where they are read (around
+        spikes), equal to the filter run over the whole trace.
 
     Notes
     -----

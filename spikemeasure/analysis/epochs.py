@@ -177,20 +177,31 @@ class _IndexSums:
         self.x = np.arange(size, dtype=float)
         self.n = np.arange(1, size + 1, dtype=float)
         self.sx = np.cumsum(self.x)
-        self.vx = np.cumsum(self.x * self.x) - self.sx * self.sx / self.n
-        self.vx_divisor = np.where(self.vx > 0, self.vx, 1.0)
+        vx = np.cumsum(self.x * self.x) - self.sx * self.sx / self.n
+        self.vx_positive = vx > 0
+        self.vx_divisor = np.where(self.vx_positive, vx, 1.0)
 
 
 def _line_sse(y: np.ndarray, sums: _IndexSums) -> np.ndarray:
     """SSE of the least-squares line through y[:k] for every k = 1 .. n (index k - 1)."""
     m = y.size
-    x, n, sx, vx = sums.x[:m], sums.n[:m], sums.sx[:m], sums.vx[:m]
-    sy, sxy, syy = np.cumsum(y), np.cumsum(x * y), np.cumsum(y * y)
-    vy = syy - sy * sy / n
-    cxy = sxy - sx * sy / n
-    with np.errstate(invalid="ignore", divide="ignore"):
-        sse = np.where(vx > 0, vy - cxy * cxy / sums.vx_divisor[:m], vy)
-    return np.maximum(sse, 0.0)
+    x, n, sx = sums.x[:m], sums.n[:m], sums.sx[:m]
+    # vy = syy - sy * sy / n, cxy = sxy - sx * sy / n and the SSE vy - cxy * cxy / vx (vy
+    # where vx is 0), each operation as written, done in place to spare temporaries
+    sy = np.cumsum(y)
+    vy = np.cumsum(y * y)
+    term = sy * sy
+    term /= n
+    vy -= term
+    cxy = np.cumsum(np.multiply(x, y, out=term))
+    np.multiply(sx, sy, out=sy)
+    sy /= n
+    cxy -= sy
+    sse = np.multiply(cxy, cxy, out=cxy)
+    sse /= sums.vx_divisor[:m]
+    np.subtract(vy, sse, out=sse)
+    np.copyto(sse, vy, where=~sums.vx_positive[:m])
+    return np.maximum(sse, 0.0, out=sse)
 
 
 def _best_split(y: np.ndarray, min_piece: int, sums: _IndexSums) -> int:
