@@ -233,3 +233,21 @@ def test_long_command_with_known_epochs():
     assert (stimulus.shape, stimulus.holding_pa) == ("ramp", pytest.approx(holding, abs=1e-4))
     # the test pulse is the last single level before the main stimulus: the last step
     assert stimulus.test_pulse_pa == pytest.approx(140.0, abs=1e-4)
+
+
+def test_prefix_line_fits_equal_numpy_polyfit():
+    """Source: numpy.polyfit's residual sum of squares of each prefix's least-squares line, for
+    the sums formed once per command and read by every piece's split search."""
+    from spikemeasure.analysis.epochs import _IndexSums, _line_sse
+
+    rng = np.random.default_rng(4)
+    y = np.cumsum(rng.normal(0.0, 1.0, 400)) + 30.0
+    sums = _IndexSums(1000)  # a longer command's sums serve a shorter piece
+    for piece in (y, y[::-1], y[100:250]):
+        sse = _line_sse(piece, sums)
+        for k in (2, 3, 50, piece.size):
+            x = np.arange(k, dtype=float)
+            residual = np.polyfit(x, piece[:k], 1, full=True)[1]
+            expected = float(residual[0]) if residual.size else 0.0
+            assert sse[k - 1] == pytest.approx(expected, rel=1e-6, abs=1e-9)
+        assert sse[0] == 0.0
