@@ -14,8 +14,8 @@ from scipy.signal import savgol_filter
 from ..errors import InvalidSettingError
 from ..params import check_value, default_of, parameter
 
-__all__ = ["DetectionSettings", "THRESHOLD_METHODS", "DetectedSpikes", "smoothing_window_samples",
-           "smoothed_trace", "detect_spikes"]
+__all__ = ["DetectionSettings", "THRESHOLD_METHODS", "DetectedSpikes", "SmoothedSamples",
+           "smoothing_window_samples", "smoothed_trace", "detect_spikes"]
 
 #: Threshold definitions offered (see :func:`spikemeasure.analysis.spike_features.spike_thresholds`).
 THRESHOLD_METHODS = parameter("threshold_method").choices
@@ -23,6 +23,10 @@ THRESHOLD_METHODS = parameter("threshold_method").choices
 #: Savitzky-Golay polynomial order: a local quadratic fit, so the smoothed derivative of any
 #: quadratic stretch is exact and the noise gain stays low at the window lengths used.
 SMOOTHING_POLYORDER = 2
+
+#: Samples per block of :class:`SmoothedSamples`: a block is smoothed when one of its samples
+#: is first read.
+SMOOTHING_BLOCK_SAMPLES = 1 << 16
 
 
 @dataclass(frozen=True)
@@ -98,19 +102,140 @@ class DetectionSettings:
         return self.threshold_method == "second_derivative_peak"
 
 
+class SmoothedSamples:
+    """A Savitzky-Golay filtered trace whose samples are computed where they are read.
+
+    Reads like a read-only 1-D float64 array (``size``, ``shape``, ``len``, indexing by an
+    integer, a slice, an integer or boolean array; ``np.asarray`` gives the whole trace). A
+    sample is computed, with the rest of its block of :data:`SMOOTHING_BLOCK_SAMPLES`, the first
+    time it is read, by ``scipy.signal.savgol_filter`` over the block and half a window either
+    side: every value equals, to the last bit, that of the filter run over the whole trace
+    (the filter's result at a sample depends only on the window around it, and the trace's own
+    ends are fitted from the same end windows). A sweep whose smoothed voltage is read only
+    around its spikes is smoothed only there; a quiet sweep not at all.
+
+    Parameters
+    ----------
+    voltage_mv : ndarray
+        The raw trace, float64, 1-D, at least `window` samples.
+    window : int
+        Odd filter length in samples.
+    deriv : int
+        Order of the derivative (0 for the smoothed trace itself).
+    delta_ms : float
+        Sample spacing passed to ``savgol_filter`` as `delta`.
+    scale : float
+        Factor applied to every value (unit conversion).
+    """
+
+    def __init__(self, voltage_mv: np.ndarray, window: int, deriv: int = 0,
+                 delta_ms: float = 1.0, scale: float = 1.0):
+        if not (isinstance(voltage_mv, np.ndarray) and voltage_mv.ndim == 1
+                and voltage_mv.dtype == float):
+            raise InvalidSettingError("`voltage_mv` must be a 1-D float64 array")
+        if not (window >= 3 and window % 2 == 1 and window <= voltage_mv.size):
+            raise InvalidSettingError(
+                f"`window` must be odd, at least 3 and at most the trace's {voltage_mv.size} "
+                f"samples (got {window})")
+        self._source = voltage_mv
+        self._window, self._deriv, self._delta, self._scale = window, deriv, delta_ms, scale
+        # np.empty reserves the memory; pages are touched only by the blocks computed
+        self._values = np.empty(voltage_mv.size, dtype=float)
+        n_blocks = -(-voltage_mv.size // SMOOTHING_BLOCK_SAMPLES)
+        self._done = np.zeros(n_blocks, dtype=bool)
+
+    @property
+    def size(self) -> int:
+        return int(self._source.size)
+
+    @property
+    def shape(self) -> tuple[int]:
+        return (self.size,)
+
+    ndim = 1
+    dtype = np.dtype(float)
+
+    def __len__(self) -> int:
+        return self.size
+
+    def _compute(self, first_block: int, last_block: int) -> None:
+        """Fill blocks first_block .. last_block (inclusive) that are not computed yet."""
+        todo = np.flatnonzero(~self._done[first_block:last_block + 1]) + first_block
+        if todo.size == 0:
+            return
+        # neighbouring missing blocks are filtered in one call
+        runs = np.split(todo, np.flatnonzero(np.diff(todo) > 1) + 1)
+        n, half = self.size, self._window // 2
+        for run in runs:
+            start = int(run[0]) * SMOOTHING_BLOCK_SAMPLES
+            stop = min(n, (int(run[-1]) + 1) * SMOOTHING_BLOCK_SAMPLES)
+            hi = min(n, max(stop + half, start + self._window))
+            lo = max(0, min(start - half, hi - self._window))
+            part = savgol_filter(self._source[lo:hi], self._window, SMOOTHING_POLYORDER,
+                                 deriv=self._deriv, delta=self._delta, mode="interp")
+            if self._scale != 1.0:
+                part *= self._scale
+            self._values[start:stop] = part[start - lo:stop - lo]
+            self._done[run] = True
+
+    def _indices(self, key) -> np.ndarray:
+        index = np.asarray(key)
+        if index.dtype == bool:
+            if index.shape != self.shape:
+                raise IndexError("a boolean index must have the trace's length")
+            return np.flatnonzero(index)
+        if index.dtype.kind not in "iu":
+            raise IndexError("only integers, slices and integer or boolean arrays are valid "
+                             "indices")
+        index = index.astype(np.int64, copy=False)
+        if index.size and (index.min() < -self.size or index.max() >= self.size):
+            raise IndexError(f"index out of range for a trace of {self.size} samples")
+        return np.where(index < 0, index + self.size, index)
+
+    def __getitem__(self, key):
+        if isinstance(key, slice):
+            start, stop, step = key.indices(self.size)
+            if step == 1:
+                if stop > start:
+                    self._compute(start // SMOOTHING_BLOCK_SAMPLES,
+                                  (stop - 1) // SMOOTHING_BLOCK_SAMPLES)
+                view = self._values[start:stop]
+                view.flags.writeable = False
+                return view
+            key = np.arange(start, stop, step)
+        if isinstance(key, (int, np.integer)):
+            i = int(key) + self.size if key < 0 else int(key)
+            if not 0 <= i < self.size:
+                raise IndexError(f"index {key} out of range for a trace of {self.size} samples")
+            self._compute(i // SMOOTHING_BLOCK_SAMPLES, i // SMOOTHING_BLOCK_SAMPLES)
+            return self._values[i]
+        index = self._indices(key)
+        if index.size:
+            blocks = np.unique(index // SMOOTHING_BLOCK_SAMPLES)
+            for block in blocks[~self._done[blocks]].tolist():
+                self._compute(block, block)
+        return self._values[index]
+
+    def __array__(self, dtype=None, copy=None) -> np.ndarray:
+        values = self[:]
+        return values.astype(dtype) if dtype is not None else values.copy()
+
+
 @dataclass(frozen=True)
 class SmoothedTrace:
     """A voltage trace with its zero-phase smoothed version and derivatives.
 
     ``voltage_mv`` is the raw trace; ``smooth_mv``, ``dvdt_v_per_s`` and ``d2vdt2_v_per_s2``
-    come from one Savitzky-Golay fit of ``window`` samples (mV/ms equals V/s);
-    ``d2vdt2_v_per_s2`` is None unless it was asked for.
+    come from Savitzky-Golay fits of ``window`` samples (mV/ms equals V/s);
+    ``d2vdt2_v_per_s2`` is None unless it was asked for. dV/dt, which detection scans from end
+    to end, is an array; the smoothed voltage and d2V/dt2, read only around spikes, are
+    :class:`SmoothedSamples`, computed where they are read.
     """
 
     voltage_mv: np.ndarray
-    smooth_mv: np.ndarray
+    smooth_mv: SmoothedSamples
     dvdt_v_per_s: np.ndarray
-    d2vdt2_v_per_s2: np.ndarray | None
+    d2vdt2_v_per_s2: SmoothedSamples | None
     sampling_rate_hz: float
     window: int
 
@@ -156,11 +281,14 @@ def smoothed_trace(voltage_mv: np.ndarray, sampling_rate_hz: float,
     smoothing_ms : float, optional
         Window length in ms, default 0.3 (rounded to an odd number of samples, at least 3).
     second_derivative : bool, optional
-        Also compute d2V/dt2 (needed only by the ``second_derivative_peak`` threshold).
+        Also provide d2V/dt2 (needed only by the ``second_derivative_peak`` threshold).
 
     Returns
     -------
     SmoothedTrace
+        dV/dt computed over every sample (detection scans it whole); the smoothed voltage and
+        d2V/dt2 as :class:`SmoothedSamples`, computed only where they are read (around
+        spikes), equal to the filter run over the whole trace.
 
     Notes
     -----
@@ -192,11 +320,12 @@ def smoothed_trace(voltage_mv: np.ndarray, sampling_rate_hz: float,
     if v.size < window:
         raise InvalidSettingError(
             f"the trace has {v.size} samples, fewer than the {window}-sample smoothing window")
-    kwargs = dict(window_length=window, polyorder=SMOOTHING_POLYORDER, mode="interp")
-    smooth = savgol_filter(v, **kwargs)
-    dvdt = savgol_filter(v, deriv=1, delta=dt_ms, **kwargs)
+    # one pass over every sample: dV/dt, which detection scans whole; the smoothed voltage
+    # and d2V/dt2 are computed only where they are read (around spikes)
+    dvdt = savgol_filter(v, window, SMOOTHING_POLYORDER, deriv=1, delta=dt_ms, mode="interp")
+    smooth = SmoothedSamples(v, window)
     # d2V/dt2 in mV/ms^2 is 1e3 V/s^2
-    d2 = savgol_filter(v, deriv=2, delta=dt_ms, **kwargs) * 1e3 if second_derivative else None
+    d2 = SmoothedSamples(v, window, 2, dt_ms, 1e3) if second_derivative else None
     return SmoothedTrace(v, smooth, dvdt, d2, float(sampling_rate_hz), window)
 
 
@@ -219,6 +348,24 @@ def _forward_max_at(x: np.ndarray, starts: np.ndarray, width: int,
     for lo in range(0, starts.size, step):
         idx = np.minimum(starts[lo:lo + step, None] + offsets, x.size - 1)
         out[lo:lo + step] = x[idx].max(axis=1)
+    return out
+
+
+def _first_rise_ends(dvdt: np.ndarray, starts: np.ndarray, width: int,
+                     chunk_elements: int = 4_000_000) -> np.ndarray:
+    """For each i in `starts`, the first r in (i, i + width] with dvdt[r - 1] > 0 >= dvdt[r]
+    (the end of the rise), or -1 where there is none within `width` samples of i."""
+    out = np.full(starts.size, -1, dtype=np.int64)
+    offsets = np.arange(width + 1)
+    step = max(1, chunk_elements // (width + 1))
+    for lo in range(0, starts.size, step):
+        # positions past the end repeat the last sample, which cannot end a rise there
+        idx = np.minimum(starts[lo:lo + step, None] + offsets, dvdt.size - 1)
+        rate = dvdt[idx]
+        ends = (rate[:, :-1] > 0) & (rate[:, 1:] <= 0)
+        found = ends.any(axis=1)
+        out[lo:lo + step][found] = starts[lo:lo + step][found] + 1 + np.argmax(ends[found],
+                                                                               axis=1)
     return out
 
 
@@ -262,25 +409,26 @@ def detect_spikes(trace: SmoothedTrace, settings: DetectionSettings = DetectionS
     if crossings.size == 0:
         return empty
     reach = _forward_max_at(v, crossings, window + 1)
+    # the smoothed voltage is read only at crossings that pass the cheaper test
+    high = reach > settings.lowest_peak_mv
+    crossings, reach = crossings[high], reach[high]
     base = trace.smooth_mv[crossings]
-    keep = (reach - base >= settings.min_rise_mv) & (reach > settings.lowest_peak_mv)
-    crossings = crossings[keep]
+    keep = reach - base >= settings.min_rise_mv
+    crossings, base = crossings[keep], base[keep]
     if crossings.size == 0:
         return empty
-    rise_ends = np.flatnonzero((dvdt[:-1] > 0) & (dvdt[1:] <= 0)) + 1
+    rise_ends = _first_rise_ends(dvdt, crossings, window)
     half = trace.window // 2
     onsets: list[int] = []
     peaks: list[int] = []
-    for i in crossings.tolist():
-        k = int(np.searchsorted(rise_ends, i, side="left"))
-        if k >= rise_ends.size:
-            continue  # still rising at the end of the trace: no peak to measure
-        end = int(rise_ends[k])
-        if end - i > window:
-            continue  # a slow depolarization, not a spike
+    for i, end, onset_mv in zip(crossings.tolist(), rise_ends.tolist(), base.tolist()):
+        if end < 0:
+            # a slow depolarization (the rise lasts past the peak window), or still rising
+            # at the end of the trace: no spike to measure
+            continue
         stop = min(n, end + half + 1)
         p = i + int(np.argmax(v[i:stop]))
-        if v[p] - trace.smooth_mv[i] < settings.min_rise_mv or v[p] <= settings.lowest_peak_mv:
+        if v[p] - onset_mv < settings.min_rise_mv or v[p] <= settings.lowest_peak_mv:
             continue
         if peaks and peaks[-1] == p:
             onsets[-1] = i

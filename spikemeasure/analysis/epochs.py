@@ -17,7 +17,7 @@ from ..errors import InvalidSettingError
 
 __all__ = ["Epoch", "CommandEpochs", "Stimulus", "find_epochs", "main_stimulus",
            "EPOCH_MEDIAN_SAMPLES", "NOISE_MULTIPLE", "MIN_LEVEL_CHANGE_PA",
-           "RESIDUAL_WINDOW_MS", "MAX_EDGE_MS", "MAX_EPOCHS", "STIMULUS_SHAPES"]
+           "RESIDUAL_WINDOW_MS", "MAX_EDGE_MS", "MAX_EPOCHS", "STIMULUS_SHAPES", "running_median"]
 
 #: Width of the running median that removes isolated noise samples before segmenting.
 EPOCH_MEDIAN_SAMPLES = 5
@@ -146,31 +146,85 @@ class Stimulus:
     epochs: CommandEpochs
 
 
-def _line_sse(y: np.ndarray) -> np.ndarray:
+def running_median(values: np.ndarray) -> np.ndarray:
+    """The :data:`EPOCH_MEDIAN_SAMPLES`-sample running median of a finite 1-D array, its ends
+    padded with the end values: equal to ``scipy.ndimage.median_filter(values,
+    EPOCH_MEDIAN_SAMPLES, mode="nearest")``, computed on the run-length view of the values.
+
+    A command held at a few levels changes value at a few samples; a median over a window
+    inside one run of equal values is that value, so only the windows that span a change are
+    sorted. A command that changes at most samples (recorded noise) is filtered whole.
+    """
+    half = EPOCH_MEDIAN_SAMPLES // 2
+    starts = np.flatnonzero(values[1:] != values[:-1]) + 1  # first sample of each later run
+    if starts.size * EPOCH_MEDIAN_SAMPLES > values.size // 4:
+        return median_filter(values, size=EPOCH_MEDIAN_SAMPLES, mode="nearest")
+    out = values.copy()
+    if starts.size:
+        # the windows of samples start - half .. start + half - 1 hold both sides of a change
+        spanning = np.unique((starts[:, None] + np.arange(-half, half)).ravel())
+        spanning = spanning[(spanning >= 0) & (spanning < values.size)]
+        window = np.clip(spanning[:, None] + np.arange(-half, half + 1), 0, values.size - 1)
+        out[spanning] = np.sort(values[window], axis=1)[:, half]
+    return out
+
+
+class _IndexSums:
+    """The sums over sample positions x = 0 .. k - 1 that every line fit of a prefix shares
+    (k = 1 .. size): formed once per command, each prefix fit reads their first entries."""
+
+    def __init__(self, size: int):
+        self.x = np.arange(size, dtype=float)
+        self.n = np.arange(1, size + 1, dtype=float)
+        self.sx = np.cumsum(self.x)
+        vx = np.cumsum(self.x * self.x) - self.sx * self.sx / self.n
+        self.vx_positive = vx > 0
+        self.vx_divisor = np.where(self.vx_positive, vx, 1.0)
+
+
+def _line_sse(y: np.ndarray, sums: _IndexSums) -> np.ndarray:
     """SSE of the least-squares line through y[:k] for every k = 1 .. n (index k - 1)."""
-    x = np.arange(y.size, dtype=float)
-    n = np.arange(1, y.size + 1, dtype=float)
-    sx, sy = np.cumsum(x), np.cumsum(y)
-    sxx, sxy, syy = np.cumsum(x * x), np.cumsum(x * y), np.cumsum(y * y)
-    vx = sxx - sx * sx / n
-    vy = syy - sy * sy / n
-    cxy = sxy - sx * sy / n
-    with np.errstate(invalid="ignore", divide="ignore"):
-        sse = np.where(vx > 0, vy - cxy * cxy / np.where(vx > 0, vx, 1.0), vy)
-    return np.maximum(sse, 0.0)
+    m = y.size
+    x, n, sx = sums.x[:m], sums.n[:m], sums.sx[:m]
+    # vy = syy - sy * sy / n, cxy = sxy - sx * sy / n and the SSE vy - cxy * cxy / vx (vy
+    # where vx is 0), each operation as written, done in place to spare temporaries
+    sy = np.cumsum(y)
+    vy = np.cumsum(y * y)
+    term = sy * sy
+    term /= n
+    vy -= term
+    cxy = np.cumsum(np.multiply(x, y, out=term))
+    np.multiply(sx, sy, out=sy)
+    sy /= n
+    cxy -= sy
+    sse = np.multiply(cxy, cxy, out=cxy)
+    sse /= sums.vx_divisor[:m]
+    np.subtract(vy, sse, out=sse)
+    np.copyto(sse, vy, where=~sums.vx_positive[:m])
+    return np.maximum(sse, 0.0, out=sse)
 
 
-def _best_split(y: np.ndarray, min_piece: int) -> int:
+def _best_split(y: np.ndarray, min_piece: int, sums: _IndexSums) -> int:
     """The split k (min_piece <= k <= n - min_piece) minimizing the SSE of two separate lines
     through y[:k] and y[k:]."""
-    left = _line_sse(y)
-    right = _line_sse(y[::-1])[::-1]  # right[k] = SSE of the line through y[k:]
+    left = _line_sse(y, sums)
+    right = _line_sse(y[::-1], sums)[::-1]  # right[k] = SSE of the line through y[k:]
     k = np.arange(min_piece, y.size - min_piece + 1)
     total = left[k - 1] + np.append(right, 0.0)[k]
     return int(k[np.argmin(total)])
 
 
+def _is_flat(y: np.ndarray, tolerance_pa: float) -> bool:
+    """Whether y is one run of equal values, so that its least-squares line is flat: the
+    line's slope and residuals are then rounding errors (about 1e-15 of the value, see the
+    tests), far inside half the tolerance, and no line needs fitting."""
+    return bool(y.size and y.min() == y.max()
+                and 0.5 * tolerance_pa > 1e-9 * max(1.0, abs(float(y[0]))))
+
+
 def _fits_one_line(y: np.ndarray, tolerance_pa: float, window: int) -> bool:
+    if _is_flat(y, tolerance_pa):
+        return True
     x = np.arange(y.size, dtype=float)
     slope, intercept = np.polyfit(x, y, 1) if y.size >= 2 else (0.0, float(y[0]))
     residual = y - (slope * x + intercept)
@@ -184,11 +238,13 @@ def _split_points(y: np.ndarray, tolerance_pa: float, window: int, min_piece: in
     best, until every piece fits within tolerance)."""
     borders = [0, y.size]
     todo = [(0, y.size)]
+    sums = None
     while todo and len(borders) - 1 < MAX_EPOCHS:
         a, b = todo.pop()
         if b - a < 2 * min_piece or _fits_one_line(y[a:b], tolerance_pa, window):
             continue
-        k = a + _best_split(y[a:b], min_piece)
+        sums = sums or _IndexSums(y.size)
+        k = a + _best_split(y[a:b], min_piece, sums)
         borders.append(k)
         todo += [(a, k), (k, b)]
     return sorted(borders)
@@ -239,7 +295,8 @@ def find_epochs(command_pa, sampling_rate_hz: float, *, tolerance_pa: float | No
     -----
     1. Missing samples are left out; the finite samples are segmented as one trace and each
        epoch placed back at their positions.
-    2. A :data:`EPOCH_MEDIAN_SAMPLES`-sample running median removes isolated noise samples.
+    2. A :data:`EPOCH_MEDIAN_SAMPLES`-sample running median removes isolated noise samples
+       (:func:`running_median`: only the windows that span a change of value are sorted).
     3. The noise SD is 1.4826 x the median absolute deviation of the sample-to-sample
        differences, over sqrt(2) (a robust estimate: steps and ramps move few differences).
     4. Top-down segmentation: a stretch is one epoch when its residual from the least-squares
@@ -266,8 +323,7 @@ def find_epochs(command_pa, sampling_rate_hz: float, *, tolerance_pa: float | No
     if kept.size < 3:
         return CommandEpochs((), float(tolerance_pa or min_level_change_pa), cmd.size, rate)
     raw = cmd[kept]
-    y = (median_filter(raw, size=EPOCH_MEDIAN_SAMPLES, mode="nearest")
-         if raw.size >= EPOCH_MEDIAN_SAMPLES else raw)
+    y = running_median(raw) if raw.size >= EPOCH_MEDIAN_SAMPLES else raw
     if tolerance_pa is None:
         d = np.diff(raw)
         noise = 1.4826 * float(np.median(np.abs(d - np.median(d)))) / np.sqrt(2.0)
@@ -291,9 +347,12 @@ def _epoch(raw: np.ndarray, smooth: np.ndarray, kept: np.ndarray, a: int, b: int
     # the running median bends the last samples before a jump: fit without them
     trim = EPOCH_MEDIAN_SAMPLES // 2 if t.size > 4 * EPOCH_MEDIAN_SAMPLES else 0
     t_fit, y_fit = t[trim:t.size - trim], smooth[trim:t.size - trim]
+    mean = float(np.mean(raw))
+    if _is_flat(y_fit, tolerance_pa):
+        # the fitted slope is a rounding error: a level, whose values are the mean alone
+        return Epoch(start, stop, "level", mean, mean, mean, 0.0, rate)
     slope, intercept = (np.polyfit(t_fit, y_fit, 1) if t_fit.size >= 2
                         else (0.0, float(smooth[0])))
-    mean = float(np.mean(raw))
     if abs(slope) * (stop - start) <= tolerance_pa:
         return Epoch(start, stop, "level", mean, mean, mean, 0.0, rate)
     return Epoch(start, stop, "ramp", float(intercept), float(intercept + slope * (stop - start)),

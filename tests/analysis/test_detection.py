@@ -1,10 +1,12 @@
 """Detection: every spike found, none extra, also in recording noise."""
 import numpy as np
 import pytest
+from scipy.signal import savgol_filter
 
 from conftest import GaussianSpike, gaussian_train
-from spikemeasure.analysis.detection import (DetectionSettings, detect_spikes, smoothed_trace,
-                                    smoothing_window_samples)
+from spikemeasure.analysis.detection import (SMOOTHING_BLOCK_SAMPLES, SMOOTHING_POLYORDER,
+                                             DetectionSettings, SmoothedSamples, detect_spikes,
+                                             smoothed_trace, smoothing_window_samples)
 from spikemeasure.errors import InvalidSettingError
 from spikemeasure.analysis.spikes import measure_trace
 
@@ -103,3 +105,78 @@ def test_forward_max_paths_agree():
     np.testing.assert_array_equal(_forward_max_at(x, starts, 25), expected)
     many = np.arange(0, 5000, 2)
     np.testing.assert_array_equal(_forward_max_at(x, many, 25), [x[i:i + 25].max() for i in many])
+
+
+class TestSmoothedSamples:
+    """Source: scipy.signal.savgol_filter over the whole trace, the computation the samples
+    read where needed must equal to the last bit (window, order 2, mode 'interp')."""
+
+    @pytest.mark.parametrize("n", [51, 1000, SMOOTHING_BLOCK_SAMPLES + 1,
+                                   2 * SMOOTHING_BLOCK_SAMPLES + 77])
+    @pytest.mark.parametrize("window, deriv, delta, scale", [
+        (3, 0, 1.0, 1.0), (15, 0, 1.0, 1.0), (15, 2, 0.02, 1e3), (51, 1, 0.05, 1.0)])
+    def test_every_read_equals_the_whole_trace_filter(self, n, window, deriv, delta, scale):
+        rng = np.random.default_rng(n + window)
+        v = -65.0 + np.cumsum(rng.normal(0.0, 0.5, n)) + rng.normal(0.0, 0.3, n)
+        reference = savgol_filter(v, window, SMOOTHING_POLYORDER, deriv=deriv, delta=delta,
+                                  mode="interp") * scale
+        samples = SmoothedSamples(v, window, deriv, delta, scale)
+        index = np.concatenate([[0, n - 1, n // 2], rng.integers(0, n, 40)])
+        np.testing.assert_array_equal(samples[index], reference[index])
+        assert samples[-1] == reference[-1] and samples[3] == reference[3]
+        start = int(rng.integers(0, n - 2))
+        np.testing.assert_array_equal(samples[start:n - 1], reference[start:n - 1])
+        np.testing.assert_array_equal(samples[::7], reference[::7])
+        np.testing.assert_array_equal(np.asarray(samples), reference)
+        assert (len(samples), samples.size, samples.shape) == (n, n, (n,))
+
+    def test_trace_fields_equal_the_three_filters(self):
+        # smoothed_trace: dV/dt whole, the smoothed voltage and d2V/dt2 read where needed
+        rng = np.random.default_rng(5)
+        v = -70.0 + rng.normal(0.0, 0.3, 5000)
+        rate = 50_000.0
+        tr = smoothed_trace(v, rate, 0.3, second_derivative=True)
+        dt_ms = 1e3 / rate
+        kwargs = dict(window_length=tr.window, polyorder=SMOOTHING_POLYORDER, mode="interp")
+        np.testing.assert_array_equal(np.asarray(tr.smooth_mv), savgol_filter(v, **kwargs))
+        np.testing.assert_array_equal(tr.dvdt_v_per_s,
+                                      savgol_filter(v, deriv=1, delta=dt_ms, **kwargs))
+        np.testing.assert_array_equal(np.asarray(tr.d2vdt2_v_per_s2),
+                                      savgol_filter(v, deriv=2, delta=dt_ms, **kwargs) * 1e3)
+        assert smoothed_trace(v, rate).d2vdt2_v_per_s2 is None
+
+    def test_bad_arguments_name_the_argument(self):
+        with pytest.raises(InvalidSettingError, match="`window`"):
+            SmoothedSamples(np.zeros(10), 11)
+        with pytest.raises(InvalidSettingError, match="`window`"):
+            SmoothedSamples(np.zeros(10), 4)
+        with pytest.raises(InvalidSettingError, match="`voltage_mv`"):
+            SmoothedSamples(np.zeros((10, 2)), 3)
+
+    def test_bad_index_is_refused(self):
+        samples = SmoothedSamples(np.zeros(100), 5)
+        with pytest.raises(IndexError):
+            samples[100]
+        with pytest.raises(IndexError):
+            samples[np.array([5, 100])]
+        with pytest.raises(IndexError):
+            samples[np.array([0.5])]
+
+
+def test_rise_ends_follow_their_definition():
+    """Source: the definition written out with numpy: the first r after i, within the width,
+    where dV/dt[r - 1] > 0 >= dV/dt[r]; none (-1) when it lies further or not at all."""
+    from spikemeasure.analysis.detection import _first_rise_ends
+
+    rng = np.random.default_rng(2)
+    dvdt = np.cumsum(rng.normal(0.0, 1.0, 3000))
+    starts = np.concatenate([np.flatnonzero(dvdt > 0)[::37], [2998, 2999]])
+    ends = np.flatnonzero((dvdt[:-1] > 0) & (dvdt[1:] <= 0)) + 1
+    expected = []
+    for i in starts:
+        later = ends[ends > i]
+        expected.append(int(later[0]) if later.size and later[0] - i <= 40 else -1)
+    assert -1 in expected and any(e > 0 for e in expected)
+    np.testing.assert_array_equal(_first_rise_ends(dvdt, starts, 40), expected)
+    np.testing.assert_array_equal(_first_rise_ends(dvdt, starts, 40, chunk_elements=50),
+                                  expected)

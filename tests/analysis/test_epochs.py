@@ -5,9 +5,10 @@ slopes known by construction, spikemeasure/testing/commands.py), or scipy where 
 """
 import numpy as np
 import pytest
-from scipy import signal
+from scipy import ndimage, signal
 
-from spikemeasure.analysis.epochs import CommandEpochs, find_epochs, main_stimulus
+from spikemeasure.analysis.epochs import (EPOCH_MEDIAN_SAMPLES, CommandEpochs, find_epochs,
+                                          main_stimulus, running_median)
 from spikemeasure.errors import InvalidSettingError
 from spikemeasure.testing.commands import ramps, steps_after_test_pulse
 
@@ -168,3 +169,85 @@ class TestMainStimulus:
         assert found.holding_pa == pytest.approx(-30.0)
         assert found.onset_s == pytest.approx(0.15)
         assert found.baseline_start_s == pytest.approx(0.0)
+
+
+class TestRunningMedian:
+    """Source: scipy.ndimage.median_filter(size=5, mode='nearest'), which the run-length
+    computation must equal exactly (a median of an odd count is one of the values)."""
+
+    @pytest.mark.parametrize("kind", ["levels", "float32 levels", "outliers", "noise", "short"])
+    def test_equals_scipy_median_filter(self, kind):
+        rng = np.random.default_rng(len(kind))
+        if kind == "short":
+            values = np.array([3.0, -1.0, 7.0, 7.0, 2.0])
+        elif kind == "noise":
+            values = rng.normal(0.0, 2.0, 5000)  # changes at every sample: filtered whole
+        else:
+            values = steps_after_test_pulse([35.0], sampling_rate_hz=RATE)[0]
+            if kind == "float32 levels":
+                values = (values * 1e-3).astype(np.float32).astype(float) * 1e3
+            if kind == "outliers":  # single samples, pairs and a triple, at and near the ends
+                for at, width in ((0, 1), (1, 2), (500, 1), (7000, 2), (9000, 3), (19999, 1)):
+                    values[at:at + width] += 80.0
+        expected = ndimage.median_filter(values, size=EPOCH_MEDIAN_SAMPLES, mode="nearest")
+        np.testing.assert_array_equal(running_median(values), expected)
+
+    def test_flat_run_needs_no_line_fit(self):
+        # Source: numpy.polyfit. The shortcut for a run of equal values assumes its fitted
+        # slope and residuals are rounding errors below 1e-9 of the value (so inside half of
+        # any tolerance the shortcut accepts); here they are checked against the fit itself.
+        for value in (0.0, 200.00000298023224, -1234.5678, 1e6 + 0.1):
+            for n in (2, 3, 1000, 100_000):
+                x = np.arange(n, dtype=float)
+                slope, intercept = np.polyfit(x, np.full(n, value), 1)
+                worst = max(abs(slope) * n, np.max(np.abs(value - (slope * x + intercept))))
+                assert worst < 1e-9 * max(1.0, abs(value)), (value, n)
+
+
+def test_long_command_with_known_epochs():
+    """A 30 s command at 20 kHz (600,000 samples, float32 in nA as a file stores it) built of
+    known epochs: a test pulse, five steps of 2 s, a ramp of 2 s and their returns to holding.
+    Source: the borders by construction."""
+    rate, holding = 20_000.0, -12.0
+    pieces = [(0.5, holding), (0.1, holding - 50.0), (1.4, holding)]
+    for size in (-40.0, 20.0, 60.0, 100.0, 140.0):
+        pieces += [(2.0, holding + size), (2.0, holding)]
+    cmd = np.concatenate([np.full(int(round(s * rate)), level) for s, level in pieces])
+    ramp_at = cmd.size
+    ramp = holding + 100.0 * np.arange(int(2 * rate)) / rate  # 100 pA/s for 2 s
+    cmd = np.concatenate([cmd, ramp, np.full(int(round(6.0 * rate)), holding)])
+    cmd = (cmd * 1e-3).astype(np.float32).astype(float) * 1e3
+    assert cmd.size == 600_000
+    borders = np.cumsum([0] + [int(round(s * rate)) for s, _ in pieces])
+    expected = [(int(a), int(b), "level") for a, b in zip(borders[:-1], borders[1:])]
+    expected += [(ramp_at, ramp_at + ramp.size, "ramp"), (ramp_at + ramp.size, 600_000, "level")]
+    assert _borders(find_epochs(cmd, rate)) == expected
+    # with noise, its first 10 s (test pulse, two steps): starts within 2 samples
+    first = cmd[:200_000] + np.random.default_rng(9).normal(0.0, 1.0, 200_000)
+    noisy = find_epochs(first, rate)
+    known = [(a, b, shape) for a, b, shape in expected if b <= 200_000]
+    assert [e.shape for e in noisy.epochs] == [shape for _, _, shape in known]
+    assert np.max(np.abs(np.subtract([e.start for e in noisy.epochs],
+                                     [a for a, _, _ in known]))) <= 2
+    stimulus = main_stimulus(cmd, rate)  # the ramp: as long as each step, and the last
+    assert (stimulus.shape, stimulus.holding_pa) == ("ramp", pytest.approx(holding, abs=1e-4))
+    # the test pulse is the last single level before the main stimulus: the last step
+    assert stimulus.test_pulse_pa == pytest.approx(140.0, abs=1e-4)
+
+
+def test_prefix_line_fits_equal_numpy_polyfit():
+    """Source: numpy.polyfit's residual sum of squares of each prefix's least-squares line, for
+    the sums formed once per command and read by every piece's split search."""
+    from spikemeasure.analysis.epochs import _IndexSums, _line_sse
+
+    rng = np.random.default_rng(4)
+    y = np.cumsum(rng.normal(0.0, 1.0, 400)) + 30.0
+    sums = _IndexSums(1000)  # a longer command's sums serve a shorter piece
+    for piece in (y, y[::-1], y[100:250]):
+        sse = _line_sse(piece, sums)
+        for k in (2, 3, 50, piece.size):
+            x = np.arange(k, dtype=float)
+            residual = np.polyfit(x, piece[:k], 1, full=True)[1]
+            expected = float(residual[0]) if residual.size else 0.0
+            assert sse[k - 1] == pytest.approx(expected, rel=1e-6, abs=1e-9)
+        assert sse[0] == 0.0
