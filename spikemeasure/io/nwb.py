@@ -23,7 +23,7 @@ from .messages import library_failure, safe_name
 from .nwb_hdf5 import FastPathUnsupported, nwb_layout
 from .recording import Recording
 from .safety import HDF5_SIGNATURE
-from .signals import segments_to_recording, sweep_from_signals
+from .signals import segments_to_recording, sweep_from_signals, unit_object
 from .units import scale_to
 
 __all__ = ["read_nwb"]
@@ -481,11 +481,11 @@ def _align_stimulus(sweep: Sweep, response, stimulus) -> tuple[Sweep, bool]:
     lazily. Returns (the sweep, with the command when it could be aligned; whether it was).
     """
     rate = sweep.sampling_rate_hz
-    s_rate = float(stimulus.sampling_rate.rescale("Hz"))
+    s_rate = float(stimulus.sampling_rate.rescale(unit_object("Hz")))
     if abs(s_rate - rate) > 1e-6 * rate:
         return sweep, False
-    offset = int(round((float(response.t_start.rescale("s")) -
-                        float(stimulus.t_start.rescale("s"))) * rate))
+    offset = int(round((float(response.t_start.rescale(unit_object("s"))) -
+                        float(stimulus.t_start.rescale(unit_object("s")))) * rate))
     to_pa = scale_to(stimulus, "pA")
     if to_pa is None:
         return sweep, False

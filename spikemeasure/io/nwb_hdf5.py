@@ -171,7 +171,8 @@ def nwb_layout(fh) -> tuple[dict, list | None]:
     if "acquisition" not in fh:
         raise FastPathUnsupported("no acquisition group")
     series: dict[str, SeriesLayout] = {}
-    for group_name, where in (("acquisition", "acquisition"), ("stimulus", "stimulus/presentation")):
+    for group_name, where in (("acquisition", "acquisition"),
+                              ("stimulus", "stimulus/presentation")):
         parent = fh.get(where)
         if parent is None:
             continue
