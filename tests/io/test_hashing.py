@@ -9,6 +9,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from spikemeasure.errors import UnreadableInputError
 from spikemeasure.io import read_recording
 from spikemeasure.io.hashing import HashingStream, sha256_of_file
 
@@ -64,3 +65,27 @@ def test_text_is_hashed_from_the_bytes_parsed(tmp_path):
 def test_hdf5_files_are_hashed_as_they_are_read(name):
     path = REPOSITORY / "sample_data" / name
     assert read_recording(path, hash_input=True).sha256 == _expected(path)
+
+
+@pytest.mark.parametrize("prefix, newline", [(b"", b"\n"), (b"\xef\xbb\xbf", b"\r\n")])
+def test_text_with_a_byte_order_mark_or_crlf_reads_alike_hashed(tmp_path, prefix, newline):
+    rows = [b"time_s\tvoltage_mV\tcurrent_pA"] + [
+        f"{k / RATE:.6f}\t{-65 + 0.01 * k:.3f}\t{10.0 * (k > 50):.1f}".encode()
+        for k in range(200)]
+    path = tmp_path / "cell.txt"
+    path.write_bytes(prefix + newline.join(rows) + newline)
+    plain, hashed = read_recording(path), read_recording(path, hash_input=True)
+    assert hashed.sha256 == _expected(path)
+    assert hashed.sweeps[0].voltage_mv.tobytes() == plain.sweeps[0].voltage_mv.tobytes()
+    assert hashed.sweeps[0].command_pa.tobytes() == plain.sweeps[0].command_pa.tobytes()
+
+
+def test_a_text_row_that_is_not_numbers_gives_the_same_error_hashed(tmp_path):
+    path = tmp_path / "cell.txt"
+    path.write_text("time_s,voltage_mV\n0.0,-65\n0.00005,-65\n0.0001,abc\n0.00015,-65\n")
+    with pytest.raises(UnreadableInputError) as plain:
+        read_recording(path)
+    with pytest.raises(UnreadableInputError) as hashed:
+        read_recording(path, hash_input=True)
+    assert str(hashed.value) == str(plain.value)
+    assert "line 4" in str(plain.value)
