@@ -4,8 +4,11 @@ This is the only package that imports neo. One module per format, chosen by the 
 (:mod:`~spikemeasure.io.suffixes`):
 
 - NWB (``.nwb``, :mod:`~spikemeasure.io.nwb`): current-clamp series paired with their
-  stimulus series by sweep number.
-- NIX (``.nix``, :mod:`~spikemeasure.io.nix`): one sweep per neo segment.
+  stimulus series by the intracellular tables or by sweep number, read straight from HDF5
+  (:mod:`~spikemeasure.io.nwb_hdf5`) or, for what that path does not read, through pynwb and
+  neo.
+- NIX (``.nix``, :mod:`~spikemeasure.io.nix`): one sweep per neo segment, read straight from
+  HDF5 as neo's NixIO writes it (:mod:`~spikemeasure.io.nix_hdf5`) or through neo.
 - Plain text (``.txt``, ``.csv``, ``.tsv``, :mod:`~spikemeasure.io.text`): columns under a
   header row naming units, one sweep per file, parsed with numpy in float64.
 - Other formats neo reads (:mod:`~spikemeasure.io.neo_formats`), each suffix by the one neo
@@ -22,7 +25,8 @@ wrong. Names a file gives its sweeps and channels are shown only when they are s
 identifiers (:func:`~spikemeasure.io.messages.safe_name`). A sweep whose declared size exceeds
 ``max_sweep_samples``, or that would not fit in the available memory when read whole, is
 refused before it is read (:mod:`~spikemeasure.io.limits`); long gap-free NWB and NIX sweeps
-stay in the file and are read in pieces (:mod:`~spikemeasure.io.lazy`).
+stay in the file and are read in pieces (:mod:`~spikemeasure.io.lazy`). With `hash_input`,
+the file's SHA-256 is taken as it is read (:mod:`~spikemeasure.io.hashing`).
 """
 from .limits import DEFAULT_MAX_SWEEP_SAMPLES, LONG_SWEEP_SAMPLES
 from .read import read_recording

@@ -1,5 +1,7 @@
 """NIX files (``.nix``): one sweep per neo segment.
 
+Files as neo's NixIO writes them are read straight from HDF5, one segment at a time
+(:mod:`~spikemeasure.io.nix_hdf5`); other NIX files through neo's NixIO, to the same sweeps.
 Files with long or very large signals are read through neo's lazy NIX reader, so that long
 sweeps stay in the file and sweeps too large are refused before they are read.
 """
@@ -17,6 +19,8 @@ from ..errors import UnreadableInputError
 from . import limits
 from .lazy import LongSignal, is_long
 from .messages import library_failure, os_reason, safe_name
+from .nix_hdf5 import nix_array_sizes, nix_segments
+from .nwb_hdf5 import FastPathUnsupported
 from .recording import Recording
 from .safety import HDF5_SIGNATURE
 from .signals import Segment, close_rawio, segments_to_recording, sweep_where
@@ -136,6 +140,49 @@ def read_nix(path: Path, shown: str, max_sweep_samples: int) -> Recording:
     return replace(recording, release=lambda: (release(), done()))
 
 
+def _read_lazily(longest: int, largest: int, max_sweep_samples: int) -> bool:
+    """Whether a file whose data arrays are this long and this large is read lazily (long
+    signals left in the file, sweeps too large refused before they are read)."""
+    available = limits.available_memory_bytes()
+    return (longest > limits.LONG_SWEEP_SAMPLES or largest > max_sweep_samples
+            or (available is not None and 8 * largest > available))
+
+
+def _read_nix_fast(path_text: str, shown: str, max_sweep_samples: int) -> Recording:
+    """A NIX file as neo's NixIO writes it, read from HDF5 one segment at a time;
+    FastPathUnsupported when it must be read through neo (or lazily)."""
+    import h5py
+
+    try:
+        fh = h5py.File(path_text, "r")
+    except Exception as exc:  # h5py raises many types on files it cannot open
+        raise FastPathUnsupported("not opened by h5py") from exc
+    try:
+        try:
+            sizes = nix_array_sizes(fh)
+        except FastPathUnsupported:
+            raise
+        except Exception as exc:  # a layout not read here
+            raise FastPathUnsupported("layout not read from HDF5") from exc
+        if _read_lazily(*sizes, max_sweep_samples):
+            raise FastPathUnsupported("long or large signals: read lazily through neo")
+        return segments_to_recording(_guarded(nix_segments(fh)), shown,
+                                     "NIX (one sweep per segment)")
+    finally:
+        fh.close()
+
+
+def _guarded(segments):
+    """The segments, any failure of reading them made FastPathUnsupported (neo then says
+    what is wrong)."""
+    try:
+        yield from segments
+    except FastPathUnsupported:
+        raise
+    except Exception as exc:  # h5py and neo raise many types; neo's path names the cause
+        raise FastPathUnsupported("layout not read from HDF5") from exc
+
+
 def _read_nix_from(path: Path, path_text: str, shown: str,
                    max_sweep_samples: int) -> Recording:
     import neo
@@ -148,10 +195,11 @@ def _read_nix_from(path: Path, path_text: str, shown: str,
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            longest, largest = _nix_array_sizes(path_text)
-            available = limits.available_memory_bytes()
-            if (longest > limits.LONG_SWEEP_SAMPLES or largest > max_sweep_samples
-                    or (available is not None and 8 * largest > available)):
+            try:
+                return _read_nix_fast(path_text, shown, max_sweep_samples)
+            except FastPathUnsupported:
+                pass
+            if _read_lazily(*_nix_array_sizes(path_text), max_sweep_samples):
                 return _read_nix_lazily(path_text, shown, max_sweep_samples)
             with neo.io.NixIO(path_text, mode="ro") as io:
                 blocks = io.read_all_blocks(lazy=False)

@@ -1,8 +1,11 @@
 """NWB files (``.nwb``): each electrode's current-clamp series paired with its stimulus series,
 by NWB's intracellular tables or, in older files, by sweep number.
 
-Files not written with the intracellular series types are read as neo segments, each sweep
-by the units its channels declare.
+The series and tables are read straight from HDF5 (:mod:`~spikemeasure.io.nwb_hdf5`), each
+series' samples when its sweep is made. Files that path does not read (long series, series
+with an offset, other layouts) are read through pynwb and neo, to the same sweeps; files not
+written with the intracellular series types are read as neo segments, each sweep by the units
+its channels declare.
 """
 from __future__ import annotations
 
@@ -17,9 +20,10 @@ from .sweep import LazyTrace, Sweep
 from . import limits
 from .lazy import LongSignal, is_long, settle_long_sweep
 from .messages import library_failure, safe_name
+from .nwb_hdf5 import FastPathUnsupported, nwb_layout
 from .recording import Recording
 from .safety import HDF5_SIGNATURE
-from .signals import segments_to_recording, sweep_from_signals
+from .signals import segments_to_recording, sweep_from_signals, unit_object
 from .units import scale_to
 
 __all__ = ["read_nwb"]
@@ -63,6 +67,11 @@ class _Series:
     name: str
     signal: object = None
     refused: str = ""
+    load: object = None  # reads the signal when it is needed (the h5py path)
+
+    def loaded(self):
+        """The series' neo signal, read now when it was left in the file."""
+        return self.load() if self.load is not None else self.signal
 
 
 @dataclass
@@ -178,16 +187,11 @@ def _nwb_signals(path: Path, shown: str, max_sweep_samples: int
                     continue
                 number = getattr(one, "sweep_number", None)
                 number = None if number is None else int(number)
-                name = safe_name(one.name)
-                entry = _Series("response" if kind in _CC_RESPONSE else "stimulus",
-                                _electrode_name(one), number, name)
+                entry, where = _series_entry(kind, _electrode_name(one), number,
+                                             safe_name(one.name), shown)
                 series[one.object_id] = entry
-                where = (f"{shown}, series {name or 'without a plain name'}"
-                         + (f" (sweep_number {number})" if number is not None else ""))
                 if getattr(one, "rate", None) is None:
-                    entry.refused = (f"{where}: sampled at listed times (timestamps), not at a "
-                                     "constant rate; spikemeasure needs a constant sampling "
-                                     "rate, so the sweep was not read")
+                    entry.refused = _timestamps_problem(where)
                     continue
                 problem = _nwb_series_problem(one, where)
                 if problem is None:
@@ -207,6 +211,91 @@ def _nwb_signals(path: Path, shown: str, max_sweep_samples: int
         reader.close()
         raise
     return series, types, recorded, tables, reader
+
+
+def _series_entry(kind_name: str, electrode: str, number: int | None, name: str, shown: str,
+                  ) -> tuple[_Series, str]:
+    """A series' entry and how messages name it."""
+    entry = _Series("response" if kind_name in _CC_RESPONSE else "stimulus", electrode,
+                    number, name)
+    where = (f"{shown}, series {name or 'without a plain name'}"
+             + (f" (sweep_number {number})" if number is not None else ""))
+    return entry, where
+
+
+def _timestamps_problem(where: str) -> str:
+    return (f"{where}: sampled at listed times (timestamps), not at a constant rate; "
+            "spikemeasure needs a constant sampling rate, so the sweep was not read")
+
+
+def _fast_nwb_signals(fh, shown: str, max_sweep_samples: int
+                      ) -> tuple[dict, set, list[_Recorded], bool]:
+    """What :func:`_nwb_signals` gives, from the HDF5 layout (:mod:`~spikemeasure.io.
+    nwb_hdf5`): each series' samples are read when its sweep is made. Raises
+    FastPathUnsupported for what only pynwb and neo read (long series among them)."""
+    layouts, rows = nwb_layout(fh)
+    series: dict[str, _Series] = {}
+    for oid, one in layouts.items():
+        entry, where = _series_entry(one.neurodata_type, safe_name(one.electrode, "electrode"),
+                                     one.number, safe_name(one.name), shown)
+        series[oid] = entry
+        if one.rate is None:
+            entry.refused = _timestamps_problem(where)
+            continue
+        problem = _nwb_series_problem(one, where)
+        if problem is None:
+            if limits.is_long_shape(one.shape):
+                raise FastPathUnsupported("a long series: read lazily through neo")
+            problem = limits.size_problem(where, one.shape, max_sweep_samples, whole=True)
+        if problem is not None:
+            entry.refused = problem
+            continue
+        entry.load = one.loader()
+    if rows is None:
+        return series, {s.neurodata_type for s in layouts.values()}, \
+            _series_recordings(series), False
+    recorded = []
+    for row, (electrode, response_ref, stimulus_ref, rank) in enumerate(rows):
+        response, response_part = _fast_reference(response_ref, series)
+        stimulus, stimulus_part = _fast_reference(stimulus_ref, series)
+        number = series[response].number if response in series else None
+        key = (0, rank) if rank is not None else (1, number if number is not None else row)
+        recorded.append(_Recorded(electrode, key, response, stimulus, response_part,
+                                  stimulus_part))
+    return series, {s.neurodata_type for s in layouts.values()}, recorded, True
+
+
+def _fast_reference(ref, series: dict) -> tuple[str | None, tuple[int, int] | None]:
+    """As :func:`_reference`, for a reference read from HDF5."""
+    if ref is None or ref[0] not in series:
+        return None, None
+    oid, start, count, length = ref
+    whole = start == 0 and count in (-1, length)
+    return oid, None if whole else (start, count)
+
+
+def _read_nwb_fast(path: Path, shown: str, max_sweep_samples: int) -> Recording:
+    """Read an NWB file through its HDF5 layout; FastPathUnsupported when it must be read
+    through pynwb and neo."""
+    import h5py
+
+    try:
+        fh = h5py.File(path, "r")
+    except Exception as exc:  # h5py raises many types on files it cannot open
+        raise FastPathUnsupported("not opened by h5py") from exc
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            try:
+                series, types, recorded, tables = _fast_nwb_signals(fh, shown,
+                                                                    max_sweep_samples)
+            except FastPathUnsupported:
+                raise
+            except Exception as exc:  # a layout not read here: pynwb and neo say what it is
+                raise FastPathUnsupported("layout not read from HDF5") from exc
+            return _nwb_recording(series, types, recorded, path, shown, tables)
+    finally:
+        fh.close()
 
 
 def read_nwb(path: Path, shown: str, max_sweep_samples: int) -> Recording:
@@ -248,6 +337,10 @@ def read_nwb(path: Path, shown: str, max_sweep_samples: int) -> Recording:
             raise UnreadableInputError(
                 f"{shown}: not an NWB file (NWB files are HDF5, and this one does not start "
                 "with the HDF5 signature; it may be truncated or of another format)")
+    try:
+        return _read_nwb_fast(path, shown, max_sweep_samples)
+    except FastPathUnsupported:
+        pass
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
@@ -360,8 +453,8 @@ def _recorded_sweep(r: _Recorded, series: dict, shown: str, index: int, cells: i
                           + ": a stimulus with no voltage response; skipped"]
     label = ", ".join(x for x in (label, response.name) if x)
     where = f"{shown}{cell}, sweep {index}" + (f" ({label})" if label else "")
-    voltage, problem = _part(response.signal, r.response_part, where)
-    command, problem_s = (_part(stimulus.signal, r.stimulus_part, where) if stimulus
+    voltage, problem = _part(response.loaded(), r.response_part, where)
+    command, problem_s = (_part(stimulus.loaded(), r.stimulus_part, where) if stimulus
                           else (None, None))
     if problem or problem_s:
         return None, [], [problem or problem_s]
@@ -388,11 +481,11 @@ def _align_stimulus(sweep: Sweep, response, stimulus) -> tuple[Sweep, bool]:
     lazily. Returns (the sweep, with the command when it could be aligned; whether it was).
     """
     rate = sweep.sampling_rate_hz
-    s_rate = float(stimulus.sampling_rate.rescale("Hz"))
+    s_rate = float(stimulus.sampling_rate.rescale(unit_object("Hz")))
     if abs(s_rate - rate) > 1e-6 * rate:
         return sweep, False
-    offset = int(round((float(response.t_start.rescale("s")) -
-                        float(stimulus.t_start.rescale("s"))) * rate))
+    offset = int(round((float(response.t_start.rescale(unit_object("s"))) -
+                        float(stimulus.t_start.rescale(unit_object("s")))) * rate))
     to_pa = scale_to(stimulus, "pA")
     if to_pa is None:
         return sweep, False

@@ -3,12 +3,14 @@ from __future__ import annotations
 
 import os
 import stat
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
 
 from ..errors import InvalidSettingError, UnreadableInputError, printable_name
 from . import limits
+from .hashing import sha256_of_file
 from .messages import os_reason
 from .recording import Recording
 from .safety import refuse_code_formats
@@ -19,7 +21,8 @@ __all__ = ["read_recording"]
 
 def read_recording(path: str | os.PathLike, *, shown_as: str | None = None,
                    sampling_rate_hz: float | None = None,
-                   max_sweep_samples: int | None = None) -> Recording:
+                   max_sweep_samples: int | None = None,
+                   hash_input: bool = False) -> Recording:
     """Read one file into sweeps.
 
     Parameters
@@ -36,6 +39,10 @@ def read_recording(path: str | os.PathLike, *, shown_as: str | None = None,
         :data:`~spikemeasure.io.limits.DEFAULT_MAX_SWEEP_SAMPLES`); so are sweeps read whole
         whose declared float64 size exceeds the memory available. Each refusal is a problem
         of the recording, or the error when no sweep is left.
+    hash_input : bool, optional
+        Also take the SHA-256 of the file's bytes (:attr:`Recording.sha256`) as it is read:
+        text from the bytes parsed, other formats in one pass just before their reader opens
+        them (:mod:`~spikemeasure.io.hashing` says why).
 
     Returns
     -------
@@ -79,7 +86,13 @@ def read_recording(path: str | os.PathLike, *, shown_as: str | None = None,
     try:
         refuse_code_formats(p, shown)
         reader = reader_for(p, shown)
-        return reader.read(p, shown, sampling_rate_hz, max_sweep_samples)
+        if not hash_input:
+            return reader.read(p, shown, sampling_rate_hz, max_sweep_samples)
+        if reader.reads_hashed:
+            return reader.read(p, shown, sampling_rate_hz, max_sweep_samples, hash_input=True)
+        sha256 = sha256_of_file(p)
+        return replace(reader.read(p, shown, sampling_rate_hz, max_sweep_samples),
+                       sha256=sha256)
     except OSError as exc:  # opening or reading the file itself (permissions, I/O errors)
         raise UnreadableInputError(
             f"{shown}: cannot be read ({exc.strerror or type(exc).__name__})") from exc

@@ -35,6 +35,9 @@ class Recording:
     problem_electrodes : list of str
         The electrode each problem belongs to ("" for the file as a whole), aligned with
         `problems`; empty when no problem names an electrode.
+    sha256 : str or None
+        The SHA-256 of the file's bytes (hex), when it was asked for while reading
+        (:func:`~spikemeasure.io.read.read_recording`, `hash_input`).
     """
 
     path: str
@@ -44,6 +47,7 @@ class Recording:
     problems: list[str] = field(default_factory=list)
     release: object = field(default=None, compare=False, repr=False)
     problem_electrodes: list[str] = field(default_factory=list)
+    sha256: str | None = field(default=None, compare=False)
 
     def electrodes(self) -> list[str]:
         """The electrodes of the sweeps, in order of first appearance: one cell each."""

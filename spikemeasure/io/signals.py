@@ -16,16 +16,25 @@ from .messages import safe_name
 from .recording import ChannelInfo, Recording
 from .units import scale_to, unit_text
 
-__all__ = ["Segment", "rate_problem", "looks_like_command", "signal_columns", "sweep_where",
-           "sweep_from_signals", "sweeps_from_signals", "segments_to_recording", "close_rawio"]
+__all__ = ["unit_object", "Segment", "rate_problem", "looks_like_command", "signal_columns",
+           "sweep_where", "sweep_from_signals", "sweeps_from_signals", "segments_to_recording",
+           "close_rawio"]
+
+
+def unit_object(name: str):
+    """The quantities unit named `name` ("Hz", "s"): the unit object itself, so that a
+    rescale does not parse the name again (the same conversion either way)."""
+    import quantities as pq
+
+    return getattr(pq, name)
 
 
 def rate_problem(where: str, signal) -> str | None:
     """Why a signal's time axis cannot be used (a sampling rate that is zero, negative, NaN or
     infinite, or a starting time that is not finite), or None."""
-    rate = float(signal.sampling_rate.rescale("Hz"))
-    start = float(signal.t_start.rescale("s")) if getattr(signal, "t_start", None) is not None \
-        else 0.0
+    rate = float(signal.sampling_rate.rescale(unit_object("Hz")))
+    t_start = getattr(signal, "t_start", None)
+    start = float(t_start.rescale(unit_object("s"))) if t_start is not None else 0.0
     if not np.isfinite(start):
         return (f"{where}: the starting time is {start:g} s; it must be a finite number, so "
                 "the sweep was not read. The file's time axis is damaged")
@@ -34,7 +43,7 @@ def rate_problem(where: str, signal) -> str | None:
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            interval = float(signal.sampling_period.rescale("s"))
+            interval = float(signal.sampling_period.rescale(unit_object("s")))
     except (AttributeError, ValueError, ZeroDivisionError):
         interval = float("nan")
     return (f"{where}: the sampling rate is {rate:g} Hz (sampling interval {interval:g} s); it "
@@ -95,7 +104,7 @@ def _signal_channels(signals, where: str
             return voltages, currents, channels, problem
         to_mv, to_pa = scale_to(signal, "mV"), scale_to(signal, "pA")
         for name, column, sig in signal_columns(signal):
-            rate = float(sig.sampling_rate.rescale("Hz"))
+            rate = float(sig.sampling_rate.rescale(unit_object("Hz")))
             if to_mv is not None:
                 voltages.append((name, column * to_mv, rate, len(channels)))
             elif to_pa is not None:

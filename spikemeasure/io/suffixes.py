@@ -35,11 +35,15 @@ class FormatReader:
         ``read(path, shown, sampling_rate_hz, max_sweep_samples) -> Recording``.
     neo_class : type or None
         The neo reader class, for formats read through neo; None for spikemeasure's own.
+    reads_hashed : bool
+        Whether ``read`` takes ``hash_input=True`` and hashes the bytes it parses (text);
+        other formats are hashed in a pass of their own (:mod:`~spikemeasure.io.hashing`).
     """
 
     format_name: str
-    read: Callable[[Path, str, float | None, int], Recording]
+    read: Callable[..., Recording]
     neo_class: type | None = None
+    reads_hashed: bool = False
 
 
 def _without_rate(read: Callable[[Path, str, int], Recording]
@@ -51,7 +55,7 @@ def _without_rate(read: Callable[[Path, str, int], Recording]
 
 _NWB = FormatReader("NWB", _without_rate(read_nwb))
 _NIX = FormatReader("NIX", _without_rate(read_nix))
-_TEXT = FormatReader("text", read_text)
+_TEXT = FormatReader("text", read_text, reads_hashed=True)
 
 #: The open formats spikemeasure reads itself, by suffix (lower case, with the dot).
 OWN_FORMATS: dict[str, FormatReader] = {".nwb": _NWB, ".nix": _NIX,

@@ -8,6 +8,7 @@ the separator, the line and column) without quoting the file.
 """
 from __future__ import annotations
 
+import io
 import re
 import warnings
 from pathlib import Path
@@ -17,6 +18,7 @@ import numpy as np
 from ..errors import UnreadableInputError
 from .sweep import Sweep
 from . import limits
+from .hashing import HashingStream
 from .messages import safe_name
 from .recording import ChannelInfo, Recording
 from .signals import looks_like_command
@@ -218,14 +220,19 @@ def _header_roles(shown: str, header: str, second: str
 
 
 def _load_rows(path: Path, shown: str, delimiter: str | None, n_columns: int,
-               max_sweep_samples: int) -> np.ndarray:
+               max_sweep_samples: int, stream: HashingStream | None = None) -> np.ndarray:
     """The data rows as float64, one column per header name, after the checks of their
-    number and shape."""
+    number and shape; parsed from `stream` (which hashes what it reads) when given."""
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")  # numpy warns of an empty file; said below
-            data = np.loadtxt(path, delimiter=delimiter, skiprows=1, dtype=np.float64,
-                              ndmin=2, comments="#", encoding="utf-8-sig")
+            if stream is None:
+                data = np.loadtxt(path, delimiter=delimiter, skiprows=1, dtype=np.float64,
+                                  ndmin=2, comments="#", encoding="utf-8-sig")
+            else:  # the same parse, of a text stream decoded as numpy decodes the path
+                text = io.TextIOWrapper(io.BufferedReader(stream), encoding="utf-8-sig")
+                data = np.loadtxt(text, delimiter=delimiter, skiprows=1, dtype=np.float64,
+                                  ndmin=2, comments="#")
     except (ValueError, UnicodeDecodeError) as exc:
         raise UnreadableInputError(
             _diagnose_rows(path, shown, delimiter, n_columns)) from exc
@@ -284,7 +291,7 @@ def _sampling_rate(shown: str, data: np.ndarray, roles: dict[str, tuple[int, flo
 
 
 def read_text(path: Path, shown: str, sampling_rate_hz: float | None,
-              max_sweep_samples: int) -> Recording:
+              max_sweep_samples: int, *, hash_input: bool = False) -> Recording:
     """Read a text file of columns under a header row naming their units: one sweep per
     voltage column (one cell each).
 
@@ -298,6 +305,8 @@ def read_text(path: Path, shown: str, sampling_rate_hz: float | None,
         The sampling rate, needed when the file has no time column.
     max_sweep_samples : int
         Files longer than this (judged from their size before they are parsed) are refused.
+    hash_input : bool, optional
+        Take the file's SHA-256 from the bytes parsed (:attr:`Recording.sha256`).
 
     Returns
     -------
@@ -314,7 +323,12 @@ def read_text(path: Path, shown: str, sampling_rate_hz: float | None,
     problem = _text_size_problem(path, shown, header, second, len(names), max_sweep_samples)
     if problem:
         raise UnreadableInputError(problem)
-    data = _load_rows(path, shown, delimiter, len(names), max_sweep_samples)
+    if hash_input:
+        with HashingStream(path) as stream:
+            data = _load_rows(path, shown, delimiter, len(names), max_sweep_samples, stream)
+            sha256 = stream.hexdigest()
+    else:
+        data, sha256 = _load_rows(path, shown, delimiter, len(names), max_sweep_samples), None
     rate = _sampling_rate(shown, data, roles, sampling_rate_hz)
     electrodes = _column_electrodes(names, [v[0] for v, _ in pairs])
     sweeps, problems, problem_electrodes = [], [], []
@@ -337,7 +351,7 @@ def read_text(path: Path, shown: str, sampling_rate_hz: float | None,
     if not sweeps:
         raise UnreadableInputError(f"{problems[0]} (and {len(problems) - 1} more problems)")
     return Recording(shown, "plain text (numpy, float64)", sweeps, channels, problems,
-                     problem_electrodes=problem_electrodes)
+                     problem_electrodes=problem_electrodes, sha256=sha256)
 
 
 def _column_electrodes(names: list[str], voltage_columns: list[int]) -> list[str]:

@@ -21,7 +21,25 @@ def unit_text(signal) -> str:
 
 
 def scale_to(signal, target: str) -> float | None:
-    """Factor turning the signal's declared units into `target` ('mV' or 'pA'), or None."""
+    """Factor turning the signal's declared units into `target` ('mV' or 'pA'), or None.
+
+    The factor of each declared unit is worked out once per process and remembered (every
+    sweep of a file declares the same few units)."""
+    try:
+        units = signal.units
+        key = (units.dimensionality.string, float(units.magnitude), target)
+    except (ValueError, TypeError, AttributeError, LookupError):
+        return _scale(signal, target)
+    if key not in _SCALES:
+        _SCALES[key] = _scale(signal, target)
+    return _SCALES[key]
+
+
+#: Factors found by :func:`scale_to`, by (unit symbol, magnitude, target).
+_SCALES: dict[tuple[str, float, str], float | None] = {}
+
+
+def _scale(signal, target: str) -> float | None:
     import quantities as pq
 
     try:

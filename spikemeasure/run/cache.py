@@ -14,6 +14,8 @@ from pathlib import Path
 
 from .. import __version__
 from ..columns import CELL_COLUMNS, ERROR_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS
+from ..io import TEXT_SUFFIXES
+from ..io.hashing import sha256_of_file
 from ..tables.write import write_text_atomic
 from .outcome import FileOutcome
 
@@ -25,12 +27,10 @@ CACHE_LAYOUT = 3
 
 
 def file_sha256(path: Path, chunk: int = 1 << 20) -> str:
-    """The SHA-256 of a file's bytes, as hex."""
-    digest = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(chunk), b""):
-            digest.update(block)
-    return digest.hexdigest()
+    """The SHA-256 of a file's bytes, as hex, in a pass of its own (a run that has kept
+    outcomes to look up hashes its inputs before measuring; otherwise each file is hashed
+    while it is read, :func:`~spikemeasure.io.read.read_recording`'s `hash_input`)."""
+    return sha256_of_file(path, chunk)
 
 
 def columns_hash() -> str:
@@ -73,9 +73,30 @@ class OutcomeCache:
             relevant.pop("max_sweep_samples", None)
         return hashlib.sha256(json.dumps(relevant, sort_keys=True).encode()).hexdigest()[:16]
 
+    def has_kept(self) -> bool:
+        """Whether any outcome is kept in the folder (so that inputs are worth hashing
+        before they are measured, to look theirs up)."""
+        try:
+            return any(p.suffix == ".json" for p in self.folder.iterdir())
+        except OSError:
+            return False
+
     def path(self, sha256: str, is_text: bool) -> Path:
         """Where the outcome of a file with this content is kept."""
         return self.folder / f"{sha256[:32]}-{self.parameter_hash(is_text)}.json"
+
+    def path_of_read(self, path: Path, outcome: FileOutcome, entry: dict) -> Path | None:
+        """Where the outcome of a file hashed while it was read is kept, with run.json's
+        `entry` given its ``sha256``; a file its task could not hash (it failed before
+        reading it, or its worker died) is hashed now; None when it cannot be read."""
+        sha256 = outcome.input_sha256
+        if sha256 is None:
+            try:
+                sha256 = file_sha256(path)
+            except OSError:
+                return None
+        entry["sha256"] = sha256
+        return self.path(sha256, Path(path).suffix.lower() in TEXT_SUFFIXES)
 
     @staticmethod
     def text(outcome: FileOutcome) -> str:

@@ -44,12 +44,14 @@ WORKER_WATCH_S = 1.0
 
 @dataclass(frozen=True)
 class Task:
-    """A file to measure: its place in the run, its path and name, where its outcome is kept."""
+    """A file to measure: its place in the run, its path and name, where its outcome is kept
+    (None: not known before it is hashed, while it is read, `hash_while_reading`)."""
 
     index: int
     path: Path
     shown: str
     cache_path: Path | None
+    hash_while_reading: bool = False
 
 
 class RunStopped(KeyboardInterrupt):
@@ -221,7 +223,7 @@ def _round(executor: Executor, tasks: list[Task], parameters: dict, figures: dic
         stop.check()
         cancel = stop.check if in_process else None
         futures[executor.submit(measure_file, str(task.path), task.shown, parameters, figures,
-                                cancel=cancel)] = task
+                                cancel=cancel, hash_input=task.hash_while_reading)] = task
         if in_process:  # finished already: hand it over before the next one runs
             _collect(futures, set(futures), finish, stop, retry_broken, broken)
             futures.clear()

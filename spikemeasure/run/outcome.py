@@ -51,6 +51,9 @@ class FileOutcome:
         Its figures, relative to the output folder (each cell's in a folder of its own).
     figure_format : str or None
         The format the figures were asked in (None: none asked).
+    input_sha256 : str or None
+        The SHA-256 of the file, when its task hashed it while reading it (not kept: the
+        kept outcome is named by it).
     """
 
     file: str
@@ -65,6 +68,7 @@ class FileOutcome:
     format: str | None = None
     figures: list = field(default_factory=list)
     figure_format: str | None = None
+    input_sha256: str | None = field(default=None, compare=False)
 
     @property
     def is_internal_error(self) -> bool:

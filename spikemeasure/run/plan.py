@@ -55,7 +55,8 @@ def input_entry(path: Path, shown: str) -> dict:
 
 def plan_run(paths: list[str], out: Path, cache: OutcomeCache, stop: StopRequest, *,
              force: bool, extra_patterns: tuple[str, ...], figures: dict | None) -> RunPlan:
-    """Find the recordings under `paths`, hash each and look up its kept outcome.
+    """Find the recordings under `paths`, hash each and look up its kept outcome (when the
+    cache holds none, or with `force`, the files are hashed as their tasks read them).
 
     A kept outcome is reused unless `force`, or unless figures are asked for and its figures
     are missing or in another format; reused without figures, it lists none.
@@ -68,18 +69,24 @@ def plan_run(paths: list[str], out: Path, cache: OutcomeCache, stop: StopRequest
         plan.failures.append(failure(", ".join(printable_name(str(p)) for p in paths), "input",
                                      "no recordings found (looked for .nwb, .nix, .txt, .csv "
                                      "and .tsv files; --glob adds other patterns)"))
+    # with no kept outcome to look up, each file is hashed while its task reads it
+    hash_now = not force and cache.has_kept()
     for k, (path, shown) in enumerate(search.files):
         stop.check()
         entry = input_entry(path, shown)
         plan.entries.append(entry)
         plan.outcomes.append(None)
         try:
-            entry.update(size_bytes=path.stat().st_size, sha256=file_sha256(path))
+            entry.update(size_bytes=path.stat().st_size,
+                         sha256=file_sha256(path) if hash_now else None)
         except OSError as exc:
             entry["status"] = "failed"
             reason = exc.strerror or type(exc).__name__  # without the path it quotes
             plan.outcomes[k] = FileOutcome(shown, failures=[failure(shown, "read",
                                                                     f"{shown}: {reason}")])
+            continue
+        if not hash_now:
+            plan.tasks.append(Task(k, path, shown, None, hash_while_reading=True))
             continue
         cache_path = cache.path(entry["sha256"], path.suffix.lower() in TEXT_SUFFIXES)
         kept, note = (None, None) if force else cache.load(cache_path, shown)

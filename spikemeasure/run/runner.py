@@ -159,7 +159,8 @@ def measure_paths(paths: list[str], out_dir: str | Path,
     with RunLock(out), StopRequest() as stop:
         remove_stale_temporaries(out)
         try:
-            plan = plan_run(paths, out, OutcomeCache(out, parameters), stop, force=force,
+            cache = OutcomeCache(out, parameters)
+            plan = plan_run(paths, out, cache, stop, force=force,
                             extra_patterns=extra_patterns, figures=figures)
             run.early.extend(plan.failures)
             summary.notes.extend(plan.notes)
@@ -171,7 +172,11 @@ def measure_paths(paths: list[str], out_dir: str | Path,
             done_count = [sum(o is not None for o in run.outcomes)]
 
             def finish(task: Task, outcome: FileOutcome) -> None:
-                outcome = run.keep(task.index, outcome, task.cache_path)
+                cache_path = task.cache_path
+                if task.hash_while_reading:
+                    cache_path = cache.path_of_read(task.path, outcome,
+                                                    run.entries[task.index])
+                outcome = run.keep(task.index, outcome, cache_path)
                 done_count[0] += 1
                 if progress is not None:
                     progress({"done": done_count[0], "total": total, "file": outcome.file,

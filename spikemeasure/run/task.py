@@ -36,7 +36,8 @@ def cell_figure_folder(shown: str, electrode: str = "") -> str:
 
 
 def measure_file(path: str, shown: str, parameters: dict, figures: dict | None = None, *,
-                 cancel: Callable[[], None] | None = None) -> FileOutcome:
+                 cancel: Callable[[], None] | None = None,
+                 hash_input: bool = False) -> FileOutcome:
     """Read and measure one file.
 
     Parameters
@@ -53,6 +54,9 @@ def measure_file(path: str, shown: str, parameters: dict, figures: dict | None =
     cancel : callable, optional
         Called between sweeps and between the pieces of long sweeps; it stops the work by
         raising (``KeyboardInterrupt`` when a run is stopped), which propagates.
+    hash_input : bool, optional
+        Take the file's SHA-256 as it is read (``input_sha256`` of the outcome; None when
+        the file could not be read).
 
     Returns
     -------
@@ -69,13 +73,13 @@ def measure_file(path: str, shown: str, parameters: dict, figures: dict | None =
     if cancel is not None and not callable(cancel):
         raise InvalidSettingError("`cancel` must be callable or None")
     try:
-        return _measure_file(path, shown, parameters, figures, cancel)
+        return _measure_file(path, shown, parameters, figures, cancel, hash_input)
     except Exception as exc:  # a bug in one file's task must not stop the batch
         return internal_error_outcome(shown, exc, traceback.format_exc())
 
 
 def _measure_file(path: str, shown: str, parameters: dict, figures: dict | None,
-                  cancel: Callable[[], None] | None) -> FileOutcome:
+                  cancel: Callable[[], None] | None, hash_input: bool) -> FileOutcome:
     settings = DetectionSettings(**parameters["settings"])
     step_s = tuple(parameters["step_s"]) if parameters.get("step_s") else None
     step_sizes_pa = tuple(parameters["step_sizes_pa"]) if parameters.get("step_sizes_pa") else None
@@ -83,11 +87,13 @@ def _measure_file(path: str, shown: str, parameters: dict, figures: dict | None,
     try:
         recording = read_recording(path, shown_as=shown,
                                    sampling_rate_hz=parameters.get("sampling_rate_hz"),
-                                   max_sweep_samples=parameters.get("max_sweep_samples"))
+                                   max_sweep_samples=parameters.get("max_sweep_samples"),
+                                   hash_input=hash_input)
     except SpikemeasureError as exc:
         outcome.failures.append(failure(shown, "read", str(exc)))
         return outcome
     with recording:  # open until its figures are drawn: long sweeps are read from it
+        outcome.input_sha256 = recording.sha256
         outcome.format = recording.format
         outcome.sweep_count = len(recording.sweeps)
         for position, problem in enumerate(recording.problems):

@@ -549,14 +549,21 @@ def test_a_reader_failure_is_named_by_its_type_only(tmp_path, monkeypatch,
 
 def test_a_library_failure_keeps_its_type_not_its_text(tmp_path, monkeypatch):
     """pynwb/hdmf errors can quote names and values read from the file: only their type and
-    a fixed description are kept (HDF5's own error texts hold no data and are kept)."""
+    a fixed description are kept (HDF5's own error texts hold no data and are kept). The
+    file goes the pynwb way, as one the h5py reader does not read would."""
     import pynwb
+
+    from spikemeasure.io import nwb
 
     path = write_nwb(tmp_path / "cell.nwb", _sweeps(1), rate_hz=RATE)
 
     def failing_read(self):
         raise ValueError(f"bad value {SECRET!r} in 'acquisition'")
 
+    def not_read_here(*args):
+        raise nwb.FastPathUnsupported("a layout the h5py reader does not read")
+
+    monkeypatch.setattr(nwb, "_read_nwb_fast", not_read_here)
     monkeypatch.setattr(pynwb.NWBHDF5IO, "read", failing_read)
     with pytest.raises(UnreadableInputError,
                        match=r"cell\.nwb: cannot be read as NWB \(ValueError in the reading "
