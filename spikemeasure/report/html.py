@@ -161,7 +161,7 @@ def report_html(record: dict, cells: ColumnTable, folder: str | os.PathLike, *,
                      "<code>figures</code> folder beside it (loaded as you scroll): copy or "
                      "move the whole output folder with it, or the figures will be missing.</p>")
     parts += _cells_section(record, cells, marks)
-    parts += _batch_section(record, cells, keys)
+    parts += _batch_section(record, cells, keys, embed)
     parts += _cell_sections(record, cells, keys, per_cell, marks, folder, embed)
     parts += record_section(record)
     parts += [f"<script>{_SCRIPT}</script>", "</body>", "</html>", ""]
@@ -273,9 +273,10 @@ def _shown_value(column_name: str, value: float) -> str:
     return shown_number(value, declared.decimals if declared else 4)
 
 
-def _batch_section(record: dict, cells: ColumnTable, keys: list[tuple[str, str]]
-                   ) -> list[str]:
-    """The batch figure, inline: every point names its cell on hover and links to it."""
+def _batch_section(record: dict, cells: ColumnTable, keys: list[tuple[str, str]],
+                   embed: bool) -> list[str]:
+    """The batch figure, inline: every point names its cell on hover and links to it; and
+    its file, linked when the page links its figures (or they are PDF)."""
     if not len(cells):
         return []
     from ..figures.batch import batch_features_svg
@@ -286,10 +287,16 @@ def _batch_section(record: dict, cells: ColumnTable, keys: list[tuple[str, str]]
                              labels=[cell_name(*key) for key in keys],
                              links=[_anchor(k) for k in range(len(keys))],
                              value_text=_shown_value)
-    return ['<h2 id="across-cells">Across cells</h2>',
-            '<p class="small">Each point is a cell: hover over it to see which, click it to go '
-            "to its figures. The short black lines are the group medians.</p>",
-            '<p id="hovered-cell" aria-live="polite"></p>', f"<figure>{svg}</figure>"]
+    parts = ['<h2 id="across-cells">Across cells</h2>',
+             '<p class="small">Each point is a cell: hover over it to see which, click it to '
+             "go to its figures. The short black lines are the group medians.</p>",
+             '<p id="hovered-cell" aria-live="polite"></p>', f"<figure>{svg}</figure>"]
+    batch = (record.get("figures") or {}).get("batch")
+    if batch and (not embed or Path(batch).suffix.lower() not in _MIME):
+        link = escaped(Path(batch).as_posix())
+        parts.append(f'<p class="small">The same figure as a file: <a href="{link}">{link}</a>'
+                     "</p>")
+    return parts
 
 
 def _cell_sections(record: dict, cells: ColumnTable, keys: list[tuple[str, str]],
