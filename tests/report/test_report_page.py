@@ -305,3 +305,24 @@ class TestReportMode:
         with pytest.raises(InvalidSettingError, match="`report_mode` must be one of"):
             measure_paths([str(folder)], tmp_path / "p", report_mode="zip")
         assert not (tmp_path / "p").exists()
+
+
+def test_check_marks_the_cells_that_failed_in_the_report(tmp_path):
+    """`check` writes report.html again with a failed quality rule marked on its cell, and a
+    check that passes clears the mark."""
+    recordings = tmp_path / "recordings"
+    recordings.mkdir()
+    write_nix(recordings / "one.nix", rc_cell_sweeps()[:3], rate_hz=RATE)
+    out = tmp_path / "results"
+    measure_paths([str(recordings)], out)
+    failing, passing = tmp_path / "failing.toml", tmp_path / "passing.toml"
+    for path, limits in ((failing, "[-10.0, 0.0]"), (passing, "[-100.0, 0.0]")):
+        path.write_text(f"[quality]\nresting_range_mv = {limits}\n"
+                        "[regression]\nenabled = false\n")
+    r = CliRunner().invoke(main, ["check", str(out), "--config", str(failing)])
+    assert r.exit_code == 1, r.output
+    row = re.search(r'<tr id="row-0">(.*?)</tr>', (out / "report.html").read_text()).group(1)
+    assert "\u2717" in row and "resting_range_mv" in row and "check-failed" in row
+    r = CliRunner().invoke(main, ["check", str(out), "--config", str(passing)])
+    assert r.exit_code == 0, r.output
+    assert "\u2717" not in (out / "report.html").read_text()
