@@ -19,6 +19,7 @@ escaped. This module reads only the figure files the run itself wrote.
 from __future__ import annotations
 
 import base64
+import math
 import os
 import struct
 from pathlib import Path
@@ -45,12 +46,13 @@ h2 { margin-top: 1.6em; border-bottom: 1px solid #ccc; }
 table { border-collapse: collapse; margin: 0.5em 0; font-size: 0.85em; }
 th, td { border: 1px solid #ccc; padding: 0.2em 0.5em; text-align: left; vertical-align: top; }
 th { background: #f2f2f2; } td.n { text-align: right; font-variant-numeric: tabular-nums; }
-table.sortable th { cursor: pointer; white-space: nowrap; } table.sortable td { white-space: nowrap; }
+table.sortable th { cursor: pointer; white-space: nowrap; }
+table.sortable td { white-space: nowrap; }
 th[aria-sort=ascending]::after { content: " \\25B2"; }
 th[aria-sort=descending]::after { content: " \\25BC"; }
 .wide { overflow-x: auto; } .caution { background: #fff4e0; padding: 0.5em 0.8em; }
 .problems { background: #fde8e8; padding: 0.3em 0.8em; } .failed { color: #a00000; }
-td.check-failed { background: #fde8e8; } .flag { display: block; font-size: 0.8em;
+td.check-failed { background: #fde8e8; } .flag { margin-left: 0.4em; font-size: 0.8em;
        color: #8a5a00; } .mark { color: #a00000; font-weight: bold; }
 figure { margin: 0.8em 0; } img { max-width: 100%; height: auto; }
 figcaption, .small { font-size: 0.85em; color: #555; }
@@ -60,7 +62,7 @@ svg.batch .median { stroke: #222; stroke-width: 1.5; }
 svg.batch .point { fill-opacity: 0.8; cursor: pointer; }
 svg.batch .point:hover, svg.batch .point.lit { stroke: #000; stroke-width: 2; r: 6; }
 svg.batch .panel-title { font-weight: bold; }
-#hovered-cell { min-height: 1.4em; font-weight: bold; }
+#hovered-cell { height: 1.4em; font-weight: bold; }
 """
 
 # Sorting the table by a clicked header (numbers by their unrounded value, empty values
@@ -92,7 +94,9 @@ for (const point of document.querySelectorAll("svg.batch .point")) {
     hovered.textContent = point.querySelector("title").textContent;
     for (const p of same()) p.classList.add("lit");
   });
-  point.addEventListener("mouseleave", () => { for (const p of same()) p.classList.remove("lit"); });
+  point.addEventListener("mouseleave", () => {
+    for (const p of same()) p.classList.remove("lit");
+  });
 }
 """
 
@@ -249,7 +253,7 @@ def _value_cell(column, value, failed: bool) -> str:
                 f'<span title="{escaped(_flag_meaning(f))}">{escaped(f)}</span>'
                 for f in value.flags) + "</td>"
         return f"<td>{escaped(value.text)}</td>"
-    sort = "" if value.sort_key != value.sort_key else repr(value.sort_key)
+    sort = "" if math.isnan(value.sort_key) else repr(value.sort_key)
     flags = "".join(f'<span class="flag" title="{escaped(_flag_meaning(f))}">{escaped(f)}'
                     "</span>" for f in value.flags)
     td = NUMERIC_TD[:-1] if not failed else '<td class="n check-failed"'
