@@ -23,7 +23,7 @@ from .errors import InvalidSettingError
 
 __all__ = ["Parameter", "PARAMETERS", "SETTING_PARAMETERS", "RUN_OPTION_PARAMETERS",
            "KINDS", "parameter", "default_of", "check_value", "parameters_record",
-           "parameters_markdown"]
+           "parameters_markdown", "REPORT_PARAMETER", "SELF_CONTAINED_MAX_CELLS"]
 
 #: Kinds of value a parameter takes.
 #: ``number``: a finite real number within the range; ``whole_number``: an integer within the
@@ -259,6 +259,21 @@ PARAMETERS: tuple[Parameter, ...] = (
               "1000000000", low=1, metavar="N", in_settings=False,
               default_text=str(DEFAULT_MAX_SWEEP_SAMPLES)),
 )
+
+#: Without ``report_mode``, a report of up to this many cells embeds its figures; beyond, it
+#: links them (about 450 kB of PNG a cell: 10 cells make a page of about 5 MB).
+SELF_CONTAINED_MAX_CELLS = 10
+
+#: How report.html holds the figures: an option of a run's output, not of the measurement, so
+#: not in :data:`PARAMETERS` (nor the project file's ``[measure]``, nor run.json's
+#: ``parameters``) and never a reason to measure a file again.
+REPORT_PARAMETER = Parameter(
+    "report_mode", "--report", "", None, "choice",
+    "How report.html holds the figures: self-contained embeds them in the page, linked links "
+    "the files beside it (lazy-loaded; the output folder must travel with the page), none "
+    "writes no report", '"linked"', choices=("self-contained", "linked", "none"),
+    metavar="[self-contained|linked|none]", in_settings=False, affects_tables=False,
+    default_text=f"self-contained up to {SELF_CONTAINED_MAX_CELLS} cells, linked beyond")
 
 #: The fields of :class:`~spikemeasure.detection.DetectionSettings`, in order.
 SETTING_PARAMETERS: tuple[Parameter, ...] = tuple(p for p in PARAMETERS if p.in_settings)

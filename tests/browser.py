@@ -84,16 +84,50 @@ def _stop_group(proc: subprocess.Popen) -> None:
         time.sleep(0.05)
 
 
-def load_page(url: str, *, width: int = 1280, height: int = 2000, timeout: float = 60.0
-              ) -> dict:
+#: Makes every lazy image load now and waits until each has loaded or failed.
+_LOAD_EVERY_IMAGE = """Promise.all(Array.from(document.images).map(i => {
+  i.loading = "eager";
+  return i.complete ? null : new Promise(done => { i.onload = i.onerror = done; });
+}))"""
+
+
+def _mouse(s: "_Session", action: str, selector: str) -> None:
+    """Move the mouse over the first element matching `selector` (scrolled into view), and
+    click it when `action` is ``click``: real input events, as a reader's."""
+    where = s.call("Runtime.evaluate", {
+        "expression": f"(() => {{ const e = document.querySelector({json.dumps(selector)});"
+                      " e.scrollIntoView({block: 'center'});"
+                      " const r = e.getBoundingClientRect();"
+                      " return [r.x + r.width / 2, r.y + r.height / 2]; })()",
+        "returnByValue": True})["result"]["value"]
+    x, y = where
+    s.call("Input.dispatchMouseEvent", {"type": "mouseMoved", "x": x, "y": y})
+    if action == "click":
+        for kind in ("mousePressed", "mouseReleased"):
+            s.call("Input.dispatchMouseEvent", {"type": kind, "x": x, "y": y,
+                                                "button": "left", "clickCount": 1})
+
+
+def load_page(url: str, *, width: int = 1280, height: int = 2000, timeout: float = 60.0,
+              steps=(), load_every_image: bool = False) -> dict:
     """Open `url` in a fresh headless Chromium profile.
+
+    Parameters
+    ----------
+    steps : sequence of (action, selector, expression)
+        After loading, in order: ``hover`` or ``click`` the first element matching the CSS
+        `selector` with the mouse, then evaluate the JavaScript `expression` in the page.
+    load_every_image : bool
+        Make lazy-loaded images load (as scrolling to each would) and wait for all of them
+        before looking at them.
 
     Returns
     -------
     dict
         ``errors`` (console errors, uncaught exceptions, error log entries and failed network
         loads, as text), ``images`` (for each <img>: complete, naturalWidth, naturalHeight,
-        the start of its src) and ``screenshot`` (PNG bytes of the viewport).
+        the start of its src), ``screenshot`` (PNG bytes of the viewport) and ``steps`` (the
+        value of each step's expression).
     """
     import websocket  # websocket-client, a test extra
 
@@ -126,6 +160,14 @@ def load_page(url: str, *, width: int = 1280, height: int = 2000, timeout: float
                     s.call(f"{domain}.enable")
                 s.call("Page.navigate", {"url": url})
                 s.wait_for("Page.loadEventFired", timeout)
+                if load_every_image:
+                    s.call("Runtime.evaluate", {"expression": _LOAD_EVERY_IMAGE,
+                                                "awaitPromise": True}, timeout)
+                values = []
+                for action, selector, expression in steps:
+                    _mouse(s, action, selector)
+                    values.append(s.call("Runtime.evaluate", {
+                        "expression": expression, "returnByValue": True})["result"].get("value"))
                 images = s.call("Runtime.evaluate", {
                     "expression": "Array.from(document.images).map(i => ({complete: i.complete,"
                                   " width: i.naturalWidth, height: i.naturalHeight,"
@@ -149,4 +191,5 @@ def load_page(url: str, *, width: int = 1280, height: int = 2000, timeout: float
                 ws.close()
         finally:
             _stop_group(proc)
-    return {"errors": errors, "images": images, "screenshot": base64.b64decode(shot)}
+    return {"errors": errors, "images": images, "screenshot": base64.b64decode(shot),
+            "steps": values}

@@ -65,6 +65,8 @@ def test_readme_commands_produce_the_csv(tmp_path):
                      if p.suffix in (".nwb", ".nix")}
     record = json.loads((out / "run.json").read_text())
     assert record["failures"] == []
+    # the tour shows the report by the sample data's two regions (sample_data/README.md)
+    assert set(record["groups"]["members"].values()) == {"region A", "region B"}
     assert record["totals"]["spikes"] == len(rows)
 
 

@@ -86,6 +86,8 @@ def check(ctx: click.Context, paths, out_dir, jobs, junit_path, as_json, max_row
                 record=summary.record), settings)
         else:
             report = check_run(paths[0], settings)
+        from ..checks.report_marks import mark_report
+        mark_report(out_dir or paths[0], report)  # failed cells marked in report.html
         if junit_path:
             write_junit(junit_path, report)
     except SpikemeasureError as exc:

@@ -6,7 +6,9 @@ import click
 
 from ..errors import SpikemeasureError, printable_name
 from .common import debugging, fail, measure_into
-from .options import ProjectFileCommand, config_option, parameter_options, run_parameters
+from ..params import REPORT_PARAMETER
+from .options import (ProjectFileCommand, config_option, declared_option, parameter_options,
+                      run_parameters)
 
 __all__ = ["measure", "inspect"]
 
@@ -32,18 +34,19 @@ __all__ = ["measure", "inspect"]
               help="Do not draw figures (the tables and report.html are written anyway).")
 @click.option("--format", "figure_format", type=click.Choice(["png", "svg", "pdf"]),
               default="png", show_default=True,
-              help="File format of the figures. PNG and SVG are embedded in report.html, PDF "
+              help="File format of the figures. PNG and SVG are shown in report.html, PDF "
                    "is linked.")
 @click.option("--groups", "groups_path", type=click.Path(exists=True, dir_okay=False),
               default=None, metavar="FILE.csv",
               help="CSV with a header row naming a `file` column (files as in cells.csv) and "
                    "one group column (e.g. file,genotype): the batch figure and the report "
                    "show cells by group.")
+@declared_option(REPORT_PARAMETER)
 @config_option
 @parameter_options
 @click.pass_context
 def measure(ctx: click.Context, paths, out_dir, jobs, force, patterns, cluster, quiet,
-            no_figures, figure_format, groups_path, config_path, **values):
+            no_figures, figure_format, groups_path, report_mode, config_path, **values):
     """Measure every spike, sweep and cell in PATHS (files or folders) into --out.
 
     Writes spikes.csv, sweeps.csv, cells.csv, errors.csv, run.json, each cell's figures
@@ -66,7 +69,8 @@ def measure(ctx: click.Context, paths, out_dir, jobs, force, patterns, cluster, 
                          "finished and run.json says the run was interrupted; run the same "
                          "command again to measure the rest.",
             force=force, extra_patterns=tuple(patterns), cluster=cluster,
-            figure_format=None if no_figures else figure_format, groups=groups)
+            figure_format=None if no_figures else figure_format, groups=groups,
+            report_mode=report_mode)
     except SpikemeasureError as exc:
         fail(ctx, exc)
     _say_summary(ctx, summary)
@@ -83,7 +87,8 @@ def _say_summary(ctx: click.Context, summary) -> None:
                f"{summary.spikes} spikes -> {printable_name(str(summary.out_dir))}", err=True)
     for note in summary.notes:
         click.echo(f"Note: {note}", err=True)
-    click.echo(f"Report: {printable_name(str(summary.report_path))}", err=True)
+    if summary.report_path.is_file():  # not with --report none
+        click.echo(f"Report: {printable_name(str(summary.report_path))}", err=True)
     if summary.failures:
         n = len(summary.failures)
         click.echo(f"{n} problem{'' if n == 1 else 's'} (also in "

@@ -72,6 +72,11 @@ def _option(declared: Parameter) -> Callable:
                         metavar=declared.metavar, help=f"{declared.help}{unit}.{meaning}")
 
 
+def declared_option(declared: Parameter) -> Callable:
+    """The option of a parameter declared outside PARAMETERS (the report mode)."""
+    return _option(declared)
+
+
 def parameter_options(func: Callable) -> Callable:
     """Add one option per parameter, in declaration order."""
     for declared in reversed(PARAMETERS):

@@ -1,105 +1,119 @@
-"""The run's report, ``report.html``.
+"""The run's report, ``report.html``: where a person decides whether to believe a run.
 
-The report is one static page: plain HTML with inline CSS, no scripts and no external
-resources. PNG and SVG figures are embedded as ``data:`` URIs, so the page can be copied
-anywhere or attached to an email; when the figures of a run together exceed
-:data:`EMBED_LIMIT_BYTES` (or are PDF, which a page cannot show) they are linked by their
-paths relative to the report, which hold as long as the output folder is copied whole.
-Every text from a file, a parameter or a message is escaped with :func:`html.escape`.
+Results first: the cells table (values rounded to what each measurement supports, flags and
+uncertainties beside them, failed quality checks marked, sortable, each row linking to its
+cell), then the batch figure (inline SVG: each point names its cell on hover and links to it),
+then each cell's figures, then the run's record (parameters, versions, inputs, failures); a
+run's failures are also summarised at the top.
 
-The cells come as typed columns (:class:`~spikemeasure.run.outcome.ColumnTable`) and are
-formatted here as cells.csv formats them. This module reads only the figure files the run
-itself wrote.
+Figures are embedded as ``data:`` URIs (``self-contained``: one file to mail or copy) or
+linked by their paths relative to the page and loaded lazily (``linked``: the page stays
+small, and the output folder must travel with it). By default a report of up to
+:data:`SELF_CONTAINED_MAX_CELLS` cells is self-contained and a larger one linked. PDF figures,
+which a page cannot show, are always linked.
+
+The page has no external resources; its only script is a few inline lines that sort the
+table and name the hovered point. Every text from a file, a parameter or a message is
+escaped. This module reads only the figure files the run itself wrote.
 """
 from __future__ import annotations
 
 import base64
-import html
+import math
 import os
+import struct
 from pathlib import Path
 from typing import Sequence
 
-from ..columns import CELL_COLUMNS
-from ..errors import valid_text
-from ..tables.write import write_text_atomic
+from ..params import REPORT_PARAMETER, SELF_CONTAINED_MAX_CELLS
 from ..tables.typed import ColumnTable, column_kind
+from ..tables.write import write_text_atomic
+from .run_record import NUMERIC_TD, cell_name, escaped, record_section, top_summary
+from .values import FLAG_COLUMNS, cell_values, shown_columns, shown_number, shown_rows
 
-__all__ = ["cell_values", "report_html", "write_report", "EMBED_LIMIT_BYTES"]
+__all__ = ["REPORT_MODES", "SELF_CONTAINED_MAX_CELLS", "report_html", "write_report",
+           "figure_embedding"]
 
-#: Figures of a run up to this many bytes in all are embedded in the page; beyond, linked.
-EMBED_LIMIT_BYTES = 40_000_000
+#: How the report holds its figures: embedded, linked, or no report at all.
+REPORT_MODES = REPORT_PARAMETER.choices
 _MIME = {".png": "image/png", ".svg": "image/svg+xml"}
 
-
-def cell_values(cells: ColumnTable) -> list[dict]:
-    """The cells table as one dict per cell: ``file``, ``flags`` and every numeric column as a
-    float (NaN when not measured)."""
-    names = [c.name for c in cells.columns]
-    text = {c.name for c in cells.columns if column_kind(c) == "text"}
-    columns = [cells.column(n) if n in text else cells.column(n).tolist() for n in names]
-    return [{n: (v if n in text else float(v)) for n, v in zip(names, row)}
-            for row in zip(*columns)]
-
-
 _CSS = """
-body { font-family: system-ui, sans-serif; margin: 1.5em auto; max-width: 1200px;
+body { font-family: system-ui, sans-serif; margin: 1.5em auto; max-width: 1400px;
        padding: 0 1em; color: #222; line-height: 1.4; }
-h1 { font-size: 1.6em; margin-bottom: 0.2em; } h2 { margin-top: 1.6em; border-bottom: 1px solid #ccc; }
+h1 { font-size: 1.6em; margin-bottom: 0.2em; }
+h2 { margin-top: 1.6em; border-bottom: 1px solid #ccc; }
 table { border-collapse: collapse; margin: 0.5em 0; font-size: 0.85em; }
 th, td { border: 1px solid #ccc; padding: 0.2em 0.5em; text-align: left; vertical-align: top; }
 th { background: #f2f2f2; } td.n { text-align: right; font-variant-numeric: tabular-nums; }
+table.sortable th { cursor: pointer; white-space: nowrap; }
+table.sortable td { white-space: nowrap; }
+th[aria-sort=ascending]::after { content: " \\25B2"; }
+th[aria-sort=descending]::after { content: " \\25BC"; }
 .wide { overflow-x: auto; } .caution { background: #fff4e0; padding: 0.5em 0.8em; }
-.failed { color: #a00000; } figure { margin: 0.8em 0; } img { max-width: 100%; height: auto; }
-figcaption { font-size: 0.85em; color: #555; } .small { font-size: 0.85em; color: #555; }
+.problems { background: #fde8e8; padding: 0.3em 0.8em; } .failed { color: #a00000; }
+td.check-failed { background: #fde8e8; } .flag { margin-left: 0.4em; font-size: 0.8em;
+       color: #8a5a00; } .mark { color: #a00000; font-weight: bold; }
+figure { margin: 0.8em 0; } img { max-width: 100%; height: auto; }
+figcaption, .small { font-size: 0.85em; color: #555; }
+svg.batch { max-width: 100%; height: auto; font-size: 11px; }
+svg.batch .frame { fill: none; stroke: #999; } svg.batch .axis { stroke: #999; }
+svg.batch .median { stroke: #222; stroke-width: 1.5; }
+svg.batch .point { fill-opacity: 0.8; cursor: pointer; }
+svg.batch .point:hover, svg.batch .point.lit { stroke: #000; stroke-width: 2; r: 6; }
+svg.batch .panel-title { font-weight: bold; }
+#hovered-cell { height: 1.4em; font-weight: bold; }
+"""
+
+# Sorting the table by a clicked header (numbers by their unrounded value, empty values
+# last), and naming the hovered point of the batch figure (and lighting the cell's points).
+_SCRIPT = """
+function compareKeys(x, y) {
+  if (x === "" || y === "") return (x === "") - (y === "");
+  const a = Number(x), b = Number(y);
+  return isNaN(a) || isNaN(b) ? x.localeCompare(y) : a - b;
+}
+for (const th of document.querySelectorAll("table.sortable th")) {
+  th.addEventListener("click", () => {
+    const body = th.closest("table").tBodies[0], k = th.cellIndex;
+    const up = th.getAttribute("aria-sort") !== "ascending";
+    for (const other of th.parentNode.cells) other.removeAttribute("aria-sort");
+    th.setAttribute("aria-sort", up ? "ascending" : "descending");
+    const key = row => row.cells[k].dataset.sort ?? row.cells[k].textContent.trim();
+    const rows = [...body.rows].sort((a, b) => {
+      const ka = key(a), kb = key(b), d = compareKeys(ka, kb);
+      return ka === "" || kb === "" || up ? d : -d;
+    });
+    body.append(...rows);
+  });
+}
+const hovered = document.getElementById("hovered-cell");
+for (const point of document.querySelectorAll("svg.batch .point")) {
+  const same = () => document.querySelectorAll(`.point[data-cell="${point.dataset.cell}"]`);
+  point.addEventListener("mouseenter", () => {
+    hovered.textContent = point.querySelector("title").textContent;
+    for (const p of same()) p.classList.add("lit");
+  });
+  point.addEventListener("mouseleave", () => {
+    for (const p of same()) p.classList.remove("lit");
+  });
+}
 """
 
 
-def _e(value) -> str:
-    return html.escape(valid_text("" if value is None else str(value)), quote=True)
+def figure_embedding(mode: str | None, n_cells: int) -> bool:
+    """Whether the figures are embedded: `mode` ``self-contained`` or ``linked``, or None
+    (self-contained up to :data:`SELF_CONTAINED_MAX_CELLS` cells)."""
+    if mode is None:
+        return n_cells <= SELF_CONTAINED_MAX_CELLS
+    if mode not in REPORT_MODES[:2]:
+        raise ValueError(f"`mode` must be one of {', '.join(REPORT_MODES[:2])} or None "
+                         f"(got {mode!r})")
+    return mode == "self-contained"
 
 
-def _table(header: Sequence[str], rows: Sequence[Sequence], numeric: Sequence[bool] = ()
-           ) -> str:
-    head = "<tr>" + "".join(f"<th>{_e(h)}</th>" for h in header) + "</tr>" if header else ""
-    body = []
-    for row in rows:
-        cells = []
-        for k, v in enumerate(row):
-            cls = ' class="n"' if k < len(numeric) and numeric[k] else ""
-            cells.append(f"<td{cls}>{v}</td>")
-        body.append("<tr>" + "".join(cells) + "</tr>")
-    return f'<div class="wide"><table>{head}' + "".join(body) + "</table></div>"
-
-
-def _image(folder: Path, relative: str, alt: str, embed: bool) -> str:
-    """An <img> of a figure (embedded or linked), or a link to a PDF."""
-    path = folder / relative
-    suffix = Path(relative).suffix.lower()
-    link = _e(Path(relative).as_posix())
-    if not path.is_file():
-        return f'<p class="failed">missing figure: {_e(relative)}</p>'
-    if suffix not in _MIME:
-        return f'<p><a href="{link}">{_e(alt)} ({_e(suffix[1:].upper())})</a></p>'
-    if embed:
-        data = base64.b64encode(path.read_bytes()).decode("ascii")
-        src = f"data:{_MIME[suffix]};base64,{data}"
-    else:
-        src = link
-    return (f'<figure><img src="{src}" alt="{_e(alt)}">'
-            f'<figcaption>{_e(Path(relative).as_posix())}</figcaption></figure>')
-
-
-#: What the report says of each run.json status.
-_RUN_STATUS_TEXT = {
-    "running": "in progress (or killed): this report does not hold the run's results yet; "
-               "run.json and the tables are refreshed as files finish",
-    "interrupted": "interrupted: the tables hold the files finished",
-    "failed": "stopped by an error: the tables hold the files finished",
-    "complete": "complete",
-}
-
-
-def report_html(record: dict, cells: ColumnTable, folder: str | os.PathLike) -> str:
+def report_html(record: dict, cells: ColumnTable, folder: str | os.PathLike, *,
+                mode: str | None = None, findings: Sequence[dict] = ()) -> str:
     """The text of ``report.html``.
 
     Parameters
@@ -111,31 +125,50 @@ def report_html(record: dict, cells: ColumnTable, folder: str | os.PathLike) -> 
         The run's cells table (typed columns of :data:`~spikemeasure.columns.CELL_COLUMNS`).
     folder : str or path-like
         The output folder; figure paths in `record` are relative to it.
+    mode : {'self-contained', 'linked'} or None, optional
+        Embed the figures or link them; None: by the number of cells
+        (:func:`figure_embedding`).
+    findings : sequence of dict, optional
+        Failed quality checks, each with ``check``, ``file``, ``electrode``, ``column`` and
+        ``message`` (as ``spikemeasure check --json`` lists them); their cells are marked.
 
     Returns
     -------
     str
-        The page: the run (summary, failures, notes, files, parameters), the cells table,
-        and the figures.
+        The page: a summary of the run, the cells table, the batch figure, each cell's
+        figures, the run record.
+
+    Raises
+    ------
+    ValueError
+        For a `mode` not listed.
     """
+    embed = figure_embedding(mode, len(cells))
+    folder = Path(folder)
     inputs = record.get("inputs", [])
-    per_file = (record.get("figures") or {}).get("cells") or {}
-    figured = _cell_figures(per_file, cells)
-    anchors = {cell: f"cell-{k}" for k, cell in enumerate(figured)}
+    figures = record.get("figures") or {}
+    per_cell = _cell_figures(figures.get("cells") or {}, cells)
+    keys = list(zip(cells.column("file"), cells.column("electrode")))
+    marks = _findings_by_cell(findings, keys)
     title = f"spikemeasure report: {len(inputs)} file" + ("" if len(inputs) == 1 else "s")
     parts = [
         "<!DOCTYPE html>", '<html lang="en">', "<head>", '<meta charset="utf-8">',
         '<meta name="viewport" content="width=device-width, initial-scale=1">',
-        f"<title>{_e(title)}</title>", f"<style>{_CSS}</style>", "</head>", "<body>",
-        f"<h1>{_e(title)}</h1>",
+        f"<title>{escaped(title)}</title>", f"<style>{_CSS}</style>", "</head>", "<body>",
+        f"<h1>{escaped(title)}</h1>",
         '<p class="caution">Research software: these results need review by a qualified '
         "person, who looks at the traces below; not for clinical decisions.</p>",
-        '<h2 id="run">Run</h2>',
     ]
-    parts += _run_section(record)
-    parts += _cells_section(record, cells, anchors)
-    parts += _figures_section(record, Path(folder), figured, anchors)
-    parts += ["</body>", "</html>", ""]
+    parts += top_summary(record, len(cells))
+    if not embed and figures.get("format"):
+        parts.append('<p class="caution">This page links the figures in the '
+                     "<code>figures</code> folder beside it (loaded as you scroll): copy or "
+                     "move the whole output folder with it, or the figures will be missing.</p>")
+    parts += _cells_section(record, cells, marks)
+    parts += _batch_section(record, cells, keys, embed)
+    parts += _cell_sections(record, cells, keys, per_cell, marks, folder, embed)
+    parts += record_section(record)
+    parts += [f"<script>{_SCRIPT}</script>", "</body>", "</html>", ""]
     return "\n".join(parts)
 
 
@@ -159,118 +192,180 @@ def _cell_figures(per_file: dict, cells: ColumnTable) -> dict[tuple[str, str], l
     return out
 
 
-def _cell_name(file: str, electrode: str) -> str:
-    return f"{file}, electrode {electrode}" if electrode else file
+def _findings_by_cell(findings: Sequence[dict], keys: list[tuple[str, str]]
+                      ) -> list[list[dict]]:
+    """Each cell's failed checks: those of its file and electrode, and those of its whole
+    file (no electrode)."""
+    marks: list[list[dict]] = [[] for _ in keys]
+    for finding in findings:
+        for k, (file, electrode) in enumerate(keys):
+            if finding.get("file") == file and finding.get("electrode", "") in ("", electrode):
+                marks[k].append(finding)
+    return marks
 
 
-def _run_section(record: dict) -> list[str]:
-    """The run's summary, failures, notes, files and parameters."""
-    totals = record.get("totals", {})
-    inputs = record.get("inputs", [])
-    failures = record.get("failures", [])
-    versions = record.get("versions", {})
-    status = _RUN_STATUS_TEXT.get(record.get("status") or (
-        "interrupted" if record.get("interrupted") else "complete"), "unknown")
-    summary_rows = [
-        ("started", record.get("started")), ("duration", f"{record.get('seconds', 0):g} s"),
-        ("status", status),
-        ("command", " ".join(map(str, record.get("command") or []))),
-        ("versions", ", ".join(f"{k} {v}" for k, v in versions.items())),
-        ("project file", record.get("config_file") or "none"),
-        ("files", len(inputs)),
-        ("measured", totals.get("files_measured", 0)),
-        ("kept from an earlier run", totals.get("files_reused", 0)),
-        ("failed", totals.get("files_failed", 0)),
-        ("not measured (interrupted)", sum(1 for i in inputs
-                                           if str(i.get("status", "")).startswith("not"))),
-        ("sweeps measured", totals.get("sweeps_measured", 0)),
-        ("spikes", totals.get("spikes", 0)),
-        ("problems", len(failures)),
-    ]
-    groups = record.get("groups")
-    if groups:
-        summary_rows.append(("groups", f"{groups['column']} from {groups['file']}"))
-    parts = [_table([], [(f"<b>{_e(k)}</b>", _e(v)) for k, v in summary_rows])]
-    parts.append(f'<h3 id="failures">Failures and problems ({len(failures)})</h3>')
-    if failures:
-        parts.append(_table(["file", "stage", "reason"],
-                            [(_e(_cell_name(f.get("file"), f.get("electrode", ""))),
-                              _e(f.get("stage")),
-                              f'<span class="failed">{_e(f.get("message"))}</span>')
-                             for f in failures]))
-    else:
-        parts.append("<p>None.</p>")
-    if record.get("notes"):
-        parts.append("<h3>Notes</h3><ul>" + "".join(f"<li>{_e(n)}</li>" for n in record["notes"])
-                     + "</ul>")
-    parts.append("<h3>Files</h3>")
-    parts.append(_table(["file", "status", "format", "sweeps", "measured", "spikes", "SHA-256"],
-                        [(_e(i.get("file")), _e(i.get("status")), _e(i.get("format") or ""),
-                          _e(i.get("sweeps", "")), _e(i.get("sweeps_measured", "")),
-                          _e(i.get("spikes", "")), f'<span class="small">{_e(i.get("sha256", ""))}'
-                          "</span>") for i in inputs],
-                        numeric=(False, False, False, True, True, True)))
-    parts.append("<h3>Parameters</h3>")
-    parts.append(_table(["parameter", "value"], [(_e(k), _e("not set" if v is None else v))
-                                                 for k, v in record.get("parameters", {}).items()]))
-    return parts
+def _anchor(k: int) -> str:
+    return f"cell-{k}"
 
 
-def _cells_section(record: dict, cells: ColumnTable, anchors: dict[str, str]) -> list[str]:
-    """The cells table, formatted as cells.csv, with each file's group when there are groups."""
-    cell_rows = cells.formatted_rows()
-    parts = [f'<h2 id="cells">Cells ({len(cell_rows)})</h2>']
-    groups = record.get("groups")
-    header = [c.name for c in CELL_COLUMNS]
-    members = (groups or {}).get("members")
-    if members is not None:
-        header.insert(1, groups["column"])
+def _cells_section(record: dict, cells: ColumnTable, marks: list[list[dict]]) -> list[str]:
+    """The cells table: rounded values with their flags, sortable, each row linked."""
+    parts = [f'<h2 id="cells">Cells ({len(cells)})</h2>']
+    if not len(cells):
+        return parts + ["<p>No cell could be measured.</p>"]
+    groups = record.get("groups") or {}
+    members = groups.get("members")
+    columns = shown_columns(cells.columns)
+    header = ["file"] + ([groups["column"]] if members is not None else []) + [
+        c.name for c in columns[1:]]
+    parts.append('<p class="small">Click a column\'s name to sort by it. Units are in the '
+                 "column names; every column is defined in docs/measurements.md "
+                 "(<code>spikemeasure columns</code>). Values are rounded to what the "
+                 "measurement supports: to two significant digits of the SD where the table "
+                 "has one (shown as value \u00b1 SD), else to the column's declared decimals; "
+                 "cells.csv holds them all. Flags in a value's place say why it is empty or "
+                 "what qualifies it. " + ("Cells marked \u2717 failed a quality check."
+                                         if any(marks) else "") + "</p>")
     rows = []
-    for file, electrode, row in zip(cells.column("file"), cells.column("electrode"), cell_rows):
-        cell = (file, electrode)
-        name = (f'<a href="#{anchors[cell]}">{_e(row[0])}</a>' if cell in anchors
-                else _e(row[0]))
-        group = [_e(members.get(file, "(no group)"))] if members is not None else []
-        rows.append([name] + group + [_e(v) for v in row[1:]])
-    if rows:
-        parts.append('<p class="small">Units are in the column names; every column is defined '
-                     "in docs/measurements.md (<code>spikemeasure columns</code>).</p>")
-        numeric = [c.decimals is not None or c.name == "sweeps" for c in CELL_COLUMNS[1:]]
-        parts.append(_table(header, rows, numeric=[False] + [False] * (members is not None)
-                            + numeric))
-    else:
-        parts.append("<p>No cell could be measured.</p>")
+    for k, (row, failed) in enumerate(zip(shown_rows(cells), marks)):
+        file = row[0].text
+        failed_columns = {f.get("column") for f in failed}
+        mark = (f' <span class="mark" title="{escaped(_checks_text(failed))}">\u2717</span>'
+                if failed else "")
+        html_cells = [f'<td><a href="#{_anchor(k)}">{escaped(file)}</a>{mark}</td>']
+        if members is not None:
+            html_cells.append(f"<td>{escaped(members.get(file, '(no group)'))}</td>")
+        for column, value in zip(columns[1:], row[1:]):
+            html_cells.append(_value_cell(column, value, column.name in failed_columns))
+        rows.append(f'<tr id="row-{k}">' + "".join(html_cells) + "</tr>")
+    head = "".join(f"<th>{escaped(h)}</th>" for h in header)
+    parts.append(f'<div class="wide"><table class="sortable" id="cells-table"><thead><tr>'
+                 f"{head}</tr></thead><tbody>" + "\n".join(rows) + "</tbody></table></div>")
     return parts
 
 
-def _figures_section(record: dict, folder: Path, per_cell: dict[tuple[str, str], list[str]],
-                     anchors: dict[tuple[str, str], str]) -> list[str]:
-    """The batch figure and each cell's figures, embedded up to EMBED_LIMIT_BYTES in all."""
+def _value_cell(column, value, failed: bool) -> str:
+    """One value of the cells table: its rounded text, the flags concerning it, the
+    unrounded value as the sort key, marked when a quality check failed on it."""
+    if column_kind(column) == "text":
+        if column.name == "flags":
+            return "<td>" + "; ".join(
+                f'<span title="{escaped(_flag_meaning(f))}">{escaped(f)}</span>'
+                for f in value.flags) + "</td>"
+        return f"<td>{escaped(value.text)}</td>"
+    sort = "" if math.isnan(value.sort_key) else repr(value.sort_key)
+    flags = "".join(f'<span class="flag" title="{escaped(_flag_meaning(f))}">{escaped(f)}'
+                    "</span>" for f in value.flags)
+    td = NUMERIC_TD[:-1] if not failed else '<td class="n check-failed"'
+    return f'{td} data-sort="{sort}">{escaped(value.text)}{flags}</td>'
+
+
+def _flag_meaning(flag: str) -> str:
+    from ..analysis.cell_features import CELL_FLAG_TEXT
+
+    return CELL_FLAG_TEXT.get(flag, "")
+
+
+def _checks_text(failed: list[dict]) -> str:
+    return "; ".join(f"{f.get('check')}: {f.get('message')}" for f in failed)
+
+
+def _shown_value(column_name: str, value: float) -> str:
+    from ..columns import CELL_COLUMNS
+
+    declared = next((c for c in CELL_COLUMNS if c.name == column_name), None)
+    return shown_number(value, declared.decimals if declared else 4)
+
+
+def _batch_section(record: dict, cells: ColumnTable, keys: list[tuple[str, str]],
+                   embed: bool) -> list[str]:
+    """The batch figure, inline: every point names its cell on hover and links to it; and
+    its file, linked when the page links its figures (or they are PDF)."""
+    if not len(cells):
+        return []
+    from ..figures.batch import batch_features_svg
+
+    groups = record.get("groups") or {}
+    svg = batch_features_svg(cell_values(cells), groups.get("members"),
+                             groups.get("column", "group"),
+                             labels=[cell_name(*key) for key in keys],
+                             links=[_anchor(k) for k in range(len(keys))],
+                             value_text=_shown_value)
+    parts = ['<h2 id="across-cells">Across cells</h2>',
+             '<p class="small">Each point is a cell: hover over it to see which, click it to '
+             "go to its figures. The short black lines are the group medians.</p>",
+             '<p id="hovered-cell" aria-live="polite"></p>', f"<figure>{svg}</figure>"]
+    batch = (record.get("figures") or {}).get("batch")
+    if batch and (not embed or Path(batch).suffix.lower() not in _MIME):
+        link = escaped(Path(batch).as_posix())
+        parts.append(f'<p class="small">The same figure as a file: <a href="{link}">{link}</a>'
+                     "</p>")
+    return parts
+
+
+def _cell_sections(record: dict, cells: ColumnTable, keys: list[tuple[str, str]],
+                   per_cell: dict[tuple[str, str], list[str]], marks: list[list[dict]],
+                   folder: Path, embed: bool) -> list[str]:
+    """Each cell: its name and group, its flags and failed checks, its figures."""
     figures = record.get("figures") or {}
-    if not figures.get("format"):
-        return ["<p>Figures were not drawn in this run (<code>--no-figures</code>).</p>"]
-    listed = [p for paths in per_cell.values() for p in paths]
-    if figures.get("batch"):
-        listed.append(figures["batch"])
-    size = sum((folder / p).stat().st_size for p in listed if (folder / p).is_file())
-    embed = size <= EMBED_LIMIT_BYTES
+    members = (record.get("groups") or {}).get("members")
+    flags = cells.column("flags") if "flags" in [c.name for c in cells.columns] else []
     parts = []
-    if figures.get("batch"):
-        parts.append('<h2 id="across-cells">Across cells</h2>')
-        parts.append(_image(folder, figures["batch"], "cell features across cells", embed))
-    if not embed:
-        parts.append(f"<p>The figures ({size / 1e6:.0f} MB) are linked, not embedded: copy "
-                     "the whole output folder with this page.</p>")
-    for cell, paths in per_cell.items():
-        name = _cell_name(*cell)
-        parts.append(f'<h2 id="{anchors[cell]}">{_e(name)}</h2>')
-        for p in paths:
+    if len(cells) and not figures.get("format"):
+        parts.append("<p>Figures were not drawn in this run (<code>--no-figures</code>).</p>")
+    for k, key in enumerate(keys):
+        name = cell_name(*key)
+        group = f" ({escaped(members.get(key[0], '(no group)'))})" if members is not None else ""
+        parts.append(f'<h2 id="{_anchor(k)}">{escaped(name)}{group}</h2>')
+        parts.append(f'<p class="small"><a href="#row-{k}">its row in the table</a></p>')
+        own = [f for f in str(flags[k]).split(";") if f] if len(flags) else []
+        if own:
+            parts.append("<ul>" + "".join(
+                f"<li><b>{escaped(f)}</b>: {escaped(_flag_meaning(f))}"
+                + (f" ({', '.join(FLAG_COLUMNS[f])})" if f in FLAG_COLUMNS else "") + "</li>"
+                for f in own) + "</ul>")
+        if marks[k]:
+            parts.append('<ul class="failed">' + "".join(
+                f"<li>failed check {escaped(f.get('check'))}: {escaped(f.get('message'))}</li>"
+                for f in marks[k]) + "</ul>")
+        for p in per_cell.get(key, []):
             what = Path(p).stem.replace("_", " ")
             parts.append(_image(folder, p, f"{what} of {name}", embed))
     return parts
 
 
-def write_report(path: str | os.PathLike, record: dict, cells: ColumnTable) -> Path:
+def _png_size(path: Path) -> tuple[int, int] | None:
+    """Width and height from a PNG's header (its first chunk, IHDR), or None."""
+    with open(path, "rb") as fh:
+        head = fh.read(24)
+    if len(head) < 24 or head[:8] != b"\x89PNG\r\n\x1a\n" or head[12:16] != b"IHDR":
+        return None
+    return struct.unpack(">II", head[16:24])
+
+
+def _image(folder: Path, relative: str, alt: str, embed: bool) -> str:
+    """An <img> of a figure (embedded, or linked and lazy-loaded), or a link to a PDF."""
+    path = folder / relative
+    suffix = Path(relative).suffix.lower()
+    link = escaped(Path(relative).as_posix())
+    if not path.is_file():
+        return f'<p class="failed">missing figure: {escaped(relative)}</p>'
+    if suffix not in _MIME:
+        return f'<p><a href="{link}">{escaped(alt)} ({escaped(suffix[1:].upper())})</a></p>'
+    size = _png_size(path) if suffix == ".png" else None
+    box = f' width="{size[0]}" height="{size[1]}"' if size else ""
+    if embed:
+        data = base64.b64encode(path.read_bytes()).decode("ascii")
+        src = f'src="data:{_MIME[suffix]};base64,{data}"'
+    else:
+        src = f'src="{link}" loading="lazy"'
+    return (f'<figure><img {src}{box} alt="{escaped(alt)}">'
+            f"<figcaption>{link}</figcaption></figure>")
+
+
+def write_report(path: str | os.PathLike, record: dict, cells: ColumnTable, *,
+                 mode: str | None = None, findings: Sequence[dict] = ()) -> Path:
     """Write :func:`report_html` to `path` atomically; figures are found beside it."""
     path = Path(path)
-    return write_text_atomic(path, report_html(record, cells, path.parent))
+    return write_text_atomic(path, report_html(record, cells, path.parent, mode=mode,
+                                               findings=findings))

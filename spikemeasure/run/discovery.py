@@ -17,7 +17,12 @@ from ..errors import InvalidSettingError, UnreadableInputError, printable_name
 from ..io import RECORDING_SUFFIXES
 from ..io.messages import os_reason
 
-__all__ = ["is_temporary", "RecordingSearch", "search_recordings", "find_recordings"]
+__all__ = ["is_temporary", "RecordingSearch", "search_recordings", "find_recordings",
+           "GROUPS_FILE_SUFFIX"]
+
+#: A file whose name ends so is a groups file (:func:`spikemeasure.report.read_groups`) kept
+#: beside the recordings, never taken for a recording in a folder.
+GROUPS_FILE_SUFFIX = ".groups.csv"
 
 _TEMPORARY = re.compile(r"^(~|\.~|\.#)|(~|\.tmp|\.temp|\.part|\.swp|\.crdownload|\.partial)$",
                         re.IGNORECASE)
@@ -117,6 +122,7 @@ def _walk_folder(given: Path, unit: int, root_real: str, skip: str | None, wante
                 target = os.path.realpath(entry.path) if link else None
                 is_dir = os.path.isdir(target) if link else entry.is_dir(follow_symlinks=False)
                 if not is_dir and (name.lower().startswith("readme") or is_temporary(name)
+                                   or name.lower().endswith(GROUPS_FILE_SUFFIX)
                                    or not wanted(rel + (name,), name)):
                     continue
                 if link and not _inside(target, root_real):
@@ -217,8 +223,9 @@ def search_recordings(paths, *, exclude: str | os.PathLike | None = None,
 
     Notes
     -----
-    - Hidden files and folders, README files and temporary files (:func:`is_temporary`) are
-      skipped. Files are sorted by their relative path, so the order is the same on every run.
+    - Hidden files and folders, README files, groups files (:data:`GROUPS_FILE_SUFFIX`) and
+      temporary files (:func:`is_temporary`) are skipped. Files are sorted by their relative
+      path, so the order is the same on every run.
     - In a folder, a symbolic link is followed only when its target lies inside the folder
       given; any other is a problem ("not followed"), as is a folder that cannot be entered
       or listed (no permission, a path longer than the system allows), a path given that does

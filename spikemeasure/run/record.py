@@ -123,12 +123,13 @@ class RunRecord:
         The run's parameters (as the file tasks take them).
     started : float
         The run's start (``time.time()``).
-    config_file, figure_format, groups
+    config_file, figure_format, groups, report_mode
         As :func:`~spikemeasure.run.measure_paths` takes them.
     """
 
     def __init__(self, summary: RunSummary, parameters: dict, started: float,
-                 config_file: str | None, figure_format: str | None, groups) -> None:
+                 config_file: str | None, figure_format: str | None, groups,
+                 report_mode: str | None = None) -> None:
         self.summary = summary
         self.out = summary.out_dir
         self.parameters = parameters
@@ -136,6 +137,7 @@ class RunRecord:
         self.config_file = config_file
         self.figure_format = figure_format
         self.groups = groups
+        self.report_mode = report_mode
         self.status = "complete"
         self.entries: list[dict] = []
         self.outcomes: list[FileOutcome | None] = []
@@ -221,7 +223,8 @@ class RunRecord:
                        "files_failed": counts.files_failed,
                        "sweeps_measured": counts.sweeps_measured, "spikes": counts.spikes},
             "figures": {"format": self.figure_format, "batch": batch_figure,
-                        "cells": {o.file: o.figures for o in self.done() if o.figures}},
+                        "cells": {o.file: o.figures for o in self.done() if o.figures},
+                        "report_mode": self.report_mode},
             "groups": None if groups is None else {"file": groups.path, "column": groups.label,
                                                    "members": groups.mapping},
             "notes": list(self.summary.notes),
@@ -251,7 +254,10 @@ class RunRecord:
         try:
             write_json(self.summary.record_path, record)
             self.started_record = True
-            write_report(self.summary.report_path, record, ColumnTable.empty(CELL_COLUMNS))
+            if self.report_mode == "none":  # an earlier run's report must not pass for this one's
+                self.summary.report_path.unlink(missing_ok=True)
+            else:
+                write_report(self.summary.report_path, record, ColumnTable.empty(CELL_COLUMNS))
         except OSError as exc:
             raise OutputWriteError(
                 f"{exc.filename or self.out}: cannot write ({exc.strerror or exc}); nothing "
@@ -312,10 +318,13 @@ class RunRecord:
                 f"({count_text(len(done), 'file')} finished in this run, kept "
                 "for a rerun where there was room). Free some space and run the same command "
                 "again") from exc
+        if self.report_mode == "none":
+            return
         from ..report import write_report
 
         try:
-            write_report(summary.report_path, record, summary.tables["cells"])
+            write_report(summary.report_path, record, summary.tables["cells"],
+                         mode=self.report_mode)
         except OSError as exc:
             raise OutputWriteError(
                 f"{summary.report_path}: cannot write the report ({exc.strerror or exc}); the "

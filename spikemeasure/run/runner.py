@@ -34,6 +34,7 @@ from typing import Callable
 
 from ..analysis.detection import DetectionSettings
 from ..errors import InvalidSettingError, SpikemeasureError
+from ..params import REPORT_PARAMETER
 from .cache import OutcomeCache
 from .execute import RunStopped, StopRequest, Task, execute_tasks
 from .folder import RunLock, prepare_output, remove_stale_temporaries
@@ -68,7 +69,8 @@ def measure_paths(paths: list[str], out_dir: str | Path,
                   extra_patterns: tuple[str, ...] = (), config_file: str | None = None,
                   cluster: str | None = None, cluster_timeout_s: float = 20.0,
                   figure_format: str | None = None, groups=None,
-                  progress: Callable[[dict], None] | None = None) -> RunSummary:
+                  progress: Callable[[dict], None] | None = None,
+                  report_mode: str | None = None) -> RunSummary:
     """Measure every recording under `paths`; write spikes.csv, sweeps.csv, cells.csv,
     errors.csv and run.json to `out_dir`.
 
@@ -114,6 +116,11 @@ def measure_paths(paths: list[str], out_dir: str | Path,
         :func:`~spikemeasure.report.read_groups`).
     progress : callable, optional
         Called with ``{"done", "total", "file", "line", "elapsed_s"}`` after each file.
+    report_mode : {'self-contained', 'linked', 'none'}, optional
+        How ``report.html`` holds the figures (see
+        :data:`~spikemeasure.params.REPORT_PARAMETER`); ``none`` writes no report (and
+        removes one an earlier run left in `out_dir`); None: self-contained up to
+        :data:`~spikemeasure.params.SELF_CONTAINED_MAX_CELLS` cells, linked beyond.
 
     Returns
     -------
@@ -125,7 +132,8 @@ def measure_paths(paths: list[str], out_dir: str | Path,
     Raises
     ------
     InvalidSettingError
-        `max_sweep_samples` is not a positive whole number.
+        `max_sweep_samples` is not a positive whole number, or `report_mode` not one of its
+        choices.
     RunStopped
         (a ``KeyboardInterrupt``) after Ctrl-C, SIGTERM or SIGHUP, once the tables of the files
         finished and run.json (``"status": "interrupted"``) are written; its ``signum`` is the
@@ -144,6 +152,8 @@ def measure_paths(paths: list[str], out_dir: str | Path,
     outright leaves ``"running"``.
     """
     _check_arguments(max_sweep_samples, figure_format)
+    if report_mode is not None:
+        REPORT_PARAMETER.check(report_mode)  # the parameter's own message for a bad value
     out = Path(out_dir)
     prepare_output(out)
     started = time.time()
@@ -155,7 +165,8 @@ def measure_paths(paths: list[str], out_dir: str | Path,
                   "max_sweep_samples": max_sweep_samples}
     # absolute: workers elsewhere (a cluster) may start in another folder
     figures = {"out": str(out.resolve()), "format": figure_format} if figure_format else None
-    run = RunRecord(summary, parameters, started, config_file, figure_format, groups)
+    run = RunRecord(summary, parameters, started, config_file, figure_format, groups,
+                    report_mode)
     with RunLock(out), StopRequest() as stop:
         remove_stale_temporaries(out)
         try:
