@@ -55,6 +55,10 @@ class Column:
         Exact definition, as used in the code.
     decimals : int or None
         Digits after the point in the CSV; None for text and integers.
+    shown_decimals : int or None
+        Digits after the point where a person reads the value without its SD (the report's
+        cells table and batch figure): what the measurement supports, fewer than the CSV
+        keeps. None: as `decimals`. See :attr:`report_decimals`.
     is_time : bool
         A time in seconds from the sweep's first sample. For the spike columns these are the
         fields :meth:`~spikemeasure.analysis.spikes.SpikeMeasurements.shifted` moves when a
@@ -72,6 +76,12 @@ class Column:
     decimals: int | None = None
     is_time: bool = False
     compute: Callable[[Any], Any] | None = None
+    shown_decimals: int | None = None
+
+    @property
+    def report_decimals(self) -> int | None:
+        """Digits after the point the report shows without an SD."""
+        return self.decimals if self.shown_decimals is None else self.shown_decimals
 
     def values_from(self, measured: Any) -> Any:
         """This column's values from measured results (see `compute`)."""
@@ -311,38 +321,38 @@ CELL_COLUMNS: tuple[Column, ...] = (
     _ELECTRODE,
     Column("sweeps", "", "Sweeps measured."),
     Column("resting_mv", "mV", f"Median baseline_mv over sweeps whose holding current is within "
-           f"{HOLDING_TOLERANCE_PA:g} pA of zero.", 4),
+           f"{HOLDING_TOLERANCE_PA:g} pA of zero.", 4, shown_decimals=1),
     Column("rheobase_pa", "pA", "The smallest step (stimulus_pa) with at least one spike in it; "
            "this and the other step values (f-I slope, input resistance, time constant, sag) "
            "use only sweeps whose stimulus_shape is `step`. "
            "It is known only to the protocol's resolution: see rheobase_resolution_pa. A "
            "smaller step whose spikes a gap may hide widens that resolution "
            "(`rheobase_skips_gap_sweeps`); one sampled too slowly to count spikes empties "
-           "rheobase (`spikes_not_counted_in_slow_sweeps`).", 2),
+           "rheobase (`spikes_not_counted_in_slow_sweeps`).", 2, shown_decimals=1),
     Column("ramp_rheobase_pa", "pA", "The smallest first_spike_current_pa over the sweeps "
            "whose stimulus is a ramp (flag `no_spiking_ramp` when ramps were measured and none "
-           "fired). Empty without ramps.", 2),
+           "fired). Empty without ramps.", 2, shown_decimals=1),
     Column("fi_slope_hz_per_pa", "Hz/pA", "Least-squares slope of firing_rate_hz on "
            "stimulus_pa over the steps at or above rheobase (at least 2) and below "
-           "block_stimulus_pa.", 5),
+           "block_stimulus_pa.", 5, shown_decimals=3),
     Column("max_firing_rate_hz", "Hz", "The largest firing_rate_hz of the cell's sweeps below "
-           "block_stimulus_pa.", 4),
+           "block_stimulus_pa.", 4, shown_decimals=1),
     Column("block_stimulus_pa", "pA", "The smallest step whose sweep has the flag "
            "`depolarization_block` (full spikes stopped early under the current); the f-I "
            "slope and the largest firing rate use only the steps below it. Empty when no "
-           "sweep shows block.", 2),
+           "sweep shows block.", 2, shown_decimals=1),
     Column("input_resistance_mohm", "MOhm", "Least-squares slope of (steady_state_mv - "
            "baseline_mv) on stimulus_pa over hyperpolarizing, spike-free sweeps (at least 2), "
            f"times 1000. A sweep sampled too slowly to count spikes counts as spike-free when no "
            f"sample of its step lies more than {SLOW_SWEEP_MAX_RISE_MV:g} mV above its baseline "
-           "(`slow_sweeps_taken_as_spike_free`).", 3),
+           "(`slow_sweeps_taken_as_spike_free`).", 3, shown_decimals=1),
     Column("input_resistance_mohm_sd", "MOhm", "SD of input_resistance_mohm that the "
            "recording's noise implies: sqrt(sum w_j^2 s_j^2), w_j = (I_j - mean I) / "
            "sum (I - mean I)^2 the slope's weights and s_j the SD of sweep j's "
            "steady_state_mv - baseline_mv from its baseline's noise spectrum (as for "
            "sag_fraction_sd); the slope's standard error for known errors (Bevington and "
            "Robinson 2003). Noise only: a sweep-to-sweep drift or a membrane that is not "
-           "linear is not in it.", 3),
+           "linear is not in it.", 3, shown_decimals=1),
     Column("bridge_error_mohm", "MOhm", "Uncompensated electrode (series) resistance: the "
            "median over the sweeps of input_resistance_mohm (those without gaps) of the "
            "instantaneous voltage jump at the step's onset over the step size (the offset, "
@@ -355,7 +365,7 @@ CELL_COLUMNS: tuple[Column, ...] = (
            f"line over the {EDGE_FIT_MS:g} ms before it. Empty, flagged "
            "`bridge_error_not_separable`, when the charging is too fast to tell from the "
            "jump. input_resistance_mohm includes it.",
-           3),
+           3, shown_decimals=1),
     Column("membrane_tau_ms", "ms", "Time constant of a single exponential fitted "
            "(scipy.optimize.curve_fit) to the voltage from onset to its minimum (on a "
            f"{TAU_SMOOTHING_MS:g} ms moving average; the fit ends where that average first "
@@ -370,31 +380,33 @@ CELL_COLUMNS: tuple[Column, ...] = (
            "over the noise. "
            f"Empty, flagged `tau_fit_poor`, when the residual RMS is over "
            f"{MAX_RESIDUAL_TO_NOISE:g} times the sweep's baseline noise (the response is not "
-           f"one exponential) or the deflection under {MIN_DEFLECTION_TO_NOISE:g} times it.", 4),
+           f"one exponential) or the deflection under {MIN_DEFLECTION_TO_NOISE:g} times it.", 4,
+           shown_decimals=2),
     Column("membrane_tau_ms_sd", "ms", "SD of membrane_tau_ms that the recording's noise "
            "implies: the fit linearized at its solution moves the parameters by P e for "
            "noise e (P the pseudo-inverse of the fit's Jacobian), whose covariance P C P^T "
            "(the sandwich form; for white noise the covariance curve_fit reports, Press et "
            "al. 2007) takes C from the power spectrum of the sweep's baseline window (of the "
            "fit's residual when a test pulse cut that window), as for sag_fraction_sd: "
-           "filtered, correlated noise and hum count for what they are.", 4),
+           "filtered, correlated noise and hum count for what they are.", 4, shown_decimals=2),
     Column("sag_fraction", "", "sag_fraction of the most hyperpolarizing sweep; 0, flagged "
            "`sag_within_noise`, when that sweep has the flag (see sag_fraction in sweeps.csv).",
-           5),
+           5, shown_decimals=3),
     Column("rheobase_threshold_mv", "mV", "threshold_mv of the first spike in the step of the "
-           "rheobase sweep.", 4),
-    Column("rheobase_amplitude_mv", "mV", "amplitude_mv of that spike.", 4),
-    Column("rheobase_half_width_ms", "ms", "half_width_ms of that spike.", 5),
-    Column("rheobase_ahp_depth_mv", "mV", "ahp_depth_mv of that spike.", 4),
+           "rheobase sweep.", 4, shown_decimals=1),
+    Column("rheobase_amplitude_mv", "mV", "amplitude_mv of that spike.", 4, shown_decimals=1),
+    Column("rheobase_half_width_ms", "ms", "half_width_ms of that spike.", 5, shown_decimals=3),
+    Column("rheobase_ahp_depth_mv", "mV", "ahp_depth_mv of that spike.", 4, shown_decimals=1),
     Column("rheobase_resolution_pa", "pA", "The gap between rheobase and the largest smaller "
            "step tested: the true rheobase lies in (rheobase_pa - this, rheobase_pa]. Empty when "
-           "the smallest step already evoked a spike.", 2),
+           "the smallest step already evoked a spike.", 2, shown_decimals=1),
     Column("membrane_tau_fit_r2", "", "R^2 of the time-constant fit over the fitted samples "
-           "(noise caps it: a good fit to a small deflection can have a low R^2).", 5),
+           "(noise caps it: a good fit to a small deflection can have a low R^2).", 5,
+           shown_decimals=3),
     Column("membrane_tau_residual_to_noise", "", "RMS residual of that fit over the sweep's "
            f"baseline_noise_mv (at least {NOISE_FLOOR_MV:g} mV): near 1 when one exponential "
            "explains all but "
-           "the noise.", 4),
+           "the noise.", 4, shown_decimals=2),
     Column("flags", "", "Why values are empty or less certain, separated by ';' (see the list of "
            "cell flags).", compute=_flags_text),
 )

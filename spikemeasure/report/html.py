@@ -274,7 +274,7 @@ def _shown_value(column_name: str, value: float) -> str:
     from ..columns import CELL_COLUMNS
 
     declared = next((c for c in CELL_COLUMNS if c.name == column_name), None)
-    return shown_number(value, declared.decimals if declared else 4)
+    return shown_number(value, declared.report_decimals if declared else 4)
 
 
 def _batch_section(record: dict, cells: ColumnTable, keys: list[tuple[str, str]],

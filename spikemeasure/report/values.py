@@ -5,9 +5,11 @@ The rule (also in docs/figures.md):
 
 - A column with an SD column (``NAME`` and ``NAME_sd``, both in the cells table): the SD is
   shown with two significant digits and the value to the same decimal place (never more
-  places than the column declares), as ``value ± SD``.
-- Any other column: the decimals its declaration gives (:data:`~spikemeasure.columns.
-  CELL_COLUMNS`), as cells.csv writes it; counts as whole numbers.
+  places than cells.csv keeps), as ``value ± SD``.
+- Any other column: the decimals its declaration gives for reading
+  (:attr:`~spikemeasure.columns.Column.report_decimals`: a tenth of a mV or pA, a
+  hundredth of a ms for the time constant, three for fractions and slopes; cells.csv keeps
+  more); counts as whole numbers.
 - An empty value (not measured) is empty; the flags of the cell that say why
   (:data:`FLAG_COLUMNS`) are shown in its place, and the flags that qualify a value beside it.
 """
@@ -154,6 +156,7 @@ def shown_rows(cells: ColumnTable) -> list[list[ShownValue]]:
             value = float(cells.column(c.name)[k])
             sd_name = c.name + SD_SUFFIX
             sd = float(cells.column(sd_name)[k]) if sd_name in names else math.nan
-            row.append(ShownValue(shown_number(value, c.decimals, sd), value, concerned))
+            decimals = c.decimals if math.isfinite(sd) and sd > 0 else c.report_decimals
+            row.append(ShownValue(shown_number(value, decimals, sd), value, concerned))
         rows.append(row)
     return rows

@@ -14,6 +14,7 @@ from click.testing import CliRunner
 from browser import find_chromium
 from conftest import RC_RATE_HZ as RATE, rc_cell_sweeps, step_command, write_nix
 from spikemeasure.cli import main
+from spikemeasure.columns import CELL_COLUMNS
 from spikemeasure.figures import BATCH_FIGURE_NAME, CELL_FIGURE_NAMES
 from spikemeasure.run import measure_paths
 
@@ -102,7 +103,10 @@ class TestReportContents:
             for name, value in row.items():
                 if name in ("file", "flags") or f"{name}_sd" in row or name.endswith("_sd"):
                     continue
-                # no SD: the CSV's own text, at the column's declared decimals
+                # no SD: the CSV's value at the column's declared reading precision
+                declared = next(c for c in CELL_COLUMNS if c.name == name)
+                if value and declared.decimals is not None:
+                    value = f"{float(value):.{declared.report_decimals}f}"
                 assert f">{value}<" in run["html"] or f">{value}<span" in run["html"], name
 
     def test_no_external_resources_and_one_inline_script(self, run):
