@@ -139,9 +139,10 @@ def fitted_extremes(x: np.ndarray, centre: np.ndarray, window: np.ndarray, order
 
     Notes
     -----
-    The fit is searched from one sample before to one sample after its centre; when its
-    extreme lies at the end of that span the window is moved one sample towards it and the
-    fit searched again (once), so an extreme up to two samples from the given centre is found.
+    The fit is searched from a quarter of its window (at least one sample) before its centre
+    to as far after it; when its extreme lies at the end of that span the window is moved that
+    far towards it and the fit searched again (once), so an extreme up to half a window (at
+    least two samples) from the given centre is found.
     The best grid point is refined with a parabola through it and its neighbours.
     """
     x = np.asarray(x, dtype=float)
@@ -161,7 +162,8 @@ def fitted_extremes(x: np.ndarray, centre: np.ndarray, window: np.ndarray, order
             rows = rows[inside]
             if rows.size == 0:
                 continue
-            grid = fit_weights(int(w), order, deriv)
+            reach = float(max(1, w // 4))
+            grid = fit_weights(int(w), order, deriv, reach)
             samples = x[centre[rows, None] + np.arange(-half, half + 1)]
             curve = sign * (samples @ grid.T)
             best = np.argmax(curve, axis=1)
@@ -169,7 +171,7 @@ def fitted_extremes(x: np.ndarray, centre: np.ndarray, window: np.ndarray, order
             at_end = (best == 0) | (best == last)
             if attempt == 0:
                 move = rows[at_end]
-                centre[move] += np.where(best[at_end] == 0, -1, 1)
+                centre[move] += np.where(best[at_end] == 0, -1, 1) * int(reach)
                 rows, curve, best = rows[~at_end], curve[~at_end], best[~at_end]
             pending[rows] = False
             best = np.clip(best, 1, last - 1)
@@ -179,7 +181,7 @@ def fitted_extremes(x: np.ndarray, centre: np.ndarray, window: np.ndarray, order
             with np.errstate(divide="ignore", invalid="ignore"):
                 delta = np.clip(np.where(bend < 0, 0.5 * (a - c) / bend, 0.0), -0.5, 0.5)
             step = 1.0 / GRID_PER_SAMPLE
-            position[rows] = centre[rows] - 1.0 + (best + delta) * step
+            position[rows] = centre[rows] - reach + (best + delta) * step
             value[rows] = sign * (b - 0.25 * (a - c) * delta)
             for k, g in zip(rows, best):
                 weights[k] = (int(centre[k] - half), grid[g])

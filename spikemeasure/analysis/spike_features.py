@@ -12,10 +12,11 @@ from scipy.signal import savgol_coeffs
 
 from ..errors import InvalidSettingError
 from .detection import SMOOTHING_POLYORDER, DetectedSpikes, DetectionSettings, SmoothedTrace
+from .local_fits import fitted_extremes, matched_windows
 from .spike_rates import noise_before
 from .sweeps import CurrentStep
 
-__all__ = ["spike_thresholds", "interpolated_peaks", "flat_peak_runs", "half_widths", "troughs",
+__all__ = ["spike_thresholds", "interpolated_peaks", "fitted_peaks", "peak_windows", "flat_peak_runs", "half_widths", "troughs",
            "search_ends", "onset_window", "ONSET_NOISE_FRACTION", "SPLINE_HALF_SAMPLES",
            "SECOND_DERIVATIVE_LOOKBACK_MS"]
 
@@ -372,6 +373,49 @@ def interpolated_peaks(voltage_mv: np.ndarray, peak_sample: np.ndarray
     index, value = _spline_peaks(voltage_mv, peak_sample)
     at_edge = (peak_sample <= 0) | (peak_sample >= voltage_mv.size - 1)
     return index, value, at_edge
+
+
+#: Polynomial order of the local fit whose maximum is the peak.
+PEAK_ORDER = 4
+#: The peak's fit window is the shortest whose noise SD at the peak is at most this (mV) ...
+PEAK_NOISE_MV = 0.2
+#: ... and at most this many times the spike's width at half amplitude.
+PEAK_WIDTH_FACTOR = 0.4
+
+
+def peak_windows(voltage_mv: np.ndarray, centre: np.ndarray, threshold_mv: np.ndarray,
+                 noise_mv: np.ndarray) -> np.ndarray:
+    """Window (samples) of each spike's peak fit: the shortest whose noise SD at the peak is
+    at most :data:`PEAK_NOISE_MV`, at most :data:`PEAK_WIDTH_FACTOR` times the number of
+    samples around `centre` above half the spike's amplitude (the sample at `centre` less
+    `threshold_mv`; where the threshold is unknown, the shortest window)."""
+    v = np.asarray(voltage_mv, dtype=float)
+    centre = np.asarray(centre, dtype=np.int64)
+    level = threshold_mv + 0.5 * (v[centre] - threshold_mv)
+    known = np.isfinite(level)
+    level = np.where(known, level, np.inf)
+    ends = np.minimum(centre + _FIRST_BELOW_HEAD, v.size)
+    after = _first_below(v, level, centre, ends)
+    before = _last_below(v, level, np.maximum(centre - _FIRST_BELOW_HEAD, 0), centre)
+    width = np.where(known & (after > 0) & (before >= 0), after - before - 1, 0)
+    widest = np.floor(PEAK_WIDTH_FACTOR * width).astype(np.int64)
+    windows = matched_windows(noise_mv, np.full(centre.size, PEAK_NOISE_MV), widest,
+                              PEAK_ORDER, 0, 1.0)
+    return np.where(windows <= widest, windows, 0)
+
+
+def fitted_peaks(voltage_mv: np.ndarray, peak_sample: np.ndarray, threshold_mv: np.ndarray,
+                 noise_mv: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Peak of each spike: the maximum of a local quartic fit (:func:`peak_windows`).
+
+    Returns (fractional index, value in mV); NaN where the window leaves the trace.
+    """
+    windows = peak_windows(voltage_mv, peak_sample, threshold_mv, noise_mv)
+    position, value = np.full(windows.size, np.nan), np.full(windows.size, np.nan)
+    fit = windows > 0
+    position[fit], value[fit], _ = fitted_extremes(voltage_mv, np.asarray(peak_sample)[fit],
+                                                   windows[fit], PEAK_ORDER, 0, True)
+    return position, value
 
 
 def flat_peak_runs(voltage_mv: np.ndarray, peak_sample: np.ndarray) -> np.ndarray:

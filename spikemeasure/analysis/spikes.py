@@ -17,9 +17,9 @@ import numpy as np
 from ..errors import InvalidSettingError
 from .detection import (DetectedSpikes, DetectionSettings, SmoothedTrace, detect_spikes,
                         smoothed_trace)
-from .spike_features import (flat_peak_runs, half_widths, interpolated_peaks, search_ends,
-                             spike_thresholds, troughs)
-from .spike_rates import rate_extremes
+from .spike_features import (fitted_peaks, flat_peak_runs, half_widths, interpolated_peaks,
+                             search_ends, spike_thresholds, troughs)
+from .spike_rates import noise_before, rate_extremes
 from .sweeps import CurrentStep
 
 __all__ = ["SpikeMeasurements", "spike_times", "first_in_step", "measure_spikes",
@@ -202,6 +202,9 @@ def measure_spikes_with_positions(trace: SmoothedTrace, detected: DetectedSpikes
     v = trace.voltage_mv
     thr_i, thr_mv = spike_thresholds(trace, detected, settings)
     peak_pos, peak_mv, at_edge = interpolated_peaks(v, detected.peak_sample)
+    fit_pos, fit_mv = fitted_peaks(v, detected.peak_sample, thr_mv, noise_before(v, thr_i))
+    fitted = np.isfinite(fit_mv)
+    peak_pos, peak_mv = np.where(fitted, fit_pos, peak_pos), np.where(fitted, fit_mv, peak_mv)
     # the step end bounds only the trough of a sweep's last spike, not its repolarization
     reach = settings.search_window_samples(rate)
     width_ends = search_ends(v.size, rate, thr_i, detected.onset_index, None,
