@@ -17,7 +17,7 @@ import numpy as np
 
 from ..errors import InvalidSettingError
 
-__all__ = ["fit_weights", "fit_noise_gain", "matched_windows", "fitted_extremes"]
+__all__ = ["fit_weights", "fit_noise_gain", "matched_windows", "fitted_extremes", "fit_weights_at"]
 
 #: Grid points per sample on which a fit's extreme is searched.
 GRID_PER_SAMPLE = 100
@@ -186,3 +186,42 @@ def fitted_extremes(x: np.ndarray, centre: np.ndarray, window: np.ndarray, order
             for k, g in zip(rows, best):
                 weights[k] = (int(centre[k] - half), grid[g])
     return position, value, weights
+
+
+def fit_weights_at(window: np.ndarray, offset: np.ndarray, order: int, deriv: int
+                   ) -> np.ndarray:
+    """Per extreme, the weights of its fit's `deriv`-th derivative at `offset` samples from
+    the window centre.
+
+    Parameters
+    ----------
+    window : ndarray of int
+        Odd window per extreme (0: none, a row of zeros).
+    offset : ndarray
+        Where the fit is read, in samples from the window centre.
+    order, deriv : int
+        As for :func:`fit_weights`.
+
+    Returns
+    -------
+    ndarray, shape (n, widest window)
+        Row k dotted with the samples centred on the window's centre (zero-padded either
+        side to the widest window) gives the value; the first-order change of an extreme
+        with the samples, its position held fixed.
+    """
+    window = np.asarray(window, dtype=np.int64)
+    offset = np.asarray(offset, dtype=float)
+    widest = int(window.max()) if window.size else 1
+    widest = max(widest, 1)
+    out = np.zeros((window.size, widest))
+    for w in np.unique(window[window > 0]):
+        rows = np.flatnonzero(window == w)
+        half = w // 2
+        x = np.arange(-half, half + 1, dtype=float)
+        solve = np.linalg.pinv(np.vander(x, order + 1, increasing=True))
+        basis = np.zeros((rows.size, order + 1))
+        for k in range(deriv, order + 1):
+            basis[:, k] = factorial(k) / factorial(k - deriv) * offset[rows] ** (k - deriv)
+        pad = (widest - w) // 2
+        out[rows, pad:pad + w] = basis @ solve
+    return out

@@ -18,7 +18,8 @@ from scipy.signal import savgol_coeffs
 from ..errors import InvalidSettingError
 from .detection import SMOOTHING_POLYORDER, DetectionSettings, smoothing_window_samples
 from .spikes import SpikeMeasurements
-from .spike_features import onset_window
+from .local_fits import fit_weights_at
+from .spike_features import PEAK_ORDER, onset_window, peak_windows
 from .spike_rates import max_rate_weights, noise_before
 from .sweeps import CurrentStep
 
@@ -337,14 +338,23 @@ def _threshold_terms(v: np.ndarray, kernels: dict, position: np.ndarray, peak: n
     return terms
 
 
-def _peak_terms(v: np.ndarray, position: np.ndarray) -> list[_Term]:
-    """Peak voltage: the spline through the largest sample p and three either side, at its
-    maximum; at a maximum the position's own shift changes the value only to second order."""
+def _peak_terms(v: np.ndarray, position: np.ndarray, threshold: np.ndarray,
+                threshold_mv: np.ndarray) -> list[_Term]:
+    """Peak voltage at its maximum (the position's own shift changes the value only to second
+    order there): the local quartic fit over the window
+    :func:`~spikemeasure.analysis.spike_features.peak_windows` chooses again, centred on the
+    nearest sample; where the spike is too narrow for a fit, the spline through the largest
+    sample p and three either side."""
     near = np.round(np.nan_to_num(position)).astype(np.int64)
     around = np.clip(near[:, None] + np.arange(-1, 2), 0, v.size - 1)
     p = around[np.arange(near.size), np.argmax(v[around], axis=1)]
     weights = _peak_spline()(np.clip(position - p, -1.0, 1.0))  # (n, 7)
-    return [(_UNIT, p + k, weights[:, k + 3]) for k in range(-3, 4)]
+    windows = peak_windows(v, p, threshold_mv, noise_before(v, threshold))
+    fit = windows > 0
+    weights[fit] = 0.0
+    spline = [(_UNIT, p + k, weights[:, k + 3]) for k in range(-3, 4)]
+    rows = fit_weights_at(windows, np.where(fit, position - near, 0.0), PEAK_ORDER, 0)
+    return spline + [(rows, near, fit.astype(float))]
 
 
 def _crossing_terms(v: np.ndarray, position: np.ndarray, level: list[_Term]) -> list[_Term]:
@@ -506,7 +516,7 @@ def spike_uncertainty(voltage_mv: np.ndarray, sampling_rate_hz: float,
     peak_at = np.asarray(spikes.peak_s, dtype=float) * rate
     peak_sample = np.round(np.nan_to_num(peak_at)).astype(np.int64)
     threshold = _threshold_terms(v, kernels, thr, peak_sample, settings)
-    peak = _peak_terms(v, peak_at)
+    peak = _peak_terms(v, peak_at, thr, np.asarray(spikes.threshold_mv, dtype=float))
     width = _width_terms(v, rate, np.asarray(spikes.half_width_start_s) * rate,
                          np.asarray(spikes.half_width_end_s) * rate, threshold, peak)
     ahp = threshold + _scaled(_trough_terms(kernels, np.asarray(spikes.trough_s) * rate), -1.0)
