@@ -13,10 +13,10 @@ from scipy.signal import savgol_coeffs
 from ..errors import InvalidSettingError
 from .detection import SMOOTHING_POLYORDER, DetectedSpikes, DetectionSettings, SmoothedTrace
 from .local_fits import fitted_extremes, matched_windows
-from .spike_rates import noise_before
+from .spike_rates import FALL_NOISE_FRACTION, FALL_WIDTH_FACTOR, noise_before
 from .sweeps import CurrentStep
 
-__all__ = ["spike_thresholds", "interpolated_peaks", "fitted_peaks", "peak_windows", "flat_peak_runs", "half_widths", "troughs",
+__all__ = ["spike_thresholds", "interpolated_peaks", "fitted_peaks", "peak_windows", "extreme_lines", "flat_peak_runs", "half_widths", "troughs",
            "search_ends", "onset_window", "ONSET_NOISE_FRACTION", "SPLINE_HALF_SAMPLES",
            "SECOND_DERIVATIVE_LOOKBACK_MS"]
 
@@ -569,3 +569,43 @@ def search_ends(n_samples: int, sampling_rate_hz: float, threshold_position: np.
     if peak_sample is not None and window_samples is not None:
         ends = np.minimum(ends, np.asarray(peak_sample, dtype=np.int64) + window_samples)
     return ends
+
+
+def extreme_lines() -> list[str]:
+    """The section of ``docs/measurements.md`` on the extremes found between samples."""
+    return [
+        "",
+        "## Extremes between samples",
+        "",
+        "The largest sample of a noisy spike lies above its true peak on average (among many "
+        "noisy values the largest is picked), and so does the largest value of a spline through "
+        "those samples; likewise the most negative value of a noisy derivative lies beyond the "
+        "true fastest fall. peak_mv and min_dvdt_v_per_s are instead the extreme of one "
+        "least-squares polynomial fitted to the raw samples around it (Savitzky and Golay "
+        "1964: a local polynomial fit; Fan and Gijbels 1996, ch. 3, on choosing its window "
+        "between noise and bias). A fit has few degrees of freedom, so its extreme follows "
+        "the noise far less than a curve through every sample does.",
+        "",
+        "Each window is matched twice: to the noise, measured before the spike's threshold "
+        "(1.4826 times the median absolute second difference, divided by sqrt(6); Rousseeuw "
+        "and Croux 1993), as the shortest window whose noise at the extreme is small enough; "
+        "and to the extreme itself, never wider than a fraction of its own width, where a "
+        "low-order polynomial still follows it. A quartic (peak) passes a symmetric extreme's "
+        "curvature and its fourth-order term; a quintic (fall) passes the asymmetry of the "
+        "fall's dV/dt too. Numbers: peak, the shortest window whose noise SD at the peak is at "
+        f"most {PEAK_NOISE_MV:g} mV, at most {PEAK_WIDTH_FACTOR:g} times the width at half "
+        "amplitude (where even the seven samples a quartic fit needs are wider than that, "
+        "the cubic spline through the largest sample and three samples either side is kept); "
+        f"fall, at most {FALL_NOISE_FRACTION * 100:g} % of the fall's rate, at most "
+        f"{FALL_WIDTH_FACTOR:g} times the span where dV/dt is beyond half its most negative "
+        "value (on a local quadratic fit's dV/dt over `--rate-smoothing`). The extreme is "
+        "searched on a grid of 1/100 sample within a quarter of the window of its centre and "
+        "refined with a parabola; the window moves once when the extreme lies at the end of "
+        "that span.",
+        "",
+        "max_dvdt_v_per_s keeps the quintic spline through the (noise-matched smoothed) "
+        "samples: the rise's peak of dV/dt is narrow, a few samples at 10 kHz, and the spline "
+        "already meets its target there. The trough keeps the smoothed voltage's minimum: a "
+        "fit over a window narrow enough for the fast afterhyperpolarization at 10 kHz "
+        "scattered more than the smoothed minimum's bias.",
+    ]

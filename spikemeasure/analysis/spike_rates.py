@@ -267,10 +267,10 @@ def max_rate_weights(voltage_mv: np.ndarray, sampling_rate_hz: float,
 #: Polynomial order of the local fit whose derivative gives min dV/dt.
 FALL_ORDER = 5
 #: The fit's window is the shortest whose rate noise SD is at most this fraction of the rate.
-FALL_NOISE_FRACTION = 0.02
+FALL_NOISE_FRACTION = 0.03
 #: ... and at most this many times the width of the fall (where dV/dt is beyond half its
 #: extreme).
-FALL_WIDTH_FACTOR = 1.0
+FALL_WIDTH_FACTOR = 0.7
 _FALL_PILOT_ORDER = 2
 
 

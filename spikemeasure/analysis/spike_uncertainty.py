@@ -408,6 +408,7 @@ def _sd(terms: list[_Term], noise: NoiseModel, n_samples: int) -> np.ndarray:
     pos, w = np.concatenate(positions, axis=1), np.concatenate(weights, axis=1)
     valid = np.isfinite(w).all(axis=1) & ((pos >= 0) & (pos < n_samples)).all(axis=1)
     pos, w = _merged(pos, np.where(valid[:, None], w, 0.0))
+    pos, w = _nonzero_first(pos, w)
     acov = noise.autocovariance_mv2
     variance = np.empty(pos.shape[0])
     per_block = max(1, _QUADRATIC_ELEMENTS // max(1, pos.shape[1] ** 2))
@@ -417,6 +418,16 @@ def _sd(terms: list[_Term], noise: NoiseModel, n_samples: int) -> np.ndarray:
         cov = np.where(lag < acov.size, acov[np.minimum(lag, acov.size - 1)], 0.0)
         variance[a:a + per_block] = np.einsum("ni,nij,nj->n", ww, cov, ww)
     return np.where(valid, np.sqrt(np.clip(variance, 0.0, None)), np.nan)
+
+
+def _nonzero_first(pos: np.ndarray, w: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The same weights with each spike's zero weights (padding of shorter windows) moved to
+    the end and the columns no spike needs dropped, so the quadratic form runs over the
+    positions that count."""
+    order = np.argsort(w == 0.0, axis=1, kind="stable")
+    width = max(1, int(np.count_nonzero(w, axis=1).max())) if w.size else 1
+    order = order[:, :width]
+    return np.take_along_axis(pos, order, axis=1), np.take_along_axis(w, order, axis=1)
 
 
 def _merged(pos: np.ndarray, w: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -598,7 +609,7 @@ def uncertainty_lines() -> list[str]:
         "Each value is, to first order, a weighted sum w of the samples around its spike, "
         "with weights from the estimator's own steps: the Savitzky-Golay weights of the "
         "smoothed voltage and dV/dt (Savitzky and Golay 1964), the linear interpolation of a "
-        "crossing, the cubic spline at the peak, the parabola at an extreme. The SD is "
+        "crossing, the local polynomial fit at the peak, the parabola at an extreme. The SD is "
         "sqrt(w' C w), C the measured autocovariance (first-order propagation of error, "
         "Bevington and Robinson 2003). Per value:",
         "",
@@ -607,8 +618,10 @@ def uncertainty_lines() -> list[str]:
         "-e / d2V/dt2 (for "
         "`max_rate_fraction`, the level moves with the largest dV/dt too); empty with "
         "`second_derivative_peak`, whose time is not a smooth function of the samples.",
-        "- peak: the spline's value at its maximum (a shift of the maximum's position changes "
-        "the value only to second order); likewise the trough on the smoothed voltage.",
+        "- peak: the local quartic fit's value at its maximum, through the window the peak "
+        "was fitted over (the spline's, where no fit was made); a shift of the maximum's "
+        "position changes the value only to second order. Likewise the trough on the smoothed "
+        "voltage.",
         "- max dV/dt: the derivative of the quintic spline at its extreme, through the samples "
         "smoothed by the noise-matched local quartic fit: those two sets of weights "
         "convolved.",
