@@ -51,12 +51,15 @@ class NoiseModel:
     sampling_rate_hz : float
     start, stop : int
         The stretch it was measured on (sample indices, stop exclusive).
+    drift_mv_per_s : float, optional
+        Slope of the least-squares line removed from the stretch (0: none).
     """
 
     autocovariance_mv2: np.ndarray
     sampling_rate_hz: float
     start: int
     stop: int
+    drift_mv_per_s: float = 0.0
 
     @property
     def sd_mv(self) -> float:
@@ -180,7 +183,8 @@ def measured_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start: int, 
     size = 1 << int(np.ceil(np.log2(2 * n)))
     spectrum = np.fft.rfft(x, size)
     acov = np.fft.irfft(spectrum * spectrum.conj(), size)[:n] / n
-    return NoiseModel(acov, float(sampling_rate_hz), int(start), int(stop))
+    return NoiseModel(acov, float(sampling_rate_hz), int(start), int(stop),
+                      float(slope * sampling_rate_hz))
 
 
 def _longest_finite_run(finite: np.ndarray, offset: int) -> tuple[int, int]:
@@ -284,14 +288,59 @@ def _onset_slope_weights(v: np.ndarray, rate_hz: float, position: np.ndarray, lo
     """Per spike, the dV/dt weights (V/s per mV) of the local quadratic fit whose window
     :func:`~spikemeasure.analysis.spike_features.onset_window` chose for its threshold
     crossing, padded to a common odd length (n, longest)."""
+    return _onset_slopes_and_windows(v, rate_hz, position, longest, level)[0]
+
+
+def _onset_slopes_and_windows(v: np.ndarray, rate_hz: float, position: np.ndarray,
+                              longest: int, level: float) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`_onset_slope_weights`, and the window of each spike."""
     noise = noise_before(v, np.asarray(position, dtype=float) - longest)
     out = np.zeros((np.asarray(position).size, longest))
+    windows = np.zeros(np.asarray(position).size, dtype=np.int64)
     for k, sigma in enumerate(noise):
         window = onset_window(sigma, rate_hz, level, longest)
         pad = (longest - window) // 2
         out[k, pad:pad + window] = savgol_coeffs(window, SMOOTHING_POLYORDER, deriv=1,
                                                  delta=1e3 / rate_hz, use="dot")
-    return out
+        windows[k] = window
+    return out, windows
+
+
+def _onset_smoothing_bias(v: np.ndarray, kernels: dict, position: np.ndarray,
+                          settings: DetectionSettings) -> np.ndarray:
+    """Per spike, how far (mV) the onset window's smoothing may have moved the threshold
+    voltage: 0 unless the threshold is the ``onset_rate`` crossing.
+
+    The dV/dt of a local quadratic fit over 2m + 1 samples reads a rate whose own curvature
+    (d3V/dt3, per sample**2) is c high by c (3 m**2 + 3 m - 1) / 30 [1]_ (the fit's sums of
+    x**4 and x**2); at the crossing that moves the time by that over the rate's step per
+    sample, and the voltage by the voltage's step times that. The curvature is read from
+    the same dV/dt, m samples (at least one) either side of the crossing.
+
+    References
+    ----------
+    .. [1] A. Savitzky and M. J. E. Golay, "Smoothing and differentiation of data by
+       simplified least squares procedures", Analytical Chemistry 36(8):1627-1639, 1964.
+    """
+    n = np.asarray(position).size
+    if settings.threshold_method != "onset_rate" or n == 0:
+        return np.zeros(n)
+    smooth, slope = kernels["smooth"], kernels["slope"]
+    slopes, windows = _onset_slopes_and_windows(v, kernels["rate_hz"], position, slope.window,
+                                                settings.onset_rate_v_per_s)
+    i = np.floor(np.nan_to_num(position)).astype(np.int64)
+    centre = np.round(np.nan_to_num(position)).astype(np.int64)
+    half = windows // 2
+    spacing = np.maximum(1, half)
+    bend = (_rows_dot(v, slopes, centre + spacing) - 2.0 * _rows_dot(v, slopes, centre)
+            + _rows_dot(v, slopes, centre - spacing)) / spacing ** 2
+    excess = bend * (3 * half * half + 3 * half - 1) / 30.0
+    d_step = _rows_dot(v, slopes, i + 1) - _rows_dot(v, slopes, i)
+    s_step = (_windows(v, smooth.centre_weights, i + 1)
+              - _windows(v, smooth.centre_weights, i))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        moved = np.abs(s_step * excess / d_step)
+    return np.where(np.isfinite(moved), moved, 0.0)
 
 
 def _rows_dot(v: np.ndarray, rows: np.ndarray, centre: np.ndarray) -> np.ndarray:
@@ -368,6 +417,20 @@ def _crossing_terms(v: np.ndarray, position: np.ndarray, level: list[_Term]) -> 
     inverse = 1.0 / np.where(step != 0.0, step, np.nan)
     return (_scaled(level, inverse)
             + [(_UNIT, k, -(1.0 - b) * inverse), (_UNIT, k + 1, -b * inverse)])
+
+
+def _crossing_time_per_mv(v: np.ndarray, rate: float, start: np.ndarray, end: np.ndarray
+                          ) -> np.ndarray:
+    """How much (ms) the half-width changes per mV of its level: the level moves both
+    crossings, each by the change over the voltage's slope between the samples around it;
+    0 where a crossing is unknown."""
+    total = np.zeros(np.asarray(start).size)
+    for position in (start, end):
+        k = np.clip(np.floor(np.nan_to_num(position)).astype(np.int64), 0, v.size - 2)
+        step = np.abs(v[k + 1] - v[k])
+        with np.errstate(divide="ignore"):
+            total += np.where(np.isfinite(position) & (step > 0), 1.0 / step, 0.0)
+    return total * 1e3 / rate
 
 
 def _width_terms(v: np.ndarray, rate: float, start: np.ndarray, end: np.ndarray,
@@ -537,10 +600,23 @@ def spike_uncertainty(voltage_mv: np.ndarray, sampling_rate_hz: float,
               "max_dvdt_v_per_s_sd": (_max_rate_terms(v, rate, thr, peak_at, settings),
                                       spikes.max_dvdt_v_per_s),
               "ahp_depth_mv_sd": (ahp, spikes.ahp_depth_mv)}
+    # the onset window's smoothing bias is no noise, but the value is that uncertain too;
+    # so is an absolute voltage by the baseline's drift since the quiet stretch
+    bias = _onset_smoothing_bias(v, kernels, thr, settings)
+    since_s = np.abs(np.nan_to_num(peak_at) - 0.5 * (noise.start + noise.stop)) / rate
+    drift = np.abs(noise.drift_mv_per_s) * since_s
+    extra = {"threshold_mv_sd": np.hypot(bias, drift), "peak_mv_sd": drift,
+             "ahp_depth_mv_sd": bias,
+             "half_width_ms_sd": 0.5 * bias * _crossing_time_per_mv(
+                 v, rate, np.asarray(spikes.half_width_start_s) * rate,
+                 np.asarray(spikes.half_width_end_s) * rate)}
     out = {}
     for name, (terms, value) in values.items():
         known = np.isfinite(np.asarray(value, dtype=float))
-        out[name] = np.where(known, _sd(terms, noise, v.size), np.nan)
+        sd = _sd(terms, noise, v.size)
+        if name in extra:
+            sd = np.hypot(sd, extra[name])
+        out[name] = np.where(known, sd, np.nan)
     return SpikeUncertainty(**out)
 
 
@@ -590,7 +666,11 @@ def uncertainty_lines() -> list[str]:
         "ahp_depth_mv_sd are the SDs that the recording's own noise implies for each value: "
         "how far the value would move if the same spike were recorded again with new noise "
         "of the same kind. They do not cover a bias of the estimator itself (a window that "
-        "flattens a sharp extreme, a filter before the digitizer).",
+        "flattens a sharp extreme, a filter before the digitizer), with two exceptions the "
+        "recording itself measures, added in quadrature: the smoothing bias of the threshold's "
+        "onset window (in threshold_mv_sd, ahp_depth_mv_sd and, through the half-amplitude "
+        "level, half_width_ms_sd) and the baseline's drift (in threshold_mv_sd and "
+        "peak_mv_sd).",
         "",
         "The noise is measured on the sweep's quiet stretch: from the start of the stretch "
         "the baseline may use to the onset of the main stimulus (its last "
@@ -629,6 +709,18 @@ def uncertainty_lines() -> list[str]:
         "the level - change of the voltage) / slope of the voltage there.",
         "- AHP depth: threshold minus trough as one weighted sum, so noise common to both (a "
         "slow hum) cancels as it does in the value.",
+        "- The onset window's smoothing bias: the dV/dt of a local quadratic fit over 2m + 1 "
+        "samples reads a rate of curvature c (d3V/dt3 per sample squared) c (3 m^2 + 3 m - "
+        "1) / 30 high (the fit's sums of x^4 and x^2; Savitzky and Golay 1964), which moves "
+        "the crossing of the onset rate earlier by that over the rate's step per sample and "
+        "the threshold voltage by the voltage's step times that; c is read from the same "
+        "dV/dt m samples (at least one) either side of the crossing. Half of it moves the "
+        "half-amplitude level, and so the half-width by that over the voltage's slope at "
+        "each crossing.",
+        "- The drift: the slope of the line removed from the quiet stretch, times the time "
+        "from the stretch's middle to the peak, is how far the baseline may have moved under "
+        "an absolute voltage (threshold, peak) by then; amplitude, AHP depth and half-width "
+        "are differences, which it does not move.",
         "",
         "Calibration (tests/analysis/test_spike_uncertainty.py): on recordings simulated "
         "from published models (Hodgkin and Huxley 1952, Wang and Buzsaki 1996, an adapting "

@@ -189,8 +189,19 @@ class TestKnownAnswers:
         v, s = spikes
         small = spike_uncertainty(v, self.RATE, s, _white(0.1, self.RATE))
         large = spike_uncertainty(v, self.RATE, s, _white(0.4, self.RATE))
-        for name in SD_COLUMNS:
+        # the onset window's smoothing bias (the same at any noise) adds in quadrature to
+        # threshold, AHP depth and half-width: their squares differ by 15 x the noise part
+        for name in ("peak_mv_sd", "max_dvdt_v_per_s_sd"):
             np.testing.assert_allclose(getattr(large, name), 4 * getattr(small, name))
+        # threshold, AHP depth and half-width: their squares are 4**2 (or 2**2) x the noise
+        # part plus a part the noise does not change, the same from either pair of levels
+        middle = spike_uncertainty(v, self.RATE, s, _white(0.2, self.RATE))
+        for name in ("threshold_mv_sd", "ahp_depth_mv_sd", "half_width_ms_sd"):
+            little = getattr(small, name) ** 2
+            fixed_4 = (16 * little - getattr(large, name) ** 2) / 15
+            fixed_2 = (4 * little - getattr(middle, name) ** 2) / 3
+            np.testing.assert_allclose(fixed_4, fixed_2, rtol=1e-6, atol=1e-12 * little.max())
+            assert np.all(fixed_4 >= 0) and np.all(fixed_4 < 0.01 * little)
 
     def test_empty_value_empty_sd_and_unknown_noise(self, spikes):
         v, s = spikes
