@@ -51,15 +51,12 @@ class NoiseModel:
     sampling_rate_hz : float
     start, stop : int
         The stretch it was measured on (sample indices, stop exclusive).
-    drift_mv_per_s : float, optional
-        Slope of the least-squares line removed from the stretch (0: none).
     """
 
     autocovariance_mv2: np.ndarray
     sampling_rate_hz: float
     start: int
     stop: int
-    drift_mv_per_s: float = 0.0
 
     @property
     def sd_mv(self) -> float:
@@ -183,8 +180,7 @@ def measured_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start: int, 
     size = 1 << int(np.ceil(np.log2(2 * n)))
     spectrum = np.fft.rfft(x, size)
     acov = np.fft.irfft(spectrum * spectrum.conj(), size)[:n] / n
-    return NoiseModel(acov, float(sampling_rate_hz), int(start), int(stop),
-                      float(slope * sampling_rate_hz))
+    return NoiseModel(acov, float(sampling_rate_hz), int(start), int(stop))
 
 
 def _longest_finite_run(finite: np.ndarray, offset: int) -> tuple[int, int]:
@@ -600,13 +596,9 @@ def spike_uncertainty(voltage_mv: np.ndarray, sampling_rate_hz: float,
               "max_dvdt_v_per_s_sd": (_max_rate_terms(v, rate, thr, peak_at, settings),
                                       spikes.max_dvdt_v_per_s),
               "ahp_depth_mv_sd": (ahp, spikes.ahp_depth_mv)}
-    # the onset window's smoothing bias is no noise, but the value is that uncertain too;
-    # so is an absolute voltage by the baseline's drift since the quiet stretch
+    # the onset window's smoothing bias is no noise, but the value is that uncertain too
     bias = _onset_smoothing_bias(v, kernels, thr, settings)
-    since_s = np.abs(np.nan_to_num(peak_at) - 0.5 * (noise.start + noise.stop)) / rate
-    drift = np.abs(noise.drift_mv_per_s) * since_s
-    extra = {"threshold_mv_sd": np.hypot(bias, drift), "peak_mv_sd": drift,
-             "ahp_depth_mv_sd": bias,
+    extra = {"threshold_mv_sd": bias, "ahp_depth_mv_sd": bias,
              "half_width_ms_sd": 0.5 * bias * _crossing_time_per_mv(
                  v, rate, np.asarray(spikes.half_width_start_s) * rate,
                  np.asarray(spikes.half_width_end_s) * rate)}
@@ -666,11 +658,10 @@ def uncertainty_lines() -> list[str]:
         "ahp_depth_mv_sd are the SDs that the recording's own noise implies for each value: "
         "how far the value would move if the same spike were recorded again with new noise "
         "of the same kind. They do not cover a bias of the estimator itself (a window that "
-        "flattens a sharp extreme, a filter before the digitizer), with two exceptions the "
-        "recording itself measures, added in quadrature: the smoothing bias of the threshold's "
-        "onset window (in threshold_mv_sd, ahp_depth_mv_sd and, through the half-amplitude "
-        "level, half_width_ms_sd) and the baseline's drift (in threshold_mv_sd and "
-        "peak_mv_sd).",
+        "flattens a sharp extreme, a filter before the digitizer, a baseline drift), with one "
+        "exception the recording itself measures, added in quadrature: the smoothing bias of "
+        "the threshold's onset window (in threshold_mv_sd, ahp_depth_mv_sd and, through the "
+        "half-amplitude level, half_width_ms_sd).",
         "",
         "The noise is measured on the sweep's quiet stretch: from the start of the stretch "
         "the baseline may use to the onset of the main stimulus (its last "
@@ -717,10 +708,6 @@ def uncertainty_lines() -> list[str]:
         "dV/dt m samples (at least one) either side of the crossing. Half of it moves the "
         "half-amplitude level, and so the half-width by that over the voltage's slope at "
         "each crossing.",
-        "- The drift: the slope of the line removed from the quiet stretch, times the time "
-        "from the stretch's middle to the peak, is how far the baseline may have moved under "
-        "an absolute voltage (threshold, peak) by then; amplitude, AHP depth and half-width "
-        "are differences, which it does not move.",
         "",
         "Calibration (tests/analysis/test_spike_uncertainty.py): on recordings simulated "
         "from published models (Hodgkin and Huxley 1952, Wang and Buzsaki 1996, an adapting "
