@@ -16,7 +16,8 @@ from .local_fits import fitted_extremes, matched_windows
 from .spike_rates import FALL_NOISE_FRACTION, FALL_WIDTH_FACTOR, noise_before
 from .sweeps import CurrentStep
 
-__all__ = ["spike_thresholds", "interpolated_peaks", "fitted_peaks", "peak_windows", "extreme_lines", "flat_peak_runs", "half_widths", "troughs",
+__all__ = ["spike_thresholds", "interpolated_peaks", "fitted_peaks", "peak_windows", "extreme_lines",
+           "PEAK_ORDER", "PEAK_NOISE_MV", "PEAK_WIDTH_FACTOR", "flat_peak_runs", "half_widths", "troughs",
            "search_ends", "onset_window", "ONSET_NOISE_FRACTION", "SPLINE_HALF_SAMPLES",
            "SECOND_DERIVATIVE_LOOKBACK_MS"]
 

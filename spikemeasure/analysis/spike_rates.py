@@ -16,7 +16,8 @@ from .detection import smoothing_window_samples
 from .local_fits import fitted_extremes, matched_windows
 
 __all__ = ["rate_extremes", "max_rate_weights", "noise_before", "RATE_SPLINE_HALF_SAMPLES", "NOISE_SAMPLES",
-           "RATE_NOISE_FRACTION", "RATE_POLYORDER"]
+           "RATE_NOISE_FRACTION", "RATE_POLYORDER", "FALL_ORDER", "FALL_NOISE_FRACTION",
+           "FALL_WIDTH_FACTOR"]
 
 _SPLINE_STEPS = 400  # grid points from -1 to +1 sample around the extreme
 
@@ -126,7 +127,10 @@ def rate_extremes(voltage_mv: np.ndarray, sampling_rate_hz: float,
 
     Notes
     -----
-    Per spike and per extreme:
+    The most negative dV/dt is the extreme of a local quintic fit's derivative
+    (:func:`_fall_rates`: its window the shortest whose rate noise is at most
+    :data:`FALL_NOISE_FRACTION` of the fall's rate and at most :data:`FALL_WIDTH_FACTOR`
+    times the fall's width). The largest, per spike:
 
     1. The noise SD sigma is measured before threshold (:func:`noise_before`).
     2. The smoothing window is the shortest (none, then 7, 9, ... samples up to

@@ -179,7 +179,8 @@ def measure_spikes(trace: SmoothedTrace, detected: DetectedSpikes,
     them with their columns):
 
     - threshold: see :func:`spike_thresholds`.
-    - peak: :func:`interpolated_peaks`; amplitude = peak - threshold.
+    - peak: :func:`fitted_peaks` (:func:`interpolated_peaks` where the spike is too narrow
+      for a fit); amplitude = peak - threshold.
     - half-width: :func:`half_widths`; rise time = peak time - threshold time.
     - max dV/dt: the largest dV/dt from threshold to peak; min dV/dt: the most negative from
       peak to trough (:func:`rate_extremes`, with the shorter ``rate_smoothing_ms`` window).
