@@ -23,7 +23,9 @@ from .analysis.cell_features import (CELL_FLAG_TEXT, END_FRACTION, FILTER_DELAY_
                             SAG_NOISE_FACTOR, SLOW_SWEEP_MAX_RISE_MV, TAU_SMOOTHING_MS)
 from .analysis.epochs import (MAX_EDGE_MS, MIN_LEVEL_CHANGE_PA, NOISE_MULTIPLE,
                               RESIDUAL_WINDOW_MS)
-from .analysis.spike_features import SECOND_DERIVATIVE_LOOKBACK_MS
+from .analysis.spike_features import (ONSET_NOISE_FRACTION, PEAK_NOISE_MV, PEAK_WIDTH_FACTOR,
+                                      SECOND_DERIVATIVE_LOOKBACK_MS, extreme_lines)
+from .analysis.spike_rates import FALL_NOISE_FRACTION, FALL_WIDTH_FACTOR
 from .analysis.spike_uncertainty import MIN_QUIET_MS, sd_values, uncertainty_lines
 from .analysis.sweeps import COMMAND_MEDIAN_SAMPLES
 from .analysis.spikes import CLIPPED_RUN_SAMPLES, FLAG_TEXT, PIECE_SAMPLES
@@ -148,7 +150,7 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
            "smoothed dV/dt before the peak, linearly "
            "interpolated between samples; that dV/dt is a local quadratic fit over the "
            "shortest window (3 samples or more) whose noise SD, from the noise measured before "
-           "the onset, is at most 10 % of the onset rate, never longer than "
+           f"the onset, is at most {ONSET_NOISE_FRACTION * 100:g} % of the onset rate, never longer than "
            f"{_option('smoothing_ms')}: a longer window than the noise needs moves the "
            "crossing of an accelerating rising phase earlier. `max_rate_fraction`: the last upward crossing of "
            f"{_option('threshold_fraction')} ({_default('threshold_fraction')}) times the "
@@ -163,9 +165,14 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
            "(see *Uncertainty of spike values*). Empty with `--threshold-method "
            "second_derivative_peak`, and when the sweep has no stimulus or no quiet stretch "
            f"of {MIN_QUIET_MS:g} ms before it.", 4, compute=partial(sd_values, name="threshold_mv_sd")),
-    Column("peak_s", "s", "Time of the peak: the maximum of the cubic spline through the largest "
-           "raw sample between threshold and the end of the rise and three samples either side, "
-           "so a peak falling between samples is found.", 7, is_time=True),
+    Column("peak_s", "s", "Time of the peak, between samples: the maximum of a local quartic "
+           "least-squares fit around the largest raw sample between threshold and the end of "
+           "the rise, over the shortest window whose noise at the peak, from the noise "
+           f"measured before threshold, is at most {PEAK_NOISE_MV:g} mV, and at most "
+           f"{PEAK_WIDTH_FACTOR:g} times the spike's "
+           "width at half amplitude; where even 7 samples are wider than that (a narrow spike "
+           "sampled coarsely), the maximum of the cubic spline through the largest sample and "
+           "three samples either side. See *Extremes between samples*.", 7, is_time=True),
     Column("peak_mv", "mV", "Voltage at that maximum.", 4),
     Column("peak_mv_sd", "mV", "SD of peak_mv that the recording's noise implies.", 4,
            compute=partial(sd_values, name="peak_mv_sd")),
@@ -188,8 +195,13 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
            "detection section.", 3),
     Column("max_dvdt_v_per_s_sd", "V/s", "SD of max_dvdt_v_per_s that the recording's noise "
            "implies.", 3, compute=partial(sd_values, name="max_dvdt_v_per_s_sd")),
-    Column("min_dvdt_v_per_s", "V/s", "Most negative dV/dt from peak to trough, measured as "
-           "max_dvdt_v_per_s is.", 3),
+    Column("min_dvdt_v_per_s", "V/s", "Most negative dV/dt from peak to trough, between "
+           "samples: the minimum of the derivative of a local quintic least-squares fit around "
+           "the steepest fall, over the shortest window whose rate noise, from the noise "
+           f"measured before threshold, is at most {FALL_NOISE_FRACTION * 100:g} % of the fall's "
+           f"rate, and at most {FALL_WIDTH_FACTOR:g} times the fall's width (where dV/dt is "
+           "beyond half its extreme). See *Extremes "
+           "between samples*.", 3),
     Column("trough_s", "s", "Time of the minimum of the smoothed voltage after the peak and "
            "before the next spike's threshold; for a sweep's last spike, up to the end of the "
            "current step when the spike lies inside one, else to the end of the sweep. (A last "
@@ -467,6 +479,7 @@ def columns_markdown() -> str:
     lines += ["", "## Cell flags", ""] + _flag_rows(CELL_FLAG_TEXT)
     lines += _stimulus_lines()
     lines += _detection_lines(DetectionSettings()) + _long_recording_lines()
+    lines += extreme_lines()
     lines += uncertainty_lines()
     return "\n".join(lines)
 

@@ -13,9 +13,11 @@ from scipy.interpolate import make_interp_spline
 from scipy.signal import savgol_coeffs
 
 from .detection import smoothing_window_samples
+from .local_fits import fitted_extremes, matched_windows
 
 __all__ = ["rate_extremes", "max_rate_weights", "noise_before", "RATE_SPLINE_HALF_SAMPLES", "NOISE_SAMPLES",
-           "RATE_NOISE_FRACTION", "RATE_POLYORDER"]
+           "RATE_NOISE_FRACTION", "RATE_POLYORDER", "FALL_ORDER", "FALL_NOISE_FRACTION",
+           "FALL_WIDTH_FACTOR"]
 
 _SPLINE_STEPS = 400  # grid points from -1 to +1 sample around the extreme
 
@@ -125,7 +127,10 @@ def rate_extremes(voltage_mv: np.ndarray, sampling_rate_hz: float,
 
     Notes
     -----
-    Per spike and per extreme:
+    The most negative dV/dt is the extreme of a local quintic fit's derivative
+    (:func:`_fall_rates`: its window the shortest whose rate noise is at most
+    :data:`FALL_NOISE_FRACTION` of the fall's rate and at most :data:`FALL_WIDTH_FACTOR`
+    times the fall's width). The largest, per spike:
 
     1. The noise SD sigma is measured before threshold (:func:`noise_before`).
     2. The smoothing window is the shortest (none, then 7, 9, ... samples up to
@@ -158,12 +163,10 @@ def rate_extremes(voltage_mv: np.ndarray, sampling_rate_hz: float,
     smallest = np.full(n, np.nan)
     for k in range(n):
         p = int(round(peak_position[k]))
-        t, tr = threshold_position[k], trough_position[k]
+        t = threshold_position[k]
         if np.isfinite(t):
             largest[k] = _rate_extreme(v, int(np.floor(t)), p, noise[k], longest, True) * fs / 1e3
-        if np.isfinite(tr):
-            smallest[k] = _rate_extreme(v, p, int(np.ceil(tr)), noise[k], longest,
-                                        False) * fs / 1e3
+    smallest = _fall_rates(v, peak_position, trough_position, noise, longest) * fs / 1e3
     return largest, smallest
 
 
@@ -263,3 +266,52 @@ def max_rate_weights(voltage_mv: np.ndarray, sampling_rate_hz: float,
             weights[k, pad:pad + w.size] = w * fs / 1e3
             centre[k] = j
     return centre, weights
+
+
+#: Polynomial order of the local fit whose derivative gives min dV/dt.
+FALL_ORDER = 5
+#: The fit's window is the shortest whose rate noise SD is at most this fraction of the rate.
+FALL_NOISE_FRACTION = 0.03
+#: ... and at most this many times the width of the fall (where dV/dt is beyond half its
+#: extreme).
+FALL_WIDTH_FACTOR = 0.7
+_FALL_PILOT_ORDER = 2
+
+
+def _fall_pilots(v: np.ndarray, peak_position: np.ndarray, trough_position: np.ndarray,
+                 pilot_window: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Per spike, from a local quadratic fit's dV/dt over `pilot_window` samples between peak
+    and trough: the sample of the steepest fall, its rate (per sample) and the fall's width
+    (samples where the rate is beyond half of it); -1, NaN, 0 where not measurable."""
+    n = np.asarray(peak_position).size
+    centre, rate, width = np.full(n, -1, dtype=np.int64), np.full(n, np.nan), np.zeros(n, int)
+    half = pilot_window // 2
+    coeffs = savgol_coeffs(pilot_window, _FALL_PILOT_ORDER, deriv=1, use="conv")
+    for k in range(n):
+        if not (np.isfinite(peak_position[k]) and np.isfinite(trough_position[k])):
+            continue
+        a = int(round(peak_position[k]))
+        b = min(int(np.ceil(trough_position[k])), v.size - 1 - half)
+        if a - half < 0 or b <= a:
+            continue
+        slope = np.convolve(v[a - half:b + half + 1], coeffs, mode="valid")
+        j = int(np.argmin(slope))
+        below = slope <= 0.5 * slope[j]
+        lo = j - (np.argmin(below[j::-1]) if not below[j::-1].all() else j + 1) + 1
+        hi = j + (np.argmin(below[j:]) if not below[j:].all() else below.size - j) - 1
+        centre[k], rate[k], width[k] = a + j, slope[j], hi - lo + 1
+    return centre, rate, width
+
+
+def _fall_rates(v: np.ndarray, peak_position: np.ndarray, trough_position: np.ndarray,
+                noise: np.ndarray, pilot_window: int) -> np.ndarray:
+    """Most negative dV/dt (per sample) from peak to trough: the extreme of a local
+    polynomial fit's derivative over a window matched to the noise and the fall's width."""
+    centre, rate, width = _fall_pilots(v, peak_position, trough_position, pilot_window)
+    out = np.full(centre.size, np.nan)
+    ok = centre >= 0
+    if ok.any():
+        windows = matched_windows(noise[ok], rate[ok], FALL_WIDTH_FACTOR * width[ok],
+                                  FALL_ORDER, 1, FALL_NOISE_FRACTION)
+        out[ok] = fitted_extremes(v, centre[ok], windows, FALL_ORDER, 1, largest=False)[1]
+    return out

@@ -18,7 +18,8 @@ from scipy.signal import savgol_coeffs
 from ..errors import InvalidSettingError
 from .detection import SMOOTHING_POLYORDER, DetectionSettings, smoothing_window_samples
 from .spikes import SpikeMeasurements
-from .spike_features import onset_window
+from .local_fits import fit_weights_at
+from .spike_features import PEAK_ORDER, onset_window, peak_windows
 from .spike_rates import max_rate_weights, noise_before
 from .sweeps import CurrentStep
 
@@ -283,14 +284,59 @@ def _onset_slope_weights(v: np.ndarray, rate_hz: float, position: np.ndarray, lo
     """Per spike, the dV/dt weights (V/s per mV) of the local quadratic fit whose window
     :func:`~spikemeasure.analysis.spike_features.onset_window` chose for its threshold
     crossing, padded to a common odd length (n, longest)."""
+    return _onset_slopes_and_windows(v, rate_hz, position, longest, level)[0]
+
+
+def _onset_slopes_and_windows(v: np.ndarray, rate_hz: float, position: np.ndarray,
+                              longest: int, level: float) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`_onset_slope_weights`, and the window of each spike."""
     noise = noise_before(v, np.asarray(position, dtype=float) - longest)
     out = np.zeros((np.asarray(position).size, longest))
+    windows = np.zeros(np.asarray(position).size, dtype=np.int64)
     for k, sigma in enumerate(noise):
         window = onset_window(sigma, rate_hz, level, longest)
         pad = (longest - window) // 2
         out[k, pad:pad + window] = savgol_coeffs(window, SMOOTHING_POLYORDER, deriv=1,
                                                  delta=1e3 / rate_hz, use="dot")
-    return out
+        windows[k] = window
+    return out, windows
+
+
+def _onset_smoothing_bias(v: np.ndarray, kernels: dict, position: np.ndarray,
+                          settings: DetectionSettings) -> np.ndarray:
+    """Per spike, how far (mV) the onset window's smoothing may have moved the threshold
+    voltage: 0 unless the threshold is the ``onset_rate`` crossing.
+
+    The dV/dt of a local quadratic fit over 2m + 1 samples reads a rate whose own curvature
+    (d3V/dt3, per sample**2) is c high by c (3 m**2 + 3 m - 1) / 30 [1]_ (the fit's sums of
+    x**4 and x**2); at the crossing that moves the time by that over the rate's step per
+    sample, and the voltage by the voltage's step times that. The curvature is read from
+    the same dV/dt, m samples (at least one) either side of the crossing.
+
+    References
+    ----------
+    .. [1] A. Savitzky and M. J. E. Golay, "Smoothing and differentiation of data by
+       simplified least squares procedures", Analytical Chemistry 36(8):1627-1639, 1964.
+    """
+    n = np.asarray(position).size
+    if settings.threshold_method != "onset_rate" or n == 0:
+        return np.zeros(n)
+    smooth, slope = kernels["smooth"], kernels["slope"]
+    slopes, windows = _onset_slopes_and_windows(v, kernels["rate_hz"], position, slope.window,
+                                                settings.onset_rate_v_per_s)
+    i = np.floor(np.nan_to_num(position)).astype(np.int64)
+    centre = np.round(np.nan_to_num(position)).astype(np.int64)
+    half = windows // 2
+    spacing = np.maximum(1, half)
+    bend = (_rows_dot(v, slopes, centre + spacing) - 2.0 * _rows_dot(v, slopes, centre)
+            + _rows_dot(v, slopes, centre - spacing)) / spacing ** 2
+    excess = bend * (3 * half * half + 3 * half - 1) / 30.0
+    d_step = _rows_dot(v, slopes, i + 1) - _rows_dot(v, slopes, i)
+    s_step = (_windows(v, smooth.centre_weights, i + 1)
+              - _windows(v, smooth.centre_weights, i))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        moved = np.abs(s_step * excess / d_step)
+    return np.where(np.isfinite(moved), moved, 0.0)
 
 
 def _rows_dot(v: np.ndarray, rows: np.ndarray, centre: np.ndarray) -> np.ndarray:
@@ -337,14 +383,23 @@ def _threshold_terms(v: np.ndarray, kernels: dict, position: np.ndarray, peak: n
     return terms
 
 
-def _peak_terms(v: np.ndarray, position: np.ndarray) -> list[_Term]:
-    """Peak voltage: the spline through the largest sample p and three either side, at its
-    maximum; at a maximum the position's own shift changes the value only to second order."""
+def _peak_terms(v: np.ndarray, position: np.ndarray, threshold: np.ndarray,
+                threshold_mv: np.ndarray) -> list[_Term]:
+    """Peak voltage at its maximum (the position's own shift changes the value only to second
+    order there): the local quartic fit over the window
+    :func:`~spikemeasure.analysis.spike_features.peak_windows` chooses again, centred on the
+    nearest sample; where the spike is too narrow for a fit, the spline through the largest
+    sample p and three either side."""
     near = np.round(np.nan_to_num(position)).astype(np.int64)
     around = np.clip(near[:, None] + np.arange(-1, 2), 0, v.size - 1)
     p = around[np.arange(near.size), np.argmax(v[around], axis=1)]
     weights = _peak_spline()(np.clip(position - p, -1.0, 1.0))  # (n, 7)
-    return [(_UNIT, p + k, weights[:, k + 3]) for k in range(-3, 4)]
+    windows = peak_windows(v, p, threshold_mv, noise_before(v, threshold))
+    fit = windows > 0
+    weights[fit] = 0.0
+    spline = [(_UNIT, p + k, weights[:, k + 3]) for k in range(-3, 4)]
+    rows = fit_weights_at(windows, np.where(fit, position - near, 0.0), PEAK_ORDER, 0)
+    return spline + [(rows, near, fit.astype(float))]
 
 
 def _crossing_terms(v: np.ndarray, position: np.ndarray, level: list[_Term]) -> list[_Term]:
@@ -358,6 +413,20 @@ def _crossing_terms(v: np.ndarray, position: np.ndarray, level: list[_Term]) -> 
     inverse = 1.0 / np.where(step != 0.0, step, np.nan)
     return (_scaled(level, inverse)
             + [(_UNIT, k, -(1.0 - b) * inverse), (_UNIT, k + 1, -b * inverse)])
+
+
+def _crossing_time_per_mv(v: np.ndarray, rate: float, start: np.ndarray, end: np.ndarray
+                          ) -> np.ndarray:
+    """How much (ms) the half-width changes per mV of its level: the level moves both
+    crossings, each by the change over the voltage's slope between the samples around it;
+    0 where a crossing is unknown."""
+    total = np.zeros(np.asarray(start).size)
+    for position in (start, end):
+        k = np.clip(np.floor(np.nan_to_num(position)).astype(np.int64), 0, v.size - 2)
+        step = np.abs(v[k + 1] - v[k])
+        with np.errstate(divide="ignore"):
+            total += np.where(np.isfinite(position) & (step > 0), 1.0 / step, 0.0)
+    return total * 1e3 / rate
 
 
 def _width_terms(v: np.ndarray, rate: float, start: np.ndarray, end: np.ndarray,
@@ -398,6 +467,7 @@ def _sd(terms: list[_Term], noise: NoiseModel, n_samples: int) -> np.ndarray:
     pos, w = np.concatenate(positions, axis=1), np.concatenate(weights, axis=1)
     valid = np.isfinite(w).all(axis=1) & ((pos >= 0) & (pos < n_samples)).all(axis=1)
     pos, w = _merged(pos, np.where(valid[:, None], w, 0.0))
+    pos, w = _nonzero_first(pos, w)
     acov = noise.autocovariance_mv2
     variance = np.empty(pos.shape[0])
     per_block = max(1, _QUADRATIC_ELEMENTS // max(1, pos.shape[1] ** 2))
@@ -407,6 +477,16 @@ def _sd(terms: list[_Term], noise: NoiseModel, n_samples: int) -> np.ndarray:
         cov = np.where(lag < acov.size, acov[np.minimum(lag, acov.size - 1)], 0.0)
         variance[a:a + per_block] = np.einsum("ni,nij,nj->n", ww, cov, ww)
     return np.where(valid, np.sqrt(np.clip(variance, 0.0, None)), np.nan)
+
+
+def _nonzero_first(pos: np.ndarray, w: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The same weights with each spike's zero weights (padding of shorter windows) moved to
+    the end and the columns no spike needs dropped, so the quadratic form runs over the
+    positions that count."""
+    order = np.argsort(w == 0.0, axis=1, kind="stable")
+    width = max(1, int(np.count_nonzero(w, axis=1).max())) if w.size else 1
+    order = order[:, :width]
+    return np.take_along_axis(pos, order, axis=1), np.take_along_axis(w, order, axis=1)
 
 
 def _merged(pos: np.ndarray, w: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -506,7 +586,7 @@ def spike_uncertainty(voltage_mv: np.ndarray, sampling_rate_hz: float,
     peak_at = np.asarray(spikes.peak_s, dtype=float) * rate
     peak_sample = np.round(np.nan_to_num(peak_at)).astype(np.int64)
     threshold = _threshold_terms(v, kernels, thr, peak_sample, settings)
-    peak = _peak_terms(v, peak_at)
+    peak = _peak_terms(v, peak_at, thr, np.asarray(spikes.threshold_mv, dtype=float))
     width = _width_terms(v, rate, np.asarray(spikes.half_width_start_s) * rate,
                          np.asarray(spikes.half_width_end_s) * rate, threshold, peak)
     ahp = threshold + _scaled(_trough_terms(kernels, np.asarray(spikes.trough_s) * rate), -1.0)
@@ -516,10 +596,19 @@ def spike_uncertainty(voltage_mv: np.ndarray, sampling_rate_hz: float,
               "max_dvdt_v_per_s_sd": (_max_rate_terms(v, rate, thr, peak_at, settings),
                                       spikes.max_dvdt_v_per_s),
               "ahp_depth_mv_sd": (ahp, spikes.ahp_depth_mv)}
+    # the onset window's smoothing bias is no noise, but the value is that uncertain too
+    bias = _onset_smoothing_bias(v, kernels, thr, settings)
+    extra = {"threshold_mv_sd": bias, "ahp_depth_mv_sd": bias,
+             "half_width_ms_sd": 0.5 * bias * _crossing_time_per_mv(
+                 v, rate, np.asarray(spikes.half_width_start_s) * rate,
+                 np.asarray(spikes.half_width_end_s) * rate)}
     out = {}
     for name, (terms, value) in values.items():
         known = np.isfinite(np.asarray(value, dtype=float))
-        out[name] = np.where(known, _sd(terms, noise, v.size), np.nan)
+        sd = _sd(terms, noise, v.size)
+        if name in extra:
+            sd = np.hypot(sd, extra[name])
+        out[name] = np.where(known, sd, np.nan)
     return SpikeUncertainty(**out)
 
 
@@ -569,7 +658,10 @@ def uncertainty_lines() -> list[str]:
         "ahp_depth_mv_sd are the SDs that the recording's own noise implies for each value: "
         "how far the value would move if the same spike were recorded again with new noise "
         "of the same kind. They do not cover a bias of the estimator itself (a window that "
-        "flattens a sharp extreme, a filter before the digitizer).",
+        "flattens a sharp extreme, a filter before the digitizer, a baseline drift), with one "
+        "exception the recording itself measures, added in quadrature: the smoothing bias of "
+        "the threshold's onset window (in threshold_mv_sd, ahp_depth_mv_sd and, through the "
+        "half-amplitude level, half_width_ms_sd).",
         "",
         "The noise is measured on the sweep's quiet stretch: from the start of the stretch "
         "the baseline may use to the onset of the main stimulus (its last "
@@ -588,7 +680,7 @@ def uncertainty_lines() -> list[str]:
         "Each value is, to first order, a weighted sum w of the samples around its spike, "
         "with weights from the estimator's own steps: the Savitzky-Golay weights of the "
         "smoothed voltage and dV/dt (Savitzky and Golay 1964), the linear interpolation of a "
-        "crossing, the cubic spline at the peak, the parabola at an extreme. The SD is "
+        "crossing, the local polynomial fit at the peak, the parabola at an extreme. The SD is "
         "sqrt(w' C w), C the measured autocovariance (first-order propagation of error, "
         "Bevington and Robinson 2003). Per value:",
         "",
@@ -597,8 +689,10 @@ def uncertainty_lines() -> list[str]:
         "-e / d2V/dt2 (for "
         "`max_rate_fraction`, the level moves with the largest dV/dt too); empty with "
         "`second_derivative_peak`, whose time is not a smooth function of the samples.",
-        "- peak: the spline's value at its maximum (a shift of the maximum's position changes "
-        "the value only to second order); likewise the trough on the smoothed voltage.",
+        "- peak: the local quartic fit's value at its maximum, through the window the peak "
+        "was fitted over (the spline's, where no fit was made); a shift of the maximum's "
+        "position changes the value only to second order. Likewise the trough on the smoothed "
+        "voltage.",
         "- max dV/dt: the derivative of the quintic spline at its extreme, through the samples "
         "smoothed by the noise-matched local quartic fit: those two sets of weights "
         "convolved.",
@@ -606,6 +700,14 @@ def uncertainty_lines() -> list[str]:
         "the level - change of the voltage) / slope of the voltage there.",
         "- AHP depth: threshold minus trough as one weighted sum, so noise common to both (a "
         "slow hum) cancels as it does in the value.",
+        "- The onset window's smoothing bias: the dV/dt of a local quadratic fit over 2m + 1 "
+        "samples reads a rate of curvature c (d3V/dt3 per sample squared) c (3 m^2 + 3 m - "
+        "1) / 30 high (the fit's sums of x^4 and x^2; Savitzky and Golay 1964), which moves "
+        "the crossing of the onset rate earlier by that over the rate's step per sample and "
+        "the threshold voltage by the voltage's step times that; c is read from the same "
+        "dV/dt m samples (at least one) either side of the crossing. Half of it moves the "
+        "half-amplitude level, and so the half-width by that over the voltage's slope at "
+        "each crossing.",
         "",
         "Calibration (tests/analysis/test_spike_uncertainty.py): on recordings simulated "
         "from published models (Hodgkin and Huxley 1952, Wang and Buzsaki 1996, an adapting "

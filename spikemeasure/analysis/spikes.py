@@ -17,9 +17,9 @@ import numpy as np
 from ..errors import InvalidSettingError
 from .detection import (DetectedSpikes, DetectionSettings, SmoothedTrace, detect_spikes,
                         smoothed_trace)
-from .spike_features import (flat_peak_runs, half_widths, interpolated_peaks, search_ends,
-                             spike_thresholds, troughs)
-from .spike_rates import rate_extremes
+from .spike_features import (fitted_peaks, flat_peak_runs, half_widths, interpolated_peaks,
+                             search_ends, spike_thresholds, troughs)
+from .spike_rates import noise_before, rate_extremes
 from .sweeps import CurrentStep
 
 __all__ = ["SpikeMeasurements", "spike_times", "first_in_step", "measure_spikes",
@@ -179,7 +179,8 @@ def measure_spikes(trace: SmoothedTrace, detected: DetectedSpikes,
     them with their columns):
 
     - threshold: see :func:`spike_thresholds`.
-    - peak: :func:`interpolated_peaks`; amplitude = peak - threshold.
+    - peak: :func:`fitted_peaks` (:func:`interpolated_peaks` where the spike is too narrow
+      for a fit); amplitude = peak - threshold.
     - half-width: :func:`half_widths`; rise time = peak time - threshold time.
     - max dV/dt: the largest dV/dt from threshold to peak; min dV/dt: the most negative from
       peak to trough (:func:`rate_extremes`, with the shorter ``rate_smoothing_ms`` window).
@@ -202,6 +203,9 @@ def measure_spikes_with_positions(trace: SmoothedTrace, detected: DetectedSpikes
     v = trace.voltage_mv
     thr_i, thr_mv = spike_thresholds(trace, detected, settings)
     peak_pos, peak_mv, at_edge = interpolated_peaks(v, detected.peak_sample)
+    fit_pos, fit_mv = fitted_peaks(v, detected.peak_sample, thr_mv, noise_before(v, thr_i))
+    fitted = np.isfinite(fit_mv)
+    peak_pos, peak_mv = np.where(fitted, fit_pos, peak_pos), np.where(fitted, fit_mv, peak_mv)
     # the step end bounds only the trough of a sweep's last spike, not its repolarization
     reach = settings.search_window_samples(rate)
     width_ends = search_ends(v.size, rate, thr_i, detected.onset_index, None,

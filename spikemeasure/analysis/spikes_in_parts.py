@@ -15,8 +15,8 @@ import numpy as np
 from ..errors import InvalidSettingError
 from .detection import (DetectedSpikes, DetectionSettings, SmoothedTrace, detect_spikes,
                         smoothed_trace, smoothing_window_samples)
-from .spike_features import SPLINE_HALF_SAMPLES
-from .spike_rates import NOISE_SAMPLES, RATE_SPLINE_HALF_SAMPLES
+from .spike_features import SPLINE_HALF_SAMPLES, peak_windows
+from .spike_rates import NOISE_SAMPLES, RATE_SPLINE_HALF_SAMPLES, noise_before
 from .spikes import (GAP_FLAG, PIECE_SAMPLES, SpikeMeasurements, measure_spikes,
                      measure_spikes_with_positions, spike_times)
 from .sweeps import CurrentStep
@@ -66,6 +66,10 @@ def _blank_near_gaps(spikes: SpikeMeasurements, detected: DetectedSpikes, extra:
     high = n - 1 - edge if gap_after else np.inf     # last one
     onset, peak = detected.onset_index, detected.peak_sample
     reach = settings.search_window_samples(rate)
+    # the peak's local fit spans its window and may move by a quarter of it
+    peak_windows_used = peak_windows(trace.voltage_mv, peak, spikes.threshold_mv,
+                                     noise_before(trace.voltage_mv, spikes.threshold_s * rate))
+    peak_reach = np.maximum(SPLINE_HALF_SAMPLES, 3 * peak_windows_used // 4 + 1)
     if settings.threshold_method == "onset_rate":
         # the crossing is found again (a noise-matched window) around the onset sample, with
         # the noise measured in the NOISE_SAMPLES before onset - window
@@ -80,7 +84,7 @@ def _blank_near_gaps(spikes: SpikeMeasurements, detected: DetectedSpikes, extra:
         # reach rate_reach beyond threshold and trough (the peak, for the rise)
         "rates": (onset - trace.window - NOISE_SAMPLES - rate_reach < low - edge)
                  | (np.maximum(extra["trough_ends"], peak) + rate_reach > high + edge),
-        "peak": (peak - SPLINE_HALF_SAMPLES < low) | (peak + trace.window // 2 + SPLINE_HALF_SAMPLES > high),
+        "peak": (peak - peak_reach < low) | (peak + trace.window // 2 + peak_reach > high),
         # a half-width whose downward crossing was found is the first crossing, as without the
         # gap; one not found may have been cut short by it
         "width": ~np.isfinite(extra["down"]) & (extra["width_ends"] > high),

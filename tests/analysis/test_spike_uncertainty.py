@@ -16,6 +16,8 @@ from spikemeasure.analysis.spike_uncertainty import (
     MIN_QUIET_MS, SD_COLUMNS, NoiseModel, SpikesWithUncertainty, measured_noise, quiet_stretch,
     sd_values, spike_uncertainty, with_uncertainty)
 from spikemeasure.analysis.spikes import SpikeMeasurements, measure_trace
+from spikemeasure.analysis.spike_features import PEAK_ORDER, peak_windows
+from spikemeasure.analysis.spike_rates import noise_before
 from spikemeasure.analysis.sweeps import CurrentStep
 from spikemeasure.errors import InvalidSettingError
 from spikemeasure.io import Recording, Sweep
@@ -142,14 +144,27 @@ class TestKnownAnswers:
         v = sim.voltage_mv[0]
         return v, measure_trace(v, self.RATE, step=CurrentStep(ONSET_S, LENGTH_S, 60.0, 0.0))
 
-    def test_peak_on_a_sample_has_the_sample_noise(self, spikes):
-        # source: the interpolating spline passes through its samples, so at a sample its
-        # value is that sample and its noise the sample's
+    def test_peak_on_a_sample_has_the_fit_noise(self, spikes):
+        # source: a least-squares polynomial's value is a linear functional of the samples;
+        # its weights at the window centre are numpy.polynomial.polynomial.polyfit of the unit
+        # vectors evaluated at 0, and under white noise of SD sigma the value's SD is sigma
+        # times their norm. Where the spike is too narrow for a fit (window 0), the
+        # interpolating spline passes through its samples, so the SD is the sample's.
+        from numpy.polynomial import polynomial
+
         v, s = spikes
         on_sample = SpikeMeasurements(**{**{f: getattr(s, f) for f in s.__dataclass_fields__},
                                          "peak_s": np.round(s.peak_s * self.RATE) / self.RATE})
         sds = spike_uncertainty(v, self.RATE, on_sample, _white(0.3, self.RATE))
-        np.testing.assert_allclose(sds.peak_mv_sd, 0.3, rtol=1e-9)
+        windows = peak_windows(v, np.round(s.peak_s * self.RATE).astype(int), s.threshold_mv,
+                               noise_before(v, s.threshold_s * self.RATE))
+        for sd, window in zip(sds.peak_mv_sd, windows):
+            if window == 0:
+                assert sd == pytest.approx(0.3, rel=1e-9)
+                continue
+            x = np.arange(window) - window // 2
+            centre = [polynomial.polyfit(x, unit, PEAK_ORDER)[0] for unit in np.eye(window)]
+            assert sd == pytest.approx(0.3 * np.linalg.norm(centre), rel=1e-9)
 
     def test_max_rate_has_the_spline_derivative_noise(self, spikes):
         # source: the derivative of the not-a-knot quintic spline through 13 samples (built
@@ -174,8 +189,19 @@ class TestKnownAnswers:
         v, s = spikes
         small = spike_uncertainty(v, self.RATE, s, _white(0.1, self.RATE))
         large = spike_uncertainty(v, self.RATE, s, _white(0.4, self.RATE))
-        for name in SD_COLUMNS:
+        # the onset window's smoothing bias (the same at any noise) adds in quadrature to
+        # threshold, AHP depth and half-width: their squares differ by 15 x the noise part
+        for name in ("peak_mv_sd", "max_dvdt_v_per_s_sd"):
             np.testing.assert_allclose(getattr(large, name), 4 * getattr(small, name))
+        # threshold, AHP depth and half-width: their squares are 4**2 (or 2**2) x the noise
+        # part plus a part the noise does not change, the same from either pair of levels
+        middle = spike_uncertainty(v, self.RATE, s, _white(0.2, self.RATE))
+        for name in ("threshold_mv_sd", "ahp_depth_mv_sd", "half_width_ms_sd"):
+            little = getattr(small, name) ** 2
+            fixed_4 = (16 * little - getattr(large, name) ** 2) / 15
+            fixed_2 = (4 * little - getattr(middle, name) ** 2) / 3
+            np.testing.assert_allclose(fixed_4, fixed_2, rtol=1e-6, atol=1e-12 * little.max())
+            assert np.all(fixed_4 >= 0) and np.all(fixed_4 < 0.01 * little)
 
     def test_empty_value_empty_sd_and_unknown_noise(self, spikes):
         v, s = spikes
