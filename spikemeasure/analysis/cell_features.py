@@ -14,7 +14,8 @@ from .bridge import MIN_TAU_TO_SETTLE, SETTLE_MS, bridge_error, edge_jump
 from .fluctuation import baseline_stretch, slow_fluctuation_mv
 from .membrane_tau import (END_FRACTION, FILTER_DELAY_MS, TAU_SMOOTHING_MS, ExponentialFit,
                            exponential_fit_sd, fit_membrane_tau)
-from .sweep_features import BASELINE_WINDOW_MS, SAG_NOISE_FACTOR
+from .sweep_features import BASELINE_WINDOW_MS, SAG_NOISE_FACTOR, passive_voltage
+from .sweeps import CurrentStep
 
 __all__ = ["CellFeatures", "ExponentialFit", "fit_membrane_tau", "rheobase", "ramp_rheobase",
            "fi_slope", "input_resistance", "input_resistance_sd", "exponential_fit_sd",
@@ -405,7 +406,9 @@ def _passive_values(col: dict, slow: np.ndarray, lower: np.ndarray, gapped: np.n
     hyper_all = np.isfinite(stim) & (stim < 0)
     candidates = _spike_free_hyperpolarizing(col, slow, lower, traces)
     slow_silent = candidates & slow
-    deflection = col["steady_state_mv"] - col["baseline_mv"]
+    # with the drift left in (sweep_features): a drift common to the sweeps cancels
+    deflection = np.where(np.isfinite(col["deflection_mv"]), col["deflection_mv"],
+                          col["steady_state_mv"] - col["baseline_mv"])
     passive = np.flatnonzero(candidates & np.isfinite(deflection))
     if slow_silent[passive].any():
         flags.append("slow_sweeps_taken_as_spike_free")
@@ -465,10 +468,16 @@ def _tau_value(col: dict, j: int, traces: list[tuple[np.ndarray, float]],
                sweep_flags: list[set], values: dict, flags: list[str]) -> None:
     """membrane_tau_ms and its fit's quality (see :func:`cell_features`) from sweep `j` into
     `values`, their flags into `flags`."""
-    v, rate = traces[j]
+    raw, rate = traces[j]
     onset, offset = col["stimulus_start_s"][j], col["stimulus_end_s"][j]
-    noise = max(float(col["baseline_noise_mv"][j]), NOISE_FLOOR_MV) \
-        if np.isfinite(col["baseline_noise_mv"][j]) else NOISE_FLOOR_MV
+    quiet_s = col["baseline_start_s"][j]
+    # the fit and its tests read the membrane without the sweep's hum and drift
+    v, line_noise = passive_voltage(np.asarray(raw, dtype=float), rate, CurrentStep(
+        onset, offset, baseline_start_s=float(quiet_s) if np.isfinite(quiet_s) else 0.0,
+        test_pulse_start_s=float(col["test_pulse_start_s"][j])))
+    base_noise = (float(np.std(baseline_stretch(v, rate, onset, earliest_s=quiet_s)))
+                  if line_noise.found else float(col["baseline_noise_mv"][j]))
+    noise = max(base_noise, NOISE_FLOOR_MV) if np.isfinite(base_noise) else NOISE_FLOOR_MV
     # an electrode jump (the cell's bridge error times this step) above the noise is left
     # out with the filter's settling after it; without one, only the low-pass filter's
     # delay, which lengthens a fast membrane's tau (4 % at 1.5 ms behind a 3 kHz Bessel)
@@ -496,7 +505,9 @@ def _tau_value(col: dict, j: int, traces: list[tuple[np.ndarray, float]],
         # pulse cut it short
         noise = (None if "baseline_window_cut_by_epoch" in sweep_flags[j]
                  else baseline_stretch(v, rate, onset))
-        values["membrane_tau_ms_sd"] = exponential_fit_sd(fit, rate, noise)
+        values["membrane_tau_ms_sd"] = exponential_fit_sd(
+            fit, rate, noise, line_noise=line_noise,
+            first_sample=int(round(onset * rate)) + int(round(fit.start_ms * 1e-3 * rate)))
 
 
 def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]],
@@ -581,7 +592,7 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
             "firing_rate_hz", "steady_state_mv", "sag_fraction", "stimulus_start_s",
             "stimulus_end_s")} if n else {}
     for k in ("min_mv", "baseline_drift_mv", "deflection_sd_mv", "test_pulse_pa",
-              "test_pulse_start_s"):  # optional
+              "test_pulse_start_s", "baseline_start_s", "deflection_mv"):  # optional
         if n:
             col[k] = np.array([r.get(k, nan) for r in sweep_rows], dtype=float)
     sweep_flags = [set(filter(None, str(r.get("flags", "")).split(";"))) for r in sweep_rows]
