@@ -58,6 +58,11 @@ class LineNoise:
         The standard error of the slope, whether kept or not.
     first_sample, stop_sample : int
         The quiet stretch fitted, samples [first_sample, stop_sample).
+    reference : tuple of int
+        Samples [first, stop) over which the removed hum and drift have zero mean (the
+        baseline window), by default the quiet stretch.
+    drift_estimate_mv_per_s : float
+        The slope as fitted, kept or not (NaN when not fitted).
     sampling_rate_hz : float
     sensitivity : ndarray, shape (k, stop_sample - first_sample)
         The kept terms' coefficients are ``sensitivity @ voltage[first_sample:stop_sample]``
@@ -75,6 +80,8 @@ class LineNoise:
     sampling_rate_hz: float
     sensitivity: np.ndarray
     coefficients: np.ndarray
+    reference: tuple[int, int] = (0, 0)
+    drift_estimate_mv_per_s: float = float("nan")
 
     @property
     def found(self) -> bool:
@@ -115,7 +122,9 @@ def _terms(samples: np.ndarray, rate: float, frequency_hz: float, harmonics: tup
 
 def _basis(samples: np.ndarray, fit: LineNoise) -> np.ndarray:
     drift = np.isfinite(fit.drift_mv_per_s)
-    quiet = np.arange(fit.first_sample, fit.stop_sample)
+    lo, hi = fit.reference if fit.reference[1] > fit.reference[0] else (fit.first_sample,
+                                                                          fit.stop_sample)
+    quiet = np.arange(lo, hi)
     rate, f = fit.sampling_rate_hz, fit.frequency_hz
     centre = _terms(quiet, rate, f, fit.harmonics, drift).mean(axis=0)
     return _terms(samples, rate, f, fit.harmonics, drift) - centre
@@ -128,7 +137,9 @@ def _fit(part: np.ndarray, samples: np.ndarray, rate: float, frequency_hz: float
     constant, their sensitivity rows, their covariance under the residual's spectrum)."""
     terms = _terms(samples, rate, frequency_hz, harmonics, drift)
     design = np.column_stack([np.ones(samples.size), terms - terms.mean(axis=0)])
-    pinv = np.linalg.pinv(design)
+    # the normal equations: a few well-scaled columns (centred, the time in s), where an
+    # SVD of the tall design would cost far more
+    pinv = np.linalg.solve(design.T @ design, design.T)
     coef = pinv @ part
     residual = part - design @ coef
     spectral = weighted_sums_covariance(pinv[1:], residual, rate)
@@ -147,7 +158,8 @@ def _fit(part: np.ndarray, samples: np.ndarray, rate: float, frequency_hz: float
 def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s: float,
                         stop_s: float, *, harmonics: int = HUM_HARMONICS,
                         false_alarm: float = LINE_NOISE_FALSE_ALARM,
-                        drift: bool = True) -> LineNoise:
+                        drift: bool = True,
+                        reference_s: tuple[float, float] | None = None) -> LineNoise:
     """Fit mains hum and a drift line to a quiet stretch and keep what is significant.
 
     Parameters
@@ -164,6 +176,9 @@ def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s
         :data:`LINE_NOISE_FALSE_ALARM`).
     drift : bool, optional
         Whether to fit the drift line (default True); without it, the hum alone.
+    reference_s : (float, float), optional
+        The window (s) over which the hum and drift removed keep a zero mean (the baseline
+        window, so the baseline is unchanged); by default the quiet stretch.
 
     Returns
     -------
@@ -211,9 +226,11 @@ def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s
     v = np.asarray(voltage_mv, dtype=float)
     first = max(0, int(round(start_s * rate)))
     stop = min(v.size, int(round(stop_s * rate)))
+    reference = ((int(round(reference_s[0] * rate)), int(round(reference_s[1] * rate)))
+                 if reference_s is not None else (first, max(first, stop)))
     none = LineNoise(float("nan"), (), np.zeros(0), np.zeros(0), float("nan"), float("nan"),
                      first, max(first, stop), rate, np.zeros((0, max(0, stop - first))),
-                     np.zeros(0))
+                     np.zeros(0), reference)
     need = max(16, MIN_QUIET_PERIODS * rate / min(MAINS_FREQUENCIES_HZ))
     part = v[first:stop]
     if part.size < need or not np.isfinite(part).all():
@@ -237,15 +254,17 @@ def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s
                           cov[d + 2 * k:d + 2 + 2 * k, d + 2 * k:d + 2 + 2 * k])
                  > chi2.isf(false_alarm, 2))
     slope_sd = float(np.sqrt(max(0.0, cov[0, 0]))) if drift else float("nan")
+    slope = float(coef[0]) if drift else float("nan")
     if not (keep_drift or kept):
         return LineNoise(float("nan"), (), np.zeros(0), np.zeros(0), float("nan"), slope_sd,
-                         first, stop, rate, np.zeros((0, part.size)), np.zeros(0))
+                         first, stop, rate, np.zeros((0, part.size)), np.zeros(0), reference,
+                         slope)
     coef, rows, _ = _fit(part, samples, rate, f, kept, keep_drift)
     hum = coef[1:] if keep_drift else coef
     cos, sin = hum[0::2], hum[1::2]
     return LineNoise(f if kept else float("nan"), kept, np.hypot(cos, sin),
                      np.arctan2(-sin, cos), float(coef[0]) if keep_drift else float("nan"),
-                     slope_sd, first, stop, rate, rows, coef)
+                     slope_sd, first, stop, rate, rows, coef, reference, slope)
 
 
 def _wald(b: np.ndarray, cov: np.ndarray) -> float:
