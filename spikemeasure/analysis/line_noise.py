@@ -18,6 +18,7 @@ from ..errors import InvalidSettingError
 from .fluctuation import weighted_sums_covariance
 
 __all__ = ["LineNoise", "estimate_line_noise", "remove_line_noise", "corrected_weights",
+           "line_noise_lines",
            "MAINS_FREQUENCIES_HZ", "HUM_HARMONICS", "LINE_NOISE_FALSE_ALARM",
            "MIN_QUIET_PERIODS"]
 
@@ -320,3 +321,38 @@ def corrected_weights(weights: np.ndarray, first_sample: int, fit: LineNoise
     through = rows @ fit.basis(int(first_sample), int(first_sample) + n)  # (k, terms)
     out[:, fit.first_sample - lo:fit.stop_sample - lo] -= through @ fit.sensitivity
     return out, lo
+
+
+def line_noise_lines() -> list[str]:
+    """The section of ``docs/measurements.md`` on hum and drift."""
+    mains = " and ".join(f"{f:g}" for f in MAINS_FREQUENCIES_HZ)
+    return [
+        "",
+        "## Hum and drift",
+        "",
+        "Mains hum (a sinusoid at the mains frequency and its harmonics, whose phase holds "
+        "across a sweep) and drift (a slow straight-line change of the recorded voltage) are "
+        "not the cell's response. For each sweep with a stimulus they are fitted by least "
+        "squares on the quiet stretch before the stimulus (from the end of any test pulse to "
+        f"the onset): a constant, a line in time, and cos and sin of the first {HUM_HARMONICS} "
+        f"harmonics below Nyquist of {mains} Hz, the mains frequency being the one whose "
+        "harmonics explain more of the stretch (no setting: both are tried). A harmonic or "
+        "the line is kept only when its Wald statistic against its own covariance (the "
+        "white-noise least-squares covariance of the residual, made larger when the "
+        "residual's spectrum shows correlated noise) passes the chi-square quantile for a "
+        f"false-alarm chance of {LINE_NOISE_FALSE_ALARM:g} (Wald 1943; Kay 1993, chapter 4), "
+        "so a clean recording keeps its values. After a test pulse only the hum is fitted: "
+        "the membrane may still be settling from the pulse, which a line would take for "
+        "drift. The kept terms are removed from the whole sweep with their mean over the "
+        "baseline window kept, so baseline_mv is unchanged.",
+        "",
+        "steady_state_mv, min_mv, sag_fraction and the time constant read the voltage so "
+        "corrected; the input resistance reads the deflections with the drift left in (see "
+        "input_resistance_mohm). The spike values read the recorded voltage. The SDs carry "
+        "the removal through: a window mean of the corrected voltage is a weighted sum of "
+        "the recorded one, the quiet stretch weighted by minus the removal's sensitivity, "
+        "and the covariance of those weights follows from the noise spectrum as for the "
+        "other SDs. A drift too small to pass the test (about 3 standard errors; at 0.5 mV "
+        "of white noise, 20 kHz and 200 ms before the step the slope's standard error is "
+        "about 0.25 mV/s) stays in the values and is not in their SDs.",
+    ]

@@ -632,11 +632,12 @@ def passive_voltage(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curre
     Notes
     -----
     The hum and drift are fitted on the quiet stretch before the stimulus (all of it, for
-    the drift's longest lever), where no current flows and the
-    response has not begun (the hum alone when a test pulse precedes the stimulus: the
-    membrane may still be settling from it, which is not drift), and removed from the whole sweep with the mean of their sum
-    over the baseline window kept, so the baseline is unchanged and every passive value (steady
-    state, minimum, sag, input resistance, time constant) reads the membrane without them.
+    the drift's longest lever), where no current flows and the response has not begun
+    (the hum alone when a test pulse precedes the stimulus: the membrane may still be
+    settling from it, which is not drift), and removed from the whole sweep with the mean
+    of their sum over the baseline window kept, so the baseline is unchanged and the
+    passive values (steady state, minimum, sag, time constant) read the membrane without
+    them; the input resistance keeps the drift (see :func:`sweep_features`).
     """
     rate = float(sampling_rate_hz)
     onset = int(round(step.onset_s * rate))
