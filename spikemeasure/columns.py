@@ -20,6 +20,7 @@ from .analysis.bridge import CHARGING_FIT_MS, EDGE_FIT_MS, SETTLE_MS
 from .analysis.cell_features import (CELL_FLAG_TEXT, END_FRACTION, FILTER_DELAY_MS,
                             HOLDING_TOLERANCE_PA,
                             MAX_RESIDUAL_TO_NOISE, MIN_DEFLECTION_TO_NOISE, NOISE_FLOOR_MV,
+                            MAX_TAU_SD_FRACTION,
                             SAG_NOISE_FACTOR, SLOW_SWEEP_MAX_RISE_MV, TAU_SMOOTHING_MS)
 from .analysis.epochs import (MAX_EDGE_MS, MIN_LEVEL_CHANGE_PA, NOISE_MULTIPLE,
                               RESIDUAL_WINDOW_MS)
@@ -378,7 +379,9 @@ CELL_COLUMNS: tuple[Column, ...] = (
            "over the noise. "
            f"Empty, flagged `tau_fit_poor`, when the residual RMS is over "
            f"{MAX_RESIDUAL_TO_NOISE:g} times the sweep's baseline noise (the response is not "
-           f"one exponential) or the deflection under {MIN_DEFLECTION_TO_NOISE:g} times it. "
+           f"one exponential) or the deflection under {MIN_DEFLECTION_TO_NOISE:g} times it "
+           f"with membrane_tau_ms_sd over {MAX_TAU_SD_FRACTION:.0%} of tau (the noise then "
+           "cannot pin it within 10 %), or the fitted tau spans under 2 samples. "
            "Fitted, with those tests, on the voltage less the sweep's mains hum and drift "
            "(see Hum and drift).", 4),
     Column("membrane_tau_ms_sd", "ms", "SD of membrane_tau_ms that the recording's noise "

@@ -620,7 +620,8 @@ def passive_voltage(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curre
     sampling_rate_hz : float
     step : CurrentStep
     baseline_window_ms : float, optional
-        The baseline window (:func:`baseline`), whose mean the removal keeps.
+        The baseline window (:func:`baseline`): the hum and drift are fitted on it, and
+        the removal keeps its mean.
 
     Returns
     -------
@@ -631,8 +632,9 @@ def passive_voltage(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curre
 
     Notes
     -----
-    The hum and drift are fitted on the quiet stretch before the stimulus (all of it, for
-    the drift's longest lever), where no current flows and the response has not begun
+    The hum and drift are fitted on the baseline window (not on all of the quiet stretch
+    before it: early in that stretch the membrane may still be settling, from a test pulse
+    or the start of the recording), where no current flows and the response has not begun
     (the hum alone when a test pulse precedes the stimulus: the membrane may still be
     settling from it, which is not drift), and removed from the whole sweep with the mean
     of their sum over the baseline window kept, so the baseline is unchanged and the
@@ -641,13 +643,12 @@ def passive_voltage(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curre
     """
     rate = float(sampling_rate_hz)
     onset = int(round(step.onset_s * rate))
-    quiet = max(0, int(round(step.baseline_start_s * rate)))
-    first = max(quiet, onset - int(round(baseline_window_ms * 1e-3 * rate)))
+    first = max(0, int(round(step.baseline_start_s * rate)),
+                onset - int(round(baseline_window_ms * 1e-3 * rate)))
     # after a test pulse the membrane may still be settling, which a line would take for
     # drift: the hum alone then
-    fit = estimate_line_noise(voltage_mv, rate, quiet / rate, onset / rate,
-                              drift=not np.isfinite(step.test_pulse_start_s),
-                              reference_s=(first / rate, onset / rate))
+    fit = estimate_line_noise(voltage_mv, rate, first / rate, onset / rate,
+                              drift=not np.isfinite(step.test_pulse_start_s))
     return remove_line_noise(voltage_mv, fit), fit
 
 
