@@ -20,6 +20,7 @@ from .analysis.bridge import CHARGING_FIT_MS, EDGE_FIT_MS, SETTLE_MS
 from .analysis.cell_features import (CELL_FLAG_TEXT, END_FRACTION, FILTER_DELAY_MS,
                             HOLDING_TOLERANCE_PA,
                             MAX_RESIDUAL_TO_NOISE, MIN_DEFLECTION_TO_NOISE, NOISE_FLOOR_MV,
+                            MAX_TAU_SD_FRACTION,
                             SAG_NOISE_FACTOR, SLOW_SWEEP_MAX_RISE_MV, TAU_SMOOTHING_MS)
 from .analysis.epochs import (MAX_EDGE_MS, MIN_LEVEL_CHANGE_PA, NOISE_MULTIPLE,
                               RESIDUAL_WINDOW_MS)
@@ -27,6 +28,7 @@ from .analysis.spike_features import (ONSET_NOISE_FRACTION, PEAK_NOISE_MV, PEAK_
                                       SECOND_DERIVATIVE_LOOKBACK_MS, extreme_lines)
 from .analysis.spike_rates import FALL_NOISE_FRACTION, FALL_WIDTH_FACTOR
 from .analysis.spike_uncertainty import MIN_QUIET_MS, sd_values, uncertainty_lines
+from .analysis.line_noise import line_noise_lines
 from .analysis.sweeps import COMMAND_MEDIAN_SAMPLES
 from .analysis.spikes import CLIPPED_RUN_SAMPLES, FLAG_TEXT, PIECE_SAMPLES
 from .analysis.sweep_features import (BASELINE_WINDOW_MS, DRIFT_WINDOW_MS, MIN_WINDOW_MS,
@@ -289,7 +291,9 @@ SWEEP_COLUMNS: tuple[Column, ...] = (
            "/ (ISI[k+1] + ISI[k]) (Druckmann et al. 2007); needs at least 2 intervals. Positive "
            "when firing slows during the step, near 0 for regular firing.", 5),
     Column("steady_state_mv", "mV", f"Mean voltage over the last {STEADY_STATE_WINDOW_MS:g} ms "
-           "of the step; empty for a ramp (flag `ramp_has_no_steady_state`).", 4),
+           "of the step; empty for a ramp (flag `ramp_has_no_steady_state`). This, min_mv, "
+           "sag_fraction and the cell's passive values read the voltage less the sweep's "
+           "mains hum and drift where they are significant (see Hum and drift).", 4),
     Column("min_mv", "mV", "Minimum during the step of the voltage averaged over a sliding "
            "window, so noise does not pull it down. For a hyperpolarizing step the window is "
            f"{TROUGH_WINDOW_FRACTION:g} x the charging time (from onset until the "
@@ -310,7 +314,10 @@ SWEEP_COLUMNS: tuple[Column, ...] = (
            "Wiener-Khinchin theorem, Percival and Walden 1993), carried to the sag by its "
            "gradient (the delta method, Bevington and Robinson 2003). Leaves out how noise "
            "picks the minimum's position, which matters only on a flat plateau, where the "
-           "sag is within noise. Empty where sag_fraction is.", 5),
+           "sag is within noise. With hum or drift removed, the weights carry their "
+           "estimate's own uncertainty. With the flag `sag_within_noise` (sag 0), at least "
+           "half the sag that noise and drift could hide, so +/- 2 SD spans it. Empty where "
+           "sag_fraction is.", 5),
     Column("sampling_rate_hz", "Hz", "Samples per second of the sweep's voltage, as the file "
            "declares it (or `--sampling-rate`).", 3),
     Column("baseline_drift_mv", "mV", f"Mean voltage over the last {DRIFT_WINDOW_MS:g} ms of the "
@@ -357,7 +364,10 @@ CELL_COLUMNS: tuple[Column, ...] = (
            "baseline_mv) on stimulus_pa over hyperpolarizing, spike-free sweeps (at least 2), "
            f"times 1000. A sweep sampled too slowly to count spikes counts as spike-free when no "
            f"sample of its step lies more than {SLOW_SWEEP_MAX_RISE_MV:g} mV above its baseline "
-           "(`slow_sweeps_taken_as_spike_free`).", 3, shown_decimals=1),
+           "(`slow_sweeps_taken_as_spike_free`). The deflections keep the sweeps' drift "
+           "(their hum removed): a drift common to the sweeps moves them alike and leaves "
+           "the slope, while one found in some sweeps only would scatter them.", 3,
+           shown_decimals=1),
     Column("input_resistance_mohm_sd", "MOhm", "SD of input_resistance_mohm that the "
            "recording's noise implies: sqrt(sum w_j^2 s_j^2), w_j = (I_j - mean I) / "
            "sum (I - mean I)^2 the slope's weights and s_j the SD of sweep j's "
@@ -392,7 +402,11 @@ CELL_COLUMNS: tuple[Column, ...] = (
            "over the noise. "
            f"Empty, flagged `tau_fit_poor`, when the residual RMS is over "
            f"{MAX_RESIDUAL_TO_NOISE:g} times the sweep's baseline noise (the response is not "
-           f"one exponential) or the deflection under {MIN_DEFLECTION_TO_NOISE:g} times it.", 4,
+           f"one exponential) or the deflection under {MIN_DEFLECTION_TO_NOISE:g} times it "
+           f"with membrane_tau_ms_sd over {MAX_TAU_SD_FRACTION:.0%} of tau (the noise then "
+           "cannot pin it within 10 %), or the fitted tau spans under 2 samples. "
+           "Fitted, with those tests, on the voltage less the sweep's mains hum and drift "
+           "(see Hum and drift).", 4,
            shown_decimals=2),
     Column("membrane_tau_ms_sd", "ms", "SD of membrane_tau_ms that the recording's noise "
            "implies: the fit linearized at its solution moves the parameters by P e for "
@@ -400,7 +414,10 @@ CELL_COLUMNS: tuple[Column, ...] = (
            "(the sandwich form; for white noise the covariance curve_fit reports, Press et "
            "al. 2007) takes C from the power spectrum of the sweep's baseline window (of the "
            "fit's residual when a test pulse cut that window), as for sag_fraction_sd: "
-           "filtered, correlated noise and hum count for what they are.", 4, shown_decimals=2),
+           "filtered, correlated noise and hum count for what they are. With hum or drift "
+           "removed, P is carried through the removal, so the SD holds what their estimate "
+           "leaves.", 4,
+           shown_decimals=2),
     Column("sag_fraction", "", "sag_fraction of the most hyperpolarizing sweep; 0, flagged "
            "`sag_within_noise`, when that sweep has the flag (see sag_fraction in sweeps.csv).",
            5, shown_decimals=3),
@@ -480,7 +497,7 @@ def columns_markdown() -> str:
     lines += _stimulus_lines()
     lines += _detection_lines(DetectionSettings()) + _long_recording_lines()
     lines += extreme_lines()
-    lines += uncertainty_lines()
+    lines += uncertainty_lines() + line_noise_lines()
     return "\n".join(lines)
 
 

@@ -14,12 +14,13 @@ from .bridge import MIN_TAU_TO_SETTLE, SETTLE_MS, bridge_error, edge_jump
 from .fluctuation import baseline_stretch, slow_fluctuation_mv
 from .membrane_tau import (END_FRACTION, FILTER_DELAY_MS, TAU_SMOOTHING_MS, ExponentialFit,
                            exponential_fit_sd, fit_membrane_tau)
-from .sweep_features import BASELINE_WINDOW_MS, SAG_NOISE_FACTOR
+from .sweep_features import BASELINE_WINDOW_MS, SAG_NOISE_FACTOR, passive_voltage
+from .sweeps import CurrentStep
 
 __all__ = ["CellFeatures", "ExponentialFit", "fit_membrane_tau", "rheobase", "ramp_rheobase",
            "fi_slope", "input_resistance", "input_resistance_sd", "exponential_fit_sd",
            "cell_features", "passive_sweeps", "CELL_FLAG_TEXT", "MAX_RESIDUAL_TO_NOISE",
-           "MIN_DEFLECTION_TO_NOISE", "NOISE_FLOOR_MV", "FILTER_DELAY_MS", "END_FRACTION",
+           "MIN_DEFLECTION_TO_NOISE", "MAX_TAU_SD_FRACTION", "NOISE_FLOOR_MV", "FILTER_DELAY_MS", "END_FRACTION",
            "TAU_SMOOTHING_MS",
            "HOLDING_TOLERANCE_PA", "SLOW_SWEEP_MAX_RISE_MV", "MAX_FLUCTUATION_TO_DEFLECTION",
            "SAG_NOISE_FACTOR"]
@@ -29,6 +30,9 @@ __all__ = ["CellFeatures", "ExponentialFit", "fit_membrane_tau", "rheobase", "ra
 MAX_RESIDUAL_TO_NOISE = 1.5
 #: ... or when the deflection is smaller than this multiple of the noise (too small to fit).
 MIN_DEFLECTION_TO_NOISE = 5.0
+#: ... unless the time constant's SD (:func:`exponential_fit_sd`) is at most this fraction
+#: of it: the noise then pins it (2 SD within the 10 % a time constant is judged by).
+MAX_TAU_SD_FRACTION = 0.05
 #: Noise below this (mV) counts as this much, so a noise-free trace is not held to zero.
 NOISE_FLOOR_MV = 0.05
 #: Sweeps whose holding current is within this of zero count as "no holding current".
@@ -98,7 +102,9 @@ CELL_FLAG_TEXT = {
     "no_spiking_ramp": "ramp sweeps were measured but none fired: ramp_rheobase_pa is empty",
     "tau_fit_poor": f"the exponential fit leaves a residual over {MAX_RESIDUAL_TO_NOISE:g} "
                     "times the recording noise (the response is not one exponential), or the "
-                    f"deflection is under {MIN_DEFLECTION_TO_NOISE:g} times the noise: the "
+                    f"deflection is under {MIN_DEFLECTION_TO_NOISE:g} times the noise with "
+                    f"membrane_tau_ms_sd over {MAX_TAU_SD_FRACTION:.0%} of it, or the "
+                    "fitted time constant spans under 2 samples: the "
                     "time constant is left empty",
     "bridge_error_not_separable": "the membrane charges too fast after the step edges (time "
                                   f"constant under {MIN_TAU_TO_SETTLE * SETTLE_MS:g} ms) to "
@@ -106,7 +112,8 @@ CELL_FLAG_TEXT = {
                                   "bridge_error_mohm is empty",
     "baseline_fluctuates": "the baseline fluctuates (synaptic background): the SD of its "
                            f"{TAU_SMOOTHING_MS:g} ms moving average over the "
-                           f"{BASELINE_WINDOW_MS:g} ms before the step exceeds "
+                           f"{BASELINE_WINDOW_MS:g} ms before the step, beyond the share "
+                           "white noise of the baseline's SD leaves on it, exceeds "
                            f"{MAX_FLUCTUATION_TO_DEFLECTION:g} of the deflection "
                            "(baseline_mv - min_mv, or the fitted one when smaller), "
                            "where one exponential means nothing, so the time constant is "
@@ -405,7 +412,9 @@ def _passive_values(col: dict, slow: np.ndarray, lower: np.ndarray, gapped: np.n
     hyper_all = np.isfinite(stim) & (stim < 0)
     candidates = _spike_free_hyperpolarizing(col, slow, lower, traces)
     slow_silent = candidates & slow
-    deflection = col["steady_state_mv"] - col["baseline_mv"]
+    # with the drift left in (sweep_features): a drift common to the sweeps cancels
+    deflection = np.where(np.isfinite(col["deflection_mv"]), col["deflection_mv"],
+                          col["steady_state_mv"] - col["baseline_mv"])
     passive = np.flatnonzero(candidates & np.isfinite(deflection))
     if slow_silent[passive].any():
         flags.append("slow_sweeps_taken_as_spike_free")
@@ -465,10 +474,16 @@ def _tau_value(col: dict, j: int, traces: list[tuple[np.ndarray, float]],
                sweep_flags: list[set], values: dict, flags: list[str]) -> None:
     """membrane_tau_ms and its fit's quality (see :func:`cell_features`) from sweep `j` into
     `values`, their flags into `flags`."""
-    v, rate = traces[j]
+    raw, rate = traces[j]
     onset, offset = col["stimulus_start_s"][j], col["stimulus_end_s"][j]
-    noise = max(float(col["baseline_noise_mv"][j]), NOISE_FLOOR_MV) \
-        if np.isfinite(col["baseline_noise_mv"][j]) else NOISE_FLOOR_MV
+    quiet_s = col["baseline_start_s"][j]
+    # the fit and its tests read the membrane without the sweep's hum and drift
+    v, line_noise = passive_voltage(np.asarray(raw, dtype=float), rate, CurrentStep(
+        onset, offset, baseline_start_s=float(quiet_s) if np.isfinite(quiet_s) else 0.0,
+        test_pulse_start_s=float(col["test_pulse_start_s"][j])))
+    base_noise = (float(np.std(baseline_stretch(v, rate, onset, earliest_s=quiet_s)))
+                  if line_noise.found else float(col["baseline_noise_mv"][j]))
+    noise = max(base_noise, NOISE_FLOOR_MV) if np.isfinite(base_noise) else NOISE_FLOOR_MV
     # an electrode jump (the cell's bridge error times this step) above the noise is left
     # out with the filter's settling after it; without one, only the low-pass filter's
     # delay, which lengthens a fast membrane's tau (4 % at 1.5 ms behind a 3 kHz Bessel)
@@ -482,21 +497,34 @@ def _tau_value(col: dict, j: int, traces: list[tuple[np.ndarray, float]],
     values["membrane_tau_fit_r2"] = fit.r_squared
     values["membrane_tau_residual_to_noise"] = ratio
     deflection = abs(fit.v0_mv - fit.v_inf_mv)
-    fluctuation = slow_fluctuation_mv(v, rate, onset, TAU_SMOOTHING_MS)
+    # what the moving average keeps beyond white noise's share, noise / sqrt(samples):
+    # white noise is in the fit's residual test and its SD already
+    width = max(1, int(round(TAU_SMOOTHING_MS * 1e-3 * rate)))
+    fluctuation = float(np.sqrt(max(0.0, slow_fluctuation_mv(v, rate, onset, TAU_SMOOTHING_MS)
+                                    ** 2 - noise ** 2 / width)))
     # the deflection as measured, not as fitted: a fit bent by fluctuations can put v0 and
     # v_inf anywhere
     measured = min(deflection, abs(col["min_mv"][j] - col["baseline_mv"][j]))
-    if ratio > MAX_RESIDUAL_TO_NOISE or deflection < MIN_DEFLECTION_TO_NOISE * noise:
+    # the baseline is the longer stretch of noise (a steadier spectrum) unless a test
+    # pulse cut it short
+    stretch = (None if "baseline_window_cut_by_epoch" in sweep_flags[j]
+               else baseline_stretch(v, rate, onset))
+    sd = exponential_fit_sd(
+        fit, rate, stretch, line_noise=line_noise,
+        first_sample=int(round(onset * rate)) + int(round(fit.start_ms * 1e-3 * rate)))
+    # a small deflection still gives tau when the noise leaves it precise enough, for a fit
+    # that is a charging curve at all: falling (a hyperpolarizing step) over at least a few
+    # samples per tau, where the linearized SD means something
+    pinned = (np.isfinite(sd) and sd <= MAX_TAU_SD_FRACTION * fit.tau_ms
+              and fit.v0_mv > fit.v_inf_mv and fit.tau_ms * 1e-3 * rate >= 3)
+    if (ratio > MAX_RESIDUAL_TO_NOISE or fit.tau_ms * 1e-3 * rate < 2
+            or (deflection < MIN_DEFLECTION_TO_NOISE * noise and not pinned)):
         flags.append("tau_fit_poor")
     elif np.isfinite(fluctuation) and fluctuation > MAX_FLUCTUATION_TO_DEFLECTION * measured:
         flags.append("baseline_fluctuates")
     else:
         values["membrane_tau_ms"] = fit.tau_ms
-        # the baseline is the longer stretch of noise (a steadier spectrum) unless a test
-        # pulse cut it short
-        noise = (None if "baseline_window_cut_by_epoch" in sweep_flags[j]
-                 else baseline_stretch(v, rate, onset))
-        values["membrane_tau_ms_sd"] = exponential_fit_sd(fit, rate, noise)
+        values["membrane_tau_ms_sd"] = sd
 
 
 def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]],
@@ -528,7 +556,8 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
     - fi_slope_hz_per_pa: :func:`fi_slope`; max_firing_rate_hz: the largest firing_rate_hz;
       both over the steps below block_stimulus_pa only (all steps without block).
     - input_resistance_mohm: :func:`input_resistance` of steady_state_mv - baseline_mv over
-      hyperpolarizing, spike-free sweeps.
+      hyperpolarizing, spike-free sweeps, with each sweep's drift left in (the sweep's
+      ``deflection_mv``).
     - bridge_error_mohm: the median over those sweeps (without gaps) of
       :func:`~spikemeasure.analysis.bridge.bridge_error`, and over every sweep's
       hyperpolarizing test pulse of its onset's :func:`~spikemeasure.analysis.bridge.edge_jump`
@@ -536,11 +565,15 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
     - membrane_tau_ms: :func:`fit_membrane_tau` on the smallest hyperpolarizing spike-free
       step; empty (flag ``tau_fit_poor``) when the residual RMS exceeds
       :data:`MAX_RESIDUAL_TO_NOISE` times the sweep's baseline noise or the deflection is under
-      :data:`MIN_DEFLECTION_TO_NOISE` times it (noise taken as at least
-      :data:`NOISE_FLOOR_MV`). R^2 alone would reject good fits to small, noisy deflections,
+      :data:`MIN_DEFLECTION_TO_NOISE` times it with membrane_tau_ms_sd over
+      :data:`MAX_TAU_SD_FRACTION` of tau (noise taken as at least :data:`NOISE_FLOOR_MV`),
+      or the fitted tau spans under 2 samples.
+      The fit reads the voltage less the sweep's significant hum and drift
+      (:func:`~spikemeasure.analysis.sweep_features.passive_voltage`). R^2 alone would reject good fits to small, noisy deflections,
       since noise caps it. Empty too (flag ``baseline_fluctuates``) when the baseline's slow
       fluctuation (:func:`~spikemeasure.analysis.fluctuation.slow_fluctuation_mv` over a
-      :data:`TAU_SMOOTHING_MS` average) exceeds :data:`MAX_FLUCTUATION_TO_DEFLECTION` of the
+      :data:`TAU_SMOOTHING_MS` average, less in quadrature the s / sqrt(samples) white
+      noise of the baseline's SD s leaves on it) exceeds :data:`MAX_FLUCTUATION_TO_DEFLECTION` of the
       deflection (baseline_mv - min_mv, or the fitted v0 - v_inf when smaller). The first
       :data:`FILTER_DELAY_MS` after onset (the low-pass filter's delay) are left out of the
       fit; when bridge_error_mohm times that sweep's step is over its noise, the first
@@ -581,7 +614,7 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
             "firing_rate_hz", "steady_state_mv", "sag_fraction", "stimulus_start_s",
             "stimulus_end_s")} if n else {}
     for k in ("min_mv", "baseline_drift_mv", "deflection_sd_mv", "test_pulse_pa",
-              "test_pulse_start_s"):  # optional
+              "test_pulse_start_s", "baseline_start_s", "deflection_mv"):  # optional
         if n:
             col[k] = np.array([r.get(k, nan) for r in sweep_rows], dtype=float)
     sweep_flags = [set(filter(None, str(r.get("flags", "")).split(";"))) for r in sweep_rows]

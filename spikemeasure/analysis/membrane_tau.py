@@ -14,6 +14,7 @@ from scipy.ndimage import uniform_filter1d
 from scipy.optimize import OptimizeWarning, curve_fit
 
 from .fluctuation import weighted_sums_covariance
+from .line_noise import LineNoise, corrected_weights
 
 __all__ = ["ExponentialFit", "fit_membrane_tau", "exponential_fit_sd", "END_FRACTION",
            "TAU_SMOOTHING_MS", "FILTER_DELAY_MS"]
@@ -130,7 +131,8 @@ def fit_membrane_tau(voltage_mv: np.ndarray, sampling_rate_hz: float, onset_s: f
 
 
 def exponential_fit_sd(fit: ExponentialFit, sampling_rate_hz: float,
-                       noise_mv: np.ndarray | None = None) -> float:
+                       noise_mv: np.ndarray | None = None, *,
+                       line_noise: LineNoise | None = None, first_sample: int = 0) -> float:
     """SD of an exponential fit's time constant that the recording's noise implies.
 
     Parameters
@@ -141,6 +143,12 @@ def exponential_fit_sd(fit: ExponentialFit, sampling_rate_hz: float,
     noise_mv : ndarray, optional
         A stretch of the recording's noise (the sweep's baseline); by default the fit's
         residual.
+    line_noise : LineNoise, optional
+        The hum and drift removed from the voltage before the fit
+        (:func:`~spikemeasure.analysis.sweep_features.passive_voltage`): the SD then holds
+        what their estimate leaves (:func:`~spikemeasure.analysis.line_noise.corrected_weights`).
+    first_sample : int, optional
+        The sweep's sample of the first fitted sample (with `line_noise`).
 
     Returns
     -------
@@ -170,5 +178,8 @@ def exponential_fit_sd(fit: ExponentialFit, sampling_rate_hz: float,
     delta = fit.v0_mv - fit.v_inf_mv
     jacobian = np.column_stack([np.ones_like(t), decay, delta * t / fit.tau_ms ** 2 * decay])
     noise = fit.residual_mv if noise_mv is None else noise_mv
-    cov = weighted_sums_covariance(np.linalg.pinv(jacobian), noise, sampling_rate_hz)
+    rows = np.linalg.pinv(jacobian)
+    if line_noise is not None:
+        rows, _ = corrected_weights(rows, first_sample, line_noise)
+    cov = weighted_sums_covariance(rows, noise, sampling_rate_hz)
     return float(np.sqrt(max(0.0, cov[2, 2]))) if cov is not None else float("nan")

@@ -12,6 +12,7 @@ from scipy.ndimage import uniform_filter1d
 
 from ..errors import InvalidSettingError
 from .fluctuation import BASELINE_WINDOW_MS, baseline_stretch, weighted_sums_covariance
+from .line_noise import LineNoise, corrected_weights, estimate_line_noise, remove_line_noise
 from .block import (BLOCK_MAX_ISI_MS, BLOCK_MIN_SILENCE_MS, BLOCK_SILENCE_TO_ISI,
                     depolarization_block)
 from .sweeps import MIN_SAMPLING_RATE_HZ, CurrentStep, missing_stretches
@@ -19,7 +20,7 @@ from .sweeps import MIN_SAMPLING_RATE_HZ, CurrentStep, missing_stretches
 __all__ = ["SweepFeatures", "baseline", "first_spike_current", "baseline_drift", "firing", "adaptation_index",
            "passive_response", "sweep_features", "MIN_WINDOW_MS", "DRIFT_WINDOW_MS",
            "BASELINE_WINDOW_MS", "STEADY_STATE_WINDOW_MS", "SWEEP_FLAG_TEXT", "PassiveResponse",
-           "TROUGH_WINDOW_FRACTION", "SAG_NOISE_FACTOR"]
+           "TROUGH_WINDOW_FRACTION", "SAG_NOISE_FACTOR", "passive_voltage"]
 
 #: Width of the moving average under the minimum during the step (noise would pull a raw
 #: minimum down by two to three noise SDs); for a hyperpolarizing step, the shortest
@@ -134,7 +135,13 @@ class SweepFeatures:
     #: SD of steady_state_mv - baseline_mv that the baseline's noise implies (hyperpolarizing
     #: steps); not a column of sweeps.csv, read by the input resistance's SD.
     deflection_sd_mv: float = float("nan")
+    #: steady_state_mv - baseline_mv with the sweep's drift left in (its hum removed); not a
+    #: column of sweeps.csv, read by the input resistance (see :class:`PassiveResponse`).
+    deflection_mv: float = float("nan")
     test_pulse_start_s: float = float("nan")
+    #: Start of the quiet stretch before the stimulus (after any test pulse); not a column
+    #: of sweeps.csv, read by the time constant's hum and drift removal.
+    baseline_start_s: float = float("nan")
 
     def as_dict(self) -> dict:
         out = asdict(self)
@@ -278,12 +285,15 @@ class PassiveResponse:
     #: steps only; for the input resistance's SD).
     deflection_sd_mv: float
     sag_within_noise: bool = False
+    #: The SD of steady_state_mv - baseline_mv with the drift left in (the hum removed), as
+    #: the input resistance reads it (see :func:`sweep_features`).
+    deflection_with_drift_sd_mv: float = float("nan")
 
 
 def passive_response(voltage_mv: np.ndarray, sampling_rate_hz: float, step: CurrentStep,
                      baseline_mv: float, steady_window_ms: float = STEADY_STATE_WINDOW_MS, *,
-                     drift_mv: float = 0.0, baseline_window_ms: float = BASELINE_WINDOW_MS
-                     ) -> PassiveResponse:
+                     drift_mv: float = 0.0, baseline_window_ms: float = BASELINE_WINDOW_MS,
+                     line_noise: LineNoise | None = None) -> PassiveResponse:
     """Steady state, minimum and sag of the response to a step, with the sag's SD.
 
     Parameters
@@ -301,6 +311,9 @@ def passive_response(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curr
         the noise plus this is no sag.
     baseline_window_ms : float, optional
         The baseline window, whose noise the SDs copy.
+    line_noise : LineNoise, optional
+        The hum and drift already removed from `voltage_mv` (:func:`passive_voltage`): the
+        SDs then hold the uncertainty of that removal too.
 
     Returns
     -------
@@ -377,6 +390,14 @@ def passive_response(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curr
     weights[2, start - base_lo + low:start - base_lo + low + trough] = 1.0 / trough
     noise = baseline_stretch(voltage_mv, rate, step.onset_s, earliest_s=step.baseline_start_s,
                              window_ms=baseline_window_ms)
+    with_drift = float("nan")
+    if line_noise is not None and np.isfinite(weights).all():
+        hum_rows, _ = corrected_weights(weights[:2], base_lo, line_noise.hum_only())
+        hum_cov = weighted_sums_covariance(hum_rows, noise, rate)
+        if hum_cov is not None:
+            with_drift = float(np.sqrt(max(0.0, hum_cov[0, 0] + hum_cov[1, 1]
+                                           - 2 * hum_cov[0, 1])))
+        weights, _ = corrected_weights(weights, base_lo, line_noise)
     cov = (weighted_sums_covariance(weights, noise, rate)
            if np.isfinite(weights).all() else None)
     if cov is None or not np.isfinite(lowest):
@@ -389,9 +410,16 @@ def passive_response(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curr
     deflection = np.array([-1.0, 1.0, 0.0])
     deflection_sd = float(np.sqrt(max(0.0, deflection @ cov @ deflection)))
     drift = abs(drift_mv) if np.isfinite(drift_mv) else 0.0
-    within = steady - lowest <= SAG_NOISE_FACTOR * float(np.sqrt(max(0.0, cov[2, 2]))) + drift
+    hidden = SAG_NOISE_FACTOR * float(np.sqrt(max(0.0, cov[2, 2]))) + drift
+    within = steady - lowest <= hidden
+    if within:
+        # reported as 0, the sag may be anything up to what noise and drift hide: +/- 2 SD
+        # spans it
+        sag_sd = max(sag_sd, hidden / depth / 2)
+    if not np.isfinite(with_drift):
+        with_drift = deflection_sd
     return PassiveResponse(steady, lowest, 0.0 if within else sag, sag_sd, deflection_sd,
-                           within)
+                           within, with_drift)
 
 
 def _trough_window(coarse: np.ndarray, width: int, level_mv: float) -> int | None:
@@ -555,12 +583,19 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
             and depolarization_block(voltage_mv, rate, times, step.onset_s,
                                      step.offset_s).blocked):
         flags.append("depolarization_block")
-    response = passive_response(voltage_mv, sampling_rate_hz, step, base, steady_window_ms,
-                                drift_mv=drift, baseline_window_ms=baseline_window_ms)
+    passive, line_noise = passive_voltage(voltage_mv, rate, step, baseline_window_ms)
+    response = passive_response(passive, sampling_rate_hz, step, base, steady_window_ms,
+                                drift_mv=(baseline_drift(passive, rate, step.offset_s, base)
+                                          if line_noise.found else drift),
+                                baseline_window_ms=baseline_window_ms, line_noise=line_noise)
     steady, lowest, sag = response.steady_state_mv, response.min_mv, response.sag_fraction
-    sag_sd, deflection_sd = response.sag_fraction_sd, response.deflection_sd_mv
+    sag_sd, deflection_sd = response.sag_fraction_sd, response.deflection_with_drift_sd_mv
+    # the input resistance reads the deflection with the drift left in: a drift common to
+    # a cell's sweeps moves every deflection alike and leaves the slope as it is, while a
+    # drift found significant in some sweeps and not in others would scatter them
+    deflection = steady - base + _drift_over(line_noise, offset_i - n_tail, offset_i)
     if step.shape == "ramp":
-        steady = sag = sag_sd = deflection_sd = nan
+        steady = sag = sag_sd = deflection_sd = deflection = nan
         flags.append("ramp_has_no_steady_state")
     elif response.sag_within_noise and np.isfinite(sag):
         flags.append("sag_within_noise")
@@ -568,9 +603,61 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
         stimulus_pa=step.size_pa, holding_pa=step.holding_pa, stimulus_start_s=step.onset_s,
         stimulus_end_s=step.offset_s, baseline_mv=base, baseline_noise_mv=noise,
         steady_state_mv=steady, min_mv=lowest, sag_fraction=sag, sag_fraction_sd=sag_sd,
-        deflection_sd_mv=deflection_sd, sampling_rate_hz=rate,
+        deflection_sd_mv=deflection_sd, deflection_mv=deflection, sampling_rate_hz=rate,
         baseline_drift_mv=drift, flags=tuple(flags),
         **_stimulus_values(step, fire["first_spike_latency_ms"], rate, command_pa), **fire)
+
+
+def passive_voltage(voltage_mv: np.ndarray, sampling_rate_hz: float, step: CurrentStep,
+                    baseline_window_ms: float = BASELINE_WINDOW_MS
+                    ) -> tuple[np.ndarray, LineNoise]:
+    """The voltage the passive values read: the sweep's mains hum and drift removed.
+
+    Parameters
+    ----------
+    voltage_mv : ndarray
+        Raw voltage, mV.
+    sampling_rate_hz : float
+    step : CurrentStep
+    baseline_window_ms : float, optional
+        The baseline window (:func:`baseline`): the hum and drift are fitted on it, and
+        the removal keeps its mean.
+
+    Returns
+    -------
+    (ndarray, LineNoise)
+        The voltage less the hum and drift found significant
+        (:func:`~spikemeasure.analysis.line_noise.estimate_line_noise`; the voltage itself
+        when none is), and the estimate.
+
+    Notes
+    -----
+    The hum and drift are fitted on the baseline window (not on all of the quiet stretch
+    before it: early in that stretch the membrane may still be settling, from a test pulse
+    or the start of the recording), where no current flows and the response has not begun
+    (the hum alone when a test pulse precedes the stimulus: the membrane may still be
+    settling from it, which is not drift), and removed from the whole sweep with the mean
+    of their sum over the baseline window kept, so the baseline is unchanged and the
+    passive values (steady state, minimum, sag, time constant) read the membrane without
+    them; the input resistance keeps the drift (see :func:`sweep_features`).
+    """
+    rate = float(sampling_rate_hz)
+    onset = int(round(step.onset_s * rate))
+    first = max(0, int(round(step.baseline_start_s * rate)),
+                onset - int(round(baseline_window_ms * 1e-3 * rate)))
+    # after a test pulse the membrane may still be settling, which a line would take for
+    # drift: the hum alone then
+    fit = estimate_line_noise(voltage_mv, rate, first / rate, onset / rate,
+                              drift=not np.isfinite(step.test_pulse_start_s))
+    return remove_line_noise(voltage_mv, fit), fit
+
+
+def _drift_over(line_noise: LineNoise, first: int, stop: int) -> float:
+    """Mean over samples [first, stop) of the drift `line_noise` removed (0 without one)."""
+    if not np.isfinite(line_noise.drift_mv_per_s) or stop <= first:
+        return 0.0
+    return float(np.mean(line_noise.artefact_mv(first, stop)
+                         - line_noise.hum_only().artefact_mv(first, stop)))
 
 
 def _baseline_first_sample(step: CurrentStep, rate: float, window_ms: float,
@@ -588,6 +675,7 @@ def _stimulus_values(step: CurrentStep, latency_ms: float, sampling_rate_hz: flo
                      command_pa: np.ndarray | None) -> dict:
     """The stimulus fields of :class:`SweepFeatures` beyond its size and times."""
     return {"stimulus_shape": step.shape, "test_pulse_pa": step.test_pulse_pa,
+            "baseline_start_s": step.baseline_start_s,
             "test_pulse_start_s": step.test_pulse_start_s,
             "ramp_rate_pa_per_s": step.ramp_rate_pa_per_s,
             "first_spike_current_pa": first_spike_current(step, latency_ms, sampling_rate_hz,

@@ -1,0 +1,358 @@
+"""Mains hum and slow drift of a recorded voltage, estimated on a quiet stretch of a sweep.
+
+Hum is a sinusoid at the mains frequency (50 or 60 Hz) and its harmonics whose phase holds
+across a sweep; drift is a slow, straight-line change of the voltage (the electrode's offset
+or the cell's resting potential moving). Neither is the cell's response to the stimulus, so
+the passive measurements read a voltage with them removed. Functions take a voltage, its
+sampling rate and the quiet stretch, and return a small dataclass or arrays; nothing here
+reads files or prints.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+
+import numpy as np
+from scipy.stats import chi2
+
+from ..errors import InvalidSettingError
+from .fluctuation import weighted_sums_covariance
+
+__all__ = ["LineNoise", "estimate_line_noise", "remove_line_noise", "corrected_weights",
+           "line_noise_lines",
+           "MAINS_FREQUENCIES_HZ", "HUM_HARMONICS", "LINE_NOISE_FALSE_ALARM",
+           "MIN_QUIET_PERIODS"]
+
+#: The mains frequencies tried; the one whose hum stands out more is kept.
+MAINS_FREQUENCIES_HZ = (50.0, 60.0)
+#: Harmonics of the mains frequency fitted (1 = the fundamental), those below Nyquist.
+HUM_HARMONICS = 3
+#: A hum harmonic or the drift is removed only when the chance that noise alone gives an
+#: estimate as large (a Wald test against its own standard error) is below this: a clean
+#: recording keeps its values in all but about this share of its sweeps, and then moves by
+#: no more than its noise.
+LINE_NOISE_FALSE_ALARM = 1e-3
+#: The quiet stretch must hold at least this many periods of the lowest mains frequency.
+MIN_QUIET_PERIODS = 2.0
+#: The residual's variance counts as at least this (mV^2), so that rounding on a noise-free
+#: trace is not taken for hum.
+_VARIANCE_FLOOR_MV2 = 1e-12
+
+
+@dataclass(frozen=True)
+class LineNoise:
+    """Hum and drift found on a quiet stretch (see :func:`estimate_line_noise`).
+
+    Attributes
+    ----------
+    frequency_hz : float
+        The mains frequency whose harmonics were tested; NaN when none was kept.
+    harmonics : tuple of int
+        The harmonics kept (significant), e.g. (1, 3).
+    hum_amplitude_mv : ndarray
+        Amplitude of each kept harmonic, mV.
+    hum_phase_rad : ndarray
+        Phase of each kept harmonic: hum = amplitude cos(2 pi h f t + phase), t in s from
+        the first sample.
+    drift_mv_per_s : float
+        The drift's slope; NaN when not kept.
+    drift_sd_mv_per_s : float
+        The standard error of the slope, whether kept or not.
+    first_sample, stop_sample : int
+        The quiet stretch fitted, samples [first_sample, stop_sample).
+    reference : tuple of int
+        Samples [first, stop) over which the removed hum and drift have zero mean (the
+        baseline window), by default the quiet stretch.
+    drift_estimate_mv_per_s : float
+        The slope as fitted, kept or not (NaN when not fitted).
+    sampling_rate_hz : float
+    sensitivity : ndarray, shape (k, stop_sample - first_sample)
+        The kept terms' coefficients are ``sensitivity @ voltage[first_sample:stop_sample]``
+        (the rows of the least-squares pseudo-inverse).
+    """
+
+    frequency_hz: float
+    harmonics: tuple[int, ...]
+    hum_amplitude_mv: np.ndarray
+    hum_phase_rad: np.ndarray
+    drift_mv_per_s: float
+    drift_sd_mv_per_s: float
+    first_sample: int
+    stop_sample: int
+    sampling_rate_hz: float
+    sensitivity: np.ndarray
+    coefficients: np.ndarray
+    reference: tuple[int, int] = (0, 0)
+    drift_estimate_mv_per_s: float = float("nan")
+
+    @property
+    def found(self) -> bool:
+        """True when hum or drift was kept (the correction is not zero)."""
+        return bool(self.coefficients.size)
+
+    def basis(self, first: int, stop: int) -> np.ndarray:
+        """The kept terms at samples [first, stop), shape (stop - first, k): each term minus
+        its mean over the quiet stretch, so removing them leaves that stretch's mean as it
+        was."""
+        return _basis(np.arange(first, stop), self)
+
+    def hum_only(self) -> LineNoise:
+        """The same estimate with the drift left in (its hum alone removed)."""
+        if not np.isfinite(self.drift_mv_per_s):
+            return self
+        return replace(self, drift_mv_per_s=float("nan"), sensitivity=self.sensitivity[1:],
+                       coefficients=self.coefficients[1:])
+
+    def artefact_mv(self, first: int, stop: int) -> np.ndarray:
+        """Hum plus drift at samples [first, stop), mV, zero in the mean over the quiet
+        stretch."""
+        if not self.found:
+            return np.zeros(max(0, stop - first))
+        return self.basis(first, stop) @ self.coefficients
+
+
+def _terms(samples: np.ndarray, rate: float, frequency_hz: float, harmonics: tuple[int, ...],
+           drift: bool) -> np.ndarray:
+    """Uncentred terms at `samples`: drift (t), then cos and sin of each harmonic."""
+    t = samples / rate
+    columns = [t] if drift else []
+    for h in harmonics:
+        phase = 2 * np.pi * h * frequency_hz * t
+        columns += [np.cos(phase), np.sin(phase)]
+    return np.column_stack(columns) if columns else np.zeros((samples.size, 0))
+
+
+def _basis(samples: np.ndarray, fit: LineNoise) -> np.ndarray:
+    drift = np.isfinite(fit.drift_mv_per_s)
+    lo, hi = fit.reference if fit.reference[1] > fit.reference[0] else (fit.first_sample,
+                                                                          fit.stop_sample)
+    quiet = np.arange(lo, hi)
+    rate, f = fit.sampling_rate_hz, fit.frequency_hz
+    centre = _terms(quiet, rate, f, fit.harmonics, drift).mean(axis=0)
+    return _terms(samples, rate, f, fit.harmonics, drift) - centre
+
+
+def _fit(part: np.ndarray, samples: np.ndarray, rate: float, frequency_hz: float,
+         harmonics: tuple[int, ...], drift: bool
+         ) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
+    """Least squares of `part` on a constant and the terms: (coefficients without the
+    constant, their sensitivity rows, their covariance under the residual's spectrum)."""
+    terms = _terms(samples, rate, frequency_hz, harmonics, drift)
+    design = np.column_stack([np.ones(samples.size), terms - terms.mean(axis=0)])
+    # the normal equations: a few well-scaled columns (centred, the time in s), where an
+    # SVD of the tall design would cost far more
+    pinv = np.linalg.solve(design.T @ design, design.T)
+    coef = pinv @ part
+    residual = part - design @ coef
+    spectral = weighted_sums_covariance(pinv[1:], residual, rate)
+    if spectral is None:
+        return coef[1:], pinv[1:], None
+    # white noise of the residual's variance, made larger where the residual's spectrum
+    # says the noise is correlated: a spectrum estimated on a short stretch scatters, and
+    # taken alone would often make the test too lenient
+    variance = max(float(np.var(residual)) * samples.size
+                   / max(1, samples.size - design.shape[1]), _VARIANCE_FLOOR_MV2)
+    white = variance * (pinv[1:] @ pinv[1:].T)
+    inflation = max(1.0, float(np.trace(spectral) / np.trace(white))) if white.size else 1.0
+    return coef[1:], pinv[1:], white * inflation
+
+
+def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s: float,
+                        stop_s: float, *, harmonics: int = HUM_HARMONICS,
+                        false_alarm: float = LINE_NOISE_FALSE_ALARM,
+                        drift: bool = True,
+                        reference_s: tuple[float, float] | None = None) -> LineNoise:
+    """Fit mains hum and a drift line to a quiet stretch and keep what is significant.
+
+    Parameters
+    ----------
+    voltage_mv : ndarray
+        The sweep's voltage, mV (time 0 at its first sample).
+    sampling_rate_hz : float
+    start_s, stop_s : float
+        The quiet stretch (no stimulus, no response under way), s from the first sample.
+    harmonics : int, optional
+        How many harmonics of the mains frequency to try (default :data:`HUM_HARMONICS`).
+    false_alarm : float, optional
+        Chance, per term, of keeping a term that is not there (default
+        :data:`LINE_NOISE_FALSE_ALARM`).
+    drift : bool, optional
+        Whether to fit the drift line (default True); without it, the hum alone.
+    reference_s : (float, float), optional
+        The window (s) over which the hum and drift removed keep a zero mean (the baseline
+        window, so the baseline is unchanged); by default the quiet stretch.
+
+    Returns
+    -------
+    LineNoise
+        With nothing kept (``found`` false) when the stretch is too short (under
+        :data:`MIN_QUIET_PERIODS` periods of 50 Hz or 16 samples) or holds a missing
+        sample.
+
+    Notes
+    -----
+    1. For each mains frequency f in :data:`MAINS_FREQUENCIES_HZ`, least squares fits the
+       stretch with a constant, a line in time and cos and sin of 2 pi h f t for the
+       harmonics h below Nyquist; the frequency whose harmonics explain more of the
+       variance is kept (50 and 60 Hz are both tried, as either may be the mains).
+    2. The covariance C of the coefficients is the white-noise value sigma^2 (X^T X)^-1
+       (sigma^2 the residual's variance), scaled up by the ratio of the traces of the
+       covariance that noise with the residual's own spectrum gives them
+       (:func:`~spikemeasure.analysis.fluctuation.weighted_sums_covariance` of the
+       pseudo-inverse's rows) to it when that ratio is over 1: correlated noise (filtered,
+       synaptic) makes the terms less certain, while the spectrum of a short stretch,
+       taken alone, scatters enough to make the test too lenient now and then.
+    3. Each harmonic (its cos and sin pair) and the slope is kept when its Wald statistic
+       b^T C^-1 b exceeds the chi-square quantile for `false_alarm` (2 and 1 degrees of
+       freedom); the kept terms are fitted again alone.
+    The hum's phase is taken to hold across the sweep, so the hum found on the stretch is
+    the hum of the whole sweep; the drift is a straight line through it.
+
+    References
+    ----------
+    .. [1] A. Wald, "Tests of statistical hypotheses concerning several parameters when the
+       number of observations is large", Trans. Amer. Math. Soc. 54:426-482, 1943 (from
+       memory).
+    .. [2] S. M. Kay, *Fundamentals of Statistical Signal Processing: Estimation Theory*,
+       Prentice Hall, 1993, chapter 4 (linear models; sinusoids of known frequency).
+    """
+    rate = float(sampling_rate_hz)
+    if not rate > 0:
+        raise InvalidSettingError("`sampling_rate_hz` must be positive")
+    if not (isinstance(harmonics, (int, np.integer)) and harmonics >= 1):
+        raise InvalidSettingError("`harmonics` must be a whole number of at least 1")
+    if not 0 < false_alarm < 1:
+        raise InvalidSettingError("`false_alarm` must lie between 0 and 1")
+    if not stop_s >= start_s:
+        raise InvalidSettingError("`stop_s` must not come before `start_s`")
+    v = np.asarray(voltage_mv, dtype=float)
+    first = max(0, int(round(start_s * rate)))
+    stop = min(v.size, int(round(stop_s * rate)))
+    reference = ((int(round(reference_s[0] * rate)), int(round(reference_s[1] * rate)))
+                 if reference_s is not None else (first, max(first, stop)))
+    none = LineNoise(float("nan"), (), np.zeros(0), np.zeros(0), float("nan"), float("nan"),
+                     first, max(first, stop), rate, np.zeros((0, max(0, stop - first))),
+                     np.zeros(0), reference)
+    need = max(16, MIN_QUIET_PERIODS * rate / min(MAINS_FREQUENCIES_HZ))
+    part = v[first:stop]
+    if part.size < need or not np.isfinite(part).all():
+        return none
+    samples = np.arange(first, stop)
+    best = None
+    for f in MAINS_FREQUENCIES_HZ:
+        below = tuple(h for h in range(1, harmonics + 1) if h * f < rate / 2)
+        coef, _, _ = _fit(part, samples, rate, f, below, drift)
+        explained = float(np.sum(coef[int(drift):] ** 2))
+        if best is None or explained > best[0]:
+            best = (explained, f, below)
+    _, f, below = best
+    coef, _, cov = _fit(part, samples, rate, f, below, drift)
+    if cov is None:
+        return none
+    keep_drift = drift and _wald(coef[:1], cov[:1, :1]) > chi2.isf(false_alarm, 1)
+    d = int(drift)
+    kept = tuple(h for k, h in enumerate(below)
+                 if _wald(coef[d + 2 * k:d + 2 + 2 * k],
+                          cov[d + 2 * k:d + 2 + 2 * k, d + 2 * k:d + 2 + 2 * k])
+                 > chi2.isf(false_alarm, 2))
+    slope_sd = float(np.sqrt(max(0.0, cov[0, 0]))) if drift else float("nan")
+    slope = float(coef[0]) if drift else float("nan")
+    if not (keep_drift or kept):
+        return LineNoise(float("nan"), (), np.zeros(0), np.zeros(0), float("nan"), slope_sd,
+                         first, stop, rate, np.zeros((0, part.size)), np.zeros(0), reference,
+                         slope)
+    coef, rows, _ = _fit(part, samples, rate, f, kept, keep_drift)
+    hum = coef[1:] if keep_drift else coef
+    cos, sin = hum[0::2], hum[1::2]
+    return LineNoise(f if kept else float("nan"), kept, np.hypot(cos, sin),
+                     np.arctan2(-sin, cos), float(coef[0]) if keep_drift else float("nan"),
+                     slope_sd, first, stop, rate, rows, coef, reference, slope)
+
+
+def _wald(b: np.ndarray, cov: np.ndarray) -> float:
+    """b^T cov^-1 b; infinite when cov is singular and b is not zero."""
+    try:
+        return float(b @ np.linalg.solve(cov, b))
+    except np.linalg.LinAlgError:
+        return float("inf") if np.any(b) else 0.0
+
+
+def remove_line_noise(voltage_mv: np.ndarray, fit: LineNoise) -> np.ndarray:
+    """The voltage less the hum and drift of `fit` (a copy; the voltage itself when nothing
+    was found)."""
+    v = np.asarray(voltage_mv, dtype=float)
+    if not fit.found:
+        return v
+    return v - fit.artefact_mv(0, v.size)
+
+
+def corrected_weights(weights: np.ndarray, first_sample: int, fit: LineNoise
+                      ) -> tuple[np.ndarray, int]:
+    """Weights on the raw voltage of measurements that are weighted sums of the corrected one.
+
+    Parameters
+    ----------
+    weights : ndarray, shape (k, n)
+        Each row weighs the corrected voltage's samples [first_sample, first_sample + n).
+    first_sample : int
+    fit : LineNoise
+
+    Returns
+    -------
+    (ndarray, int)
+        Rows over a span that holds both those samples and the quiet stretch, and the
+        span's first sample.
+
+    Notes
+    -----
+    The corrected voltage is v - B S v_q (B the kept terms, S the sensitivity rows, v_q the
+    quiet stretch), so a weighted sum w . (v - B S v_q) = w . v - (w B) S v_q: the
+    correction's own uncertainty enters through the second term, and the covariance of the
+    rows under the recording's noise
+    (:func:`~spikemeasure.analysis.fluctuation.weighted_sums_covariance`) holds it.
+    """
+    rows = np.atleast_2d(np.asarray(weights, dtype=float))
+    if not fit.found:
+        return rows, int(first_sample)
+    n = rows.shape[1]
+    lo = min(int(first_sample), fit.first_sample)
+    hi = max(int(first_sample) + n, fit.stop_sample)
+    out = np.zeros((rows.shape[0], hi - lo))
+    out[:, first_sample - lo:first_sample - lo + n] = rows
+    through = rows @ fit.basis(int(first_sample), int(first_sample) + n)  # (k, terms)
+    out[:, fit.first_sample - lo:fit.stop_sample - lo] -= through @ fit.sensitivity
+    return out, lo
+
+
+def line_noise_lines() -> list[str]:
+    """The section of ``docs/measurements.md`` on hum and drift."""
+    mains = " and ".join(f"{f:g}" for f in MAINS_FREQUENCIES_HZ)
+    return [
+        "",
+        "## Hum and drift",
+        "",
+        "Mains hum (a sinusoid at the mains frequency and its harmonics, whose phase holds "
+        "across a sweep) and drift (a slow straight-line change of the recorded voltage) are "
+        "not the cell's response. For each sweep with a stimulus they are fitted by least "
+        "squares on the quiet stretch before the stimulus (from the end of any test pulse to "
+        f"the onset): a constant, a line in time, and cos and sin of the first {HUM_HARMONICS} "
+        f"harmonics below Nyquist of {mains} Hz, the mains frequency being the one whose "
+        "harmonics explain more of the stretch (no setting: both are tried). A harmonic or "
+        "the line is kept only when its Wald statistic against its own covariance (the "
+        "white-noise least-squares covariance of the residual, made larger when the "
+        "residual's spectrum shows correlated noise) passes the chi-square quantile for a "
+        f"false-alarm chance of {LINE_NOISE_FALSE_ALARM:g} (Wald 1943; Kay 1993, chapter 4), "
+        "so a clean recording keeps its values. After a test pulse only the hum is fitted: "
+        "the membrane may still be settling from the pulse, which a line would take for "
+        "drift. The kept terms are removed from the whole sweep with their mean over the "
+        "baseline window kept, so baseline_mv is unchanged.",
+        "",
+        "steady_state_mv, min_mv, sag_fraction and the time constant read the voltage so "
+        "corrected; the input resistance reads the deflections with the drift left in (see "
+        "input_resistance_mohm). The spike values read the recorded voltage. The SDs carry "
+        "the removal through: a window mean of the corrected voltage is a weighted sum of "
+        "the recorded one, the quiet stretch weighted by minus the removal's sensitivity, "
+        "and the covariance of those weights follows from the noise spectrum as for the "
+        "other SDs. A drift too small to pass the test (about 3 standard errors; at 0.5 mV "
+        "of white noise, 20 kHz and 200 ms before the step the slope's standard error is "
+        "about 0.25 mV/s) stays in the values and is not in their SDs.",
+    ]
