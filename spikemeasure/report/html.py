@@ -222,8 +222,8 @@ def _cells_section(record: dict, cells: ColumnTable, marks: list[list[dict]]) ->
                  "column names; every column is defined in docs/measurements.md "
                  "(<code>spikemeasure columns</code>). Values are rounded to what the "
                  "measurement supports: to two significant digits of the SD where the table "
-                 "has one (shown as value \u00b1 SD), else to the column's declared decimals; "
-                 "cells.csv holds them all. Flags in a value's place say why it is empty or "
+                 "has one (shown as value \u00b1 SD), else to the reading precision its "
+                 "column declares; cells.csv holds them all. Flags in a value's place say why it is empty or "
                  "what qualifies it. " + ("Cells marked \u2717 failed a quality check."
                                          if any(marks) else "") + "</p>")
     rows = []

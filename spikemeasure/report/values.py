@@ -116,7 +116,7 @@ def shown_number(value: float, decimals: int | None, sd: float = math.nan) -> st
     value : float
         NaN when not measured.
     decimals : int or None
-        The column's declared decimals; None for a count.
+        Decimals shown without an SD (at most as many with one); None for a count.
     sd : float, optional
         The value's SD, when the table has one (NaN: none).
 
