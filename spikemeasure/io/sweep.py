@@ -84,7 +84,7 @@ class StoredTrace(_TraceInFile):
     still in the file, and :meth:`Sweep.loaded` reads one sweep's voltage and command whole
     (float64, scaled as a :class:`LazyTrace` is) just before it is measured; they are dropped
     once it is. Slices (``trace[a:b]``) read only those samples, for the checks a reader makes
-    on a sweep's first samples.
+    on a sweep's first samples; any other index reads it all, then picks.
 
     Parameters
     ----------
@@ -93,6 +93,11 @@ class StoredTrace(_TraceInFile):
     n_samples : int
     scale : float, optional
     """
+
+    def __getitem__(self, key) -> np.ndarray:
+        if isinstance(key, slice):
+            return super().__getitem__(key)
+        return np.asarray(self)[key]  # an index or a mask: read it all, then pick
 
 
 @dataclass(frozen=True)
