@@ -168,7 +168,12 @@ def measure_recording(recording: Recording, settings: DetectionSettings = Detect
                       step_s: tuple[float, float] | None = None,
                       step_sizes_pa: tuple[float, float] | None = None, *,
                       cancel: Callable[[], None] | None = None) -> list[SweepResult]:
-    """Measure every sweep of a recording, in file order.
+    """Measure every sweep of a recording, in file order, one sweep at a time.
+
+    The steps of all sweeps come first (:func:`~spikemeasure.analysis.sweeps.protocol_steps`,
+    which reads one command at a time); then each sweep's samples waiting in the file
+    (:meth:`~spikemeasure.io.sweep.Sweep.loaded`) are read, measured and dropped: the results
+    hold the sweeps as given, no samples read for them.
 
     `step_s` (start_s, end_s) and `step_sizes_pa` (first_pa, increment_pa) describe the step
     of sweeps without a command channel. `cancel` (optional) is called with no arguments
