@@ -173,9 +173,13 @@ class StoredSignal:
 
 
 def _slice_reader(dataset):
+    # the dataset is opened for each read and let go after, so that its chunk cache goes too
+    # (open datasets of every sweep would each keep one)
+    file, name = dataset.file, dataset.name
+
     def read(start: int, stop: int) -> np.ndarray:
         try:
-            return dataset[start:stop]
+            return file[name][start:stop]
         except Exception as exc:  # h5py raises many types; keep the cause
             raise UnreadableInputError(
                 f"samples {start}-{stop} cannot be read ({library_failure(exc)})") from exc
