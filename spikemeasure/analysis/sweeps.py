@@ -10,7 +10,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from ..errors import InvalidSettingError, UnmeasurableDataError
+from ..errors import InvalidSettingError, UnmeasurableDataError, UnreadableInputError
 from ..io.sweep import LazyTrace, Sweep
 from .epochs import EPOCH_MEDIAN_SAMPLES, Stimulus, find_epochs, main_stimulus
 
@@ -282,7 +282,9 @@ def protocol_steps(sweeps: list[Sweep], step_s: tuple[float, float] | None = Non
 
     Notes
     -----
-    Each command is cut into epochs and its main stimulus chosen
+    The commands are read one at a time (a command waiting in the file,
+    :class:`~spikemeasure.io.sweep.StoredTrace`, is read and dropped), keeping only each
+    sweep's stimulus. Each command is cut into epochs and its main stimulus chosen
     (:func:`~spikemeasure.analysis.epochs.main_stimulus`). A sweep whose only stimulus lies
     where other sweeps have their test pulse (within two samples) has no stimulus of its own
     but that test pulse. A sweep without a stimulus of its own (a 0 pA sweep of a step
@@ -296,9 +298,11 @@ def protocol_steps(sweeps: list[Sweep], step_s: tuple[float, float] | None = Non
     for k, sweep in enumerate(sweeps):
         found = stimulus = None
         if sweep.command_pa is not None and sweep.command_pa.size >= 3:
-            cmd = np.asarray(sweep.command_pa, dtype=float)
-            stimulus = main_stimulus(cmd, sweep.sampling_rate_hz)
-            found = _step_of(stimulus)
+            cmd = _command_of(sweep)
+            if cmd is not None:
+                stimulus = main_stimulus(cmd, sweep.sampling_rate_hz)
+                found = _step_of(stimulus)
+            del cmd  # one command in memory at a time: only its stimulus is kept
         if found is None and step_s is not None and sweep.command_pa is None:
             size = step_sizes_pa[0] + k * step_sizes_pa[1] if step_sizes_pa else float("nan")
             found = step_from_times(step_s[0], step_s[1], sweep.duration_s, size)
@@ -321,6 +325,15 @@ def protocol_steps(sweeps: list[Sweep], step_s: tuple[float, float] | None = Non
         elif step_s is not None:
             steps[k] = step_from_times(step_s[0], step_s[1], sweep.duration_s, 0.0)
     return steps
+
+
+def _command_of(sweep: Sweep) -> np.ndarray | None:
+    """A sweep's command as a float64 array, read now when it waits in the file; None when
+    it cannot be read (the sweep's own measurement then says why)."""
+    try:
+        return np.asarray(sweep.command_pa, dtype=float)
+    except UnreadableInputError:
+        return None
 
 
 def _drop_lone_test_pulses(sweeps: list[Sweep], steps: list[CurrentStep | None],

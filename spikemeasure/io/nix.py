@@ -166,10 +166,15 @@ def _read_nix_fast(path_text: str, shown: str, max_sweep_samples: int) -> Record
             raise FastPathUnsupported("layout not read from HDF5") from exc
         if _read_lazily(*sizes, max_sweep_samples):
             raise FastPathUnsupported("long or large signals: read lazily through neo")
-        return segments_to_recording(_guarded(nix_segments(fh)), shown,
-                                     "NIX (one sweep per segment)")
-    finally:
+        recording = segments_to_recording(_guarded(nix_segments(fh)), shown,
+                                          "NIX (one sweep per segment)")
+    except BaseException:
         fh.close()
+        raise
+    if not any(sw.is_stored for sw in recording.sweeps):
+        fh.close()
+        return recording
+    return replace(recording, release=fh.close)  # the sweeps' samples are read from it
 
 
 def _guarded(segments):

@@ -6,7 +6,9 @@ block's data arrays, each with its ``data``, ``unit``, a sampled time dimension 
 section of properties), walked in creation order as nixio walks it. Each segment's signals are
 made as neo's NixIO makes them (a neo AnalogSignal per group of data arrays sharing a base
 name, with the name, start time and array annotations of their metadata), so the sweeps are
-the same; the samples of a segment are read when it is reached. Anything else raises
+the same. The samples of floating-point signals wait in the file (:class:`StoredSignal`) and
+are read one sweep at a time when that sweep is measured, while the file is open (the
+recording's ``release`` closes it); other signals are read when their segment is reached. Anything else raises
 :class:`~spikemeasure.io.nwb_hdf5.FastPathUnsupported`, and the file is read through neo.
 """
 from __future__ import annotations
@@ -15,10 +17,13 @@ from typing import Iterator
 
 import numpy as np
 
+from ..errors import UnreadableInputError
+from .messages import library_failure
 from .nwb_hdf5 import FastPathUnsupported
 from .signals import Segment
+from .sweep import StoredTrace
 
-__all__ = ["nix_segments", "nix_array_sizes"]
+__all__ = ["nix_segments", "nix_array_sizes", "StoredSignal"]
 
 _SIGNAL_TYPES = ("neo.analogsignal", "neo.irregularlysampledsignal", "neo.imagesequence")
 _ARRAY_ANNOTATION = "ARRAYANNOTATION"
@@ -124,7 +129,10 @@ def _signal(arrays: list):
     interval, dim_unit = dimension.attrs.get("sampling_interval"), dimension.attrs.get("unit")
     if interval is None or dim_unit is None:
         raise FastPathUnsupported("time dimension without an interval")
-    data = np.array([array["data"][()] for array in arrays]).transpose()
+    datasets = [array["data"] for array in arrays]
+    stored = _storable(datasets)
+    # a stored signal's metadata is made from its first sample (the samples wait in the file)
+    data = np.array([d[:1] if stored else d[()] for d in datasets]).transpose()
     samples = create_quantity(data, _text(unit))
     period = create_quantity(interval, _text(dim_unit))
     t_start = attributes.pop("t_start", None)
@@ -133,7 +141,50 @@ def _signal(arrays: list):
         if offset is None:
             raise FastPathUnsupported("time dimension without an offset")
         t_start = create_quantity(offset, _text(dim_unit))
-    return AnalogSignal(signal=samples, sampling_period=period, t_start=t_start, **attributes)
+    signal = AnalogSignal(signal=samples, sampling_period=period, t_start=t_start, **attributes)
+    return StoredSignal(signal, datasets) if stored else signal
+
+
+def _storable(datasets: list) -> bool:
+    """Whether a signal's samples can wait in the file: floating-point data arrays of one
+    length and type, which give the same float64 samples read one by one as together."""
+    first = datasets[0]
+    return (first.ndim == 1 and first.dtype.kind == "f"
+            and all(d.shape == first.shape and d.dtype == first.dtype for d in datasets))
+
+
+class StoredSignal:
+    """A neo AnalogSignal whose samples wait in the file: its metadata (units, sampling rate,
+    start time, name, annotations) are those of the signal made from its first sample, and
+    :meth:`stored_columns` gives each channel's samples as a
+    :class:`~spikemeasure.io.sweep.StoredTrace`, read when its sweep is measured."""
+
+    def __init__(self, metadata, datasets: list) -> None:
+        self._metadata = metadata
+        self._datasets = datasets
+        self.shape = (int(datasets[0].shape[0]), len(datasets))
+
+    def __getattr__(self, name: str):
+        return getattr(self._metadata, name)
+
+    def stored_columns(self) -> list:
+        """One StoredTrace per channel, in the signal's order."""
+        return [StoredTrace(_slice_reader(d), self.shape[0]) for d in self._datasets]
+
+
+def _slice_reader(dataset):
+    # the dataset is opened for each read and let go after, so that its chunk cache goes too
+    # (open datasets of every sweep would each keep one)
+    file, name = dataset.file, dataset.name
+
+    def read(start: int, stop: int) -> np.ndarray:
+        try:
+            return file[name][start:stop]
+        except Exception as exc:  # h5py raises many types; keep the cause
+            raise UnreadableInputError(
+                f"samples {start}-{stop} cannot be read ({library_failure(exc)})") from exc
+
+    return read
 
 
 def _segment_signals(group) -> list:

@@ -28,6 +28,10 @@ class Recording:
     format : str
         Which reader read it.
     sweeps : list of Sweep
+        In file order. Their samples may wait in the file (long sweeps read in pieces,
+        :class:`~spikemeasure.io.sweep.LazyTrace`; NIX sweeps read when measured,
+        :class:`~spikemeasure.io.sweep.StoredTrace` and :meth:`Sweep.loaded`), so the file
+        stays open until :meth:`close`.
     channels : list of ChannelInfo
         Channels of the first sweep.
     problems : list of str
@@ -64,7 +68,8 @@ class Recording:
         return ""
 
     def close(self) -> None:
-        """Close the file that long sweeps (:attr:`Sweep.is_lazy`) are read from."""
+        """Close the file that long sweeps (:attr:`Sweep.is_lazy`) and sweeps waiting to be
+        measured (:attr:`Sweep.is_stored`) are read from."""
         if callable(self.release):
             self.release()
 

@@ -72,16 +72,20 @@ def signal_columns(signal):
         name = safe_name(names[0]) if names else ""
         yield name or safe_name(signal.name, "signal"), signal.trace(), signal
         return
-    data = np.asarray(signal.magnitude, dtype=np.float64)
-    if data.ndim == 1:
-        data = data[:, None]
+    if hasattr(signal, "stored_columns"):  # samples left in the file until measured
+        columns = signal.stored_columns()
+    else:
+        data = np.asarray(signal.magnitude, dtype=np.float64)
+        if data.ndim == 1:
+            data = data[:, None]
+        columns = [data[:, c] for c in range(data.shape[1])]
     names = list(signal.array_annotations.get("channel_names", [])) if hasattr(
         signal, "array_annotations") else []
     base = safe_name(signal.name, "signal")
-    for c in range(data.shape[1]):
+    for c, column in enumerate(columns):
         own = safe_name(names[c]) if c < len(names) else ""
-        name = own or (base if data.shape[1] == 1 else f"{base}[{c}]")
-        yield name, data[:, c], signal
+        name = own or (base if len(columns) == 1 else f"{base}[{c}]")
+        yield name, column, signal
 
 
 def sweep_where(path: str, index: int, label: str, electrode: str = "") -> str:

@@ -2,34 +2,24 @@
 
 A :class:`Sweep` holds the membrane voltage in mV, the command current in pA (or ``None`` when
 the file has no command channel), the sampling rate in Hz and where it came from; a
-:class:`LazyTrace` is a long voltage left in its file and read by slices. The readers of this
-package build them; :mod:`spikemeasure.analysis` measures them.
+:class:`LazyTrace` is a long voltage left in its file and read by slices; a :class:`StoredTrace` is
+a sweep's signal left in its file until that sweep is measured (:meth:`Sweep.loaded`). The
+readers of this package build them; :mod:`spikemeasure.analysis` measures them.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Callable
 
 import numpy as np
 
-__all__ = ["Sweep", "LazyTrace"]
+__all__ = ["Sweep", "LazyTrace", "StoredTrace"]
 
 
-class LazyTrace:
-    """A long 1-D signal that stays in its file: ``trace[a:b]`` reads samples a to b-1.
-
-    Long gap-free recordings are handed to the measurement stage this way, so that they can be
-    measured in pieces in bounded memory. Slicing returns float64 arrays, scaled by `scale`
-    (a unit conversion); ``trace * k`` gives the same trace scaled by k. ``numpy.asarray``
-    reads all of it.
-
-    Parameters
-    ----------
-    read : callable
-        ``read(start, stop)`` returns samples ``start`` to ``stop - 1`` as a 1-D array.
-    n_samples : int
-    scale : float, optional
-    """
+class _TraceInFile:
+    """A 1-D signal left in its file: ``trace[a:b]`` reads samples a to b-1 as float64, scaled
+    by `scale` (a unit conversion); ``trace * k`` gives the same trace scaled by k;
+    ``numpy.asarray`` reads all of it."""
 
     ndim = 1
     dtype = np.dtype(np.float64)
@@ -44,14 +34,14 @@ class LazyTrace:
     def __len__(self) -> int:
         return self.size
 
-    def __mul__(self, factor: float) -> "LazyTrace":
-        return LazyTrace(self._read, self.size, self.scale * float(factor))
+    def __mul__(self, factor: float):
+        return type(self)(self._read, self.size, self.scale * float(factor))
 
     __rmul__ = __mul__
 
     def __getitem__(self, key) -> np.ndarray:
         if not isinstance(key, slice):
-            raise TypeError("a LazyTrace is read by slices, such as trace[a:b]")
+            raise TypeError(f"a {type(self).__name__} is read by slices, such as trace[a:b]")
         start, stop, step = key.indices(self.size)
         if stop <= start:
             return np.zeros(0)
@@ -67,7 +57,47 @@ class LazyTrace:
         return whole.astype(dtype) if dtype is not None else whole
 
     def __repr__(self) -> str:
-        return f"LazyTrace({self.size} samples, scale {self.scale:g})"
+        return f"{type(self).__name__}({self.size} samples, scale {self.scale:g})"
+
+
+class LazyTrace(_TraceInFile):
+    """A long 1-D signal that stays in its file: ``trace[a:b]`` reads samples a to b-1.
+
+    Long gap-free recordings are handed to the measurement stage this way, so that they can be
+    measured in pieces in bounded memory. Slicing returns float64 arrays, scaled by `scale`
+    (a unit conversion); ``trace * k`` gives the same trace scaled by k. ``numpy.asarray``
+    reads all of it.
+
+    Parameters
+    ----------
+    read : callable
+        ``read(start, stop)`` returns samples ``start`` to ``stop - 1`` as a 1-D array.
+    n_samples : int
+    scale : float, optional
+    """
+
+
+class StoredTrace(_TraceInFile):
+    """A sweep's signal of ordinary length left in its file until the sweep is measured.
+
+    A file is measured one sweep at a time: its sweeps are handed out with their samples
+    still in the file, and :meth:`Sweep.loaded` reads one sweep's voltage and command whole
+    (float64, scaled as a :class:`LazyTrace` is) just before it is measured; they are dropped
+    once it is. Slices (``trace[a:b]``) read only those samples, for the checks a reader makes
+    on a sweep's first samples; any other index reads it all, then picks.
+
+    Parameters
+    ----------
+    read : callable
+        ``read(start, stop)`` returns samples ``start`` to ``stop - 1`` as a 1-D array.
+    n_samples : int
+    scale : float, optional
+    """
+
+    def __getitem__(self, key) -> np.ndarray:
+        if isinstance(key, slice):
+            return super().__getitem__(key)
+        return np.asarray(self)[key]  # an index or a mask: read it all, then pick
 
 
 @dataclass(frozen=True)
@@ -76,12 +106,13 @@ class Sweep:
 
     Attributes
     ----------
-    voltage_mv : ndarray or LazyTrace
+    voltage_mv : ndarray, LazyTrace or StoredTrace
         Membrane voltage in mV, 1-D float64 (a :class:`LazyTrace` for a long recording read
-        in pieces).
+        in pieces; a :class:`StoredTrace` while the samples wait in the file, see
+        :meth:`loaded`).
     sampling_rate_hz : float
         Samples per second.
-    command_pa : ndarray or None
+    command_pa : ndarray, StoredTrace or None
         Command (injected) current in pA, same length as the voltage, or None.
     file : str
         The path the sweep was read from, as given to the reader.
@@ -116,6 +147,25 @@ class Sweep:
     def is_lazy(self) -> bool:
         """True when the voltage stays in the file and is read in pieces."""
         return isinstance(self.voltage_mv, LazyTrace)
+
+    @property
+    def is_stored(self) -> bool:
+        """True when the voltage or command waits in the file (:class:`StoredTrace`)."""
+        return (isinstance(self.voltage_mv, StoredTrace)
+                or isinstance(self.command_pa, StoredTrace))
+
+    def loaded(self) -> "Sweep":
+        """The sweep with a voltage and command waiting in the file read now (float64
+        arrays); the sweep itself when nothing waits. The arrays belong to the returned sweep
+        alone: drop it once measured, and the samples go with it."""
+        if not self.is_stored:
+            return self
+        voltage, command = self.voltage_mv, self.command_pa
+        return replace(self,
+                       voltage_mv=(np.asarray(voltage) if isinstance(voltage, StoredTrace)
+                                   else voltage),
+                       command_pa=(np.asarray(command) if isinstance(command, StoredTrace)
+                                   else command))
 
     @property
     def duration_s(self) -> float:

@@ -5,6 +5,7 @@ Nothing here reads or writes files; :mod:`spikemeasure.tables.write` writes the 
 from __future__ import annotations
 
 from dataclasses import dataclass, replace
+from collections.abc import Sequence
 from typing import Callable
 
 import numpy as np
@@ -18,6 +19,7 @@ from ..analysis.spikes import (PIECE_SAMPLES, SpikeMeasurements, first_in_step, 
 from ..analysis.spikes_in_parts import measure_around_gaps, measure_in_pieces_with_gaps
 from ..analysis.spike_uncertainty import with_uncertainty
 from ..io import Recording, Sweep
+from ..io.sweep import StoredTrace
 from ..analysis.sweep_features import SweepFeatures, sweep_features
 from ..analysis.sweeps import (CurrentStep, check_sweep, missing_stretches, protocol_steps,
                      spikes_measurable, stretches_text)
@@ -86,7 +88,9 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
     raising (see :func:`~spikemeasure.analysis.spikes_in_parts.measure_in_pieces`).
     """
     rate = sweep.sampling_rate_hz
+    kept = sweep  # the result keeps the sweep as given: samples waiting in the file stay there
     try:
+        sweep = sweep.loaded()
         if sweep.is_lazy and step is not None:
             sweep = replace(sweep, voltage_mv=np.asarray(sweep.voltage_mv))
         check_sweep(sweep)
@@ -140,8 +144,8 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
             msg = msg[len(sweep.file) + 2:]
         if not msg.startswith(sweep.file):
             msg = f"{sweep.where()}: {msg}"
-        return SweepResult(sweep, None, None, None, msg)
-    return SweepResult(sweep, step, spikes, features)
+        return SweepResult(kept, None, None, None, msg)
+    return SweepResult(kept, step, spikes, features)
 
 
 def _lazy_gaps(sweep: Sweep, cancel=None) -> np.ndarray:
@@ -164,7 +168,12 @@ def measure_recording(recording: Recording, settings: DetectionSettings = Detect
                       step_s: tuple[float, float] | None = None,
                       step_sizes_pa: tuple[float, float] | None = None, *,
                       cancel: Callable[[], None] | None = None) -> list[SweepResult]:
-    """Measure every sweep of a recording, in file order.
+    """Measure every sweep of a recording, in file order, one sweep at a time.
+
+    The steps of all sweeps come first (:func:`~spikemeasure.analysis.sweeps.protocol_steps`,
+    which reads one command at a time); then each sweep's samples waiting in the file
+    (:meth:`~spikemeasure.io.sweep.Sweep.loaded`) are read, measured and dropped: the results
+    hold the sweeps as given, no samples read for them.
 
     `step_s` (start_s, end_s) and `step_sizes_pa` (first_pa, increment_pa) describe the step
     of sweeps without a command channel. `cancel` (optional) is called with no arguments
@@ -203,8 +212,27 @@ def cell_summary(results: list[SweepResult]) -> CellFeatures:
                       {name: float(getattr(r.spikes, name)[k]) for name in
                        ("threshold_mv", "amplitude_mv", "half_width_ms", "ahp_depth_mv")})
     return cell_features([r.features.as_dict() for r in measured],
-                         [(r.sweep.voltage_mv, r.sweep.sampling_rate_hz) for r in measured],
-                         firsts)
+                         _VoltagesOnDemand([r.sweep for r in measured]), firsts)
+
+
+class _VoltagesOnDemand(Sequence):
+    """(voltage_mv, sampling_rate_hz) of each sweep, a voltage waiting in the file read when
+    its item is asked for and not kept: the cell summary reads only the few sweeps it fits."""
+
+    def __init__(self, sweeps: list[Sweep]) -> None:
+        self._sweeps = sweeps
+
+    def __len__(self) -> int:
+        return len(self._sweeps)
+
+    def __getitem__(self, position):
+        if isinstance(position, slice):
+            return [self[k] for k in range(*position.indices(len(self)))]
+        sweep = self._sweeps[position]
+        voltage = sweep.voltage_mv
+        if isinstance(voltage, StoredTrace):
+            voltage = np.asarray(voltage)
+        return voltage, sweep.sampling_rate_hz
 
 
 def sweep_table(results: list[SweepResult]) -> dict[str, list]:
