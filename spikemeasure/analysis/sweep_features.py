@@ -344,30 +344,11 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
     flags: list[str] = []
     n_total = voltage_mv.size if duration_s is None else int(round(float(duration_s) * rate))
 
-    def fire_over(window: CurrentStep, lo: int, hi: int) -> dict:
-        fire = firing(times[np.isfinite(times)], window)
-        fire["clipped_spike_count"] = int(clipped_spike_count)
-        if not spikes_counted:
-            fire = {key: nan for key in fire}
-            flags.append("too_slow_for_spikes")
-            return fire
-        gap_inside = _touches(gaps, lo, hi)
-        if gap_inside or not np.isfinite(times).all():
-            flags.append("spike_count_lower_bound")
-            first_gap_s = (max(lo, int(gaps[(gaps[:, 0] < hi) & (gaps[:, 1] > lo)][0, 0])) / rate
-                           if gap_inside else nan)
-            for key in ("firing_rate_hz", "mean_isi_ms", "isi_cv", "adaptation_index"):
-                fire[key] = nan
-            latency = fire["first_spike_latency_ms"]
-            if not (np.isfinite(latency) and gap_inside
-                    and window.onset_s + latency * 1e-3 < first_gap_s):
-                fire["first_spike_latency_ms"] = nan
-        return fire
-
     if step is None:
         # no current step (a gap-free recording): the firing over the whole sweep
         length_s = n_total / rate if duration_s is None else float(duration_s)
-        fire = fire_over(CurrentStep(0.0, length_s), 0, n_total)
+        fire = _firing_around_gaps(times, CurrentStep(0.0, length_s), 0, n_total, gaps, rate,
+                                   spikes_counted, clipped_spike_count, flags)
         fire["first_spike_latency_ms"] = nan
         return SweepFeatures(
             stimulus_pa=nan, holding_pa=nan, stimulus_start_s=nan, stimulus_end_s=nan,
@@ -391,7 +372,8 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
     base, noise = baseline(voltage_mv, sampling_rate_hz, step.onset_s, baseline_window_ms,
                            step.baseline_start_s)
     drift = baseline_drift(voltage_mv, sampling_rate_hz, step.offset_s, base)
-    fire = fire_over(step, onset_i, offset_i)
+    fire = _firing_around_gaps(times, step, onset_i, offset_i, gaps, rate, spikes_counted,
+                               clipped_spike_count, flags)
     if (spikes_counted and step.shape == "step" and step.size_pa > 0
             and "gap_in_step" not in flags
             and depolarization_block(voltage_mv, rate, times, step.onset_s,
@@ -421,6 +403,36 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
         baseline_drift_mv=drift, flags=tuple(flags),
         **_stimulus_values(step, fire["first_spike_latency_ms"], rate, command_pa), **fire)
 
+
+
+def _firing_around_gaps(times: np.ndarray, window: CurrentStep, lo: int, hi: int,
+                        gaps: np.ndarray, rate: float, spikes_counted: bool,
+                        clipped_spike_count: int, flags: list[str]) -> dict:
+    """:func:`firing` over `window` (samples `lo` to `hi` - 1) as :func:`sweep_features`
+    reports it: every value NaN when spikes could not be counted (flag
+    ``too_slow_for_spikes``); with a gap in the window or a spike time unknown, the count a
+    lower bound (flag ``spike_count_lower_bound``), rate and interval statistics NaN, and the
+    latency kept only when there is a gap in the window and the first spike precedes it.
+    Appends its flags to `flags`."""
+    nan = float("nan")
+    fire = firing(times[np.isfinite(times)], window)
+    fire["clipped_spike_count"] = int(clipped_spike_count)
+    if not spikes_counted:
+        fire = {key: nan for key in fire}
+        flags.append("too_slow_for_spikes")
+        return fire
+    gap_inside = _touches(gaps, lo, hi)
+    if gap_inside or not np.isfinite(times).all():
+        flags.append("spike_count_lower_bound")
+        first_gap_s = (max(lo, int(gaps[(gaps[:, 0] < hi) & (gaps[:, 1] > lo)][0, 0])) / rate
+                       if gap_inside else nan)
+        for key in ("firing_rate_hz", "mean_isi_ms", "isi_cv", "adaptation_index"):
+            fire[key] = nan
+        latency = fire["first_spike_latency_ms"]
+        if not (np.isfinite(latency) and gap_inside
+                and window.onset_s + latency * 1e-3 < first_gap_s):
+            fire["first_spike_latency_ms"] = nan
+    return fire
 
 
 def _drift_over(line_noise: LineNoise, first: int, stop: int) -> float:
