@@ -333,7 +333,7 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
       :data:`MAX_TAU_SD_FRACTION` of tau (noise taken as at least :data:`NOISE_FLOOR_MV`),
       or the fitted tau spans under 2 samples.
       The fit reads the voltage less the sweep's significant hum and drift
-      (:func:`~spikemeasure.analysis.sweep_features.passive_voltage`). R^2 alone would reject good fits to small, noisy deflections,
+      (:func:`~spikemeasure.analysis.sweep_passive.passive_voltage`). R^2 alone would reject good fits to small, noisy deflections,
       since noise caps it. Empty too (flag ``baseline_fluctuates``) when the baseline's slow
       fluctuation (:func:`~spikemeasure.analysis.fluctuation.slow_fluctuation_mv` over a
       :data:`TAU_SMOOTHING_MS` average, less in quadrature the s / sqrt(samples) white
@@ -346,7 +346,7 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
     - input_resistance_mohm_sd: :func:`input_resistance_sd` of the sweeps' deflection_sd_mv.
     - sag_fraction: that of the most hyperpolarizing sweep, with the flag
       ``sag_within_noise`` when that sweep has it (its sag, 0, could not be told from noise:
-      :func:`~spikemeasure.analysis.sweep_features.passive_response`): one rule for both
+      :func:`~spikemeasure.analysis.sweep_passive.passive_response`): one rule for both
       tables.
     - rheobase_*: threshold, amplitude, half-width and AHP depth of the rheobase sweep's first
       spike in the step.
