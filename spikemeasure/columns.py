@@ -18,22 +18,23 @@ import numpy as np
 from .analysis.detection import DetectionSettings, smoothing_window_samples
 from .analysis.bridge import CHARGING_FIT_MS, EDGE_FIT_MS, SETTLE_MS
 from .analysis.cell_features import (CELL_FLAG_TEXT, END_FRACTION, FILTER_DELAY_MS,
-                            HOLDING_TOLERANCE_PA,
-                            MAX_RESIDUAL_TO_NOISE, MIN_DEFLECTION_TO_NOISE, NOISE_FLOOR_MV,
-                            MAX_TAU_SD_FRACTION,
-                            SAG_NOISE_FACTOR, SLOW_SWEEP_MAX_RISE_MV, TAU_SMOOTHING_MS)
+                            HOLDING_TOLERANCE_PA, TAU_SMOOTHING_MS)
+from .analysis.cell_passive import (MAX_RESIDUAL_TO_NOISE, MAX_TAU_SD_FRACTION,
+                                    MIN_DEFLECTION_TO_NOISE, NOISE_FLOOR_MV,
+                                    SLOW_SWEEP_MAX_RISE_MV)
 from .analysis.epochs import (MAX_EDGE_MS, MIN_LEVEL_CHANGE_PA, NOISE_MULTIPLE,
                               RESIDUAL_WINDOW_MS)
 from .analysis.spike_features import (ONSET_NOISE_FRACTION, PEAK_NOISE_MV, PEAK_WIDTH_FACTOR,
                                       SECOND_DERIVATIVE_LOOKBACK_MS, extreme_lines)
 from .analysis.spike_rates import FALL_NOISE_FRACTION, FALL_WIDTH_FACTOR
-from .analysis.spike_uncertainty import MIN_QUIET_MS, sd_values, uncertainty_lines
+from .analysis.noise_model import MIN_QUIET_MS
+from .analysis.spike_uncertainty import sd_values, uncertainty_lines
 from .analysis.line_noise import line_noise_lines
 from .analysis.sweeps import COMMAND_MEDIAN_SAMPLES
 from .analysis.spikes import CLIPPED_RUN_SAMPLES, FLAG_TEXT, PIECE_SAMPLES
-from .analysis.sweep_features import (BASELINE_WINDOW_MS, DRIFT_WINDOW_MS, MIN_WINDOW_MS,
-                                      STEADY_STATE_WINDOW_MS, SWEEP_FLAG_TEXT,
-                                      TROUGH_WINDOW_FRACTION)
+from .analysis.sweep_features import BASELINE_WINDOW_MS, DRIFT_WINDOW_MS, SWEEP_FLAG_TEXT
+from .analysis.sweep_passive import (MIN_WINDOW_MS, SAG_NOISE_FACTOR, STEADY_STATE_WINDOW_MS,
+                                     TROUGH_WINDOW_FRACTION)
 from .params import parameter
 
 __all__ = ["Column", "SPIKE_COLUMNS", "SPIKE_MARKS", "SWEEP_COLUMNS", "CELL_COLUMNS",

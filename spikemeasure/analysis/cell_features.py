@@ -1,5 +1,6 @@
-"""Per-cell features across a step series: rest, rheobase, f-I slope, input resistance,
-membrane time constant, sag, and the first spike at rheobase.
+"""Per-cell features across a step series: rest, rheobase, f-I slope, the first spike at
+rheobase, and the cell's row gathering them with the passive values (input resistance, bridge
+error, membrane time constant, sag: :mod:`~spikemeasure.analysis.cell_passive`).
 
 Functions take per-sweep values (arrays aligned by sweep) or one voltage trace, and return
 plain values or a small dataclass; nothing here reads files or prints.
@@ -10,12 +11,16 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 
-from .bridge import MIN_TAU_TO_SETTLE, SETTLE_MS, bridge_error, edge_jump
-from .fluctuation import baseline_stretch, slow_fluctuation_mv
+from .bridge import MIN_TAU_TO_SETTLE, SETTLE_MS
+from .fluctuation import BASELINE_WINDOW_MS
 from .membrane_tau import (END_FRACTION, FILTER_DELAY_MS, TAU_SMOOTHING_MS, ExponentialFit,
                            exponential_fit_sd, fit_membrane_tau)
-from .sweep_features import BASELINE_WINDOW_MS, SAG_NOISE_FACTOR, passive_voltage
-from .sweeps import CurrentStep
+# the passive values, importable from here as before
+from .cell_passive import (MAX_FLUCTUATION_TO_DEFLECTION, MAX_RESIDUAL_TO_NOISE,
+                           MAX_TAU_SD_FRACTION, MIN_DEFLECTION_TO_NOISE, NOISE_FLOOR_MV,
+                           SLOW_SWEEP_MAX_RISE_MV, input_resistance, input_resistance_sd,
+                           passive_sweeps, passive_values, steps_only)
+from .sweep_passive import SAG_NOISE_FACTOR
 
 __all__ = ["CellFeatures", "ExponentialFit", "fit_membrane_tau", "rheobase", "ramp_rheobase",
            "fi_slope", "input_resistance", "input_resistance_sd", "exponential_fit_sd",
@@ -25,27 +30,8 @@ __all__ = ["CellFeatures", "ExponentialFit", "fit_membrane_tau", "rheobase", "ra
            "HOLDING_TOLERANCE_PA", "SLOW_SWEEP_MAX_RISE_MV", "MAX_FLUCTUATION_TO_DEFLECTION",
            "SAG_NOISE_FACTOR"]
 
-#: A time-constant fit is poor when its residual RMS exceeds this multiple of the sweep's
-#: baseline noise (the response is not one exponential: resonance, sag, active currents) ...
-MAX_RESIDUAL_TO_NOISE = 1.5
-#: ... or when the deflection is smaller than this multiple of the noise (too small to fit).
-MIN_DEFLECTION_TO_NOISE = 5.0
-#: ... unless the time constant's SD (:func:`exponential_fit_sd`) is at most this fraction
-#: of it: the noise then pins it (2 SD within the 10 % a time constant is judged by).
-MAX_TAU_SD_FRACTION = 0.05
-#: Noise below this (mV) counts as this much, so a noise-free trace is not held to zero.
-NOISE_FLOOR_MV = 0.05
 #: Sweeps whose holding current is within this of zero count as "no holding current".
 HOLDING_TOLERANCE_PA = 1.0
-#: A hyperpolarizing sweep sampled too slowly to count spikes is taken as spike-free when no
-#: sample of its step lies more than this above its baseline (a rule of our own: a spike
-#: rises tens of mV, noise and rebound a few).
-SLOW_SWEEP_MAX_RISE_MV = 10.0
-#: The time constant is left empty when the baseline's slow fluctuation (SD of its
-#: TAU_SMOOTHING_MS moving average) exceeds this fraction of the deflection fitted: synaptic
-#: background moves the voltage on the time constant's own time scale, which no residual
-#: test against that same background can see (a rule of our own).
-MAX_FLUCTUATION_TO_DEFLECTION = 0.05
 
 #: Sweep flags that mean a gap emptied some of a sweep's passive values.
 _GAP_FLAGS = ("gap_in_baseline_window", "gap_in_step", "gap_in_steady_state_window",
@@ -213,96 +199,6 @@ def fi_slope(stimulus_pa: np.ndarray, rate_hz: np.ndarray, rheobase_pa: float) -
     return float(np.polyfit(stim[use], rate[use], 1)[0])
 
 
-def input_resistance(stimulus_pa: np.ndarray, deflection_mv: np.ndarray) -> float:
-    """Least-squares slope of the steady-state deflection on the step size, in MOhm.
-
-    (mV / pA is GOhm; times 1000.) NaN with fewer than 2 distinct steps.
-    """
-    stim = np.asarray(stimulus_pa, dtype=float)
-    dv = np.asarray(deflection_mv, dtype=float)
-    use = np.isfinite(stim) & np.isfinite(dv)
-    if np.unique(stim[use]).size < 2:
-        return float("nan")
-    return float(np.polyfit(stim[use], dv[use], 1)[0] * 1e3)
-
-
-def input_resistance_sd(stimulus_pa: np.ndarray, deflection_sd_mv: np.ndarray) -> float:
-    """SD (MOhm) of :func:`input_resistance` given each deflection's SD.
-
-    Parameters
-    ----------
-    stimulus_pa : ndarray
-        Step sizes of the sweeps fitted.
-    deflection_sd_mv : ndarray
-        SD of each sweep's steady_state_mv - baseline_mv (the sweep's deflection_sd_mv).
-
-    Returns
-    -------
-    float
-        NaN with fewer than 2 distinct steps or an unknown SD.
-
-    Notes
-    -----
-    The least-squares slope is sum w_j d_j with w_j = (I_j - mean I) / sum (I - mean I)^2;
-    with independent deflections its variance is sum w_j^2 sd_j^2 (the slope's standard
-    error for known, unequal errors: Bevington and Robinson 2003, section 6.4, from memory).
-    """
-    stim = np.asarray(stimulus_pa, dtype=float)
-    sd = np.asarray(deflection_sd_mv, dtype=float)
-    if np.unique(stim).size < 2 or not np.isfinite(stim).all() or not np.isfinite(sd).all():
-        return float("nan")
-    weights = (stim - stim.mean()) / np.sum((stim - stim.mean()) ** 2)
-    return float(np.sqrt(np.sum(weights ** 2 * sd ** 2)) * 1e3)
-
-
-def _spike_free_hyperpolarizing(col: dict, slow: np.ndarray, lower: np.ndarray,
-                                traces: list[tuple[np.ndarray, float]]) -> np.ndarray:
-    """Hyperpolarizing sweeps known to be spike-free: counted 0 exactly, or sampled too slowly
-    to count and with no sample of the step over SLOW_SWEEP_MAX_RISE_MV above baseline."""
-    stim, count = col["stimulus_pa"], col["spike_count"]
-    hyper = np.isfinite(stim) & (stim < 0)
-    out = hyper & np.isfinite(count) & ~lower & (count == 0)
-    for j in np.flatnonzero(hyper & slow):
-        v, rate = traces[j]
-        lo = int(round(col["stimulus_start_s"][j] * rate))
-        hi = int(round(col["stimulus_end_s"][j] * rate))
-        part = np.asarray(v[lo:hi], dtype=float)
-        part = part[np.isfinite(part)]
-        out[j] = bool(part.size and np.isfinite(col["baseline_mv"][j])
-                      and part.max() <= col["baseline_mv"][j] + SLOW_SWEEP_MAX_RISE_MV)
-    return out
-
-
-def passive_sweeps(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
-                   ) -> np.ndarray:
-    """Which sweeps the input resistance is fitted to.
-
-    Parameters
-    ----------
-    sweep_rows : list of dict
-        One :class:`~spikemeasure.analysis.sweep_features.SweepFeatures` ``as_dict()`` per sweep.
-    traces : list of (voltage_mv, sampling_rate_hz)
-        The raw voltage of the same sweeps.
-
-    Returns
-    -------
-    ndarray of bool
-        True for hyperpolarizing sweeps known to be spike-free (see :func:`cell_features`)
-        with a finite steady_state_mv - baseline_mv.
-    """
-    if len(sweep_rows) != len(traces):
-        raise ValueError("`sweep_rows` and `traces` must have the same length")
-    if not sweep_rows:
-        return np.zeros(0, dtype=bool)
-    col = {k: np.array([r[k] for r in sweep_rows], dtype=float) for k in
-           ("stimulus_pa", "spike_count", "baseline_mv", "steady_state_mv", "stimulus_start_s",
-            "stimulus_end_s")}
-    _steps_only(sweep_rows, col)
-    flags = [set(filter(None, str(r.get("flags", "")).split(";"))) for r in sweep_rows]
-    slow = np.array(["too_slow_for_spikes" in f for f in flags], dtype=bool)
-    lower = np.array(["spike_count_lower_bound" in f for f in flags], dtype=bool)
-    return (_spike_free_hyperpolarizing(col, slow, lower, traces)
-            & np.isfinite(col["steady_state_mv"] - col["baseline_mv"]))
 
 
 def _before_block(col: dict, sweep_flags: list[set], values: dict) -> None:
@@ -337,15 +233,6 @@ def ramp_rheobase(shapes: list[str], first_spike_current_pa: np.ndarray) -> floa
     fired = current[ramps & np.isfinite(current)]
     return float(fired.min()) if fired.size else float("nan")
 
-
-def _steps_only(sweep_rows: list[dict], col: dict) -> np.ndarray:
-    """Blank stimulus_pa of sweeps whose stimulus is not a step (a ramp, another shape), so
-    the step-only values leave them out; returns which sweeps are not steps."""
-    other = np.array([r.get("stimulus_shape", "step") not in ("step", "none")
-                      for r in sweep_rows], dtype=bool)
-    if other.size:
-        col["stimulus_pa"] = np.where(other, np.nan, col["stimulus_pa"])
-    return other
 
 
 def _resting(col: dict, sweep_flags: list[set], flags: list[str]) -> float:
@@ -403,129 +290,6 @@ def _firing_values(col: dict, slow: np.ndarray, lower: np.ndarray,
     return k if np.isfinite(values["rheobase_pa"]) else -1
 
 
-def _passive_values(col: dict, slow: np.ndarray, lower: np.ndarray, gapped: np.ndarray,
-                    traces: list[tuple[np.ndarray, float]], sweep_flags: list[set],
-                    values: dict, flags: list[str]) -> None:
-    """Input resistance, sag and the membrane time constant (see :func:`cell_features`) into
-    `values`, their flags into `flags`."""
-    stim, count = col["stimulus_pa"], col["spike_count"]
-    hyper_all = np.isfinite(stim) & (stim < 0)
-    candidates = _spike_free_hyperpolarizing(col, slow, lower, traces)
-    slow_silent = candidates & slow
-    # with the drift left in (sweep_features): a drift common to the sweeps cancels
-    deflection = np.where(np.isfinite(col["deflection_mv"]), col["deflection_mv"],
-                          col["steady_state_mv"] - col["baseline_mv"])
-    passive = np.flatnonzero(candidates & np.isfinite(deflection))
-    if slow_silent[passive].any():
-        flags.append("slow_sweeps_taken_as_spike_free")
-    if (hyper_all & ((candidates & ~np.isfinite(deflection))
-                     | (lower & ~(count > 0) & ~slow))).any():
-        flags.append("input_resistance_skips_gap_sweeps")
-    values["input_resistance_mohm"] = input_resistance(stim[passive], deflection[passive])
-    if np.isfinite(values["input_resistance_mohm"]):
-        values["input_resistance_mohm_sd"] = input_resistance_sd(
-            stim[passive], col["deflection_sd_mv"][passive])
-    if not np.isfinite(values["input_resistance_mohm"]):
-        flags.append("too_few_passive_sweeps")
-    values["bridge_error_mohm"] = _bridge_median(col, passive[~gapped[passive]], traces)
-    if passive[~gapped[passive]].size and not np.isfinite(values["bridge_error_mohm"]):
-        flags.append("bridge_error_not_separable")
-    hyper = np.flatnonzero(hyper_all)
-    if hyper.size == 0:
-        flags.append("no_hyperpolarizing_step")
-    else:
-        deepest = hyper[np.argmin(stim[hyper])]
-        clear = hyper[~gapped[hyper]]
-        if gapped[deepest] and clear.size:
-            flags.append("sag_skips_gap_sweeps")
-            deepest = clear[np.argmin(stim[clear])]
-        values["sag_fraction"] = float(col["sag_fraction"][deepest])
-        if "sag_within_noise" in sweep_flags[deepest]:
-            flags.append("sag_within_noise")
-        # hyperpolarizing and spike-free, or it would be but for a gap in its step
-        pool = np.flatnonzero(hyper_all & (candidates | (lower & ~(count > 0) & ~slow)))
-        fit_ok = np.flatnonzero(candidates & ~gapped)
-        if pool.size and (fit_ok.size == 0 or stim[fit_ok].max() < stim[pool].max()):
-            flags.append("membrane_tau_skips_gap_sweeps")
-        if fit_ok.size:
-            _tau_value(col, int(fit_ok[np.argmax(stim[fit_ok])]), traces, sweep_flags, values,
-                       flags)
-
-
-def _bridge_median(col: dict, sweeps: np.ndarray, traces: list[tuple[np.ndarray, float]]
-                   ) -> float:
-    """bridge_error_mohm (see :func:`cell_features`): the median over `sweeps` of
-    :func:`~spikemeasure.analysis.bridge.bridge_error`, and over the onsets of every sweep's
-    hyperpolarizing test pulse (a test pulse is there to show the electrode's jump; with one
-    per sweep the median rests on many edges, not only on the few hyperpolarizing steps)."""
-    found = [bridge_error(traces[j][0], traces[j][1], col["stimulus_start_s"][j],
-                          col["stimulus_end_s"][j], col["stimulus_pa"][j]).bridge_error_mohm
-             for j in sweeps]
-    pulse_pa = np.asarray(col.get("test_pulse_pa", []), dtype=float)
-    pulse_s = np.asarray(col.get("test_pulse_start_s", []), dtype=float)
-    for j in np.flatnonzero(np.isfinite(pulse_s) & (pulse_pa < 0)) if pulse_s.size else ():
-        jump = edge_jump(traces[j][0], traces[j][1], float(pulse_s[j]))
-        found.append(jump / float(pulse_pa[j]) * 1e3)  # mV / pA = GOhm
-    found = [r for r in found if np.isfinite(r)]
-    return float(np.median(found)) if found else float("nan")
-
-
-def _tau_value(col: dict, j: int, traces: list[tuple[np.ndarray, float]],
-               sweep_flags: list[set], values: dict, flags: list[str]) -> None:
-    """membrane_tau_ms and its fit's quality (see :func:`cell_features`) from sweep `j` into
-    `values`, their flags into `flags`."""
-    raw, rate = traces[j]
-    onset, offset = col["stimulus_start_s"][j], col["stimulus_end_s"][j]
-    quiet_s = col["baseline_start_s"][j]
-    # the fit and its tests read the membrane without the sweep's hum and drift
-    v, line_noise = passive_voltage(np.asarray(raw, dtype=float), rate, CurrentStep(
-        onset, offset, baseline_start_s=float(quiet_s) if np.isfinite(quiet_s) else 0.0,
-        test_pulse_start_s=float(col["test_pulse_start_s"][j])))
-    base_noise = (float(np.std(baseline_stretch(v, rate, onset, earliest_s=quiet_s)))
-                  if line_noise.found else float(col["baseline_noise_mv"][j]))
-    noise = max(base_noise, NOISE_FLOOR_MV) if np.isfinite(base_noise) else NOISE_FLOOR_MV
-    # an electrode jump (the cell's bridge error times this step) above the noise is left
-    # out with the filter's settling after it; without one, only the low-pass filter's
-    # delay, which lengthens a fast membrane's tau (4 % at 1.5 ms behind a 3 kHz Bessel)
-    jump = values["bridge_error_mohm"] * col["stimulus_pa"][j] * 1e-3
-    skip = SETTLE_MS if np.isfinite(jump) and abs(jump) > noise else FILTER_DELAY_MS
-    fit = fit_membrane_tau(v, rate, onset, offset, skip_ms=skip)
-    if fit is None:
-        flags.append("tau_fit_failed")
-        return
-    ratio = fit.rms_residual_mv / noise
-    values["membrane_tau_fit_r2"] = fit.r_squared
-    values["membrane_tau_residual_to_noise"] = ratio
-    deflection = abs(fit.v0_mv - fit.v_inf_mv)
-    # what the moving average keeps beyond white noise's share, noise / sqrt(samples):
-    # white noise is in the fit's residual test and its SD already
-    width = max(1, int(round(TAU_SMOOTHING_MS * 1e-3 * rate)))
-    fluctuation = float(np.sqrt(max(0.0, slow_fluctuation_mv(v, rate, onset, TAU_SMOOTHING_MS)
-                                    ** 2 - noise ** 2 / width)))
-    # the deflection as measured, not as fitted: a fit bent by fluctuations can put v0 and
-    # v_inf anywhere
-    measured = min(deflection, abs(col["min_mv"][j] - col["baseline_mv"][j]))
-    # the baseline is the longer stretch of noise (a steadier spectrum) unless a test
-    # pulse cut it short
-    stretch = (None if "baseline_window_cut_by_epoch" in sweep_flags[j]
-               else baseline_stretch(v, rate, onset))
-    sd = exponential_fit_sd(
-        fit, rate, stretch, line_noise=line_noise,
-        first_sample=int(round(onset * rate)) + int(round(fit.start_ms * 1e-3 * rate)))
-    # a small deflection still gives tau when the noise leaves it precise enough, for a fit
-    # that is a charging curve at all: falling (a hyperpolarizing step) over at least a few
-    # samples per tau, where the linearized SD means something
-    pinned = (np.isfinite(sd) and sd <= MAX_TAU_SD_FRACTION * fit.tau_ms
-              and fit.v0_mv > fit.v_inf_mv and fit.tau_ms * 1e-3 * rate >= 3)
-    if (ratio > MAX_RESIDUAL_TO_NOISE or fit.tau_ms * 1e-3 * rate < 2
-            or (deflection < MIN_DEFLECTION_TO_NOISE * noise and not pinned)):
-        flags.append("tau_fit_poor")
-    elif np.isfinite(fluctuation) and fluctuation > MAX_FLUCTUATION_TO_DEFLECTION * measured:
-        flags.append("baseline_fluctuates")
-    else:
-        values["membrane_tau_ms"] = fit.tau_ms
-        values["membrane_tau_ms_sd"] = sd
-
 
 def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]],
                   first_spikes: list[dict | None]) -> CellFeatures:
@@ -569,7 +333,7 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
       :data:`MAX_TAU_SD_FRACTION` of tau (noise taken as at least :data:`NOISE_FLOOR_MV`),
       or the fitted tau spans under 2 samples.
       The fit reads the voltage less the sweep's significant hum and drift
-      (:func:`~spikemeasure.analysis.sweep_features.passive_voltage`). R^2 alone would reject good fits to small, noisy deflections,
+      (:func:`~spikemeasure.analysis.sweep_passive.passive_voltage`). R^2 alone would reject good fits to small, noisy deflections,
       since noise caps it. Empty too (flag ``baseline_fluctuates``) when the baseline's slow
       fluctuation (:func:`~spikemeasure.analysis.fluctuation.slow_fluctuation_mv` over a
       :data:`TAU_SMOOTHING_MS` average, less in quadrature the s / sqrt(samples) white
@@ -582,7 +346,7 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
     - input_resistance_mohm_sd: :func:`input_resistance_sd` of the sweeps' deflection_sd_mv.
     - sag_fraction: that of the most hyperpolarizing sweep, with the flag
       ``sag_within_noise`` when that sweep has it (its sag, 0, could not be told from noise:
-      :func:`~spikemeasure.analysis.sweep_features.passive_response`): one rule for both
+      :func:`~spikemeasure.analysis.sweep_passive.passive_response`): one rule for both
       tables.
     - rheobase_*: threshold, amplitude, half-width and AHP depth of the rheobase sweep's first
       spike in the step.
@@ -622,7 +386,7 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
     ramp_rb = ramp_rheobase(shapes, [r.get("first_spike_current_pa", nan) for r in sweep_rows])
     if "ramp" in shapes and not np.isfinite(ramp_rb):
         flags.append("no_spiking_ramp")
-    not_steps = _steps_only(sweep_rows, col) if n else np.zeros(0, dtype=bool)
+    not_steps = steps_only(sweep_rows, col) if n else np.zeros(0, dtype=bool)
     slow = np.array(["too_slow_for_spikes" in f for f in sweep_flags], dtype=bool)
     lower = np.array(["spike_count_lower_bound" in f for f in sweep_flags], dtype=bool)
     gapped = np.array([any(g in f for g in _GAP_FLAGS) for f in sweep_flags], dtype=bool)
@@ -647,6 +411,6 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
                          else "no_current_steps")
         return CellFeatures(n, resting, flags=tuple(flags), ramp_rheobase_pa=ramp_rb, **values)
     rheobase_sweep = _firing_values(col, slow, lower, first_spikes, values, flags)
-    _passive_values(col, slow, lower, gapped, traces, sweep_flags, values, flags)
+    passive_values(col, slow, lower, gapped, traces, sweep_flags, values, flags)
     return CellFeatures(n, resting, flags=tuple(flags), rheobase_sweep=rheobase_sweep,
                         ramp_rheobase_pa=ramp_rb, **values)

@@ -145,7 +145,7 @@ def exponential_fit_sd(fit: ExponentialFit, sampling_rate_hz: float,
         residual.
     line_noise : LineNoise, optional
         The hum and drift removed from the voltage before the fit
-        (:func:`~spikemeasure.analysis.sweep_features.passive_voltage`): the SD then holds
+        (:func:`~spikemeasure.analysis.sweep_passive.passive_voltage`): the SD then holds
         what their estimate leaves (:func:`~spikemeasure.analysis.line_noise.corrected_weights`).
     first_sample : int, optional
         The sweep's sample of the first fitted sample (with `line_noise`).

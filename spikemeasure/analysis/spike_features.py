@@ -1,8 +1,8 @@
 """Per-spike measurements, one function each: threshold, peak, half-width and trough.
 
 Functions take arrays and a sampling rate and return arrays aligned with the spikes given
-(sample positions are fractional indices); nothing here reads files or prints. The helpers
-at the top search many spans of one trace at once.
+(sample positions are fractional indices); nothing here reads files or prints. The searches
+over many spans of one trace at once are in :mod:`~spikemeasure.analysis.span_search`.
 """
 from __future__ import annotations
 
@@ -13,6 +13,8 @@ from scipy.signal import savgol_coeffs
 from ..errors import InvalidSettingError
 from .detection import SMOOTHING_POLYORDER, DetectedSpikes, DetectionSettings, SmoothedTrace
 from .local_fits import fitted_extremes, matched_windows
+from .span_search import (FIRST_BELOW_HEAD, first_below, interp_many, last_below, span_argmax,
+                          upward_crossings_before, vertices)
 from .spike_rates import FALL_NOISE_FRACTION, FALL_WIDTH_FACTOR, noise_before
 from .sweeps import CurrentStep
 
@@ -24,142 +26,6 @@ __all__ = ["spike_thresholds", "interpolated_peaks", "fitted_peaks", "peak_windo
 #: How far before the onset crossing the ``second_derivative_peak`` threshold searches for the
 #: largest d2V/dt2.
 SECOND_DERIVATIVE_LOOKBACK_MS = 1.0
-
-_GATHER_CAP = 256           # spans longer than this are searched one by one
-_GATHER_ELEMENTS = 2_000_000  # samples gathered at once, to bound memory
-_FIRST_BELOW_HEAD = 128     # a spike falls through half amplitude within this many samples
-
-
-def _interp_many(x: np.ndarray, frac_index: np.ndarray) -> np.ndarray:
-    """Linear interpolation of x at fractional indices (NaN stays NaN)."""
-    frac_index = np.asarray(frac_index, dtype=float)
-    out = np.full(frac_index.shape, np.nan)
-    ok = np.isfinite(frac_index)
-    if ok.any():
-        f = np.clip(frac_index[ok], 0, x.size - 1)
-        i = np.minimum(np.floor(f).astype(np.int64), x.size - 2) if x.size > 1 else np.zeros(
-            f.size, dtype=np.int64)
-        nxt = np.minimum(i + 1, x.size - 1)
-        out[ok] = x[i] + (f - i) * (x[nxt] - x[i])
-    return out
-
-
-def _vertices(x: np.ndarray, index: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Sub-sample extrema near integer indices: the vertex of the parabola through i-1, i, i+1.
-
-    Returns (fractional indices, values), the vertex kept within half a sample of i; the
-    sample itself at the ends of x or where the three points are collinear.
-    """
-    index = np.asarray(index, dtype=np.int64)
-    frac = index.astype(float)
-    value = x[index].astype(float) if index.size else np.zeros(0)
-    inner = (index > 0) & (index < x.size - 1)
-    if inner.any():
-        i = index[inner]
-        a, b, c = x[i - 1], x[i], x[i + 1]
-        curvature = a - 2.0 * b + c
-        with np.errstate(divide="ignore", invalid="ignore"):
-            delta = np.where(curvature != 0.0, 0.5 * (a - c) / curvature, 0.0)
-        delta = np.clip(delta, -0.5, 0.5)
-        frac[inner] = i + delta
-        value[inner] = b - 0.25 * (a - c) * delta
-    return frac, value
-
-
-def _span_blocks(lo: np.ndarray, length: np.ndarray):
-    """Yield (rows, offsets-matrix validity, index matrix) for spans lo .. lo+length-1 that are
-    at most _GATHER_CAP long, in blocks of bounded size."""
-    rows = np.flatnonzero((length > 0) & (length <= _GATHER_CAP))
-    if rows.size == 0:
-        return
-    width = int(length[rows].max())
-    offsets = np.arange(width)
-    per_block = max(1, _GATHER_ELEMENTS // width)
-    for start in range(0, rows.size, per_block):
-        r = rows[start:start + per_block]
-        yield r, offsets[None, :] < length[r, None], lo[r, None] + offsets[None, :]
-
-
-def _span_argmax(x: np.ndarray, lo: np.ndarray, hi: np.ndarray, largest: bool = True
-                 ) -> np.ndarray:
-    """Index of the largest (or smallest) x in each inclusive span [lo, hi]; -1 if empty.
-
-    Short spans are gathered into one array; long ones (where gathering would move more memory
-    than a loop costs in calls) are searched one by one.
-    """
-    lo = np.asarray(lo, dtype=np.int64)
-    hi = np.minimum(np.asarray(hi, dtype=np.int64), x.size - 1)
-    length = hi - lo + 1
-    out = np.full(lo.size, -1, dtype=np.int64)
-    for r, valid, idx in _span_blocks(lo, length):
-        vals = x[np.minimum(idx, x.size - 1)]
-        if largest:
-            out[r] = lo[r] + np.argmax(np.where(valid, vals, -np.inf), axis=1)
-        else:
-            out[r] = lo[r] + np.argmin(np.where(valid, vals, np.inf), axis=1)
-    pick = np.argmax if largest else np.argmin
-    for k in np.flatnonzero(length > _GATHER_CAP):
-        out[k] = lo[k] + int(pick(x[lo[k]:hi[k] + 1]))
-    return out
-
-
-def _first_below(x: np.ndarray, level: np.ndarray, lo: np.ndarray, hi: np.ndarray
-                 ) -> np.ndarray:
-    """First index j in [lo, hi) with x[j] < level, per span; -1 where there is none.
-
-    Searches the first _FIRST_BELOW_HEAD samples of every span at once, then the rest of the few
-    spans not settled there one by one.
-    """
-    lo = np.asarray(lo, dtype=np.int64)
-    hi = np.minimum(np.asarray(hi, dtype=np.int64), x.size)
-    length = np.clip(hi - lo, 0, None)
-    out = np.full(lo.size, -1, dtype=np.int64)
-    head = np.minimum(length, _FIRST_BELOW_HEAD)
-    for r, valid, idx in _span_blocks(lo, head):
-        below = valid & (x[np.minimum(idx, x.size - 1)] < level[r, None])
-        hit = below.any(axis=1)
-        out[r[hit]] = lo[r[hit]] + np.argmax(below[hit], axis=1)
-    for k in np.flatnonzero((out < 0) & (length > _FIRST_BELOW_HEAD)):
-        rest = np.flatnonzero(x[lo[k] + _FIRST_BELOW_HEAD:hi[k]] < level[k])
-        if rest.size:
-            out[k] = lo[k] + _FIRST_BELOW_HEAD + int(rest[0])
-    return out
-
-
-def _last_below(x: np.ndarray, level: np.ndarray, lo: np.ndarray, hi: np.ndarray
-                ) -> np.ndarray:
-    """Last index j in [lo, hi) with x[j] < level, per span (spans <= _GATHER_CAP long are
-    vectorized, longer ones searched one by one); -1 where there is none."""
-    lo = np.asarray(lo, dtype=np.int64)
-    hi = np.minimum(np.asarray(hi, dtype=np.int64), x.size)
-    length = np.clip(hi - lo, 0, None)
-    out = np.full(lo.size, -1, dtype=np.int64)
-    for r, valid, idx in _span_blocks(lo, length):
-        below = valid & (x[np.minimum(idx, x.size - 1)] < level[r, None])
-        hit = below.any(axis=1)
-        last = below.shape[1] - 1 - np.argmax(below[:, ::-1], axis=1)
-        out[r[hit]] = lo[r[hit]] + last[hit]
-    for k in np.flatnonzero(length > _GATHER_CAP):
-        found = np.flatnonzero(x[lo[k]:hi[k]] < level[k])
-        if found.size:
-            out[k] = lo[k] + int(found[-1])
-    return out
-
-
-def _upward_crossings_before(x: np.ndarray, level: np.ndarray, lo: np.ndarray, hi: np.ndarray
-                             ) -> np.ndarray:
-    """Fractional index of the last upward crossing of `level` by x within [lo, hi], NaN where
-    there is none: j = the last sample below the level, then linear interpolation to j + 1."""
-    j = _last_below(x, level, lo, hi)
-    out = np.full(lo.size, np.nan)
-    ok = (j >= 0) & (j + 1 <= np.asarray(hi)) & (j + 1 < x.size)
-    if ok.any():
-        jj = j[ok]
-        nxt = x[jj + 1]
-        ok_rise = nxt >= level[ok]
-        frac = jj + (level[ok] - x[jj]) / np.where(nxt != x[jj], nxt - x[jj], 1.0)
-        out[np.flatnonzero(ok)[ok_rise]] = frac[ok_rise]
-    return out
 
 
 SPLINE_HALF_SAMPLES = 3
@@ -187,14 +53,15 @@ def _spline_peaks(x: np.ndarray, index: np.ndarray) -> tuple[np.ndarray, np.ndar
 
     Vectorized over spikes: each spline is evaluated on a grid of 1/200 sample within one
     sample of its index, and the best grid point is refined with a parabola. Indices too close
-    to an end of `x` fall back to the 3-point parabola (:func:`_vertices`).
+    to an end of `x` fall back to the 3-point parabola
+    (:func:`~spikemeasure.analysis.span_search.vertices`).
     """
     index = np.asarray(index, dtype=np.int64)
     frac = index.astype(float)
     value = x[index].astype(float) if index.size else np.zeros(0)
     inner = (index >= SPLINE_HALF_SAMPLES) & (index < x.size - SPLINE_HALF_SAMPLES)
     if (~inner).any():
-        frac[~inner], value[~inner] = _vertices(x, index[~inner])
+        frac[~inner], value[~inner] = vertices(x, index[~inner])
     if inner.any():
         offsets = np.arange(-SPLINE_HALF_SAMPLES, SPLINE_HALF_SAMPLES + 1)
         samples = x[index[inner, None] + offsets]            # (n, 7)
@@ -330,16 +197,16 @@ def spike_thresholds(trace: SmoothedTrace, detected: DetectedSpikes,
         refined = _noise_matched_onsets(trace, onset, settings.onset_rate_v_per_s)
         index = np.where(np.isfinite(refined), refined, index)
     else:
-        top = _span_argmax(dvdt, onset, peak)
+        top = span_argmax(dvdt, onset, peak)
         if method == "max_rate_fraction":
             level = settings.threshold_fraction * dvdt[top]
-            index = _upward_crossings_before(dvdt, level, floor, top)
+            index = upward_crossings_before(dvdt, level, floor, top)
         else:  # second_derivative_peak
             lookback = max(1, int(round(SECOND_DERIVATIVE_LOOKBACK_MS * 1e-3
                                         * trace.sampling_rate_hz)))
             lo = np.maximum(floor, onset - lookback)
-            index = _vertices(d2, _span_argmax(d2, lo, top))[0]
-    return index, _interp_many(trace.smooth_mv, index)
+            index = vertices(d2, span_argmax(d2, lo, top))[0]
+    return index, interp_many(trace.smooth_mv, index)
 
 
 def interpolated_peaks(voltage_mv: np.ndarray, peak_sample: np.ndarray
@@ -395,9 +262,9 @@ def peak_windows(voltage_mv: np.ndarray, centre: np.ndarray, threshold_mv: np.nd
     level = threshold_mv + 0.5 * (v[centre] - threshold_mv)
     known = np.isfinite(level)
     level = np.where(known, level, np.inf)
-    ends = np.minimum(centre + _FIRST_BELOW_HEAD, v.size)
-    after = _first_below(v, level, centre, ends)
-    before = _last_below(v, level, np.maximum(centre - _FIRST_BELOW_HEAD, 0), centre)
+    ends = np.minimum(centre + FIRST_BELOW_HEAD, v.size)
+    after = first_below(v, level, centre, ends)
+    before = last_below(v, level, np.maximum(centre - FIRST_BELOW_HEAD, 0), centre)
     width = np.where(known & (after > 0) & (before >= 0), after - before - 1, 0)
     widest = np.floor(PEAK_WIDTH_FACTOR * width).astype(np.int64)
     windows = matched_windows(noise_mv, np.full(centre.size, PEAK_NOISE_MV), widest,
@@ -506,8 +373,8 @@ def half_widths(voltage_mv: np.ndarray, sampling_rate_hz: float, threshold_posit
     level = threshold_mv + 0.5 * (peak_mv - threshold_mv)
     k = np.flatnonzero(ok)
     p = peak_sample[k]
-    up[k] = _upward_crossings_before(v, level[k], np.floor(threshold_position[k]).astype(np.int64), p)
-    j = _first_below(v, level[k], p, np.asarray(end_index, dtype=np.int64)[k])
+    up[k] = upward_crossings_before(v, level[k], np.floor(threshold_position[k]).astype(np.int64), p)
+    j = first_below(v, level[k], p, np.asarray(end_index, dtype=np.int64)[k])
     found = j > 0
     jj = j[found]
     down[k[found]] = (jj - 1) + (v[jj - 1] - level[k][found]) / (v[jj - 1] - v[jj])
@@ -533,9 +400,9 @@ def troughs(smooth_mv: np.ndarray, peak_sample: np.ndarray, end_index: np.ndarra
     if not ok.any():
         return index, value
     p, e = peak_sample[ok], end_index[ok]
-    j = _span_argmax(smooth_mv, p, e - 1, largest=False)
+    j = span_argmax(smooth_mv, p, e - 1, largest=False)
     inside = (j > p) & (j < e - 1)
-    frac, val = _vertices(smooth_mv, j)
+    frac, val = vertices(smooth_mv, j)
     index[ok] = np.where(inside, frac, j)
     value[ok] = np.where(inside, val, smooth_mv[j])
     return index, value

@@ -3,8 +3,9 @@
 The noise of a recording is measured on its quiet stretch, where it is all there is, and kept
 as its autocovariance, so its spectrum (white noise, filtered noise, mains hum) carries over.
 Each spike value is, to first order, a weighted sum of the samples around the spike; its SD is
-that sum applied to the measured noise: ``sqrt(w' C w)`` with C the noise autocovariance. The
-weights follow the estimators of :mod:`~spikemeasure.analysis.spike_features` step by step.
+that sum applied to the measured noise (:mod:`~spikemeasure.analysis.noise_model`):
+``sqrt(w' C w)`` with C the noise autocovariance. The weights follow the estimators of
+:mod:`~spikemeasure.analysis.spike_features` step by step.
 Functions take arrays and a sampling rate and return arrays; nothing here reads files or prints.
 """
 from __future__ import annotations
@@ -22,45 +23,17 @@ from .local_fits import fit_weights_at
 from .spike_features import PEAK_ORDER, onset_window, peak_windows
 from .spike_rates import max_rate_weights, noise_before
 from .sweeps import CurrentStep
+# the noise the SDs are computed from, importable from here as before
+from .noise_model import (MAX_QUIET_MS, MIN_QUIET_MS, SPIKE_CLEARANCE_MS, NoiseModel,
+                          measured_noise, quiet_stretch)
 
 __all__ = ["NoiseModel", "SpikeUncertainty", "SpikesWithUncertainty", "SD_COLUMNS",
            "MIN_QUIET_MS", "MAX_QUIET_MS", "SPIKE_CLEARANCE_MS", "quiet_stretch",
            "measured_noise", "spike_uncertainty", "with_uncertainty", "sd_values"]
 
-#: The shortest quiet stretch (ms) the noise is measured on; with less, the SDs are empty.
-MIN_QUIET_MS = 20.0
-#: The noise is measured on at most the last this many ms of the quiet stretch.
-MAX_QUIET_MS = 1000.0
-#: The quiet stretch ends at least this long (ms) before the first spike's threshold.
-SPIKE_CLEARANCE_MS = 5.0
-
 #: The columns this module fills, each named after its value's column.
 SD_COLUMNS: tuple[str, ...] = ("threshold_mv_sd", "peak_mv_sd", "half_width_ms_sd",
                                "max_dvdt_v_per_s_sd", "ahp_depth_mv_sd")
-
-
-@dataclass(frozen=True)
-class NoiseModel:
-    """The recording noise as its autocovariance.
-
-    Attributes
-    ----------
-    autocovariance_mv2 : ndarray
-        Biased autocovariance (divided by the stretch length, so positive semidefinite) at lags
-        0, 1, ... samples, in mV^2; lags beyond it count as uncorrelated.
-    sampling_rate_hz : float
-    start, stop : int
-        The stretch it was measured on (sample indices, stop exclusive).
-    """
-
-    autocovariance_mv2: np.ndarray
-    sampling_rate_hz: float
-    start: int
-    stop: int
-
-    @property
-    def sd_mv(self) -> float:
-        return float(np.sqrt(self.autocovariance_mv2[0]))
 
 
 @dataclass(frozen=True)
@@ -95,105 +68,6 @@ def sd_values(spikes: SpikeMeasurements, name: str) -> np.ndarray:
     return np.full(len(spikes), np.nan) if found is None else np.asarray(found, dtype=float)
 
 
-def quiet_stretch(n_samples: int, sampling_rate_hz: float, step: CurrentStep | None,
-                  first_spike_s: float) -> tuple[int, int] | None:
-    """The stretch of a sweep the noise is measured on, (start, stop) sample indices.
-
-    Parameters
-    ----------
-    n_samples : int
-        Samples in the sweep.
-    sampling_rate_hz : float
-    step : CurrentStep or None
-        The main stimulus; its quiet stretch is ``baseline_start_s`` to ``onset_s``. Without
-        one no stretch is known to be quiet.
-    first_spike_s : float
-        Time of the sweep's first spike (NaN without spikes).
-
-    Returns
-    -------
-    (int, int) or None
-        The last :data:`MAX_QUIET_MS` of the stretch before the stimulus, ended
-        :data:`SPIKE_CLEARANCE_MS` before the first spike. None without a stimulus or when
-        that is shorter than :data:`MIN_QUIET_MS`.
-
-    Notes
-    -----
-    Without a stimulus the membrane before the first spike may be moving towards it (a
-    fluctuating drive, a gap-free recording of spontaneous firing): that is signal, not
-    recording noise, and would inflate the SDs many times, so none are given.
-    """
-    rate = float(sampling_rate_hz)
-    if not rate > 0:
-        raise InvalidSettingError("`sampling_rate_hz` must be positive")
-    if step is None:
-        return None
-    stop_s, start_s = step.onset_s, step.baseline_start_s
-    if np.isfinite(first_spike_s):
-        stop_s = min(stop_s, first_spike_s - SPIKE_CLEARANCE_MS * 1e-3)
-    stop = int(min(n_samples, np.floor(stop_s * rate)))
-    start = max(int(np.ceil(start_s * rate)), stop - int(round(MAX_QUIET_MS * 1e-3 * rate)), 0)
-    if stop - start < MIN_QUIET_MS * 1e-3 * rate:
-        return None
-    return start, stop
-
-
-def measured_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start: int, stop: int
-                   ) -> NoiseModel | None:
-    """Autocovariance of the noise on ``voltage_mv[start:stop]``.
-
-    Parameters
-    ----------
-    voltage_mv : ndarray
-        The sweep's raw voltage, mV.
-    sampling_rate_hz : float
-    start, stop : int
-        The quiet stretch (see :func:`quiet_stretch`).
-
-    Returns
-    -------
-    NoiseModel or None
-        None when the longest finite run of the stretch is shorter than :data:`MIN_QUIET_MS`.
-
-    Notes
-    -----
-    A least-squares line is removed first (the resting level and a slow drift are not noise
-    of a spike's values; a hum of 50 or 60 Hz is, and stays). The autocovariance is the
-    biased estimate ``sum(x[i] x[i+k]) / n`` [1]_, computed with a zero-padded FFT; the
-    biased estimate is positive semidefinite, so every SD computed from it is real.
-
-    References
-    ----------
-    .. [1] M. B. Priestley, "Spectral Analysis and Time Series", Academic Press, 1981, sec. 5.3.
-    """
-    stretch = np.asarray(voltage_mv[start:stop], dtype=float)
-    finite = np.isfinite(stretch)
-    if not finite.all():
-        start, stop = _longest_finite_run(finite, start)
-        stretch = np.asarray(voltage_mv[start:stop], dtype=float)
-    n = stretch.size
-    if n < max(3, MIN_QUIET_MS * 1e-3 * sampling_rate_hz):
-        return None
-    t = np.arange(n, dtype=float)
-    slope, intercept = np.polyfit(t, stretch, 1)
-    x = stretch - (slope * t + intercept)
-    size = 1 << int(np.ceil(np.log2(2 * n)))
-    spectrum = np.fft.rfft(x, size)
-    acov = np.fft.irfft(spectrum * spectrum.conj(), size)[:n] / n
-    return NoiseModel(acov, float(sampling_rate_hz), int(start), int(stop))
-
-
-def _longest_finite_run(finite: np.ndarray, offset: int) -> tuple[int, int]:
-    """(start, stop) of the longest run of True in `finite`, shifted by `offset`."""
-    edges = np.diff(np.concatenate([[0], finite.astype(np.int8), [0]]))
-    starts, stops = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)
-    if starts.size == 0:
-        return offset, offset
-    k = int(np.argmax(stops - starts))
-    return offset + int(starts[k]), offset + int(stops[k])
-
-
-# A linear functional of the samples, for every spike at once: terms (kernel, centre, coef),
 # each the kernel's dot product with the samples around the centre, times the coefficient;
 # the kernel is a smoothing filter (see _Filter.at) or one row of weights (a unit sample).
 _Term = tuple["_Filter | np.ndarray", np.ndarray, np.ndarray]
@@ -538,7 +412,7 @@ def spike_uncertainty(voltage_mv: np.ndarray, sampling_rate_hz: float,
     spikes : SpikeMeasurements
         The sweep's spikes (times from its first sample).
     noise : NoiseModel or None
-        From :func:`measured_noise`; None gives NaN everywhere.
+        From :func:`~spikemeasure.analysis.noise_model.measured_noise`; None gives NaN everywhere.
     settings : DetectionSettings, optional
         The settings the spikes were measured with (windows, threshold definition).
 
@@ -617,7 +491,8 @@ def with_uncertainty(spikes: SpikeMeasurements, voltage_mv: np.ndarray,
                      settings: DetectionSettings = DetectionSettings()
                      ) -> SpikesWithUncertainty:
     """The spikes of one sweep with their SDs (:data:`SD_COLUMNS`), the noise measured on the
-    sweep's quiet stretch (:func:`quiet_stretch`, :func:`measured_noise`).
+    sweep's quiet stretch (:func:`~spikemeasure.analysis.noise_model.quiet_stretch`,
+    :func:`~spikemeasure.analysis.noise_model.measured_noise`).
 
     Parameters
     ----------

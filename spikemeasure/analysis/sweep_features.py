@@ -1,4 +1,5 @@
-"""Per-sweep features: baseline, firing over the current step, and the passive response.
+"""Per-sweep features: baseline, drift, firing over the current step, and the table row that
+gathers them with the passive response (:mod:`~spikemeasure.analysis.sweep_passive`).
 
 Functions take arrays, a sampling rate and the sweep's current step, and return plain values
 or a small dataclass; nothing here reads files or prints.
@@ -8,47 +9,27 @@ from __future__ import annotations
 from dataclasses import asdict, dataclass
 
 import numpy as np
-from scipy.ndimage import uniform_filter1d
 
 from ..errors import InvalidSettingError
-from .fluctuation import BASELINE_WINDOW_MS, baseline_stretch, weighted_sums_covariance
-from .line_noise import LineNoise, corrected_weights, estimate_line_noise, remove_line_noise
+from .fluctuation import BASELINE_WINDOW_MS
+from .line_noise import LineNoise
 from .block import (BLOCK_MAX_ISI_MS, BLOCK_MIN_SILENCE_MS, BLOCK_SILENCE_TO_ISI,
                     depolarization_block)
 from .sweeps import MIN_SAMPLING_RATE_HZ, CurrentStep, missing_stretches
+# the passive measurements, importable from here as before
+from .sweep_passive import (MIN_WINDOW_MS, SAG_NOISE_FACTOR, STEADY_STATE_WINDOW_MS,
+                            TROUGH_WINDOW_FRACTION, PassiveResponse, passive_response,
+                            passive_voltage)
 
 __all__ = ["SweepFeatures", "baseline", "first_spike_current", "baseline_drift", "firing", "adaptation_index",
            "passive_response", "sweep_features", "MIN_WINDOW_MS", "DRIFT_WINDOW_MS",
            "BASELINE_WINDOW_MS", "STEADY_STATE_WINDOW_MS", "SWEEP_FLAG_TEXT", "PassiveResponse",
            "TROUGH_WINDOW_FRACTION", "SAG_NOISE_FACTOR", "passive_voltage"]
 
-#: Width of the moving average under the minimum during the step (noise would pull a raw
-#: minimum down by two to three noise SDs); for a hyperpolarizing step, the shortest
-#: window of the quadratic smoothing under its minimum.
-MIN_WINDOW_MS = 1.0
-
-#: For a hyperpolarizing step, the minimum is that of a moving average over this multiple
-#: of the response's charging time (from onset until the MIN_WINDOW_MS average first falls
-#: 63 % of the way from the voltage at onset (the mean of the MIN_WINDOW_MS before it) to
-#: its minimum; the time constant of a passive membrane):
-#: a window matched to the response's own time course, wide enough to average noise away
-#: yet narrow enough to raise the bottom of a sag's trough, which lasts several charging
-#: times, only slightly (a rule of our own).
-TROUGH_WINDOW_FRACTION = 1.0
-
-#: Sag counts as present only when steady_state_mv - min_mv exceeds this many times the SD
-#: that the baseline's noise (with its spectrum) leaves on the moving average under min_mv,
-#: plus the sweep's drift: over a 0.5 s step, noise alone pulls the smoothed minimum about
-#: 3 SD below the mean (the expected largest of ~500 Gaussian values), beyond 5 SD with a
-#: chance of about 1e-4 (500 x the Gaussian tail beyond 5, 3e-7).
-SAG_NOISE_FACTOR = 5.0
 
 #: Length of the window at the end of the sweep, after the step, whose mean voltage is
 #: compared with the baseline to measure drift.
 DRIFT_WINDOW_MS = 100.0
-
-#: Length of the window at the end of the step whose mean is the steady-state voltage.
-STEADY_STATE_WINDOW_MS = 100.0
 
 
 #: Every flag a sweep can carry, with what it means (written to the docs). "Gap": a stretch
@@ -273,173 +254,6 @@ def firing(spike_times_s: np.ndarray, step: CurrentStep) -> dict:
     }
 
 
-@dataclass(frozen=True)
-class PassiveResponse:
-    """The response to a step that the passive values read (see :func:`passive_response`)."""
-
-    steady_state_mv: float
-    min_mv: float
-    sag_fraction: float
-    sag_fraction_sd: float
-    #: SD of steady_state_mv - baseline_mv that the baseline's noise implies (hyperpolarizing
-    #: steps only; for the input resistance's SD).
-    deflection_sd_mv: float
-    sag_within_noise: bool = False
-    #: The SD of steady_state_mv - baseline_mv with the drift left in (the hum removed), as
-    #: the input resistance reads it (see :func:`sweep_features`).
-    deflection_with_drift_sd_mv: float = float("nan")
-
-
-def passive_response(voltage_mv: np.ndarray, sampling_rate_hz: float, step: CurrentStep,
-                     baseline_mv: float, steady_window_ms: float = STEADY_STATE_WINDOW_MS, *,
-                     drift_mv: float = 0.0, baseline_window_ms: float = BASELINE_WINDOW_MS,
-                     line_noise: LineNoise | None = None) -> PassiveResponse:
-    """Steady state, minimum and sag of the response to a step, with the sag's SD.
-
-    Parameters
-    ----------
-    voltage_mv : ndarray
-        Raw voltage in mV.
-    sampling_rate_hz : float
-    step : CurrentStep
-    baseline_mv : float
-        Mean voltage before the step (:func:`baseline`).
-    steady_window_ms : float, optional
-        Length of the window at the end of the step whose mean is the steady state.
-    drift_mv : float, optional
-        The sweep's baseline drift (:func:`baseline_drift`; NaN counts as 0): a sag not over
-        the noise plus this is no sag.
-    baseline_window_ms : float, optional
-        The baseline window, whose noise the SDs copy.
-    line_noise : LineNoise, optional
-        The hum and drift already removed from `voltage_mv` (:func:`passive_voltage`): the
-        SDs then hold the uncertainty of that removal too.
-
-    Returns
-    -------
-    PassiveResponse
-        steady_state_mv: mean voltage over the last `steady_window_ms` of the step (all of
-        it if shorter). min_mv: for a hyperpolarizing step, the minimum of the trough
-        smoothing (see Notes); for other steps, the minimum of a sliding
-        :data:`MIN_WINDOW_MS` moving average. sag_fraction (hyperpolarizing steps only):
-        (steady_state_mv - min_mv) / (baseline_mv - min_mv), 0 for no sag, 1 when the voltage
-        returns all the way to baseline; 0 with ``sag_within_noise`` when the sag cannot be
-        told from noise. sag_fraction_sd and deflection_sd_mv: the SDs the baseline's noise
-        implies. NaN where not defined.
-
-    Notes
-    -----
-    The trough smoothing is a moving average over :data:`TROUGH_WINDOW_FRACTION` times the
-    charging time: from onset until the :data:`MIN_WINDOW_MS` moving average first falls
-    63 % of the way from the voltage at onset (the mean over that window before onset) to
-    its minimum (at least that window), evaluated where the whole window lies in the step. A moving average of white
-    noise of SD s over m samples still dips about 3 s / sqrt(m) below the truth somewhere in
-    a long step; a window matched to the trough makes m large on a wide trough or a plateau.
-    On a trough of curvature c (V = V_min + c x^2) a window of w raises the minimum by
-    c w^2 / 12, a few hundredths of a mV for an Ih-like sag; unlike a local polynomial
-    (Savitzky-Golay) smoothing, an average never dips below a monotone response where the
-    charging bends into the plateau.
-
-    baseline_mv, steady_state_mv and min_mv are means over windows (min_mv: the trough
-    window at the minimum), so noise moves them by weighted sums of its samples: their
-    covariance C follows from the baseline's noise spectrum
-    (:func:`~spikemeasure.analysis.fluctuation.weighted_sums_covariance`).
-    sag_fraction_sd is sqrt(g^T C g), g the gradient of the sag in the three (the delta
-    method: Bevington and Robinson 2003, section 3.2, from memory); deflection_sd_mv is the
-    SD of steady_state_mv - baseline_mv. The choice of the minimum's position among noisy
-    candidates is left out: where it matters (a flat plateau) the sag is within noise. The
-    sag is within noise when steady_state_mv - min_mv is not over :data:`SAG_NOISE_FACTOR`
-    times the SD of min_mv's window mean, plus abs(drift_mv).
-
-    References
-    ----------
-    .. [1] P. R. Bevington and D. K. Robinson, *Data Reduction and Error Analysis for the
-       Physical Sciences*, 3rd ed., McGraw-Hill, 2003.
-    """
-    nan = float("nan")
-    rate = float(sampling_rate_hz)
-    start = int(round(step.onset_s * rate))
-    stop = min(voltage_mv.size, int(round(step.offset_s * rate)))
-    if stop - start < 1:
-        return PassiveResponse(nan, nan, nan, nan, nan)
-    span = voltage_mv[start:stop]
-    n_tail = max(1, int(round(steady_window_ms * 1e-3 * rate)))
-    steady = float(np.mean(span[-n_tail:]))
-    width = max(1, int(round(MIN_WINDOW_MS * 1e-3 * rate)))
-    coarse = uniform_filter1d(span, size=min(width, span.size), mode="nearest")
-    before = voltage_mv[max(0, start - width):start]
-    level = float(np.mean(before)) if before.size and np.isfinite(before).all() else coarse[0]
-    trough = _trough_window(coarse, width, level) if step.size_pa < 0 else None
-    if trough is None:
-        lowest = float(np.min(coarse))
-        sag = nan
-        if step.size_pa < 0 and np.isfinite(baseline_mv) and baseline_mv - lowest > 0:
-            sag = (steady - lowest) / (baseline_mv - lowest)
-        return PassiveResponse(steady, lowest, sag, nan, nan)
-    smooth = _moving_average(span, trough)
-    lowest = float(np.min(smooth))
-    if not (np.isfinite(baseline_mv) and baseline_mv - lowest > 0):
-        return PassiveResponse(steady, lowest, nan, nan, nan)
-    sag = (steady - lowest) / (baseline_mv - lowest)
-    base_lo = max(0, int(round(step.baseline_start_s * rate)),
-                  start - int(round(baseline_window_ms * 1e-3 * rate)))
-    low = int(np.argmin(smooth))
-    weights = np.zeros((3, stop - base_lo))
-    weights[0, :start - base_lo] = 1.0 / (start - base_lo) if start > base_lo else np.nan
-    weights[1, stop - base_lo - n_tail:] = 1.0 / n_tail
-    weights[2, start - base_lo + low:start - base_lo + low + trough] = 1.0 / trough
-    noise = baseline_stretch(voltage_mv, rate, step.onset_s, earliest_s=step.baseline_start_s,
-                             window_ms=baseline_window_ms)
-    with_drift = float("nan")
-    if line_noise is not None and np.isfinite(weights).all():
-        hum_rows, _ = corrected_weights(weights[:2], base_lo, line_noise.hum_only())
-        hum_cov = weighted_sums_covariance(hum_rows, noise, rate)
-        if hum_cov is not None:
-            with_drift = float(np.sqrt(max(0.0, hum_cov[0, 0] + hum_cov[1, 1]
-                                           - 2 * hum_cov[0, 1])))
-        weights, _ = corrected_weights(weights, base_lo, line_noise)
-    cov = (weighted_sums_covariance(weights, noise, rate)
-           if np.isfinite(weights).all() else None)
-    if cov is None or not np.isfinite(lowest):
-        return PassiveResponse(steady, lowest, sag, nan, nan)
-    # d sag / d (baseline, steady state, minimum): the delta method
-    depth = baseline_mv - lowest
-    gradient = np.array([-(steady - lowest) / depth ** 2, 1.0 / depth,
-                         (steady - baseline_mv) / depth ** 2])
-    sag_sd = float(np.sqrt(max(0.0, gradient @ cov @ gradient)))
-    deflection = np.array([-1.0, 1.0, 0.0])
-    deflection_sd = float(np.sqrt(max(0.0, deflection @ cov @ deflection)))
-    drift = abs(drift_mv) if np.isfinite(drift_mv) else 0.0
-    hidden = SAG_NOISE_FACTOR * float(np.sqrt(max(0.0, cov[2, 2]))) + drift
-    within = steady - lowest <= hidden
-    if within:
-        # reported as 0, the sag may be anything up to what noise and drift hide: +/- 2 SD
-        # spans it
-        sag_sd = max(sag_sd, hidden / depth / 2)
-    if not np.isfinite(with_drift):
-        with_drift = deflection_sd
-    return PassiveResponse(steady, lowest, 0.0 if within else sag, sag_sd, deflection_sd,
-                           within, with_drift)
-
-
-def _trough_window(coarse: np.ndarray, width: int, level_mv: float) -> int | None:
-    """Samples of the moving average under a hyperpolarizing step's minimum:
-    TROUGH_WINDOW_FRACTION of the charging time in samples (see there) from `level_mv`, the
-    voltage at onset (at least `width`, at most the step); None when the step holds a
-    missing sample."""
-    if coarse.size < 1 or not np.isfinite(coarse).all():
-        return None
-    low = int(np.argmin(coarse))
-    charged = np.flatnonzero(coarse[:low + 1] <= level_mv - 0.632 * (level_mv - coarse[low]))
-    charging = int(charged[0]) if charged.size else low
-    return min(max(width, int(round(TROUGH_WINDOW_FRACTION * charging))), coarse.size)
-
-
-def _moving_average(x: np.ndarray, length: int) -> np.ndarray:
-    """Means of `length` consecutive samples along the last axis, where all lie in `x`."""
-    total = np.cumsum(x, axis=-1)
-    total = np.concatenate([np.zeros(x.shape[:-1] + (1,)), total], axis=-1)
-    return (total[..., length:] - total[..., :-length]) / length
 
 
 def _touches(gaps: np.ndarray, lo: int, hi: int) -> bool:
@@ -530,30 +344,11 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
     flags: list[str] = []
     n_total = voltage_mv.size if duration_s is None else int(round(float(duration_s) * rate))
 
-    def fire_over(window: CurrentStep, lo: int, hi: int) -> dict:
-        fire = firing(times[np.isfinite(times)], window)
-        fire["clipped_spike_count"] = int(clipped_spike_count)
-        if not spikes_counted:
-            fire = {key: nan for key in fire}
-            flags.append("too_slow_for_spikes")
-            return fire
-        gap_inside = _touches(gaps, lo, hi)
-        if gap_inside or not np.isfinite(times).all():
-            flags.append("spike_count_lower_bound")
-            first_gap_s = (max(lo, int(gaps[(gaps[:, 0] < hi) & (gaps[:, 1] > lo)][0, 0])) / rate
-                           if gap_inside else nan)
-            for key in ("firing_rate_hz", "mean_isi_ms", "isi_cv", "adaptation_index"):
-                fire[key] = nan
-            latency = fire["first_spike_latency_ms"]
-            if not (np.isfinite(latency) and gap_inside
-                    and window.onset_s + latency * 1e-3 < first_gap_s):
-                fire["first_spike_latency_ms"] = nan
-        return fire
-
     if step is None:
         # no current step (a gap-free recording): the firing over the whole sweep
         length_s = n_total / rate if duration_s is None else float(duration_s)
-        fire = fire_over(CurrentStep(0.0, length_s), 0, n_total)
+        fire = _firing_around_gaps(times, CurrentStep(0.0, length_s), 0, n_total, gaps, rate,
+                                   spikes_counted, clipped_spike_count, flags)
         fire["first_spike_latency_ms"] = nan
         return SweepFeatures(
             stimulus_pa=nan, holding_pa=nan, stimulus_start_s=nan, stimulus_end_s=nan,
@@ -577,7 +372,8 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
     base, noise = baseline(voltage_mv, sampling_rate_hz, step.onset_s, baseline_window_ms,
                            step.baseline_start_s)
     drift = baseline_drift(voltage_mv, sampling_rate_hz, step.offset_s, base)
-    fire = fire_over(step, onset_i, offset_i)
+    fire = _firing_around_gaps(times, step, onset_i, offset_i, gaps, rate, spikes_counted,
+                               clipped_spike_count, flags)
     if (spikes_counted and step.shape == "step" and step.size_pa > 0
             and "gap_in_step" not in flags
             and depolarization_block(voltage_mv, rate, times, step.onset_s,
@@ -608,48 +404,35 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
         **_stimulus_values(step, fire["first_spike_latency_ms"], rate, command_pa), **fire)
 
 
-def passive_voltage(voltage_mv: np.ndarray, sampling_rate_hz: float, step: CurrentStep,
-                    baseline_window_ms: float = BASELINE_WINDOW_MS
-                    ) -> tuple[np.ndarray, LineNoise]:
-    """The voltage the passive values read: the sweep's mains hum and drift removed.
 
-    Parameters
-    ----------
-    voltage_mv : ndarray
-        Raw voltage, mV.
-    sampling_rate_hz : float
-    step : CurrentStep
-    baseline_window_ms : float, optional
-        The baseline window (:func:`baseline`): the hum and drift are fitted on it, and
-        the removal keeps its mean.
-
-    Returns
-    -------
-    (ndarray, LineNoise)
-        The voltage less the hum and drift found significant
-        (:func:`~spikemeasure.analysis.line_noise.estimate_line_noise`; the voltage itself
-        when none is), and the estimate.
-
-    Notes
-    -----
-    The hum and drift are fitted on the baseline window (not on all of the quiet stretch
-    before it: early in that stretch the membrane may still be settling, from a test pulse
-    or the start of the recording), where no current flows and the response has not begun
-    (the hum alone when a test pulse precedes the stimulus: the membrane may still be
-    settling from it, which is not drift), and removed from the whole sweep with the mean
-    of their sum over the baseline window kept, so the baseline is unchanged and the
-    passive values (steady state, minimum, sag, time constant) read the membrane without
-    them; the input resistance keeps the drift (see :func:`sweep_features`).
-    """
-    rate = float(sampling_rate_hz)
-    onset = int(round(step.onset_s * rate))
-    first = max(0, int(round(step.baseline_start_s * rate)),
-                onset - int(round(baseline_window_ms * 1e-3 * rate)))
-    # after a test pulse the membrane may still be settling, which a line would take for
-    # drift: the hum alone then
-    fit = estimate_line_noise(voltage_mv, rate, first / rate, onset / rate,
-                              drift=not np.isfinite(step.test_pulse_start_s))
-    return remove_line_noise(voltage_mv, fit), fit
+def _firing_around_gaps(times: np.ndarray, window: CurrentStep, lo: int, hi: int,
+                        gaps: np.ndarray, rate: float, spikes_counted: bool,
+                        clipped_spike_count: int, flags: list[str]) -> dict:
+    """:func:`firing` over `window` (samples `lo` to `hi` - 1) as :func:`sweep_features`
+    reports it: every value NaN when spikes could not be counted (flag
+    ``too_slow_for_spikes``); with a gap in the window or a spike time unknown, the count a
+    lower bound (flag ``spike_count_lower_bound``), rate and interval statistics NaN, and the
+    latency kept only when there is a gap in the window and the first spike precedes it.
+    Appends its flags to `flags`."""
+    nan = float("nan")
+    fire = firing(times[np.isfinite(times)], window)
+    fire["clipped_spike_count"] = int(clipped_spike_count)
+    if not spikes_counted:
+        fire = {key: nan for key in fire}
+        flags.append("too_slow_for_spikes")
+        return fire
+    gap_inside = _touches(gaps, lo, hi)
+    if gap_inside or not np.isfinite(times).all():
+        flags.append("spike_count_lower_bound")
+        first_gap_s = (max(lo, int(gaps[(gaps[:, 0] < hi) & (gaps[:, 1] > lo)][0, 0])) / rate
+                       if gap_inside else nan)
+        for key in ("firing_rate_hz", "mean_isi_ms", "isi_cv", "adaptation_index"):
+            fire[key] = nan
+        latency = fire["first_spike_latency_ms"]
+        if not (np.isfinite(latency) and gap_inside
+                and window.onset_s + latency * 1e-3 < first_gap_s):
+            fire["first_spike_latency_ms"] = nan
+    return fire
 
 
 def _drift_over(line_noise: LineNoise, first: int, stop: int) -> float:
