@@ -117,7 +117,20 @@ class TestMembraneTau:
         assert cell.membrane_tau_ms == pytest.approx(tau_ms, rel=0.05)
 
 
-class TestCellSds:
+class _InputResistanceSd:
+    """The input resistance's SD, for the cells of a class's `measured_cells` (its STEPS);
+    truth: the slope of the noise-free membrane's deflections (Ohm's law)."""
+
+    def test_input_resistance_mohm_sd(self, measured_cells):
+        est = np.array([c.input_resistance_mohm for c, _, _ in measured_cells])
+        sd = np.array([c.input_resistance_mohm_sd for c, _, _ in measured_cells])
+        truth = np.array([true_input_resistance(clean, rate, self.STEPS)
+                          for _, clean, rate in measured_cells])
+        assert np.all(np.abs(est / truth - 1) <= 0.05)       # the target tolerance
+        assert 0.85 <= within_two_sd(est, sd, truth) <= 0.995
+
+
+class TestCellSds(_InputResistanceSd):
     """Calibration over 51 cells (tau 1.5, 10 and 50 ms; 0.5 mV white noise): the truth lies
     within +/- 2 SD in 85-99.5 % of cells."""
 
@@ -132,14 +145,6 @@ class TestCellSds:
         sd = np.array([c.membrane_tau_ms_sd for c, _, _ in measured_cells])
         truth = np.array([1.5, 10.0, 50.0] * 17)
         assert 0.85 <= within_two_sd(tau, sd, truth) <= 0.995
-
-    def test_input_resistance_mohm_sd(self, measured_cells):
-        est = np.array([c.input_resistance_mohm for c, _, _ in measured_cells])
-        sd = np.array([c.input_resistance_mohm_sd for c, _, _ in measured_cells])
-        truth = np.array([true_input_resistance(clean, rate, self.STEPS)
-                          for _, clean, rate in measured_cells])
-        assert np.all(np.abs(est / truth - 1) <= 0.05)       # the target tolerance
-        assert 0.85 <= within_two_sd(est, sd, truth) <= 0.995
 
 
 #: Mains hum and drift as a rig adds them (common practice: hum of a few tenths of a mV,
@@ -188,7 +193,7 @@ class TestUnderHumAndDrift:
         assert 0.85 <= within_two_sd(est, sd, truth) <= 0.995
 
 
-class TestCellSdsUnderHumAndDrift:
+class TestCellSdsUnderHumAndDrift(_InputResistanceSd):
     """Calibration over 54 cells (tau 1.5, 10 and 50 ms; 0.2 mV white noise; 50 or 60 Hz
     hum and 1 mV/s drift): the truth lies within +/- 2 SD in 85-99.5 % of cells."""
 
@@ -207,11 +212,3 @@ class TestCellSdsUnderHumAndDrift:
         truth = np.array(self.TAUS * 2)
         assert np.all(np.abs(tau / truth - 1) <= 0.10)       # the target tolerance
         assert 0.85 <= within_two_sd(tau, sd, truth) <= 0.995
-
-    def test_input_resistance_mohm_sd(self, measured_cells):
-        est = np.array([c.input_resistance_mohm for c, _, _ in measured_cells])
-        sd = np.array([c.input_resistance_mohm_sd for c, _, _ in measured_cells])
-        truth = np.array([true_input_resistance(clean, rate, self.STEPS)
-                          for _, clean, rate in measured_cells])
-        assert np.all(np.abs(est / truth - 1) <= 0.05)       # the target tolerance
-        assert 0.85 <= within_two_sd(est, sd, truth) <= 0.995
