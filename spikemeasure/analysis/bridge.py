@@ -71,14 +71,20 @@ def _level_before(voltage_mv: np.ndarray, edge: int, n_fit: int) -> float:
 
 def _best_exponential(t_ms: np.ndarray, part: np.ndarray) -> tuple[float, np.ndarray]:
     """(tau_ms, [a, b]) of the least-squares a + b exp(-t / tau), tau on a grid."""
-    best, found = np.inf, (float("nan"), np.full(2, np.nan))
-    for tau in _TAU_GRID_MS:
-        design = np.column_stack([np.ones_like(t_ms), np.exp(-t_ms / tau)])
-        coef, *_ = np.linalg.lstsq(design, part, rcond=None)
-        sse = float(np.sum((design @ coef - part) ** 2))
-        if sse < best:
-            best, found = sse, (float(tau), coef)
-    return found
+    # every tau of the grid at once: about the means, the least-squares b of each
+    # exponential is a ratio of sums, and the residual is summed, not formed by subtraction
+    decay = np.exp(-t_ms[None, :] / _TAU_GRID_MS[:, None])
+    decay -= decay.mean(axis=1, keepdims=True)
+    centred = part - part.mean()
+    power = np.sum(decay * decay, axis=1)
+    b = np.sum(decay * centred, axis=1) / np.where(power > 0, power, 1.0)
+    sse = np.sum((centred - b[:, None] * decay) ** 2, axis=1)
+    if not np.isfinite(sse).any():
+        return float("nan"), np.full(2, np.nan)
+    tau = float(_TAU_GRID_MS[int(np.nanargmin(sse))])
+    design = np.column_stack([np.ones_like(t_ms), np.exp(-t_ms / tau)])
+    coef, *_ = np.linalg.lstsq(design, part, rcond=None)
+    return tau, coef
 
 
 def _charging_start(voltage_mv: np.ndarray, edge: int, n_settle: int, n_fit: int,

@@ -166,13 +166,13 @@ def _onset_slopes_and_windows(v: np.ndarray, rate_hz: float, position: np.ndarra
     """:func:`_onset_slope_weights`, and the window of each spike."""
     noise = noise_before(v, np.asarray(position, dtype=float) - longest)
     out = np.zeros((np.asarray(position).size, longest))
-    windows = np.zeros(np.asarray(position).size, dtype=np.int64)
-    for k, sigma in enumerate(noise):
-        window = onset_window(sigma, rate_hz, level, longest)
+    windows = np.array([onset_window(sigma, rate_hz, level, longest) for sigma in noise],
+                       dtype=np.int64)
+    # Few distinct windows among many spikes: one set of weights per window.
+    for window in np.unique(windows):
         pad = (longest - window) // 2
-        out[k, pad:pad + window] = savgol_coeffs(window, SMOOTHING_POLYORDER, deriv=1,
-                                                 delta=1e3 / rate_hz, use="dot")
-        windows[k] = window
+        out[windows == window, pad:pad + window] = savgol_coeffs(
+            int(window), SMOOTHING_POLYORDER, deriv=1, delta=1e3 / rate_hz, use="dot")
     return out, windows
 
 
