@@ -389,7 +389,11 @@ def main() -> None:
     parser.add_argument("--full", action="store_true",
                         help="every acquisition, with and without hum and drift, 3 noise levels")
     parser.add_argument("--seed", type=int, default=1, help="first random seed")
+    parser.add_argument("--models", nargs="+", choices=list(CELLS), metavar="MODEL",
+                        help="only these models (each keeps the noise it has in a whole run); "
+                             f"of {', '.join(CELLS)}")
     args = parser.parse_args()
+    models = args.models or list(CELLS)
     acquisitions, artefacts, noise_levels = plan_of(args.full)
     out, measuring, seed = Comparisons(), 0.0, args.seed
     start = time.perf_counter()
@@ -397,6 +401,9 @@ def main() -> None:
         for model in CELLS:
             for acquisition in acquisitions:
                 for artefact in artefacts:
+                    if model not in models:
+                        seed += 1
+                        continue
                     measuring += run_condition(out, model, acquisition, artefact,
                                                noise_levels, Path(tmp), seed)
                     seed += 1
@@ -404,7 +411,7 @@ def main() -> None:
                           f"({time.perf_counter() - start:.0f} s)", file=sys.stderr)
     plan = (f"{'full' if args.full else 'quick'} ({len(acquisitions)} acquisitions x "
             f"{len(artefacts)} artefact sets x noise {', '.join(f'{n:g}' for n in noise_levels)}"
-            f" mV x {len(CELLS)} models)")
+            f" mV x {len(models)} models)")
     lines = summary(out, time.perf_counter() - start, measuring, plan)
     lines += ["", "### Per feature", ""] + feature_table(out)
     for key in ("acquisition", "noise", "artefacts", "model"):
