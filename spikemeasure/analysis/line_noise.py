@@ -20,7 +20,7 @@ from .fluctuation import weighted_sums_covariance
 __all__ = ["LineNoise", "estimate_line_noise", "remove_line_noise", "corrected_weights",
            "line_noise_lines",
            "MAINS_FREQUENCIES_HZ", "HUM_HARMONICS", "LINE_NOISE_FALSE_ALARM",
-           "MIN_QUIET_PERIODS"]
+           "MIN_QUIET_PERIODS", "PLATEAU_AGREEMENT"]
 
 #: The mains frequencies tried; the one whose hum stands out more is kept.
 MAINS_FREQUENCIES_HZ = (50.0, 60.0)
@@ -31,6 +31,12 @@ HUM_HARMONICS = 3
 #: recording keeps its values in all but about this share of its sweeps, and then moves by
 #: no more than its noise.
 LINE_NOISE_FALSE_ALARM = 1e-3
+#: A plateau (:func:`estimate_line_noise`) joins the drift's estimate only when a slope and
+#: a bend of its own, apart from the quiet stretch's line, are not significant together at
+#: this level: a response still settling there is not drift. Stricter than the false alarm
+#: of the terms, so that a plateau that may be settling is left out rather than taken for
+#: drift.
+PLATEAU_AGREEMENT = 0.01
 #: The quiet stretch must hold at least this many periods of the lowest mains frequency.
 MIN_QUIET_PERIODS = 2.0
 #: The residual's variance counts as at least this (mV^2), so that rounding on a noise-free
@@ -58,16 +64,26 @@ class LineNoise:
     drift_sd_mv_per_s : float
         The standard error of the slope, whether kept or not.
     first_sample, stop_sample : int
-        The quiet stretch fitted, samples [first_sample, stop_sample).
+        The quiet stretch fitted, samples [first_sample, stop_sample) (to the end of the
+        plateau when one joined the fit).
     reference : tuple of int
         Samples [first, stop) over which the removed hum and drift have zero mean (the
         baseline window), by default the quiet stretch.
     drift_estimate_mv_per_s : float
         The slope as fitted, kept or not (NaN when not fitted).
+    untested_drift_sd_mv_per_s : float
+        Size of a drift left in the corrected voltage that the noise's share of the
+        weights (:func:`corrected_weights`) does not hold, each from the moment estimate
+        of its square, sqrt(max(0, b^2 - var b)): a drift fitted but not kept, from its
+        slope b; a kept drift that a plateau joined, from the difference b of the
+        plateau's slope and the quiet stretch's (its settling), times the plateau's weight
+        in the slope; 0 for a kept drift fitted on the quiet stretch alone; NaN when no
+        drift was fitted.
     sampling_rate_hz : float
     sensitivity : ndarray, shape (k, stop_sample - first_sample)
         The kept terms' coefficients are ``sensitivity @ voltage[first_sample:stop_sample]``
-        (the rows of the least-squares pseudo-inverse).
+        (the rows of the least-squares pseudo-inverse; zero between the quiet stretch and a
+        plateau, see :func:`estimate_line_noise`).
     """
 
     frequency_hz: float
@@ -83,6 +99,7 @@ class LineNoise:
     coefficients: np.ndarray
     reference: tuple[int, int] = (0, 0)
     drift_estimate_mv_per_s: float = float("nan")
+    untested_drift_sd_mv_per_s: float = float("nan")
 
     @property
     def found(self) -> bool:
@@ -132,35 +149,51 @@ def _basis(samples: np.ndarray, fit: LineNoise) -> np.ndarray:
 
 
 def _fit(part: np.ndarray, samples: np.ndarray, rate: float, frequency_hz: float,
-         harmonics: tuple[int, ...], drift: bool
+         harmonics: tuple[int, ...], drift: bool, levels: np.ndarray | None = None,
+         extra: np.ndarray | None = None
          ) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
     """Least squares of `part` on a constant and the terms: (coefficients without the
-    constant, their sensitivity rows, their covariance under the residual's spectrum)."""
+    constant, their sensitivity rows, their covariance under the residual's spectrum).
+
+    `levels` (0 or 1 per sample) gives the second stretch a constant of its own; `extra`
+    columns follow the terms. The rows cover samples[0] to samples[-1], zero where a
+    sample is not fitted."""
     terms = _terms(samples, rate, frequency_hz, harmonics, drift)
-    design = np.column_stack([np.ones(samples.size), terms - terms.mean(axis=0)])
+    if extra is not None:
+        terms = np.column_stack([terms, extra])
+    constants = (np.ones((samples.size, 1)) if levels is None or not levels.any()
+                 else np.column_stack([1.0 - levels, levels]))
+    k = constants.shape[1]
+    design = np.column_stack([constants, terms - terms.mean(axis=0)])
     # the normal equations: a few well-scaled columns (centred, the time in s), where an
     # SVD of the tall design would cost far more
     pinv = np.linalg.solve(design.T @ design, design.T)
     coef = pinv @ part
     residual = part - design @ coef
-    spectral = weighted_sums_covariance(pinv[1:], residual, rate)
+    rows = pinv[k:]
+    if samples.size and samples[-1] - samples[0] + 1 != samples.size:
+        dense = np.zeros((rows.shape[0], int(samples[-1] - samples[0]) + 1))
+        dense[:, samples - samples[0]] = rows
+        rows = dense
+    spectral = weighted_sums_covariance(rows, residual, rate)
     if spectral is None:
-        return coef[1:], pinv[1:], None
+        return coef[k:], rows, None
     # white noise of the residual's variance, made larger where the residual's spectrum
     # says the noise is correlated: a spectrum estimated on a short stretch scatters, and
     # taken alone would often make the test too lenient
     variance = max(float(np.var(residual)) * samples.size
                    / max(1, samples.size - design.shape[1]), _VARIANCE_FLOOR_MV2)
-    white = variance * (pinv[1:] @ pinv[1:].T)
+    white = variance * (pinv[k:] @ pinv[k:].T)
     inflation = max(1.0, float(np.trace(spectral) / np.trace(white))) if white.size else 1.0
-    return coef[1:], pinv[1:], white * inflation
+    return coef[k:], rows, white * inflation
 
 
 def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s: float,
                         stop_s: float, *, harmonics: int = HUM_HARMONICS,
                         false_alarm: float = LINE_NOISE_FALSE_ALARM,
                         drift: bool = True,
-                        reference_s: tuple[float, float] | None = None) -> LineNoise:
+                        reference_s: tuple[float, float] | None = None,
+                        plateau_s: tuple[float, float] | None = None) -> LineNoise:
     """Fit mains hum and a drift line to a quiet stretch and keep what is significant.
 
     Parameters
@@ -180,6 +213,10 @@ def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s
     reference_s : (float, float), optional
         The window (s) over which the hum and drift removed keep a zero mean (the baseline
         window, so the baseline is unchanged); by default the quiet stretch.
+    plateau_s : (float, float), optional
+        A later stretch (s) where the response to a stimulus has settled (the steady-state
+        window of a step): with a level of its own, its slope joins the drift's estimate,
+        a lever the short quiet stretch lacks (see Notes).
 
     Returns
     -------
@@ -204,6 +241,17 @@ def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s
     3. Each harmonic (its cos and sin pair) and the slope is kept when its Wald statistic
        b^T C^-1 b exceeds the chi-square quantile for `false_alarm` (2 and 1 degrees of
        freedom); the kept terms are fitted again alone.
+    4. With a plateau, the fit runs over both stretches with a constant for each (the
+       plateau's level is the response's), so the slope is estimated from the voltage's
+       change within each; its standard error falls by about the square root of the
+       stretches' combined N T^2 over the quiet stretch's (N samples over T seconds). The
+       plateau joins only when a second slope and a bend (a centred square of the time)
+       for it, fitted beside the first, are not significant together at
+       :data:`PLATEAU_AGREEMENT` (a response still settling bends and is not drift), and
+       only for the drift: a hum kept without the drift is fitted on the quiet stretch
+       alone, as without a plateau. The plateau's settling that the test let through, the
+       plateau's weight in the slope times the slopes' difference beyond its noise, is kept
+       as ``untested_drift_sd_mv_per_s`` for the SDs.
     The hum's phase is taken to hold across the sweep, so the hum found on the stretch is
     the hum of the whole sweep; the drift is a straight line through it.
 
@@ -224,6 +272,8 @@ def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s
         raise InvalidSettingError("`false_alarm` must lie between 0 and 1")
     if not stop_s >= start_s:
         raise InvalidSettingError("`stop_s` must not come before `start_s`")
+    if plateau_s is not None and not plateau_s[1] >= plateau_s[0] >= stop_s:
+        raise InvalidSettingError("`plateau_s` must be a stretch after `stop_s`")
     v = np.asarray(voltage_mv, dtype=float)
     first = max(0, int(round(start_s * rate)))
     stop = min(v.size, int(round(stop_s * rate)))
@@ -237,15 +287,25 @@ def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s
     if part.size < need or not np.isfinite(part).all():
         return none
     samples = np.arange(first, stop)
+    levels, difference = None, float("nan")
+    if drift and plateau_s is not None:
+        lo, hi = max(stop, int(round(plateau_s[0] * rate))), min(v.size,
+                                                                int(round(plateau_s[1] * rate)))
+        if hi - lo >= need and np.isfinite(v[lo:hi]).all():
+            both = np.concatenate([samples, np.arange(lo, hi)])
+            marks = (both >= lo).astype(float)
+            agrees, difference = _plateau_agrees(v[both], both, rate, harmonics, marks)
+            if agrees:
+                samples, part, levels = both, v[both], marks
     best = None
     for f in MAINS_FREQUENCIES_HZ:
         below = tuple(h for h in range(1, harmonics + 1) if h * f < rate / 2)
-        coef, _, _ = _fit(part, samples, rate, f, below, drift)
+        coef, _, _ = _fit(part, samples, rate, f, below, drift, levels)
         explained = float(np.sum(coef[int(drift):] ** 2))
         if best is None or explained > best[0]:
             best = (explained, f, below)
     _, f, below = best
-    coef, _, cov = _fit(part, samples, rate, f, below, drift)
+    coef, _, cov = _fit(part, samples, rate, f, below, drift, levels)
     if cov is None:
         return none
     keep_drift = drift and _wald(coef[:1], cov[:1, :1]) > chi2.isf(false_alarm, 1)
@@ -256,16 +316,57 @@ def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s
                  > chi2.isf(false_alarm, 2))
     slope_sd = float(np.sqrt(max(0.0, cov[0, 0]))) if drift else float("nan")
     slope = float(coef[0]) if drift else float("nan")
+    quiet_stop, stop = stop, int(samples[-1]) + 1
     if not (keep_drift or kept):
         return LineNoise(float("nan"), (), np.zeros(0), np.zeros(0), float("nan"), slope_sd,
-                         first, stop, rate, np.zeros((0, part.size)), np.zeros(0), reference,
-                         slope)
-    coef, rows, _ = _fit(part, samples, rate, f, kept, keep_drift)
+                         first, stop, rate, np.zeros((0, stop - first)), np.zeros(0),
+                         reference, slope, _excess(slope, slope_sd ** 2))
+    if not keep_drift and levels is not None:
+        # the hum alone is fitted on the quiet stretch alone, as without a plateau
+        samples, part, levels, stop = samples[levels == 0], part[levels == 0], None, quiet_stop
+    coef, rows, _ = _fit(part, samples, rate, f, kept, keep_drift, levels)
+    # a drift not kept stays in the voltage; a kept drift that a plateau joined may hold
+    # the plateau's own settling, times the plateau's weight in the slope
+    untested = _excess(slope, slope_sd ** 2) if not keep_drift else 0.0
+    if keep_drift and levels is not None:
+        on_plateau = samples[levels > 0] - first
+        t = on_plateau / rate
+        untested = abs(float(rows[0, on_plateau] @ (t - t.mean()))) * difference
     hum = coef[1:] if keep_drift else coef
     cos, sin = hum[0::2], hum[1::2]
     return LineNoise(f if kept else float("nan"), kept, np.hypot(cos, sin),
                      np.arctan2(-sin, cos), float(coef[0]) if keep_drift else float("nan"),
-                     slope_sd, first, stop, rate, rows, coef, reference, slope)
+                     slope_sd, first, stop, rate, rows, coef, reference, slope, untested)
+
+
+def _plateau_agrees(part: np.ndarray, samples: np.ndarray, rate: float, harmonics: int,
+                    levels: np.ndarray) -> tuple[bool, float]:
+    """Whether the plateau follows the quiet stretch's line (:data:`PLATEAU_AGREEMENT`), and
+    the size of the slopes' difference beyond its noise (:func:`_excess`): the test of an
+    extra slope and bend on the plateau, with the hum of the stronger mains frequency fitted
+    beside them."""
+    best = None
+    for f in MAINS_FREQUENCIES_HZ:
+        below = tuple(h for h in range(1, harmonics + 1) if h * f < rate / 2)
+        t = samples / rate
+        x = levels * (t - t[levels > 0].mean())
+        bend = levels * (x * x - np.mean(x[levels > 0] ** 2))
+        extra = np.column_stack([x, bend])
+        coef, _, cov = _fit(part, samples, rate, f, below, True, levels, extra)
+        explained = float(np.sum(coef[1:-2] ** 2))
+        if best is None or explained > best[0]:
+            best = (explained, coef, cov)
+    _, coef, cov = best
+    if cov is None:
+        return False, float("nan")
+    return (_wald(coef[-2:], cov[-2:, -2:]) <= chi2.isf(PLATEAU_AGREEMENT, 2),
+            _excess(float(coef[-2]), float(cov[-2, -2])))
+
+
+def _excess(estimate: float, variance: float) -> float:
+    """sqrt(max(0, estimate^2 - variance)): the size of a quantity beyond the noise of its
+    estimate (the moment estimate of its square: E[b^2] = beta^2 + var b)."""
+    return float(np.sqrt(max(0.0, estimate * estimate - variance)))
 
 
 def _wald(b: np.ndarray, cov: np.ndarray) -> float:
@@ -352,7 +453,19 @@ def line_noise_lines() -> list[str]:
         "the removal through: a window mean of the corrected voltage is a weighted sum of "
         "the recorded one, the quiet stretch weighted by minus the removal's sensitivity, "
         "and the covariance of those weights follows from the noise spectrum as for the "
-        "other SDs. A drift too small to pass the test (about 3 standard errors; at 0.5 mV "
-        "of white noise, 20 kHz and 200 ms before the step the slope's standard error is "
-        "about 0.25 mV/s) stays in the values and is not in their SDs.",
+        "other SDs.",
+        "",
+        "On a hyperpolarizing or subthreshold step without spikes the drift's slope is also "
+        "fitted on the steady-state window (where the response has settled, as "
+        "steady_state_mv takes it), with a level of its own: the baseline alone tells a "
+        "slope only to about noise / sqrt(N T^2 / 12) (N samples over T s; 0.4 mV/s at "
+        "0.5 mV of white noise, 20 kHz and 100 ms), and the second window lowers that by "
+        "about sqrt(2). It joins only when a slope and a bend of its own beside the "
+        "baseline's line are not significant together at "
+        f"{PLATEAU_AGREEMENT:g} (a response still settling bends and is not drift). A "
+        "drift too small to pass its test stays in the values; sag_fraction_sd then holds "
+        "its size (sqrt(max(0, b^2 - var b)) for the fitted slope b, the moment estimate of "
+        "its square) times each window's lever, and, where the steady-state window joined, "
+        "likewise the size of its own slope beyond the baseline's, times its weight in "
+        "the drift.",
     ]

@@ -379,7 +379,11 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
             and depolarization_block(voltage_mv, rate, times, step.onset_s,
                                      step.offset_s).blocked):
         flags.append("depolarization_block")
-    passive, line_noise = passive_voltage(voltage_mv, rate, step, baseline_window_ms)
+    # a step without spikes settles to a plateau, whose slope tells the drift too
+    in_step = times[(times >= step.onset_s) & (times < step.offset_s)]
+    plateau_ms = steady_window_ms if spikes_counted and in_step.size == 0 else None
+    passive, line_noise = passive_voltage(voltage_mv, rate, step, baseline_window_ms,
+                                          steady_window_ms=plateau_ms)
     response = passive_response(passive, sampling_rate_hz, step, base, steady_window_ms,
                                 drift_mv=(baseline_drift(passive, rate, step.offset_s, base)
                                           if line_noise.found else drift),

@@ -19,9 +19,9 @@ from .sweeps import CurrentStep
 __all__ = ["PassiveResponse", "passive_response", "passive_voltage", "MIN_WINDOW_MS",
            "TROUGH_WINDOW_FRACTION", "SAG_NOISE_FACTOR", "STEADY_STATE_WINDOW_MS"]
 
-#: Width of the moving average under the minimum during the step (noise would pull a raw
-#: minimum down by two to three noise SDs); for a hyperpolarizing step, the shortest
-#: window of the quadratic smoothing under its minimum.
+#: Width of the moving average whose minimum during the step is min_mv (noise would pull a
+#: raw minimum down by two to three noise SDs); for a hyperpolarizing step, the shortest
+#: trough smoothing.
 MIN_WINDOW_MS = 1.0
 
 #: For a hyperpolarizing step, the minimum is that of a moving average over this multiple
@@ -92,13 +92,15 @@ def passive_response(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curr
     -------
     PassiveResponse
         steady_state_mv: mean voltage over the last `steady_window_ms` of the step (all of
-        it if shorter). min_mv: for a hyperpolarizing step, the minimum of the trough
-        smoothing (see Notes); for other steps, the minimum of a sliding
-        :data:`MIN_WINDOW_MS` moving average. sag_fraction (hyperpolarizing steps only):
+        it if shorter). min_mv: the minimum during the step of the voltage's
+        :data:`MIN_WINDOW_MS` moving average; for a hyperpolarizing step with a sag over
+        noise, read at the vertex of a parabola fitted around the trough, else the
+        minimum of the trough smoothing (see Notes). sag_fraction (hyperpolarizing steps only):
         (steady_state_mv - min_mv) / (baseline_mv - min_mv), 0 for no sag, 1 when the voltage
         returns all the way to baseline; 0 with ``sag_within_noise`` when the sag cannot be
-        told from noise. sag_fraction_sd and deflection_sd_mv: the SDs the baseline's noise
-        implies. NaN where not defined.
+        told from noise. sag_fraction_sd: the SD the baseline's noise and a drift the
+        hum and drift removal could not exclude imply; deflection_sd_mv: the SD the
+        baseline's noise implies. NaN where not defined.
 
     Notes
     -----
@@ -113,16 +115,31 @@ def passive_response(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curr
     (Savitzky-Golay) smoothing, an average never dips below a monotone response where the
     charging bends into the plateau.
 
-    baseline_mv, steady_state_mv and min_mv are means over windows (min_mv: the trough
-    window at the minimum), so noise moves them by weighted sums of its samples: their
-    covariance C follows from the baseline's noise spectrum
-    (:func:`~spikemeasure.analysis.fluctuation.weighted_sums_covariance`).
+    Where the sag is over noise (below), the trough is a true minimum inside the step, and
+    min_mv is read without the average's c w^2 / 12: a parabola a + b x + c x^2 is fitted by
+    least squares to the samples within one trough window w either side of the average's
+    minimum, and min_mv is its vertex plus c m^2 / 12 (the :data:`MIN_WINDOW_MS` average of
+    the parabola, m that window, so that min_mv keeps its definition). For a parabola the
+    vertex is exact; its noise is that of a fit over 2 w, about that of the average over w.
+    The fit is used only when it opens upwards and its vertex lies in its middle half, so
+    that the vertex is not extrapolated; otherwise the average's minimum stays.
+
+    baseline_mv, steady_state_mv and min_mv are weighted sums of samples (min_mv: the
+    trough window's mean, or the vertex's weights with its position held fixed), so noise
+    moves them by weighted sums of its samples: their covariance C follows from the
+    baseline's noise spectrum
+    (:func:`~spikemeasure.analysis.fluctuation.weighted_sums_covariance`). A drift that
+    the hum and drift removal could not exclude (``LineNoise.untested_drift_sd_mv_per_s``:
+    a drift tested and not kept, or a plateau's settling its agreement test could not tell
+    from drift) adds s^2 l l^T, l the weights' mean times (the lever of each window) and s
+    that SD.
     sag_fraction_sd is sqrt(g^T C g), g the gradient of the sag in the three (the delta
     method: Bevington and Robinson 2003, section 3.2, from memory); deflection_sd_mv is the
     SD of steady_state_mv - baseline_mv. The choice of the minimum's position among noisy
     candidates is left out: where it matters (a flat plateau) the sag is within noise. The
-    sag is within noise when steady_state_mv - min_mv is not over :data:`SAG_NOISE_FACTOR`
-    times the SD of min_mv's window mean, plus abs(drift_mv).
+    sag is within noise when steady_state_mv - min_mv (the trough smoothing's minimum) is
+    not over :data:`SAG_NOISE_FACTOR` times the SD of min_mv's window mean (noise alone),
+    plus abs(drift_mv).
 
     References
     ----------
@@ -150,20 +167,28 @@ def passive_response(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curr
             sag = (steady - lowest) / (baseline_mv - lowest)
         return PassiveResponse(steady, lowest, sag, nan, nan)
     smooth = _moving_average(span, trough)
-    lowest = float(np.min(smooth))
-    if not (np.isfinite(baseline_mv) and baseline_mv - lowest > 0):
-        return PassiveResponse(steady, lowest, nan, nan, nan)
-    sag = (steady - lowest) / (baseline_mv - lowest)
+    averaged = float(np.min(smooth))
+    low = int(np.argmin(smooth))
+    vertex = _trough_vertex(span, low + trough // 2, trough, width)
+    if not (np.isfinite(baseline_mv) and baseline_mv - averaged > 0):
+        # no sag to tell from noise: the trough as read
+        return PassiveResponse(steady, averaged if vertex is None else vertex[0], nan, nan,
+                               nan)
     base_lo = max(0, int(round(step.baseline_start_s * rate)),
                   start - int(round(baseline_window_ms * 1e-3 * rate)))
-    low = int(np.argmin(smooth))
-    weights = np.zeros((3, stop - base_lo))
+    # rows: baseline, steady state, the trough's average and (where it lies inside the
+    # step) the trough's vertex
+    weights = np.zeros((3 if vertex is None else 4, stop - base_lo))
     weights[0, :start - base_lo] = 1.0 / (start - base_lo) if start > base_lo else np.nan
     weights[1, stop - base_lo - n_tail:] = 1.0 / n_tail
     weights[2, start - base_lo + low:start - base_lo + low + trough] = 1.0 / trough
+    if vertex is not None:
+        weights[3, start - base_lo + vertex[1]:start - base_lo + vertex[1] + vertex[2].size] = (
+            vertex[2])
     noise = baseline_stretch(voltage_mv, rate, step.onset_s, earliest_s=step.baseline_start_s,
                              window_ms=baseline_window_ms)
     with_drift = float("nan")
+    raw_weights = weights
     if line_noise is not None and np.isfinite(weights).all():
         hum_rows, _ = corrected_weights(weights[:2], base_lo, line_noise.hum_only())
         hum_cov = weighted_sums_covariance(hum_rows, noise, rate)
@@ -173,18 +198,28 @@ def passive_response(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curr
         weights, _ = corrected_weights(weights, base_lo, line_noise)
     cov = (weighted_sums_covariance(weights, noise, rate)
            if np.isfinite(weights).all() else None)
-    if cov is None or not np.isfinite(lowest):
-        return PassiveResponse(steady, lowest, sag, nan, nan)
+    if cov is None:
+        sag = (steady - averaged) / (baseline_mv - averaged)
+        return PassiveResponse(steady, averaged, sag, nan, nan)
+    # the drift the estimate could not exclude moves the sag (a difference of window means
+    # at different times), not the noise under one window
+    untested = _untested_drift_cov(raw_weights, base_lo, rate, line_noise)
+    drift = abs(drift_mv) if np.isfinite(drift_mv) else 0.0
+    hidden = SAG_NOISE_FACTOR * float(np.sqrt(max(0.0, cov[2, 2]))) + drift
+    within = steady - averaged <= hidden
+    # a sag over noise is read at its vertex; within noise, the average's minimum stays
+    use = 3 if vertex is not None and not within else 2
+    lowest = vertex[0] if use == 3 else averaged
+    cov = cov[np.ix_([0, 1, use], [0, 1, use])]
+    untested = untested[np.ix_([0, 1, use], [0, 1, use])]
+    sag = (steady - lowest) / (baseline_mv - lowest)
     # d sag / d (baseline, steady state, minimum): the delta method
     depth = baseline_mv - lowest
     gradient = np.array([-(steady - lowest) / depth ** 2, 1.0 / depth,
                          (steady - baseline_mv) / depth ** 2])
-    sag_sd = float(np.sqrt(max(0.0, gradient @ cov @ gradient)))
+    sag_sd = float(np.sqrt(max(0.0, gradient @ (cov + untested) @ gradient)))
     deflection = np.array([-1.0, 1.0, 0.0])
     deflection_sd = float(np.sqrt(max(0.0, deflection @ cov @ deflection)))
-    drift = abs(drift_mv) if np.isfinite(drift_mv) else 0.0
-    hidden = SAG_NOISE_FACTOR * float(np.sqrt(max(0.0, cov[2, 2]))) + drift
-    within = steady - lowest <= hidden
     if within:
         # reported as 0, the sag may be anything up to what noise and drift hide: +/- 2 SD
         # spans it
@@ -193,6 +228,46 @@ def passive_response(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curr
         with_drift = deflection_sd
     return PassiveResponse(steady, lowest, 0.0 if within else sag, sag_sd, deflection_sd,
                            within, with_drift)
+
+
+def _trough_vertex(span: np.ndarray, centre: int, trough: int, width: int
+                   ) -> tuple[float, int, np.ndarray] | None:
+    """The vertex of a parabola fitted by least squares to `span` over `trough` samples
+    either side of `centre`, as the minimum of its :data:`MIN_WINDOW_MS` average (`width`
+    samples): (value, first sample, weights whose dot product with the samples from it
+    gives the value, the vertex's position held fixed). None where the fit leaves the
+    span, does not open upwards, or puts its vertex outside its middle half."""
+    half = max(int(trough), 2)
+    first, last = centre - half, centre + half
+    if first < 0 or last >= span.size:
+        return None
+    x = np.arange(-half, half + 1, dtype=float) / half
+    design = np.column_stack([np.ones_like(x), x, x * x])
+    solve = np.linalg.solve(design.T @ design, design.T)
+    c0, c1, c2 = solve @ span[first:last + 1]
+    if not c2 > 0:
+        return None
+    at = -c1 / (2 * c2)
+    if abs(at) > 0.5:
+        return None
+    # the MIN_WINDOW_MS average of the parabola lies c2 (w / half)^2 / 12 above it
+    lift = c2 * (width / half) ** 2 / 12
+    rows = np.array([1.0, at, at * at]) @ solve + np.array([0.0, 0.0, 1.0]) @ solve * (
+        (width / half) ** 2 / 12)
+    return float(c0 + c1 * at + c2 * at * at + lift), int(first), rows
+
+
+def _untested_drift_cov(weights: np.ndarray, first_sample: int, rate: float,
+                        line_noise: LineNoise | None) -> np.ndarray:
+    """Covariance that a drift the estimate could not exclude leaves in weighted means
+    of the corrected voltage: each row's mean time times
+    ``line_noise.untested_drift_sd_mv_per_s`` (zero without one)."""
+    k = weights.shape[0]
+    sd = line_noise.untested_drift_sd_mv_per_s if line_noise is not None else float("nan")
+    if not (np.isfinite(sd) and sd > 0 and np.isfinite(weights).all()):
+        return np.zeros((k, k))
+    lever = weights @ (np.arange(first_sample, first_sample + weights.shape[1]) / rate)
+    return sd ** 2 * np.outer(lever, lever)
 
 
 def _trough_window(coarse: np.ndarray, width: int, level_mv: float) -> int | None:
@@ -216,7 +291,8 @@ def _moving_average(x: np.ndarray, length: int) -> np.ndarray:
 
 
 def passive_voltage(voltage_mv: np.ndarray, sampling_rate_hz: float, step: CurrentStep,
-                    baseline_window_ms: float = BASELINE_WINDOW_MS
+                    baseline_window_ms: float = BASELINE_WINDOW_MS, *,
+                    steady_window_ms: float | None = None
                     ) -> tuple[np.ndarray, LineNoise]:
     """The voltage the passive values read: the sweep's mains hum and drift removed.
 
@@ -229,6 +305,9 @@ def passive_voltage(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curre
     baseline_window_ms : float, optional
         The baseline window (:func:`~spikemeasure.analysis.sweep_features.baseline`): the
         hum and drift are fitted on it, and the removal keeps its mean.
+    steady_window_ms : float, optional
+        The steady-state window at the end of a step without spikes: given, the drift's
+        slope is fitted on it too, where it follows the baseline's line (see Notes).
 
     Returns
     -------
@@ -248,6 +327,15 @@ def passive_voltage(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curre
     passive values (steady state, minimum, sag, time constant) read the membrane without
     them; the input resistance keeps the drift (see
     :func:`~spikemeasure.analysis.sweep_features.sweep_features`).
+
+    A baseline of 100 ms tells a slope only to about noise / sqrt(N T^2 / 12) (N samples over
+    T s: 0.4 mV/s at 0.5 mV of white noise and 20 kHz), so a drift of 1 mV/s often fails
+    its test there and stays in the values. With `steady_window_ms`, the steady-state window
+    (where the response has settled, as steady_state_mv takes it) joins the drift's fit with
+    a level of its own, when it shows no slope or bend of its own beside the baseline's line
+    (:func:`~spikemeasure.analysis.line_noise.estimate_line_noise`, `plateau_s`): the
+    slope's standard error falls by about sqrt(2), and the test that keeps the drift gains
+    that much.
     """
     rate = float(sampling_rate_hz)
     onset = int(round(step.onset_s * rate))
@@ -255,7 +343,11 @@ def passive_voltage(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curre
                 onset - int(round(baseline_window_ms * 1e-3 * rate)))
     # after a test pulse the membrane may still be settling, which a line would take for
     # drift: the hum alone then
+    plateau = None
+    if steady_window_ms is not None and step.shape == "step":
+        plateau = (max(onset / rate, step.offset_s - steady_window_ms * 1e-3), step.offset_s)
     fit = estimate_line_noise(voltage_mv, rate, first / rate, onset / rate,
-                              drift=not np.isfinite(step.test_pulse_start_s))
+                              drift=not np.isfinite(step.test_pulse_start_s),
+                              plateau_s=plateau)
     return remove_line_noise(voltage_mv, fit), fit
 

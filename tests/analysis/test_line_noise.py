@@ -86,7 +86,77 @@ class TestEstimateLineNoise:
             estimate_line_noise(trace(), **args)
 
 
+class TestPlateau:
+    """A second stretch with a level of its own (the settled end of a step): the slope's
+    standard error against the least-squares formula for white noise with one constant per
+    stretch, sigma / sqrt(sum over both stretches of (t - their own mean t)^2) (Kay 1993,
+    chapter 4, from memory), and a settling exponential refused."""
+
+    BASE_S, PLATEAU_S = (0.1, 0.2), (0.4, 0.5)
+
+    def stepped(self, settle_mv=0.0, seed=0, noise_mv=0.5, slope=1.0):
+        """trace() with a -10 mV step from 0.2 s on, settled (or still relaxing with a 40 ms
+        exponential of `settle_mv` left at the plateau's start)."""
+        v = trace(hum_mv=0.0, slope=slope, noise_mv=noise_mv, seed=seed, seconds=0.6)
+        t = np.arange(v.size) / RATE
+        step = (t >= 0.2) & (t < 0.5)
+        v[step] -= 10.0
+        v[step] += settle_mv * np.exp(-(t[step] - 0.4) / 0.04)
+        return v
+
+    def test_standard_error_falls_as_least_squares_says(self):
+        fit = estimate_line_noise(self.stepped(seed=1), RATE, *self.BASE_S,
+                                  plateau_s=self.PLATEAU_S)
+        t = np.arange(2000) / RATE
+        expected = 0.5 / np.sqrt(2 * np.sum((t - t.mean()) ** 2))   # 0.17 mV/s
+        assert fit.drift_sd_mv_per_s == pytest.approx(expected, rel=0.3)
+        alone = estimate_line_noise(self.stepped(seed=1), RATE, *self.BASE_S)
+        assert fit.drift_sd_mv_per_s < 0.85 * alone.drift_sd_mv_per_s
+
+    def test_a_drift_the_baseline_misses_is_kept(self):
+        # 1 mV/s at 0.5 mV: about 4 standard errors with the plateau, 2.9 without
+        kept = [np.isfinite(estimate_line_noise(self.stepped(seed=k), RATE, *self.BASE_S,
+                                                plateau_s=self.PLATEAU_S).drift_mv_per_s)
+                for k in range(20)]
+        alone = [np.isfinite(estimate_line_noise(self.stepped(seed=k), RATE,
+                                                 *self.BASE_S).drift_mv_per_s)
+                 for k in range(20)]
+        assert sum(kept) > sum(alone) and sum(kept) >= 12
+
+    def test_removal_with_the_plateau_leaves_the_step(self):
+        v = self.stepped(seed=2, noise_mv=0.1)
+        fit = estimate_line_noise(v, RATE, *self.BASE_S, plateau_s=self.PLATEAU_S)
+        out = remove_line_noise(v, fit)
+        # the step's true level, -10 mV from the baseline's, with the drift taken out
+        level = np.mean(out[8000:10000]) - np.mean(out[2000:4000])
+        assert level == pytest.approx(-10.0, abs=0.03)
+        assert fit.untested_drift_sd_mv_per_s < 2 * fit.drift_sd_mv_per_s
+
+    def test_a_settling_plateau_is_not_taken_for_drift(self):
+        # no drift; the plateau still relaxes by 1 mV with a 40 ms time constant
+        fits = [estimate_line_noise(self.stepped(settle_mv=1.0, seed=k, noise_mv=0.2,
+                                                 slope=0.0), RATE, *self.BASE_S,
+                                    plateau_s=self.PLATEAU_S) for k in range(10)]
+        assert not any(np.isfinite(f.drift_mv_per_s) for f in fits)
+        # what stays in (nothing kept) is in the SDs: the slope beyond its noise
+        assert all(f.untested_drift_sd_mv_per_s == pytest.approx(np.sqrt(max(
+            0.0, f.drift_estimate_mv_per_s ** 2 - f.drift_sd_mv_per_s ** 2))) for f in fits)
+
+    def test_a_plateau_before_the_stretch_is_refused(self):
+        with pytest.raises(InvalidSettingError, match="plateau_s"):
+            estimate_line_noise(trace(), RATE, 0.1, 0.2, plateau_s=(0.0, 0.05))
+
+
 class TestCorrectedWeights:
+
+    def test_matches_the_corrected_mean_with_a_plateau(self):
+        v = TestPlateau().stepped(seed=4, slope=3.0)
+        fit = estimate_line_noise(v, RATE, 0.1, 0.2, plateau_s=(0.4, 0.5))
+        assert fit.found
+        window = np.full((1, 2000), 1 / 2000)  # the mean of samples 8000-10000
+        rows, first = corrected_weights(window, 8000, fit)
+        direct = np.mean(remove_line_noise(v, fit)[8000:10000])
+        assert rows[0] @ v[first:first + rows.shape[1]] == pytest.approx(direct, abs=1e-9)
 
     def test_matches_the_corrected_mean(self):
         v = trace()

@@ -45,6 +45,28 @@ class TestPassiveResponse:
         assert noisy.min_mv == pytest.approx(clean.min_mv, abs=0.15)
         assert noisy.sag_fraction == pytest.approx(clean.sag_fraction, abs=0.02)
 
+    def test_minimum_is_that_of_the_one_ms_average(self):
+        """Source: the noise-free trace's 1 ms moving average (numpy convolution), whose
+        minimum min_mv is; the trough smoothing's wider average alone would lie c w^2 / 12
+        above it (c the trough's curvature)."""
+        v = sag_trace()
+        got = passive_response(v, RATE, CurrentStep(0.1, 0.6, -100.0), -70.0)
+        inside = v[int(0.1 * RATE):int(0.6 * RATE)]
+        width = int(round(1e-3 * RATE))
+        one_ms = np.convolve(inside, np.ones(width) / width, mode="valid").min()
+        assert got.min_mv == pytest.approx(one_ms, abs=0.003)
+
+    def test_noise_leaves_the_minimum_unbiased(self):
+        """Source: the noise-free trace's own value; 40 noise draws of 0.3 mV, whose mean
+        min_mv must lie within 3 standard errors of the mean (and 0.02 mV) of it."""
+        clean = passive_response(sag_trace(), RATE, CurrentStep(0.1, 0.6, -100.0), -70.0)
+        rng = np.random.default_rng(7)
+        lows = [passive_response(sag_trace() + rng.normal(0, 0.3, int(0.8 * RATE)), RATE,
+                                 CurrentStep(0.1, 0.6, -100.0), -70.0).min_mv
+                for _ in range(40)]
+        error = np.mean(lows) - clean.min_mv
+        assert abs(error) <= max(3 * np.std(lows) / np.sqrt(40), 0.02)
+
     def test_no_sag_on_depolarizing_step(self):
         v = -sag_trace() - 140.0
         assert np.isnan(passive_response(v, RATE, CurrentStep(0.1, 0.6, 100.0),
