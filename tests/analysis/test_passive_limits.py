@@ -193,6 +193,29 @@ class TestUnderHumAndDrift:
         assert 0.85 <= within_two_sd(est, sd, truth) <= 0.995
 
 
+class TestSagAtHalfAMillivoltUnderHumAndDrift:
+    """The issue's case: 0.5 mV of noise with 1 mV/s of drift, which the baseline alone tells
+    from noise only about half the time; what is not removed must be in sag_fraction_sd."""
+
+    def test_sag_fraction_sd_calibrated(self):
+        # 60 sweeps with a sag of 0.3 of known size, half with 50 Hz and half with 60 Hz hum
+        steps = -np.array([25.0, 50.0, 100.0] * 10)
+        est, sd, truth = [], [], []
+        for k, artefacts in enumerate(HUM_AND_DRIFT):
+            v, clean, rate = rc_sweeps(steps, 15.0, sag=0.3, seed=51 + k, **artefacts)
+            rows = measured(v, rate, steps)
+            est += [r.sag_fraction for r in rows]
+            sd += [r.sag_fraction_sd for r in rows]
+            truth += list(true_sag(clean, rate))
+        est, sd, truth = np.array(est), np.array(sd), np.array(truth)
+        assert 0.85 <= within_two_sd(est, sd, truth) <= 0.995
+        # the 20 mV steps within the target tolerance; on the 5 and 10 mV steps a drift
+        # left in over the 0.5 s from baseline to steady state moves the sag by up to 0.1,
+        # beyond the data at this noise, and their SDs (0.02-0.04) say so
+        deep = np.tile(steps, 2) == -100.0
+        assert np.all(np.abs(est[deep] - truth[deep]) <= 0.03)
+
+
 class TestCellSdsUnderHumAndDrift(_InputResistanceSd):
     """Calibration over 54 cells (tau 1.5, 10 and 50 ms; 0.2 mV white noise; 50 or 60 Hz
     hum and 1 mV/s drift): the truth lies within +/- 2 SD in 85-99.5 % of cells."""
