@@ -97,17 +97,22 @@ def onset_window(noise_mv: float, sampling_rate_hz: float, level: float, longest
 
 
 def _noise_matched_onsets(trace: SmoothedTrace, onset: np.ndarray, level: float
-                          ) -> np.ndarray:
+                          ) -> tuple[np.ndarray, np.ndarray]:
     """The onset crossing of `level` again, with a window matched to the measured noise.
 
     Returns fractional indices: for each spike, the last upward crossing of `level`, before
     the span's largest dV/dt, by the dV/dt of a local quadratic fit over
     :func:`onset_window` samples, among the centres within half a smoothing window of the
-    onset sample; NaN where the span leaves the trace or
-    holds no such crossing (the smoothed trace's crossing is kept there).
+    onset sample, placed between the two centres around it as the crossing of an
+    exponentially growing rate and moved by the fit's smoothing bias of such a rate
+    (:func:`_exponential_crossing`); NaN where the span leaves the trace or
+    holds no such crossing (the smoothed trace's crossing is kept there). Second, the rate's
+    growth per sample there (log of the ratio of the two fitted rates; NaN where it does not
+    grow).
     """
     v, fs = trace.voltage_mv, trace.sampling_rate_hz
     out = np.full(onset.size, np.nan)
+    growth = np.full(onset.size, np.nan)
     windows = np.array([onset_window(noise, fs, level, trace.window)
                         for noise in noise_before(v, onset - trace.window)], dtype=np.int64)
     back = ahead = trace.window // 2
@@ -127,8 +132,56 @@ def _noise_matched_onsets(trace: SmoothedTrace, onset: np.ndarray, level: float
         found = below.any(axis=1) & (rate[r, top] >= level)
         last = below.shape[1] - 1 - np.argmax(below[:, ::-1], axis=1)
         before, after = rate[r, last], rate[r, np.minimum(last + 1, rate.shape[1] - 1)]
-        frac = last + (level - before) / np.where(after != before, after - before, 1.0)
+        frac = last + _exponential_crossing(before, after, level, coeffs * 1e3 / fs)
         out[pick[found]] = (onset[pick] - back + frac)[found]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            k = np.where((before > 0) & (after > before), np.log(after / before), np.nan)
+        growth[pick[found]] = k[found]
+    return out, growth
+
+
+def _exponential_crossing(before: np.ndarray, after: np.ndarray, level: float,
+                          slope_weights: np.ndarray) -> np.ndarray:
+    """Where, in samples after the first, the true rate crosses `level`, from two
+    consecutive fitted rates `before` < `level` <= `after` (V/s).
+
+    Under a rate growing as exp(k t) between the two samples (k = log(after / before) per
+    sample), the fit's rate is the true rate times R = (slope_weights . exp(k x)) / k, with
+    `slope_weights` the fit's slope weights per sample on x = -m .. m: the crossing of the
+    fitted rate, log(level / before) / k, lies log(R) / k samples before the true one.
+    Where the rate does not grow (or is not positive) the linear crossing is kept.
+    """
+    before, after = np.asarray(before, dtype=float), np.asarray(after, dtype=float)
+    linear = (level - before) / np.where(after != before, after - before, 1.0)
+    grows = (before > 0) & (after > before)
+    k = np.log(np.where(grows, after, 2.0) / np.where(grows, before, 1.0))
+    half = slope_weights.size // 2
+    x = np.arange(-half, half + 1, dtype=float)
+    ratio = np.exp(k[:, None] * x) @ slope_weights / k
+    with np.errstate(invalid="ignore", divide="ignore"):
+        moved = (np.log(level / np.where(grows, before, 1.0)) + np.log(ratio)) / k
+    return np.where(grows & np.isfinite(moved) & (ratio > 0), moved, linear)
+
+
+def _exponential_values(smooth: np.ndarray, index: np.ndarray, growth: np.ndarray
+                        ) -> np.ndarray:
+    """The smoothed voltage at fractional `index`, between its two samples as a voltage whose
+    rate grows by exp(k) per sample (k = `growth`):
+    V(i + f) = V(i) + (V(i + 1) - V(i)) (exp(k f) - 1) / (exp(k) - 1); linear where k is not
+    positive or NaN. NaN where `index` is NaN."""
+    index = np.asarray(index, dtype=float)
+    out = np.full(index.size, np.nan)
+    ok = np.isfinite(index) & (index >= 0) & (index < len(smooth) - 1)
+    if not ok.any():
+        return out
+    i = np.floor(index[ok]).astype(np.int64)
+    f = index[ok] - i
+    v0, v1 = np.asarray(smooth[i], dtype=float), np.asarray(smooth[i + 1], dtype=float)
+    k = np.asarray(growth, dtype=float)[ok]
+    grows = np.isfinite(k) & (k > 1e-9)
+    k = np.where(grows, k, 1.0)
+    share = np.where(grows, np.expm1(k * f) / np.expm1(k), f)
+    out[ok] = v0 + (v1 - v0) * share
     return out
 
 
@@ -149,7 +202,8 @@ def spike_thresholds(trace: SmoothedTrace, detected: DetectedSpikes,
     index : ndarray
         Fractional sample index of threshold (NaN when not found).
     voltage_mv : ndarray
-        Smoothed voltage at that index, linearly interpolated (NaN when not found).
+        Smoothed voltage at that index, interpolated between samples: linearly, or for
+        ``onset_rate`` as described below (NaN when not found).
 
     Notes
     -----
@@ -161,7 +215,12 @@ def spike_thresholds(trace: SmoothedTrace, detected: DetectedSpikes,
         (:func:`noise_before`), is at most :data:`ONSET_NOISE_FRACTION` of the onset rate:
         the smoothing bias of an accelerating rising phase (the third derivative times h**2 / 10,
         see :func:`~spikemeasure.analysis.detection.smoothed_trace`) moves the crossing
-        earlier, so the window is no longer than the noise requires [2]_.
+        earlier, so the window is no longer than the noise requires [2]_. The rising phase
+        grows about exponentially at the onset rate: the crossing is placed between the two
+        fitted rates around it as that of a rate growing by their ratio per sample, and moved
+        later by how much the window reads such a rate high (:func:`_exponential_crossing`);
+        the voltage there is the smoothed voltage between its two samples as the integral of
+        that rate, exponential in time (:func:`_exponential_values`).
     ``max_rate_fraction``
         The last upward crossing, before the time of the spike's maximum dV/dt, of
         ``threshold_fraction`` times that maximum [1]_.
@@ -194,8 +253,10 @@ def spike_thresholds(trace: SmoothedTrace, detected: DetectedSpikes,
         # the detector guarantees dvdt[onset - 1] < rate <= dvdt[onset]
         a, b = dvdt[onset - 1], dvdt[onset]
         index = (onset - 1) + (settings.onset_rate_v_per_s - a) / (b - a)
-        refined = _noise_matched_onsets(trace, onset, settings.onset_rate_v_per_s)
+        refined, growth = _noise_matched_onsets(trace, onset, settings.onset_rate_v_per_s)
         index = np.where(np.isfinite(refined), refined, index)
+        return index, _exponential_values(trace.smooth_mv, index,
+                                          np.where(np.isfinite(refined), growth, np.nan))
     else:
         top = span_argmax(dvdt, onset, peak)
         if method == "max_rate_fraction":
