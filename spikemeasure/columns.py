@@ -211,7 +211,9 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
            "between samples*.", 3),
     Column("trough_s", "s", "Time of the minimum of the smoothed voltage after the peak and "
            "before the next spike's threshold; for a sweep's last spike, up to the end of the "
-           "current step when the spike lies inside one, else to the end of the sweep. (A last "
+           "current step when the spike lies inside one (a voltage still falling there has its "
+           "trough at the step's end, interpolated between samples), else to the end of the "
+           "sweep. (A last "
            "spike that falls through half amplitude only after the step ends is searched to the "
            "end of the sweep and flagged `trough_after_step_end`.) Never more than "
            f"{_option('search_window_ms')} ({_default('search_window_ms')}) after the peak.", 7,

@@ -445,13 +445,37 @@ def half_widths(voltage_mv: np.ndarray, sampling_rate_hz: float, threshold_posit
     return width, up, down, above
 
 
-def troughs(smooth_mv: np.ndarray, peak_sample: np.ndarray, end_index: np.ndarray
-            ) -> tuple[np.ndarray, np.ndarray]:
+def troughs(smooth_mv: np.ndarray, peak_sample: np.ndarray, end_index: np.ndarray,
+            end_position: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Minimum of the smoothed voltage from each peak to its search end.
 
-    Returns (fractional index, value in mV); the extremum is refined with a parabola when it
-    lies inside the span. The smoothed trace is used so that recording noise does not pull the
-    minimum down.
+    Parameters
+    ----------
+    smooth_mv : array_like
+        The smoothed voltage.
+    peak_sample : ndarray of int
+        Largest sample of each spike.
+    end_index : ndarray of int
+        Sample (exclusive) each search stops at.
+    end_position : ndarray, optional
+        Where each search ends between samples (fractional index, NaN: at its last sample),
+        as a current step's end does.
+
+    Returns
+    -------
+    index : ndarray
+        Fractional index of the trough (NaN where the span holds fewer than two samples).
+    value_mv : ndarray
+        The trough's voltage.
+
+    Notes
+    -----
+    The extremum is refined with a parabola through the lowest sample and its neighbours
+    when it lies inside the span. When the lowest sample is the span's last and the span
+    ends later (`end_position`), the voltage there, linearly interpolated between the
+    samples either side, is the trough when it is lower: a voltage still falling
+    when the search ends reaches its lowest at the end, not at the last sample before it.
+    The smoothed trace is used so that recording noise does not pull the minimum down.
     """
     peak_sample = np.asarray(peak_sample, dtype=np.int64)
     end_index = np.asarray(end_index, dtype=np.int64)
@@ -466,6 +490,18 @@ def troughs(smooth_mv: np.ndarray, peak_sample: np.ndarray, end_index: np.ndarra
     frac, val = vertices(smooth_mv, j)
     index[ok] = np.where(inside, frac, j)
     value[ok] = np.where(inside, val, smooth_mv[j])
+    if end_position is not None:
+        end = np.asarray(end_position, dtype=float)[ok]
+        n = len(smooth_mv)
+        later = (j == e - 1) & np.isfinite(end) & (end > j) & (end < n - 1)
+        if later.any():
+            at = end[later]
+            k = np.floor(at).astype(np.int64)
+            low, high = np.asarray(smooth_mv[k], float), np.asarray(smooth_mv[k + 1], float)
+            there = low + (at - k) * (high - low)
+            lower = there < np.asarray(smooth_mv[j[later]], float)
+            rows = np.flatnonzero(ok)[later][lower]
+            index[rows], value[rows] = at[lower], there[lower]
     return index, value
 
 

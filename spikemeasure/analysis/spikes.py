@@ -216,7 +216,13 @@ def measure_spikes_with_positions(trace: SmoothedTrace, detected: DetectedSpikes
                               detected.peak_sample, reach)
     late = np.isfinite(down_i) & (down_i >= trough_ends - 1)
     trough_ends = np.where(late, width_ends, trough_ends)
-    trough_i, trough_mv = troughs(trace.smooth_mv, detected.peak_sample, trough_ends)
+    # the last spike's search ends at the step's end, between samples
+    step_end = np.full(n, np.nan)
+    if step is not None and n and not late[-1]:
+        offset_i = step.offset_s * rate
+        if trough_ends[-1] == min(v.size, int(round(offset_i))):
+            step_end[-1] = offset_i
+    trough_i, trough_mv = troughs(trace.smooth_mv, detected.peak_sample, trough_ends, step_end)
     repolarized = np.isfinite(down_i)
     trough_i = np.where(repolarized, trough_i, np.nan)
     trough_mv = np.where(repolarized, trough_mv, np.nan)
