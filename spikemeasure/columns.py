@@ -24,8 +24,9 @@ from .analysis.cell_passive import (MAX_RESIDUAL_TO_NOISE, MAX_TAU_SD_FRACTION,
                                     SLOW_SWEEP_MAX_RISE_MV)
 from .analysis.epochs import (MAX_EDGE_MS, MIN_LEVEL_CHANGE_PA, NOISE_MULTIPLE,
                               RESIDUAL_WINDOW_MS)
-from .analysis.spike_features import (ONSET_NOISE_FRACTION, PEAK_NOISE_MV, PEAK_WIDTH_FACTOR,
-                                      SECOND_DERIVATIVE_LOOKBACK_MS, extreme_lines)
+from .analysis.spike_features import (ONSET_NOISE_FRACTION, ONSET_WINDOW_FACTOR, PEAK_NOISE_MV,
+                                      PEAK_WIDTH_FACTOR, SECOND_DERIVATIVE_LOOKBACK_MS,
+                                      extreme_lines)
 from .analysis.spike_rates import FALL_NOISE_FRACTION, FALL_WIDTH_FACTOR
 from .analysis.noise_model import MIN_QUIET_MS
 from .analysis.spike_uncertainty import sd_values, uncertainty_lines
@@ -153,7 +154,7 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
            "smoothed dV/dt before the peak; that dV/dt is a local quadratic fit over the "
            "shortest window (3 samples or more) whose noise SD, from the noise measured before "
            f"the onset, is at most {ONSET_NOISE_FRACTION * 100:g} % of the onset rate, never longer than "
-           f"{_option('smoothing_ms')}. The rising phase accelerates about exponentially there, "
+           f"{ONSET_WINDOW_FACTOR:g} times {_option('smoothing_ms')}. The rising phase accelerates about exponentially there, "
            "so the crossing is placed between the two samples around it as that of an "
            "exponentially growing rate (its growth from the two fitted rates), and moved by "
            "how much the fit's window reads such a rate high (without that, the crossing came "

@@ -20,7 +20,8 @@ from .sweeps import CurrentStep
 
 __all__ = ["spike_thresholds", "interpolated_peaks", "fitted_peaks", "peak_windows", "extreme_lines",
            "PEAK_ORDER", "PEAK_NOISE_MV", "PEAK_WIDTH_FACTOR", "flat_peak_runs", "half_widths", "troughs",
-           "search_ends", "onset_window", "ONSET_NOISE_FRACTION", "SPLINE_HALF_SAMPLES",
+           "search_ends", "onset_window", "ONSET_NOISE_FRACTION", "ONSET_WINDOW_FACTOR",
+           "SPLINE_HALF_SAMPLES",
            "SECOND_DERIVATIVE_LOOKBACK_MS"]
 
 #: How far before the onset crossing the ``second_derivative_peak`` threshold searches for the
@@ -80,13 +81,21 @@ def _spline_peaks(x: np.ndarray, index: np.ndarray) -> tuple[np.ndarray, np.ndar
 
 
 #: The onset crossing is found again with the shortest window whose dV/dt noise SD is at
-#: most this fraction of the onset rate.
+#: most this fraction of the onset rate ...
 ONSET_NOISE_FRACTION = 0.05
+#: ... and at most this many times the smoothing window (`--smoothing`): its smoothing bias
+#: is corrected as that of an exponentially growing rate, which the rising phase follows
+#: over about that span.
+ONSET_WINDOW_FACTOR = 1.5
 
 
-def onset_window(noise_mv: float, sampling_rate_hz: float, level: float, longest: int) -> int:
-    """Shortest odd window (at least 3, at most `longest`) of a local quadratic fit whose
-    dV/dt noise SD is at most ONSET_NOISE_FRACTION of `level` (V/s)."""
+def onset_window(noise_mv: float, sampling_rate_hz: float, level: float,
+                 smoothing_window: int) -> int:
+    """Shortest odd window (at least 3, at most the odd number of samples nearest below
+    ONSET_WINDOW_FACTOR times `smoothing_window`) of a local quadratic fit whose dV/dt noise
+    SD is at most ONSET_NOISE_FRACTION of `level` (V/s); the longest where the noise is
+    unknown or none is quiet enough."""
+    longest = max(3, 2 * int(ONSET_WINDOW_FACTOR * smoothing_window / 2) + 1)
     if not np.isfinite(noise_mv):
         return longest
     for window in range(3, longest, 2):
@@ -102,8 +111,8 @@ def _noise_matched_onsets(trace: SmoothedTrace, onset: np.ndarray, level: float
 
     Returns fractional indices: for each spike, the last upward crossing of `level`, before
     the span's largest dV/dt, by the dV/dt of a local quadratic fit over
-    :func:`onset_window` samples, among the centres within half a smoothing window of the
-    onset sample, placed between the two centres around it as the crossing of an
+    :func:`onset_window` samples, among the centres within half a smoothing window and half
+    that window of the onset sample, placed between the two centres around it as the crossing of an
     exponentially growing rate and moved by the fit's smoothing bias of such a rate
     (:func:`_exponential_crossing`); NaN where the span leaves the trace or
     holds no such crossing (the smoothed trace's crossing is kept there). Second, the rate's
@@ -115,9 +124,10 @@ def _noise_matched_onsets(trace: SmoothedTrace, onset: np.ndarray, level: float
     growth = np.full(onset.size, np.nan)
     windows = np.array([onset_window(noise, fs, level, trace.window)
                         for noise in noise_before(v, onset - trace.window)], dtype=np.int64)
-    back = ahead = trace.window // 2
     for window in np.unique(windows):
         half = window // 2
+        # a longer window moves the fitted crossing earlier, by up to about half of it
+        back = ahead = trace.window // 2 + half
         pick = np.flatnonzero((windows == window) & (onset - back - half >= 0)
                               & (onset + ahead + half < v.size))
         if pick.size == 0:

@@ -227,3 +227,14 @@ class TestExtremesAgainstTheNoiseFreeTruth:
         measured, expected = _matched(truth, recordings, 50_000.0, "trough_mv")
         assert np.all(np.abs(measured - expected) <= 1.0)
         assert -0.4 <= np.median(measured - expected) <= 0.0
+
+    def test_threshold_with_the_most_noise_at_10_khz(self):
+        # 10 kHz behind 3 kHz with 0.5 mV of noise: every threshold within the 1.5 mV
+        # target, scattered by at most 0.42 mV (SD) over twelve noise draws; the onset
+        # window no longer than the 0.3 ms smoothing window (3 samples here) scattered by
+        # 0.46 mV
+        truth, recordings = _copies("cortical_adapting", 10_000.0, 3_000.0, 0.5, 12)
+        measured, expected = _matched(truth, recordings, 10_000.0, "threshold_mv")
+        assert measured.size >= 12
+        assert np.all(np.abs(measured - expected) <= 1.5)
+        assert np.std(measured - expected) <= 0.42
