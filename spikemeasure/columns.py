@@ -26,7 +26,7 @@ from .analysis.epochs import (MAX_EDGE_MS, MIN_LEVEL_CHANGE_PA, NOISE_MULTIPLE,
                               RESIDUAL_WINDOW_MS)
 from .analysis.spike_features import (ONSET_NOISE_FRACTION, ONSET_WINDOW_FACTOR, PEAK_NOISE_MV,
                                       PEAK_WIDTH_FACTOR, SECOND_DERIVATIVE_LOOKBACK_MS,
-                                      extreme_lines)
+                                      TROUGH_LONGEST_MS, TROUGH_NOISE_MV, extreme_lines)
 from .analysis.spike_rates import FALL_NOISE_FRACTION, FALL_WIDTH_FACTOR
 from .analysis.noise_model import MIN_QUIET_MS
 from .analysis.spike_uncertainty import sd_values, uncertainty_lines
@@ -210,16 +210,23 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
            f"rate, and at most {FALL_WIDTH_FACTOR:g} times the fall's width (where dV/dt is "
            "beyond half its extreme). See *Extremes "
            "between samples*.", 3),
-    Column("trough_s", "s", "Time of the minimum of the smoothed voltage after the peak and "
+    Column("trough_s", "s", "Time of the lowest voltage after the peak and "
            "before the next spike's threshold; for a sweep's last spike, up to the end of the "
            "current step when the spike lies inside one (a voltage still falling there has its "
            "trough at the step's end, interpolated between samples), else to the end of the "
            "sweep. (A last "
            "spike that falls through half amplitude only after the step ends is searched to the "
            "end of the sweep and flagged `trough_after_step_end`.) Never more than "
-           f"{_option('search_window_ms')} ({_default('search_window_ms')}) after the peak.", 7,
+           f"{_option('search_window_ms')} ({_default('search_window_ms')}) after the peak. "
+           "Between samples: the smoothed voltage's minimum refined by a parabola; where the "
+           "noise the smoothing leaves there (from the noise measured before threshold) is "
+           f"more than {TROUGH_NOISE_MV:g} mV, the minimum of a local quartic least-squares fit "
+           "to the raw samples around it, over the shortest window whose noise at the trough "
+           f"is at most {TROUGH_NOISE_MV:g} mV and at most {TROUGH_LONGEST_MS:g} ms, unless "
+           "that window would reach the peak or the end of the search. See *Extremes between "
+           "samples*.", 7,
            is_time=True),
-    Column("trough_mv", "mV", "Smoothed voltage at trough_s.", 4),
+    Column("trough_mv", "mV", "Voltage at trough_s.", 4),
     Column("ahp_depth_mv", "mV", "Depth of the afterhyperpolarization: threshold_mv - trough_mv "
            "(positive when the trough lies below threshold).", 4),
     Column("ahp_depth_mv_sd", "mV", "SD of ahp_depth_mv that the recording's noise implies.",

@@ -221,12 +221,25 @@ class TestExtremesAgainstTheNoiseFreeTruth:
         assert abs(np.median(measured - expected)) <= 0.15
 
     def test_trough_with_the_most_noise_at_50_khz(self):
-        # the trough, the smoothed trace's minimum: within the 1 mV target on every spike;
-        # the noise left after smoothing still pulls it down, by less than 0.4 mV in median
+        # the trough, a local quartic fit's minimum: within the 1 mV target on every spike,
+        # and within 0.2 mV in median (the smoothed trace's minimum read up to 0.4 mV low)
         truth, recordings = _copies("wang_buzsaki_1996", 50_000.0, 10_000.0, 0.5, 12)
         measured, expected = _matched(truth, recordings, 50_000.0, "trough_mv")
         assert np.all(np.abs(measured - expected) <= 1.0)
-        assert -0.4 <= np.median(measured - expected) <= 0.0
+        assert abs(np.median(measured - expected)) <= 0.2
+
+    @pytest.mark.parametrize("model", ["wang_buzsaki_1996", "cortical_adapting"])
+    def test_trough_with_the_most_noise_at_10_khz(self, model):
+        # 10 kHz behind 3 kHz with 0.5 mV of noise, where the 0.3 ms smoothing window is 3
+        # samples and smooths nothing: every trough within the 1 mV target and the median
+        # within 0.4 mV (the lowest sample, refined by a parabola, read 0.72-0.83 mV low in
+        # median here; what is left is the fit's minimum, still chosen among noisy values
+        # over a broad trough)
+        truth, recordings = _copies(model, 10_000.0, 3_000.0, 0.5, 12)
+        measured, expected = _matched(truth, recordings, 10_000.0, "trough_mv")
+        assert measured.size >= 12
+        assert np.all(np.abs(measured - expected) <= 1.0)
+        assert abs(np.median(measured - expected)) <= 0.4
 
     def test_threshold_with_the_most_noise_at_10_khz(self):
         # 10 kHz behind 3 kHz with 0.5 mV of noise: every threshold within the 1.5 mV
