@@ -24,8 +24,9 @@ from .analysis.cell_passive import (MAX_RESIDUAL_TO_NOISE, MAX_TAU_SD_FRACTION,
                                     SLOW_SWEEP_MAX_RISE_MV)
 from .analysis.epochs import (MAX_EDGE_MS, MIN_LEVEL_CHANGE_PA, NOISE_MULTIPLE,
                               RESIDUAL_WINDOW_MS)
-from .analysis.spike_features import (ONSET_NOISE_FRACTION, PEAK_NOISE_MV, PEAK_WIDTH_FACTOR,
-                                      SECOND_DERIVATIVE_LOOKBACK_MS, extreme_lines)
+from .analysis.spike_features import (ONSET_NOISE_FRACTION, ONSET_WINDOW_FACTOR, PEAK_NOISE_MV,
+                                      PEAK_WIDTH_FACTOR, SECOND_DERIVATIVE_LOOKBACK_MS,
+                                      TROUGH_LONGEST_MS, TROUGH_NOISE_MV, extreme_lines)
 from .analysis.spike_rates import FALL_NOISE_FRACTION, FALL_WIDTH_FACTOR
 from .analysis.noise_model import MIN_QUIET_MS
 from .analysis.spike_uncertainty import sd_values, uncertainty_lines
@@ -150,20 +151,24 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
            f"default (`{parameter('threshold_method').option} "
            f"{_default('threshold_method')}`) the last upward crossing of the onset rate "
            f"({_option('onset_rate_v_per_s')}, {_default('onset_rate_v_per_s')}) by the "
-           "smoothed dV/dt before the peak, linearly "
-           "interpolated between samples; that dV/dt is a local quadratic fit over the "
+           "smoothed dV/dt before the peak; that dV/dt is a local quadratic fit over the "
            "shortest window (3 samples or more) whose noise SD, from the noise measured before "
            f"the onset, is at most {ONSET_NOISE_FRACTION * 100:g} % of the onset rate, never longer than "
-           f"{_option('smoothing_ms')}: a longer window than the noise needs moves the "
-           "crossing of an accelerating rising phase earlier. `max_rate_fraction`: the last upward crossing of "
+           f"{ONSET_WINDOW_FACTOR:g} times {_option('smoothing_ms')}. The rising phase accelerates about exponentially there, "
+           "so the crossing is placed between the two samples around it as that of an "
+           "exponentially growing rate (its growth from the two fitted rates), and moved by "
+           "how much the fit's window reads such a rate high (without that, the crossing came "
+           "up to 0.04 ms early at 10 kHz). `max_rate_fraction`: the last upward crossing of "
            f"{_option('threshold_fraction')} ({_default('threshold_fraction')}) times the "
            "spike's maximum dV/dt before that maximum. "
            "`second_derivative_peak`: the time of the largest d2V/dt2 from "
            f"{SECOND_DERIVATIVE_LOOKBACK_MS:g} ms before the onset "
            "crossing to the maximum of dV/dt (Sekerli et al. 2004 compare such definitions).", 7,
            is_time=True),
-    Column("threshold_mv", "mV", "Smoothed membrane voltage at threshold_s, linearly "
-           "interpolated.", 4),
+    Column("threshold_mv", "mV", "Smoothed membrane voltage at threshold_s: linearly "
+           "interpolated between samples, and with the default threshold method as a voltage "
+           "whose rate grows exponentially between them (its growth that of the crossing).",
+           4),
     Column("threshold_mv_sd", "mV", "SD of threshold_mv that the recording's noise implies "
            "(see *Uncertainty of spike values*). Empty with `--threshold-method "
            "second_derivative_peak`, and when the sweep has no stimulus or no quiet stretch "
@@ -205,14 +210,23 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
            f"rate, and at most {FALL_WIDTH_FACTOR:g} times the fall's width (where dV/dt is "
            "beyond half its extreme). See *Extremes "
            "between samples*.", 3),
-    Column("trough_s", "s", "Time of the minimum of the smoothed voltage after the peak and "
+    Column("trough_s", "s", "Time of the lowest voltage after the peak and "
            "before the next spike's threshold; for a sweep's last spike, up to the end of the "
-           "current step when the spike lies inside one, else to the end of the sweep. (A last "
+           "current step when the spike lies inside one (a voltage still falling there has its "
+           "trough at the step's end, interpolated between samples), else to the end of the "
+           "sweep. (A last "
            "spike that falls through half amplitude only after the step ends is searched to the "
            "end of the sweep and flagged `trough_after_step_end`.) Never more than "
-           f"{_option('search_window_ms')} ({_default('search_window_ms')}) after the peak.", 7,
+           f"{_option('search_window_ms')} ({_default('search_window_ms')}) after the peak. "
+           "Between samples: the smoothed voltage's minimum refined by a parabola; where the "
+           "noise the smoothing leaves there (from the noise measured before threshold) is "
+           f"more than {TROUGH_NOISE_MV:g} mV, the minimum of a local quartic least-squares fit "
+           "to the raw samples around it, over the shortest window whose noise at the trough "
+           f"is at most {TROUGH_NOISE_MV:g} mV and at most {TROUGH_LONGEST_MS:g} ms, unless "
+           "that window would reach the peak or the end of the search. See *Extremes between "
+           "samples*.", 7,
            is_time=True),
-    Column("trough_mv", "mV", "Smoothed voltage at trough_s.", 4),
+    Column("trough_mv", "mV", "Voltage at trough_s.", 4),
     Column("ahp_depth_mv", "mV", "Depth of the afterhyperpolarization: threshold_mv - trough_mv "
            "(positive when the trough lies below threshold).", 4),
     Column("ahp_depth_mv_sd", "mV", "SD of ahp_depth_mv that the recording's noise implies.",

@@ -12,7 +12,7 @@ from scipy.signal import savgol_coeffs
 
 from ..errors import InvalidSettingError
 from .detection import SMOOTHING_POLYORDER, DetectedSpikes, DetectionSettings, SmoothedTrace
-from .local_fits import fitted_extremes, matched_windows
+from .local_fits import fit_noise_gain, fitted_extremes, matched_windows
 from .span_search import (FIRST_BELOW_HEAD, first_below, interp_many, last_below, span_argmax,
                           upward_crossings_before, vertices)
 from .spike_rates import FALL_NOISE_FRACTION, FALL_WIDTH_FACTOR, noise_before
@@ -20,7 +20,9 @@ from .sweeps import CurrentStep
 
 __all__ = ["spike_thresholds", "interpolated_peaks", "fitted_peaks", "peak_windows", "extreme_lines",
            "PEAK_ORDER", "PEAK_NOISE_MV", "PEAK_WIDTH_FACTOR", "flat_peak_runs", "half_widths", "troughs",
-           "search_ends", "onset_window", "ONSET_NOISE_FRACTION", "SPLINE_HALF_SAMPLES",
+           "search_ends", "fitted_troughs", "trough_windows", "TROUGH_ORDER", "TROUGH_NOISE_MV",
+           "TROUGH_LONGEST_MS", "onset_window", "ONSET_NOISE_FRACTION", "ONSET_WINDOW_FACTOR",
+           "SPLINE_HALF_SAMPLES",
            "SECOND_DERIVATIVE_LOOKBACK_MS"]
 
 #: How far before the onset crossing the ``second_derivative_peak`` threshold searches for the
@@ -80,13 +82,21 @@ def _spline_peaks(x: np.ndarray, index: np.ndarray) -> tuple[np.ndarray, np.ndar
 
 
 #: The onset crossing is found again with the shortest window whose dV/dt noise SD is at
-#: most this fraction of the onset rate.
+#: most this fraction of the onset rate ...
 ONSET_NOISE_FRACTION = 0.05
+#: ... and at most this many times the smoothing window (`--smoothing`): its smoothing bias
+#: is corrected as that of an exponentially growing rate, which the rising phase follows
+#: over about that span.
+ONSET_WINDOW_FACTOR = 1.5
 
 
-def onset_window(noise_mv: float, sampling_rate_hz: float, level: float, longest: int) -> int:
-    """Shortest odd window (at least 3, at most `longest`) of a local quadratic fit whose
-    dV/dt noise SD is at most ONSET_NOISE_FRACTION of `level` (V/s)."""
+def onset_window(noise_mv: float, sampling_rate_hz: float, level: float,
+                 smoothing_window: int) -> int:
+    """Shortest odd window (at least 3, at most the odd number of samples nearest below
+    ONSET_WINDOW_FACTOR times `smoothing_window`) of a local quadratic fit whose dV/dt noise
+    SD is at most ONSET_NOISE_FRACTION of `level` (V/s); the longest where the noise is
+    unknown or none is quiet enough."""
+    longest = max(3, 2 * int(ONSET_WINDOW_FACTOR * smoothing_window / 2) + 1)
     if not np.isfinite(noise_mv):
         return longest
     for window in range(3, longest, 2):
@@ -97,22 +107,28 @@ def onset_window(noise_mv: float, sampling_rate_hz: float, level: float, longest
 
 
 def _noise_matched_onsets(trace: SmoothedTrace, onset: np.ndarray, level: float
-                          ) -> np.ndarray:
+                          ) -> tuple[np.ndarray, np.ndarray]:
     """The onset crossing of `level` again, with a window matched to the measured noise.
 
     Returns fractional indices: for each spike, the last upward crossing of `level`, before
     the span's largest dV/dt, by the dV/dt of a local quadratic fit over
-    :func:`onset_window` samples, among the centres within half a smoothing window of the
-    onset sample; NaN where the span leaves the trace or
-    holds no such crossing (the smoothed trace's crossing is kept there).
+    :func:`onset_window` samples, among the centres within half a smoothing window and half
+    that window of the onset sample, placed between the two centres around it as the crossing of an
+    exponentially growing rate and moved by the fit's smoothing bias of such a rate
+    (:func:`_exponential_crossing`); NaN where the span leaves the trace or
+    holds no such crossing (the smoothed trace's crossing is kept there). Second, the rate's
+    growth per sample there (log of the ratio of the two fitted rates; NaN where it does not
+    grow).
     """
     v, fs = trace.voltage_mv, trace.sampling_rate_hz
     out = np.full(onset.size, np.nan)
+    growth = np.full(onset.size, np.nan)
     windows = np.array([onset_window(noise, fs, level, trace.window)
                         for noise in noise_before(v, onset - trace.window)], dtype=np.int64)
-    back = ahead = trace.window // 2
     for window in np.unique(windows):
         half = window // 2
+        # a longer window moves the fitted crossing earlier, by up to about half of it
+        back = ahead = trace.window // 2 + half
         pick = np.flatnonzero((windows == window) & (onset - back - half >= 0)
                               & (onset + ahead + half < v.size))
         if pick.size == 0:
@@ -127,8 +143,56 @@ def _noise_matched_onsets(trace: SmoothedTrace, onset: np.ndarray, level: float
         found = below.any(axis=1) & (rate[r, top] >= level)
         last = below.shape[1] - 1 - np.argmax(below[:, ::-1], axis=1)
         before, after = rate[r, last], rate[r, np.minimum(last + 1, rate.shape[1] - 1)]
-        frac = last + (level - before) / np.where(after != before, after - before, 1.0)
+        frac = last + _exponential_crossing(before, after, level, coeffs * 1e3 / fs)
         out[pick[found]] = (onset[pick] - back + frac)[found]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            k = np.where((before > 0) & (after > before), np.log(after / before), np.nan)
+        growth[pick[found]] = k[found]
+    return out, growth
+
+
+def _exponential_crossing(before: np.ndarray, after: np.ndarray, level: float,
+                          slope_weights: np.ndarray) -> np.ndarray:
+    """Where, in samples after the first, the true rate crosses `level`, from two
+    consecutive fitted rates `before` < `level` <= `after` (V/s).
+
+    Under a rate growing as exp(k t) between the two samples (k = log(after / before) per
+    sample), the fit's rate is the true rate times R = (slope_weights . exp(k x)) / k, with
+    `slope_weights` the fit's slope weights per sample on x = -m .. m: the crossing of the
+    fitted rate, log(level / before) / k, lies log(R) / k samples before the true one.
+    Where the rate does not grow (or is not positive) the linear crossing is kept.
+    """
+    before, after = np.asarray(before, dtype=float), np.asarray(after, dtype=float)
+    linear = (level - before) / np.where(after != before, after - before, 1.0)
+    grows = (before > 0) & (after > before)
+    k = np.log(np.where(grows, after, 2.0) / np.where(grows, before, 1.0))
+    half = slope_weights.size // 2
+    x = np.arange(-half, half + 1, dtype=float)
+    ratio = np.exp(k[:, None] * x) @ slope_weights / k
+    with np.errstate(invalid="ignore", divide="ignore"):
+        moved = (np.log(level / np.where(grows, before, 1.0)) + np.log(ratio)) / k
+    return np.where(grows & np.isfinite(moved) & (ratio > 0), moved, linear)
+
+
+def _exponential_values(smooth: np.ndarray, index: np.ndarray, growth: np.ndarray
+                        ) -> np.ndarray:
+    """The smoothed voltage at fractional `index`, between its two samples as a voltage whose
+    rate grows by exp(k) per sample (k = `growth`):
+    V(i + f) = V(i) + (V(i + 1) - V(i)) (exp(k f) - 1) / (exp(k) - 1); linear where k is not
+    positive or NaN. NaN where `index` is NaN."""
+    index = np.asarray(index, dtype=float)
+    out = np.full(index.size, np.nan)
+    ok = np.isfinite(index) & (index >= 0) & (index < len(smooth) - 1)
+    if not ok.any():
+        return out
+    i = np.floor(index[ok]).astype(np.int64)
+    f = index[ok] - i
+    v0, v1 = np.asarray(smooth[i], dtype=float), np.asarray(smooth[i + 1], dtype=float)
+    k = np.asarray(growth, dtype=float)[ok]
+    grows = np.isfinite(k) & (k > 1e-9)
+    k = np.where(grows, k, 1.0)
+    share = np.where(grows, np.expm1(k * f) / np.expm1(k), f)
+    out[ok] = v0 + (v1 - v0) * share
     return out
 
 
@@ -149,7 +213,8 @@ def spike_thresholds(trace: SmoothedTrace, detected: DetectedSpikes,
     index : ndarray
         Fractional sample index of threshold (NaN when not found).
     voltage_mv : ndarray
-        Smoothed voltage at that index, linearly interpolated (NaN when not found).
+        Smoothed voltage at that index, interpolated between samples: linearly, or for
+        ``onset_rate`` as described below (NaN when not found).
 
     Notes
     -----
@@ -161,7 +226,12 @@ def spike_thresholds(trace: SmoothedTrace, detected: DetectedSpikes,
         (:func:`noise_before`), is at most :data:`ONSET_NOISE_FRACTION` of the onset rate:
         the smoothing bias of an accelerating rising phase (the third derivative times h**2 / 10,
         see :func:`~spikemeasure.analysis.detection.smoothed_trace`) moves the crossing
-        earlier, so the window is no longer than the noise requires [2]_.
+        earlier, so the window is no longer than the noise requires [2]_. The rising phase
+        grows about exponentially at the onset rate: the crossing is placed between the two
+        fitted rates around it as that of a rate growing by their ratio per sample, and moved
+        later by how much the window reads such a rate high (:func:`_exponential_crossing`);
+        the voltage there is the smoothed voltage between its two samples as the integral of
+        that rate, exponential in time (:func:`_exponential_values`).
     ``max_rate_fraction``
         The last upward crossing, before the time of the spike's maximum dV/dt, of
         ``threshold_fraction`` times that maximum [1]_.
@@ -194,8 +264,10 @@ def spike_thresholds(trace: SmoothedTrace, detected: DetectedSpikes,
         # the detector guarantees dvdt[onset - 1] < rate <= dvdt[onset]
         a, b = dvdt[onset - 1], dvdt[onset]
         index = (onset - 1) + (settings.onset_rate_v_per_s - a) / (b - a)
-        refined = _noise_matched_onsets(trace, onset, settings.onset_rate_v_per_s)
+        refined, growth = _noise_matched_onsets(trace, onset, settings.onset_rate_v_per_s)
         index = np.where(np.isfinite(refined), refined, index)
+        return index, _exponential_values(trace.smooth_mv, index,
+                                          np.where(np.isfinite(refined), growth, np.nan))
     else:
         top = span_argmax(dvdt, onset, peak)
         if method == "max_rate_fraction":
@@ -384,13 +456,37 @@ def half_widths(voltage_mv: np.ndarray, sampling_rate_hz: float, threshold_posit
     return width, up, down, above
 
 
-def troughs(smooth_mv: np.ndarray, peak_sample: np.ndarray, end_index: np.ndarray
-            ) -> tuple[np.ndarray, np.ndarray]:
+def troughs(smooth_mv: np.ndarray, peak_sample: np.ndarray, end_index: np.ndarray,
+            end_position: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Minimum of the smoothed voltage from each peak to its search end.
 
-    Returns (fractional index, value in mV); the extremum is refined with a parabola when it
-    lies inside the span. The smoothed trace is used so that recording noise does not pull the
-    minimum down.
+    Parameters
+    ----------
+    smooth_mv : array_like
+        The smoothed voltage.
+    peak_sample : ndarray of int
+        Largest sample of each spike.
+    end_index : ndarray of int
+        Sample (exclusive) each search stops at.
+    end_position : ndarray, optional
+        Where each search ends between samples (fractional index, NaN: at its last sample),
+        as a current step's end does.
+
+    Returns
+    -------
+    index : ndarray
+        Fractional index of the trough (NaN where the span holds fewer than two samples).
+    value_mv : ndarray
+        The trough's voltage.
+
+    Notes
+    -----
+    The extremum is refined with a parabola through the lowest sample and its neighbours
+    when it lies inside the span. When the lowest sample is the span's last and the span
+    ends later (`end_position`), the voltage there, linearly interpolated between the
+    samples either side, is the trough when it is lower: a voltage still falling
+    when the search ends reaches its lowest at the end, not at the last sample before it.
+    The smoothed trace is used so that recording noise does not pull the minimum down.
     """
     peak_sample = np.asarray(peak_sample, dtype=np.int64)
     end_index = np.asarray(end_index, dtype=np.int64)
@@ -405,7 +501,98 @@ def troughs(smooth_mv: np.ndarray, peak_sample: np.ndarray, end_index: np.ndarra
     frac, val = vertices(smooth_mv, j)
     index[ok] = np.where(inside, frac, j)
     value[ok] = np.where(inside, val, smooth_mv[j])
+    if end_position is not None:
+        end = np.asarray(end_position, dtype=float)[ok]
+        n = len(smooth_mv)
+        later = (j == e - 1) & np.isfinite(end) & (end > j) & (end < n - 1)
+        if later.any():
+            at = end[later]
+            k = np.floor(at).astype(np.int64)
+            low, high = np.asarray(smooth_mv[k], float), np.asarray(smooth_mv[k + 1], float)
+            there = low + (at - k) * (high - low)
+            lower = there < np.asarray(smooth_mv[j[later]], float)
+            rows = np.flatnonzero(ok)[later][lower]
+            index[rows], value[rows] = at[lower], there[lower]
     return index, value
+
+
+#: Polynomial order of the local fit whose minimum is the trough.
+TROUGH_ORDER = 4
+#: The trough's fit window is the shortest whose noise SD at the trough is at most this (mV) ...
+TROUGH_NOISE_MV = 0.15
+#: ... and at most this long (ms).
+TROUGH_LONGEST_MS = 1.0
+
+
+def trough_windows(noise_mv: np.ndarray, sampling_rate_hz: float) -> np.ndarray:
+    """Window (samples) of each spike's trough fit: the shortest whose noise SD at the trough
+    is at most :data:`TROUGH_NOISE_MV`, at most :data:`TROUGH_LONGEST_MS` long; 0 where even
+    the shortest a quartic fit needs is longer (no fit)."""
+    noise_mv = np.asarray(noise_mv, dtype=float)
+    widest = int(np.floor(TROUGH_LONGEST_MS * 1e-3 * sampling_rate_hz))
+    widest -= (widest + 1) % 2
+    windows = matched_windows(noise_mv, np.full(noise_mv.size, TROUGH_NOISE_MV),
+                              np.full(noise_mv.size, widest), TROUGH_ORDER, 0, 1.0)
+    return np.where(windows <= widest, windows, 0)
+
+
+def fitted_troughs(voltage_mv: np.ndarray, sampling_rate_hz: float,
+                   trough_position: np.ndarray, peak_sample: np.ndarray,
+                   end_index: np.ndarray, noise_mv: np.ndarray, smoothing_window: int
+                   ) -> tuple[np.ndarray, np.ndarray]:
+    """Trough of each spike where the smoothed voltage is too noisy: the minimum of a local
+    quartic fit to the raw samples.
+
+    Parameters
+    ----------
+    voltage_mv : ndarray
+        Raw voltage in mV.
+    sampling_rate_hz : float
+    trough_position : ndarray
+        The smoothed voltage's minimum (:func:`troughs`), the fit's centre (NaN: none).
+    peak_sample, end_index : ndarray of int
+        Each trough's search span, from the peak to `end_index` (exclusive).
+    noise_mv : ndarray
+        Recording noise SD per spike (:func:`~spikemeasure.analysis.spike_rates.noise_before`).
+    smoothing_window : int
+        Samples of the smoothed voltage's quadratic fit (`--smoothing`).
+
+    Returns
+    -------
+    position : ndarray
+        Fractional sample index of the fit's minimum; NaN where no fit is made: the noise
+        the smoothing leaves (`noise_mv` times its gain) is at most :data:`TROUGH_NOISE_MV`
+        or unknown, the window (:func:`trough_windows`) would reach the peak or the span's
+        last sample, or the fit's minimum lies outside the span.
+    value_mv : ndarray
+        The fit's minimum (NaN likewise).
+
+    Notes
+    -----
+    Among many noisy samples around a broad minimum the lowest is picked, so the minimum of
+    the samples, or of a short smoothing of them, reads low; a least-squares polynomial over
+    a window of samples has few degrees of freedom and follows the noise far less (see
+    *Extremes between samples* in docs/measurements.md).
+    """
+    position = np.asarray(trough_position, dtype=float)
+    n = position.size
+    out_position, out_value = np.full(n, np.nan), np.full(n, np.nan)
+    windows = trough_windows(noise_mv, sampling_rate_hz)
+    centre = np.round(np.nan_to_num(position, nan=-1.0)).astype(np.int64)
+    peak = np.asarray(peak_sample, dtype=np.int64)
+    end = np.asarray(end_index, dtype=np.int64)
+    half = windows // 2
+    left = np.asarray(noise_mv, dtype=float) * fit_noise_gain(int(smoothing_window), 2, 0)
+    fit = (np.isfinite(position) & (left > TROUGH_NOISE_MV) & (windows > 0)
+           & (centre - half > peak) & (centre + half < end - 1))
+    if not fit.any():
+        return out_position, out_value
+    at, value, _ = fitted_extremes(voltage_mv, centre[fit], windows[fit], TROUGH_ORDER, 0,
+                                   False)
+    inside = np.isfinite(value) & (at > peak[fit]) & (at < end[fit] - 1)
+    rows = np.flatnonzero(fit)[inside]
+    out_position[rows], out_value[rows] = at[inside], value[inside]
+    return out_position, out_value
 
 
 def search_ends(n_samples: int, sampling_rate_hz: float, threshold_position: np.ndarray,
@@ -473,7 +660,14 @@ def extreme_lines() -> list[str]:
         "",
         "max_dvdt_v_per_s keeps the quintic spline through the (noise-matched smoothed) "
         "samples: the rise's peak of dV/dt is narrow, a few samples at 10 kHz, and the spline "
-        "already meets its target there. The trough keeps the smoothed voltage's minimum: a "
-        "fit over a window narrow enough for the fast afterhyperpolarization at 10 kHz "
-        "scattered more than the smoothed minimum's bias.",
+        "already meets its target there. The trough is the smoothed voltage's minimum where "
+        f"the noise the smoothing leaves there is at most {TROUGH_NOISE_MV:g} mV; where it is "
+        "more (a short smoothing window in samples, a noisy recording), the minimum of a "
+        "quartic fit, over the shortest window whose noise SD at the trough is at most "
+        f"{TROUGH_NOISE_MV:g} mV and at most {TROUGH_LONGEST_MS:g} ms long (the fast afterhyperpolarizations of the "
+        "published models still follow a quartic over that span), fitted only where the "
+        "window stays between the peak and the end of the trough's search; elsewhere the "
+        "smoothed voltage's minimum is kept. At 10 kHz with 0.5 mV of noise the smoothed "
+        "minimum (no smoothing at all: the smoothing window is 3 samples there) read 0.3 mV "
+        "low in median.",
     ]

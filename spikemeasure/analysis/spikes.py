@@ -17,8 +17,8 @@ import numpy as np
 from ..errors import InvalidSettingError
 from .detection import (DetectedSpikes, DetectionSettings, SmoothedTrace, detect_spikes,
                         smoothed_trace)
-from .spike_features import (fitted_peaks, flat_peak_runs, half_widths, interpolated_peaks,
-                             search_ends, spike_thresholds, troughs)
+from .spike_features import (fitted_peaks, fitted_troughs, flat_peak_runs, half_widths,
+                             interpolated_peaks, search_ends, spike_thresholds, troughs)
 from .spike_rates import noise_before, rate_extremes
 from .sweeps import CurrentStep
 
@@ -184,9 +184,10 @@ def measure_spikes(trace: SmoothedTrace, detected: DetectedSpikes,
     - half-width: :func:`half_widths`; rise time = peak time - threshold time.
     - max dV/dt: the largest dV/dt from threshold to peak; min dV/dt: the most negative from
       peak to trough (:func:`rate_extremes`, with the shorter ``rate_smoothing_ms`` window).
-    - trough: :func:`troughs`, searched up to :func:`search_ends` (to the end of the sweep
-      instead when the last spike repolarizes only after the step ends); AHP depth =
-      threshold - trough.
+    - trough: the smoothed minimum of :func:`troughs`, or where the smoothing leaves too
+      much noise :func:`fitted_troughs` around it, searched up to :func:`search_ends`
+      (to the end of the sweep instead when the last spike repolarizes only after the step
+      ends); AHP depth = threshold - trough.
     - ISI: threshold time minus the previous spike's threshold time.
     """
     return measure_spikes_with_positions(trace, detected, settings, step)[0]
@@ -216,7 +217,17 @@ def measure_spikes_with_positions(trace: SmoothedTrace, detected: DetectedSpikes
                               detected.peak_sample, reach)
     late = np.isfinite(down_i) & (down_i >= trough_ends - 1)
     trough_ends = np.where(late, width_ends, trough_ends)
-    trough_i, trough_mv = troughs(trace.smooth_mv, detected.peak_sample, trough_ends)
+    # the last spike's search ends at the step's end, between samples
+    step_end = np.full(n, np.nan)
+    if step is not None and n and not late[-1]:
+        offset_i = step.offset_s * rate
+        if trough_ends[-1] == min(v.size, int(round(offset_i))):
+            step_end[-1] = offset_i
+    trough_i, trough_mv = troughs(trace.smooth_mv, detected.peak_sample, trough_ends, step_end)
+    fit_i, fit_mv = fitted_troughs(v, rate, trough_i, detected.peak_sample, trough_ends,
+                                   noise_before(v, thr_i), trace.window)
+    fitted = np.isfinite(fit_mv)
+    trough_i, trough_mv = np.where(fitted, fit_i, trough_i), np.where(fitted, fit_mv, trough_mv)
     repolarized = np.isfinite(down_i)
     trough_i = np.where(repolarized, trough_i, np.nan)
     trough_mv = np.where(repolarized, trough_mv, np.nan)

@@ -10,6 +10,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from conftest import GaussianSpike, sampled
 from spikemeasure.analysis.spike_rates import noise_before
 from spikemeasure.analysis.spikes import measure_trace
 from spikemeasure.testing.acquisition import record_commands
@@ -123,15 +124,36 @@ def _true_onsets(truth: np.ndarray, peak_s: np.ndarray, onset_rate: float = 20.0
 class TestThresholdAndRiseTime:
     @pytest.mark.parametrize("model,rate_hz,bessel_hz", [
         ("hodgkin_huxley_1952", 20_000.0, 5_000.0), ("wang_buzsaki_1996", 50_000.0, 10_000.0),
-        ("cortical_adapting", 20_000.0, 5_000.0), ("cortical_adapting", 50_000.0, 10_000.0)])
+        ("cortical_adapting", 20_000.0, 5_000.0), ("cortical_adapting", 50_000.0, 10_000.0),
+        ("wang_buzsaki_1996", 10_000.0, 3_000.0), ("cortical_adapting", 10_000.0, 3_000.0)])
     def test_noise_free_rise_time_and_threshold(self, model, rate_hz, bessel_hz):
         voltage, rate, truth = _recorded(model, rate_hz, bessel_hz, 0.0)
         spikes = measure_trace(voltage, rate)
         onset_s, onset_mv, top_s = _true_onsets(truth, spikes.peak_s)
         # rise time: the capability's tolerance, 0.03 ms (the 0.3 ms window alone read up to
-        # 0.03 ms long here); threshold: 0.2 mV, inside the 1.5 mV target
+        # 0.03 ms long here); threshold: 0.2 mV (0.3 mV at 10 kHz, where a sample spans 2 mV
+        # of the onset), inside the 1.5 mV target
         np.testing.assert_allclose(spikes.rise_time_ms, (top_s - onset_s) * 1e3, atol=0.03)
-        np.testing.assert_allclose(spikes.threshold_mv, onset_mv, atol=0.2)
+        np.testing.assert_allclose(spikes.threshold_mv, onset_mv,
+                                   atol=0.3 if rate_hz < 20_000.0 else 0.2)
+
+    @pytest.mark.parametrize("sigma_ms", [0.15, 0.25, 0.4])
+    @pytest.mark.parametrize("rate_hz", [10_000.0, 20_000.0, 50_000.0])
+    def test_gaussian_onset_crossing_without_smoothing_bias(self, sigma_ms, rate_hz):
+        # The 20 V/s crossing of a Gaussian spike by the Lambert W closed form
+        # (conftest.GaussianSpike), the spike at seven places between samples. The fitted
+        # rate of an accelerating rise reads high, so its crossing came early: by up to
+        # 0.041 ms at 10 kHz and 0.011 ms at 20 kHz for sigma 0.15 ms, the voltage 0.37 mV low,
+        # before the crossing was moved by the smoothing bias of an exponentially growing rate
+        # and placed between samples on such a rate.
+        spike = GaussianSpike(sigma_ms=sigma_ms)
+        u = spike.u_at_rate(20.0)
+        for offset in np.linspace(0.0, 0.9, 7):
+            t, v = sampled(spike, rate_hz, offset_fraction=offset)
+            m = measure_trace(v, rate_hz)
+            assert m.threshold_s[0] * 1e3 + t[0] == pytest.approx(spike.time_at_u(u),
+                                                                 abs=0.006)
+            assert m.threshold_mv[0] == pytest.approx(spike.voltage_at_u(u), abs=0.15)
 
     def test_with_noise_within_the_targets(self):
         voltage, rate, truth = _recorded("wang_buzsaki_1996", 20_000.0, 5_000.0, 0.3, seed=2)
@@ -199,9 +221,33 @@ class TestExtremesAgainstTheNoiseFreeTruth:
         assert abs(np.median(measured - expected)) <= 0.15
 
     def test_trough_with_the_most_noise_at_50_khz(self):
-        # the trough, the smoothed trace's minimum: within the 1 mV target on every spike;
-        # the noise left after smoothing still pulls it down, by less than 0.4 mV in median
+        # the trough, a local quartic fit's minimum: within the 1 mV target on every spike,
+        # and within 0.2 mV in median (the smoothed trace's minimum read up to 0.4 mV low)
         truth, recordings = _copies("wang_buzsaki_1996", 50_000.0, 10_000.0, 0.5, 12)
         measured, expected = _matched(truth, recordings, 50_000.0, "trough_mv")
         assert np.all(np.abs(measured - expected) <= 1.0)
-        assert -0.4 <= np.median(measured - expected) <= 0.0
+        assert abs(np.median(measured - expected)) <= 0.2
+
+    @pytest.mark.parametrize("model", ["wang_buzsaki_1996", "cortical_adapting"])
+    def test_trough_with_the_most_noise_at_10_khz(self, model):
+        # 10 kHz behind 3 kHz with 0.5 mV of noise, where the 0.3 ms smoothing window is 3
+        # samples and smooths nothing: every trough within the 1 mV target and the median
+        # within 0.4 mV (the lowest sample, refined by a parabola, read 0.72-0.83 mV low in
+        # median here; what is left is the fit's minimum, still chosen among noisy values
+        # over a broad trough)
+        truth, recordings = _copies(model, 10_000.0, 3_000.0, 0.5, 12)
+        measured, expected = _matched(truth, recordings, 10_000.0, "trough_mv")
+        assert measured.size >= 12
+        assert np.all(np.abs(measured - expected) <= 1.0)
+        assert abs(np.median(measured - expected)) <= 0.4
+
+    def test_threshold_with_the_most_noise_at_10_khz(self):
+        # 10 kHz behind 3 kHz with 0.5 mV of noise: every threshold within the 1.5 mV
+        # target, scattered by at most 0.42 mV (SD) over twelve noise draws; the onset
+        # window no longer than the 0.3 ms smoothing window (3 samples here) scattered by
+        # 0.46 mV
+        truth, recordings = _copies("cortical_adapting", 10_000.0, 3_000.0, 0.5, 12)
+        measured, expected = _matched(truth, recordings, 10_000.0, "threshold_mv")
+        assert measured.size >= 12
+        assert np.all(np.abs(measured - expected) <= 1.5)
+        assert np.std(measured - expected) <= 0.42

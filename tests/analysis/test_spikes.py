@@ -199,10 +199,23 @@ class TestTrainsAndTroughs:
         # a smooth 10 mV dip after the step ends must not count as the AHP
         v -= 5.0 * (1 + np.tanh((t - 70.0) / 2.0))
         inside = measure_trace(v, rate, step=CurrentStep(onset_s=0.01, offset_s=0.05))
-        assert inside.trough_s[0] < 0.05
+        assert inside.trough_s[0] <= 0.05  # the search span ends at the step's end
         assert inside.trough_mv[0] > -66.0
         whole = measure_trace(v, rate)
         assert whole.trough_mv[0] == pytest.approx(-75.0, abs=0.01)
+
+    @pytest.mark.parametrize("offset_ms", [40.0, 40.02, 40.05])
+    def test_trough_of_a_voltage_still_falling_at_step_end(self, offset_ms):
+        # A spike followed by a linear fall of 1 mV/ms from 25 ms on; the step ends on a
+        # sample or between two. The lowest voltage of the span is the ramp's value at the
+        # step's end (closed form: base - (offset - 25) mV), not its last sample before.
+        rate = 10_000.0
+        t, v = gaussian_train(rate, [20.0], 60.0)
+        v = v - np.clip(t - 25.0, 0.0, None)
+        m = measure_trace(v, rate, step=CurrentStep(onset_s=0.01, offset_s=offset_ms / 1e3))
+        base = GaussianSpike().base_mv
+        assert m.trough_mv[0] == pytest.approx(base - (offset_ms - 25.0), abs=1e-6)
+        assert m.trough_s[0] == pytest.approx(offset_ms / 1e3, abs=1e-9)
 
 
 class TestFlags:

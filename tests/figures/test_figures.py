@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from click.testing import CliRunner
 from PIL import Image
-from scipy.signal import peak_prominences, peak_widths
+from scipy.signal import peak_prominences, peak_widths, savgol_coeffs
 
 from conftest import (RC_R_GOHM as R_GOHM, RC_RATE_HZ, RC_SPIKES_PER_STEP as SPIKES_PER_STEP,
                       RC_STEP_S, RC_STEPS_PA as STEPS_PA, rc_cell_sweeps, write_nix, write_text)
@@ -16,7 +16,7 @@ from spikemeasure import figures
 from spikemeasure.figures import windows
 from spikemeasure.figures.selection import shown_spike
 from spikemeasure.figures.traces import TRACE_LINE_PT
-from conftest import rc_recording  # the analytic RC membrane
+from conftest import GaussianSpike, rc_recording  # closed-form spike, analytic RC membrane
 from spikemeasure.cli import main
 from spikemeasure.analysis.detection import DetectionSettings
 from spikemeasure.io import read_recording
@@ -251,10 +251,21 @@ class TestPhasePlot:
         rheo = next(r for r in cell["results"]
                     if r.features.stimulus_pa == cell["cell"].rheobase_pa)
         assert np.array_equal(x, rheo.spikes.threshold_mv)
-        # threshold is the onset-rate crossing of dV/dt over the window the noise calls for
-        # (docs/measurements.md); the plotted dV/dt, over the longer smoothing window, rises
-        # earlier and reads a few V/s above the onset rate there
-        assert np.allclose(y, onset, atol=3.0)
+        # threshold is the onset-rate crossing of dV/dt, corrected for the smoothing bias of
+        # its window (docs/measurements.md); the plotted dV/dt, a quadratic fit over the
+        # 0.3 ms smoothing window, reads the accelerating rise high there: by what scipy's
+        # Savitzky-Golay slope weights give on the closed-form spike (95 mV, sigma 0.35 ms,
+        # conftest.rc_cell_sweeps) around its 20 V/s crossing (Lambert W), 22.0 V/s; within
+        # 1.5 V/s: the 0.05 mV of noise moves the crossing (a 3-sample onset window here,
+        # 0.7 V/s of rate noise, about 0.005 ms on this rise, where the plotted rate climbs
+        # 145 V/s per ms); the membrane's own slope under the spike is 0.02 V/s
+        spike = GaussianSpike(base_mv=0.0, amplitude_mv=95.0, sigma_ms=0.35)
+        crossing_ms = spike.time_at_u(spike.u_at_rate(onset))
+        window, dt_ms = 7, 1e3 / RC_RATE_HZ  # 0.3 ms at 20 kHz
+        around = crossing_ms + (np.arange(window) - window // 2) * dt_ms
+        weights = savgol_coeffs(window, 2, deriv=1, delta=dt_ms, use="dot")
+        plotted = weights @ spike.voltage(around)
+        assert np.allclose(y, plotted, atol=1.5)
         assert ax.get_xlabel() == "membrane voltage (mV)" and ax.get_ylabel() == "dV/dt (V/s)"
 
 
