@@ -204,14 +204,13 @@ def _line_sse(y: np.ndarray, sums: _IndexSums) -> np.ndarray:
     return np.maximum(sse, 0.0, out=sse)
 
 
-def _best_split(y: np.ndarray, min_piece: int, sums: _IndexSums) -> int:
-    """The split k (min_piece <= k <= n - min_piece) minimizing the SSE of two separate lines
-    through y[:k] and y[k:]."""
-    left = _line_sse(y, sums)
-    right = _line_sse(y[::-1], sums)[::-1]  # right[k] = SSE of the line through y[k:]
-    k = np.arange(min_piece, y.size - min_piece + 1)
-    total = left[k - 1] + np.append(right, 0.0)[k]
-    return int(k[np.argmin(total)])
+def _best_split(left: np.ndarray, right: np.ndarray, min_piece: int) -> int:
+    """The split k (min_piece <= k <= n - min_piece, min_piece >= 1) minimizing the SSE of two
+    separate lines through y[:k] and y[k:], from the SSEs of the lines through every prefix
+    (``left[k - 1]``: through y[:k]) and every suffix (``right[k]``: through y[k:])."""
+    n = left.size
+    total = left[min_piece - 1:n - min_piece] + right[min_piece:n - min_piece + 1]
+    return min_piece + int(np.argmin(total))
 
 
 def _is_flat(y: np.ndarray, tolerance_pa: float) -> bool:
@@ -245,17 +244,32 @@ def _fits_one_line(y: np.ndarray, tolerance_pa: float, window: int) -> bool:
 def _split_points(y: np.ndarray, tolerance_pa: float, window: int, min_piece: int
                   ) -> list[int]:
     """Borders of the pieces of y that each fit one line (top-down: split where two lines fit
-    best, until every piece fits within tolerance)."""
+    best, until every piece fits within tolerance).
+
+    The SSEs of the lines through the prefixes of a piece split are those of its first part's
+    prefixes, and the SSEs through its suffixes those of its second part's suffixes (the
+    cumulative sums of a prefix are the first entries of the whole's): each part reads them
+    from its parent (``lefts`` by first sample, ``rights``, formed backwards, by end) and
+    forms only the other two, and they are dropped when the part is done.
+    """
     borders = [0, y.size]
     todo = [(0, y.size)]
     sums = None
+    lefts: dict[int, np.ndarray] = {}
+    rights: dict[int, np.ndarray] = {}
     while todo and len(borders) - 1 < MAX_EPOCHS:
         a, b = todo.pop()
+        left, right = lefts.pop(a, None), rights.pop(b, None)
         if b - a < 2 * min_piece or _fits_one_line(y[a:b], tolerance_pa, window):
             continue
         sums = sums or _IndexSums(y.size)
-        k = a + _best_split(y[a:b], min_piece, sums)
+        if left is None:
+            left = _line_sse(y[a:b], sums)  # left[i]: SSE of the line through y[a:a + i + 1]
+        if right is None:
+            right = _line_sse(y[a:b][::-1], sums)  # right[i]: through y[b - i - 1:b]
+        k = a + _best_split(left[:b - a], right[:b - a][::-1], min_piece)
         borders.append(k)
+        lefts[a], rights[b] = left, right
         todo += [(a, k), (k, b)]
     return sorted(borders)
 
