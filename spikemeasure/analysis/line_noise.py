@@ -131,29 +131,34 @@ def _basis(samples: np.ndarray, fit: LineNoise) -> np.ndarray:
     return _terms(samples, rate, f, fit.harmonics, drift) - centre
 
 
-def _fit(part: np.ndarray, samples: np.ndarray, rate: float, frequency_hz: float,
-         harmonics: tuple[int, ...], drift: bool
-         ) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
-    """Least squares of `part` on a constant and the terms: (coefficients without the
-    constant, their sensitivity rows, their covariance under the residual's spectrum)."""
+def _least_squares(part: np.ndarray, samples: np.ndarray, rate: float, frequency_hz: float,
+                   harmonics: tuple[int, ...], drift: bool
+                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Least squares of `part` on a constant and the terms: (coefficients, the constant's
+    first; the pseudo-inverse, one row per coefficient; the residual)."""
     terms = _terms(samples, rate, frequency_hz, harmonics, drift)
     design = np.column_stack([np.ones(samples.size), terms - terms.mean(axis=0)])
     # the normal equations: a few well-scaled columns (centred, the time in s), where an
     # SVD of the tall design would cost far more
     pinv = np.linalg.solve(design.T @ design, design.T)
     coef = pinv @ part
-    residual = part - design @ coef
+    return coef, pinv, part - design @ coef
+
+
+def _covariance(pinv: np.ndarray, residual: np.ndarray, rate: float) -> np.ndarray | None:
+    """Covariance of the coefficients but the constant's (see :func:`estimate_line_noise`,
+    note 2); None when the residual is too short for its spectrum."""
     spectral = weighted_sums_covariance(pinv[1:], residual, rate)
     if spectral is None:
-        return coef[1:], pinv[1:], None
+        return None
     # white noise of the residual's variance, made larger where the residual's spectrum
     # says the noise is correlated: a spectrum estimated on a short stretch scatters, and
     # taken alone would often make the test too lenient
-    variance = max(float(np.var(residual)) * samples.size
-                   / max(1, samples.size - design.shape[1]), _VARIANCE_FLOOR_MV2)
+    variance = max(float(np.var(residual)) * residual.size
+                   / max(1, residual.size - pinv.shape[0]), _VARIANCE_FLOOR_MV2)
     white = variance * (pinv[1:] @ pinv[1:].T)
     inflation = max(1.0, float(np.trace(spectral) / np.trace(white))) if white.size else 1.0
-    return coef[1:], pinv[1:], white * inflation
+    return white * inflation
 
 
 def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s: float,
@@ -240,12 +245,13 @@ def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s
     best = None
     for f in MAINS_FREQUENCIES_HZ:
         below = tuple(h for h in range(1, harmonics + 1) if h * f < rate / 2)
-        coef, _, _ = _fit(part, samples, rate, f, below, drift)
-        explained = float(np.sum(coef[int(drift):] ** 2))
+        fit = _least_squares(part, samples, rate, f, below, drift)
+        explained = float(np.sum(fit[0][1 + int(drift):] ** 2))
         if best is None or explained > best[0]:
-            best = (explained, f, below)
-    _, f, below = best
-    coef, _, cov = _fit(part, samples, rate, f, below, drift)
+            best = (explained, f, below, fit)
+    # the covariance of the frequency kept only, from its fit (not fitted again)
+    _, f, below, (all_coef, pinv, residual) = best
+    coef, cov = all_coef[1:], _covariance(pinv, residual, rate)
     if cov is None:
         return none
     keep_drift = drift and _wald(coef[:1], cov[:1, :1]) > chi2.isf(false_alarm, 1)
@@ -260,7 +266,9 @@ def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s
         return LineNoise(float("nan"), (), np.zeros(0), np.zeros(0), float("nan"), slope_sd,
                          first, stop, rate, np.zeros((0, part.size)), np.zeros(0), reference,
                          slope)
-    coef, rows, _ = _fit(part, samples, rate, f, kept, keep_drift)
+    if (kept, keep_drift) != (below, drift):
+        all_coef, pinv, _ = _least_squares(part, samples, rate, f, kept, keep_drift)
+    coef, rows = all_coef[1:], pinv[1:]  # every term kept: the fit above
     hum = coef[1:] if keep_drift else coef
     cos, sin = hum[0::2], hum[1::2]
     return LineNoise(f if kept else float("nan"), kept, np.hypot(cos, sin),
