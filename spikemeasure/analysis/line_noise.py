@@ -12,7 +12,7 @@ from __future__ import annotations
 from dataclasses import dataclass, replace
 
 import numpy as np
-from scipy.stats import chi2
+from scipy.special import chdtri
 
 from ..errors import InvalidSettingError
 from .fluctuation import weighted_sums_covariance
@@ -254,12 +254,12 @@ def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s
     coef, cov = all_coef[1:], _covariance(pinv, residual, rate)
     if cov is None:
         return none
-    keep_drift = drift and _wald(coef[:1], cov[:1, :1]) > chi2.isf(false_alarm, 1)
+    keep_drift = drift and _wald(coef[:1], cov[:1, :1]) > chdtri(1, false_alarm)
     d = int(drift)
     kept = tuple(h for k, h in enumerate(below)
                  if _wald(coef[d + 2 * k:d + 2 + 2 * k],
                           cov[d + 2 * k:d + 2 + 2 * k, d + 2 * k:d + 2 + 2 * k])
-                 > chi2.isf(false_alarm, 2))
+                 > chdtri(2, false_alarm))
     slope_sd = float(np.sqrt(max(0.0, cov[0, 0]))) if drift else float("nan")
     slope = float(coef[0]) if drift else float("nan")
     if not (keep_drift or kept):
