@@ -187,13 +187,16 @@ def _line_sse(y: np.ndarray, sums: _IndexSums) -> np.ndarray:
     m = y.size
     x, n, sx = sums.x[:m], sums.n[:m], sums.sx[:m]
     # vy = syy - sy * sy / n, cxy = sxy - sx * sy / n and the SSE vy - cxy * cxy / vx (vy
-    # where vx is 0), each operation as written, done in place to spare temporaries
+    # where vx is 0), each operation as written, done in place to spare temporaries (three
+    # arrays of y's size at most; a cumulative sum in place adds in the same order)
     sy = np.cumsum(y)
-    vy = np.cumsum(y * y)
+    vy = np.multiply(y, y)
+    np.cumsum(vy, out=vy)
     term = sy * sy
     term /= n
     vy -= term
-    cxy = np.cumsum(np.multiply(x, y, out=term))
+    cxy = np.multiply(x, y, out=term)
+    np.cumsum(cxy, out=cxy)
     np.multiply(sx, sy, out=sy)
     sy /= n
     cxy -= sy
@@ -227,18 +230,24 @@ def _line_residual(x: np.ndarray, y: np.ndarray) -> np.ndarray:
     most of the epoch search on long sweeps)."""
     dx = x - x.mean()
     y_mean = y.mean()
-    # elementwise products and numpy's pairwise sums: quicker here than a BLAS dot product
-    slope = np.sum(dx * (y - y_mean)) / np.sum(dx * dx)
-    return y - (y_mean + slope * dx)
+    # elementwise products and numpy's pairwise sums: quicker here than a BLAS dot product;
+    # the same operations in place, two arrays of y's size (products commute exactly)
+    product = y - y_mean
+    product *= dx
+    slope = np.sum(product) / np.sum(np.multiply(dx, dx, out=product))
+    dx *= slope
+    dx += y_mean
+    return np.subtract(y, dx, out=dx)
 
 
 def _fits_one_line(y: np.ndarray, tolerance_pa: float, window: int) -> bool:
     if _is_flat(y, tolerance_pa):
         return True
-    x = np.arange(y.size, dtype=float)
-    residual = _line_residual(x, y) if y.size >= 2 else y - float(y[0])
+    residual = (_line_residual(np.arange(y.size, dtype=float), y) if y.size >= 2
+                else y - float(y[0]))
     smooth = uniform_filter1d(residual, size=min(window, y.size), mode="nearest")
-    return bool(np.max(np.abs(smooth)) <= 0.5 * tolerance_pa)
+    del residual
+    return bool(np.max(np.abs(smooth, out=smooth)) <= 0.5 * tolerance_pa)
 
 
 def _split_points(y: np.ndarray, tolerance_pa: float, window: int, min_piece: int
@@ -346,7 +355,7 @@ def find_epochs(command_pa, sampling_rate_hz: float, *, tolerance_pa: float | No
     kept = np.flatnonzero(np.isfinite(cmd))
     if kept.size < 3:
         return CommandEpochs((), float(tolerance_pa or min_level_change_pa), cmd.size, rate)
-    raw = cmd[kept]
+    raw = cmd[kept] if kept.size < cmd.size else cmd  # read only: no copy when all are finite
     y = running_median(raw) if raw.size >= EPOCH_MEDIAN_SAMPLES else raw
     if tolerance_pa is None:
         d = np.diff(raw)
