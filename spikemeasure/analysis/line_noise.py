@@ -114,11 +114,16 @@ def _terms(samples: np.ndarray, rate: float, frequency_hz: float, harmonics: tup
            drift: bool) -> np.ndarray:
     """Uncentred terms at `samples`: drift (t), then cos and sin of each harmonic."""
     t = samples / rate
-    columns = [t] if drift else []
-    for h in harmonics:
+    # each column written into the one array as it is formed (a whole sweep's terms are
+    # several times its voltage's size)
+    out = np.empty((samples.size, int(drift) + 2 * len(harmonics)))
+    if drift:
+        out[:, 0] = t
+    for k, h in enumerate(harmonics):
         phase = 2 * np.pi * h * frequency_hz * t
-        columns += [np.cos(phase), np.sin(phase)]
-    return np.column_stack(columns) if columns else np.zeros((samples.size, 0))
+        out[:, int(drift) + 2 * k] = np.cos(phase)
+        out[:, int(drift) + 2 * k + 1] = np.sin(phase)
+    return out
 
 
 def _basis(samples: np.ndarray, fit: LineNoise) -> np.ndarray:
@@ -128,7 +133,9 @@ def _basis(samples: np.ndarray, fit: LineNoise) -> np.ndarray:
     quiet = np.arange(lo, hi)
     rate, f = fit.sampling_rate_hz, fit.frequency_hz
     centre = _terms(quiet, rate, f, fit.harmonics, drift).mean(axis=0)
-    return _terms(samples, rate, f, fit.harmonics, drift) - centre
+    terms = _terms(samples, rate, f, fit.harmonics, drift)
+    terms -= centre
+    return terms
 
 
 def _least_squares(part: np.ndarray, samples: np.ndarray, rate: float, frequency_hz: float,
@@ -290,7 +297,8 @@ def remove_line_noise(voltage_mv: np.ndarray, fit: LineNoise) -> np.ndarray:
     v = np.asarray(voltage_mv, dtype=float)
     if not fit.found:
         return v
-    return v - fit.artefact_mv(0, v.size)
+    artefact = fit.artefact_mv(0, v.size)
+    return np.subtract(v, artefact, out=artefact)
 
 
 def corrected_weights(weights: np.ndarray, first_sample: int, fit: LineNoise
