@@ -5,17 +5,19 @@ The detector works on one sweep at a time and returns sample indices; the measur
 """
 from __future__ import annotations
 
+import math
 from dataclasses import asdict, dataclass
 
 import numpy as np
-from scipy.ndimage import maximum_filter1d
-from scipy.signal import savgol_filter
+from scipy.linalg import lstsq
+from scipy.ndimage import convolve1d, maximum_filter1d
 
 from ..errors import InvalidSettingError
 from ..params import check_value, default_of, parameter
 
 __all__ = ["DetectionSettings", "THRESHOLD_METHODS", "DetectedSpikes", "SmoothedSamples",
-           "smoothing_window_samples", "smoothed_trace", "detect_spikes"]
+           "smoothing_window_samples", "smoothed_trace", "detect_spikes", "savgol_coeffs",
+           "savgol_filter"]
 
 #: Threshold definitions offered (see :func:`spikemeasure.analysis.spike_features.spike_thresholds`).
 THRESHOLD_METHODS = parameter("threshold_method").choices
@@ -100,6 +102,145 @@ class DetectionSettings:
     @property
     def needs_second_derivative(self) -> bool:
         return self.threshold_method == "second_derivative_peak"
+
+
+def savgol_coeffs(window_length: int, polyorder: int, deriv: int = 0, delta: float = 1.0,
+                  pos: int | None = None, use: str = "conv") -> np.ndarray:
+    """Weights of a Savitzky-Golay filter: the value (or derivative) at `pos` of the
+    least-squares polynomial through `window_length` samples.
+
+    Parameters
+    ----------
+    window_length : int
+        Samples in the window.
+    polyorder : int
+        Order of the polynomial, less than `window_length`.
+    deriv : int, optional
+        Order of the derivative (0: the value).
+    delta : float, optional
+        Spacing of the samples, for a derivative.
+    pos : int, optional
+        Position in the window where the polynomial is evaluated; by default its centre.
+    use : {"conv", "dot"}, optional
+        ``"conv"``: the weights reversed, for a convolution; ``"dot"``: in sample order.
+
+    Returns
+    -------
+    ndarray, shape (window_length,)
+
+    Notes
+    -----
+    The computation of ``scipy.signal.savgol_coeffs`` (SciPy 1.17), operation for operation,
+    so that the weights are equal to the last bit (tests/analysis/test_detection.py compares
+    them): the rows of the Vandermonde matrix of the window's positions relative to `pos`
+    and the least-squares solution (LAPACK's gelsd through ``scipy.linalg.lstsq``, cutoff
+    eps times the larger dimension) that picks the coefficient of order `deriv`, times
+    deriv! / delta**deriv. Written here so that measuring imports neither scipy.signal nor,
+    through it, scipy.stats (about a quarter of a run's memory and half a second).
+
+    References
+    ----------
+    .. [1] A. Savitzky and M. J. E. Golay, "Smoothing and differentiation of data by
+       simplified least squares procedures", Analytical Chemistry 36(8):1627-1639, 1964.
+    """
+    halflen, rem = divmod(window_length, 2)
+    if pos is None:
+        pos = halflen - 0.5 if rem == 0 else halflen
+    if not 0 <= pos < window_length:
+        raise InvalidSettingError("`pos` must be nonnegative and less than `window_length`")
+    if polyorder >= window_length:
+        raise InvalidSettingError("`polyorder` must be less than `window_length`")
+    if use not in ("conv", "dot"):
+        raise InvalidSettingError("`use` must be 'conv' or 'dot'")
+    if deriv > polyorder:
+        return np.zeros(window_length, dtype=np.float64)
+    x = np.arange(-pos, window_length - pos, dtype=np.float64)
+    if use == "conv":
+        x = np.flip(x)
+    design = x ** np.arange(polyorder + 1, dtype=np.float64).reshape(-1, 1)
+    y = np.zeros(polyorder + 1, dtype=np.float64)
+    y[deriv] = float(math.factorial(deriv)) / (delta ** deriv)
+    cutoff = np.finfo(np.float64).eps * max(design.shape)
+    return lstsq(design, y, cond=cutoff)[0]
+
+
+def _edge_polynomial_values(x: np.ndarray, window_start: int, window_stop: int,
+                            interp_start: int, interp_stop: int, polyorder: int, deriv: int,
+                            delta: float) -> np.ndarray:
+    """The least-squares polynomial through x[window_start:window_stop] (or its derivative)
+    at samples interp_start .. interp_stop - 1: the edges of :func:`savgol_filter`."""
+    edge = x[window_start:window_stop].reshape(-1, 1)
+    t = np.arange(0, window_stop - window_start, dtype=x.dtype)
+    # the Vandermonde matrix with its columns scaled to unit length, as a polynomial fit
+    # conditions it, then the least squares (cutoff: samples times eps)
+    powers = np.flip(np.arange(polyorder + 1, dtype=x.dtype))
+    vander = t[:, None] ** powers[None, :]
+    scale = np.sqrt(np.sum(vander * vander, axis=0))
+    vander /= scale
+    coeffs = (lstsq(vander, edge, cond=t.shape[0] * np.finfo(x.dtype).eps)[0].T / scale).T
+    n = coeffs.shape[0]
+    if deriv > 0:  # the derivative's coefficients, highest power first
+        if n <= deriv:
+            coeffs = np.zeros_like(coeffs[:1, ...])
+        else:
+            derived = np.array(coeffs[:-deriv, ...], copy=True)
+            for k in range(deriv):
+                derived *= np.arange(n - k - 1, deriv - k - 1, -1,
+                                     dtype=coeffs.dtype).reshape(n - deriv, 1)
+            coeffs = derived
+    at = np.arange(interp_start - window_start, interp_stop - window_start,
+                   dtype=coeffs.dtype).reshape(-1, 1)
+    values = np.zeros_like(at)
+    for j in range(coeffs.shape[0]):  # Horner's scheme
+        values = values * at + coeffs[j, ...]
+    return (values / (delta ** deriv)).reshape(interp_stop - interp_start)
+
+
+def savgol_filter(x: np.ndarray, window_length: int, polyorder: int, deriv: int = 0,
+                  delta: float = 1.0, mode: str = "interp") -> np.ndarray:
+    """A 1-D trace through a Savitzky-Golay filter, its ends fitted (mode ``"interp"``).
+
+    Parameters
+    ----------
+    x : ndarray
+        1-D, float64 or float32 (other types are made float64).
+    window_length, polyorder, deriv, delta
+        As for :func:`savgol_coeffs`.
+    mode : {"interp"}
+        Within half a window of either end, the value of the polynomial fitted to the
+        first (last) `window_length` samples (the only mode used here).
+
+    Returns
+    -------
+    ndarray
+        The filtered trace, of `x`'s length.
+
+    Notes
+    -----
+    The computation of ``scipy.signal.savgol_filter(x, ..., mode="interp")`` (SciPy 1.17),
+    operation for operation, so that the result is equal to the last bit
+    (tests/analysis/test_detection.py compares them): the weights of :func:`savgol_coeffs`
+    convolved with the trace (``scipy.ndimage.convolve1d``, zero beyond the ends), then the
+    `window_length` // 2 samples at each end replaced by the polynomial fitted to the end
+    window (its columns scaled to unit length) evaluated there by Horner's scheme.
+    """
+    if mode != "interp":
+        raise InvalidSettingError("`mode` must be 'interp'")
+    x = np.asarray(x)
+    if x.dtype != np.float64 and x.dtype != np.float32:
+        x = x.astype(np.float64)
+    if x.ndim != 1:
+        raise InvalidSettingError("`x` must be a 1-D array")
+    coeffs = savgol_coeffs(window_length, polyorder, deriv=deriv, delta=delta)
+    if window_length > x.shape[0]:
+        raise InvalidSettingError("`window_length` must be at most the length of `x`")
+    y = convolve1d(x, coeffs, axis=-1, mode="constant")
+    halflen, n = window_length // 2, x.shape[0]
+    y[:halflen] = _edge_polynomial_values(x, 0, window_length, 0, halflen, polyorder,
+                                          deriv, delta)
+    y[n - halflen:] = _edge_polynomial_values(x, n - window_length, n, n - halflen, n,
+                                              polyorder, deriv, delta)
+    return y
 
 
 class SmoothedSamples:

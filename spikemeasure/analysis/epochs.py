@@ -187,13 +187,16 @@ def _line_sse(y: np.ndarray, sums: _IndexSums) -> np.ndarray:
     m = y.size
     x, n, sx = sums.x[:m], sums.n[:m], sums.sx[:m]
     # vy = syy - sy * sy / n, cxy = sxy - sx * sy / n and the SSE vy - cxy * cxy / vx (vy
-    # where vx is 0), each operation as written, done in place to spare temporaries
+    # where vx is 0), each operation as written, done in place to spare temporaries (three
+    # arrays of y's size at most; a cumulative sum in place adds in the same order)
     sy = np.cumsum(y)
-    vy = np.cumsum(y * y)
+    vy = np.multiply(y, y)
+    np.cumsum(vy, out=vy)
     term = sy * sy
     term /= n
     vy -= term
-    cxy = np.cumsum(np.multiply(x, y, out=term))
+    cxy = np.multiply(x, y, out=term)
+    np.cumsum(cxy, out=cxy)
     np.multiply(sx, sy, out=sy)
     sy /= n
     cxy -= sy
@@ -204,14 +207,13 @@ def _line_sse(y: np.ndarray, sums: _IndexSums) -> np.ndarray:
     return np.maximum(sse, 0.0, out=sse)
 
 
-def _best_split(y: np.ndarray, min_piece: int, sums: _IndexSums) -> int:
-    """The split k (min_piece <= k <= n - min_piece) minimizing the SSE of two separate lines
-    through y[:k] and y[k:]."""
-    left = _line_sse(y, sums)
-    right = _line_sse(y[::-1], sums)[::-1]  # right[k] = SSE of the line through y[k:]
-    k = np.arange(min_piece, y.size - min_piece + 1)
-    total = left[k - 1] + np.append(right, 0.0)[k]
-    return int(k[np.argmin(total)])
+def _best_split(left: np.ndarray, right: np.ndarray, min_piece: int) -> int:
+    """The split k (min_piece <= k <= n - min_piece, min_piece >= 1) minimizing the SSE of two
+    separate lines through y[:k] and y[k:], from the SSEs of the lines through every prefix
+    (``left[k - 1]``: through y[:k]) and every suffix (``right[k]``: through y[k:])."""
+    n = left.size
+    total = left[min_piece - 1:n - min_piece] + right[min_piece:n - min_piece + 1]
+    return min_piece + int(np.argmin(total))
 
 
 def _is_flat(y: np.ndarray, tolerance_pa: float) -> bool:
@@ -228,34 +230,55 @@ def _line_residual(x: np.ndarray, y: np.ndarray) -> np.ndarray:
     most of the epoch search on long sweeps)."""
     dx = x - x.mean()
     y_mean = y.mean()
-    # elementwise products and numpy's pairwise sums: quicker here than a BLAS dot product
-    slope = np.sum(dx * (y - y_mean)) / np.sum(dx * dx)
-    return y - (y_mean + slope * dx)
+    # elementwise products and numpy's pairwise sums: quicker here than a BLAS dot product;
+    # the same operations in place, two arrays of y's size (products commute exactly)
+    product = y - y_mean
+    product *= dx
+    slope = np.sum(product) / np.sum(np.multiply(dx, dx, out=product))
+    dx *= slope
+    dx += y_mean
+    return np.subtract(y, dx, out=dx)
 
 
 def _fits_one_line(y: np.ndarray, tolerance_pa: float, window: int) -> bool:
     if _is_flat(y, tolerance_pa):
         return True
-    x = np.arange(y.size, dtype=float)
-    residual = _line_residual(x, y) if y.size >= 2 else y - float(y[0])
+    residual = (_line_residual(np.arange(y.size, dtype=float), y) if y.size >= 2
+                else y - float(y[0]))
     smooth = uniform_filter1d(residual, size=min(window, y.size), mode="nearest")
-    return bool(np.max(np.abs(smooth)) <= 0.5 * tolerance_pa)
+    del residual
+    return bool(np.max(np.abs(smooth, out=smooth)) <= 0.5 * tolerance_pa)
 
 
 def _split_points(y: np.ndarray, tolerance_pa: float, window: int, min_piece: int
                   ) -> list[int]:
     """Borders of the pieces of y that each fit one line (top-down: split where two lines fit
-    best, until every piece fits within tolerance)."""
+    best, until every piece fits within tolerance).
+
+    The SSEs of the lines through the prefixes of a piece split are those of its first part's
+    prefixes, and the SSEs through its suffixes those of its second part's suffixes (the
+    cumulative sums of a prefix are the first entries of the whole's): each part reads them
+    from its parent (``lefts`` by first sample, ``rights``, formed backwards, by end) and
+    forms only the other two, and they are dropped when the part is done.
+    """
     borders = [0, y.size]
     todo = [(0, y.size)]
     sums = None
+    lefts: dict[int, np.ndarray] = {}
+    rights: dict[int, np.ndarray] = {}
     while todo and len(borders) - 1 < MAX_EPOCHS:
         a, b = todo.pop()
+        left, right = lefts.pop(a, None), rights.pop(b, None)
         if b - a < 2 * min_piece or _fits_one_line(y[a:b], tolerance_pa, window):
             continue
         sums = sums or _IndexSums(y.size)
-        k = a + _best_split(y[a:b], min_piece, sums)
+        if left is None:
+            left = _line_sse(y[a:b], sums)  # left[i]: SSE of the line through y[a:a + i + 1]
+        if right is None:
+            right = _line_sse(y[a:b][::-1], sums)  # right[i]: through y[b - i - 1:b]
+        k = a + _best_split(left[:b - a], right[:b - a][::-1], min_piece)
         borders.append(k)
+        lefts[a], rights[b] = left, right
         todo += [(a, k), (k, b)]
     return sorted(borders)
 
@@ -332,7 +355,7 @@ def find_epochs(command_pa, sampling_rate_hz: float, *, tolerance_pa: float | No
     kept = np.flatnonzero(np.isfinite(cmd))
     if kept.size < 3:
         return CommandEpochs((), float(tolerance_pa or min_level_change_pa), cmd.size, rate)
-    raw = cmd[kept]
+    raw = cmd[kept] if kept.size < cmd.size else cmd  # read only: no copy when all are finite
     y = running_median(raw) if raw.size >= EPOCH_MEDIAN_SAMPLES else raw
     if tolerance_pa is None:
         d = np.diff(raw)

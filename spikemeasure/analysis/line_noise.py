@@ -12,7 +12,7 @@ from __future__ import annotations
 from dataclasses import dataclass, replace
 
 import numpy as np
-from scipy.stats import chi2
+from scipy.special import chdtri
 
 from ..errors import InvalidSettingError
 from .fluctuation import weighted_sums_covariance
@@ -131,11 +131,16 @@ def _terms(samples: np.ndarray, rate: float, frequency_hz: float, harmonics: tup
            drift: bool) -> np.ndarray:
     """Uncentred terms at `samples`: drift (t), then cos and sin of each harmonic."""
     t = samples / rate
-    columns = [t] if drift else []
-    for h in harmonics:
+    # each column written into the one array as it is formed (a whole sweep's terms are
+    # several times its voltage's size)
+    out = np.empty((samples.size, int(drift) + 2 * len(harmonics)))
+    if drift:
+        out[:, 0] = t
+    for k, h in enumerate(harmonics):
         phase = 2 * np.pi * h * frequency_hz * t
-        columns += [np.cos(phase), np.sin(phase)]
-    return np.column_stack(columns) if columns else np.zeros((samples.size, 0))
+        out[:, int(drift) + 2 * k] = np.cos(phase)
+        out[:, int(drift) + 2 * k + 1] = np.sin(phase)
+    return out
 
 
 def _basis(samples: np.ndarray, fit: LineNoise) -> np.ndarray:
@@ -145,19 +150,22 @@ def _basis(samples: np.ndarray, fit: LineNoise) -> np.ndarray:
     quiet = np.arange(lo, hi)
     rate, f = fit.sampling_rate_hz, fit.frequency_hz
     centre = _terms(quiet, rate, f, fit.harmonics, drift).mean(axis=0)
-    return _terms(samples, rate, f, fit.harmonics, drift) - centre
+    terms = _terms(samples, rate, f, fit.harmonics, drift)
+    terms -= centre
+    return terms
 
 
 def _fit(part: np.ndarray, samples: np.ndarray, rate: float, frequency_hz: float,
          harmonics: tuple[int, ...], drift: bool, levels: np.ndarray | None = None,
-         extra: np.ndarray | None = None
+         extra: np.ndarray | None = None, covariance: bool = True
          ) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
     """Least squares of `part` on a constant and the terms: (coefficients without the
     constant, their sensitivity rows, their covariance under the residual's spectrum).
 
     `levels` (0 or 1 per sample) gives the second stretch a constant of its own; `extra`
     columns follow the terms. The rows cover samples[0] to samples[-1], zero where a
-    sample is not fitted."""
+    sample is not fitted. Without `covariance` (only the coefficients wanted) the rows and
+    the covariance are not formed (None)."""
     terms = _terms(samples, rate, frequency_hz, harmonics, drift)
     if extra is not None:
         terms = np.column_stack([terms, extra])
@@ -169,6 +177,8 @@ def _fit(part: np.ndarray, samples: np.ndarray, rate: float, frequency_hz: float
     # SVD of the tall design would cost far more
     pinv = np.linalg.solve(design.T @ design, design.T)
     coef = pinv @ part
+    if not covariance:
+        return coef[k:], None, None
     residual = part - design @ coef
     rows = pinv[k:]
     if samples.size and samples[-1] - samples[0] + 1 != samples.size:
@@ -300,7 +310,8 @@ def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s
     best = None
     for f in MAINS_FREQUENCIES_HZ:
         below = tuple(h for h in range(1, harmonics + 1) if h * f < rate / 2)
-        coef, _, _ = _fit(part, samples, rate, f, below, drift, levels)
+        # the covariance only for the frequency kept
+        coef, _, _ = _fit(part, samples, rate, f, below, drift, levels, covariance=False)
         explained = float(np.sum(coef[int(drift):] ** 2))
         if best is None or explained > best[0]:
             best = (explained, f, below)
@@ -308,12 +319,12 @@ def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s
     coef, _, cov = _fit(part, samples, rate, f, below, drift, levels)
     if cov is None:
         return none
-    keep_drift = drift and _wald(coef[:1], cov[:1, :1]) > chi2.isf(false_alarm, 1)
+    keep_drift = drift and _wald(coef[:1], cov[:1, :1]) > chdtri(1, false_alarm)
     d = int(drift)
     kept = tuple(h for k, h in enumerate(below)
                  if _wald(coef[d + 2 * k:d + 2 + 2 * k],
                           cov[d + 2 * k:d + 2 + 2 * k, d + 2 * k:d + 2 + 2 * k])
-                 > chi2.isf(false_alarm, 2))
+                 > chdtri(2, false_alarm))
     slope_sd = float(np.sqrt(max(0.0, cov[0, 0]))) if drift else float("nan")
     slope = float(coef[0]) if drift else float("nan")
     quiet_stop, stop = stop, int(samples[-1]) + 1
@@ -352,14 +363,16 @@ def _plateau_agrees(part: np.ndarray, samples: np.ndarray, rate: float, harmonic
         x = levels * (t - t[levels > 0].mean())
         bend = levels * (x * x - np.mean(x[levels > 0] ** 2))
         extra = np.column_stack([x, bend])
-        coef, _, cov = _fit(part, samples, rate, f, below, True, levels, extra)
+        coef, _, _ = _fit(part, samples, rate, f, below, True, levels, extra, covariance=False)
         explained = float(np.sum(coef[1:-2] ** 2))
         if best is None or explained > best[0]:
-            best = (explained, coef, cov)
-    _, coef, cov = best
+            best = (explained, f, below, extra)
+    # the covariance only for the frequency kept
+    _, f, below, extra = best
+    coef, _, cov = _fit(part, samples, rate, f, below, True, levels, extra)
     if cov is None:
         return False, float("nan")
-    return (_wald(coef[-2:], cov[-2:, -2:]) <= chi2.isf(PLATEAU_AGREEMENT, 2),
+    return (_wald(coef[-2:], cov[-2:, -2:]) <= chdtri(2, PLATEAU_AGREEMENT),
             _excess(float(coef[-2]), float(cov[-2, -2])))
 
 
@@ -383,7 +396,8 @@ def remove_line_noise(voltage_mv: np.ndarray, fit: LineNoise) -> np.ndarray:
     v = np.asarray(voltage_mv, dtype=float)
     if not fit.found:
         return v
-    return v - fit.artefact_mv(0, v.size)
+    artefact = fit.artefact_mv(0, v.size)
+    return np.subtract(v, artefact, out=artefact)
 
 
 def corrected_weights(weights: np.ndarray, first_sample: int, fit: LineNoise

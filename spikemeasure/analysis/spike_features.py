@@ -8,10 +8,10 @@ from __future__ import annotations
 
 import numpy as np
 from scipy.interpolate import CubicSpline
-from scipy.signal import savgol_coeffs
 
 from ..errors import InvalidSettingError
-from .detection import SMOOTHING_POLYORDER, DetectedSpikes, DetectionSettings, SmoothedTrace
+from .detection import (SMOOTHING_POLYORDER, DetectedSpikes, DetectionSettings, SmoothedTrace,
+                        savgol_coeffs)
 from .local_fits import fit_noise_gain, fitted_extremes, matched_windows
 from .span_search import (FIRST_BELOW_HEAD, first_below, interp_many, last_below, span_argmax,
                           upward_crossings_before, vertices)

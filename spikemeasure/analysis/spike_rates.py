@@ -10,9 +10,8 @@ from functools import lru_cache
 
 import numpy as np
 from scipy.interpolate import make_interp_spline
-from scipy.signal import savgol_coeffs
 
-from .detection import smoothing_window_samples
+from .detection import savgol_coeffs, smoothing_window_samples
 from .local_fits import fitted_extremes, matched_windows
 
 __all__ = ["rate_extremes", "max_rate_weights", "noise_before", "RATE_SPLINE_HALF_SAMPLES", "NOISE_SAMPLES",

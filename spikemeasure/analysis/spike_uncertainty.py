@@ -14,10 +14,10 @@ from dataclasses import dataclass, fields
 
 import numpy as np
 from scipy.interpolate import CubicSpline
-from scipy.signal import savgol_coeffs
 
 from ..errors import InvalidSettingError
-from .detection import SMOOTHING_POLYORDER, DetectionSettings, smoothing_window_samples
+from .detection import (SMOOTHING_POLYORDER, DetectionSettings, savgol_coeffs,
+                        smoothing_window_samples)
 from .spikes import SpikeMeasurements
 from .local_fits import fit_weights_at
 from .spike_features import PEAK_ORDER, onset_window, peak_windows

@@ -104,6 +104,11 @@ def _versions() -> dict:
             "numpy": numpy.__version__, "scipy": scipy.__version__, "neo": neo_version}
 
 
+def _tables() -> tuple[tuple[str, tuple], ...]:
+    """The three tables of a run: their names (FileOutcome's attributes) and columns."""
+    return (("spikes", SPIKE_COLUMNS), ("sweeps", SWEEP_COLUMNS), ("cells", CELL_COLUMNS))
+
+
 def combined_tables(outcomes: list[FileOutcome]) -> dict[str, ColumnTable]:
     """The rows of every outcome, in file order, as the three typed tables."""
     return {"spikes": ColumnTable.concatenate([o.spikes for o in outcomes], SPIKE_COLUMNS),
@@ -145,6 +150,9 @@ class RunRecord:
         self.started_record = False
         self.last_refresh = time.time()
         self.refresh_failed = False
+        # each finished file's rows as CSV text, formatted once however often the tables
+        # are written (every TABLE_REFRESH_S, then at the end): {id: (outcome, texts)}
+        self.rows_texts: dict[int, tuple[FileOutcome, dict[str, str]]] = {}
 
     def keep(self, k: int, outcome: FileOutcome, cache_path: Path | None) -> FileOutcome:
         """Keep a file's outcome for a rerun (first: a table never holds a file a rerun would
@@ -230,19 +238,38 @@ class RunRecord:
             "notes": list(self.summary.notes),
         }
 
-    def table_files(self, record: dict, tables: dict[str, ColumnTable]) -> dict[Path, bytes]:
-        """The tables (formatted to text here) and run.json, as one set of files."""
-        failures = self.early + [f for o in self.done() for f in o.failures]
+    def table_files(self, record: dict) -> dict[Path, bytes]:
+        """The tables of the files finished so far (formatted to text here) and run.json, as
+        one set of files."""
+        done = self.done()
+        failures = self.early + [f for o in done for f in o.failures]
         summary = self.summary
+        tables = {name: rows_csv_text(columns, []) + "".join(self._rows_text(o)[name]
+                                                             for o in done)
+                  for name, columns in _tables()}
         texts = {
-            summary.spikes_path: rows_csv_text(SPIKE_COLUMNS, tables["spikes"].formatted_rows()),
-            summary.sweeps_path: rows_csv_text(SWEEP_COLUMNS, tables["sweeps"].formatted_rows()),
-            summary.cells_path: rows_csv_text(CELL_COLUMNS, tables["cells"].formatted_rows()),
+            summary.spikes_path: tables["spikes"],
+            summary.sweeps_path: tables["sweeps"],
+            summary.cells_path: tables["cells"],
             summary.errors_path: rows_csv_text(
                 ERROR_COLUMNS, [[f[c.name] for c in ERROR_COLUMNS] for f in failures]),
             summary.record_path: json_text(record),
         }
         return {path: text.encode("utf-8") for path, text in texts.items()}
+
+    def _rows_text(self, outcome: FileOutcome) -> dict[str, str]:
+        """One file's rows of each table as CSV text (the lines below the header): made the
+        first time its tables are written, then kept. The rows of a table are formatted one
+        by one, so a table's text is its header followed by each file's rows in turn."""
+        kept = self.rows_texts.get(id(outcome))
+        if kept is None or kept[0] is not outcome:
+            texts = {}
+            for name, columns in _tables():
+                rows = ColumnTable.concatenate([getattr(outcome, name)], columns)
+                whole = rows_csv_text(columns, rows.formatted_rows())
+                texts[name] = whole[len(rows_csv_text(columns, [])):]
+            kept = self.rows_texts[id(outcome)] = (outcome, texts)
+        return kept[1]
 
     def write_start(self) -> None:
         """Before any file is measured: run.json says ``running`` (with the parameters and
@@ -273,8 +300,7 @@ class RunRecord:
             return
         counts = self.tally(final=False)
         try:
-            write_files_atomic(self.table_files(self.record("running", counts),
-                                                combined_tables(self.done())))
+            write_files_atomic(self.table_files(self.record("running", counts)))
         except OSError as exc:
             if not self.refresh_failed:
                 self.summary.notes.append(
@@ -302,7 +328,7 @@ class RunRecord:
         batch_figure = self._batch_figure(summary.tables["cells"])
         record = self.record(self.status, counts, batch_figure)
         summary.record = record
-        files = self.table_files(record, summary.tables)
+        files = self.table_files(record)
         try:
             write_files_atomic(files)
         except OSError as exc:

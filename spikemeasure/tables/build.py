@@ -302,15 +302,11 @@ def _format_column(column: Column, values: list) -> list[str]:
                 for v in values]
     spec = f".{column.decimals}f"
     zero = format(0.0, spec)
-    out = []
-    for v in values:
-        v = float(v)
-        if v != v or v in (float("inf"), float("-inf")):
-            out.append("")
-        else:
-            text = format(v, spec)
-            out.append(zero if text == "-" + zero else text)
-    return out
+    # every value through format's own rounding at once, then the texts of NaN and the
+    # infinities emptied and a negative zero ("-0.00") written as zero
+    texts = map(f"{{:{spec}}}".format, map(float, values))
+    replaced = {"nan": "", "inf": "", "-inf": "", "-" + zero: zero}
+    return [replaced.get(text, text) for text in texts]
 
 
 def format_rows(table: dict[str, list], columns: tuple[Column, ...] = SPIKE_COLUMNS

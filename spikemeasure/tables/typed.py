@@ -32,6 +32,25 @@ def column_kind(column: Column) -> str:
     return "count" if column.decimals is None else "float"
 
 
+class _PlainColumns:
+    """A table's columns as the plain Python values :func:`~spikemeasure.tables.build.format_rows`
+    formats, each made when it is read: one column's values at a time, not every column's
+    at once, while the cells' text is made (a long recording's spike table holds hundreds
+    of thousands)."""
+
+    def __init__(self, table: "ColumnTable") -> None:
+        self.table = table
+
+    def __getitem__(self, name: str) -> list:
+        column = self.table.columns[[c.name for c in self.table.columns].index(name)]
+        v = self.table.values[name]
+        if column_kind(column) == "count":  # whole numbers are written without a point
+            return [int(x) if math.isfinite(x) else float("nan") for x in v]
+        if column_kind(column) == "float":
+            return v.tolist()
+        return list(v)
+
+
 @dataclass(frozen=True)
 class ColumnTable:
     """A table as typed columns, in the order of its declared `columns`.
@@ -95,16 +114,7 @@ class ColumnTable:
 
     def formatted_rows(self) -> list[list[str]]:
         """The rows as CSV cell text, as :func:`spikemeasure.tables.build.format_rows` formats them."""
-        plain = {}
-        for c in self.columns:
-            v = self.values[c.name]
-            if column_kind(c) == "count":  # whole numbers are written without a point
-                plain[c.name] = [int(x) if math.isfinite(x) else float("nan") for x in v]
-            elif column_kind(c) == "float":
-                plain[c.name] = v.tolist()
-            else:
-                plain[c.name] = list(v)
-        return format_rows(plain, self.columns)
+        return format_rows(_PlainColumns(self), self.columns)
 
     def to_data(self) -> dict:
         """JSON data: per column its kind and values (NaN as null, infinities as text)."""

@@ -180,3 +180,52 @@ def test_rise_ends_follow_their_definition():
     np.testing.assert_array_equal(_first_rise_ends(dvdt, starts, 40), expected)
     np.testing.assert_array_equal(_first_rise_ends(dvdt, starts, 40, chunk_elements=50),
                                   expected)
+
+
+class TestSavitzkyGolay:
+    """Source: scipy.signal.savgol_coeffs and savgol_filter (mode 'interp'), whose
+    computation detection.savgol_coeffs and savgol_filter repeat so that measuring need not
+    import scipy.signal: equal to the last bit, weights and filtered traces."""
+
+    @pytest.mark.parametrize("window", [1, 2, 5, 8, 15, 51])
+    def test_weights_equal_scipys(self, window):
+        from scipy.signal import savgol_coeffs as reference
+        from spikemeasure.analysis.detection import savgol_coeffs
+
+        for order in range(min(window, 5)):
+            for deriv in range(4):
+                for delta, use, pos in [(1.0, "conv", None), (0.02, "dot", None),
+                                        (0.05, "dot", 0), (1e3 / 20_000, "conv", window - 1)]:
+                    np.testing.assert_array_equal(
+                        savgol_coeffs(window, order, deriv, delta, pos, use),
+                        reference(window, order, deriv, delta, pos, use))
+
+    @pytest.mark.parametrize("dtype", [np.float64, np.float32, np.int64])
+    @pytest.mark.parametrize("window, order, deriv, delta", [
+        (1, 0, 0, 1.0), (3, 2, 0, 1.0), (7, 2, 1, 0.02), (15, 2, 2, 0.05), (16, 3, 1, 0.1),
+        (31, 4, 3, 1.0)])
+    def test_filtered_trace_equals_scipys(self, dtype, window, order, deriv, delta):
+        from spikemeasure.analysis.detection import savgol_filter as ours
+
+        rng = np.random.default_rng(window + order)
+        for n in (window, window + 1, 400):
+            x = (-65.0 + np.cumsum(rng.normal(0.0, 2.0, n))).astype(dtype)
+            got = ours(x, window, order, deriv, delta)
+            expected = savgol_filter(x, window, order, deriv=deriv, delta=delta, mode="interp")
+            assert got.dtype == expected.dtype
+            np.testing.assert_array_equal(got, expected)
+
+    def test_bad_arguments_name_the_argument(self):
+        from spikemeasure.analysis.detection import savgol_coeffs, savgol_filter as ours
+
+        with pytest.raises(InvalidSettingError, match="`polyorder`"):
+            savgol_coeffs(5, 5)
+        with pytest.raises(InvalidSettingError, match="`pos`"):
+            savgol_coeffs(5, 2, pos=5)
+        with pytest.raises(InvalidSettingError, match="`use`"):
+            savgol_coeffs(5, 2, use="other")
+        with pytest.raises(InvalidSettingError, match="`window_length`"):
+            ours(np.zeros(4), 5, 2)
+        with pytest.raises(InvalidSettingError, match="`mode`"):
+            ours(np.zeros(10), 5, 2, mode="nearest")
+        np.testing.assert_array_equal(savgol_coeffs(5, 1, deriv=2), np.zeros(5))
