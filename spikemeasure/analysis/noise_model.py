@@ -13,6 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import InvalidSettingError
+from .line_noise import estimate_line_noise
 from .sweeps import CurrentStep
 
 __all__ = ["NoiseModel", "MIN_QUIET_MS", "MAX_QUIET_MS", "SPIKE_CLEARANCE_MS", "quiet_stretch",
@@ -38,16 +39,32 @@ class NoiseModel:
     sampling_rate_hz : float
     start, stop : int
         The stretch it was measured on (sample indices, stop exclusive).
+    drift_mv_per_s : float
+        Slope of the least-squares line removed from the stretch (0 when not measured).
+    drift_sd_mv_per_s : float
+        That slope's SD under the measured noise (0 when not measured).
     """
 
     autocovariance_mv2: np.ndarray
     sampling_rate_hz: float
     start: int
     stop: int
+    drift_mv_per_s: float = 0.0
+    drift_sd_mv_per_s: float = 0.0
 
     @property
     def sd_mv(self) -> float:
         return float(np.sqrt(self.autocovariance_mv2[0]))
+
+    def drift_since_mv(self, time_s: np.ndarray) -> np.ndarray:
+        """How far the drift measured on the stretch moves the voltage from the stretch's
+        middle to each time (s from the sweep's start), as its size: the slope's square less
+        its noise variance (an unbiased estimate of the squared drift, 0 when negative),
+        square-rooted, times the time since the middle (absolute)."""
+        squared = self.drift_mv_per_s ** 2 - self.drift_sd_mv_per_s ** 2
+        middle_s = 0.5 * (self.start + self.stop - 1) / self.sampling_rate_hz
+        since = np.abs(np.asarray(time_s, dtype=float) - middle_s)
+        return np.sqrt(max(squared, 0.0)) * since
 
 
 def quiet_stretch(n_samples: int, sampling_rate_hz: float, step: CurrentStep | None,
@@ -93,8 +110,8 @@ def quiet_stretch(n_samples: int, sampling_rate_hz: float, step: CurrentStep | N
     return start, stop
 
 
-def measured_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start: int, stop: int
-                   ) -> NoiseModel | None:
+def measured_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start: int, stop: int,
+                   *, drift: bool = True) -> NoiseModel | None:
     """Autocovariance of the noise on ``voltage_mv[start:stop]``.
 
     Parameters
@@ -104,6 +121,10 @@ def measured_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start: int, 
     sampling_rate_hz : float
     start, stop : int
         The quiet stretch (see :func:`quiet_stretch`).
+    drift : bool, optional
+        Whether to measure the drift (default True); False after a test pulse, where the
+        membrane may still be settling, which is not drift (the rule of
+        :func:`~spikemeasure.analysis.sweep_passive.passive_voltage`).
 
     Returns
     -------
@@ -113,7 +134,11 @@ def measured_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start: int, 
     Notes
     -----
     A least-squares line is removed first (the resting level and a slow drift are not noise
-    of a spike's values; a hum of 50 or 60 Hz is, and stays). The autocovariance is the
+    of a spike's values; a hum of 50 or 60 Hz is, and stays). The drift's slope and its SD
+    are those of the line fitted together with the mains hum
+    (:func:`~spikemeasure.analysis.line_noise.estimate_line_noise`, kept or not: a line
+    alone would take part of a hum for drift), for the drift's share of a spike's SDs
+    (:meth:`NoiseModel.drift_since_mv`); 0 when the stretch is too short for that fit. The autocovariance is the
     biased estimate ``sum(x[i] x[i+k]) / n`` [1]_, computed with a zero-padded FFT; the
     biased estimate is positive semidefinite, so every SD computed from it is real.
 
@@ -135,7 +160,15 @@ def measured_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start: int, 
     size = 1 << int(np.ceil(np.log2(2 * n)))
     spectrum = np.fft.rfft(x, size)
     acov = np.fft.irfft(spectrum * spectrum.conj(), size)[:n] / n
-    return NoiseModel(acov, float(sampling_rate_hz), int(start), int(stop))
+    rate = float(sampling_rate_hz)
+    # the drift fitted together with the hum: a line alone would take part of a hum for drift
+    if not drift:
+        return NoiseModel(acov, rate, int(start), int(stop))
+    lines = estimate_line_noise(voltage_mv, rate, start / rate, stop / rate)
+    slope, slope_sd = lines.drift_estimate_mv_per_s, lines.drift_sd_mv_per_s
+    known = np.isfinite(slope) and np.isfinite(slope_sd)
+    return NoiseModel(acov, rate, int(start), int(stop), float(slope) if known else 0.0,
+                      float(slope_sd) if known else 0.0)
 
 
 def _longest_finite_run(finite: np.ndarray, offset: int) -> tuple[int, int]:
