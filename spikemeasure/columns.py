@@ -220,7 +220,8 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
     Column("ahp_depth_mv", "mV", "Depth of the afterhyperpolarization: threshold_mv - trough_mv "
            "(positive when the trough lies below threshold).", 4),
     Column("ahp_depth_mv_sd", "mV", "SD of ahp_depth_mv that the recording's noise implies, "
-           "with the onset window's smoothing bias of the threshold.", 4, compute=partial(sd_values, name="ahp_depth_mv_sd")),
+           "with the onset window's smoothing bias of the threshold.", 4,
+           compute=partial(sd_values, name="ahp_depth_mv_sd")),
     Column("isi_ms", "ms", "Interspike interval: threshold_s minus the previous spike's "
            "threshold_s in the same sweep; empty for a sweep's first spike.", 5),
     Column("peak_to_trough_ms", "ms", "trough_s - peak_s, in ms: how long after its peak the "

@@ -13,7 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import InvalidSettingError
-from .line_noise import estimate_line_noise
+from .line_noise import HUM_HARMONICS, MAINS_FREQUENCIES_HZ
 from .sweeps import CurrentStep
 
 __all__ = ["NoiseModel", "MIN_QUIET_MS", "MAX_QUIET_MS", "SPIKE_CLEARANCE_MS", "quiet_stretch",
@@ -25,6 +25,9 @@ MIN_QUIET_MS = 20.0
 MAX_QUIET_MS = 1000.0
 #: The quiet stretch ends at least this long (ms) before the first spike's threshold.
 SPIKE_CLEARANCE_MS = 5.0
+#: The drift is fitted on means over blocks of this many ms (at most; a whole number of
+#: samples): well below a period of the mains' third harmonic (5.6 ms at 60 Hz).
+DRIFT_BLOCK_MS = 0.5
 
 
 @dataclass(frozen=True)
@@ -135,10 +138,10 @@ def measured_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start: int, 
     -----
     A least-squares line is removed first (the resting level and a slow drift are not noise
     of a spike's values; a hum of 50 or 60 Hz is, and stays). The drift's slope and its SD
-    are those of the line fitted together with the mains hum
-    (:func:`~spikemeasure.analysis.line_noise.estimate_line_noise`, kept or not: a line
-    alone would take part of a hum for drift), for the drift's share of a spike's SDs
-    (:meth:`NoiseModel.drift_since_mv`); 0 when the stretch is too short for that fit. The autocovariance is the
+    are those of a line fitted together with the mains hum (:func:`_drift_with_hum`: a line
+    alone would take part of a hum for drift) on means over blocks of
+    :data:`DRIFT_BLOCK_MS`, for the drift's share of a spike's SDs
+    (:meth:`NoiseModel.drift_since_mv`). The autocovariance is the
     biased estimate ``sum(x[i] x[i+k]) / n`` [1]_, computed with a zero-padded FFT; the
     biased estimate is positive semidefinite, so every SD computed from it is real.
 
@@ -164,11 +167,60 @@ def measured_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start: int, 
     # the drift fitted together with the hum: a line alone would take part of a hum for drift
     if not drift:
         return NoiseModel(acov, rate, int(start), int(stop))
-    lines = estimate_line_noise(voltage_mv, rate, start / rate, stop / rate)
-    slope, slope_sd = lines.drift_estimate_mv_per_s, lines.drift_sd_mv_per_s
-    known = np.isfinite(slope) and np.isfinite(slope_sd)
-    return NoiseModel(acov, rate, int(start), int(stop), float(slope) if known else 0.0,
-                      float(slope_sd) if known else 0.0)
+    # on means over blocks of DRIFT_BLOCK_MS: the mean of a line or a sinusoid over a block
+    # is the same line, or the sinusoid scaled, at the block's centre, so the fit's slope is
+    # the one of the samples, at a cost that does not grow with the sampling rate
+    block = max(1, int(DRIFT_BLOCK_MS * 1e-3 * rate))
+    blocks = n // block
+    means = stretch[n - blocks * block:].reshape(blocks, block).mean(axis=1)
+    slope, slope_sd = _drift_with_hum(means, rate / block,
+                                      1 << int(np.ceil(np.log2(2 * max(1, blocks)))))
+    return NoiseModel(acov, rate, int(start), int(stop), slope, slope_sd)
+
+
+def _drift_with_hum(stretch: np.ndarray, rate: float, size: int) -> tuple[float, float]:
+    """(slope, its SD) in mV/s of the line fitted together with the mains hum (the
+    harmonics of :data:`~spikemeasure.analysis.line_noise.MAINS_FREQUENCIES_HZ` below
+    Nyquist, :data:`~spikemeasure.analysis.line_noise.HUM_HARMONICS` of each) by least
+    squares: the slope is u . x, u the slope's row of the design's pseudo-inverse, and its
+    variance under the residual's biased autocovariance r is r[0] sum(u^2) + 2 sum over
+    lags k of r[k] sum(u[i] u[i+k]) [1]_, at least the white-noise value r[0] sum(u^2)
+    (corrected for the fitted terms): the fit leaves the residual no power at the lowest
+    frequencies, where u has its own (the floor of
+    :func:`~spikemeasure.analysis.line_noise.estimate_line_noise`). (0, 0) when it is not
+    finite.
+
+    References
+    ----------
+    .. [1] M. B. Priestley, "Spectral Analysis and Time Series", Academic Press, 1981,
+       sec. 5.3 (the variance of a weighted sum of a stationary process).
+    """
+    n = stretch.size
+    t = (np.arange(n) - 0.5 * (n - 1)) / rate
+    columns = [np.ones(n), t]
+    for frequency in MAINS_FREQUENCIES_HZ:
+        for harmonic in range(1, HUM_HARMONICS + 1):
+            if harmonic * frequency < rate / 2:
+                phase = 2 * np.pi * harmonic * frequency * t
+                columns += [np.cos(phase), np.sin(phase)]
+    design = np.column_stack(columns)
+    # the pseudo-inverse through the small Gram matrix: pinv(X) = pinv(X'X) X'
+    inverse = np.linalg.pinv(design.T @ design)
+    coefficients = inverse @ (design.T @ stretch)
+    residual = stretch - design @ coefficients
+    u = design @ inverse[1]
+    spectra = np.fft.rfft(np.stack([residual, u]), size, axis=1)
+    r = np.fft.irfft(spectra[0] * spectra[0].conj(), size)[:n] / n
+    u_corr = np.fft.irfft(spectra[1] * spectra[1].conj(), size)[:n]
+    spectral = r[0] * u_corr[0] + 2.0 * np.sum(r[1:] * u_corr[1:])
+    # the fit leaves the residual no power at the lowest frequencies, where u has its own:
+    # at least the white-noise variance of the residual's variance (as line_noise does)
+    white = r[0] * n / max(1, n - design.shape[1]) * u_corr[0]
+    variance = max(spectral, white)
+    slope = float(coefficients[1])
+    if not (np.isfinite(slope) and np.isfinite(variance)):
+        return 0.0, 0.0
+    return slope, float(np.sqrt(max(variance, 0.0)))
 
 
 def _longest_finite_run(finite: np.ndarray, offset: int) -> tuple[int, int]:

@@ -210,19 +210,34 @@ def _rate_extreme(v: np.ndarray, a: int, b: int, noise_mv: float, longest: int,
     value = sign * (here - 0.25 * (prev - nxt) * delta)
     if not with_weights:
         return value
-    weights = _rate_spline_weights()[best]
-    # the largest fourth difference of the spline's samples around its extreme, as weights
-    fourth = np.zeros(2 * spline_half + 1)
+    # the largest fourth difference of the spline's samples around its extreme
     at = int(np.argmax(np.abs(np.diff(samples[spline_half - 3:spline_half + 4], 4))))
+    return (value, j) + _extreme_weights(best, window, at)
+
+
+@lru_cache(maxsize=4096)
+def _extreme_weights(best: int, window: int, at: int
+                     ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(weights of the value, of the smoothing's bias, of the fourth difference at centre
+    j - 1 + `at`) on the raw samples around the centre, for the spline's grid point `best`
+    and the smoothing `window` (read-only: cached)."""
+    spline_half = RATE_SPLINE_HALF_SAMPLES
+    weights = _rate_spline_weights()[best]
+    fourth = np.zeros(2 * spline_half + 1)
     fourth[spline_half - 3 + at:spline_half + 2 + at] = (1.0, -4.0, 6.0, -4.0, 1.0)
     if window > 1:
+        half = window // 2
         smoothing = _quartic_smoothing(window)
         # the smoothing's bias read on the smoothed samples (smoothed once more, less once)
         twice = np.convolve(smoothing, smoothing)
         twice[half:half + window] -= smoothing
-        return (value, j, np.convolve(weights, smoothing), np.convolve(weights, twice),
-                np.convolve(fourth, smoothing))
-    return value, j, weights, np.zeros(1), fourth
+        out = (np.convolve(weights, smoothing), np.convolve(weights, twice),
+               np.convolve(fourth, smoothing))
+    else:
+        out = (weights.copy(), np.zeros(1), fourth)
+    for row in out:
+        row.flags.writeable = False
+    return out
 
 
 def max_rate_weights(voltage_mv: np.ndarray, sampling_rate_hz: float,

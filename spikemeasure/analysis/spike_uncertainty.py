@@ -24,8 +24,8 @@ from .spike_features import PEAK_ORDER, onset_window, peak_windows
 from .spike_rates import max_rate_weights, noise_before
 from .sweeps import CurrentStep
 # the noise the SDs are computed from, importable from here as before
-from .noise_model import (MAX_QUIET_MS, MIN_QUIET_MS, SPIKE_CLEARANCE_MS, NoiseModel,
-                          measured_noise, quiet_stretch)
+from .noise_model import (DRIFT_BLOCK_MS, MAX_QUIET_MS, MIN_QUIET_MS, SPIKE_CLEARANCE_MS,
+                          NoiseModel, measured_noise, quiet_stretch)
 
 __all__ = ["NoiseModel", "SpikeUncertainty", "SpikesWithUncertainty", "SD_COLUMNS",
            "MIN_QUIET_MS", "MAX_QUIET_MS", "SPIKE_CLEARANCE_MS", "quiet_stretch",
@@ -689,16 +689,20 @@ def uncertainty_lines() -> list[str]:
         "noise SD of that sum, whose expectation is the squared bias (the noise's share of "
         "b^2 taken out).",
         "",
-        "- Drift (threshold, peak): the slope of the line fitted with the mains hum on the "
-        "quiet stretch (the hum and drift fit of *Hum and drift*, kept or not), continued from "
-        "the stretch's middle to the value's time: |t - middle| sqrt(max(slope^2 - SD^2, "
-        "0)). A drift moves absolute voltages, which the recording cannot tell from the "
-        "membrane's; AHP depth and half-width are differences it leaves. Not after a test "
+        "- Drift (threshold, peak): the slope of a line fitted by least squares on the quiet "
+        f"stretch (on means over {DRIFT_BLOCK_MS:g} ms) together with the mains hum (50 and "
+        "60 Hz and their harmonics, as in *Hum and drift*; a line alone takes part of a hum "
+        "for drift), its SD under the autocovariance of the fit's residual (at least the "
+        "white-noise SD), continued from the stretch's middle to the value's time: |t - "
+        "middle| sqrt(max(slope^2 - SD^2, 0)). A drift moves absolute voltages, which the "
+        "recording cannot tell from the membrane's; AHP depth and half-width are differences "
+        "it leaves. Not after a test "
         "pulse, where the membrane may still be settling, which is not drift (as for the "
         "passive values).",
         "- Splines between samples (the peak where no fit was made; the largest dV/dt): a "
         "cubic spline's error is at most 5/384 h^4 max|f''''| on the value and (sqrt(3)/216 "
-        "+ 1/24) h^3 max|f''''| on its derivative (Hall and Meyer 1976, from memory); h^4 max|f''''| is "
+        "+ 1/24) h^3 max|f''''| on its derivative (Hall and Meyer 1976, from memory); "
+        "h^4 max|f''''| is "
         "read as the largest fourth difference of the spline's samples within a sample of "
         "the extreme (each equals h^4 f'''' somewhere in its span), and the bound counts "
         "with the SD of a uniform error within it, bound / sqrt(3) (JCGM 100:2008, 4.3.7). "
@@ -710,7 +714,8 @@ def uncertainty_lines() -> list[str]:
         "which moves the crossing by that over the step; c is the second difference at k and "
         "k+1 interpolated at b.",
         "- The largest dV/dt's smoothing (where the noise called for it): D (S - I) S v, the "
-        "smoothed samples S v standing for the signal in D (S - I) f (twicing, Tukey 1977, from memory); "
+        "smoothed samples S v standing for the signal in D (S - I) f (twicing, Tukey 1977, "
+        "from memory); "
         "it holds only part of a large smoothing bias (the rest is of order (S - I)^2 f).",
         "- The onset window's smoothing bias (threshold, AHP depth): the dV/dt of a local "
         "quadratic fit over 2m + 1 "
