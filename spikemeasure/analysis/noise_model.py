@@ -43,7 +43,8 @@ class NoiseModel:
     start, stop : int
         The stretch it was measured on (sample indices, stop exclusive).
     drift_mv_per_s : float
-        Slope of the least-squares line removed from the stretch (0 when not measured).
+        Slope of the line fitted on the stretch together with the mains hum (0 when not
+        measured: after a test pulse).
     drift_sd_mv_per_s : float
         That slope's SD under the measured noise (0 when not measured).
     """
@@ -164,10 +165,10 @@ def measured_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start: int, 
     spectrum = np.fft.rfft(x, size)
     acov = np.fft.irfft(spectrum * spectrum.conj(), size)[:n] / n
     rate = float(sampling_rate_hz)
-    # the drift fitted together with the hum: a line alone would take part of a hum for drift
     if not drift:
         return NoiseModel(acov, rate, int(start), int(stop))
-    # on means over blocks of DRIFT_BLOCK_MS: the mean of a line or a sinusoid over a block
+    # the drift fitted together with the hum (a line alone would take part of a hum for
+    # drift), on means over blocks of DRIFT_BLOCK_MS: the mean of a line or a sinusoid over a block
     # is the same line, or the sinusoid scaled, at the block's centre, so the fit's slope is
     # the one of the samples, at a cost that does not grow with the sampling rate
     block = max(1, int(DRIFT_BLOCK_MS * 1e-3 * rate))

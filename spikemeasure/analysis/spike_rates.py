@@ -280,8 +280,9 @@ def max_rate_weights(voltage_mv: np.ndarray, sampling_rate_hz: float,
 
     The smoothing's bias on the signal f is D (S - I) f. It is read on the recording as
     D (S - I) S v: the smoothed samples stand for f, the first term of twicing [1]_, whose
-    noise is small (two smoothings); it leaves out (S - I)**2 f, a share of the bias as small
-    as the bias's own share of the value.
+    noise is small (two smoothings). It leaves out the spike's content where the smoothing's
+    gain is far below 1, which the smoothed samples no longer hold: on a fast spike at
+    25 kHz smoothed over 9 samples it reads about a quarter of the bias (docs/accuracy.md).
 
     References
     ----------

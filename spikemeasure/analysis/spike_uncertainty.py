@@ -5,7 +5,8 @@ as its autocovariance, so its spectrum (white noise, filtered noise, mains hum) 
 Each spike value is, to first order, a weighted sum of the samples around the spike; its SD is
 that sum applied to the measured noise (:mod:`~spikemeasure.analysis.noise_model`):
 ``sqrt(w' C w)`` with C the noise autocovariance. The weights follow the estimators of
-:mod:`~spikemeasure.analysis.spike_features` step by step.
+:mod:`~spikemeasure.analysis.spike_features` step by step. The biases the recording measures
+(between samples, from smoothing, from drift) are added in quadrature, per estimator.
 Functions take arrays and a sampling rate and return arrays; nothing here reads files or prints.
 """
 from __future__ import annotations
@@ -506,6 +507,12 @@ def spike_uncertainty(voltage_mv: np.ndarray, sampling_rate_hz: float,
     / slope; the level is (threshold + peak) / 2. AHP depth is threshold minus trough, one
     functional, so noise common to both (a slow hum) cancels as it does in the value.
 
+    Besides the noise, each SD holds, in quadrature, the biases the recording itself
+    measures (:func:`_biases`: the onset window's and the max dV/dt's smoothing, the splines
+    and the linear crossings between samples, a drift since the quiet stretch), each
+    estimated from the samples; a bias read as a weighted sum b of them counts as
+    sqrt(max(b**2 - s**2, 0)), s the noise SD of b.
+
     References
     ----------
     .. [1] A. Savitzky and M. J. E. Golay, "Smoothing and differentiation of data by
@@ -571,7 +578,7 @@ def _biases(v: np.ndarray, rate: float, spikes: SpikeMeasurements, noise: NoiseM
     - the smoothing bias of the largest dV/dt;
     - the interpolation error of the splines between samples (the peak where no fit was
       made, and through the half-amplitude level the half-width; the largest dV/dt): the
-      bound of a cubic spline's error (Hall and Meyer 1976) with the largest fourth
+      bound of a cubic spline's error (Hall and Meyer 1976, from memory) with the largest fourth
       difference of its samples for h**4 times the fourth derivative, as the SD of a
       uniform error within it (:data:`BOUND_TO_SD`).
     `estimated` holds those read from the recording as weighted sums of its samples.
