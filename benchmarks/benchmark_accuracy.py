@@ -14,7 +14,8 @@ temporary folder, measured by spikemeasure.api.measure as a user would. The trut
 by spikemeasure.testing.reference, a plain implementation of the definitions of
 docs/measurements.md on the noise-free trace at 200 kHz. Results: per feature, the share within
 tolerance, the median error and, for the uncertainty (_sd) columns the tables have, the share
-of values whose truth lies within +/- 2 SD; missed and extra spikes. Markdown goes to stdout
+of values whose truth lies within +/- 2 SD (also per acquisition, noise level and artefacts);
+missed and extra spikes. Markdown goes to stdout
 and to benchmarks/output/benchmark_accuracy.md (not committed).
 """
 from __future__ import annotations
@@ -345,6 +346,29 @@ def group_table(out: Comparisons, key: str, median: bool = False) -> list[str]:
     return lines
 
 
+def coverage_table(out: Comparisons, key: str) -> list[str]:
+    """Markdown rows: per feature with an SD column the tables have and per value of a
+    condition `key`, the share of values whose truth lies within +/- 2 SD."""
+    names = list(dict.fromkeys(c[key] for conds in out.condition.values() for c in conds))
+    lines = ["| feature | " + " | ".join(names) + " |", "| --- |" + " --- |" * len(names)]
+    for feature in SD_FEATURES:
+        if feature not in out.truth:
+            continue
+        error = np.asarray(out.measured[feature]) - np.asarray(out.truth[feature])
+        sd = np.asarray(out.sd[feature])
+        has_sd = np.isfinite(error) & np.isfinite(sd)
+        if not has_sd.any():
+            continue
+        where = np.asarray([c[key] for c in out.condition[feature]])
+        cells = []
+        for name in names:
+            here = has_sd & (where == name)
+            cells.append(f"{np.mean(np.abs(error[here]) <= 2 * sd[here]):.1%}" if here.any()
+                         else "-")
+        lines.append(f"| {feature} | " + " | ".join(cells) + " |")
+    return lines
+
+
 def empty_table(out: Comparisons) -> list[str]:
     """Markdown rows: values left empty where the truth has one, with the rows' flags."""
     lines = ["| feature | empty | flags of those rows (count) |", "| --- | --- | --- |"]
@@ -416,6 +440,8 @@ def main() -> None:
     lines += ["", "### Per feature", ""] + feature_table(out)
     for key in ("acquisition", "noise", "artefacts", "model"):
         lines += ["", f"### Share within tolerance per {key}", ""] + group_table(out, key)
+    for key in ("acquisition", "noise", "artefacts"):
+        lines += ["", f"### Truth within +/- 2 SD per {key}", ""] + coverage_table(out, key)
     lines += ["", "### Median error per acquisition (relative where the tolerance is)", ""]
     lines += group_table(out, "acquisition", median=True)
     lines += ["", "### Empty values", ""] + empty_table(out)

@@ -169,8 +169,9 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
            "interpolated between samples, and with the default threshold method as a voltage "
            "whose rate grows exponentially between them (its growth that of the crossing).",
            4),
-    Column("threshold_mv_sd", "mV", "SD of threshold_mv that the recording's noise implies "
-           "(see *Uncertainty of spike values*). Empty with `--threshold-method "
+    Column("threshold_mv_sd", "mV", "SD of threshold_mv that the recording's noise implies, "
+           "with the biases it measures (the onset window's smoothing, drift since the quiet "
+           "stretch; see *Uncertainty of spike values*). Empty with `--threshold-method "
            "second_derivative_peak`, and when the sweep has no stimulus or no quiet stretch "
            f"of {MIN_QUIET_MS:g} ms before it.", 4, compute=partial(sd_values, name="threshold_mv_sd")),
     Column("peak_s", "s", "Time of the peak, between samples: the maximum of a local quartic "
@@ -182,7 +183,8 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
            "sampled coarsely), the maximum of the cubic spline through the largest sample and "
            "three samples either side. See *Extremes between samples*.", 7, is_time=True),
     Column("peak_mv", "mV", "Voltage at that maximum.", 4),
-    Column("peak_mv_sd", "mV", "SD of peak_mv that the recording's noise implies.", 4,
+    Column("peak_mv_sd", "mV", "SD of peak_mv that the recording's noise implies, with the "
+           "biases it measures (the spline between samples, drift since the quiet stretch).", 4,
            compute=partial(sd_values, name="peak_mv_sd")),
     Column("amplitude_mv", "mV", "peak_mv - threshold_mv.", 4),
     Column("half_width_ms", "ms", "Time between the upward crossing (the last before the peak) "
@@ -193,7 +195,8 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
            f"when fewer than {_option('min_samples_across_width')} "
            f"({_default('min_samples_across_width')}) samples lie above the level.", 5),
     Column("half_width_ms_sd", "ms", "SD of half_width_ms that the recording's noise "
-           "implies.", 5, compute=partial(sd_values, name="half_width_ms_sd")),
+           "implies, with the biases it measures (the crossings' interpolation, the level's "
+           "biases).", 5, compute=partial(sd_values, name="half_width_ms_sd")),
     Column("rise_time_ms", "ms", "peak_s - threshold_s.", 5),
     Column("max_dvdt_v_per_s", "V/s", "Largest dV/dt from threshold to peak, between samples: "
            "the maximum of the derivative of the quintic spline through the 13 samples around "
@@ -202,7 +205,8 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
            f"{_option('rate_smoothing_ms')} ({_default('rate_smoothing_ms')}); see the "
            "detection section.", 3),
     Column("max_dvdt_v_per_s_sd", "V/s", "SD of max_dvdt_v_per_s that the recording's noise "
-           "implies.", 3, compute=partial(sd_values, name="max_dvdt_v_per_s_sd")),
+           "implies, with the biases it measures (the spline between samples, the "
+           "smoothing).", 3, compute=partial(sd_values, name="max_dvdt_v_per_s_sd")),
     Column("min_dvdt_v_per_s", "V/s", "Most negative dV/dt from peak to trough, between "
            "samples: the minimum of the derivative of a local quintic least-squares fit around "
            "the steepest fall, over the shortest window whose rate noise, from the noise "
@@ -229,8 +233,9 @@ SPIKE_COLUMNS: tuple[Column, ...] = (
     Column("trough_mv", "mV", "Voltage at trough_s.", 4),
     Column("ahp_depth_mv", "mV", "Depth of the afterhyperpolarization: threshold_mv - trough_mv "
            "(positive when the trough lies below threshold).", 4),
-    Column("ahp_depth_mv_sd", "mV", "SD of ahp_depth_mv that the recording's noise implies.",
-           4, compute=partial(sd_values, name="ahp_depth_mv_sd")),
+    Column("ahp_depth_mv_sd", "mV", "SD of ahp_depth_mv that the recording's noise implies, "
+           "with the onset window's smoothing bias of the threshold.", 4,
+           compute=partial(sd_values, name="ahp_depth_mv_sd")),
     Column("isi_ms", "ms", "Interspike interval: threshold_s minus the previous spike's "
            "threshold_s in the same sweep; empty for a sweep's first spike.", 5),
     Column("peak_to_trough_ms", "ms", "trough_s - peak_s, in ms: how long after its peak the "

@@ -184,7 +184,7 @@ def _rate_extreme(v: np.ndarray, a: int, b: int, noise_mv: float, longest: int,
     would leave the trace. With `with_weights`, also (centre sample, weights): the extreme is
     (to first order, the grid point's sub-sample refinement aside) the dot product of the
     weights with the raw samples centred there, so noise propagates through them."""
-    nothing = (np.nan, 0, None) if with_weights else np.nan
+    nothing = (np.nan, 0, None, None, None) if with_weights else np.nan
     a, b = max(a, 1), min(b, v.size - 2)
     if b <= a:
         return nothing
@@ -209,21 +209,48 @@ def _rate_extreme(v: np.ndarray, a: int, b: int, noise_mv: float, longest: int,
     value = sign * (here - 0.25 * (prev - nxt) * delta)
     if not with_weights:
         return value
+    # the largest fourth difference of the spline's samples around its extreme
+    at = int(np.argmax(np.abs(np.diff(samples[spline_half - 3:spline_half + 4], 4))))
+    return (value, j) + _extreme_weights(best, window, at)
+
+
+@lru_cache(maxsize=4096)
+def _extreme_weights(best: int, window: int, at: int
+                     ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(weights of the value, of the smoothing's bias, of the fourth difference at centre
+    j - 1 + `at`) on the raw samples around the centre, for the spline's grid point `best`
+    and the smoothing `window` (read-only: cached)."""
+    spline_half = RATE_SPLINE_HALF_SAMPLES
     weights = _rate_spline_weights()[best]
+    fourth = np.zeros(2 * spline_half + 1)
+    fourth[spline_half - 3 + at:spline_half + 2 + at] = (1.0, -4.0, 6.0, -4.0, 1.0)
     if window > 1:
-        weights = np.convolve(weights, _quartic_smoothing(window))
-    return value, j, weights
+        half = window // 2
+        smoothing = _quartic_smoothing(window)
+        # the smoothing's bias read on the smoothed samples (smoothed once more, less once)
+        twice = np.convolve(smoothing, smoothing)
+        twice[half:half + window] -= smoothing
+        out = (np.convolve(weights, smoothing), np.convolve(weights, twice),
+               np.convolve(fourth, smoothing))
+    else:
+        out = (weights.copy(), np.zeros(1), fourth)
+    for row in out:
+        row.flags.writeable = False
+    return out
 
 
 def max_rate_weights(voltage_mv: np.ndarray, sampling_rate_hz: float,
                      threshold_position: np.ndarray, peak_position: np.ndarray,
-                     smoothing_ms: float = 0.1) -> tuple[np.ndarray, np.ndarray]:
+                     smoothing_ms: float = 0.1, smoothing_bias: bool = False) -> tuple:
     """The linear weights through which each spike's max dV/dt depends on its samples.
 
     Parameters
     ----------
     voltage_mv, sampling_rate_hz, threshold_position, peak_position, smoothing_ms
         As for :func:`rate_extremes`.
+    smoothing_bias : bool, optional
+        Also return the weights of the smoothing's bias and of a fourth difference (see
+        Notes).
 
     Returns
     -------
@@ -232,15 +259,34 @@ def max_rate_weights(voltage_mv: np.ndarray, sampling_rate_hz: float,
     weights : ndarray, shape (n, L)
         max_dvdt_v_per_s is (to first order) ``weights[k] @ v[centre[k] - L // 2:
         centre[k] + L // 2 + 1]``, in V/s per mV; rows of NaN where it is not measured.
+    bias_weights : ndarray, shape (n, L)
+        Only with `smoothing_bias`: ``bias_weights[k]`` dotted with the same samples is the
+        estimate of how far the smoothing moved the value (V/s; 0 where none smoothed).
+    fourth_weights : ndarray, shape (n, L)
+        Only with `smoothing_bias`: the largest (in size) fourth difference of the samples
+        the spline passes through, at centres within a sample of its extreme (mV), as
+        weights on the same samples: h**4 times the fourth derivative somewhere in its span
+        (mean value theorem), for the spline's interpolation error.
 
     Notes
     -----
     The estimator of :func:`rate_extremes` is linear in the samples once its smoothing
-    window and the grid point of its extreme are chosen (a local quartic fit, then the
-    quintic spline's derivative at that point): the weights are the spline's derivative
+    window and the grid point of its extreme are chosen (a local quartic fit S, then the
+    quintic spline's derivative D at that point): the weights are the spline's derivative
     weights at that point convolved with the fit's. Noise moves those choices too, which
     first-order propagation leaves out (the grid point lies at an extreme, where moving it
     changes the value only to second order).
+
+    The smoothing's bias on the signal f is D (S - I) f. It is read on the recording as
+    D (S - I) S v: the smoothed samples stand for f, the first term of twicing [1]_, whose
+    noise is small (two smoothings). It leaves out the spike's content where the smoothing's
+    gain is far below 1, which the smoothed samples no longer hold: on a fast spike at
+    25 kHz smoothed over 9 samples it reads about a quarter of the bias (docs/accuracy.md).
+
+    References
+    ----------
+    .. [1] J. W. Tukey, "Exploratory Data Analysis", Addison-Wesley, 1977, ch. 16
+       (twicing; from memory).
     """
     v = np.asarray(voltage_mv, dtype=float)
     fs = float(sampling_rate_hz)
@@ -254,17 +300,21 @@ def max_rate_weights(voltage_mv: np.ndarray, sampling_rate_hz: float,
             found.append(_rate_extreme(v, int(np.floor(t)), int(round(peak_position[k])),
                                        noise[k], longest, True, with_weights=True))
         else:
-            found.append((np.nan, 0, None))
-    width = max([w.size for _, _, w in found if w is not None] + [1])
+            found.append((np.nan, 0, None, None, None))
+    width = max([max(w.size, b.size) for _, _, w, b, _ in found if w is not None] + [1])
     centre = np.zeros(n, dtype=np.int64)
     weights = np.full((n, width), np.nan)
-    for k, (_, j, w) in enumerate(found):
+    bias = np.full((n, width), np.nan)
+    fourth = np.full((n, width), np.nan)
+    for k, (_, j, w, b, d4) in enumerate(found):
         if w is not None:
-            pad = (width - w.size) // 2
-            weights[k] = 0.0
-            weights[k, pad:pad + w.size] = w * fs / 1e3
             centre[k] = j
-    return centre, weights
+            for out, row, scale in ((weights, w, fs / 1e3), (bias, b, fs / 1e3),
+                                    (fourth, d4, 1.0)):
+                pad = (width - row.size) // 2
+                out[k] = 0.0
+                out[k, pad:pad + row.size] = row * scale
+    return (centre, weights, bias, fourth) if smoothing_bias else (centre, weights)
 
 
 #: Polynomial order of the local fit whose derivative gives min dV/dt.

@@ -5,7 +5,8 @@ as its autocovariance, so its spectrum (white noise, filtered noise, mains hum) 
 Each spike value is, to first order, a weighted sum of the samples around the spike; its SD is
 that sum applied to the measured noise (:mod:`~spikemeasure.analysis.noise_model`):
 ``sqrt(w' C w)`` with C the noise autocovariance. The weights follow the estimators of
-:mod:`~spikemeasure.analysis.spike_features` step by step.
+:mod:`~spikemeasure.analysis.spike_features` step by step. The biases the recording measures
+(between samples, from smoothing, from drift) are added in quadrature, per estimator.
 Functions take arrays and a sampling rate and return arrays; nothing here reads files or prints.
 """
 from __future__ import annotations
@@ -24,8 +25,8 @@ from .spike_features import PEAK_ORDER, onset_window, peak_windows
 from .spike_rates import max_rate_weights, noise_before
 from .sweeps import CurrentStep
 # the noise the SDs are computed from, importable from here as before
-from .noise_model import (MAX_QUIET_MS, MIN_QUIET_MS, SPIKE_CLEARANCE_MS, NoiseModel,
-                          measured_noise, quiet_stretch)
+from .noise_model import (DRIFT_BLOCK_MS, MAX_QUIET_MS, MIN_QUIET_MS, SPIKE_CLEARANCE_MS,
+                          NoiseModel, measured_noise, quiet_stretch)
 
 __all__ = ["NoiseModel", "SpikeUncertainty", "SpikesWithUncertainty", "SD_COLUMNS",
            "MIN_QUIET_MS", "MAX_QUIET_MS", "SPIKE_CLEARANCE_MS", "quiet_stretch",
@@ -97,6 +98,16 @@ class _Filter:
                 pos=half + int(k), use="dot"))
         return weights, inner
 _UNIT = np.ones(1)
+_FOURTH_DIFFERENCE = np.array([1.0, -4.0, 6.0, -4.0, 1.0])
+#: Bounds of a cubic spline's interpolation error, per h**4 times the largest fourth
+#: derivative: 5/384 on the value and sqrt(3)/216 + 1/24 on its first derivative (per sample)
+#: (Hall and Meyer 1976, from memory).
+SPLINE_VALUE_BOUND = 5.0 / 384.0
+SPLINE_SLOPE_BOUND = np.sqrt(3.0) / 216.0 + 1.0 / 24.0
+#: An error known only to lie within +/- a bound counts with the SD of a uniform distribution
+#: over that range, bound / sqrt(3) (JCGM 100:2008, the Guide to the expression of
+#: uncertainty in measurement, 4.3.7).
+BOUND_TO_SD = 1.0 / np.sqrt(3.0)
 _QUADRATIC_ELEMENTS = 4_000_000   # (spikes x weights^2) evaluated at once, to bound memory
 _spline_cache: list[CubicSpline] = []
 
@@ -260,12 +271,13 @@ def _threshold_terms(v: np.ndarray, kernels: dict, position: np.ndarray, peak: n
 
 
 def _peak_terms(v: np.ndarray, position: np.ndarray, threshold: np.ndarray,
-                threshold_mv: np.ndarray) -> list[_Term]:
+                threshold_mv: np.ndarray) -> tuple[list[_Term], list[_Term]]:
     """Peak voltage at its maximum (the position's own shift changes the value only to second
     order there): the local quartic fit over the window
     :func:`~spikemeasure.analysis.spike_features.peak_windows` chooses again, centred on the
     nearest sample; where the spike is too narrow for a fit, the spline through the largest
-    sample p and three either side."""
+    sample p and three either side; and the weights of that spline's interpolation error
+    bound (zero where the fit is used)."""
     near = np.round(np.nan_to_num(position)).astype(np.int64)
     around = np.clip(near[:, None] + np.arange(-1, 2), 0, v.size - 1)
     p = around[np.arange(near.size), np.argmax(v[around], axis=1)]
@@ -275,7 +287,14 @@ def _peak_terms(v: np.ndarray, position: np.ndarray, threshold: np.ndarray,
     weights[fit] = 0.0
     spline = [(_UNIT, p + k, weights[:, k + 3]) for k in range(-3, 4)]
     rows = fit_weights_at(windows, np.where(fit, position - near, 0.0), PEAK_ORDER, 0)
-    return spline + [(rows, near, fit.astype(float))]
+    # where the spline is kept, its interpolation error: the largest fourth difference of
+    # its samples within a sample of the largest, times the bound's constant
+    idx = np.clip(p[:, None] + np.arange(-3, 4), 0, v.size - 1)
+    fourth = np.diff(v[idx], 4, axis=1)                      # centres p - 1, p, p + 1
+    at = np.argmax(np.abs(np.nan_to_num(fourth)), axis=1) - 1
+    bound = np.where(fit, 0.0, SPLINE_VALUE_BOUND * BOUND_TO_SD)
+    return (spline + [(rows, near, fit.astype(float))],
+            [(_FOURTH_DIFFERENCE, p + at, bound)])
 
 
 def _crossing_terms(v: np.ndarray, position: np.ndarray, level: list[_Term]) -> list[_Term]:
@@ -315,12 +334,20 @@ def _width_terms(v: np.ndarray, rate: float, start: np.ndarray, end: np.ndarray,
 
 
 def _max_rate_terms(v: np.ndarray, rate: float, threshold: np.ndarray, peak: np.ndarray,
-                    settings: DetectionSettings) -> list[_Term]:
+                    settings: DetectionSettings
+                    ) -> tuple[list[_Term], list[_Term], list[_Term]]:
     """Largest dV/dt: the estimator's own weights on the samples
     (:func:`~spikemeasure.analysis.spike_rates.max_rate_weights`: the noise-matched local
-    quartic fit, then the quintic spline's derivative at its extreme)."""
-    centre, weights = max_rate_weights(v, rate, threshold, peak, settings.rate_smoothing_ms)
-    return [(weights, centre, np.ones(centre.size))]
+    quartic fit, then the quintic spline's derivative at its extreme), and those of its
+    smoothing's bias read on the recording and of its spline's interpolation error bound
+    (the cubic spline's, which a quintic through the same samples meets as well or better
+    where the samples resolve the rise)."""
+    centre, weights, bias, fourth = max_rate_weights(
+        v, rate, threshold, peak, settings.rate_smoothing_ms, smoothing_bias=True)
+    one = np.ones(centre.size)
+    return ([(weights, centre, one)], [(bias, centre, one)],
+            [(fourth, centre, np.full(centre.size,
+                                      SPLINE_SLOPE_BOUND * BOUND_TO_SD * rate / 1e3))])
 
 
 def _trough_terms(kernels: dict, position: np.ndarray) -> list[_Term]:
@@ -329,9 +356,44 @@ def _trough_terms(kernels: dict, position: np.ndarray) -> list[_Term]:
     return _vertex_terms(kernels["smooth"], centre, position - centre)
 
 
-def _sd(terms: list[_Term], noise: NoiseModel, n_samples: int) -> np.ndarray:
-    """sqrt(w' C w) per spike, C the noise autocovariance; NaN where a coefficient is NaN or
-    a kernel leaves the trace."""
+def _crossing_interpolation_terms(v: np.ndarray, position: np.ndarray) -> list[_Term]:
+    """How far (samples) the linear interpolation moved a crossing between samples k and
+    k+1, as weights on the samples: the chord lies c b (1 - b) / 2 above a curve of second
+    difference c at fraction b [1]_, which moves the crossing by that over the step
+    v[k+1] - v[k]; c is the second difference at k and at k+1, interpolated at b.
+
+    References
+    ----------
+    .. [1] F. B. Hildebrand, "Introduction to Numerical Analysis", 2nd ed., McGraw-Hill,
+       1974, sec. 2.6 (the error of linear interpolation; from memory).
+    """
+    k = np.floor(np.nan_to_num(position)).astype(np.int64)
+    b = position - k
+    inside = (k >= 1) & (k + 2 < v.size)
+    kk = np.clip(k, 1, max(1, v.size - 3))
+    step = np.where(inside, v[np.clip(kk + 1, 0, v.size - 1)] - v[kk], np.nan)
+    scale = 0.5 * b * (1.0 - b) / np.where(step != 0.0, step, np.nan)
+    # second differences at k and k + 1, on samples k - 1 .. k + 2 (centred between k, k+1:
+    # a kernel of four samples around the centre k + 1, padded to five)
+    rows = np.stack([(1.0 - b), -2.0 * (1.0 - b) + b, (1.0 - b) - 2.0 * b, b,
+                     np.zeros_like(b)], axis=1)
+    return [(rows * scale[:, None], k + 1, -np.ones(k.size))]
+
+
+def _bias_sd(terms: list[_Term], v: np.ndarray, noise: NoiseModel) -> np.ndarray:
+    """The size of a bias estimated from the recording as the weighted sum `terms` of its
+    samples: sqrt(max(b**2 - s**2, 0)), b the sum and s its noise SD, whose expectation is
+    the squared bias (the noise's share of b**2 taken out); 0 where unknown."""
+    pos, w, valid = _combined(terms, v.size)
+    value = np.einsum("ij,ij->i", w, v[np.clip(pos, 0, v.size - 1)])
+    sd = _sd(terms, noise, v.size)
+    size = np.sqrt(np.clip(value * value - sd * sd, 0.0, None))
+    return np.where(valid & np.isfinite(size), size, 0.0)
+
+
+def _combined(terms: list[_Term], n_samples: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(positions, weights, valid) per spike of a sum of terms: the samples and their
+    weights (zero in rows not valid: a coefficient NaN or a kernel off the trace)."""
     positions, weights = [], []
     for kernel, centre, coef in terms:
         if isinstance(kernel, _Filter):
@@ -342,7 +404,14 @@ def _sd(terms: list[_Term], noise: NoiseModel, n_samples: int) -> np.ndarray:
         weights.append(np.asarray(coef, dtype=float)[:, None] * np.atleast_2d(kernel))
     pos, w = np.concatenate(positions, axis=1), np.concatenate(weights, axis=1)
     valid = np.isfinite(w).all(axis=1) & ((pos >= 0) & (pos < n_samples)).all(axis=1)
-    pos, w = _merged(pos, np.where(valid[:, None], w, 0.0))
+    return pos, np.where(valid[:, None], w, 0.0), valid
+
+
+def _sd(terms: list[_Term], noise: NoiseModel, n_samples: int) -> np.ndarray:
+    """sqrt(w' C w) per spike, C the noise autocovariance; NaN where a coefficient is NaN or
+    a kernel leaves the trace."""
+    pos, w, valid = _combined(terms, n_samples)
+    pos, w = _merged(pos, w)
     pos, w = _nonzero_first(pos, w)
     acov = noise.autocovariance_mv2
     variance = np.empty(pos.shape[0])
@@ -440,6 +509,12 @@ def spike_uncertainty(voltage_mv: np.ndarray, sampling_rate_hz: float,
     / slope; the level is (threshold + peak) / 2. AHP depth is threshold minus trough, one
     functional, so noise common to both (a slow hum) cancels as it does in the value.
 
+    Besides the noise, each SD holds, in quadrature, the biases the recording itself
+    measures (:func:`_biases`: the onset window's and the max dV/dt's smoothing, the splines
+    and the linear crossings between samples, a drift since the quiet stretch), each
+    estimated from the samples; a bias read as a weighted sum b of them counts as
+    sqrt(max(b**2 - s**2, 0)), s the noise SD of b.
+
     References
     ----------
     .. [1] A. Savitzky and M. J. E. Golay, "Smoothing and differentiation of data by
@@ -462,30 +537,67 @@ def spike_uncertainty(voltage_mv: np.ndarray, sampling_rate_hz: float,
     peak_at = np.asarray(spikes.peak_s, dtype=float) * rate
     peak_sample = np.round(np.nan_to_num(peak_at)).astype(np.int64)
     threshold = _threshold_terms(v, kernels, thr, peak_sample, settings)
-    peak = _peak_terms(v, peak_at, thr, np.asarray(spikes.threshold_mv, dtype=float))
-    width = _width_terms(v, rate, np.asarray(spikes.half_width_start_s) * rate,
-                         np.asarray(spikes.half_width_end_s) * rate, threshold, peak)
+    peak, peak_interpolation = _peak_terms(v, peak_at, thr,
+                                           np.asarray(spikes.threshold_mv, dtype=float))
+    up = np.asarray(spikes.half_width_start_s) * rate
+    down = np.asarray(spikes.half_width_end_s) * rate
+    width = _width_terms(v, rate, up, down, threshold, peak)
     ahp = threshold + _scaled(_trough_terms(kernels, np.asarray(spikes.trough_s) * rate), -1.0)
+    max_rate, max_rate_bias, max_rate_interpolation = _max_rate_terms(v, rate, thr, peak_at,
+                                                                      settings)
     values = {"threshold_mv_sd": (threshold, spikes.threshold_mv),
               "peak_mv_sd": (peak, spikes.peak_mv),
               "half_width_ms_sd": (width, spikes.half_width_ms),
-              "max_dvdt_v_per_s_sd": (_max_rate_terms(v, rate, thr, peak_at, settings),
-                                      spikes.max_dvdt_v_per_s),
+              "max_dvdt_v_per_s_sd": (max_rate, spikes.max_dvdt_v_per_s),
               "ahp_depth_mv_sd": (ahp, spikes.ahp_depth_mv)}
-    # the onset window's smoothing bias is no noise, but the value is that uncertain too
-    bias = _onset_smoothing_bias(v, kernels, thr, settings)
-    extra = {"threshold_mv_sd": bias, "ahp_depth_mv_sd": bias,
-             "half_width_ms_sd": 0.5 * bias * _crossing_time_per_mv(
-                 v, rate, np.asarray(spikes.half_width_start_s) * rate,
-                 np.asarray(spikes.half_width_end_s) * rate)}
+    # biases are no noise, but the value is that uncertain too: each estimated from the
+    # recording, added in quadrature (per estimator, see _biases)
+    extra = _biases(v, rate, spikes, noise, kernels, settings, thr, up, down,
+                    {"peak": peak_interpolation, "max_rate": max_rate_bias,
+                     "max_rate_interpolation": max_rate_interpolation})
     out = {}
     for name, (terms, value) in values.items():
         known = np.isfinite(np.asarray(value, dtype=float))
         sd = _sd(terms, noise, v.size)
-        if name in extra:
-            sd = np.hypot(sd, extra[name])
+        for part in extra.get(name, ()):
+            sd = np.hypot(sd, part)
         out[name] = np.where(known, sd, np.nan)
     return SpikeUncertainty(**out)
+
+
+def _biases(v: np.ndarray, rate: float, spikes: SpikeMeasurements, noise: NoiseModel,
+            kernels: dict, settings: DetectionSettings, thr: np.ndarray, up: np.ndarray,
+            down: np.ndarray, estimated: dict[str, list[_Term]]
+            ) -> dict[str, list[np.ndarray]]:
+    """Per SD column, the sizes of the biases it holds besides the noise, each estimated from
+    the recording:
+
+    - the onset window's smoothing bias of the threshold (threshold, AHP depth, and half of
+      it through the half-amplitude level, the half-width);
+    - the drift measured on the quiet stretch, continued to the threshold and to the peak
+      (their absolute voltages; AHP depth and half-width are differences it leaves);
+    - the linear interpolation of the half-width's two crossings between samples;
+    - the smoothing bias of the largest dV/dt;
+    - the interpolation error of the splines between samples (the peak where no fit was
+      made, and through the half-amplitude level the half-width; the largest dV/dt): the
+      bound of a cubic spline's error (Hall and Meyer 1976, from memory) with the largest fourth
+      difference of its samples for h**4 times the fourth derivative, as the SD of a
+      uniform error within it (:data:`BOUND_TO_SD`).
+    `estimated` holds those read from the recording as weighted sums of its samples.
+    """
+    onset = _onset_smoothing_bias(v, kernels, thr, settings)
+    peak = _bias_sd(estimated["peak"], v, noise)
+    ms = 1e3 / rate
+    crossings = (_scaled(_crossing_interpolation_terms(v, down), ms)
+                 + _scaled(_crossing_interpolation_terms(v, up), -ms))
+    per_mv = _crossing_time_per_mv(v, rate, up, down)
+    return {"threshold_mv_sd": [onset, noise.drift_since_mv(spikes.threshold_s)],
+            "ahp_depth_mv_sd": [onset],
+            "half_width_ms_sd": [0.5 * onset * per_mv, 0.5 * peak * per_mv,
+                                 _bias_sd(crossings, v, noise)],
+            "peak_mv_sd": [noise.drift_since_mv(spikes.peak_s), peak],
+            "max_dvdt_v_per_s_sd": [_bias_sd(estimated["max_rate"], v, noise),
+                                    _bias_sd(estimated["max_rate_interpolation"], v, noise)]}
 
 
 def with_uncertainty(spikes: SpikeMeasurements, voltage_mv: np.ndarray,
@@ -519,7 +631,9 @@ def with_uncertainty(spikes: SpikeMeasurements, voltage_mv: np.ndarray,
                                    spikes.peak_s))
         stretch = quiet_stretch(v.size, sampling_rate_hz, step, float(first))
         if stretch is not None:
-            noise = measured_noise(v, sampling_rate_hz, *stretch)
+            # after a test pulse the membrane may still be settling, which is not drift
+            noise = measured_noise(v, sampling_rate_hz, *stretch,
+                                   drift=not np.isfinite(step.test_pulse_start_s))
     sds = spike_uncertainty(v, sampling_rate_hz, spikes, noise, settings)
     values = {f.name: getattr(spikes, f.name) for f in fields(SpikeMeasurements)}
     return SpikesWithUncertainty(**values, **{name: getattr(sds, name) for name in SD_COLUMNS})
@@ -532,13 +646,12 @@ def uncertainty_lines() -> list[str]:
         "## Uncertainty of spike values",
         "",
         "threshold_mv_sd, peak_mv_sd, half_width_ms_sd, max_dvdt_v_per_s_sd and "
-        "ahp_depth_mv_sd are the SDs that the recording's own noise implies for each value: "
-        "how far the value would move if the same spike were recorded again with new noise "
-        "of the same kind. They do not cover a bias of the estimator itself (a window that "
-        "flattens a sharp extreme, a filter before the digitizer, a baseline drift), with one "
-        "exception the recording itself measures, added in quadrature: the smoothing bias of "
-        "the threshold's onset window (in threshold_mv_sd, ahp_depth_mv_sd and, through the "
-        "half-amplitude level, half_width_ms_sd).",
+        "ahp_depth_mv_sd are the SDs that the recording's own noise implies for each value "
+        "(how far the value would move if the same spike were recorded again with new noise "
+        "of the same kind), with, added in quadrature, the biases between samples and from "
+        "drift that the recording itself measures (see *Biases held by the SDs* below). They "
+        "do not hold what no sample shows: a filter before the digitizer, a drift before "
+        "the quiet stretch.",
         "",
         "The noise is measured on the sweep's quiet stretch: from the start of the stretch "
         "the baseline may use to the onset of the main stimulus (its last "
@@ -577,7 +690,44 @@ def uncertainty_lines() -> list[str]:
         "the level - change of the voltage) / slope of the voltage there.",
         "- AHP depth: threshold minus trough as one weighted sum, so noise common to both (a "
         "slow hum) cancels as it does in the value.",
-        "- The onset window's smoothing bias: the dV/dt of a local quadratic fit over 2m + 1 "
+        "",
+        "### Biases held by the SDs",
+        "",
+        "Each is estimated from the recording and added in quadrature; where a bias is read "
+        "as a weighted sum b of the samples, its size is sqrt(max(b^2 - s^2, 0)), s the "
+        "noise SD of that sum, whose expectation is the squared bias (the noise's share of "
+        "b^2 taken out).",
+        "",
+        "- Drift (threshold, peak): the slope of a line fitted by least squares on the quiet "
+        f"stretch (on means over {DRIFT_BLOCK_MS:g} ms) together with the mains hum (50 and "
+        "60 Hz and their harmonics, as in *Hum and drift*; a line alone takes part of a hum "
+        "for drift), its SD under the autocovariance of the fit's residual (at least the "
+        "white-noise SD), continued from the stretch's middle to the value's time: |t - "
+        "middle| sqrt(max(slope^2 - SD^2, 0)). A drift moves absolute voltages, which the "
+        "recording cannot tell from the membrane's; AHP depth and half-width are differences "
+        "it leaves. Not after a test "
+        "pulse, where the membrane may still be settling, which is not drift (as for the "
+        "passive values).",
+        "- Splines between samples (the peak where no fit was made; the largest dV/dt): a "
+        "cubic spline's error is at most 5/384 h^4 max|f''''| on the value and (sqrt(3)/216 "
+        "+ 1/24) h^3 max|f''''| on its derivative (Hall and Meyer 1976, from memory); "
+        "h^4 max|f''''| is "
+        "read as the largest fourth difference of the spline's samples within a sample of "
+        "the extreme (each equals h^4 f'''' somewhere in its span), and the bound counts "
+        "with the SD of a uniform error within it, bound / sqrt(3) (JCGM 100:2008, 4.3.7). "
+        "For max dV/dt the quintic spline meets the cubic's bound as well or better where "
+        "the samples resolve the rise, so there it holds more than the error. Half of the "
+        "peak's moves the half-amplitude level, and so the half-width.",
+        "- Linear interpolation of the half-width's crossings: between samples k and k+1 "
+        "the chord lies c b (1 - b) / 2 above a curve of second difference c at fraction b, "
+        "which moves the crossing by that over the step; c is the second difference at k and "
+        "k+1 interpolated at b.",
+        "- The largest dV/dt's smoothing (where the noise called for it): D (S - I) S v, the "
+        "smoothed samples S v standing for the signal in D (S - I) f (twicing, Tukey 1977, "
+        "from memory); "
+        "it holds only part of a large smoothing bias (the rest is of order (S - I)^2 f).",
+        "- The onset window's smoothing bias (threshold, AHP depth): the dV/dt of a local "
+        "quadratic fit over 2m + 1 "
         "samples reads a rate of curvature c (d3V/dt3 per sample squared) c (3 m^2 + 3 m - "
         "1) / 30 high (the fit's sums of x^4 and x^2; Savitzky and Golay 1964), which moves "
         "the crossing of the onset rate earlier by that over the rate's step per sample and "
@@ -589,7 +739,10 @@ def uncertainty_lines() -> list[str]:
         "Calibration (tests/analysis/test_spike_uncertainty.py): on recordings simulated "
         "from published models (Hodgkin and Huxley 1952, Wang and Buzsaki 1996, an adapting "
         "cortical cell after Pospischil et al. 2008) through a 4-pole Bessel filter of "
-        "3-10 kHz, sampled at 10-50 kHz with 0.1-0.5 mV of noise, one with 50 Hz hum, the "
-        "value measured on the noise-free recording lies within 2 SD of the noisy one in "
-        "85-99.5 % of spikes for each column.",
+        "3-10 kHz, sampled at 10-50 kHz with 0.1-0.5 mV of noise, two with 50 Hz hum and "
+        "drift, the truth (the reference measurement of the noise-free filtered trace at the "
+        "simulation rate, without hum and drift) lies within 2 SD of the noisy value in "
+        "85-99.5 % of spikes for each column. benchmarks/benchmark_sd_calibration.py "
+        "measures the coverage per acquisition, noise level and artefacts and splits the "
+        "error into bias and noise (docs/accuracy.md).",
     ]

@@ -1,12 +1,15 @@
-"""The SDs of spike values that a recording's noise implies.
+"""The SDs of spike values that a recording's noise implies, with the biases they hold.
 
 Sources: the acquisition chain of spikemeasure.testing.acquisition (published models through a
-4-pole Bessel filter, white noise, hum, sampling), whose noise-free recording (noise_mv=0,
-hum_mv=0, same filter and rate) gives the truth each SD is judged against; the definition of
-white noise (autocovariance sigma^2 at lag 0, zero elsewhere); the autocovariance of a sine of
-amplitude A, (A^2 / 2) cos(2 pi f k / fs); the Savitzky-Golay derivative's noise gain
-sqrt(12 / (N (N^2 - 1))) (Savitzky and Golay 1964); an interpolating spline passes through its
-samples.
+4-pole Bessel filter, white noise, hum, drift, sampling), whose noise-free filtered trace at the
+simulation rate (noise_mv=0, no hum or drift, same filter), measured by the plain reference
+implementation of the definitions (spikemeasure.testing.reference), gives the truth each SD is
+judged against; the definition of white noise (autocovariance sigma^2 at lag 0, zero
+elsewhere); the autocovariance of a sine of amplitude A, (A^2 / 2) cos(2 pi f k / fs); the
+variance of a least-squares slope under white noise, sigma^2 / sum((t - mean)^2); the
+Savitzky-Golay derivative's noise gain sqrt(12 / (N (N^2 - 1))) (Savitzky and Golay 1964); an
+interpolating spline passes through its samples; closed forms of a parabola's crossing and of
+a Gaussian's peak.
 """
 import numpy as np
 import pytest
@@ -23,18 +26,21 @@ from spikemeasure.errors import InvalidSettingError
 from spikemeasure.io import Recording, Sweep
 from spikemeasure.tables.build import measure_recording, spike_table
 from spikemeasure.testing.acquisition import record_commands
+from spikemeasure.testing.reference import reference_spikes
 
 SIM_RATE = 100_000.0
 ONSET_S, LENGTH_S = 0.05, 0.2
 # model, step (pA), decimation (output rate = 100 kHz / decimation), Bessel (Hz), noise (mV),
-# hum (mV, 50 Hz): rates 10-50 kHz, filters 3-10 kHz, noise 0.1-0.5 mV, one case with hum
+# hum (mV, 50 Hz) and drift (mV/s): rates 10-50 kHz, filters 3-10 kHz, noise 0.1-0.5 mV,
+# two cases with hum and drift
 CASES = [("hodgkin_huxley_1952", 100.0, 5, 5000.0, 0.2, 0.0),
          ("wang_buzsaki_1996", 60.0, 2, 10000.0, 0.1, 0.0),
          ("cortical_adapting", 400.0, 10, 3000.0, 0.5, 0.0),
          ("hodgkin_huxley_1952", 100.0, 4, 10000.0, 0.3, 0.3),
-         ("wang_buzsaki_1996", 60.0, 10, 3000.0, 0.3, 0.0),
+         ("wang_buzsaki_1996", 60.0, 10, 3000.0, 0.1, 0.3),
          ("cortical_adapting", 400.0, 2, 10000.0, 0.5, 0.0)]
 REPEATS = 5  # noisy recordings of each case
+DRIFT_PER_HUM = 3.0  # mV/s of drift per mV of hum in a case
 
 
 def _step_command(size_pa: float, rows: int) -> np.ndarray:
@@ -45,17 +51,18 @@ def _step_command(size_pa: float, rows: int) -> np.ndarray:
 
 @pytest.fixture(scope="module")
 def standard_scores():
-    """Per SD column, (measured - noise-free value) / SD for every spike matched by peak time
-    between a noisy recording and the noise-free one of the same case."""
+    """Per SD column, (measured - true value) / SD for every spike matched by peak time
+    between a noisy recording and the truth: the reference measurement of the noise-free
+    filtered trace at the simulation rate, without hum and drift."""
     scores = {name: [] for name in SD_COLUMNS}
     for model, size, decimation, bessel, noise, hum in CASES:
-        truth = record_commands(model, _step_command(size, 1), decimation=decimation,
-                                bessel_hz=bessel)
+        truth = record_commands(model, _step_command(size, 1), decimation=1, bessel_hz=bessel)
+        true = reference_spikes(truth.voltage_mv[0], SIM_RATE)
         noisy = record_commands(model, _step_command(size, REPEATS), decimation=decimation,
-                                bessel_hz=bessel, noise_mv=noise, hum_mv=hum, seed=7)
+                                bessel_hz=bessel, noise_mv=noise, hum_mv=hum,
+                                drift_mv_per_s=DRIFT_PER_HUM * hum, seed=7)
         rate = noisy.sampling_rate_hz
         step = CurrentStep(ONSET_S, LENGTH_S, size, 0.0)
-        true = measure_trace(truth.voltage_mv[0], rate, step=step)
         for v in noisy.voltage_mv:
             spikes = with_uncertainty(measure_trace(v, rate, step=step), v, rate, step)
             match = np.abs(true.peak_s[None, :] - spikes.peak_s[:, None]).argmin(axis=1)
@@ -70,9 +77,10 @@ def standard_scores():
 
 class TestCalibration:
     def test_truth_within_two_sd_in_85_to_99_5_percent(self, standard_scores):
-        # source: the noise-free recording of the same simulated cell (record_commands with
-        # noise_mv=0 and no hum, same filter and rate), measured the same way. One test for
-        # all columns, so that parallel workers do not each simulate the recordings.
+        # source: the reference measurement (spikemeasure.testing.reference) of the same
+        # simulated cell's noise-free filtered trace at the simulation rate, without hum and
+        # drift. One test for all columns, so that parallel workers do not each simulate the
+        # recordings.
         within = {}
         for name in SD_COLUMNS:
             z = standard_scores[name]
@@ -101,6 +109,39 @@ class TestMeasuredNoise:
         expected = 0.125 * np.cos(2 * np.pi * 50.0 * lags / self.RATE)
         np.testing.assert_allclose(noise.autocovariance_mv2[lags] / (1 - lags / t.size),
                                    expected, atol=0.01)
+
+    def test_drift_fitted_with_the_hum(self):
+        # source: a straight line of 2 mV/s under 50 Hz hum and white noise; the least-squares
+        # slope's SD under white noise is sigma / sqrt(sum((t - mean)^2)) (a textbook
+        # result), which the fit's own SD may only exceed (it grows for correlated noise).
+        # Over 0.12 s (six periods) a line alone takes about 0.8 mV/s of this hum for drift.
+        t = np.arange(int(0.12 * self.RATE)) / self.RATE
+        rng = np.random.default_rng(3)
+        v = -65.0 + 2.0 * t + 0.3 * np.sin(2 * np.pi * 50.0 * t) + rng.normal(0, 0.1, t.size)
+        noise = measured_noise(v, self.RATE, 0, v.size)
+        white_sd = 0.1 / np.sqrt(np.sum((t - t.mean()) ** 2))
+        assert noise.drift_sd_mv_per_s >= 0.99 * white_sd
+        assert noise.drift_sd_mv_per_s < 2.0 * white_sd
+        assert abs(noise.drift_mv_per_s - 2.0) < 4 * noise.drift_sd_mv_per_s
+        line_alone = np.polyfit(t, v, 1)[0]
+        assert abs(line_alone - 2.0) > 10 * noise.drift_sd_mv_per_s  # control
+        # after a test pulse (drift=False) a slope is settling, not drift: none is kept
+        settling = measured_noise(v, self.RATE, 0, v.size, drift=False)
+        assert settling.drift_since_mv(np.array([1.0]))[0] == 0.0
+
+    def test_drift_continued_from_the_stretch_middle(self):
+        # source: a straight line: a drift of 2 mV/s moves the voltage by 2 mV/s times the
+        # time from the middle of the stretch it was measured on (samples 0-1999 at 20 kHz:
+        # 0.04998 s); its square less the slope's noise variance when that is known
+        noise = NoiseModel(np.array([0.01]), self.RATE, 0, 2000, 2.0, 0.0)
+        middle = 1999 / 2 / self.RATE
+        np.testing.assert_allclose(noise.drift_since_mv(np.array([middle, 0.3, 0.0])),
+                                   [0.0, 2.0 * (0.3 - middle), 2.0 * middle])
+        unsure = NoiseModel(np.array([0.01]), self.RATE, 0, 2000, 2.0, 1.2)
+        assert unsure.drift_since_mv(np.array([0.3]))[0] == pytest.approx(
+            1.6 * (0.3 - middle))
+        within_noise = NoiseModel(np.array([0.01]), self.RATE, 0, 2000, 0.5, 1.0)
+        assert within_noise.drift_since_mv(np.array([0.3]))[0] == 0.0
 
     def test_too_short_or_missing_stretch_gives_none(self):
         v = np.zeros(int(self.RATE))
@@ -227,6 +268,49 @@ class TestKnownAnswers:
             spike_uncertainty(v, -1.0, s, None)
         with pytest.raises(InvalidSettingError, match="name"):
             sd_values(s, "trough_mv_sd")
+
+
+def _gaussian_train(rate: float, sigma_ms: float):
+    """Twenty Gaussian spikes (conftest.GaussianSpike's shape, 100 mV on -65 mV) whose peaks
+    fall a twentieth of a sample further from the sampling grid each, 8 ms apart."""
+    from conftest import GaussianSpike
+
+    spike = GaussianSpike(sigma_ms=sigma_ms)
+    dt = 1e3 / rate
+    peaks = 10.0 + 8.0 * np.arange(20) + dt * np.arange(20) / 20
+    t = np.arange(0.0, 180.0, dt)
+    v = np.full(t.size, spike.base_mv)
+    for p in peaks:
+        v += spike.amplitude_mv * np.exp(-(t - p) ** 2 / (2 * sigma_ms ** 2))
+    return spike, v
+
+
+class TestBiasesBetweenSamples:
+    """Without noise (a white-noise model of 1e-6 mV), the SDs hold what sampling leaves
+    uncertain; the truth is the Gaussian's closed form (conftest.GaussianSpike: peak base + A,
+    largest rate A / sigma exp(-1/2), half-width at the measured threshold's level)."""
+
+    @pytest.mark.parametrize("rate, sigma_ms", [(10_000.0, 0.15), (10_000.0, 0.25),
+                                                (20_000.0, 0.1)])
+    def test_spline_errors_within_their_sds(self, rate, sigma_ms):
+        # source: the closed forms above; the bound of a cubic spline's error (Hall and
+        # Meyer 1976, from memory) holds the peak's error whole (within sqrt(3) SD, the
+        # bound); the largest rate's and (on spikes at least 5 samples wide at half
+        # amplitude) the half-width's within 2 SD
+        spike, v = _gaussian_train(rate, sigma_ms)
+        s = measure_trace(v, rate)
+        assert len(s) == 20
+        sds = spike_uncertainty(v, rate, s, _white(1e-6, rate))
+        peak_error = s.peak_mv - (spike.base_mv + spike.amplitude_mv)
+        rate_error = s.max_dvdt_v_per_s - spike.max_rate()
+        assert np.all(np.abs(peak_error) <= np.sqrt(3) * sds.peak_mv_sd)
+        assert np.all(np.abs(rate_error) <= 2 * sds.max_dvdt_v_per_s_sd)
+        if sigma_ms * 2.355 * rate / 1e3 >= 5:
+            width_error = s.half_width_ms - np.array([spike.half_width_ms(x)
+                                                      for x in s.threshold_mv])
+            assert np.all(np.abs(width_error) <= 2 * sds.half_width_ms_sd)
+        # control: the noise alone would give SDs far below the errors
+        assert np.abs(peak_error).max() > 1e-3
 
 
 class TestInTables:
