@@ -149,9 +149,10 @@ def true_values(voltage_mv: np.ndarray, steps_pa: tuple[int, ...]) -> Truth:
     sweeps = [reference_sweep(v, fs, ONSET_S, END_S, s, sp)
               for v, s, sp in zip(voltage_mv, steps_pa, spikes)]
     passive = [k for k, s in enumerate(steps_pa) if s < 0 and sweeps[k].spike_count == 0]
-    # the smallest hyperpolarizing spike-free step, as the definition of membrane_tau_ms says
-    tau = (reference_tau_ms(voltage_mv[max(passive, key=lambda k: steps_pa[k])], fs, ONSET_S,
-                            END_S) if passive else np.nan)
+    # the three smallest hyperpolarizing spike-free steps, as the definition of
+    # membrane_tau_ms says
+    smallest = sorted(passive, key=lambda k: -steps_pa[k])[:3]
+    tau = reference_tau_ms(voltage_mv[smallest], fs, ONSET_S, END_S) if passive else np.nan
     return Truth(spikes, sweeps, reference_cell(np.asarray(steps_pa), sweeps, tau))
 
 

@@ -18,10 +18,11 @@ import numpy as np
 from .analysis.detection import DetectionSettings, smoothing_window_samples
 from .analysis.bridge import CHARGING_FIT_MS, EDGE_FIT_MS, SETTLE_MS
 from .analysis.cell_features import (CELL_FLAG_TEXT, END_FRACTION, FILTER_DELAY_MS,
-                            HOLDING_TOLERANCE_PA, TAU_SMOOTHING_MS)
-from .analysis.cell_passive import (MAX_RESIDUAL_TO_NOISE, MAX_TAU_SD_FRACTION,
-                                    MIN_DEFLECTION_TO_NOISE, NOISE_FLOOR_MV,
-                                    SLOW_SWEEP_MAX_RISE_MV)
+                            HOLDING_TOLERANCE_PA, TAU_SMOOTHING_MS, WINDOW_TAUS)
+from .analysis.cell_passive import (MAX_MISFIT_TO_DEFLECTION, MAX_RESIDUAL_TO_NOISE,
+                                    MAX_TAU_SD_FRACTION, NOISE_FLOOR_MV,
+                                    SLOW_SWEEP_MAX_RISE_MV, TAU_STEPS)
+from .analysis.membrane_tau import TURN_NOISE
 from .analysis.epochs import (MAX_EDGE_MS, MIN_LEVEL_CHANGE_PA, NOISE_MULTIPLE,
                               RESIDUAL_WINDOW_MS)
 from .analysis.spike_features import (ONSET_NOISE_FRACTION, ONSET_WINDOW_FACTOR, PEAK_NOISE_MV,
@@ -419,35 +420,54 @@ CELL_COLUMNS: tuple[Column, ...] = (
            "`bridge_error_not_separable`, when the charging is too fast to tell from the "
            "jump. input_resistance_mohm includes it.",
            3, shown_decimals=1),
-    Column("membrane_tau_ms", "ms", "Time constant of a single exponential fitted "
-           "(scipy.optimize.curve_fit) to the voltage from onset to its minimum (on a "
-           f"{TAU_SMOOTHING_MS:g} ms moving average; the fit ends where that average first "
-           f"comes within {END_FRACTION * 100:g} % of the "
-           "deflection from the minimum, about 4 tau, since the flat stretch after carries noise "
-           "but no information about tau) on the smallest hyperpolarizing spike-free step, "
-           f"leaving out the first {FILTER_DELAY_MS:g} ms after onset (time still counted "
-           "from onset), the delay of the amplifier's low-pass filter (a 4-pole Bessel at 3 "
-           "kHz or above), after which the filtered exponential keeps the membrane's tau, so "
-           "a fast membrane (tau 1-2 ms) is not read long; the first "
-           f"{SETTLE_MS:g} ms when an electrode jump (bridge_error_mohm times the step) is "
-           "over the noise. "
+    Column("membrane_tau_ms", "ms", "The membrane's time constant near rest: the one "
+           "time constant of exponentials V_j(t) = v_inf_j + (v0_j - v_inf_j) exp(-t / tau), "
+           "each step j its own end value and size, fitted together by least squares to the "
+           f"charging of the {TAU_STEPS} smallest hyperpolarizing spike-free steps (fewer "
+           "when there are fewer; they disturb an active membrane's gates least; t from "
+           "onset), each from "
+           f"{FILTER_DELAY_MS:g} ms after onset, the delay of the amplifier's low-pass "
+           "filter (a 4-pole Bessel at 3 kHz or above), after which the filtered exponential "
+           "keeps the membrane's tau, so a fast membrane (tau 1-2 ms) is not read long, to "
+           f"{WINDOW_TAUS:.1f} fitted time constants (where the fitted exponential has come "
+           f"within {END_FRACTION * 100:g} % of its end value: the flat stretch after carries "
+           "noise but little information about tau), or the step's minimum (on a centred "
+           f"moving average over the larger of {TAU_SMOOTHING_MS:g} ms and tau) where the "
+           "response turns back from it (a sag or an active membrane's undershoot: one "
+           "exponential describes the charging up to it, not the turn), that is where the "
+           f"mean of the step's last such stretch lies above the minimum by more than "
+           f"{END_FRACTION * 100:g} % of the deflection and by more than {TURN_NOISE:g} SDs "
+           "of such an average of the sweep's noise, or the step's end, whichever comes "
+           "first; the window follows the fitted tau until both agree. The first "
+           f"{SETTLE_MS:g} ms are left out instead when an electrode jump (bridge_error_mohm "
+           "times a step) is over that sweep's noise. "
            f"Empty, flagged `tau_fit_poor`, when the residual RMS is over "
-           f"{MAX_RESIDUAL_TO_NOISE:g} times the sweep's baseline noise (the response is not "
-           f"one exponential) or the deflection under {MIN_DEFLECTION_TO_NOISE:g} times it "
-           f"with membrane_tau_ms_sd over {MAX_TAU_SD_FRACTION:.0%} of tau (the noise then "
-           "cannot pin it within 10 %), or the fitted tau spans under 2 samples. "
-           "Fitted, with those tests, on the voltage less the sweep's mains hum and drift "
+           f"{MAX_RESIDUAL_TO_NOISE:g} times the steps' baseline noise and what it holds "
+           f"beyond the noise over {MAX_MISFIT_TO_DEFLECTION:.0%} of the steps' RMS "
+           "deflection (no charging curve), a fitted curve rises, or the fitted tau spans "
+           "under 2 samples; "
+           f"flagged `tau_within_noise` when membrane_tau_ms_sd is over "
+           f"{MAX_TAU_SD_FRACTION:.0%} of tau (the noise then cannot pin it within 10 %). "
+           "Fitted, with those tests, on the voltage less each sweep's mains hum and drift "
            "(see Hum and drift).", 4,
            shown_decimals=2),
     Column("membrane_tau_ms_sd", "ms", "SD of membrane_tau_ms that the recording's noise "
            "implies: the fit linearized at its solution moves the parameters by P e for "
-           "noise e (P the pseudo-inverse of the fit's Jacobian), whose covariance P C P^T "
-           "(the sandwich form; for white noise the covariance curve_fit reports, Press et "
-           "al. 2007) takes C from the power spectrum of the sweep's baseline window (of the "
-           "fit's residual when a test pulse cut that window), as for sag_fraction_sd: "
-           "filtered, correlated noise and hum count for what they are. With hum or drift "
-           "removed, P is carried through the removal, so the SD holds what their estimate "
-           "leaves.", 4,
+           "noise e (P the pseudo-inverse of the Jacobian of all steps' curves, with tau "
+           "common to them), whose covariance P C P^T (the sandwich form; for white noise "
+           "the covariance curve_fit reports, Press et al. 2007) takes C from the power "
+           "spectrum of each sweep's baseline window (of the fit's residual when a test "
+           "pulse cut that window), the sweeps' noises independent, as for "
+           "sag_fraction_sd: filtered, correlated noise and hum count for what they are; "
+           "or from the spectrum of each step's fit residual when that gives more (what "
+           "one exponential leaves of an active membrane's charging moves tau as noise of "
+           "that spectrum would). With hum or drift removed, P is carried through the "
+           "removal, so the SD holds what their estimate leaves; a drift left in (not "
+           "significant on the baselines) adds s times the sum over the steps of w . t (w "
+           "a step's weights, t its samples' times: a drift common to the sweeps), s^2 "
+           "estimated by the slope pooled over the baselines squared less its variance. The "
+           "window's end follows tau, but where one exponential fits the samples it "
+           "moves over carry no residual, so it adds nothing to first order.", 4,
            shown_decimals=2),
     Column("sag_fraction", "", "sag_fraction of the most hyperpolarizing sweep; 0, flagged "
            "`sag_within_noise`, when that sweep has the flag (see sag_fraction in sweeps.csv).",

@@ -13,19 +13,22 @@ import numpy as np
 
 from .bridge import MIN_TAU_TO_SETTLE, SETTLE_MS
 from .fluctuation import BASELINE_WINDOW_MS
-from .membrane_tau import (END_FRACTION, FILTER_DELAY_MS, TAU_SMOOTHING_MS, ExponentialFit,
-                           exponential_fit_sd, fit_membrane_tau)
+from .membrane_tau import (END_FRACTION, FILTER_DELAY_MS, TAU_SMOOTHING_MS, WINDOW_TAUS,
+                           ExponentialFit, SharedTauFit, exponential_fit_sd, fit_membrane_tau,
+                           fit_shared_tau, shared_tau_sd)
 # the passive values, importable from here as before
-from .cell_passive import (MAX_FLUCTUATION_TO_DEFLECTION, MAX_RESIDUAL_TO_NOISE,
-                           MAX_TAU_SD_FRACTION, MIN_DEFLECTION_TO_NOISE, NOISE_FLOOR_MV,
+from .cell_passive import (MAX_FLUCTUATION_TO_DEFLECTION, MAX_MISFIT_TO_DEFLECTION,
+                           MAX_RESIDUAL_TO_NOISE,
+                           MAX_TAU_SD_FRACTION, NOISE_FLOOR_MV,
                            SLOW_SWEEP_MAX_RISE_MV, input_resistance, input_resistance_sd,
                            passive_sweeps, passive_values, steps_only)
 from .sweep_passive import SAG_NOISE_FACTOR
 
-__all__ = ["CellFeatures", "ExponentialFit", "fit_membrane_tau", "rheobase", "ramp_rheobase",
-           "fi_slope", "input_resistance", "input_resistance_sd", "exponential_fit_sd",
-           "cell_features", "passive_sweeps", "CELL_FLAG_TEXT", "MAX_RESIDUAL_TO_NOISE",
-           "MIN_DEFLECTION_TO_NOISE", "MAX_TAU_SD_FRACTION", "NOISE_FLOOR_MV", "FILTER_DELAY_MS", "END_FRACTION",
+__all__ = ["CellFeatures", "ExponentialFit", "SharedTauFit", "fit_membrane_tau",
+           "fit_shared_tau", "rheobase", "ramp_rheobase", "fi_slope", "input_resistance",
+           "input_resistance_sd", "exponential_fit_sd", "shared_tau_sd", "cell_features",
+           "passive_sweeps", "CELL_FLAG_TEXT", "MAX_RESIDUAL_TO_NOISE", "MAX_MISFIT_TO_DEFLECTION",
+           "MAX_TAU_SD_FRACTION", "NOISE_FLOOR_MV", "FILTER_DELAY_MS", "END_FRACTION", "WINDOW_TAUS",
            "TAU_SMOOTHING_MS",
            "HOLDING_TOLERANCE_PA", "SLOW_SWEEP_MAX_RISE_MV", "MAX_FLUCTUATION_TO_DEFLECTION",
            "SAG_NOISE_FACTOR"]
@@ -77,9 +80,9 @@ CELL_FLAG_TEXT = {
     "input_resistance_skips_gap_sweeps": "hyperpolarizing sweeps whose baseline or steady "
                                          "state a gap emptied, or whose spikes a gap left "
                                          "uncounted, are left out of the input resistance",
-    "membrane_tau_skips_gap_sweeps": "the smallest hyperpolarizing spike-free sweep has a gap "
-                                     "in its step or baseline: the time constant is fitted on "
-                                     "the next one without a gap",
+    "membrane_tau_skips_gap_sweeps": "a hyperpolarizing spike-free sweep has a gap in its "
+                                     "step or baseline: the time constant is fitted on the "
+                                     "smallest steps without one",
     "sag_skips_gap_sweeps": "the most hyperpolarizing sweep has a gap in a window sag is "
                             "measured over: sag_fraction is that of the most hyperpolarizing "
                             "sweep without one",
@@ -87,11 +90,14 @@ CELL_FLAG_TEXT = {
                        "rheobase, f-I slope, input resistance, time constant and sag are empty",
     "no_spiking_ramp": "ramp sweeps were measured but none fired: ramp_rheobase_pa is empty",
     "tau_fit_poor": f"the exponential fit leaves a residual over {MAX_RESIDUAL_TO_NOISE:g} "
-                    "times the recording noise (the response is not one exponential), or the "
-                    f"deflection is under {MIN_DEFLECTION_TO_NOISE:g} times the noise with "
-                    f"membrane_tau_ms_sd over {MAX_TAU_SD_FRACTION:.0%} of it, or the "
-                    "fitted time constant spans under 2 samples: the "
-                    "time constant is left empty",
+                    "times the recording noise, and beyond the noise over "
+                    f"{MAX_MISFIT_TO_DEFLECTION:.0%} of the deflection (no charging curve), or "
+                    "rises on a hyperpolarizing step, or the fitted time constant spans under "
+                    "2 samples: the time constant is left empty",
+    "tau_within_noise": "the recording's noise leaves the time constant an SD over "
+                        f"{MAX_TAU_SD_FRACTION:.0%} of it (membrane_tau_ms_sd), so it cannot be "
+                        "told within 10 % (deflections too small or charging too short for "
+                        "the noise): the time constant is left empty",
     "bridge_error_not_separable": "the membrane charges too fast after the step edges (time "
                                   f"constant under {MIN_TAU_TO_SETTLE * SETTLE_MS:g} ms) to "
                                   "tell an electrode's voltage jump from the charging: "
@@ -326,23 +332,29 @@ def cell_features(sweep_rows: list[dict], traces: list[tuple[np.ndarray, float]]
       :func:`~spikemeasure.analysis.bridge.bridge_error`, and over every sweep's
       hyperpolarizing test pulse of its onset's :func:`~spikemeasure.analysis.bridge.edge_jump`
       over the pulse size.
-    - membrane_tau_ms: :func:`fit_membrane_tau` on the smallest hyperpolarizing spike-free
-      step; empty (flag ``tau_fit_poor``) when the residual RMS exceeds
-      :data:`MAX_RESIDUAL_TO_NOISE` times the sweep's baseline noise or the deflection is under
-      :data:`MIN_DEFLECTION_TO_NOISE` times it with membrane_tau_ms_sd over
-      :data:`MAX_TAU_SD_FRACTION` of tau (noise taken as at least :data:`NOISE_FLOOR_MV`),
-      or the fitted tau spans under 2 samples.
-      The fit reads the voltage less the sweep's significant hum and drift
-      (:func:`~spikemeasure.analysis.sweep_passive.passive_voltage`). R^2 alone would reject good fits to small, noisy deflections,
-      since noise caps it. Empty too (flag ``baseline_fluctuates``) when the baseline's slow
-      fluctuation (:func:`~spikemeasure.analysis.fluctuation.slow_fluctuation_mv` over a
+    - membrane_tau_ms: :func:`fit_shared_tau`, one time constant over the
+      :data:`~spikemeasure.analysis.cell_passive.TAU_STEPS` smallest hyperpolarizing
+      spike-free steps without a gap (of the smallest step's sampling rate); empty (flag
+      ``tau_fit_poor``) when the residual RMS exceeds :data:`MAX_RESIDUAL_TO_NOISE` times the
+      steps' baseline noise (noise taken as at least :data:`NOISE_FLOOR_MV`) and what it
+      holds beyond the noise over :data:`MAX_MISFIT_TO_DEFLECTION` of their RMS deflection, a step's
+      fitted curve rises, or the fitted tau spans under 2 samples; empty (flag
+      ``tau_within_noise``) when membrane_tau_ms_sd is over :data:`MAX_TAU_SD_FRACTION` of
+      tau. The fit reads the voltage less each sweep's significant hum and drift
+      (:func:`~spikemeasure.analysis.sweep_passive.passive_voltage`). R^2 alone would reject
+      good fits to small, noisy deflections, since noise caps it. Empty too (flag
+      ``baseline_fluctuates``) when the baselines' slow fluctuation
+      (:func:`~spikemeasure.analysis.fluctuation.slow_fluctuation_mv` over a
       :data:`TAU_SMOOTHING_MS` average, less in quadrature the s / sqrt(samples) white
-      noise of the baseline's SD s leaves on it) exceeds :data:`MAX_FLUCTUATION_TO_DEFLECTION` of the
-      deflection (baseline_mv - min_mv, or the fitted v0 - v_inf when smaller). The first
-      :data:`FILTER_DELAY_MS` after onset (the low-pass filter's delay) are left out of the
-      fit; when bridge_error_mohm times that sweep's step is over its noise, the first
+      noise of the baseline's SD s leaves on it) against the deflections (baseline_mv -
+      min_mv, or the fitted v0 - v_inf when smaller), combined over the steps as
+      1 / sqrt(sum (deflection / fluctuation)^2), exceeds
+      :data:`MAX_FLUCTUATION_TO_DEFLECTION`. The first :data:`FILTER_DELAY_MS` after onset
+      (the low-pass filter's delay) are left out of the fit; when bridge_error_mohm times a
+      step is over that sweep's noise, the first
       :data:`~spikemeasure.analysis.bridge.SETTLE_MS` (the jump and the filter's settling).
-      membrane_tau_ms_sd: :func:`exponential_fit_sd` with the sweep's baseline noise.
+      membrane_tau_ms_sd: :func:`shared_tau_sd` with each sweep's baseline noise, or with
+      each step's fit residual when that gives more.
     - input_resistance_mohm_sd: :func:`input_resistance_sd` of the sweeps' deflection_sd_mv.
     - sag_fraction: that of the most hyperpolarizing sweep, with the flag
       ``sag_within_noise`` when that sweep has it (its sag, 0, could not be told from noise:

@@ -12,23 +12,31 @@ import numpy as np
 
 from .bridge import SETTLE_MS, bridge_error, edge_jump
 from .fluctuation import baseline_stretch, slow_fluctuation_mv
-from .membrane_tau import FILTER_DELAY_MS, TAU_SMOOTHING_MS, exponential_fit_sd, fit_membrane_tau
+from .membrane_tau import FILTER_DELAY_MS, TAU_SMOOTHING_MS, fit_shared_tau, shared_tau_sd
 from .sweep_passive import passive_voltage
 from .sweeps import CurrentStep
 
 __all__ = ["input_resistance", "input_resistance_sd", "passive_sweeps", "passive_values",
-           "steps_only", "MAX_RESIDUAL_TO_NOISE", "MIN_DEFLECTION_TO_NOISE",
+           "steps_only", "MAX_RESIDUAL_TO_NOISE", "MAX_MISFIT_TO_DEFLECTION", "TAU_STEPS",
            "MAX_TAU_SD_FRACTION", "NOISE_FLOOR_MV", "SLOW_SWEEP_MAX_RISE_MV",
            "MAX_FLUCTUATION_TO_DEFLECTION"]
 
-#: A time-constant fit is poor when its residual RMS exceeds this multiple of the sweep's
-#: baseline noise (the response is not one exponential: resonance, sag, active currents) ...
+#: A time-constant fit is poor when its residual RMS exceeds this multiple of the steps'
+#: baseline noise (the response is not one exponential: resonance, sag, active currents).
 MAX_RESIDUAL_TO_NOISE = 1.5
-#: ... or when the deflection is smaller than this multiple of the noise (too small to fit).
-MIN_DEFLECTION_TO_NOISE = 5.0
-#: ... unless the time constant's SD (:func:`exponential_fit_sd`) is at most this fraction
-#: of it: the noise then pins it (2 SD within the 10 % a time constant is judged by).
+#: ... and the residual beyond the noise, sqrt(RMS^2 - noise^2), is over this fraction of the
+#: steps' RMS deflection: the time constant is that of one exponential fitted to whatever
+#: the charging is (an active membrane's is not one exponential), but a curve it misses by
+#: more than this is no charging curve (a rule of our own: the models' charging, active
+#: or with a sag, is followed to within about 1 %).
+MAX_MISFIT_TO_DEFLECTION = 0.05
+#: The time constant is left empty when its SD (:func:`shared_tau_sd`) is over this fraction
+#: of it: the noise then cannot pin it within the 10 % a time constant is judged by (2 SD).
 MAX_TAU_SD_FRACTION = 0.05
+#: The time constant is fitted over at most this many hyperpolarizing spike-free steps, the
+#: smallest: they disturb an active membrane's gates least, and three hold about three
+#: times one step's information (a rule of our own).
+TAU_STEPS = 3
 #: Noise below this (mV) counts as this much, so a noise-free trace is not held to zero.
 NOISE_FLOOR_MV = 0.05
 #: A hyperpolarizing sweep sampled too slowly to count spikes is taken as spike-free when no
@@ -192,11 +200,14 @@ def passive_values(col: dict, slow: np.ndarray, lower: np.ndarray, gapped: np.nd
         # hyperpolarizing and spike-free, or it would be but for a gap in its step
         pool = np.flatnonzero(hyper_all & (candidates | (lower & ~(count > 0) & ~slow)))
         fit_ok = np.flatnonzero(candidates & ~gapped)
-        if pool.size and (fit_ok.size == 0 or stim[fit_ok].max() < stim[pool].max()):
+        if pool.size > fit_ok.size:
             flags.append("membrane_tau_skips_gap_sweeps")
         if fit_ok.size:
-            _tau_value(col, int(fit_ok[np.argmax(stim[fit_ok])]), traces, sweep_flags, values,
-                       flags)
+            # the smallest steps, of one sampling rate: that of the smallest
+            rate = traces[int(fit_ok[np.argmax(stim[fit_ok])])][1]
+            same = fit_ok[[traces[j][1] == rate for j in fit_ok]]
+            _tau_value(col, same[np.argsort(-stim[same], kind="stable")][:TAU_STEPS], traces,
+                       sweep_flags, values, flags)
 
 
 def _bridge_median(col: dict, sweeps: np.ndarray, traces: list[tuple[np.ndarray, float]]
@@ -217,59 +228,90 @@ def _bridge_median(col: dict, sweeps: np.ndarray, traces: list[tuple[np.ndarray,
     return float(np.median(found)) if found else float("nan")
 
 
-def _tau_value(col: dict, j: int, traces: list[tuple[np.ndarray, float]],
+def _tau_value(col: dict, sweeps: np.ndarray, traces: list[tuple[np.ndarray, float]],
                sweep_flags: list[set], values: dict, flags: list[str]) -> None:
     """membrane_tau_ms and its fit's quality (see
-    :func:`~spikemeasure.analysis.cell_features.cell_features`) from sweep `j` into `values`,
-    their flags into `flags`."""
-    raw, rate = traces[j]
-    onset, offset = col["stimulus_start_s"][j], col["stimulus_end_s"][j]
-    quiet_s = col["baseline_start_s"][j]
-    # the fit and its tests read the membrane without the sweep's hum and drift
-    v, line_noise = passive_voltage(np.asarray(raw, dtype=float), rate, CurrentStep(
-        onset, offset, baseline_start_s=float(quiet_s) if np.isfinite(quiet_s) else 0.0,
-        test_pulse_start_s=float(col["test_pulse_start_s"][j])))
-    base_noise = (float(np.std(baseline_stretch(v, rate, onset, earliest_s=quiet_s)))
-                  if line_noise.found else float(col["baseline_noise_mv"][j]))
-    noise = max(base_noise, NOISE_FLOOR_MV) if np.isfinite(base_noise) else NOISE_FLOOR_MV
-    # an electrode jump (the cell's bridge error times this step) above the noise is left
-    # out with the filter's settling after it; without one, only the low-pass filter's
-    # delay, which lengthens a fast membrane's tau (4 % at 1.5 ms behind a 3 kHz Bessel)
-    jump = values["bridge_error_mohm"] * col["stimulus_pa"][j] * 1e-3
-    skip = SETTLE_MS if np.isfinite(jump) and abs(jump) > noise else FILTER_DELAY_MS
-    fit = fit_membrane_tau(v, rate, onset, offset, skip_ms=skip)
+    :func:`~spikemeasure.analysis.cell_features.cell_features`) from the steps of `sweeps`
+    (one sampling rate) into `values`, their flags into `flags`."""
+    rate = traces[int(sweeps[0])][1]
+    width = max(1, int(round(TAU_SMOOTHING_MS * 1e-3 * rate)))
+    # per sweep, only what the fit and its tests read: the step, the baseline, the noise
+    steps, stretches, line_noises, noises, jumps, slows, starts = [], [], [], [], [], [], []
+    for j in sweeps:
+        onset, offset = col["stimulus_start_s"][j], col["stimulus_end_s"][j]
+        quiet_s = col["baseline_start_s"][j]
+        # the fit and its tests read the membrane without the sweep's hum and drift
+        v, line_noise = passive_voltage(np.asarray(traces[j][0], dtype=float), rate,
+                                        CurrentStep(onset, offset, baseline_start_s=float(
+                                            quiet_s) if np.isfinite(quiet_s) else 0.0,
+                                            test_pulse_start_s=float(
+                                                col["test_pulse_start_s"][j])))
+        base_noise = (float(np.std(baseline_stretch(v, rate, onset, earliest_s=quiet_s)))
+                      if line_noise.found else float(col["baseline_noise_mv"][j]))
+        noise = (max(base_noise, NOISE_FLOOR_MV) if np.isfinite(base_noise)
+                 else NOISE_FLOOR_MV)
+        on, off = int(round(onset * rate)), min(v.size, int(round(offset * rate)))
+        steps.append(v[on:off].copy())
+        starts.append(on)
+        # the baseline is the longer stretch of noise (a steadier spectrum) unless a test
+        # pulse cut it short
+        stretches.append(None if "baseline_window_cut_by_epoch" in sweep_flags[j]
+                         else baseline_stretch(v, rate, onset).copy())
+        # what the baseline's moving average keeps beyond white noise's share, noise /
+        # sqrt(samples): white noise is in the fit's residual test and its SD already
+        slow = slow_fluctuation_mv(v, rate, onset, TAU_SMOOTHING_MS)
+        slows.append(float(np.sqrt(max(0.0, slow ** 2 - noise ** 2 / width))))
+        line_noises.append(line_noise)
+        noises.append(noise)
+        jumps.append(values["bridge_error_mohm"] * col["stimulus_pa"][j] * 1e-3)
+        del v
+    # an electrode jump (the cell's bridge error times a step) above that sweep's noise is
+    # left out with the filter's settling after it; without one, only the low-pass
+    # filter's delay, which lengthens a fast membrane's tau (4 % at 1.5 ms behind a 3 kHz
+    # Bessel)
+    jumped = any(np.isfinite(jump) and abs(jump) > noise for jump, noise in zip(jumps, noises))
+    skip = SETTLE_MS if jumped else FILTER_DELAY_MS
+    fit = fit_shared_tau(steps, rate, skip_ms=skip, noise_mv=noises)
     if fit is None:
         flags.append("tau_fit_failed")
         return
+    used = list(fit.steps)
+    # the steps' noise, pooled over their fitted samples
+    noise = float(np.sqrt(np.sum(fit.n_samples * np.square([noises[k] for k in used]))
+                          / np.sum(fit.n_samples)))
     ratio = fit.rms_residual_mv / noise
     values["membrane_tau_fit_r2"] = fit.r_squared
     values["membrane_tau_residual_to_noise"] = ratio
-    deflection = abs(fit.v0_mv - fit.v_inf_mv)
-    # what the moving average keeps beyond white noise's share, noise / sqrt(samples):
-    # white noise is in the fit's residual test and its SD already
-    width = max(1, int(round(TAU_SMOOTHING_MS * 1e-3 * rate)))
-    fluctuation = float(np.sqrt(max(0.0, slow_fluctuation_mv(v, rate, onset, TAU_SMOOTHING_MS)
-                                    ** 2 - noise ** 2 / width)))
-    # the deflection as measured, not as fitted: a fit bent by fluctuations can put v0 and
-    # v_inf anywhere
-    measured = min(deflection, abs(col["min_mv"][j] - col["baseline_mv"][j]))
-    # the baseline is the longer stretch of noise (a steadier spectrum) unless a test
-    # pulse cut it short
-    stretch = (None if "baseline_window_cut_by_epoch" in sweep_flags[j]
-               else baseline_stretch(v, rate, onset))
-    sd = exponential_fit_sd(
-        fit, rate, stretch, line_noise=line_noise,
-        first_sample=int(round(onset * rate)) + int(round(fit.start_ms * 1e-3 * rate)))
-    # a small deflection still gives tau when the noise leaves it precise enough, for a fit
-    # that is a charging curve at all: falling (a hyperpolarizing step) over at least a few
-    # samples per tau, where the linearized SD means something
-    pinned = (np.isfinite(sd) and sd <= MAX_TAU_SD_FRACTION * fit.tau_ms
-              and fit.v0_mv > fit.v_inf_mv and fit.tau_ms * 1e-3 * rate >= 3)
-    if (ratio > MAX_RESIDUAL_TO_NOISE or fit.tau_ms * 1e-3 * rate < 2
-            or (deflection < MIN_DEFLECTION_TO_NOISE * noise and not pinned)):
+    # the baseline's slow fluctuation against each deflection as measured, not as fitted (a
+    # fit bent by fluctuations can put v0 and v_inf anywhere), combined as the fit combines
+    # the steps (each step's weight on tau grows with its deflection squared)
+    pinning = 0.0
+    for n, k in enumerate(used):
+        j = sweeps[k]
+        measured = min(abs(fit.v0_mv[n] - fit.v_inf_mv[n]),
+                       abs(col["min_mv"][j] - col["baseline_mv"][j]))
+        if np.isfinite(slows[k]):
+            pinning += np.inf if slows[k] == 0 else (measured / slows[k]) ** 2
+    skipped = int(round(fit.start_ms * 1e-3 * rate))
+    firsts = [a + skipped for a in starts]
+    # the noise as the baselines show it, or as the residuals do when they hold more: what
+    # one exponential leaves of the charging (an active membrane's, drift left in) moves
+    # tau as noise of the residual's spectrum would (the sandwich with the residuals'
+    # covariance)
+    sds = [x for x in (shared_tau_sd(fit, rate, stretches, line_noise=line_noises,
+                                     first_sample=firsts),
+                       shared_tau_sd(fit, rate, [None] * len(sweeps), line_noise=line_noises,
+                                     first_sample=firsts)) if np.isfinite(x)]
+    sd = max(sds) if sds else float("nan")
+    misfit = float(np.sqrt(max(0.0, fit.rms_residual_mv ** 2 - noise ** 2)))
+    size = float(np.sqrt(np.mean((fit.v0_mv - fit.v_inf_mv) ** 2)))
+    if ((ratio > MAX_RESIDUAL_TO_NOISE and misfit > MAX_MISFIT_TO_DEFLECTION * size)
+            or fit.tau_ms * 1e-3 * rate < 2 or not np.all(fit.v0_mv > fit.v_inf_mv)):
         flags.append("tau_fit_poor")
-    elif np.isfinite(fluctuation) and fluctuation > MAX_FLUCTUATION_TO_DEFLECTION * measured:
+    elif pinning and 1.0 / np.sqrt(pinning) > MAX_FLUCTUATION_TO_DEFLECTION:
         flags.append("baseline_fluctuates")
+    elif not (np.isfinite(sd) and sd <= MAX_TAU_SD_FRACTION * fit.tau_ms):
+        flags.append("tau_within_noise")
     else:
         values["membrane_tau_ms"] = fit.tau_ms
         values["membrane_tau_ms_sd"] = sd

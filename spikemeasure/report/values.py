@@ -65,6 +65,7 @@ FLAG_COLUMNS: dict[str, tuple[str, ...]] = {
     "no_step_stimuli": _STEP_VALUES,
     "no_spiking_ramp": ("ramp_rheobase_pa",),
     "tau_fit_poor": _TAU,
+    "tau_within_noise": _TAU,
     "bridge_error_not_separable": ("bridge_error_mohm",),
     "baseline_fluctuates": _TAU,
     "sag_within_noise": ("sag_fraction",),

@@ -23,7 +23,7 @@ LOWEST_PEAK_MV = -20.0
 PEAK_WINDOW_S = 0.005
 SEARCH_WINDOW_S = 0.2
 WINDOW_S = 0.1              # baseline and steady-state windows
-MOVING_AVERAGE_S = 0.001    # min_mv and the end of the time-constant fit
+MOVING_AVERAGE_S = 0.001    # min_mv and the latest end of the time-constant fit
 
 
 @dataclass(frozen=True)
@@ -192,27 +192,60 @@ def reference_sweep(voltage_mv: np.ndarray, sampling_rate_hz: float, onset_s: fl
                           firing_rate_hz=inside.size / (end_s - onset_s))
 
 
-def _exponential(t_ms, offset, size, tau_ms):
-    return offset + size * np.exp(-t_ms / tau_ms)
+TAU_SKIP_S = 0.0001          # membrane_tau_ms: the filter's delay left out after onset
+TAU_END_FRACTION = 0.02      # ... and the fitted exponential's end, 2 % from its end value
+
+
+def _turn(v: np.ndarray, n: int) -> int:
+    """Where the centred moving average of n samples (the ends padded with the end values)
+    is lowest, if the mean of the last n samples lies over that by more than 2 % of the
+    drop to it from the first 3 samples' mean (the response turns back: a sag); else the
+    last sample."""
+    padded = np.pad(v, (n // 2, n - 1 - n // 2), mode="edge")
+    average = np.convolve(padded, np.ones(n) / n, mode="valid")
+    low = int(np.argmin(average))
+    rise = v[-n:].mean() - average[low]
+    return low if rise > TAU_END_FRACTION * (v[:3].mean() - average[low]) else v.size - 1
 
 
 def reference_tau_ms(voltage_mv: np.ndarray, sampling_rate_hz: float, onset_s: float,
                      end_s: float) -> float:
-    """Time constant of one exponential fitted (scipy.optimize.curve_fit) from onset to where
-    the 1 ms moving average first comes within 2 % of the deflection from its minimum."""
+    """The one time constant of exponentials fitted (scipy.optimize.curve_fit, each sweep
+    its own end value and size) to the charging of every sweep given (rows of `voltage_mv`:
+    the hyperpolarizing spike-free steps), each from 0.1 ms after onset to where the fitted
+    exponential comes within 2 % of its end value (ln 50 time constants) or the sweep's
+    moving average over max(1 ms, tau) has its minimum, if the response turns back from it
+    by over 2 % of its drop, whichever comes first; refitted with the windows of the last
+    tau until it stays put."""
     fs = float(sampling_rate_hz)
     on, off = int(round(onset_s * fs)), int(round(end_s * fs))
-    v = np.asarray(voltage_mv, dtype=float)[on:off]
-    n = int(round(MOVING_AVERAGE_S * fs))
-    smooth = _moving_average(v, n)
-    low = int(np.argmin(smooth))
-    deflection = smooth[0] - smooth[low]
-    near = np.nonzero(smooth[:low + 1] - smooth[low] <= 0.02 * deflection)[0]
-    stop = int(near[0]) + n // 2 + 1 if near.size else low + n // 2 + 1
-    t_ms = np.arange(stop) / fs * 1e3
-    guess = (float(v[stop - 1]), float(v[0] - v[stop - 1]), max(t_ms[-1] / 4, 0.1))
-    fitted, _ = curve_fit(_exponential, t_ms, v[:stop], p0=guess, maxfev=10_000)
-    return float(fitted[2])
+    sweeps = np.atleast_2d(np.asarray(voltage_mv, dtype=float))[:, on:off]
+    first = int(np.ceil(TAU_SKIP_S * fs - 1e-9))
+    # a start: the time to 1 - 1/e of the largest sweep's drop to its minimum
+    lowest = [_turn(v, int(round(MOVING_AVERAGE_S * fs))) for v in sweeps]
+    big = int(np.argmax([v[0] - v[k] for v, k in zip(sweeps, lowest)]))
+    drop = sweeps[big][:lowest[big] + 1]
+    tau_ms = float(np.nonzero(drop <= drop[0] - 0.632 * (drop[0] - drop[-1]))[0][0]) / fs * 1e3
+    for _ in range(100):
+        n = int(round(max(MOVING_AVERAGE_S * 1e3, tau_ms) * 1e-3 * fs))
+        last = [min(_turn(v, n),
+                    int(np.floor(np.log(1 / TAU_END_FRACTION) * tau_ms * 1e-3 * fs)),
+                    v.size - 1) for v in sweeps]
+        t_ms = [np.arange(first, stop + 1) / fs * 1e3 for stop in last]
+        y = np.concatenate([v[first:stop + 1] for v, stop in zip(sweeps, last)])
+
+        def model(_, *p, t_ms=t_ms):
+            return np.concatenate([p[2 * j] + p[2 * j + 1] * np.exp(-t / p[-1])
+                                   for j, t in enumerate(t_ms)])
+
+        guess = [x for v, stop in zip(sweeps, last)
+                 for x in (float(v[stop]), float(v[first] - v[stop]))] + [tau_ms]
+        fitted, _ = curve_fit(model, np.zeros(y.size), y, p0=guess, maxfev=20_000)
+        done = abs(fitted[-1] - tau_ms) <= 1e-7 * tau_ms
+        tau_ms = float(fitted[-1])
+        if done:
+            break
+    return tau_ms
 
 
 def reference_cell(stimulus_pa: np.ndarray, sweeps: list[ReferenceSweep],

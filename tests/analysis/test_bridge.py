@@ -10,11 +10,11 @@ import pytest
 
 from spikemeasure.analysis.bridge import (MIN_TAU_TO_SETTLE, SETTLE_MS, bridge_error,
                                           edge_jump)
-from spikemeasure.analysis.cell_features import fit_membrane_tau
 from spikemeasure.errors import InvalidSettingError
 from spikemeasure.io import Recording, Sweep
 from spikemeasure.tables.build import cell_summary, measure_recording
 from spikemeasure.testing.acquisition import bessel_lowpass, record_commands
+from spikemeasure.testing.reference import reference_tau_ms
 
 RATE = 20_000.0
 SIM_RATE = 100_000.0
@@ -103,13 +103,13 @@ class TestBridgeErrorInModels:
 
     @pytest.mark.parametrize("model", ["wang_buzsaki_1996", "cortical_adapting"])
     def test_tau_fit_leaves_the_jump_out(self, model):
-        # source: the same fit on the noise-free membrane voltage of the smallest
-        # hyperpolarizing step (no electrode, filter or noise)
+        # source: the definition on the noise-free membrane voltage of the three smallest
+        # hyperpolarizing steps (no electrode, filter or noise), by the plain reference
         taus = {}
         for rs in (0.0, 15.0):
             cell, sim = recorded_cell(model, rs, noise_mv=0.1, seed=5)
-            truth = fit_membrane_tau(sim.membrane_mv[3], sim.sampling_rate_hz, ONSET, OFFSET)
-            assert cell.membrane_tau_ms == pytest.approx(truth.tau_ms, rel=0.03), rs
+            truth = reference_tau_ms(sim.membrane_mv[1:4], sim.sampling_rate_hz, ONSET, OFFSET)
+            assert cell.membrane_tau_ms == pytest.approx(truth, rel=0.03), rs
             taus[rs] = cell.membrane_tau_ms
         assert taus[15.0] == pytest.approx(taus[0.0], rel=0.03)
 

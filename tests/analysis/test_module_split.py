@@ -20,7 +20,7 @@ PARTS = {
                                          "SAG_NOISE_FACTOR", "STEADY_STATE_WINDOW_MS")),
     "cell_passive": ("cell_features", ("input_resistance", "input_resistance_sd",
                                        "passive_sweeps", "MAX_RESIDUAL_TO_NOISE",
-                                       "MIN_DEFLECTION_TO_NOISE", "MAX_TAU_SD_FRACTION",
+                                       "MAX_TAU_SD_FRACTION",
                                        "NOISE_FLOOR_MV", "SLOW_SWEEP_MAX_RISE_MV",
                                        "MAX_FLUCTUATION_TO_DEFLECTION")),
     "noise_model": ("spike_uncertainty", ("NoiseModel", "quiet_stretch", "measured_noise",

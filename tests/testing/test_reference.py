@@ -93,6 +93,35 @@ def test_time_constant_and_sag_of_closed_form_steps():
     assert sweep.sag_fraction == pytest.approx((-77.0 - v_min) / (-70.0 - v_min), abs=0.005)
 
 
+def test_time_constant_shared_by_several_steps():
+    # closed-form charging curves of three sizes with one tau: the joint fit returns it
+    t_s = np.arange(int(0.5 * RATE_HZ)) / RATE_HZ
+    after = np.clip(t_s - 0.1, 0, None) * 1e3
+    sweeps = np.array([-70.0 + size * (1 - np.exp(-after / 8.0)) for size in (-3, -6, -9)])
+    assert reference_tau_ms(sweeps, RATE_HZ, 0.1, 0.4) == pytest.approx(8.0, rel=1e-4)
+
+
+def test_time_constant_window_ends_at_a_sag_minimum():
+    # -10 mV charging with 5 ms and +4 mV relaxing with 20 ms: the minimum (where the
+    # derivative vanishes, scipy's brentq) comes before ln(50) tau, so the fit ends there;
+    # one exponential fitted by scipy.optimize.curve_fit on exactly that window (0.1 ms
+    # after onset to the minimum) gives the same tau
+    from scipy.optimize import curve_fit
+    t_s = np.arange(int(0.5 * RATE_HZ)) / RATE_HZ
+    after = np.clip(t_s - 0.1, 0, None) * 1e3
+    v = -70.0 - 10 * (1 - np.exp(-after / 5.0)) + 4 * (1 - np.exp(-after / 20.0))
+    t_min = brentq(lambda t: -2.0 * np.exp(-t / 5.0) + 0.2 * np.exp(-t / 20.0), 1.0, 50.0)
+    t_ms = np.arange(int(np.ceil(0.1e-3 * RATE_HZ)), int(round(t_min * 1e-3 * RATE_HZ)) + 1)
+    t_ms = t_ms / RATE_HZ * 1e3
+    exact = -70.0 - 10 * (1 - np.exp(-t_ms / 5.0)) + 4 * (1 - np.exp(-t_ms / 20.0))
+    (_, _, tau), _ = curve_fit(lambda t, a, b, c: a + b * np.exp(-t / c), t_ms, exact,
+                               p0=(-76.0, 6.0, 5.0))
+    found = reference_tau_ms(v, RATE_HZ, 0.1, 0.4)
+    # the minimum of a moving average max(1 ms, tau) wide lies within a fraction of a ms of
+    # the exact one; the fitted tau moves by well under 1 % with it
+    assert found == pytest.approx(tau, rel=0.01)
+
+
 def test_cell_values_from_sweeps():
     from spikemeasure.testing.reference import ReferenceSweep
 
