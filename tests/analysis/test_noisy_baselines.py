@@ -10,6 +10,9 @@ hyperpolarizing steps have no sag (checked here); the squid-axon model (Hodgkin 
 1952) does undershoot and settle back at small hyperpolarizing steps, through its gates,
 which is a sag the noise-free trace shows.
 """
+import dataclasses
+import functools
+
 import numpy as np
 import pytest
 
@@ -24,12 +27,27 @@ SIM_RATE = 100_000.0
 ONSET, OFFSET, LENGTH = 0.1, 0.6, 0.8
 
 
-def recorded(model, steps, **kwargs):
+@functools.lru_cache(maxsize=16)
+def _noise_free(model, steps, frozen_kwargs):
     n = int(LENGTH * SIM_RATE)
     cmd = np.zeros((len(steps), n))
     for row, size in zip(cmd, steps):
         row[int(ONSET * SIM_RATE):int(OFFSET * SIM_RATE)] = size
-    sim = record_commands(model, cmd, **kwargs)
+    return record_commands(model, cmd, **dict(frozen_kwargs))
+
+
+def recorded(model, steps, **kwargs):
+    noise_mv, seed = kwargs.pop("noise_mv", 0.0), kwargs.pop("seed", 0)
+    if kwargs.get("synaptic_sd_pa"):
+        # the background draws from the generator before the noise: simulate it all
+        sim = _noise_free.__wrapped__(model, tuple(steps),
+                                      tuple(dict(kwargs, noise_mv=noise_mv, seed=seed).items()))
+    else:
+        # the membrane is deterministic and simulated once per model and steps; the noise is
+        # what record_commands adds last, drawn from the same seed (the same samples)
+        clean = _noise_free(model, tuple(steps), tuple(sorted(kwargs.items())))
+        noise = np.random.default_rng(seed).standard_normal(clean.voltage_mv.shape) * noise_mv
+        sim = dataclasses.replace(clean, voltage_mv=clean.voltage_mv + noise)
     sweeps = [Sweep(v, sim.sampling_rate_hz, c, file="cell.nwb", index=k)
               for k, (v, c) in enumerate(zip(sim.voltage_mv, sim.command_pa))]
     results = measure_recording(Recording("cell.nwb", "simulated", sweeps))
