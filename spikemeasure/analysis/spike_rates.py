@@ -6,6 +6,7 @@ are smoothed; an interpolating spline finds the extreme between samples.
 """
 from __future__ import annotations
 
+from dataclasses import dataclass
 from functools import lru_cache
 
 import numpy as np
@@ -92,22 +93,26 @@ def noise_before(voltage_mv: np.ndarray, position: np.ndarray,
     return out
 
 
-def _rate_window(noise_mv: float, pilot_per_sample: float, longest: int) -> int:
-    """Shortest smoothing window (1: none, then 7, 9, ...) whose rate noise SD is at most
-    RATE_NOISE_FRACTION of the pilot rate; the longest allowed when none is."""
+def _rate_windows(noise_mv: np.ndarray, pilot_per_sample: np.ndarray, longest: int
+                  ) -> np.ndarray:
+    """Per spike, the shortest smoothing window (1: none, then 7, 9, ...) whose rate noise SD
+    is at most RATE_NOISE_FRACTION of the pilot rate; the longest allowed when none is, and 1
+    where the noise or the pilot rate is unknown or not positive."""
     candidates = [1] + list(range(RATE_POLYORDER + 3, longest + 1, 2))
-    if not (np.isfinite(noise_mv) and pilot_per_sample > 0):
-        return 1
-    for window in candidates:
-        if noise_mv * _rate_noise_gain(window) <= RATE_NOISE_FRACTION * pilot_per_sample:
-            return window
-    return candidates[-1]
+    window = np.full(noise_mv.size, candidates[-1], dtype=np.int64)
+    chosen = np.zeros(noise_mv.size, dtype=bool)
+    allowed = RATE_NOISE_FRACTION * pilot_per_sample
+    for candidate in candidates:
+        fits = ~chosen & (noise_mv * _rate_noise_gain(candidate) <= allowed)
+        window[fits] = candidate
+        chosen |= fits
+    return np.where(np.isfinite(noise_mv) & (pilot_per_sample > 0), window, 1)
 
 
 def rate_extremes(voltage_mv: np.ndarray, sampling_rate_hz: float,
                   threshold_position: np.ndarray, peak_position: np.ndarray,
-                  trough_position: np.ndarray, smoothing_ms: float = 0.1
-                  ) -> tuple[np.ndarray, np.ndarray]:
+                  trough_position: np.ndarray, smoothing_ms: float = 0.1,
+                  noise_mv: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Largest dV/dt from threshold to peak and most negative from peak to trough.
 
     Parameters
@@ -119,6 +124,9 @@ def rate_extremes(voltage_mv: np.ndarray, sampling_rate_hz: float,
         Fractional sample positions per spike (NaN where unknown: that extreme is then NaN).
     smoothing_ms : float, optional
         The longest smoothing window the recording's noise may call for (default 0.1 ms).
+    noise_mv : ndarray, optional
+        The noise SD before each spike, ``noise_before(voltage_mv, threshold_position)``
+        (computed here when not given).
 
     Returns
     -------
@@ -156,62 +164,127 @@ def rate_extremes(voltage_mv: np.ndarray, sampling_rate_hz: float,
     v = np.asarray(voltage_mv, dtype=float)
     fs = float(sampling_rate_hz)
     longest = smoothing_window_samples(smoothing_ms, fs)
-    noise = noise_before(v, threshold_position)
-    n = np.asarray(peak_position).size
-    largest = np.full(n, np.nan)
-    smallest = np.full(n, np.nan)
-    for k in range(n):
-        p = int(round(peak_position[k]))
-        t = threshold_position[k]
-        if np.isfinite(t):
-            largest[k] = _rate_extreme(v, int(np.floor(t)), p, noise[k], longest, True) * fs / 1e3
+    noise = (noise_before(v, threshold_position) if noise_mv is None
+             else np.asarray(noise_mv, dtype=float))
+    found = _max_rate_extremes(v, threshold_position, peak_position, noise, longest)
+    largest = np.where(found.valid, found.value * fs / 1e3, np.nan)
     smallest = _fall_rates(v, peak_position, trough_position, noise, longest) * fs / 1e3
     return largest, smallest
 
 
-def _smoothed(v: np.ndarray, lo: int, hi: int, window: int) -> np.ndarray:
-    """Samples lo..hi (inclusive) after a local quartic fit over `window` samples (1: raw);
-    the caller keeps lo - window // 2 and hi + window // 2 inside v."""
+@dataclass(frozen=True)
+class _MaxRates:
+    """The largest dV/dt of each spike as :func:`rate_extremes` finds it (per sample), with
+    the choices that make it a weighted sum of the samples: the centre sample, the smoothing
+    window, the spline's grid point and the fourth difference's place (see
+    :func:`_extreme_weights`); `valid` false where the estimator's samples leave the trace."""
+
+    value: np.ndarray
+    centre: np.ndarray
+    window: np.ndarray
+    best: np.ndarray
+    at: np.ndarray
+    valid: np.ndarray
+
+
+def _gathered(v: np.ndarray, lo: np.ndarray, width: int) -> np.ndarray:
+    """Rows v[lo .. lo + width - 1] (indices clipped into v: the caller masks what leaves
+    it)."""
+    return v[np.clip(lo[:, None] + np.arange(width), 0, v.size - 1)]
+
+
+def _smoothed_rows(v: np.ndarray, lo: np.ndarray, width: int, window: int) -> np.ndarray:
+    """Rows of the samples lo .. lo + width - 1 after a local quartic fit over `window`
+    samples (1: raw). Each row's samples with `window` // 2 more either side are laid end to
+    end and convolved once: every smoothed value is the same dot product of the same
+    coefficients with the same samples as a convolution of that row alone (values reaching
+    past a row's own samples are dropped)."""
     if window == 1:
-        return v[lo:hi + 1]
+        return _gathered(v, lo, width)
     half = window // 2
-    return np.convolve(v[lo - half:hi + half + 1], _quartic_smoothing(window), mode="valid")
+    rows = _gathered(v, lo - half, width + 2 * half)
+    flat = np.convolve(rows.ravel(), _quartic_smoothing(window), mode="valid")
+    flat = np.concatenate([flat, np.zeros(2 * half)])
+    return flat.reshape(rows.shape)[:, :width]
 
 
-def _rate_extreme(v: np.ndarray, a: int, b: int, noise_mv: float, longest: int,
-                  largest: bool, with_weights: bool = False):
-    """Extreme (per sample) of dV/dt over samples a..b; NaN where the estimator's samples
-    would leave the trace. With `with_weights`, also (centre sample, weights): the extreme is
-    (to first order, the grid point's sub-sample refinement aside) the dot product of the
-    weights with the raw samples centred there, so noise propagates through them."""
-    nothing = (np.nan, 0, None, None, None) if with_weights else np.nan
-    a, b = max(a, 1), min(b, v.size - 2)
-    if b <= a:
-        return nothing
-    sign = 1.0 if largest else -1.0
-    pilot = float(np.max(sign * 0.5 * (v[a + 1:b + 2] - v[a - 1:b])))
-    window = _rate_window(noise_mv, pilot, longest)
-    half, spline_half = window // 2, RATE_SPLINE_HALF_SAMPLES
-    a, b = max(a, 1 + half), min(b, v.size - 2 - half)
-    if b <= a:
-        return nothing
-    # where the smoothed samples change fastest, then the spline's extreme around it
-    smooth = _smoothed(v, a - 1, b + 1, window)
-    j = a + int(np.argmax(sign * 0.5 * (smooth[2:] - smooth[:-2])))
-    if j - spline_half - half < 0 or j + spline_half + half >= v.size:
-        return nothing
-    samples = _smoothed(v, j - spline_half, j + spline_half, window)
-    curve = sign * (_rate_spline_weights() @ samples)
-    best = int(np.clip(np.argmax(curve), 1, _SPLINE_STEPS - 1))
-    prev, here, nxt = curve[best - 1], curve[best], curve[best + 1]
+def _max_rate_extremes(v: np.ndarray, threshold_position: np.ndarray,
+                       peak_position: np.ndarray, noise_mv: np.ndarray, longest: int
+                       ) -> _MaxRates:
+    """The largest dV/dt (per sample) from each spike's threshold to its peak, as
+    :func:`rate_extremes` defines it, every spike at once: the pilot rate and window (the
+    largest central difference of the raw samples), the largest central difference of the
+    smoothed samples, then the quintic spline's derivative on the grid around it and the
+    parabola through its largest grid value. Spikes are taken in blocks of bounded memory."""
+    threshold_position = np.asarray(threshold_position, dtype=float)
+    peak_position = np.asarray(peak_position, dtype=float)
+    n = peak_position.size
+    found = _MaxRates(np.full(n, np.nan), np.zeros(n, dtype=np.int64),
+                      np.ones(n, dtype=np.int64), np.zeros(n, dtype=np.int64),
+                      np.zeros(n, dtype=np.int64), np.zeros(n, dtype=bool))
+    known = np.isfinite(threshold_position) & np.isfinite(peak_position)
+    a = np.where(known, np.floor(np.where(known, threshold_position, 0.0)), 0).astype(np.int64)
+    b = np.where(known, np.round(np.where(known, peak_position, 0.0)), 0).astype(np.int64)
+    a, b = np.maximum(a, 1), np.minimum(b, v.size - 2)
+    rows = np.flatnonzero(known & (b > a))
+    if rows.size == 0:
+        return found
+    per_block = max(1, _GATHER_ELEMENTS // int((b[rows] - a[rows]).max() + 3 + longest))
+    for start in range(0, rows.size, per_block):
+        r = rows[start:start + per_block]
+        _max_rate_block(v, a[r], b[r], np.asarray(noise_mv, dtype=float)[r], longest, r, found)
+    return found
+
+
+_GATHER_ELEMENTS = 1_000_000  # samples gathered at once, to bound memory
+
+
+def _max_rate_block(v: np.ndarray, a: np.ndarray, b: np.ndarray, noise_mv: np.ndarray,
+                    longest: int, rows: np.ndarray, found: _MaxRates) -> None:
+    """:func:`_max_rate_extremes` for spans a..b (a < b, inside v), written into `found` at
+    `rows`."""
+    width = int((b - a).max()) + 1
+    inside = np.arange(width) < (b - a + 1)[:, None]
+    raw = _gathered(v, a - 1, width + 2)
+    pilot = np.max(np.where(inside, 0.5 * (raw[:, 2:] - raw[:, :-2]), -np.inf), axis=1)
+    window = _rate_windows(noise_mv, pilot, longest)
+    half = window // 2
+    a, b = np.maximum(a, 1 + half), np.minimum(b, v.size - 2 - half)
+    j = np.zeros(a.size, dtype=np.int64)
+    samples = np.zeros((a.size, 2 * RATE_SPLINE_HALF_SAMPLES + 1))
+    ok = b > a
+    spline_half = RATE_SPLINE_HALF_SAMPLES
+    for w in np.unique(window[ok]):
+        k = np.flatnonzero(ok & (window == w))
+        span = int((b[k] - a[k]).max()) + 1
+        smooth = _smoothed_rows(v, a[k] - 1, span + 2, int(w))
+        rate = np.where(np.arange(span) < (b[k] - a[k] + 1)[:, None],
+                        0.5 * (smooth[:, 2:] - smooth[:, :-2]), -np.inf)
+        j[k] = a[k] + np.argmax(rate, axis=1)
+        edge = (j[k] - spline_half - w // 2 < 0) | (j[k] + spline_half + w // 2 >= v.size)
+        ok[k[edge]] = False
+        k = k[~edge]
+        samples[k] = _smoothed_rows(v, j[k] - spline_half, 2 * spline_half + 1, int(w))
+    # one matrix-vector product per spike, as for a single spike (the same sums)
+    curve = np.matmul(_rate_spline_weights(), samples[:, :, None])[:, :, 0]
+    best = np.clip(np.argmax(curve, axis=1), 1, _SPLINE_STEPS - 1)
+    pick = np.arange(best.size)
+    prev, here, nxt = curve[pick, best - 1], curve[pick, best], curve[pick, best + 1]
     curvature = prev - 2.0 * here + nxt
-    delta = min(0.5, max(-0.5, 0.5 * (prev - nxt) / curvature)) if curvature < 0 else 0.0
-    value = sign * (here - 0.25 * (prev - nxt) * delta)
-    if not with_weights:
-        return value
+    with np.errstate(divide="ignore", invalid="ignore"):
+        delta = np.where(curvature < 0,
+                         np.minimum(0.5, np.maximum(-0.5, 0.5 * (prev - nxt) / curvature)), 0.0)
+    value = here - 0.25 * (prev - nxt) * delta
     # the largest fourth difference of the spline's samples around its extreme
-    at = int(np.argmax(np.abs(np.diff(samples[spline_half - 3:spline_half + 4], 4))))
-    return (value, j) + _extreme_weights(best, window, at)
+    at = np.argmax(np.abs(np.diff(samples[:, spline_half - 3:spline_half + 4], 4, axis=1)),
+                   axis=1)
+    keep = rows[ok]
+    found.value[keep] = value[ok]
+    found.centre[keep] = j[ok]
+    found.window[keep] = window[ok]
+    found.best[keep] = best[ok]
+    found.at[keep] = at[ok]
+    found.valid[keep] = True
 
 
 @lru_cache(maxsize=4096)
@@ -291,29 +364,26 @@ def max_rate_weights(voltage_mv: np.ndarray, sampling_rate_hz: float,
     v = np.asarray(voltage_mv, dtype=float)
     fs = float(sampling_rate_hz)
     longest = smoothing_window_samples(smoothing_ms, fs)
-    noise = noise_before(v, threshold_position)
-    n = np.asarray(peak_position).size
-    found = []
-    for k in range(n):
-        t = threshold_position[k]
-        if np.isfinite(t) and np.isfinite(peak_position[k]):
-            found.append(_rate_extreme(v, int(np.floor(t)), int(round(peak_position[k])),
-                                       noise[k], longest, True, with_weights=True))
-        else:
-            found.append((np.nan, 0, None, None, None))
-    width = max([max(w.size, b.size) for _, _, w, b, _ in found if w is not None] + [1])
-    centre = np.zeros(n, dtype=np.int64)
+    found = _max_rate_extremes(v, threshold_position, peak_position,
+                               noise_before(v, threshold_position), longest)
+    n = found.value.size
+    choices = np.stack([found.best, found.window, found.at], axis=1)[found.valid]
+    unique, which = (np.unique(choices, axis=0, return_inverse=True) if choices.size
+                     else (np.zeros((0, 3), dtype=np.int64), np.zeros(0, dtype=np.int64)))
+    rows = [_extreme_weights(int(best), int(window), int(at)) for best, window, at in unique]
+    width = max([max(w.size, b.size) for w, b, _ in rows] + [1])
+    centre = np.where(found.valid, found.centre, 0)
     weights = np.full((n, width), np.nan)
     bias = np.full((n, width), np.nan)
     fourth = np.full((n, width), np.nan)
-    for k, (_, j, w, b, d4) in enumerate(found):
-        if w is not None:
-            centre[k] = j
-            for out, row, scale in ((weights, w, fs / 1e3), (bias, b, fs / 1e3),
-                                    (fourth, d4, 1.0)):
-                pad = (width - row.size) // 2
-                out[k] = 0.0
-                out[k, pad:pad + row.size] = row * scale
+    # each distinct set of weights padded and scaled once, then one row per spike
+    for out, part, scale in ((weights, 0, fs / 1e3), (bias, 1, fs / 1e3), (fourth, 2, 1.0)):
+        table = np.zeros((len(rows), width))
+        for u, found_rows in enumerate(rows):
+            row = found_rows[part]
+            pad = (width - row.size) // 2
+            table[u, pad:pad + row.size] = row * scale
+        out[found.valid] = table[which.ravel()]
     return (centre, weights, bias, fourth) if smoothing_bias else (centre, weights)
 
 

@@ -204,7 +204,8 @@ def measure_spikes_with_positions(trace: SmoothedTrace, detected: DetectedSpikes
     v = trace.voltage_mv
     thr_i, thr_mv = spike_thresholds(trace, detected, settings)
     peak_pos, peak_mv, at_edge = interpolated_peaks(v, detected.peak_sample)
-    fit_pos, fit_mv = fitted_peaks(v, detected.peak_sample, thr_mv, noise_before(v, thr_i))
+    noise = noise_before(v, thr_i)
+    fit_pos, fit_mv = fitted_peaks(v, detected.peak_sample, thr_mv, noise)
     fitted = np.isfinite(fit_mv)
     peak_pos, peak_mv = np.where(fitted, fit_pos, peak_pos), np.where(fitted, fit_mv, peak_mv)
     # the step end bounds only the trough of a sweep's last spike, not its repolarization
@@ -225,7 +226,7 @@ def measure_spikes_with_positions(trace: SmoothedTrace, detected: DetectedSpikes
             step_end[-1] = offset_i
     trough_i, trough_mv = troughs(trace.smooth_mv, detected.peak_sample, trough_ends, step_end)
     fit_i, fit_mv = fitted_troughs(v, rate, trough_i, detected.peak_sample, trough_ends,
-                                   noise_before(v, thr_i), trace.window)
+                                   noise, trace.window)
     fitted = np.isfinite(fit_mv)
     trough_i, trough_mv = np.where(fitted, fit_i, trough_i), np.where(fitted, fit_mv, trough_mv)
     repolarized = np.isfinite(down_i)
@@ -235,7 +236,7 @@ def measure_spikes_with_positions(trace: SmoothedTrace, detected: DetectedSpikes
     width = np.where(coarse, np.nan, width)
     measured_width = np.isfinite(width)
     max_rate, min_rate = rate_extremes(v, rate, thr_i, peak_pos, trough_i,
-                                       settings.rate_smoothing_ms)
+                                       settings.rate_smoothing_ms, noise)
     clipped = flat_peak_runs(v, detected.peak_sample) >= CLIPPED_RUN_SAMPLES
     thr_s = thr_i / rate
     isi = np.full(n, np.nan)
