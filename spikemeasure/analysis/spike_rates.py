@@ -229,14 +229,28 @@ def _max_rate_extremes(v: np.ndarray, threshold_position: np.ndarray,
     rows = np.flatnonzero(known & (b > a))
     if rows.size == 0:
         return found
-    per_block = max(1, _GATHER_ELEMENTS // int((b[rows] - a[rows]).max() + 3 + longest))
-    for start in range(0, rows.size, per_block):
-        r = rows[start:start + per_block]
-        _max_rate_block(v, a[r], b[r], np.asarray(noise_mv, dtype=float)[r], longest, r, found)
+    noise_mv = np.asarray(noise_mv, dtype=float)
+    for r in _blocks(rows, b[rows] - a[rows] + 3 + longest):
+        _max_rate_block(v, a[r], b[r], noise_mv[r], longest, r, found)
     return found
 
 
 _GATHER_ELEMENTS = 1_000_000  # samples gathered at once, to bound memory
+
+
+def _blocks(rows: np.ndarray, length: np.ndarray):
+    """Yield the rows in blocks, shortest spans first, each block's rows times its longest
+    span at most _GATHER_ELEMENTS (a longer span alone)."""
+    order = np.argsort(length, kind="stable")
+    rows, length = rows[order], length[order]
+    start = 0
+    while start < rows.size:
+        # rows [start, stop) fit when their count times the last (longest) length fits
+        count = np.arange(1, rows.size - start + 1)
+        fits = count * length[start:] <= _GATHER_ELEMENTS
+        stop = start + max(1, int(np.count_nonzero(fits)))
+        yield np.sort(rows[start:stop])
+        start = stop
 
 
 def _max_rate_block(v: np.ndarray, a: np.ndarray, b: np.ndarray, noise_mv: np.ndarray,
