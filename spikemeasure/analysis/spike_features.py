@@ -90,20 +90,23 @@ ONSET_NOISE_FRACTION = 0.05
 ONSET_WINDOW_FACTOR = 1.5
 
 
-def onset_window(noise_mv: float, sampling_rate_hz: float, level: float,
-                 smoothing_window: int) -> int:
+def onset_window(noise_mv: float | np.ndarray, sampling_rate_hz: float, level: float,
+                 smoothing_window: int) -> int | np.ndarray:
     """Shortest odd window (at least 3, at most the odd number of samples nearest below
     ONSET_WINDOW_FACTOR times `smoothing_window`) of a local quadratic fit whose dV/dt noise
     SD is at most ONSET_NOISE_FRACTION of `level` (V/s); the longest where the noise is
-    unknown or none is quiet enough."""
+    unknown or none is quiet enough. Given an array of noise SDs, an array of windows (one
+    per spike)."""
+    noise = np.asarray(noise_mv, dtype=float)
     longest = max(3, 2 * int(ONSET_WINDOW_FACTOR * smoothing_window / 2) + 1)
-    if not np.isfinite(noise_mv):
-        return longest
+    windows = np.full(noise.shape, longest, dtype=np.int64)
+    chosen = ~np.isfinite(noise)
     for window in range(3, longest, 2):
         gain = np.sqrt(12.0 / (window * (window * window - 1)))
-        if noise_mv * sampling_rate_hz / 1e3 * gain <= ONSET_NOISE_FRACTION * level:
-            return window
-    return longest
+        quiet = ~chosen & (noise * sampling_rate_hz / 1e3 * gain <= ONSET_NOISE_FRACTION * level)
+        windows[quiet] = window
+        chosen |= quiet
+    return int(windows) if noise.ndim == 0 else windows
 
 
 def _noise_matched_onsets(trace: SmoothedTrace, onset: np.ndarray, level: float
@@ -123,8 +126,7 @@ def _noise_matched_onsets(trace: SmoothedTrace, onset: np.ndarray, level: float
     v, fs = trace.voltage_mv, trace.sampling_rate_hz
     out = np.full(onset.size, np.nan)
     growth = np.full(onset.size, np.nan)
-    windows = np.array([onset_window(noise, fs, level, trace.window)
-                        for noise in noise_before(v, onset - trace.window)], dtype=np.int64)
+    windows = onset_window(noise_before(v, onset - trace.window), fs, level, trace.window)
     for window in np.unique(windows):
         half = window // 2
         # a longer window moves the fitted crossing earlier, by up to about half of it

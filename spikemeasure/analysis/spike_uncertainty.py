@@ -176,8 +176,7 @@ def _onset_slopes_and_windows(v: np.ndarray, rate_hz: float, position: np.ndarra
                               longest: int, level: float) -> tuple[np.ndarray, np.ndarray]:
     """:func:`_onset_slope_weights`, and the window of each spike."""
     noise = noise_before(v, np.asarray(position, dtype=float) - longest)
-    windows = np.array([onset_window(sigma, rate_hz, level, longest) for sigma in noise],
-                       dtype=np.int64)
+    windows = onset_window(noise, rate_hz, level, longest)
     # onset_window may pick a window longer than the smoothing window
     longest = int(max([longest] + list(windows)))
     out = np.zeros((np.asarray(position).size, longest))
