@@ -385,7 +385,7 @@ def _bias_sd(terms: list[_Term], v: np.ndarray, noise: NoiseModel) -> np.ndarray
     the squared bias (the noise's share of b**2 taken out); 0 where unknown."""
     pos, w, valid = _combined(terms, v.size)
     value = np.einsum("ij,ij->i", w, v[np.clip(pos, 0, v.size - 1)])
-    sd = _sd(terms, noise, v.size)
+    sd = _combined_sd(pos, w, valid, noise)
     size = np.sqrt(np.clip(value * value - sd * sd, 0.0, None))
     return np.where(valid & np.isfinite(size), size, 0.0)
 
@@ -409,17 +409,27 @@ def _combined(terms: list[_Term], n_samples: int) -> tuple[np.ndarray, np.ndarra
 def _sd(terms: list[_Term], noise: NoiseModel, n_samples: int) -> np.ndarray:
     """sqrt(w' C w) per spike, C the noise autocovariance; NaN where a coefficient is NaN or
     a kernel leaves the trace."""
-    pos, w, valid = _combined(terms, n_samples)
+    return _combined_sd(*_combined(terms, n_samples), noise)
+
+
+def _combined_sd(pos: np.ndarray, w: np.ndarray, valid: np.ndarray, noise: NoiseModel
+                 ) -> np.ndarray:
+    """:func:`_sd` of terms already combined (:func:`_combined`)."""
     pos, w = _merged(pos, w)
     pos, w = _nonzero_first(pos, w)
     acov = noise.autocovariance_mv2
+    # the autocovariance at every lag, 0 from its length on: one look-up per pair of samples
+    padded = np.append(acov, 0.0)
+    small = pos.size == 0 or int(np.abs(pos).max()) < 2 ** 30
+    pos = pos.astype(np.int32 if small else np.int64)
     variance = np.empty(pos.shape[0])
     per_block = max(1, _QUADRATIC_ELEMENTS // max(1, pos.shape[1] ** 2))
     for a in range(0, pos.shape[0], per_block):
         p, ww = pos[a:a + per_block], w[a:a + per_block]
-        lag = np.abs(p[:, :, None] - p[:, None, :])
-        cov = np.where(lag < acov.size, acov[np.minimum(lag, acov.size - 1)], 0.0)
-        variance[a:a + per_block] = np.einsum("ni,nij,nj->n", ww, cov, ww)
+        lag = np.subtract(p[:, :, None], p[:, None, :])
+        np.abs(lag, out=lag)
+        np.minimum(lag, acov.size, out=lag)
+        variance[a:a + per_block] = np.einsum("ni,nij,nj->n", ww, padded.take(lag), ww)
     return np.where(valid, np.sqrt(np.clip(variance, 0.0, None)), np.nan)
 
 
