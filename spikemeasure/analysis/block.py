@@ -65,12 +65,29 @@ def _full_spike_peaks(voltage_mv: np.ndarray, sampling_rate_hz: float, times_s: 
     reach = max(1, int(round(PEAK_SEARCH_MS * 1e-3 * sampling_rate_hz)))
     starts = np.round(times_s * sampling_rate_hz).astype(np.int64)
     stops = np.minimum(starts + reach, np.append(starts[1:], np.iinfo(np.int64).max))
-    peaks = []
-    for start, stop in zip(starts, stops):
-        part = voltage_mv[max(0, start):max(start + 1, stop)]
-        if part.size and np.isfinite(part).any() and np.nanmax(part) >= FULL_SPIKE_PEAK_MV:
-            peaks.append((max(0, start) + int(np.nanargmax(part))) / sampling_rate_hz)
-    return np.array(peaks, dtype=float)
+    lo = np.maximum(0, starts)
+    hi = np.minimum(np.maximum(starts + 1, stops), voltage_mv.size)
+    length = np.maximum(hi - lo, 0)
+    peaks = np.full(starts.size, np.nan)
+    if starts.size == 0 or length.max() == 0:
+        return peaks[:0]
+    # every spike's span at once, in blocks of bounded size (NaN samples never the largest)
+    width = int(length.max())
+    per_block = max(1, _GATHER_ELEMENTS // width)
+    for a in range(0, starts.size, per_block):
+        b = slice(a, a + per_block)
+        index = lo[b, None] + np.arange(width)
+        inside = np.arange(width) < length[b, None]
+        part = voltage_mv[np.minimum(index, voltage_mv.size - 1)]
+        finite = (inside & np.isfinite(part)).any(axis=1)
+        part = np.where(inside & ~np.isnan(part), part, -np.inf)
+        top = np.argmax(part, axis=1)
+        full = finite & (part[np.arange(top.size), top] >= FULL_SPIKE_PEAK_MV)
+        peaks[b] = np.where(full, (lo[b] + top) / sampling_rate_hz, np.nan)
+    return peaks[np.isfinite(peaks)]
+
+
+_GATHER_ELEMENTS = 1_000_000  # samples gathered at once, to bound memory
 
 
 def depolarization_block(voltage_mv: np.ndarray, sampling_rate_hz: float,
