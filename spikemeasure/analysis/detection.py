@@ -127,6 +127,7 @@ def savgol_coeffs(window_length: int, polyorder: int, deriv: int = 0, delta: flo
     Returns
     -------
     ndarray, shape (window_length,)
+        Read-only: computed once per distinct set of arguments and shared.
 
     Notes
     -----
@@ -152,6 +153,25 @@ def savgol_coeffs(window_length: int, polyorder: int, deriv: int = 0, delta: flo
         raise InvalidSettingError("`polyorder` must be less than `window_length`")
     if use not in ("conv", "dot"):
         raise InvalidSettingError("`use` must be 'conv' or 'dot'")
+    key = (window_length, polyorder, deriv, delta, pos, use)
+    weights = _SAVGOL_WEIGHTS.get(key)
+    if weights is None:
+        if len(_SAVGOL_WEIGHTS) >= _SAVGOL_KEPT:
+            _SAVGOL_WEIGHTS.clear()
+        weights = _savgol_weights(window_length, polyorder, deriv, delta, pos, use)
+        weights.flags.writeable = False
+        _SAVGOL_WEIGHTS[key] = weights
+    return weights
+
+
+#: Weights already computed, by their arguments: each sweep asks again for the same few.
+_SAVGOL_WEIGHTS: dict[tuple, np.ndarray] = {}
+_SAVGOL_KEPT = 512
+
+
+def _savgol_weights(window_length: int, polyorder: int, deriv: int, delta: float,
+                    pos: float, use: str) -> np.ndarray:
+    """:func:`savgol_coeffs` of checked arguments, computed."""
     if deriv > polyorder:
         return np.zeros(window_length, dtype=np.float64)
     x = np.arange(-pos, window_length - pos, dtype=np.float64)
