@@ -111,7 +111,7 @@ def matched_windows(noise: np.ndarray, scale: np.ndarray, widest: np.ndarray, or
 
 
 def fitted_extremes(x: np.ndarray, centre: np.ndarray, window: np.ndarray, order: int,
-                    deriv: int, largest: bool) -> tuple[np.ndarray, np.ndarray, list]:
+                    deriv: int, largest: bool) -> tuple[np.ndarray, np.ndarray]:
     """Extreme, near each centre, of the local polynomial fitted around it.
 
     Parameters
@@ -132,10 +132,8 @@ def fitted_extremes(x: np.ndarray, centre: np.ndarray, window: np.ndarray, order
     position : ndarray
         Fractional sample index of each extreme (NaN where the window leaves `x`).
     value : ndarray
-        The extreme, per sample**deriv (NaN likewise).
-    weights : list of (int, ndarray) or None
-        Per extreme, the window's first sample and the weights whose dot product with the
-        samples from it gives `value` (the extreme's position held fixed); None where NaN.
+        The extreme, per sample**deriv (NaN likewise). Its weights on the samples (the
+        extreme's position held fixed) are :func:`fit_weights_at`'s.
 
     Notes
     -----
@@ -150,7 +148,6 @@ def fitted_extremes(x: np.ndarray, centre: np.ndarray, window: np.ndarray, order
     window = np.asarray(window, dtype=np.int64)
     n = centre.size
     position, value = np.full(n, np.nan), np.full(n, np.nan)
-    weights: list = [None] * n
     sign = 1.0 if largest else -1.0
     pending = np.ones(n, dtype=bool)
     for attempt in range(2):
@@ -183,9 +180,7 @@ def fitted_extremes(x: np.ndarray, centre: np.ndarray, window: np.ndarray, order
             step = 1.0 / GRID_PER_SAMPLE
             position[rows] = centre[rows] - reach + (best + delta) * step
             value[rows] = sign * (b - 0.25 * (a - c) * delta)
-            for k, g in zip(rows, best):
-                weights[k] = (int(centre[k] - half), grid[g])
-    return position, value, weights
+    return position, value
 
 
 def fit_weights_at(window: np.ndarray, offset: np.ndarray, order: int, deriv: int

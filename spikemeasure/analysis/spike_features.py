@@ -355,8 +355,8 @@ def fitted_peaks(voltage_mv: np.ndarray, peak_sample: np.ndarray, threshold_mv: 
     windows = peak_windows(voltage_mv, peak_sample, threshold_mv, noise_mv)
     position, value = np.full(windows.size, np.nan), np.full(windows.size, np.nan)
     fit = windows > 0
-    position[fit], value[fit], _ = fitted_extremes(voltage_mv, np.asarray(peak_sample)[fit],
-                                                   windows[fit], PEAK_ORDER, 0, True)
+    position[fit], value[fit] = fitted_extremes(voltage_mv, np.asarray(peak_sample)[fit],
+                                                windows[fit], PEAK_ORDER, 0, True)
     return position, value
 
 
@@ -589,8 +589,7 @@ def fitted_troughs(voltage_mv: np.ndarray, sampling_rate_hz: float,
            & (centre - half > peak) & (centre + half < end - 1))
     if not fit.any():
         return out_position, out_value
-    at, value, _ = fitted_extremes(voltage_mv, centre[fit], windows[fit], TROUGH_ORDER, 0,
-                                   False)
+    at, value = fitted_extremes(voltage_mv, centre[fit], windows[fit], TROUGH_ORDER, 0, False)
     inside = np.isfinite(value) & (at > peak[fit]) & (at < end[fit] - 1)
     rows = np.flatnonzero(fit)[inside]
     out_position[rows], out_value[rows] = at[inside], value[inside]
