@@ -454,12 +454,13 @@ def _merged(pos: np.ndarray, w: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     new[:, 1:] = pos[:, 1:] != pos[:, :-1]
     slot = np.cumsum(new, axis=1) - 1
     width = int(slot[:, -1].max()) + 1 if pos.size else 0
-    rows = np.broadcast_to(np.arange(pos.shape[0])[:, None], pos.shape)
-    merged_w = np.zeros((pos.shape[0], width))
-    np.add.at(merged_w, (rows, slot), w)
-    merged_pos = np.zeros((pos.shape[0], width), dtype=np.int64)
-    merged_pos[rows[new], slot[new]] = pos[new]
-    return merged_pos, merged_w
+    n = pos.shape[0]
+    slot += np.arange(n)[:, None] * width       # one flat index: the rows laid end to end
+    merged_w = np.zeros(n * width)
+    np.add.at(merged_w, slot.ravel(), w.ravel())
+    merged_pos = np.zeros(n * width, dtype=np.int64)
+    merged_pos[slot[new]] = pos[new]
+    return merged_pos.reshape(n, width), merged_w.reshape(n, width)
 
 
 def _kernels(rate: float, settings: DetectionSettings) -> dict:
