@@ -416,24 +416,51 @@ def _fall_pilots(v: np.ndarray, peak_position: np.ndarray, trough_position: np.n
     """Per spike, from a local quadratic fit's dV/dt over `pilot_window` samples between peak
     and trough: the sample of the steepest fall, its rate (per sample) and the fall's width
     (samples where the rate is beyond half of it); -1, NaN, 0 where not measurable."""
-    n = np.asarray(peak_position).size
+    peak_position = np.asarray(peak_position, dtype=float)
+    trough_position = np.asarray(trough_position, dtype=float)
+    n = peak_position.size
     centre, rate, width = np.full(n, -1, dtype=np.int64), np.full(n, np.nan), np.zeros(n, int)
     half = pilot_window // 2
     coeffs = savgol_coeffs(pilot_window, _FALL_PILOT_ORDER, deriv=1, use="conv")
-    for k in range(n):
-        if not (np.isfinite(peak_position[k]) and np.isfinite(trough_position[k])):
-            continue
-        a = int(round(peak_position[k]))
-        b = min(int(np.ceil(trough_position[k])), v.size - 1 - half)
-        if a - half < 0 or b <= a:
-            continue
-        slope = np.convolve(v[a - half:b + half + 1], coeffs, mode="valid")
-        j = int(np.argmin(slope))
-        below = slope <= 0.5 * slope[j]
-        lo = j - (np.argmin(below[j::-1]) if not below[j::-1].all() else j + 1) + 1
-        hi = j + (np.argmin(below[j:]) if not below[j:].all() else below.size - j) - 1
-        centre[k], rate[k], width[k] = a + j, slope[j], hi - lo + 1
+    known = np.isfinite(peak_position) & np.isfinite(trough_position)
+    a = np.round(np.where(known, peak_position, 0.0)).astype(np.int64)
+    b = np.minimum(np.ceil(np.where(known, trough_position, 0.0)).astype(np.int64),
+                   v.size - 1 - half)
+    rows = np.flatnonzero(known & (a - half >= 0) & (b > a))
+    for r in _blocks(rows, b[rows] - a[rows] + 1 + 2 * half):
+        centre[r], rate[r], width[r] = _fall_pilot_block(v, a[r], b[r], coeffs)
     return centre, rate, width
+
+
+def _fall_pilot_block(v: np.ndarray, a: np.ndarray, b: np.ndarray, coeffs: np.ndarray
+                      ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """:func:`_fall_pilots` for spans a..b (a < b, the fit's window inside v): each span's
+    samples, with half a window more either side, laid end to end and convolved once (every
+    rate the same dot product as over that span alone); the extremes and runs found per span
+    with ``reduceat`` over the spans' rates."""
+    half = coeffs.size // 2
+    count = b - a + 1                           # rates per span
+    length = count + 2 * half                   # samples per span
+    first_sample = np.cumsum(length) - length
+    samples = v[np.arange(length.sum()) - np.repeat(first_sample - (a - half), length)]
+    fitted = np.convolve(samples, coeffs, mode="valid")
+    first = np.cumsum(count) - count            # each span's first rate in `slope`
+    slope = fitted[np.arange(count.sum()) + np.repeat(first_sample - first, count)]
+    t = np.arange(slope.size) - np.repeat(first, count)   # sample within its span
+    steepest = np.minimum.reduceat(slope, first)
+    lowest = np.repeat(steepest, count)
+    # the first sample of the steepest rate (of the first NaN, as argmin, where one is)
+    at = (slope == lowest) | (np.isnan(slope) & np.isnan(lowest))
+    j = np.minimum.reduceat(np.where(at, t, np.iinfo(np.int64).max), first)
+    steepest = slope[first + j]
+    # the run of rates beyond half the steepest around it: from the sample after the last
+    # one before j that is not, to the sample before the first one after j that is not
+    beyond = slope <= 0.5 * np.repeat(steepest, count)
+    at_j = np.repeat(j, count)
+    hi = np.minimum.reduceat(np.where(~beyond & (t >= at_j), t, np.repeat(count, count)),
+                             first) - 1
+    lo = np.maximum.reduceat(np.where(~beyond & (t <= at_j), t, -1), first) + 1
+    return a + j, steepest, hi - lo + 1
 
 
 def _fall_rates(v: np.ndarray, peak_position: np.ndarray, trough_position: np.ndarray,
