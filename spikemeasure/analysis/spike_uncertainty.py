@@ -190,39 +190,78 @@ def _onset_slopes_and_windows(v: np.ndarray, rate_hz: float, position: np.ndarra
 
 def _onset_smoothing_bias(v: np.ndarray, kernels: dict, position: np.ndarray,
                           settings: DetectionSettings) -> np.ndarray:
-    """Per spike, how far (mV) the onset window's smoothing may have moved the threshold
-    voltage: 0 unless the threshold is the ``onset_rate`` crossing.
+    """Per spike, how far (mV) the onset window's smoothing may still have moved the threshold
+    voltage after the estimator's correction: 0 unless the threshold is the ``onset_rate``
+    crossing.
 
-    The dV/dt of a local quadratic fit over 2m + 1 samples reads a rate whose own curvature
-    (d3V/dt3, per sample**2) is c high by c (3 m**2 + 3 m - 1) / 30 [1]_ (the fit's sums of
-    x**4 and x**2); at the crossing that moves the time by that over the rate's step per
-    sample, and the voltage by the voltage's step times that. The curvature is read from
-    the same dV/dt, m samples (at least one) either side of the crossing.
+    The estimator moves the crossing by the smoothing bias of an exponentially growing rate
+    (:func:`~spikemeasure.analysis.spike_features.spike_thresholds`); what it may have left is
+    estimated as the disagreement of two models of that bias: the exponential one the
+    estimator used (:func:`_exponential_shift`) and the leading term of the local fit's
+    series, which reads the rate's measured curvature instead of assuming its form
+    (:func:`_series_shift`). Where the estimator kept the linear crossing (a rate that does
+    not grow between the two samples) nothing was corrected and the series term is the whole
+    bias. The shift in samples times the smoothed voltage's step per sample is the voltage.
+    """
+    n = np.asarray(position).size
+    if settings.threshold_method != "onset_rate" or n == 0:
+        return np.zeros(n)
+    smooth, slope = kernels["smooth"], kernels["slope"]
+    rate_hz = kernels["rate_hz"]
+    slopes, windows = _onset_slopes_and_windows(v, rate_hz, position, slope.window,
+                                                settings.onset_rate_v_per_s)
+    i = np.floor(np.nan_to_num(position)).astype(np.int64)
+    before, after = _rows_dot(v, slopes, i), _rows_dot(v, slopes, i + 1)
+    series = _series_shift(v, slopes, windows, position, after - before)
+    exponential = _exponential_shift(slopes * (1e3 / rate_hz), before, after)
+    left = np.where(np.isfinite(exponential), series - exponential, series)
+    s_step = (_windows(v, smooth.centre_weights, i + 1)
+              - _windows(v, smooth.centre_weights, i))
+    moved = np.abs(s_step * left)
+    return np.where(np.isfinite(moved), moved, 0.0)
+
+
+def _series_shift(v: np.ndarray, slopes: np.ndarray, windows: np.ndarray,
+                  position: np.ndarray, d_step: np.ndarray) -> np.ndarray:
+    """Per spike, how many samples early the onset window's fit crosses the onset rate by the
+    leading term of its smoothing bias: the dV/dt of a local quadratic fit over 2m + 1
+    samples reads a rate whose own curvature (d3V/dt3, per sample**2) is c high by
+    c (3 m**2 + 3 m - 1) / 30 [1]_ (the fit's sums of x**4 and x**2), which moves the crossing
+    by that over the rate's step per sample `d_step`. The curvature is read from the same
+    dV/dt, m samples (at least one) either side of the crossing.
 
     References
     ----------
     .. [1] A. Savitzky and M. J. E. Golay, "Smoothing and differentiation of data by
        simplified least squares procedures", Analytical Chemistry 36(8):1627-1639, 1964.
     """
-    n = np.asarray(position).size
-    if settings.threshold_method != "onset_rate" or n == 0:
-        return np.zeros(n)
-    smooth, slope = kernels["smooth"], kernels["slope"]
-    slopes, windows = _onset_slopes_and_windows(v, kernels["rate_hz"], position, slope.window,
-                                                settings.onset_rate_v_per_s)
-    i = np.floor(np.nan_to_num(position)).astype(np.int64)
     centre = np.round(np.nan_to_num(position)).astype(np.int64)
     half = windows // 2
     spacing = np.maximum(1, half)
     bend = (_rows_dot(v, slopes, centre + spacing) - 2.0 * _rows_dot(v, slopes, centre)
             + _rows_dot(v, slopes, centre - spacing)) / spacing ** 2
     excess = bend * (3 * half * half + 3 * half - 1) / 30.0
-    d_step = _rows_dot(v, slopes, i + 1) - _rows_dot(v, slopes, i)
-    s_step = (_windows(v, smooth.centre_weights, i + 1)
-              - _windows(v, smooth.centre_weights, i))
     with np.errstate(divide="ignore", invalid="ignore"):
-        moved = np.abs(s_step * excess / d_step)
-    return np.where(np.isfinite(moved), moved, 0.0)
+        return excess / d_step
+
+
+def _exponential_shift(weights: np.ndarray, before: np.ndarray, after: np.ndarray
+                       ) -> np.ndarray:
+    """Per spike, how many samples early the fit crosses a rate growing as exp(k t) between
+    its fitted values `before` and `after` at two consecutive samples (k = log(after /
+    before) per sample): log(R) / k, with R = (weights . exp(k x)) / k the fit's reading of
+    such a rate over the true one, `weights` its slope weights per sample on x = -m .. m
+    (rows padded with zeros to a common odd length). NaN where the rate does not grow or R
+    is not positive: the estimator keeps the linear crossing there
+    (:func:`~spikemeasure.analysis.spike_features.spike_thresholds`)."""
+    grows = (before > 0) & (after > before)
+    k = np.log(np.where(grows, after, 2.0) / np.where(grows, before, 1.0))
+    half = weights.shape[1] // 2
+    x = np.arange(-half, half + 1, dtype=float)
+    ratio = np.einsum("ij,ij->i", np.exp(k[:, None] * x[None, :]), weights) / k
+    with np.errstate(invalid="ignore", divide="ignore"):
+        shift = np.log(ratio) / k
+    return np.where(grows & (ratio > 0) & np.isfinite(shift), shift, np.nan)
 
 
 def _rows_dot(v: np.ndarray, rows: np.ndarray, centre: np.ndarray) -> np.ndarray:
@@ -520,7 +559,8 @@ def spike_uncertainty(voltage_mv: np.ndarray, sampling_rate_hz: float,
     functional, so noise common to both (a slow hum) cancels as it does in the value.
 
     Besides the noise, each SD holds, in quadrature, the biases the recording itself
-    measures (:func:`_biases`: the onset window's and the max dV/dt's smoothing, the splines
+    measures (:func:`_biases`: what the threshold's correction of the onset window's
+    smoothing may have left, the max dV/dt's smoothing, the splines
     and the linear crossings between samples, a drift since the quiet stretch), each
     estimated from the samples; a bias read as a weighted sum b of them counts as
     sqrt(max(b**2 - s**2, 0)), s the noise SD of b.
@@ -582,8 +622,9 @@ def _biases(v: np.ndarray, rate: float, spikes: SpikeMeasurements, noise: NoiseM
     """Per SD column, the sizes of the biases it holds besides the noise, each estimated from
     the recording:
 
-    - the onset window's smoothing bias of the threshold (threshold, AHP depth, and half of
-      it through the half-amplitude level, the half-width);
+    - what the threshold's correction of the onset window's smoothing may have left
+      (:func:`_onset_smoothing_bias`; threshold, AHP depth, and half of it through the
+      half-amplitude level, the half-width);
     - the drift measured on the quiet stretch, continued to the threshold and to the peak
       (their absolute voltages; AHP depth and half-width are differences it leaves);
     - the linear interpolation of the half-width's two crossings between samples;
@@ -736,15 +777,18 @@ def uncertainty_lines() -> list[str]:
         "smoothed samples S v standing for the signal in D (S - I) f (twicing, Tukey 1977, "
         "from memory); "
         "it holds only part of a large smoothing bias (the rest is of order (S - I)^2 f).",
-        "- The onset window's smoothing bias (threshold, AHP depth): the dV/dt of a local "
-        "quadratic fit over 2m + 1 "
-        "samples reads a rate of curvature c (d3V/dt3 per sample squared) c (3 m^2 + 3 m - "
-        "1) / 30 high (the fit's sums of x^4 and x^2; Savitzky and Golay 1964), which moves "
-        "the crossing of the onset rate earlier by that over the rate's step per sample and "
-        "the threshold voltage by the voltage's step times that; c is read from the same "
-        "dV/dt m samples (at least one) either side of the crossing. Half of it moves the "
-        "half-amplitude level, and so the half-width by that over the voltage's slope at "
-        "each crossing.",
+        "- What the threshold's correction of the onset window's smoothing may have left "
+        "(threshold, AHP depth): the threshold estimator moves the crossing by the bias of "
+        "an exponentially growing rate; a second model of the same bias, the leading term of "
+        "the local quadratic fit's series (over 2m + 1 samples it reads a rate of curvature "
+        "c, d3V/dt3 per sample squared, c (3 m^2 + 3 m - 1) / 30 high: the fit's sums of "
+        "x^4 and x^2, Savitzky and Golay 1964; c read from the same dV/dt m samples, at "
+        "least one, either side of the crossing), reads the rate's measured curvature "
+        "instead of assuming its form. Their disagreement over the rate's step per sample, "
+        "times the voltage's step, is the part kept (the whole series term where the "
+        "estimator kept the linear crossing of a rate that does not grow). Half of it moves "
+        "the half-amplitude level, and so the half-width by that over the voltage's slope "
+        "at each crossing.",
         "",
         "Calibration (tests/analysis/test_spike_uncertainty.py): on recordings simulated "
         "from published models (Hodgkin and Huxley 1952, Wang and Buzsaki 1996, an adapting "

@@ -230,8 +230,8 @@ class TestKnownAnswers:
         v, s = spikes
         small = spike_uncertainty(v, self.RATE, s, _white(0.1, self.RATE))
         large = spike_uncertainty(v, self.RATE, s, _white(0.4, self.RATE))
-        # the onset window's smoothing bias (the same at any noise) adds in quadrature to
-        # threshold, AHP depth and half-width: their squares differ by 15 x the noise part
+        # what the threshold's smoothing correction may have left (the same at any noise)
+        # adds in quadrature to threshold, AHP depth and half-width
         for name in ("peak_mv_sd", "max_dvdt_v_per_s_sd"):
             np.testing.assert_allclose(getattr(large, name), 4 * getattr(small, name))
         # threshold, AHP depth and half-width: their squares are 4**2 (or 2**2) x the noise
@@ -312,6 +312,33 @@ class TestBiasesBetweenSamples:
         # control: the noise alone would give SDs far below the errors
         assert np.abs(peak_error).max() > 1e-3
 
+
+    @pytest.mark.parametrize("window, growth", [(3, 0.3), (7, 0.3), (11, 0.15)])
+    def test_exponential_shift_of_the_onset_fit(self, window, growth):
+        # source: an exponential V = exp(k x) / k (rate exp(k x) per sample) and numpy's
+        # least-squares quadratic (np.polyfit) over the window at each centre: its slope is
+        # the rate times a constant, so the crossing of a level by the fitted rates,
+        # interpolated as an exponential, lies exactly log(R) / k samples early; and the
+        # leading term of the fit's series (Savitzky and Golay 1964) agrees with it to first
+        # order in k (the series reads a linear step and a second difference of the rate)
+        from spikemeasure.analysis.detection import savgol_coeffs
+        from spikemeasure.analysis.spike_uncertainty import _exponential_shift, _series_shift
+
+        half = window // 2
+        x = np.arange(-half, half + 1, dtype=float)
+        voltage = np.exp(growth * np.arange(60.0)) / growth
+        fitted = np.array([np.polyfit(x, voltage[c - half:c + half + 1], 2)[1]
+                           for c in (30, 31)])
+        level = np.exp(growth * 30.4)                        # the true rate crosses at 30.4
+        crossing = 30 + np.log(level / fitted[0]) / np.log(fitted[1] / fitted[0])
+        weights = savgol_coeffs(window, 2, deriv=1, use="dot")
+        shift = _exponential_shift(weights[None, :], fitted[:1], fitted[1:])
+        assert crossing + shift[0] == pytest.approx(30.4, abs=1e-9)
+        assert shift[0] > 0 if window > 3 else shift[0] >= 0
+        series = _series_shift(voltage, weights[None, :], np.array([window]),
+                               np.array([30.4]), np.array([fitted[1] - fitted[0]]))
+        assert series[0] == pytest.approx(shift[0], rel=growth)
+        assert series[0] != pytest.approx(shift[0], rel=1e-3)  # two models, not one
 
 class TestInTables:
     def test_spike_table_carries_the_sds(self):
