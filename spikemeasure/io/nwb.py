@@ -391,6 +391,7 @@ def _nwb_recording(series: dict, types: set, recorded: list[_Recorded], path: Pa
     problems = [s.refused for _, s in unplaced]
     problem_electrodes = [s.electrode for _, s in unplaced]
     sweeps, first_channels = [], []
+    channels_of: set[str] = set()  # the electrodes whose first sweep's channels are listed
     shared: dict[tuple, int] = {}
     for r in recorded:
         shared[(r.electrode, r.key)] = shared.get((r.electrode, r.key), 0) + 1
@@ -400,8 +401,9 @@ def _nwb_recording(series: dict, types: set, recorded: list[_Recorded], path: Pa
             continue
         done.add((r.electrode, r.key))
         sweep, channels, found = _recorded_sweep(r, series, shown, index_of[r.key], cells)
-        if not first_channels:
-            first_channels = channels
+        if r.electrode not in channels_of and channels:
+            channels_of.add(r.electrode)
+            first_channels = first_channels + list(channels)
         if shared[(r.electrode, r.key)] > 1 and sweep is not None:
             found.append(f"{sweep.where()}: {shared[(r.electrode, r.key)]} responses share "
                          + ("this sweep and electrode" if cells > 1 else "this sweep number")

@@ -33,7 +33,7 @@ class Recording:
         :class:`~spikemeasure.io.sweep.StoredTrace` and :meth:`Sweep.loaded`), so the file
         stays open until :meth:`close`.
     channels : list of ChannelInfo
-        Channels of the first sweep.
+        Channels of the first sweep of each electrode.
     problems : list of str
         Parts of the file that were skipped, each naming the sweep and why.
     problem_electrodes : list of str

@@ -258,6 +258,9 @@ def test_the_api_and_inspect_give_a_cell_per_electrode(measured):
     text, ok = describe_file(str(data / "pair.nwb"))
     assert ok and "8 (2 cells, one per electrode)" in text
     assert "cell (electrode cell_a):" in text and "cell (electrode cell_b):" in text
+    channels = next(ln for ln in text.splitlines() if ln.startswith("channels:"))
+    # each electrode's voltage and command channel, not the first electrode's alone
+    assert channels.count("as voltage") == 2 and channels.count("as command") == 2
     sweep_lines = [ln.split() for ln in text.splitlines() if ln.startswith("cell_")]
     assert [(ln[0], ln[1]) for ln in sweep_lines] == [
         (name, str(k)) for name in CELLS for k in range(4)]
