@@ -18,6 +18,7 @@ from ..errors import InvalidSettingError
 from .fluctuation import weighted_sums_covariance
 
 __all__ = ["LineNoise", "estimate_line_noise", "remove_line_noise", "corrected_weights",
+           "removal_sd_mv", "stretches_covariance",
            "line_noise_lines",
            "MAINS_FREQUENCIES_HZ", "HUM_HARMONICS", "LINE_NOISE_FALSE_ALARM",
            "MIN_QUIET_PERIODS", "PLATEAU_AGREEMENT"]
@@ -175,17 +176,18 @@ def _fit(part: np.ndarray, samples: np.ndarray, rate: float, frequency_hz: float
     design = np.column_stack([constants, terms - terms.mean(axis=0)])
     # the normal equations: a few well-scaled columns (centred, the time in s), where an
     # SVD of the tall design would cost far more
-    pinv = np.linalg.solve(design.T @ design, design.T)
-    coef = pinv @ part
+    gram = design.T @ design
     if not covariance:
-        return coef[k:], None, None
+        return np.linalg.solve(gram, design.T @ part)[k:], None, None
+    pinv = np.linalg.solve(gram, design.T)
+    coef = pinv @ part
     residual = part - design @ coef
     rows = pinv[k:]
     if samples.size and samples[-1] - samples[0] + 1 != samples.size:
         dense = np.zeros((rows.shape[0], int(samples[-1] - samples[0]) + 1))
         dense[:, samples - samples[0]] = rows
         rows = dense
-    spectral = weighted_sums_covariance(rows, residual, rate)
+    spectral = stretches_covariance(rows, residual, rate)
     if spectral is None:
         return coef[k:], rows, None
     # white noise of the residual's variance, made larger where the residual's spectrum
@@ -203,7 +205,8 @@ def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s
                         false_alarm: float = LINE_NOISE_FALSE_ALARM,
                         drift: bool = True,
                         reference_s: tuple[float, float] | None = None,
-                        plateau_s: tuple[float, float] | None = None) -> LineNoise:
+                        plateau_s: tuple[float, float] | None = None,
+                        rest_s: tuple[float, float] | None = None) -> LineNoise:
     """Fit mains hum and a drift line to a quiet stretch and keep what is significant.
 
     Parameters
@@ -227,6 +230,10 @@ def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s
         A later stretch (s) where the response to a stimulus has settled (the steady-state
         window of a step): with a level of its own, its slope joins the drift's estimate,
         a lever the short quiet stretch lacks (see Notes).
+    rest_s : (float, float), optional
+        A stretch (s) after the stimulus, and after any plateau, where the membrane is back
+        at rest (after the step and any spike it evoked): it shares the quiet stretch's
+        level, so the drift's slope is read across the sweep (see Notes).
 
     Returns
     -------
@@ -262,6 +269,18 @@ def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s
        alone, as without a plateau. The plateau's settling that the test let through, the
        plateau's weight in the slope times the slopes' difference beyond its noise, is kept
        as ``untested_drift_sd_mv_per_s`` for the SDs.
+    5. With a rest stretch, the voltage there is taken to be the resting level the quiet
+       stretch holds, moved by the drift alone (what ``baseline_drift_mv`` reads): the two
+       share one constant, so the slope is read from the change of level between them,
+       over a lever of the time between the stretches (its standard error about noise /
+       sqrt(N) over that time, several times below the quiet stretch's own). It joins only
+       when a slope of its own for each stretch and a bend for the rest stretch, fitted
+       beside the shared line, are not significant together at :data:`PLATEAU_AGREEMENT`:
+       a membrane still settling from the step there (an after-hyperpolarization, a
+       rebound) has a slope or bend of its own that the line through both levels does not
+       follow. A resting level that moved without any slope in either stretch cannot be
+       told from drift; the rest stretch's share of the slope beyond its noise is kept in
+       ``untested_drift_sd_mv_per_s``, as for a plateau.
     The hum's phase is taken to hold across the sweep, so the hum found on the stretch is
     the hum of the whole sweep; the drift is a straight line through it.
 
@@ -298,6 +317,7 @@ def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s
         return none
     samples = np.arange(first, stop)
     levels, difference = None, float("nan")
+    plateau, rest = np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
     if drift and plateau_s is not None:
         lo, hi = max(stop, int(round(plateau_s[0] * rate))), min(v.size,
                                                                 int(round(plateau_s[1] * rate)))
@@ -306,7 +326,26 @@ def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s
             marks = (both >= lo).astype(float)
             agrees, difference = _plateau_agrees(v[both], both, rate, harmonics, marks)
             if agrees:
-                samples, part, levels = both, v[both], marks
+                plateau = np.arange(lo, hi)
+    rest_difference = float("nan")
+    if drift and rest_s is not None:
+        after = plateau[-1] + 1 if plateau.size else stop
+        lo, hi = max(after, int(round(rest_s[0] * rate))), min(v.size,
+                                                              int(round(rest_s[1] * rate)))
+        if hi - lo >= need and np.isfinite(v[lo:hi]).all():
+            both = np.concatenate([samples, np.arange(lo, hi)])
+            marks = (both >= lo).astype(float)
+            agrees, rest_difference = _rest_agrees(v[both], both, rate, harmonics, marks,
+                                                   _stronger_mains(part, np.arange(first, stop),
+                                                                   rate, harmonics))
+            if agrees:
+                rest = np.arange(lo, hi)
+    if plateau.size or rest.size:
+        both = np.concatenate([samples, plateau, rest])
+        marks = np.zeros(both.size)
+        marks[samples.size:samples.size + plateau.size] = 1.0
+        samples, part, levels = both, v[both], marks
+    quiet = (np.arange(samples.size) < stop - first)
     best = None
     for f in MAINS_FREQUENCIES_HZ:
         below = tuple(h for h in range(1, harmonics + 1) if h * f < rate / 2)
@@ -334,20 +373,45 @@ def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s
                          reference, slope, _excess(slope, slope_sd ** 2))
     if not keep_drift and levels is not None:
         # the hum alone is fitted on the quiet stretch alone, as without a plateau
-        samples, part, levels, stop = samples[levels == 0], part[levels == 0], None, quiet_stop
+        samples, part, levels, stop = samples[quiet], part[quiet], None, quiet_stop
     coef, rows, _ = _fit(part, samples, rate, f, kept, keep_drift, levels)
-    # a drift not kept stays in the voltage; a kept drift that a plateau joined may hold
-    # the plateau's own settling, times the plateau's weight in the slope
+    # a drift not kept stays in the voltage; a kept drift that a plateau or a rest
+    # stretch joined may hold that stretch's own settling, times its weight in the slope
     untested = _excess(slope, slope_sd ** 2) if not keep_drift else 0.0
     if keep_drift and levels is not None:
-        on_plateau = samples[levels > 0] - first
-        t = on_plateau / rate
-        untested = abs(float(rows[0, on_plateau] @ (t - t.mean()))) * difference
+        parts = []
+        for stretch, size in ((plateau, difference), (rest, rest_difference)):
+            if stretch.size:
+                t = stretch / rate
+                parts.append(abs(float(rows[0, stretch - first] @ (t - t.mean()))) * size)
+        untested = float(np.hypot.reduce(parts)) if parts else 0.0
     hum = coef[1:] if keep_drift else coef
     cos, sin = hum[0::2], hum[1::2]
     return LineNoise(f if kept else float("nan"), kept, np.hypot(cos, sin),
                      np.arctan2(-sin, cos), float(coef[0]) if keep_drift else float("nan"),
                      slope_sd, first, stop, rate, rows, coef, reference, slope, untested)
+
+
+def stretches_covariance(rows: np.ndarray, noise_mv: np.ndarray, rate: float
+                         ) -> np.ndarray | None:
+    """:func:`~spikemeasure.analysis.fluctuation.weighted_sums_covariance` of weights that
+    are zero between separate stretches (a quiet stretch, a plateau, a rest stretch), as the
+    sum of each stretch's own: noise samples a hundred ms and more apart are taken as
+    uncorrelated (what is not is the hum, which the fit holds), so the cost follows the
+    stretches' lengths, not the span between them. None as there."""
+    used = np.flatnonzero(np.any(rows != 0, axis=0))
+    if used.size == 0:
+        return weighted_sums_covariance(rows, noise_mv, rate)
+    breaks = np.flatnonzero(np.diff(used) > 1)
+    starts = np.concatenate([[used[0]], used[breaks + 1]])
+    stops = np.concatenate([used[breaks] + 1, [used[-1] + 1]])
+    total = None
+    for a, b in zip(starts, stops):
+        part = weighted_sums_covariance(rows[:, a:b], noise_mv, rate)
+        if part is None:
+            return None
+        total = part if total is None else total + part
+    return total
 
 
 def _plateau_agrees(part: np.ndarray, samples: np.ndarray, rate: float, harmonics: int,
@@ -373,6 +437,43 @@ def _plateau_agrees(part: np.ndarray, samples: np.ndarray, rate: float, harmonic
     if cov is None:
         return False, float("nan")
     return (_wald(coef[-2:], cov[-2:, -2:]) <= chdtri(2, PLATEAU_AGREEMENT),
+            _excess(float(coef[-2]), float(cov[-2, -2])))
+
+
+def _stronger_mains(part: np.ndarray, samples: np.ndarray, rate: float, harmonics: int
+                    ) -> float:
+    """The mains frequency whose harmonics (with a line) explain more of `part`."""
+    best = None
+    for f in MAINS_FREQUENCIES_HZ:
+        below = tuple(h for h in range(1, harmonics + 1) if h * f < rate / 2)
+        coef, _, _ = _fit(part, samples, rate, f, below, True, covariance=False)
+        explained = float(np.sum(coef[1:] ** 2))
+        if best is None or explained > best[0]:
+            best = (explained, f)
+    return best[1]
+
+
+def _rest_agrees(part: np.ndarray, samples: np.ndarray, rate: float, harmonics: int,
+                 marks: np.ndarray, frequency_hz: float) -> tuple[bool, float]:
+    """Whether a rest stretch (`marks` 1) follows the line through its level and the quiet
+    stretch's (:data:`PLATEAU_AGREEMENT`), and the size of its own slope's difference from
+    that line beyond its noise (:func:`_excess`): the test of a slope of its own for each
+    stretch and a bend for the rest stretch, beside one constant, the line and the hum of
+    `frequency_hz` (the stronger mains frequency on the quiet stretch)."""
+    t = samples / rate
+    columns = []
+    for mark in (1.0 - marks, marks):
+        x = mark * (t - t[mark > 0].mean())
+        columns.append(x)
+    x = columns[1]
+    columns.append(marks * (x * x - np.mean(x[marks > 0] ** 2)))
+    extra = np.column_stack(columns)
+    f = frequency_hz
+    below = tuple(h for h in range(1, harmonics + 1) if h * f < rate / 2)
+    coef, _, cov = _fit(part, samples, rate, f, below, True, None, extra)
+    if cov is None:
+        return False, float("nan")
+    return (_wald(coef[-3:], cov[-3:, -3:]) <= chdtri(3, PLATEAU_AGREEMENT),
             _excess(float(coef[-2]), float(cov[-2, -2])))
 
 
@@ -436,6 +537,48 @@ def corrected_weights(weights: np.ndarray, first_sample: int, fit: LineNoise
     through = rows @ fit.basis(int(first_sample), int(first_sample) + n)  # (k, terms)
     out[:, fit.first_sample - lo:fit.stop_sample - lo] -= through @ fit.sensitivity
     return out, lo
+
+
+def removal_sd_mv(fit: LineNoise, time_s: np.ndarray, noise_mv: np.ndarray) -> np.ndarray:
+    """SD of the hum and drift removed (:func:`remove_line_noise`) at each time, from the
+    uncertainty of the fit's kept terms.
+
+    Parameters
+    ----------
+    fit : LineNoise
+    time_s : ndarray
+        Times, s from the sweep's first sample (NaN gives NaN).
+    noise_mv : ndarray
+        A stretch of the recording's noise (the baseline less the removal), whose spectrum
+        the coefficients' covariance follows
+        (:func:`~spikemeasure.analysis.fluctuation.weighted_sums_covariance`).
+
+    Returns
+    -------
+    ndarray
+        mV; 0 where nothing was removed, NaN where the noise is unknown.
+
+    Notes
+    -----
+    The removed artefact at sample i is b(i) . c, b(i) the kept terms there (less their mean
+    over the reference window) and c = S v the coefficients, S the fit's sensitivity rows;
+    its variance is b(i) (S C_v S^T) b(i)^T, C_v the noise's covariance over the fitted
+    samples. A value read far from the fitted stretches (a spike during the step) has noise
+    of its own independent of theirs, so the two add in quadrature.
+    """
+    t = np.asarray(time_s, dtype=float)
+    out = np.zeros(t.shape)
+    if not fit.found:
+        return out
+    cov = stretches_covariance(fit.sensitivity, np.asarray(noise_mv, dtype=float),
+                               fit.sampling_rate_hz)
+    known = np.isfinite(t)
+    if cov is None:
+        return np.full(t.shape, np.nan)
+    terms = _basis(np.round(t[known] * fit.sampling_rate_hz), fit)
+    out[known] = np.sqrt(np.maximum(0.0, np.einsum("ij,jk,ik->i", terms, cov, terms)))
+    out[~known] = np.nan
+    return out
 
 
 def line_noise_lines() -> list[str]:

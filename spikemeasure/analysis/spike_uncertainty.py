@@ -24,6 +24,7 @@ from .local_fits import fit_weights_at
 from .spike_features import PEAK_ORDER, onset_window, peak_windows
 from .spike_rates import max_rate_weights, noise_before
 from .sweeps import CurrentStep
+from .line_noise import LineNoise, removal_sd_mv
 # the noise the SDs are computed from, importable from here as before
 from .noise_model import (DRIFT_BLOCK_MS, MAX_QUIET_MS, MIN_QUIET_MS, SPIKE_CLEARANCE_MS,
                           NoiseModel, measured_noise, quiet_stretch)
@@ -653,8 +654,8 @@ def _biases(v: np.ndarray, rate: float, spikes: SpikeMeasurements, noise: NoiseM
 
 def with_uncertainty(spikes: SpikeMeasurements, voltage_mv: np.ndarray,
                      sampling_rate_hz: float, step: CurrentStep | None,
-                     settings: DetectionSettings = DetectionSettings()
-                     ) -> SpikesWithUncertainty:
+                     settings: DetectionSettings = DetectionSettings(),
+                     line_noise: LineNoise | None = None) -> SpikesWithUncertainty:
     """The spikes of one sweep with their SDs (:data:`SD_COLUMNS`), the noise measured on the
     sweep's quiet stretch (:func:`~spikemeasure.analysis.noise_model.quiet_stretch`,
     :func:`~spikemeasure.analysis.noise_model.measured_noise`).
@@ -669,6 +670,11 @@ def with_uncertainty(spikes: SpikeMeasurements, voltage_mv: np.ndarray,
     step : CurrentStep or None
         The sweep's main stimulus.
     settings : DetectionSettings, optional
+    line_noise : LineNoise, optional
+        The hum and drift removed from `voltage_mv` before the spikes were measured
+        (:func:`~spikemeasure.analysis.sweep_features.sweep_line_noise`): the SDs of the
+        threshold and the peak then hold the removal's own uncertainty at their times
+        (:func:`~spikemeasure.analysis.line_noise.removal_sd_mv`), in quadrature.
 
     Returns
     -------
@@ -686,8 +692,14 @@ def with_uncertainty(spikes: SpikeMeasurements, voltage_mv: np.ndarray,
             noise = measured_noise(v, sampling_rate_hz, *stretch,
                                    drift=not np.isfinite(step.test_pulse_start_s))
     sds = spike_uncertainty(v, sampling_rate_hz, spikes, noise, settings)
+    out = {name: getattr(sds, name) for name in SD_COLUMNS}
+    if line_noise is not None and line_noise.found and noise is not None:
+        lo, hi = line_noise.reference
+        for name, times in (("threshold_mv_sd", spikes.threshold_s),
+                            ("peak_mv_sd", spikes.peak_s)):
+            out[name] = np.hypot(out[name], removal_sd_mv(line_noise, times, v[lo:hi]))
     values = {f.name: getattr(spikes, f.name) for f in fields(SpikeMeasurements)}
-    return SpikesWithUncertainty(**values, **{name: getattr(sds, name) for name in SD_COLUMNS})
+    return SpikesWithUncertainty(**values, **out)
 
 
 def uncertainty_lines() -> list[str]:

@@ -12,19 +12,20 @@ import numpy as np
 
 from ..errors import InvalidSettingError
 from .fluctuation import BASELINE_WINDOW_MS
-from .line_noise import LineNoise
+from .line_noise import LineNoise, remove_line_noise
 from .block import (BLOCK_MAX_ISI_MS, BLOCK_MIN_SILENCE_MS, BLOCK_SILENCE_TO_ISI,
                     depolarization_block)
 from .sweeps import MIN_SAMPLING_RATE_HZ, CurrentStep, missing_stretches
 # the passive measurements, importable from here as before
 from .sweep_passive import (MIN_WINDOW_MS, SAG_NOISE_FACTOR, STEADY_STATE_WINDOW_MS,
                             TROUGH_WINDOW_FRACTION, PassiveResponse, passive_response,
-                            passive_voltage)
+                            passive_voltage, rest_start)
 
 __all__ = ["SweepFeatures", "baseline", "first_spike_current", "baseline_drift", "firing", "adaptation_index",
            "passive_response", "sweep_features", "MIN_WINDOW_MS", "DRIFT_WINDOW_MS",
            "BASELINE_WINDOW_MS", "STEADY_STATE_WINDOW_MS", "SWEEP_FLAG_TEXT", "PassiveResponse",
-           "TROUGH_WINDOW_FRACTION", "SAG_NOISE_FACTOR", "passive_voltage"]
+           "TROUGH_WINDOW_FRACTION", "SAG_NOISE_FACTOR", "passive_voltage",
+           "sweep_line_noise"]
 
 
 #: Length of the window at the end of the sweep, after the step, whose mean voltage is
@@ -268,7 +269,8 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
                    clipped_spike_count: int = 0,
                    duration_s: float | None = None, gaps: np.ndarray | None = None,
                    spikes_counted: bool | None = None,
-                   command_pa: np.ndarray | None = None) -> SweepFeatures:
+                   command_pa: np.ndarray | None = None,
+                   line_noise: LineNoise | None = None) -> SweepFeatures:
     """All features of one sweep.
 
     Parameters
@@ -302,6 +304,9 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
     command_pa : ndarray, optional
         The command current, for the current at the first spike when the stimulus is
         neither a step nor a ramp (read at the nearest sample).
+    line_noise : LineNoise, optional
+        The sweep's hum and drift (:func:`sweep_line_noise`), when already estimated (the
+        spikes were measured without them); by default estimated here.
 
     Returns
     -------
@@ -379,11 +384,12 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
             and depolarization_block(voltage_mv, rate, times, step.onset_s,
                                      step.offset_s).blocked):
         flags.append("depolarization_block")
-    # a step without spikes settles to a plateau, whose slope tells the drift too
-    in_step = times[(times >= step.onset_s) & (times < step.offset_s)]
-    plateau_ms = steady_window_ms if spikes_counted and in_step.size == 0 else None
-    passive, line_noise = passive_voltage(voltage_mv, rate, step, baseline_window_ms,
-                                          steady_window_ms=plateau_ms)
+    if line_noise is None:
+        line_noise = sweep_line_noise(voltage_mv, rate, step, times,
+                                      baseline_window_ms=baseline_window_ms,
+                                      steady_window_ms=steady_window_ms,
+                                      spikes_counted=spikes_counted)
+    passive = remove_line_noise(voltage_mv, line_noise)
     response = passive_response(passive, sampling_rate_hz, step, base, steady_window_ms,
                                 drift_mv=(baseline_drift(passive, rate, step.offset_s, base)
                                           if line_noise.found else drift),
@@ -407,6 +413,46 @@ def sweep_features(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curren
         baseline_drift_mv=drift, flags=tuple(flags),
         **_stimulus_values(step, fire["first_spike_latency_ms"], rate, command_pa), **fire)
 
+
+
+def sweep_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, step: CurrentStep,
+                     spike_times_s: np.ndarray | None, *,
+                     baseline_window_ms: float = BASELINE_WINDOW_MS,
+                     steady_window_ms: float = STEADY_STATE_WINDOW_MS,
+                     spikes_counted: bool = True) -> LineNoise:
+    """The hum and drift of a sweep with a step, as every value of the sweep reads them.
+
+    Parameters
+    ----------
+    voltage_mv : ndarray
+        Raw voltage, mV.
+    sampling_rate_hz : float
+    step : CurrentStep
+    spike_times_s : ndarray or None
+        The sweep's spike times (s); None when unknown (the fit then reads the baseline
+        alone).
+    baseline_window_ms, steady_window_ms : float, optional
+    spikes_counted : bool, optional
+        False when spikes could not be counted (the fit then reads the baseline alone).
+
+    Returns
+    -------
+    LineNoise
+        From :func:`~spikemeasure.analysis.sweep_passive.passive_voltage`: fitted on the
+        baseline window; on a step without spikes, also on its steady-state window (a
+        plateau); where spikes are known, also on the stretch after the step where the
+        membrane is back at rest (:func:`~spikemeasure.analysis.sweep_passive.rest_start`:
+        the second half of it, spikes after the step left out).
+    """
+    rate = float(sampling_rate_hz)
+    known = spikes_counted and spike_times_s is not None
+    times = np.asarray(spike_times_s if known else [], dtype=float)
+    in_step = times[(times >= step.onset_s) & (times < step.offset_s)]
+    # a step without spikes settles to a plateau, whose slope tells the drift too
+    plateau_ms = steady_window_ms if known and in_step.size == 0 else None
+    rest = rest_start(step, voltage_mv.size / rate, times) if known else None
+    return passive_voltage(voltage_mv, rate, step, baseline_window_ms,
+                           steady_window_ms=plateau_ms, rest_start_s=rest)[1]
 
 
 def _firing_around_gaps(times: np.ndarray, window: CurrentStep, lo: int, hi: int,

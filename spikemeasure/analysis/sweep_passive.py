@@ -16,7 +16,8 @@ from .fluctuation import BASELINE_WINDOW_MS, baseline_stretch, weighted_sums_cov
 from .line_noise import LineNoise, corrected_weights, estimate_line_noise, remove_line_noise
 from .sweeps import CurrentStep
 
-__all__ = ["PassiveResponse", "passive_response", "passive_voltage", "MIN_WINDOW_MS",
+__all__ = ["PassiveResponse", "passive_response", "passive_voltage", "rest_start",
+           "REST_AFTER_STEP_FRACTION", "REST_AFTER_SPIKE_MS", "MIN_WINDOW_MS",
            "TROUGH_WINDOW_FRACTION", "SAG_NOISE_FACTOR", "STEADY_STATE_WINDOW_MS"]
 
 #: Width of the moving average whose minimum during the step is min_mv (noise would pull a
@@ -33,6 +34,11 @@ MIN_WINDOW_MS = 1.0
 #: times, only slightly (a rule of our own).
 TROUGH_WINDOW_FRACTION = 1.0
 
+#: A sag is reported only when it exceeds this many times its own SD (sag_fraction_sd:
+#: the noise of the baseline, steady state and minimum, with the drift the hum and drift
+#: removal could not exclude); at or below it, it is 0 with ``sag_within_noise``.
+SAG_SD_FACTOR = 2.0
+
 #: Sag counts as present only when steady_state_mv - min_mv exceeds this many times the SD
 #: that the baseline's noise (with its spectrum) leaves on the moving average under min_mv,
 #: plus the sweep's drift: over a 0.5 s step, noise alone pulls the smoothed minimum about
@@ -42,6 +48,15 @@ SAG_NOISE_FACTOR = 5.0
 
 #: Length of the window at the end of the step whose mean is the steady-state voltage.
 STEADY_STATE_WINDOW_MS = 100.0
+
+#: The stretch after a step that the drift's fit may read as rest (:func:`rest_start`)
+#: starts this fraction of the way from the step's end to the sweep's end: the first part
+#: is left to the membrane's return from the step.
+REST_AFTER_STEP_FRACTION = 0.5
+
+#: ... and at least this long after the last spike after the step's end (a rebound spike
+#: and its after-hyperpolarization are not rest).
+REST_AFTER_SPIKE_MS = 20.0
 
 
 @dataclass(frozen=True)
@@ -204,12 +219,11 @@ def passive_response(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curr
     # the drift the estimate could not exclude moves the sag (a difference of window means
     # at different times), not the noise under one window
     untested = _untested_drift_cov(raw_weights, base_lo, rate, line_noise)
-    drift = abs(drift_mv) if np.isfinite(drift_mv) else 0.0
-    hidden = SAG_NOISE_FACTOR * float(np.sqrt(max(0.0, cov[2, 2]))) + drift
-    within = steady - averaged <= hidden
-    # a sag over noise is read at its vertex; within noise, the average's minimum stays
-    use = 3 if vertex is not None and not within else 2
+    # the trough is read at its vertex where the parabola fits, else at the average's
+    # minimum
+    use = 3 if vertex is not None else 2
     lowest = vertex[0] if use == 3 else averaged
+    full_cov = cov
     cov = cov[np.ix_([0, 1, use], [0, 1, use])]
     untested = untested[np.ix_([0, 1, use], [0, 1, use])]
     sag = (steady - lowest) / (baseline_mv - lowest)
@@ -220,10 +234,14 @@ def passive_response(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curr
     sag_sd = float(np.sqrt(max(0.0, gradient @ (cov + untested) @ gradient)))
     deflection = np.array([-1.0, 1.0, 0.0])
     deflection_sd = float(np.sqrt(max(0.0, deflection @ cov @ deflection)))
+    # noise alone pulls the trough smoothing's minimum below a flat response (the lowest of
+    # many window means): a sag is resolved only beyond that and beyond its own SD
+    dip = SAG_NOISE_FACTOR * float(np.sqrt(max(0.0, full_cov[2, 2])))
+    within = not (steady - averaged > dip and sag > SAG_SD_FACTOR * sag_sd)
     if within:
-        # reported as 0, the sag may be anything up to what noise and drift hide: +/- 2 SD
-        # spans it
-        sag_sd = max(sag_sd, hidden / depth / 2)
+        # reported as 0, the sag may be anything up to the value read or what noise hides:
+        # +/- 2 SD spans it
+        sag_sd = max(sag_sd, max(sag, dip / depth, 0.0) / 2)
     if not np.isfinite(with_drift):
         with_drift = deflection_sd
     return PassiveResponse(steady, lowest, 0.0 if within else sag, sag_sd, deflection_sd,
@@ -292,7 +310,8 @@ def _moving_average(x: np.ndarray, length: int) -> np.ndarray:
 
 def passive_voltage(voltage_mv: np.ndarray, sampling_rate_hz: float, step: CurrentStep,
                     baseline_window_ms: float = BASELINE_WINDOW_MS, *,
-                    steady_window_ms: float | None = None
+                    steady_window_ms: float | None = None,
+                    rest_start_s: float | None = None
                     ) -> tuple[np.ndarray, LineNoise]:
     """The voltage the passive values read: the sweep's mains hum and drift removed.
 
@@ -308,6 +327,10 @@ def passive_voltage(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curre
     steady_window_ms : float, optional
         The steady-state window at the end of a step without spikes: given, the drift's
         slope is fitted on it too, where it follows the baseline's line (see Notes).
+    rest_start_s : float, optional
+        Given, the stretch from it to the sweep's end (after the step, where the membrane is
+        back at rest: :func:`rest_start`) joins the drift's fit with the baseline's level,
+        where it follows their line (see Notes).
 
     Returns
     -------
@@ -336,6 +359,13 @@ def passive_voltage(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curre
     (:func:`~spikemeasure.analysis.line_noise.estimate_line_noise`, `plateau_s`): the
     slope's standard error falls by about sqrt(2), and the test that keeps the drift gains
     that much.
+
+    With `rest_start_s`, the stretch after the step where the membrane is back at rest (the
+    stretch ``baseline_drift_mv`` reads, spikes after the step left out) shares the
+    baseline's level: the drift is then read from the change of the resting level across
+    the sweep, a lever of several hundred ms, when each stretch's own slope and the rest
+    stretch's bend agree with that line
+    (:func:`~spikemeasure.analysis.line_noise.estimate_line_noise`, `rest_s`).
     """
     rate = float(sampling_rate_hz)
     onset = int(round(step.onset_s * rate))
@@ -348,6 +378,21 @@ def passive_voltage(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curre
         plateau = (max(onset / rate, step.offset_s - steady_window_ms * 1e-3), step.offset_s)
     fit = estimate_line_noise(voltage_mv, rate, first / rate, onset / rate,
                               drift=not np.isfinite(step.test_pulse_start_s),
-                              plateau_s=plateau)
+                              plateau_s=plateau,
+                              rest_s=(None if rest_start_s is None or step.shape != "step"
+                                      else (rest_start_s, voltage_mv.size / rate)))
     return remove_line_noise(voltage_mv, fit), fit
+
+
+def rest_start(step: CurrentStep, duration_s: float, spike_times_s: np.ndarray) -> float:
+    """Where the membrane is taken to be back at rest after a step: the later of the middle
+    of the stretch from the step's end to the sweep's end (:data:`REST_AFTER_STEP_FRACTION`
+    of it) and :data:`REST_AFTER_SPIKE_MS` after the last spike after the step's end, s
+    from the sweep's first sample (at or after `duration_s` when no such stretch is left)."""
+    after = step.offset_s + REST_AFTER_STEP_FRACTION * max(0.0, duration_s - step.offset_s)
+    times = np.asarray(spike_times_s, dtype=float)
+    later = times[np.isfinite(times) & (times >= step.offset_s)]
+    if later.size:
+        after = max(after, float(later.max()) + REST_AFTER_SPIKE_MS * 1e-3)
+    return after
 

@@ -20,7 +20,8 @@ from ..analysis.spikes_in_parts import measure_around_gaps, measure_in_pieces_wi
 from ..analysis.spike_uncertainty import with_uncertainty
 from ..io import Recording, Sweep
 from ..io.sweep import StoredTrace
-from ..analysis.sweep_features import SweepFeatures, sweep_features
+from ..analysis.line_noise import LineNoise, remove_line_noise
+from ..analysis.sweep_features import SweepFeatures, sweep_features, sweep_line_noise
 from ..analysis.sweeps import (CurrentStep, check_sweep, missing_stretches, protocol_steps,
                      spikes_measurable, stretches_text)
 
@@ -110,20 +111,14 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
             gaps = missing_stretches(voltage)
             if gaps.size:
                 voltage = np.where(np.isfinite(voltage), voltage, np.nan)
-            if not counted:
-                spikes = SpikeMeasurements.empty()
-            elif gaps.size:
-                spikes = measure_around_gaps(voltage, rate, settings, step)
-            else:
-                trace = smoothed_trace(voltage, rate, settings.smoothing_ms,
-                                       second_derivative=settings.needs_second_derivative)
-                spikes = measure_spikes(trace, detect_spikes(trace, settings), settings, step)
-            spikes = with_uncertainty(spikes, voltage, rate, step, settings)
+            spikes, line_noise = _spikes_without_line_noise(voltage, rate, step, settings,
+                                                            gaps, counted)
             edge_gaps = _command_edge_gaps(sweep, step)
             all_gaps = np.concatenate([gaps, edge_gaps]) if edge_gaps.size else gaps
             features = sweep_features(voltage, rate, step, spike_times(spikes),
                                       clipped_spike_count=_clipped(spikes), gaps=all_gaps,
-                                      spikes_counted=counted, command_pa=sweep.command_pa)
+                                      spikes_counted=counted, command_pa=sweep.command_pa,
+                                      line_noise=line_noise)
             if edge_gaps.size:
                 features = replace(features,
                                    flags=features.flags + ("gap_at_step_edge_in_command",))
@@ -146,6 +141,40 @@ def measure_sweep(sweep: Sweep, settings: DetectionSettings = DetectionSettings(
             msg = f"{sweep.where()}: {msg}"
         return SweepResult(kept, None, None, None, msg)
     return SweepResult(kept, step, spikes, features)
+
+
+def _spikes_without_line_noise(voltage: np.ndarray, rate: float, step: CurrentStep | None,
+                               settings: DetectionSettings, gaps: np.ndarray, counted: bool
+                               ) -> tuple[SpikeMeasurements, LineNoise | None]:
+    """The spikes of a whole sweep in memory, with their SDs, measured on the voltage less
+    the sweep's hum and drift (:func:`~spikemeasure.analysis.sweep_features.sweep_line_noise`,
+    fitted with the spikes' times as a first detection on the recorded voltage gives them),
+    and that estimate, for the sweep's other values (None where :func:`sweep_features`
+    estimates it: without a step, with a gap, without spikes counted)."""
+    if not counted:
+        return with_uncertainty(SpikeMeasurements.empty(), voltage, rate, step, settings), None
+    if gaps.size:
+        # the baseline's fit alone: the spikes' times are not known before the gaps' rules
+        line_noise = (sweep_line_noise(voltage, rate, step, None) if step is not None
+                      else None)
+        corrected = (remove_line_noise(voltage, line_noise) if line_noise is not None
+                     else voltage)
+        spikes = measure_around_gaps(corrected, rate, settings, step)
+        return with_uncertainty(spikes, corrected, rate, step, settings, line_noise), None
+    trace = smoothed_trace(voltage, rate, settings.smoothing_ms,
+                           second_derivative=settings.needs_second_derivative)
+    detected = detect_spikes(trace, settings)
+    line_noise = None
+    if step is not None:
+        line_noise = sweep_line_noise(voltage, rate, step,
+                                      np.asarray(detected.peak_sample) / rate)
+        if line_noise.found:
+            voltage = remove_line_noise(voltage, line_noise)
+            trace = smoothed_trace(voltage, rate, settings.smoothing_ms,
+                                   second_derivative=settings.needs_second_derivative)
+            detected = detect_spikes(trace, settings)
+    spikes = measure_spikes(trace, detected, settings, step)
+    return with_uncertainty(spikes, voltage, rate, step, settings, line_noise), line_noise
 
 
 def _lazy_gaps(sweep: Sweep, cancel=None) -> np.ndarray:
