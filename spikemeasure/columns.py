@@ -35,7 +35,8 @@ from .analysis.line_noise import line_noise_lines
 from .analysis.sweeps import COMMAND_MEDIAN_SAMPLES
 from .analysis.spikes import CLIPPED_RUN_SAMPLES, FLAG_TEXT, PIECE_SAMPLES
 from .analysis.sweep_features import BASELINE_WINDOW_MS, DRIFT_WINDOW_MS, SWEEP_FLAG_TEXT
-from .analysis.sweep_passive import (MIN_WINDOW_MS, SAG_NOISE_FACTOR, STEADY_STATE_WINDOW_MS,
+from .analysis.sweep_passive import (MIN_WINDOW_MS, SAG_NOISE_FACTOR, SAG_SD_FACTOR,
+                                     STEADY_STATE_WINDOW_MS,
                                      TROUGH_WINDOW_FRACTION)
 from .params import parameter
 
@@ -331,9 +332,12 @@ SWEEP_COLUMNS: tuple[Column, ...] = (
            4),
     Column("sag_fraction", "", "Hyperpolarizing steps only: (steady_state_mv - min_mv) / "
            "(baseline_mv - min_mv); 0 for no sag, and 0 with the sweep flag "
-           "`sag_within_noise` when steady_state_mv - min_mv (min_mv on the wider average) "
-           f"is not over {SAG_NOISE_FACTOR:g} times the SD of that average (from the "
-           "baseline's noise spectrum, see sag_fraction_sd) plus abs(baseline_drift_mv).", 5),
+           "`sag_within_noise` when the recording cannot resolve it: when it is not over "
+           f"{SAG_SD_FACTOR:g} times its own SD (sag_fraction_sd, which holds the drift the "
+           "hum and drift removal could not exclude), or steady_state_mv - min_mv (min_mv "
+           f"on the wider average) is not over {SAG_NOISE_FACTOR:g} times the SD of that "
+           "average (noise alone pulls the lowest of a flat response's many window means "
+           "about 3 SD down).", 5),
     Column("sag_fraction_sd", "", "SD of sag_fraction that the recording's noise implies: "
            "baseline_mv, steady_state_mv and min_mv are weighted sums of samples (window "
            "means; the parabola's vertex with its position held fixed), whose covariance "
@@ -348,7 +352,8 @@ SWEEP_COLUMNS: tuple[Column, ...] = (
            "window, its size beyond noise (sqrt(max(0, b^2 - var b)), b the fitted slope) "
            "times the window's mean time (see Hum and drift). "
            "With the flag `sag_within_noise` (sag 0), at least "
-           "half the sag that noise and drift could hide, so +/- 2 SD spans it. Empty where "
+           f"half the sag that noise and drift could hide ({SAG_NOISE_FACTOR:g} times the SD "
+           "of min_mv's average plus abs(baseline_drift_mv)), so +/- 2 SD spans it. Empty where "
            "sag_fraction is.", 5),
     Column("sampling_rate_hz", "Hz", "Samples per second of the sweep's voltage, as the file "
            "declares it (or `--sampling-rate`).", 3),

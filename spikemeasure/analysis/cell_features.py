@@ -22,7 +22,7 @@ from .cell_passive import (MAX_FLUCTUATION_TO_DEFLECTION, MAX_MISFIT_TO_DEFLECTI
                            MAX_TAU_SD_FRACTION, NOISE_FLOOR_MV,
                            SLOW_SWEEP_MAX_RISE_MV, input_resistance, input_resistance_sd,
                            passive_sweeps, passive_values, steps_only)
-from .sweep_passive import SAG_NOISE_FACTOR
+from .sweep_passive import SAG_NOISE_FACTOR, SAG_SD_FACTOR
 
 __all__ = ["CellFeatures", "ExponentialFit", "SharedTauFit", "fit_membrane_tau",
            "fit_shared_tau", "rheobase", "ramp_rheobase", "fi_slope", "input_resistance",
@@ -31,7 +31,7 @@ __all__ = ["CellFeatures", "ExponentialFit", "SharedTauFit", "fit_membrane_tau",
            "MAX_TAU_SD_FRACTION", "NOISE_FLOOR_MV", "FILTER_DELAY_MS", "END_FRACTION", "WINDOW_TAUS",
            "TAU_SMOOTHING_MS",
            "HOLDING_TOLERANCE_PA", "SLOW_SWEEP_MAX_RISE_MV", "MAX_FLUCTUATION_TO_DEFLECTION",
-           "SAG_NOISE_FACTOR"]
+           "SAG_NOISE_FACTOR", "SAG_SD_FACTOR"]
 
 #: Sweeps whose holding current is within this of zero count as "no holding current".
 HOLDING_TOLERANCE_PA = 1.0
@@ -111,9 +111,10 @@ CELL_FLAG_TEXT = {
                            "where one exponential means nothing, so the time constant is "
                            "left empty",
     "sag_within_noise": "the most hyperpolarizing sweep has the sweep flag "
-                        "`sag_within_noise` (its sag is not over "
+                        "`sag_within_noise` (the recording cannot resolve its sag: not over "
+                        f"{SAG_SD_FACTOR:g} times its own SD, or not over "
                         f"{SAG_NOISE_FACTOR:g} times the SD its baseline's noise leaves on "
-                        "the smoothing under min_mv, plus its drift): sag_fraction is 0",
+                        "the smoothing under min_mv): sag_fraction is 0",
 }
 
 

@@ -21,7 +21,8 @@ __all__ = ["LineNoise", "estimate_line_noise", "remove_line_noise", "corrected_w
            "removal_sd_mv", "stretches_covariance",
            "line_noise_lines",
            "MAINS_FREQUENCIES_HZ", "HUM_HARMONICS", "LINE_NOISE_FALSE_ALARM",
-           "MIN_QUIET_PERIODS", "PLATEAU_AGREEMENT"]
+           "MIN_QUIET_PERIODS", "PLATEAU_AGREEMENT", "REST_AFTER_STEP_FRACTION",
+           "REST_AFTER_STEP_MS", "REST_AFTER_SPIKE_MS"]
 
 #: The mains frequencies tried; the one whose hum stands out more is kept.
 MAINS_FREQUENCIES_HZ = (50.0, 60.0)
@@ -38,6 +39,17 @@ LINE_NOISE_FALSE_ALARM = 1e-3
 #: of the terms, so that a plateau that may be settling is left out rather than taken for
 #: drift.
 PLATEAU_AGREEMENT = 0.01
+#: The stretch after a step that the drift's fit may read as rest
+#: (:func:`~spikemeasure.analysis.sweep_passive.rest_start`) starts this fraction of the way
+#: from the step's end to the sweep's end: the first part is left to the membrane's return
+#: from the step.
+REST_AFTER_STEP_FRACTION = 0.5
+#: ... and at least this long after the step's end (several membrane time constants of a
+#: typical cell).
+REST_AFTER_STEP_MS = 50.0
+#: ... and at least this long after the last spike after the step's end (a rebound spike
+#: and its after-hyperpolarization are not rest).
+REST_AFTER_SPIKE_MS = 20.0
 #: The quiet stretch must hold at least this many periods of the lowest mains frequency.
 MIN_QUIET_PERIODS = 2.0
 #: The residual's variance counts as at least this (mV^2), so that rounding on a noise-free
@@ -606,7 +618,12 @@ def line_noise_lines() -> list[str]:
         "",
         "steady_state_mv, min_mv, sag_fraction and the time constant read the voltage so "
         "corrected; the input resistance reads the deflections with the drift left in (see "
-        "input_resistance_mohm). The spike values read the recorded voltage. The SDs carry "
+        "input_resistance_mohm). The spikes are detected and measured on the corrected "
+        "voltage too, the sweep's fit made with the spikes' times as a first detection on "
+        "the recorded voltage gives them (a sweep with missing samples: the baseline's fit "
+        "alone), so that their voltages (threshold, peak, trough) hold no drift since the "
+        "baseline and no hum; threshold_mv_sd and peak_mv_sd then hold the removal's own "
+        "uncertainty at their times. The SDs carry "
         "the removal through: a window mean of the corrected voltage is a weighted sum of "
         "the recorded one, the quiet stretch weighted by minus the removal's sensitivity, "
         "and the covariance of those weights follows from the noise spectrum as for the "
@@ -625,4 +642,20 @@ def line_noise_lines() -> list[str]:
         "its square) times each window's lever, and, where the steady-state window joined, "
         "likewise the size of its own slope beyond the baseline's, times its weight in "
         "the drift.",
+        "",
+        "Where the spikes are known, the stretch after the step where the membrane is back "
+        "at rest also joins the drift's fit: from half-way between the step's end and the "
+        f"sweep's end, at least {REST_AFTER_STEP_MS:g} ms after the step's end and "
+        f"{REST_AFTER_SPIKE_MS:g} ms after the last spike after "
+        "the step (a rebound spike and its after-hyperpolarization are not rest), to the "
+        "sweep's end, when that leaves at least two periods of 50 Hz. It shares the baseline's level (the resting level, moved by the drift "
+        "alone, as baseline_drift_mv reads it), so the slope is read from the change of "
+        "level across the sweep, a lever of several hundred ms that sets its standard "
+        "error several times below the baseline's own. It joins only when a slope of its "
+        "own for each stretch and a bend for the rest stretch, beside the shared line, are "
+        f"not significant together at {PLATEAU_AGREEMENT:g}: a membrane still settling "
+        "from the step has a slope or bend the line does not follow. A resting level that "
+        "moved without a slope in either stretch cannot be told from drift. The covariance "
+        "of the fitted terms sums each stretch's own (noise samples a hundred ms and more "
+        "apart are taken as uncorrelated; the hum is fitted).",
     ]

@@ -761,7 +761,11 @@ def uncertainty_lines() -> list[str]:
         "noise SD of that sum, whose expectation is the squared bias (the noise's share of "
         "b^2 taken out).",
         "",
-        "- Drift (threshold, peak): the slope of a line fitted by least squares on the quiet "
+        "- Hum and drift removed (threshold, peak): the spikes are measured on the voltage "
+        "less the sweep's hum and drift (see *Hum and drift*); the removed terms' own "
+        "uncertainty at the value's time, sqrt(b C b^T) (b the terms there, C their "
+        "covariance under the baseline's noise spectrum), adds in quadrature.",
+        "- Drift left in (threshold, peak): the slope of a line fitted by least squares on the quiet "
         f"stretch (on means over {DRIFT_BLOCK_MS:g} ms) together with the mains hum (50 and "
         "60 Hz and their harmonics, as in *Hum and drift*; a line alone takes part of a hum "
         "for drift), its SD under the autocovariance of the fit's residual (at least the "

@@ -17,14 +17,15 @@ from .block import (BLOCK_MAX_ISI_MS, BLOCK_MIN_SILENCE_MS, BLOCK_SILENCE_TO_ISI
                     depolarization_block)
 from .sweeps import MIN_SAMPLING_RATE_HZ, CurrentStep, missing_stretches
 # the passive measurements, importable from here as before
-from .sweep_passive import (MIN_WINDOW_MS, SAG_NOISE_FACTOR, STEADY_STATE_WINDOW_MS,
+from .sweep_passive import (MIN_WINDOW_MS, SAG_NOISE_FACTOR, SAG_SD_FACTOR,
+                            STEADY_STATE_WINDOW_MS,
                             TROUGH_WINDOW_FRACTION, PassiveResponse, passive_response,
                             passive_voltage, rest_start)
 
 __all__ = ["SweepFeatures", "baseline", "first_spike_current", "baseline_drift", "firing", "adaptation_index",
            "passive_response", "sweep_features", "MIN_WINDOW_MS", "DRIFT_WINDOW_MS",
            "BASELINE_WINDOW_MS", "STEADY_STATE_WINDOW_MS", "SWEEP_FLAG_TEXT", "PassiveResponse",
-           "TROUGH_WINDOW_FRACTION", "SAG_NOISE_FACTOR", "passive_voltage",
+           "TROUGH_WINDOW_FRACTION", "SAG_NOISE_FACTOR", "SAG_SD_FACTOR", "passive_voltage",
            "sweep_line_noise"]
 
 
@@ -72,11 +73,12 @@ SWEEP_FLAG_TEXT = {
                                     "stretch between them only, empty when there is none",
     "ramp_has_no_steady_state": "the main stimulus is a ramp, whose current never settles: "
                                 "steady_state_mv and sag_fraction are empty",
-    "sag_within_noise": "the sag of this hyperpolarizing step (steady_state_mv - min_mv) is "
-                        f"not over {SAG_NOISE_FACTOR:g} times the SD the baseline's noise "
-                        "(drawn with its spectrum) leaves on the smoothing under min_mv, plus "
-                        "abs(baseline_drift_mv), so it cannot be told from noise: sag_fraction "
-                        "is 0",
+    "sag_within_noise": "the sag of this hyperpolarizing step is not over "
+                        f"{SAG_SD_FACTOR:g} times its own SD (sag_fraction_sd), or "
+                        "steady_state_mv - min_mv is not over "
+                        f"{SAG_NOISE_FACTOR:g} times the SD the baseline's noise "
+                        "(drawn with its spectrum) leaves on the smoothing under min_mv, so "
+                        "the recording cannot resolve it: sag_fraction is 0",
     "depolarization_block": "full (overshooting) spikes stopped before the end of the "
                             f"depolarizing step after intervals under {BLOCK_MAX_ISI_MS:g} "
                             "ms, with no full spike for at "

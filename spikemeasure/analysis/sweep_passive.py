@@ -13,12 +13,15 @@ import numpy as np
 from scipy.ndimage import uniform_filter1d
 
 from .fluctuation import BASELINE_WINDOW_MS, baseline_stretch, weighted_sums_covariance
-from .line_noise import LineNoise, corrected_weights, estimate_line_noise, remove_line_noise
+from .line_noise import (REST_AFTER_SPIKE_MS, REST_AFTER_STEP_FRACTION, REST_AFTER_STEP_MS,
+                         LineNoise,
+                         corrected_weights, estimate_line_noise, remove_line_noise)
 from .sweeps import CurrentStep
 
 __all__ = ["PassiveResponse", "passive_response", "passive_voltage", "rest_start",
-           "REST_AFTER_STEP_FRACTION", "REST_AFTER_SPIKE_MS", "MIN_WINDOW_MS",
-           "TROUGH_WINDOW_FRACTION", "SAG_NOISE_FACTOR", "STEADY_STATE_WINDOW_MS"]
+           "REST_AFTER_STEP_FRACTION", "REST_AFTER_STEP_MS", "REST_AFTER_SPIKE_MS", "MIN_WINDOW_MS",
+           "TROUGH_WINDOW_FRACTION", "SAG_NOISE_FACTOR", "SAG_SD_FACTOR",
+           "STEADY_STATE_WINDOW_MS"]
 
 #: Width of the moving average whose minimum during the step is min_mv (noise would pull a
 #: raw minimum down by two to three noise SDs); for a hyperpolarizing step, the shortest
@@ -39,24 +42,16 @@ TROUGH_WINDOW_FRACTION = 1.0
 #: removal could not exclude); at or below it, it is 0 with ``sag_within_noise``.
 SAG_SD_FACTOR = 2.0
 
-#: Sag counts as present only when steady_state_mv - min_mv exceeds this many times the SD
-#: that the baseline's noise (with its spectrum) leaves on the moving average under min_mv,
-#: plus the sweep's drift: over a 0.5 s step, noise alone pulls the smoothed minimum about
+#: ... and only when steady_state_mv - min_mv exceeds this many times the SD that the
+#: baseline's noise (with its spectrum) leaves on the moving average under min_mv (the
+#: trough smoothing's minimum, whatever min_mv is read at): the SD holds no account of how
+#: noise picks the lowest of many window means, and over a 0.5 s step noise alone pulls the smoothed minimum about
 #: 3 SD below the mean (the expected largest of ~500 Gaussian values), beyond 5 SD with a
 #: chance of about 1e-4 (500 x the Gaussian tail beyond 5, 3e-7).
 SAG_NOISE_FACTOR = 5.0
 
 #: Length of the window at the end of the step whose mean is the steady-state voltage.
 STEADY_STATE_WINDOW_MS = 100.0
-
-#: The stretch after a step that the drift's fit may read as rest (:func:`rest_start`)
-#: starts this fraction of the way from the step's end to the sweep's end: the first part
-#: is left to the membrane's return from the step.
-REST_AFTER_STEP_FRACTION = 0.5
-
-#: ... and at least this long after the last spike after the step's end (a rebound spike
-#: and its after-hyperpolarization are not rest).
-REST_AFTER_SPIKE_MS = 20.0
 
 
 @dataclass(frozen=True)
@@ -95,8 +90,8 @@ def passive_response(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curr
         Length of the window at the end of the step whose mean is the steady state.
     drift_mv : float, optional
         The sweep's baseline drift
-        (:func:`~spikemeasure.analysis.sweep_features.baseline_drift`; NaN counts as 0): a
-        sag not over the noise plus this is no sag.
+        (:func:`~spikemeasure.analysis.sweep_features.baseline_drift`; NaN counts as 0):
+        with a sag within noise, what noise plus this could hide sets its SD.
     baseline_window_ms : float, optional
         The baseline window, whose noise the SDs copy.
     line_noise : LineNoise, optional
@@ -112,8 +107,8 @@ def passive_response(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curr
         noise, read at the vertex of a parabola fitted around the trough, else the
         minimum of the trough smoothing (see Notes). sag_fraction (hyperpolarizing steps only):
         (steady_state_mv - min_mv) / (baseline_mv - min_mv), 0 for no sag, 1 when the voltage
-        returns all the way to baseline; 0 with ``sag_within_noise`` when the sag cannot be
-        told from noise. sag_fraction_sd: the SD the baseline's noise and a drift the
+        returns all the way to baseline; 0 with ``sag_within_noise`` when the recording
+        cannot resolve it (see Notes). sag_fraction_sd: the SD the baseline's noise and a drift the
         hum and drift removal could not exclude imply; deflection_sd_mv: the SD the
         baseline's noise implies. NaN where not defined.
 
@@ -130,8 +125,8 @@ def passive_response(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curr
     (Savitzky-Golay) smoothing, an average never dips below a monotone response where the
     charging bends into the plateau.
 
-    Where the sag is over noise (below), the trough is a true minimum inside the step, and
-    min_mv is read without the average's c w^2 / 12: a parabola a + b x + c x^2 is fitted by
+    For a hyperpolarizing step, min_mv is read without the average's c w^2 / 12 where it
+    can be: a parabola a + b x + c x^2 is fitted by
     least squares to the samples within one trough window w either side of the average's
     minimum, and min_mv is its vertex plus c m^2 / 12 (the :data:`MIN_WINDOW_MS` average of
     the parabola, m that window, so that min_mv keeps its definition). For a parabola the
@@ -151,10 +146,17 @@ def passive_response(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curr
     sag_fraction_sd is sqrt(g^T C g), g the gradient of the sag in the three (the delta
     method: Bevington and Robinson 2003, section 3.2, from memory); deflection_sd_mv is the
     SD of steady_state_mv - baseline_mv. The choice of the minimum's position among noisy
-    candidates is left out: where it matters (a flat plateau) the sag is within noise. The
-    sag is within noise when steady_state_mv - min_mv (the trough smoothing's minimum) is
-    not over :data:`SAG_NOISE_FACTOR` times the SD of min_mv's window mean (noise alone),
-    plus abs(drift_mv).
+    candidates is left out: where it matters (a flat plateau) the sag is within noise.
+
+    The sag is resolved, and reported, when it is over :data:`SAG_SD_FACTOR` times its own
+    SD (noise and the drift the removal could not exclude) and steady_state_mv - min_mv
+    (the trough smoothing's minimum) is over :data:`SAG_NOISE_FACTOR` times the SD of that
+    window mean (what noise alone pulls the lowest of a flat response's window means down
+    by stays below it), that SD at least the white-noise value of the baseline's variance
+    (the spectrum of a short baseline scatters at low frequencies). Otherwise it is 0 with
+    ``sag_within_noise``, min_mv the average's minimum, and the sag's SD at least half of
+    :data:`SAG_NOISE_FACTOR` times that window mean's SD plus abs(drift_mv) (what noise and
+    drift could hide), so that +/- 2 SD spans it.
 
     References
     ----------
@@ -219,29 +221,39 @@ def passive_response(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curr
     # the drift the estimate could not exclude moves the sag (a difference of window means
     # at different times), not the noise under one window
     untested = _untested_drift_cov(raw_weights, base_lo, rate, line_noise)
-    # the trough is read at its vertex where the parabola fits, else at the average's
-    # minimum
-    use = 3 if vertex is not None else 2
-    lowest = vertex[0] if use == 3 else averaged
-    full_cov = cov
-    cov = cov[np.ix_([0, 1, use], [0, 1, use])]
-    untested = untested[np.ix_([0, 1, use], [0, 1, use])]
-    sag = (steady - lowest) / (baseline_mv - lowest)
-    # d sag / d (baseline, steady state, minimum): the delta method
-    depth = baseline_mv - lowest
-    gradient = np.array([-(steady - lowest) / depth ** 2, 1.0 / depth,
-                         (steady - baseline_mv) / depth ** 2])
-    sag_sd = float(np.sqrt(max(0.0, gradient @ (cov + untested) @ gradient)))
-    deflection = np.array([-1.0, 1.0, 0.0])
-    deflection_sd = float(np.sqrt(max(0.0, deflection @ cov @ deflection)))
+
+    def read(use: int) -> tuple[float, float, float, float, float]:
+        """(minimum, sag, its SD, the deflection's SD, the depth) with the trough read at
+        row `use` of the weights (2: the average's minimum, 3: the vertex)."""
+        lowest = averaged if use == 2 else vertex[0]
+        pick = np.ix_([0, 1, use], [0, 1, use])
+        depth = baseline_mv - lowest
+        # d sag / d (baseline, steady state, minimum): the delta method
+        gradient = np.array([-(steady - lowest) / depth ** 2, 1.0 / depth,
+                             (steady - baseline_mv) / depth ** 2])
+        sd = float(np.sqrt(max(0.0, gradient @ (cov[pick] + untested[pick]) @ gradient)))
+        deflection = np.array([-1.0, 1.0, 0.0])
+        return (lowest, (steady - lowest) / depth, sd,
+                float(np.sqrt(max(0.0, deflection @ cov[pick] @ deflection))), depth)
+
+    # the sag is read at the vertex where the parabola fits
+    lowest, sag, sag_sd, deflection_sd, depth = read(3 if vertex is not None else 2)
     # noise alone pulls the trough smoothing's minimum below a flat response (the lowest of
-    # many window means): a sag is resolved only beyond that and beyond its own SD
-    dip = SAG_NOISE_FACTOR * float(np.sqrt(max(0.0, full_cov[2, 2])))
+    # many window means): a sag is resolved only beyond that and beyond its own SD. The
+    # window mean's variance is at least white noise's of the baseline's variance: the
+    # spectrum of a 100 ms baseline scatters at the low frequencies a long window passes,
+    # and taken alone would now and then make the test too lenient
+    # (a variance of at least 1e-12 mV^2, so that rounding on a noise-free trace is no sag)
+    white = max(float(np.var(noise)) if noise.size else 0.0, 1e-12) / trough
+    dip = SAG_NOISE_FACTOR * float(np.sqrt(max(0.0, cov[2, 2], white)))
     within = not (steady - averaged > dip and sag > SAG_SD_FACTOR * sag_sd)
     if within:
-        # reported as 0, the sag may be anything up to the value read or what noise hides:
-        # +/- 2 SD spans it
-        sag_sd = max(sag_sd, max(sag, dip / depth, 0.0) / 2)
+        # within noise, the average's minimum stays; reported as 0, the sag may be anything
+        # up to what noise and drift could hide: +/- 2 SD spans it
+        lowest, _, sag_sd, deflection_sd, depth = read(2)
+        drift = abs(drift_mv) if np.isfinite(drift_mv) else 0.0
+        hidden = SAG_NOISE_FACTOR * float(np.sqrt(max(0.0, cov[2, 2]))) + drift
+        sag_sd = max(sag_sd, hidden / depth / 2)
     if not np.isfinite(with_drift):
         with_drift = deflection_sd
     return PassiveResponse(steady, lowest, 0.0 if within else sag, sag_sd, deflection_sd,
@@ -385,11 +397,13 @@ def passive_voltage(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curre
 
 
 def rest_start(step: CurrentStep, duration_s: float, spike_times_s: np.ndarray) -> float:
-    """Where the membrane is taken to be back at rest after a step: the later of the middle
+    """Where the membrane is taken to be back at rest after a step: the latest of the middle
     of the stretch from the step's end to the sweep's end (:data:`REST_AFTER_STEP_FRACTION`
-    of it) and :data:`REST_AFTER_SPIKE_MS` after the last spike after the step's end, s
-    from the sweep's first sample (at or after `duration_s` when no such stretch is left)."""
-    after = step.offset_s + REST_AFTER_STEP_FRACTION * max(0.0, duration_s - step.offset_s)
+    of it), :data:`REST_AFTER_STEP_MS` after the step's end and :data:`REST_AFTER_SPIKE_MS`
+    after the last spike after the step's end, s from the sweep's first sample (at or
+    after `duration_s` when no such stretch is left)."""
+    after = step.offset_s + max(REST_AFTER_STEP_FRACTION * max(0.0, duration_s - step.offset_s),
+                                REST_AFTER_STEP_MS * 1e-3)
     times = np.asarray(spike_times_s, dtype=float)
     later = times[np.isfinite(times) & (times >= step.offset_s)]
     if later.size:
