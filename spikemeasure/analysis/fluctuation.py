@@ -141,10 +141,18 @@ def weighted_sums_covariance(weights: np.ndarray, noise_mv: np.ndarray,
     part = np.asarray(noise_mv, dtype=float)
     if part.size < _MIN_NOISE_SAMPLES or not np.isfinite(part).all():
         return None
-    density = _noise_density(part, rate)
+    return _covariance_from_density(rows, _noise_density(part, rate), part.size, rate)
+
+
+def _covariance_from_density(rows: np.ndarray, density: np.ndarray, noise_size: int,
+                             rate: float) -> np.ndarray:
+    """:func:`weighted_sums_covariance` of `rows` from the density :func:`_noise_density`
+    gave for a noise stretch of `noise_size` samples (so that several sets of rows share
+    one)."""
+    part_size = noise_size
     n_fft = next_fast_len(2 * rows.shape[1])
     spectrum = np.interp(np.fft.rfftfreq(n_fft, 1.0 / rate),
-                         np.fft.rfftfreq(part.size, 1.0 / rate), density)
+                         np.fft.rfftfreq(part_size, 1.0 / rate), density)
     spectrum[1:(n_fft + 1) // 2] *= 2.0  # the negative frequencies, folded onto these
     transforms = np.fft.rfft(rows, n=n_fft, axis=1)
     weighted = transforms * spectrum[None, :]

@@ -15,7 +15,8 @@ import numpy as np
 from scipy.special import chdtri
 
 from ..errors import InvalidSettingError
-from .fluctuation import weighted_sums_covariance
+from .fluctuation import (_MIN_NOISE_SAMPLES, _covariance_from_density, _noise_density,
+                          weighted_sums_covariance)
 
 __all__ = ["LineNoise", "estimate_line_noise", "remove_line_noise", "corrected_weights",
            "removal_sd_mv", "stretches_covariance",
@@ -149,10 +150,21 @@ def _terms(samples: np.ndarray, rate: float, frequency_hz: float, harmonics: tup
     out = np.empty((samples.size, int(drift) + 2 * len(harmonics)))
     if drift:
         out[:, 0] = t
-    for k, h in enumerate(harmonics):
-        phase = 2 * np.pi * h * frequency_hz * t
-        out[:, int(drift) + 2 * k] = np.cos(phase)
-        out[:, int(drift) + 2 * k + 1] = np.sin(phase)
+    if not harmonics:
+        return out
+    # the fundamental's cos and sin once; each higher harmonic by the angle-sum rule
+    # (cos (h+1)x = cos hx cos x - sin hx sin x, likewise sin), cheaper than its own
+    # trigonometric functions
+    phase = 2 * np.pi * frequency_hz * t
+    c1, s1 = np.cos(phase), np.sin(phase)
+    c, s = c1, s1
+    for h in range(1, max(harmonics) + 1):
+        if h > 1:
+            c, s = c * c1 - s * s1, s * c1 + c * s1
+        if h in harmonics:
+            k = harmonics.index(h)
+            out[:, int(drift) + 2 * k] = c
+            out[:, int(drift) + 2 * k + 1] = s
     return out
 
 
@@ -170,7 +182,7 @@ def _basis(samples: np.ndarray, fit: LineNoise) -> np.ndarray:
 
 def _fit(part: np.ndarray, samples: np.ndarray, rate: float, frequency_hz: float,
          harmonics: tuple[int, ...], drift: bool, levels: np.ndarray | None = None,
-         extra: np.ndarray | None = None, covariance: bool = True
+         extra: np.ndarray | None = None, covariance: bool | str = True
          ) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
     """Least squares of `part` on a constant and the terms: (coefficients without the
     constant, their sensitivity rows, their covariance under the residual's spectrum).
@@ -178,7 +190,7 @@ def _fit(part: np.ndarray, samples: np.ndarray, rate: float, frequency_hz: float
     `levels` (0 or 1 per sample) gives the second stretch a constant of its own; `extra`
     columns follow the terms. The rows cover samples[0] to samples[-1], zero where a
     sample is not fitted. Without `covariance` (only the coefficients wanted) the rows and
-    the covariance are not formed (None)."""
+    the covariance are not formed (None); with ``covariance="rows"``, the rows alone."""
     terms = _terms(samples, rate, frequency_hz, harmonics, drift)
     if extra is not None:
         terms = np.column_stack([terms, extra])
@@ -199,6 +211,8 @@ def _fit(part: np.ndarray, samples: np.ndarray, rate: float, frequency_hz: float
         dense = np.zeros((rows.shape[0], int(samples[-1] - samples[0]) + 1))
         dense[:, samples - samples[0]] = rows
         rows = dense
+    if covariance == "rows":
+        return coef[k:], rows, None
     spectral = stretches_covariance(rows, residual, rate)
     if spectral is None:
         return coef[k:], rows, None
@@ -386,7 +400,7 @@ def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s
     if not keep_drift and levels is not None:
         # the hum alone is fitted on the quiet stretch alone, as without a plateau
         samples, part, levels, stop = samples[quiet], part[quiet], None, quiet_stop
-    coef, rows, _ = _fit(part, samples, rate, f, kept, keep_drift, levels)
+    coef, rows, _ = _fit(part, samples, rate, f, kept, keep_drift, levels, covariance="rows")
     # a drift not kept stays in the voltage; a kept drift that a plateau or a rest
     # stretch joined may hold that stretch's own settling, times its weight in the slope
     untested = _excess(slope, slope_sd ** 2) if not keep_drift else 0.0
@@ -412,18 +426,17 @@ def stretches_covariance(rows: np.ndarray, noise_mv: np.ndarray, rate: float
     uncorrelated (what is not is the hum, which the fit holds), so the cost follows the
     stretches' lengths, not the span between them. None as there."""
     used = np.flatnonzero(np.any(rows != 0, axis=0))
-    if used.size == 0:
-        return weighted_sums_covariance(rows, noise_mv, rate)
     breaks = np.flatnonzero(np.diff(used) > 1)
+    if used.size == 0 or breaks.size == 0:
+        return weighted_sums_covariance(rows, noise_mv, rate)
+    noise = np.asarray(noise_mv, dtype=float)
+    if noise.size < _MIN_NOISE_SAMPLES or not np.isfinite(noise).all():
+        return None  # as weighted_sums_covariance
+    density = _noise_density(noise, rate)
     starts = np.concatenate([[used[0]], used[breaks + 1]])
     stops = np.concatenate([used[breaks] + 1, [used[-1] + 1]])
-    total = None
-    for a, b in zip(starts, stops):
-        part = weighted_sums_covariance(rows[:, a:b], noise_mv, rate)
-        if part is None:
-            return None
-        total = part if total is None else total + part
-    return total
+    return sum(_covariance_from_density(rows[:, a:b], density, noise.size, rate)
+               for a, b in zip(starts, stops))
 
 
 def _plateau_agrees(part: np.ndarray, samples: np.ndarray, rate: float, harmonics: int,
