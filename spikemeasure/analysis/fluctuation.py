@@ -14,6 +14,7 @@ from scipy.ndimage import median_filter, uniform_filter1d
 from ..errors import InvalidSettingError
 
 __all__ = ["slow_fluctuation_mv", "baseline_stretch", "weighted_sums_covariance",
+           "stretches_covariance",
            "BASELINE_WINDOW_MS"]
 
 #: Length of the window before the step whose mean is the baseline (and its SD the noise).
@@ -142,6 +143,27 @@ def weighted_sums_covariance(weights: np.ndarray, noise_mv: np.ndarray,
     if part.size < _MIN_NOISE_SAMPLES or not np.isfinite(part).all():
         return None
     return _covariance_from_density(rows, _noise_density(part, rate), part.size, rate)
+
+
+def stretches_covariance(rows: np.ndarray, noise_mv: np.ndarray, rate: float
+                         ) -> np.ndarray | None:
+    """:func:`weighted_sums_covariance` of weights that are zero between separate stretches
+    (a quiet stretch, a plateau, a rest stretch), as the sum of each stretch's own, from one
+    spectrum of `noise_mv`: noise samples a hundred ms and more apart are taken as
+    uncorrelated (what is not is a hum, which the fits of hum and drift hold), so the cost
+    follows the stretches' lengths, not the span between them. None as there."""
+    used = np.flatnonzero(np.any(rows != 0, axis=0))
+    breaks = np.flatnonzero(np.diff(used) > 1)
+    if used.size == 0 or breaks.size == 0:
+        return weighted_sums_covariance(rows, noise_mv, rate)
+    noise = np.asarray(noise_mv, dtype=float)
+    if noise.size < _MIN_NOISE_SAMPLES or not np.isfinite(noise).all():
+        return None  # as weighted_sums_covariance
+    density = _noise_density(noise, rate)
+    starts = np.concatenate([[used[0]], used[breaks + 1]])
+    stops = np.concatenate([used[breaks] + 1, [used[-1] + 1]])
+    return sum(_covariance_from_density(rows[:, a:b], density, noise.size, rate)
+               for a, b in zip(starts, stops))
 
 
 def _covariance_from_density(rows: np.ndarray, density: np.ndarray, noise_size: int,

@@ -15,11 +15,10 @@ import numpy as np
 from scipy.special import chdtri
 
 from ..errors import InvalidSettingError
-from .fluctuation import (_MIN_NOISE_SAMPLES, _covariance_from_density, _noise_density,
-                          weighted_sums_covariance)
+from .fluctuation import stretches_covariance, weighted_sums_covariance
 
 __all__ = ["LineNoise", "estimate_line_noise", "remove_line_noise", "corrected_weights",
-           "removal_sd_mv", "stretches_covariance",
+           "removal_sd_mv",
            "line_noise_lines",
            "MAINS_FREQUENCIES_HZ", "HUM_HARMONICS", "LINE_NOISE_FALSE_ALARM",
            "MIN_QUIET_PERIODS", "PLATEAU_AGREEMENT", "REST_AFTER_STEP_FRACTION",
@@ -416,27 +415,6 @@ def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s
     return LineNoise(f if kept else float("nan"), kept, np.hypot(cos, sin),
                      np.arctan2(-sin, cos), float(coef[0]) if keep_drift else float("nan"),
                      slope_sd, first, stop, rate, rows, coef, reference, slope, untested)
-
-
-def stretches_covariance(rows: np.ndarray, noise_mv: np.ndarray, rate: float
-                         ) -> np.ndarray | None:
-    """:func:`~spikemeasure.analysis.fluctuation.weighted_sums_covariance` of weights that
-    are zero between separate stretches (a quiet stretch, a plateau, a rest stretch), as the
-    sum of each stretch's own: noise samples a hundred ms and more apart are taken as
-    uncorrelated (what is not is the hum, which the fit holds), so the cost follows the
-    stretches' lengths, not the span between them. None as there."""
-    used = np.flatnonzero(np.any(rows != 0, axis=0))
-    breaks = np.flatnonzero(np.diff(used) > 1)
-    if used.size == 0 or breaks.size == 0:
-        return weighted_sums_covariance(rows, noise_mv, rate)
-    noise = np.asarray(noise_mv, dtype=float)
-    if noise.size < _MIN_NOISE_SAMPLES or not np.isfinite(noise).all():
-        return None  # as weighted_sums_covariance
-    density = _noise_density(noise, rate)
-    starts = np.concatenate([[used[0]], used[breaks + 1]])
-    stops = np.concatenate([used[breaks] + 1, [used[-1] + 1]])
-    return sum(_covariance_from_density(rows[:, a:b], density, noise.size, rate)
-               for a, b in zip(starts, stops))
 
 
 def _plateau_agrees(part: np.ndarray, samples: np.ndarray, rate: float, harmonics: int,
