@@ -9,7 +9,8 @@ truth is the reference measurement (spikemeasure.testing.reference) of the noise
 trace less its filtered hum and drift, as in the accuracy benchmark. The noise-free recording
 (that trace taken every n-th sample) is then measured under `--draws` independent draws of
 white noise per noise level, the spikes and their SDs by the pipeline's own functions
-(measure_trace, with_uncertainty; the step from the command by find_current_step).
+(measure_sweep, as a run measures a sweep: hum and drift removed, then the spikes and
+their SDs; the step from the command by find_current_step).
 
 Per SD column and per acquisition, noise level and artefact set it reports:
 
@@ -37,8 +38,9 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 from benchmark_accuracy import (ACQUISITIONS, ARTEFACTS, CELLS, END_S, NOISE_MV,  # noqa: E402
                                 SIMULATION_RATE_HZ, filtered_artefacts, step_commands)
 
-from spikemeasure.analysis.spike_uncertainty import SD_COLUMNS, with_uncertainty  # noqa: E402
-from spikemeasure.analysis.spikes import measure_trace  # noqa: E402
+from spikemeasure.analysis.spike_uncertainty import SD_COLUMNS  # noqa: E402
+from spikemeasure.io import Sweep  # noqa: E402
+from spikemeasure.tables.build import measure_sweep  # noqa: E402
 from spikemeasure.analysis.sweeps import find_current_step  # noqa: E402
 from spikemeasure.testing import record_commands  # noqa: E402
 from spikemeasure.testing.reference import reference_spikes  # noqa: E402
@@ -66,16 +68,22 @@ def simulate(model: str, acquisition: str, artefacts: str, seed: int):
     return (chain.voltage_mv[:, ::decimation], float(rate_hz), command[:, ::decimation], truth)
 
 
+def _spikes(v: np.ndarray, rate: float, command: np.ndarray, step):
+    """The spikes of one sweep with their SDs, as a run measures them (measure_sweep: the
+    hum and drift the sweep's fit keeps removed first)."""
+    return measure_sweep(Sweep(v, rate, command, file="draw.nwb", index=0), step=step).spikes
+
+
 def measure_draws(clean: np.ndarray, rate: float, commands: np.ndarray, truth, noise: float,
                   draws: int, rng: np.random.Generator) -> dict:
     """Per SD column: rows of (spike key, truth, clean value, measured value, SD)."""
     rows = {name: [] for name in SD_COLUMNS}
     for sweep, (v0, command, true) in enumerate(zip(clean, commands, truth)):
         step = find_current_step(command, rate)
-        reference = measure_trace(v0, rate, step=step)
+        reference = _spikes(v0, rate, command, step)
         for draw in range(draws):
             v = v0 + rng.standard_normal(v0.size) * noise
-            spikes = with_uncertainty(measure_trace(v, rate, step=step), v, rate, step)
+            spikes = _spikes(v, rate, command, step)
             for k, t_peak in enumerate(true.peak_s):
                 j = np.argmin(np.abs(spikes.peak_s - t_peak)) if len(spikes) else -1
                 i = np.argmin(np.abs(reference.peak_s - t_peak)) if len(reference) else -1
