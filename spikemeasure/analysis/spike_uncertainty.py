@@ -109,6 +109,9 @@ SPLINE_SLOPE_BOUND = np.sqrt(3.0) / 216.0 + 1.0 / 24.0
 #: uncertainty in measurement, 4.3.7).
 BOUND_TO_SD = 1.0 / np.sqrt(3.0)
 _QUADRATIC_ELEMENTS = 4_000_000   # (spikes x weights^2) evaluated at once, to bound memory
+#: Weights spanning at most this many samples take their quadratic form with one block of
+#: the autocovariance's Toeplitz matrix (:func:`_toeplitz_forms`); wider ones pair by pair.
+_TOEPLITZ_SPAN = 256
 _spline_cache: list[CubicSpline] = []
 
 
@@ -453,10 +456,61 @@ def _sd(terms: list[_Term], noise: NoiseModel, n_samples: int) -> np.ndarray:
 
 def _combined_sd(pos: np.ndarray, w: np.ndarray, valid: np.ndarray, noise: NoiseModel
                  ) -> np.ndarray:
-    """:func:`_sd` of terms already combined (:func:`_combined`)."""
-    pos, w = _merged(pos, w)
-    pos, w = _nonzero_first(pos, w)
+    """:func:`_sd` of terms already combined (:func:`_combined`).
+
+    Notes
+    -----
+    The noise covariance of samples i and j is the autocovariance at lag |i - j| (a
+    Toeplitz matrix), so a spike whose weights span few samples needs only the top-left
+    corner of that matrix, the same for every spike: its weights are laid out on its span
+    (repeated positions summed in the order :func:`_merged` sums them) and the quadratic
+    form is taken with that one block (:func:`_toeplitz_forms`), spikes of similar spans
+    together. Spikes whose weights lie farther apart (the AHP depth's threshold and trough)
+    look up the autocovariance pair by pair (:func:`_paired_forms`).
+    """
     acov = noise.autocovariance_mv2
+    variance = np.zeros(pos.shape[0])
+    nonzero = w != 0.0
+    used = nonzero.any(axis=1)
+    if used.any():
+        lo = np.where(nonzero, pos, np.iinfo(np.int64).max).min(axis=1)
+        span = np.where(used, np.where(nonzero, pos, np.iinfo(np.int64).min).max(axis=1)
+                        - lo + 1, 0)
+        compact = used & (span <= _TOEPLITZ_SPAN)
+        # spans up to 16, 32, 64, ... samples each one block of their own longest span
+        size = np.ceil(np.log2(np.maximum(span, 16))).astype(np.int64)
+        for bits in np.unique(size[compact]):
+            rows = np.flatnonzero(compact & (size == bits))
+            variance[rows] = _toeplitz_forms(pos[rows] - lo[rows, None], w[rows],
+                                             int(span[rows].max()), acov)
+        rows = np.flatnonzero(used & ~compact)
+        if rows.size:
+            variance[rows] = _paired_forms(*_nonzero_first(*_merged(pos[rows], w[rows])),
+                                           acov)
+    return np.where(valid, np.sqrt(np.clip(variance, 0.0, None)), np.nan)
+
+
+def _toeplitz_forms(offset: np.ndarray, w: np.ndarray, width: int, acov: np.ndarray
+                    ) -> np.ndarray:
+    """w' C w per row, the weights `w` at sample `offset` from the row's first weighted
+    sample (0 <= offset < `width` where w is not zero), C the autocovariance's Toeplitz
+    matrix (0 from its length on)."""
+    n = w.shape[0]
+    # zero weights may sit anywhere: at offset 0 they add nothing
+    offset = np.where(w != 0.0, offset, 0)
+    slot = (np.arange(n)[:, None] * width + offset).ravel()
+    # np.bincount adds each row's weights in their order, as _merged does
+    dense = np.bincount(slot, weights=w.ravel(), minlength=n * width).reshape(n, width)
+    lag = np.abs(np.arange(width)[:, None] - np.arange(width)[None, :])
+    block = np.append(acov, 0.0)[np.minimum(lag, acov.size)]
+    # einsum, not the @ operator: no BLAS call (and so no BLAS threads) for these small
+    # products
+    return np.einsum("ni,ni->n", np.einsum("ni,ij->nj", dense, block), dense)
+
+
+def _paired_forms(pos: np.ndarray, w: np.ndarray, acov: np.ndarray) -> np.ndarray:
+    """w' C w per row, looking up the autocovariance of each pair of positions (rows of
+    :func:`_nonzero_first`)."""
     # the autocovariance at every lag, 0 from its length on: one look-up per pair of samples
     padded = np.append(acov, 0.0)
     small = pos.size == 0 or int(np.abs(pos).max()) < 2 ** 30
@@ -469,7 +523,7 @@ def _combined_sd(pos: np.ndarray, w: np.ndarray, valid: np.ndarray, noise: Noise
         np.abs(lag, out=lag)
         np.minimum(lag, acov.size, out=lag)
         variance[a:a + per_block] = np.einsum("ni,nij,nj->n", ww, padded.take(lag), ww)
-    return np.where(valid, np.sqrt(np.clip(variance, 0.0, None)), np.nan)
+    return variance
 
 
 def _nonzero_first(pos: np.ndarray, w: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

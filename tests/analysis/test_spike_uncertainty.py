@@ -340,6 +340,57 @@ class TestBiasesBetweenSamples:
         assert series[0] == pytest.approx(shift[0], rel=growth)
         assert series[0] != pytest.approx(shift[0], rel=1e-3)  # two models, not one
 
+
+class TestQuadraticForms:
+    """The SDs' quadratic forms against the direct formula: sqrt(w' C w) with C the full
+    covariance matrix C[i, j] = acov[|p_i - p_j|] (0 beyond the autocovariance's length)
+    built with numpy, summed with numpy's matrix products (the definition of the variance of
+    a weighted sum of a stationary process, Priestley 1981, sec. 5.3)."""
+
+    @staticmethod
+    def _direct(pos, w, valid, acov):
+        out = np.full(pos.shape[0], np.nan)
+        for r in np.flatnonzero(valid):
+            lag = np.abs(pos[r][:, None] - pos[r][None, :])
+            cov = np.where(lag < acov.size, acov[np.minimum(lag, acov.size - 1)], 0.0)
+            out[r] = np.sqrt(max(w[r] @ cov @ w[r], 0.0))
+        return out
+
+    def test_toeplitz_blocks_and_pairs_agree_with_the_full_matrix(self):
+        from spikemeasure.analysis.spike_uncertainty import _TOEPLITZ_SPAN, _combined_sd
+
+        rng = np.random.default_rng(5)
+        x = rng.normal(size=400)
+        x = np.convolve(x, np.ones(5) / 5, mode="same")    # correlated noise
+        acov = np.correlate(x, x, "full")[x.size - 1:] / x.size
+        acov = acov[:300]        # lags from 300 on count as uncorrelated
+        n, width = 60, 24
+        centre = rng.integers(1_000, 5_000, size=n)
+        offsets = rng.integers(-8, 9, size=(n, width))
+        # rows 0-19: compact (repeated positions, spans of 17 samples); 20-39: a second
+        # group of samples far away (wider than a Toeplitz block, and beyond the
+        # autocovariance's length for rows 30-39); 40-49: spans of 30-200 samples
+        offsets[20:30, 12:] += _TOEPLITZ_SPAN + 40
+        offsets[30:40, 12:] += 2_000
+        offsets[40:50] *= rng.integers(2, 12, size=(10, 1))
+        pos = centre[:, None] + offsets
+        w = rng.normal(size=(n, width))
+        w[rng.random(size=w.shape) < 0.2] = 0.0            # padding and zeroed terms
+        w[50] = 0.0                                        # nothing weighted
+        valid = np.ones(n, dtype=bool)
+        valid[55:] = False                                 # rows not measured: zero weights
+        w[55:] = 0.0
+        noise = NoiseModel(acov, 10_000.0, 0, x.size)
+        found = _combined_sd(pos, w, valid, noise)
+        expected = self._direct(pos, w, valid, acov)
+        np.testing.assert_array_equal(np.isnan(found), np.isnan(expected))
+        np.testing.assert_allclose(found, expected, rtol=1e-12, atol=0.0)
+        assert found[50] == 0.0
+        # control: the far samples count (the pairs between groups move the SD)
+        near = self._direct(pos[20:30, :12], w[20:30, :12], valid[20:30], acov)
+        assert not np.allclose(found[20:30], near, rtol=1e-3)
+
+
 class TestInTables:
     def test_spike_table_carries_the_sds(self):
         sim = record_commands("hodgkin_huxley_1952", _step_command(100.0, 1), noise_mv=0.2)
