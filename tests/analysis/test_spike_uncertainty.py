@@ -143,6 +143,22 @@ class TestMeasuredNoise:
         within_noise = NoiseModel(np.array([0.01]), self.RATE, 0, 2000, 0.5, 1.0)
         assert within_noise.drift_since_mv(np.array([0.3]))[0] == 0.0
 
+    @pytest.mark.parametrize("n", [401, 1250, 2048])
+    def test_autocovariance_is_the_direct_sum(self, n):
+        # source: the definition of the biased autocovariance, sum(x[i] x[i + k]) / n at
+        # every lag k, x the stretch less its least-squares line (numpy's polyfit), summed
+        # directly with numpy; n odd, 2 n - 1 a product of 2, 3 and 5 (1250), a power of two
+        rng = np.random.default_rng(n)
+        v = -65.0 + 0.01 * np.arange(n) + np.convolve(rng.normal(0, 0.3, n + 4),
+                                                      np.ones(5) / 5, mode="valid")
+        t = np.arange(n, dtype=float)
+        x = v - np.polyval(np.polyfit(t, v, 1), t)
+        direct = np.array([x[:n - k] @ x[k:] for k in range(n)]) / n
+        noise = measured_noise(v, self.RATE, 0, n, drift=False)
+        assert noise.autocovariance_mv2.shape == (n,)
+        np.testing.assert_allclose(noise.autocovariance_mv2, direct, rtol=0,
+                                   atol=1e-12 * direct[0])
+
     def test_too_short_or_missing_stretch_gives_none(self):
         v = np.zeros(int(self.RATE))
         short = int(MIN_QUIET_MS * 1e-3 * self.RATE) - 1
