@@ -167,17 +167,12 @@ def _scaled(terms: list[_Term], factor) -> list[_Term]:
     return [(k, c, w * factor) for k, c, w in terms]
 
 
-def _onset_slope_weights(v: np.ndarray, rate_hz: float, position: np.ndarray, longest: int,
-                         level: float) -> np.ndarray:
-    """Per spike, the dV/dt weights (V/s per mV) of the local quadratic fit whose window
-    :func:`~spikemeasure.analysis.spike_features.onset_window` chose for its threshold
-    crossing, padded to a common odd length (n, longest)."""
-    return _onset_slopes_and_windows(v, rate_hz, position, longest, level)[0]
-
-
 def _onset_slopes_and_windows(v: np.ndarray, rate_hz: float, position: np.ndarray,
                               longest: int, level: float) -> tuple[np.ndarray, np.ndarray]:
-    """:func:`_onset_slope_weights`, and the window of each spike."""
+    """Per spike, the dV/dt weights (V/s per mV) of the local quadratic fit whose window
+    :func:`~spikemeasure.analysis.spike_features.onset_window` chose for its threshold
+    crossing, padded to a common odd length (n, longest), and that window. Computed once
+    per sweep, for the threshold's terms and for its smoothing bias."""
     noise = noise_before(v, np.asarray(position, dtype=float) - longest)
     windows = onset_window(noise, rate_hz, level, longest)
     # onset_window may pick a window longer than the smoothing window
@@ -192,7 +187,8 @@ def _onset_slopes_and_windows(v: np.ndarray, rate_hz: float, position: np.ndarra
 
 
 def _onset_smoothing_bias(v: np.ndarray, kernels: dict, position: np.ndarray,
-                          settings: DetectionSettings) -> np.ndarray:
+                          settings: DetectionSettings,
+                          onset: tuple[np.ndarray, np.ndarray] | None) -> np.ndarray:
     """Per spike, how far (mV) the onset window's smoothing may still have moved the threshold
     voltage after the estimator's correction: 0 unless the threshold is the ``onset_rate``
     crossing.
@@ -205,14 +201,15 @@ def _onset_smoothing_bias(v: np.ndarray, kernels: dict, position: np.ndarray,
     (:func:`_series_shift`). Where the estimator kept the linear crossing (a rate that does
     not grow between the two samples) nothing was corrected and the series term is the whole
     bias. The shift in samples times the smoothed voltage's step per sample is the voltage.
+    `onset`: :func:`_onset_slopes_and_windows` of the spikes (None unless the threshold is
+    the ``onset_rate`` crossing).
     """
     n = np.asarray(position).size
     if settings.threshold_method != "onset_rate" or n == 0:
         return np.zeros(n)
-    smooth, slope = kernels["smooth"], kernels["slope"]
+    smooth = kernels["smooth"]
     rate_hz = kernels["rate_hz"]
-    slopes, windows = _onset_slopes_and_windows(v, rate_hz, position, slope.window,
-                                                settings.onset_rate_v_per_s)
+    slopes, windows = onset
     i = np.floor(np.nan_to_num(position)).astype(np.int64)
     before, after = _rows_dot(v, slopes, i), _rows_dot(v, slopes, i + 1)
     series = _series_shift(v, slopes, windows, position, after - before)
@@ -277,7 +274,8 @@ def _rows_dot(v: np.ndarray, rows: np.ndarray, centre: np.ndarray) -> np.ndarray
 
 
 def _threshold_terms(v: np.ndarray, kernels: dict, position: np.ndarray, peak: np.ndarray,
-                     settings: DetectionSettings) -> list[_Term]:
+                     settings: DetectionSettings,
+                     onset: tuple[np.ndarray, np.ndarray] | None) -> list[_Term]:
     """Threshold voltage: the smoothed voltage at the linear crossing of a level by the
     smoothed dV/dt between samples i and i+1. Moving dV/dt there by e moves the crossing by
     -e / (dV/dt[i+1] - dV/dt[i]) samples and the voltage by that times the voltage step."""
@@ -289,8 +287,7 @@ def _threshold_terms(v: np.ndarray, kernels: dict, position: np.ndarray, peak: n
     if settings.threshold_method == "onset_rate":
         # the crossing is found again with a window matched to the noise before it
         # (spike_features._noise_matched_onsets): that window's slope weights, per spike
-        slopes = _onset_slope_weights(v, kernels["rate_hz"], position, slope.window,
-                                      settings.onset_rate_v_per_s)
+        slopes = onset[0]
         d_step = _rows_dot(v, slopes, i + 1) - _rows_dot(v, slopes, i)
         slope_terms = (slopes, slopes)
     else:
@@ -311,19 +308,20 @@ def _threshold_terms(v: np.ndarray, kernels: dict, position: np.ndarray, peak: n
     return terms
 
 
-def _peak_terms(v: np.ndarray, position: np.ndarray, threshold: np.ndarray,
+def _peak_terms(v: np.ndarray, position: np.ndarray, noise_mv: np.ndarray,
                 threshold_mv: np.ndarray) -> tuple[list[_Term], list[_Term]]:
     """Peak voltage at its maximum (the position's own shift changes the value only to second
     order there): the local quartic fit over the window
     :func:`~spikemeasure.analysis.spike_features.peak_windows` chooses again, centred on the
     nearest sample; where the spike is too narrow for a fit, the spline through the largest
     sample p and three either side; and the weights of that spline's interpolation error
-    bound (zero where the fit is used)."""
+    bound (zero where the fit is used). `noise_mv`: the noise before each threshold
+    (:func:`~spikemeasure.analysis.spike_rates.noise_before`)."""
     near = np.round(np.nan_to_num(position)).astype(np.int64)
     around = np.clip(near[:, None] + np.arange(-1, 2), 0, v.size - 1)
     p = around[np.arange(near.size), np.argmax(v[around], axis=1)]
     weights = _peak_spline()(np.clip(position - p, -1.0, 1.0))  # (n, 7)
-    windows = peak_windows(v, p, threshold_mv, noise_before(v, threshold))
+    windows = peak_windows(v, p, threshold_mv, noise_mv)
     fit = windows > 0
     weights[fit] = 0.0
     spline = [(_UNIT, p + k, weights[:, k + 3]) for k in range(-3, 4)]
@@ -375,16 +373,17 @@ def _width_terms(v: np.ndarray, rate: float, start: np.ndarray, end: np.ndarray,
 
 
 def _max_rate_terms(v: np.ndarray, rate: float, threshold: np.ndarray, peak: np.ndarray,
-                    settings: DetectionSettings
+                    settings: DetectionSettings, noise_mv: np.ndarray
                     ) -> tuple[list[_Term], list[_Term], list[_Term]]:
     """Largest dV/dt: the estimator's own weights on the samples
     (:func:`~spikemeasure.analysis.spike_rates.max_rate_weights`: the noise-matched local
     quartic fit, then the quintic spline's derivative at its extreme), and those of its
     smoothing's bias read on the recording and of its spline's interpolation error bound
     (the cubic spline's, which a quintic through the same samples meets as well or better
-    where the samples resolve the rise)."""
+    where the samples resolve the rise). `noise_mv`: the noise before each threshold."""
     centre, weights, bias, fourth = max_rate_weights(
-        v, rate, threshold, peak, settings.rate_smoothing_ms, smoothing_bias=True)
+        v, rate, threshold, peak, settings.rate_smoothing_ms, smoothing_bias=True,
+        noise_mv=noise_mv)
     one = np.ones(centre.size)
     return ([(weights, centre, one)], [(bias, centre, one)],
             [(fourth, centre, np.full(centre.size,
@@ -640,15 +639,21 @@ def spike_uncertainty(voltage_mv: np.ndarray, sampling_rate_hz: float,
     thr = np.asarray(spikes.threshold_s, dtype=float) * rate
     peak_at = np.asarray(spikes.peak_s, dtype=float) * rate
     peak_sample = np.round(np.nan_to_num(peak_at)).astype(np.int64)
-    threshold = _threshold_terms(v, kernels, thr, peak_sample, settings)
-    peak, peak_interpolation = _peak_terms(v, peak_at, thr,
+    # the noise-matched onset window of each threshold crossing, for its terms and its bias
+    onset = (_onset_slopes_and_windows(v, rate, thr, kernels["slope"].window,
+                                       settings.onset_rate_v_per_s)
+             if settings.threshold_method == "onset_rate" else None)
+    threshold = _threshold_terms(v, kernels, thr, peak_sample, settings, onset)
+    # the noise before each threshold, which the peak's and the max dV/dt's windows follow
+    noise_mv = noise_before(v, thr)
+    peak, peak_interpolation = _peak_terms(v, peak_at, noise_mv,
                                            np.asarray(spikes.threshold_mv, dtype=float))
     up = np.asarray(spikes.half_width_start_s) * rate
     down = np.asarray(spikes.half_width_end_s) * rate
     width = _width_terms(v, rate, up, down, threshold, peak)
     ahp = threshold + _scaled(_trough_terms(kernels, np.asarray(spikes.trough_s) * rate), -1.0)
     max_rate, max_rate_bias, max_rate_interpolation = _max_rate_terms(v, rate, thr, peak_at,
-                                                                      settings)
+                                                                      settings, noise_mv)
     values = {"threshold_mv_sd": (threshold, spikes.threshold_mv),
               "peak_mv_sd": (peak, spikes.peak_mv),
               "half_width_ms_sd": (width, spikes.half_width_ms),
@@ -658,7 +663,7 @@ def spike_uncertainty(voltage_mv: np.ndarray, sampling_rate_hz: float,
     # recording, added in quadrature (per estimator, see _biases)
     extra = _biases(v, rate, spikes, noise, kernels, settings, thr, up, down,
                     {"peak": peak_interpolation, "max_rate": max_rate_bias,
-                     "max_rate_interpolation": max_rate_interpolation})
+                     "max_rate_interpolation": max_rate_interpolation}, onset)
     out = {}
     for name, (terms, value) in values.items():
         known = np.isfinite(np.asarray(value, dtype=float))
@@ -671,7 +676,8 @@ def spike_uncertainty(voltage_mv: np.ndarray, sampling_rate_hz: float,
 
 def _biases(v: np.ndarray, rate: float, spikes: SpikeMeasurements, noise: NoiseModel,
             kernels: dict, settings: DetectionSettings, thr: np.ndarray, up: np.ndarray,
-            down: np.ndarray, estimated: dict[str, list[_Term]]
+            down: np.ndarray, estimated: dict[str, list[_Term]],
+            onset: tuple[np.ndarray, np.ndarray] | None
             ) -> dict[str, list[np.ndarray]]:
     """Per SD column, the sizes of the biases it holds besides the noise, each estimated from
     the recording:
@@ -688,9 +694,10 @@ def _biases(v: np.ndarray, rate: float, spikes: SpikeMeasurements, noise: NoiseM
       bound of a cubic spline's error (Hall and Meyer 1976, from memory) with the largest fourth
       difference of its samples for h**4 times the fourth derivative, as the SD of a
       uniform error within it (:data:`BOUND_TO_SD`).
-    `estimated` holds those read from the recording as weighted sums of its samples.
+    `estimated` holds those read from the recording as weighted sums of its samples;
+    `onset` the threshold crossings' onset windows (:func:`_onset_slopes_and_windows`).
     """
-    onset = _onset_smoothing_bias(v, kernels, thr, settings)
+    onset = _onset_smoothing_bias(v, kernels, thr, settings, onset)
     peak = _bias_sd(estimated["peak"], v, noise)
     ms = 1e3 / rate
     crossings = (_scaled(_crossing_interpolation_terms(v, down), ms)
