@@ -464,8 +464,10 @@ def _combined_sd(pos: np.ndarray, w: np.ndarray, valid: np.ndarray, noise: Noise
     corner of that matrix, the same for every spike: its weights are laid out on its span
     (repeated positions summed in the order :func:`_merged` sums them) and the quadratic
     form is taken with that one block (:func:`_toeplitz_forms`), spikes of similar spans
-    together. Spikes whose weights lie farther apart (the AHP depth's threshold and trough)
-    look up the autocovariance pair by pair (:func:`_paired_forms`).
+    together. Spikes whose weights lie in two groups far apart (the AHP depth's threshold
+    and trough) take each group's form so and the pairs between the groups as one
+    correlation of the groups' weights (:func:`_two_group_forms`); any other looks up the
+    autocovariance pair by pair (:func:`_paired_forms`).
     """
     acov = noise.autocovariance_mv2
     variance = np.zeros(pos.shape[0])
@@ -476,17 +478,38 @@ def _combined_sd(pos: np.ndarray, w: np.ndarray, valid: np.ndarray, noise: Noise
         span = np.where(used, np.where(nonzero, pos, np.iinfo(np.int64).min).max(axis=1)
                         - lo + 1, 0)
         compact = used & (span <= _TOEPLITZ_SPAN)
-        # spans up to 16, 32, 64, ... samples each one block of their own longest span
-        size = np.ceil(np.log2(np.maximum(span, 16))).astype(np.int64)
-        for bits in np.unique(size[compact]):
-            rows = np.flatnonzero(compact & (size == bits))
-            variance[rows] = _toeplitz_forms(pos[rows] - lo[rows, None], w[rows],
-                                             int(span[rows].max()), acov)
+        for rows, width in _by_width(np.flatnonzero(compact), span):
+            variance[rows] = _toeplitz_forms(pos[rows] - lo[rows, None], w[rows], width,
+                                             acov)
         rows = np.flatnonzero(used & ~compact)
         if rows.size:
-            variance[rows] = _paired_forms(*_nonzero_first(*_merged(pos[rows], w[rows])),
-                                           acov)
+            variance[rows] = _two_group_forms(pos[rows], w[rows], acov)
     return np.where(valid, np.sqrt(np.clip(variance, 0.0, None)), np.nan)
+
+
+def _by_width(rows: np.ndarray, span: np.ndarray):
+    """Yield (rows, width): the rows in groups of spans up to 16, 32, 64, ... samples, each
+    with its longest span."""
+    size = np.ceil(np.log2(np.maximum(span[rows], 16))).astype(np.int64)
+    for bits in np.unique(size):
+        some = rows[size == bits]
+        yield some, int(span[some].max())
+
+
+def _dense(offset: np.ndarray, w: np.ndarray, width: int) -> np.ndarray:
+    """Each row's weights laid out on `width` samples, the weight `w` at `offset` (0 <=
+    offset < `width` where w is not zero), repeated offsets summed."""
+    n = w.shape[0]
+    # zero weights may sit anywhere: at offset 0 they add nothing
+    offset = np.where(w != 0.0, offset, 0)
+    slot = (np.arange(n)[:, None] * width + offset).ravel()
+    # np.bincount adds each row's weights in their order, as _merged does
+    return np.bincount(slot, weights=w.ravel(), minlength=n * width).reshape(n, width)
+
+
+def _autocovariance_at(acov: np.ndarray, lag: np.ndarray) -> np.ndarray:
+    """The autocovariance at each lag (its size, either sign), 0 from its length on."""
+    return np.append(acov, 0.0)[np.minimum(np.abs(lag), acov.size)]
 
 
 def _toeplitz_forms(offset: np.ndarray, w: np.ndarray, width: int, acov: np.ndarray
@@ -494,17 +517,60 @@ def _toeplitz_forms(offset: np.ndarray, w: np.ndarray, width: int, acov: np.ndar
     """w' C w per row, the weights `w` at sample `offset` from the row's first weighted
     sample (0 <= offset < `width` where w is not zero), C the autocovariance's Toeplitz
     matrix (0 from its length on)."""
-    n = w.shape[0]
-    # zero weights may sit anywhere: at offset 0 they add nothing
-    offset = np.where(w != 0.0, offset, 0)
-    slot = (np.arange(n)[:, None] * width + offset).ravel()
-    # np.bincount adds each row's weights in their order, as _merged does
-    dense = np.bincount(slot, weights=w.ravel(), minlength=n * width).reshape(n, width)
-    lag = np.abs(np.arange(width)[:, None] - np.arange(width)[None, :])
-    block = np.append(acov, 0.0)[np.minimum(lag, acov.size)]
+    return _toeplitz_quadratic(_dense(offset, w, width), acov)
+
+
+def _toeplitz_quadratic(dense: np.ndarray, acov: np.ndarray) -> np.ndarray:
+    """d' C d per row of weights `dense` on consecutive samples."""
+    width = dense.shape[1]
+    block = _autocovariance_at(acov, np.arange(width)[:, None] - np.arange(width)[None, :])
     # einsum, not the @ operator: no BLAS call (and so no BLAS threads) for these small
     # products
     return np.einsum("ni,ni->n", np.einsum("ni,ij->nj", dense, block), dense)
+
+
+def _two_group_forms(pos: np.ndarray, w: np.ndarray, acov: np.ndarray) -> np.ndarray:
+    """w' C w per row whose weights span more than a Toeplitz block: split at the row's
+    widest gap between weighted samples into groups A (before) and B, each within
+    :data:`_TOEPLITZ_SPAN` samples, it is a' C a + b' C b + 2 a' C b. With a laid out from
+    sample a0 and b from b0, a' C b = sum over k of acov[|b0 - a0 + k|] x[k], x the
+    cross-correlation x[k] = sum_i a[i] b[i + k] (k from -(len a - 1) to len b - 1). Rows
+    whose groups are wider go pair by pair (:func:`_paired_forms`)."""
+    n = pos.shape[0]
+    nonzero = w != 0.0
+    count = nonzero.sum(axis=1)
+    ordered = np.sort(np.where(nonzero, pos, np.iinfo(np.int64).max), axis=1)
+    gaps = np.diff(ordered, axis=1)
+    gaps = np.where(np.arange(gaps.shape[1]) < (count - 1)[:, None], gaps, -1)
+    last_a = np.argmax(gaps, axis=1)
+    pick = np.arange(n)
+    a0, b0 = ordered[:, 0], ordered[pick, last_a + 1]
+    span_a = ordered[pick, last_a] - a0 + 1
+    span_b = ordered[pick, count - 1] - b0 + 1
+    two = (count > 1) & (span_a <= _TOEPLITZ_SPAN) & (span_b <= _TOEPLITZ_SPAN)
+    variance = np.empty(n)
+    rows = np.flatnonzero(~two)
+    if rows.size:
+        variance[rows] = _paired_forms(*_nonzero_first(*_merged(pos[rows], w[rows])), acov)
+    rows = np.flatnonzero(two)
+    if rows.size == 0:
+        return variance
+    p, ww = pos[rows], w[rows]
+    in_a = p < b0[rows, None]
+    width_a, width_b = int(span_a[rows].max()), int(span_b[rows].max())
+    a = _dense(p - a0[rows, None], np.where(in_a, ww, 0.0), width_a)
+    b = _dense(p - b0[rows, None], np.where(in_a, 0.0, ww), width_b)
+    # b padded so that row s of its windows of width_a is b[s - (width_a - 1) + i], i.e.
+    # the cross-correlation's lag k = s - (width_a - 1)
+    padded = np.zeros((rows.size, width_b + 2 * (width_a - 1)))
+    padded[:, width_a - 1:width_a - 1 + width_b] = b
+    windows = np.lib.stride_tricks.sliding_window_view(padded, width_a, axis=1)
+    cross = np.einsum("nsi,ni->ns", windows, a)
+    lag = (b0 - a0)[rows, None] + np.arange(cross.shape[1]) - (width_a - 1)
+    between = np.einsum("ns,ns->n", cross, _autocovariance_at(acov, lag))
+    variance[rows] = (_toeplitz_quadratic(a, acov) + _toeplitz_quadratic(b, acov)
+                      + 2.0 * between)
+    return variance
 
 
 def _paired_forms(pos: np.ndarray, w: np.ndarray, acov: np.ndarray) -> np.ndarray:

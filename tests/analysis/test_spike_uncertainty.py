@@ -385,10 +385,13 @@ class TestQuadraticForms:
         offsets = rng.integers(-8, 9, size=(n, width))
         # rows 0-19: compact (repeated positions, spans of 17 samples); 20-39: a second
         # group of samples far away (wider than a Toeplitz block, and beyond the
-        # autocovariance's length for rows 30-39); 40-49: spans of 30-200 samples
+        # autocovariance's length for rows 30-39); 40-44: spans of 30-200 samples; 45-49:
+        # three groups far apart
         offsets[20:30, 12:] += _TOEPLITZ_SPAN + 40
         offsets[30:40, 12:] += 2_000
-        offsets[40:50] *= rng.integers(2, 12, size=(10, 1))
+        offsets[40:45] *= rng.integers(2, 12, size=(5, 1))
+        offsets[45:50, 8:16] += _TOEPLITZ_SPAN + 50
+        offsets[45:50, 16:] += 3 * _TOEPLITZ_SPAN
         pos = centre[:, None] + offsets
         w = rng.normal(size=(n, width))
         w[rng.random(size=w.shape) < 0.2] = 0.0            # padding and zeroed terms
