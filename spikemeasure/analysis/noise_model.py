@@ -158,12 +158,11 @@ def measured_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start: int, 
     n = stretch.size
     if n < max(3, MIN_QUIET_MS * 1e-3 * sampling_rate_hz):
         return None
-    t = np.arange(n, dtype=float)
-    slope, intercept = np.polyfit(t, stretch, 1)
-    x = stretch - (slope * t + intercept)
-    size = 1 << int(np.ceil(np.log2(2 * n)))
+    x = _detrended(stretch)
+    # zero-padded to at least 2 n - 1 samples, every lag's sum has no wrapped-around term
+    size = _fast_length(2 * n - 1)
     spectrum = np.fft.rfft(x, size)
-    acov = np.fft.irfft(spectrum * spectrum.conj(), size)[:n] / n
+    acov = np.fft.irfft(spectrum.real ** 2 + spectrum.imag ** 2, size)[:n] / n
     rate = float(sampling_rate_hz)
     if not drift:
         return NoiseModel(acov, rate, int(start), int(stop))
@@ -177,6 +176,41 @@ def measured_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start: int, 
     slope, slope_sd = _drift_with_hum(means, rate / block,
                                       1 << int(np.ceil(np.log2(2 * max(1, blocks)))))
     return NoiseModel(acov, rate, int(start), int(stop), slope, slope_sd)
+
+
+def _detrended(stretch: np.ndarray) -> np.ndarray:
+    """The stretch less its least-squares line, from the closed form of the fit [1]_ on the
+    time centred on the stretch's middle (where the slope and the mean are uncorrelated).
+    Sums through einsum, not BLAS's dot product, whose threads cost more than a 50,000-sample
+    sum on a loaded machine.
+
+    References
+    ----------
+    .. [1] P. R. Bevington and D. K. Robinson, "Data Reduction and Error Analysis for the
+       Physical Sciences", 3rd ed., McGraw-Hill, 2003, ch. 6.
+    """
+    n = stretch.size
+    t = np.arange(n, dtype=float) - 0.5 * (n - 1)
+    mean = stretch.mean()
+    slope = np.einsum("i,i->", t, stretch - mean) / np.einsum("i,i->", t, t)
+    return stretch - (mean + slope * t)
+
+
+def _fast_length(n: int) -> int:
+    """The smallest 2**a 3**b 5**c at least n: a length the FFT takes quickly (a power of
+    two alone may be almost twice as long)."""
+    best = 1 << max(0, int(n - 1).bit_length())
+    five = 1
+    while five < best:
+        three = five
+        while three < best:
+            two = three
+            while two < n:
+                two *= 2
+            best = min(best, two)
+            three *= 3
+        five *= 5
+    return best
 
 
 def _drift_with_hum(stretch: np.ndarray, rate: float, size: int) -> tuple[float, float]:

@@ -328,7 +328,8 @@ def _extreme_weights(best: int, window: int, at: int
 
 def max_rate_weights(voltage_mv: np.ndarray, sampling_rate_hz: float,
                      threshold_position: np.ndarray, peak_position: np.ndarray,
-                     smoothing_ms: float = 0.1, smoothing_bias: bool = False) -> tuple:
+                     smoothing_ms: float = 0.1, smoothing_bias: bool = False,
+                     noise_mv: np.ndarray | None = None) -> tuple:
     """The linear weights through which each spike's max dV/dt depends on its samples.
 
     Parameters
@@ -338,6 +339,9 @@ def max_rate_weights(voltage_mv: np.ndarray, sampling_rate_hz: float,
     smoothing_bias : bool, optional
         Also return the weights of the smoothing's bias and of a fourth difference (see
         Notes).
+    noise_mv : ndarray, optional
+        As for :func:`rate_extremes`: the noise SD before each spike,
+        ``noise_before(voltage_mv, threshold_position)``, computed here when not given.
 
     Returns
     -------
@@ -378,8 +382,9 @@ def max_rate_weights(voltage_mv: np.ndarray, sampling_rate_hz: float,
     v = np.asarray(voltage_mv, dtype=float)
     fs = float(sampling_rate_hz)
     longest = smoothing_window_samples(smoothing_ms, fs)
-    found = _max_rate_extremes(v, threshold_position, peak_position,
-                               noise_before(v, threshold_position), longest)
+    noise = (noise_before(v, threshold_position) if noise_mv is None
+             else np.asarray(noise_mv, dtype=float))
+    found = _max_rate_extremes(v, threshold_position, peak_position, noise, longest)
     n = found.value.size
     choices = np.stack([found.best, found.window, found.at], axis=1)[found.valid]
     unique, which = (np.unique(choices, axis=0, return_inverse=True) if choices.size

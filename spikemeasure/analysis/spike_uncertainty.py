@@ -110,6 +110,9 @@ SPLINE_SLOPE_BOUND = np.sqrt(3.0) / 216.0 + 1.0 / 24.0
 #: uncertainty in measurement, 4.3.7).
 BOUND_TO_SD = 1.0 / np.sqrt(3.0)
 _QUADRATIC_ELEMENTS = 4_000_000   # (spikes x weights^2) evaluated at once, to bound memory
+#: Weights spanning at most this many samples take their quadratic form with one block of
+#: the autocovariance's Toeplitz matrix (:func:`_toeplitz_forms`); wider ones pair by pair.
+_TOEPLITZ_SPAN = 256
 _spline_cache: list[CubicSpline] = []
 
 
@@ -165,17 +168,12 @@ def _scaled(terms: list[_Term], factor) -> list[_Term]:
     return [(k, c, w * factor) for k, c, w in terms]
 
 
-def _onset_slope_weights(v: np.ndarray, rate_hz: float, position: np.ndarray, longest: int,
-                         level: float) -> np.ndarray:
-    """Per spike, the dV/dt weights (V/s per mV) of the local quadratic fit whose window
-    :func:`~spikemeasure.analysis.spike_features.onset_window` chose for its threshold
-    crossing, padded to a common odd length (n, longest)."""
-    return _onset_slopes_and_windows(v, rate_hz, position, longest, level)[0]
-
-
 def _onset_slopes_and_windows(v: np.ndarray, rate_hz: float, position: np.ndarray,
                               longest: int, level: float) -> tuple[np.ndarray, np.ndarray]:
-    """:func:`_onset_slope_weights`, and the window of each spike."""
+    """Per spike, the dV/dt weights (V/s per mV) of the local quadratic fit whose window
+    :func:`~spikemeasure.analysis.spike_features.onset_window` chose for its threshold
+    crossing, padded to a common odd length (n, longest), and that window. Computed once
+    per sweep, for the threshold's terms and for its smoothing bias."""
     noise = noise_before(v, np.asarray(position, dtype=float) - longest)
     windows = onset_window(noise, rate_hz, level, longest)
     # onset_window may pick a window longer than the smoothing window
@@ -190,7 +188,8 @@ def _onset_slopes_and_windows(v: np.ndarray, rate_hz: float, position: np.ndarra
 
 
 def _onset_smoothing_bias(v: np.ndarray, kernels: dict, position: np.ndarray,
-                          settings: DetectionSettings) -> np.ndarray:
+                          settings: DetectionSettings,
+                          onset: tuple[np.ndarray, np.ndarray] | None) -> np.ndarray:
     """Per spike, how far (mV) the onset window's smoothing may still have moved the threshold
     voltage after the estimator's correction: 0 unless the threshold is the ``onset_rate``
     crossing.
@@ -203,14 +202,15 @@ def _onset_smoothing_bias(v: np.ndarray, kernels: dict, position: np.ndarray,
     (:func:`_series_shift`). Where the estimator kept the linear crossing (a rate that does
     not grow between the two samples) nothing was corrected and the series term is the whole
     bias. The shift in samples times the smoothed voltage's step per sample is the voltage.
+    `onset`: :func:`_onset_slopes_and_windows` of the spikes (None unless the threshold is
+    the ``onset_rate`` crossing).
     """
     n = np.asarray(position).size
     if settings.threshold_method != "onset_rate" or n == 0:
         return np.zeros(n)
-    smooth, slope = kernels["smooth"], kernels["slope"]
+    smooth = kernels["smooth"]
     rate_hz = kernels["rate_hz"]
-    slopes, windows = _onset_slopes_and_windows(v, rate_hz, position, slope.window,
-                                                settings.onset_rate_v_per_s)
+    slopes, windows = onset
     i = np.floor(np.nan_to_num(position)).astype(np.int64)
     before, after = _rows_dot(v, slopes, i), _rows_dot(v, slopes, i + 1)
     series = _series_shift(v, slopes, windows, position, after - before)
@@ -275,7 +275,8 @@ def _rows_dot(v: np.ndarray, rows: np.ndarray, centre: np.ndarray) -> np.ndarray
 
 
 def _threshold_terms(v: np.ndarray, kernels: dict, position: np.ndarray, peak: np.ndarray,
-                     settings: DetectionSettings) -> list[_Term]:
+                     settings: DetectionSettings,
+                     onset: tuple[np.ndarray, np.ndarray] | None) -> list[_Term]:
     """Threshold voltage: the smoothed voltage at the linear crossing of a level by the
     smoothed dV/dt between samples i and i+1. Moving dV/dt there by e moves the crossing by
     -e / (dV/dt[i+1] - dV/dt[i]) samples and the voltage by that times the voltage step."""
@@ -287,8 +288,7 @@ def _threshold_terms(v: np.ndarray, kernels: dict, position: np.ndarray, peak: n
     if settings.threshold_method == "onset_rate":
         # the crossing is found again with a window matched to the noise before it
         # (spike_features._noise_matched_onsets): that window's slope weights, per spike
-        slopes = _onset_slope_weights(v, kernels["rate_hz"], position, slope.window,
-                                      settings.onset_rate_v_per_s)
+        slopes = onset[0]
         d_step = _rows_dot(v, slopes, i + 1) - _rows_dot(v, slopes, i)
         slope_terms = (slopes, slopes)
     else:
@@ -309,19 +309,20 @@ def _threshold_terms(v: np.ndarray, kernels: dict, position: np.ndarray, peak: n
     return terms
 
 
-def _peak_terms(v: np.ndarray, position: np.ndarray, threshold: np.ndarray,
+def _peak_terms(v: np.ndarray, position: np.ndarray, noise_mv: np.ndarray,
                 threshold_mv: np.ndarray) -> tuple[list[_Term], list[_Term]]:
     """Peak voltage at its maximum (the position's own shift changes the value only to second
     order there): the local quartic fit over the window
     :func:`~spikemeasure.analysis.spike_features.peak_windows` chooses again, centred on the
     nearest sample; where the spike is too narrow for a fit, the spline through the largest
     sample p and three either side; and the weights of that spline's interpolation error
-    bound (zero where the fit is used)."""
+    bound (zero where the fit is used). `noise_mv`: the noise before each threshold
+    (:func:`~spikemeasure.analysis.spike_rates.noise_before`)."""
     near = np.round(np.nan_to_num(position)).astype(np.int64)
     around = np.clip(near[:, None] + np.arange(-1, 2), 0, v.size - 1)
     p = around[np.arange(near.size), np.argmax(v[around], axis=1)]
     weights = _peak_spline()(np.clip(position - p, -1.0, 1.0))  # (n, 7)
-    windows = peak_windows(v, p, threshold_mv, noise_before(v, threshold))
+    windows = peak_windows(v, p, threshold_mv, noise_mv)
     fit = windows > 0
     weights[fit] = 0.0
     spline = [(_UNIT, p + k, weights[:, k + 3]) for k in range(-3, 4)]
@@ -373,16 +374,17 @@ def _width_terms(v: np.ndarray, rate: float, start: np.ndarray, end: np.ndarray,
 
 
 def _max_rate_terms(v: np.ndarray, rate: float, threshold: np.ndarray, peak: np.ndarray,
-                    settings: DetectionSettings
+                    settings: DetectionSettings, noise_mv: np.ndarray
                     ) -> tuple[list[_Term], list[_Term], list[_Term]]:
     """Largest dV/dt: the estimator's own weights on the samples
     (:func:`~spikemeasure.analysis.spike_rates.max_rate_weights`: the noise-matched local
     quartic fit, then the quintic spline's derivative at its extreme), and those of its
     smoothing's bias read on the recording and of its spline's interpolation error bound
     (the cubic spline's, which a quintic through the same samples meets as well or better
-    where the samples resolve the rise)."""
+    where the samples resolve the rise). `noise_mv`: the noise before each threshold."""
     centre, weights, bias, fourth = max_rate_weights(
-        v, rate, threshold, peak, settings.rate_smoothing_ms, smoothing_bias=True)
+        v, rate, threshold, peak, settings.rate_smoothing_ms, smoothing_bias=True,
+        noise_mv=noise_mv)
     one = np.ones(centre.size)
     return ([(weights, centre, one)], [(bias, centre, one)],
             [(fourth, centre, np.full(centre.size,
@@ -454,10 +456,127 @@ def _sd(terms: list[_Term], noise: NoiseModel, n_samples: int) -> np.ndarray:
 
 def _combined_sd(pos: np.ndarray, w: np.ndarray, valid: np.ndarray, noise: NoiseModel
                  ) -> np.ndarray:
-    """:func:`_sd` of terms already combined (:func:`_combined`)."""
-    pos, w = _merged(pos, w)
-    pos, w = _nonzero_first(pos, w)
+    """:func:`_sd` of terms already combined (:func:`_combined`).
+
+    Notes
+    -----
+    The noise covariance of samples i and j is the autocovariance at lag |i - j| (a
+    Toeplitz matrix), so a spike whose weights span few samples needs only the top-left
+    corner of that matrix, the same for every spike: its weights are laid out on its span
+    (repeated positions summed in the order :func:`_merged` sums them) and the quadratic
+    form is taken with that one block (:func:`_toeplitz_forms`), spikes of similar spans
+    together. Spikes whose weights lie in two groups far apart (the AHP depth's threshold
+    and trough) take each group's form so and the pairs between the groups as one
+    correlation of the groups' weights (:func:`_two_group_forms`); any other looks up the
+    autocovariance pair by pair (:func:`_paired_forms`).
+    """
     acov = noise.autocovariance_mv2
+    variance = np.zeros(pos.shape[0])
+    nonzero = w != 0.0
+    used = nonzero.any(axis=1)
+    if used.any():
+        lo = np.where(nonzero, pos, np.iinfo(np.int64).max).min(axis=1)
+        span = np.where(used, np.where(nonzero, pos, np.iinfo(np.int64).min).max(axis=1)
+                        - lo + 1, 0)
+        compact = used & (span <= _TOEPLITZ_SPAN)
+        for rows, width in _by_width(np.flatnonzero(compact), span):
+            variance[rows] = _toeplitz_forms(pos[rows] - lo[rows, None], w[rows], width,
+                                             acov)
+        rows = np.flatnonzero(used & ~compact)
+        if rows.size:
+            variance[rows] = _two_group_forms(pos[rows], w[rows], acov)
+    return np.where(valid, np.sqrt(np.clip(variance, 0.0, None)), np.nan)
+
+
+def _by_width(rows: np.ndarray, span: np.ndarray):
+    """Yield (rows, width): the rows in groups of spans up to 16, 32, 64, ... samples, each
+    with its longest span."""
+    size = np.ceil(np.log2(np.maximum(span[rows], 16))).astype(np.int64)
+    for bits in np.unique(size):
+        some = rows[size == bits]
+        yield some, int(span[some].max())
+
+
+def _dense(offset: np.ndarray, w: np.ndarray, width: int) -> np.ndarray:
+    """Each row's weights laid out on `width` samples, the weight `w` at `offset` (0 <=
+    offset < `width` where w is not zero), repeated offsets summed."""
+    n = w.shape[0]
+    # zero weights may sit anywhere: at offset 0 they add nothing
+    offset = np.where(w != 0.0, offset, 0)
+    slot = (np.arange(n)[:, None] * width + offset).ravel()
+    # np.bincount adds each row's weights in their order, as _merged does
+    return np.bincount(slot, weights=w.ravel(), minlength=n * width).reshape(n, width)
+
+
+def _autocovariance_at(acov: np.ndarray, lag: np.ndarray) -> np.ndarray:
+    """The autocovariance at each lag (its size, either sign), 0 from its length on."""
+    return np.append(acov, 0.0)[np.minimum(np.abs(lag), acov.size)]
+
+
+def _toeplitz_forms(offset: np.ndarray, w: np.ndarray, width: int, acov: np.ndarray
+                    ) -> np.ndarray:
+    """w' C w per row, the weights `w` at sample `offset` from the row's first weighted
+    sample (0 <= offset < `width` where w is not zero), C the autocovariance's Toeplitz
+    matrix (0 from its length on)."""
+    return _toeplitz_quadratic(_dense(offset, w, width), acov)
+
+
+def _toeplitz_quadratic(dense: np.ndarray, acov: np.ndarray) -> np.ndarray:
+    """d' C d per row of weights `dense` on consecutive samples."""
+    width = dense.shape[1]
+    block = _autocovariance_at(acov, np.arange(width)[:, None] - np.arange(width)[None, :])
+    # einsum, not the @ operator: no BLAS call (and so no BLAS threads) for these small
+    # products
+    return np.einsum("ni,ni->n", np.einsum("ni,ij->nj", dense, block), dense)
+
+
+def _two_group_forms(pos: np.ndarray, w: np.ndarray, acov: np.ndarray) -> np.ndarray:
+    """w' C w per row whose weights span more than a Toeplitz block: split at the row's
+    widest gap between weighted samples into groups A (before) and B, each within
+    :data:`_TOEPLITZ_SPAN` samples, it is a' C a + b' C b + 2 a' C b. With a laid out from
+    sample a0 and b from b0, a' C b = sum over k of acov[|b0 - a0 + k|] x[k], x the
+    cross-correlation x[k] = sum_i a[i] b[i + k] (k from -(len a - 1) to len b - 1). Rows
+    whose groups are wider go pair by pair (:func:`_paired_forms`)."""
+    n = pos.shape[0]
+    nonzero = w != 0.0
+    count = nonzero.sum(axis=1)
+    ordered = np.sort(np.where(nonzero, pos, np.iinfo(np.int64).max), axis=1)
+    gaps = np.diff(ordered, axis=1)
+    gaps = np.where(np.arange(gaps.shape[1]) < (count - 1)[:, None], gaps, -1)
+    last_a = np.argmax(gaps, axis=1)
+    pick = np.arange(n)
+    a0, b0 = ordered[:, 0], ordered[pick, last_a + 1]
+    span_a = ordered[pick, last_a] - a0 + 1
+    span_b = ordered[pick, count - 1] - b0 + 1
+    two = (count > 1) & (span_a <= _TOEPLITZ_SPAN) & (span_b <= _TOEPLITZ_SPAN)
+    variance = np.empty(n)
+    rows = np.flatnonzero(~two)
+    if rows.size:
+        variance[rows] = _paired_forms(*_nonzero_first(*_merged(pos[rows], w[rows])), acov)
+    rows = np.flatnonzero(two)
+    if rows.size == 0:
+        return variance
+    p, ww = pos[rows], w[rows]
+    in_a = p < b0[rows, None]
+    width_a, width_b = int(span_a[rows].max()), int(span_b[rows].max())
+    a = _dense(p - a0[rows, None], np.where(in_a, ww, 0.0), width_a)
+    b = _dense(p - b0[rows, None], np.where(in_a, 0.0, ww), width_b)
+    # b padded so that row s of its windows of width_a is b[s - (width_a - 1) + i], i.e.
+    # the cross-correlation's lag k = s - (width_a - 1)
+    padded = np.zeros((rows.size, width_b + 2 * (width_a - 1)))
+    padded[:, width_a - 1:width_a - 1 + width_b] = b
+    windows = np.lib.stride_tricks.sliding_window_view(padded, width_a, axis=1)
+    cross = np.einsum("nsi,ni->ns", windows, a)
+    lag = (b0 - a0)[rows, None] + np.arange(cross.shape[1]) - (width_a - 1)
+    between = np.einsum("ns,ns->n", cross, _autocovariance_at(acov, lag))
+    variance[rows] = (_toeplitz_quadratic(a, acov) + _toeplitz_quadratic(b, acov)
+                      + 2.0 * between)
+    return variance
+
+
+def _paired_forms(pos: np.ndarray, w: np.ndarray, acov: np.ndarray) -> np.ndarray:
+    """w' C w per row, looking up the autocovariance of each pair of positions (rows of
+    :func:`_nonzero_first`)."""
     # the autocovariance at every lag, 0 from its length on: one look-up per pair of samples
     padded = np.append(acov, 0.0)
     small = pos.size == 0 or int(np.abs(pos).max()) < 2 ** 30
@@ -470,7 +589,7 @@ def _combined_sd(pos: np.ndarray, w: np.ndarray, valid: np.ndarray, noise: Noise
         np.abs(lag, out=lag)
         np.minimum(lag, acov.size, out=lag)
         variance[a:a + per_block] = np.einsum("ni,nij,nj->n", ww, padded.take(lag), ww)
-    return np.where(valid, np.sqrt(np.clip(variance, 0.0, None)), np.nan)
+    return variance
 
 
 def _nonzero_first(pos: np.ndarray, w: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -587,15 +706,21 @@ def spike_uncertainty(voltage_mv: np.ndarray, sampling_rate_hz: float,
     thr = np.asarray(spikes.threshold_s, dtype=float) * rate
     peak_at = np.asarray(spikes.peak_s, dtype=float) * rate
     peak_sample = np.round(np.nan_to_num(peak_at)).astype(np.int64)
-    threshold = _threshold_terms(v, kernels, thr, peak_sample, settings)
-    peak, peak_interpolation = _peak_terms(v, peak_at, thr,
+    # the noise-matched onset window of each threshold crossing, for its terms and its bias
+    onset = (_onset_slopes_and_windows(v, rate, thr, kernels["slope"].window,
+                                       settings.onset_rate_v_per_s)
+             if settings.threshold_method == "onset_rate" else None)
+    threshold = _threshold_terms(v, kernels, thr, peak_sample, settings, onset)
+    # the noise before each threshold, which the peak's and the max dV/dt's windows follow
+    noise_mv = noise_before(v, thr)
+    peak, peak_interpolation = _peak_terms(v, peak_at, noise_mv,
                                            np.asarray(spikes.threshold_mv, dtype=float))
     up = np.asarray(spikes.half_width_start_s) * rate
     down = np.asarray(spikes.half_width_end_s) * rate
     width = _width_terms(v, rate, up, down, threshold, peak)
     ahp = threshold + _scaled(_trough_terms(kernels, np.asarray(spikes.trough_s) * rate), -1.0)
     max_rate, max_rate_bias, max_rate_interpolation = _max_rate_terms(v, rate, thr, peak_at,
-                                                                      settings)
+                                                                      settings, noise_mv)
     values = {"threshold_mv_sd": (threshold, spikes.threshold_mv),
               "peak_mv_sd": (peak, spikes.peak_mv),
               "half_width_ms_sd": (width, spikes.half_width_ms),
@@ -605,7 +730,7 @@ def spike_uncertainty(voltage_mv: np.ndarray, sampling_rate_hz: float,
     # recording, added in quadrature (per estimator, see _biases)
     extra = _biases(v, rate, spikes, noise, kernels, settings, thr, up, down,
                     {"peak": peak_interpolation, "max_rate": max_rate_bias,
-                     "max_rate_interpolation": max_rate_interpolation})
+                     "max_rate_interpolation": max_rate_interpolation}, onset)
     out = {}
     for name, (terms, value) in values.items():
         known = np.isfinite(np.asarray(value, dtype=float))
@@ -618,7 +743,8 @@ def spike_uncertainty(voltage_mv: np.ndarray, sampling_rate_hz: float,
 
 def _biases(v: np.ndarray, rate: float, spikes: SpikeMeasurements, noise: NoiseModel,
             kernels: dict, settings: DetectionSettings, thr: np.ndarray, up: np.ndarray,
-            down: np.ndarray, estimated: dict[str, list[_Term]]
+            down: np.ndarray, estimated: dict[str, list[_Term]],
+            onset: tuple[np.ndarray, np.ndarray] | None
             ) -> dict[str, list[np.ndarray]]:
     """Per SD column, the sizes of the biases it holds besides the noise, each estimated from
     the recording:
@@ -635,9 +761,10 @@ def _biases(v: np.ndarray, rate: float, spikes: SpikeMeasurements, noise: NoiseM
       bound of a cubic spline's error (Hall and Meyer 1976, from memory) with the largest fourth
       difference of its samples for h**4 times the fourth derivative, as the SD of a
       uniform error within it (:data:`BOUND_TO_SD`).
-    `estimated` holds those read from the recording as weighted sums of its samples.
+    `estimated` holds those read from the recording as weighted sums of its samples;
+    `onset` the threshold crossings' onset windows (:func:`_onset_slopes_and_windows`).
     """
-    onset = _onset_smoothing_bias(v, kernels, thr, settings)
+    onset = _onset_smoothing_bias(v, kernels, thr, settings, onset)
     peak = _bias_sd(estimated["peak"], v, noise)
     ms = 1e3 / rate
     crossings = (_scaled(_crossing_interpolation_terms(v, down), ms)

@@ -143,6 +143,22 @@ class TestMeasuredNoise:
         within_noise = NoiseModel(np.array([0.01]), self.RATE, 0, 2000, 0.5, 1.0)
         assert within_noise.drift_since_mv(np.array([0.3]))[0] == 0.0
 
+    @pytest.mark.parametrize("n", [401, 1250, 2048])
+    def test_autocovariance_is_the_direct_sum(self, n):
+        # source: the definition of the biased autocovariance, sum(x[i] x[i + k]) / n at
+        # every lag k, x the stretch less its least-squares line (numpy's polyfit), summed
+        # directly with numpy; n odd, 2 n - 1 a product of 2, 3 and 5 (1250), a power of two
+        rng = np.random.default_rng(n)
+        v = -65.0 + 0.01 * np.arange(n) + np.convolve(rng.normal(0, 0.3, n + 4),
+                                                      np.ones(5) / 5, mode="valid")
+        t = np.arange(n, dtype=float)
+        x = v - np.polyval(np.polyfit(t, v, 1), t)
+        direct = np.array([x[:n - k] @ x[k:] for k in range(n)]) / n
+        noise = measured_noise(v, self.RATE, 0, n, drift=False)
+        assert noise.autocovariance_mv2.shape == (n,)
+        np.testing.assert_allclose(noise.autocovariance_mv2, direct, rtol=0,
+                                   atol=1e-12 * direct[0])
+
     def test_too_short_or_missing_stretch_gives_none(self):
         v = np.zeros(int(self.RATE))
         short = int(MIN_QUIET_MS * 1e-3 * self.RATE) - 1
@@ -339,6 +355,60 @@ class TestBiasesBetweenSamples:
                                np.array([30.4]), np.array([fitted[1] - fitted[0]]))
         assert series[0] == pytest.approx(shift[0], rel=growth)
         assert series[0] != pytest.approx(shift[0], rel=1e-3)  # two models, not one
+
+
+class TestQuadraticForms:
+    """The SDs' quadratic forms against the direct formula: sqrt(w' C w) with C the full
+    covariance matrix C[i, j] = acov[|p_i - p_j|] (0 beyond the autocovariance's length)
+    built with numpy, summed with numpy's matrix products (the definition of the variance of
+    a weighted sum of a stationary process, Priestley 1981, sec. 5.3)."""
+
+    @staticmethod
+    def _direct(pos, w, valid, acov):
+        out = np.full(pos.shape[0], np.nan)
+        for r in np.flatnonzero(valid):
+            lag = np.abs(pos[r][:, None] - pos[r][None, :])
+            cov = np.where(lag < acov.size, acov[np.minimum(lag, acov.size - 1)], 0.0)
+            out[r] = np.sqrt(max(w[r] @ cov @ w[r], 0.0))
+        return out
+
+    def test_toeplitz_blocks_and_pairs_agree_with_the_full_matrix(self):
+        from spikemeasure.analysis.spike_uncertainty import _TOEPLITZ_SPAN, _combined_sd
+
+        rng = np.random.default_rng(5)
+        x = rng.normal(size=400)
+        x = np.convolve(x, np.ones(5) / 5, mode="same")    # correlated noise
+        acov = np.correlate(x, x, "full")[x.size - 1:] / x.size
+        acov = acov[:300]        # lags from 300 on count as uncorrelated
+        n, width = 60, 24
+        centre = rng.integers(1_000, 5_000, size=n)
+        offsets = rng.integers(-8, 9, size=(n, width))
+        # rows 0-19: compact (repeated positions, spans of 17 samples); 20-39: a second
+        # group of samples far away (wider than a Toeplitz block, and beyond the
+        # autocovariance's length for rows 30-39); 40-44: spans of 30-200 samples; 45-49:
+        # three groups far apart
+        offsets[20:30, 12:] += _TOEPLITZ_SPAN + 40
+        offsets[30:40, 12:] += 2_000
+        offsets[40:45] *= rng.integers(2, 12, size=(5, 1))
+        offsets[45:50, 8:16] += _TOEPLITZ_SPAN + 50
+        offsets[45:50, 16:] += 3 * _TOEPLITZ_SPAN
+        pos = centre[:, None] + offsets
+        w = rng.normal(size=(n, width))
+        w[rng.random(size=w.shape) < 0.2] = 0.0            # padding and zeroed terms
+        w[50] = 0.0                                        # nothing weighted
+        valid = np.ones(n, dtype=bool)
+        valid[55:] = False                                 # rows not measured: zero weights
+        w[55:] = 0.0
+        noise = NoiseModel(acov, 10_000.0, 0, x.size)
+        found = _combined_sd(pos, w, valid, noise)
+        expected = self._direct(pos, w, valid, acov)
+        np.testing.assert_array_equal(np.isnan(found), np.isnan(expected))
+        np.testing.assert_allclose(found, expected, rtol=1e-12, atol=0.0)
+        assert found[50] == 0.0
+        # control: the far samples count (the pairs between groups move the SD)
+        near = self._direct(pos[20:30, :12], w[20:30, :12], valid[20:30], acov)
+        assert not np.allclose(found[20:30], near, rtol=1e-3)
+
 
 class TestInTables:
     def test_spike_table_carries_the_sds(self):
