@@ -14,7 +14,7 @@ from scipy.ndimage import median_filter, uniform_filter1d
 from ..errors import InvalidSettingError
 
 __all__ = ["slow_fluctuation_mv", "baseline_stretch", "weighted_sums_covariance",
-           "BASELINE_WINDOW_MS"]
+           "weights_transforms", "covariance_from_transforms", "BASELINE_WINDOW_MS"]
 
 #: Length of the window before the step whose mean is the baseline (and its SD the noise).
 BASELINE_WINDOW_MS = 100.0
@@ -139,14 +139,40 @@ def weighted_sums_covariance(weights: np.ndarray, noise_mv: np.ndarray,
         raise InvalidSettingError("`sampling_rate_hz` must be positive")
     rows = np.atleast_2d(np.asarray(weights, dtype=float))
     part = np.asarray(noise_mv, dtype=float)
-    if part.size < _MIN_NOISE_SAMPLES or not np.isfinite(part).all():
+    if not _usable_noise(part):
         return None
+    return _transforms_covariance(weights_transforms(rows), 2 * rows.shape[1], part, rate)
+
+
+def weights_transforms(rows: np.ndarray) -> np.ndarray:
+    """The Fourier transforms of weight rows (shape (k, n)) that
+    :func:`weighted_sums_covariance` sums over: rfft of each row zero-padded to
+    ``next_fast_len(2 n)`` samples. A caller whose rows stay the same from sweep to sweep
+    may keep them for :func:`covariance_from_transforms`."""
+    return np.fft.rfft(rows, n=next_fast_len(2 * rows.shape[1]), axis=1)
+
+
+def covariance_from_transforms(transforms: np.ndarray, n_weights: int, noise_mv: np.ndarray,
+                               sampling_rate_hz: float) -> np.ndarray | None:
+    """:func:`weighted_sums_covariance` of rows of `n_weights` samples given as their
+    :func:`weights_transforms`: the same numbers, the same operations."""
+    part = np.asarray(noise_mv, dtype=float)
+    if not _usable_noise(part):
+        return None
+    return _transforms_covariance(transforms, 2 * n_weights, part, float(sampling_rate_hz))
+
+
+def _usable_noise(part: np.ndarray) -> bool:
+    return part.size >= _MIN_NOISE_SAMPLES and bool(np.isfinite(part).all())
+
+
+def _transforms_covariance(transforms: np.ndarray, padded: int, part: np.ndarray, rate: float
+                           ) -> np.ndarray:
     density = _noise_density(part, rate)
-    n_fft = next_fast_len(2 * rows.shape[1])
+    n_fft = next_fast_len(padded)
     spectrum = np.interp(np.fft.rfftfreq(n_fft, 1.0 / rate),
                          np.fft.rfftfreq(part.size, 1.0 / rate), density)
     spectrum[1:(n_fft + 1) // 2] *= 2.0  # the negative frequencies, folded onto these
-    transforms = np.fft.rfft(rows, n=n_fft, axis=1)
     weighted = transforms * spectrum[None, :]
     return (weighted @ transforms.conj().T).real * rate / n_fft
 

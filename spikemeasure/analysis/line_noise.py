@@ -9,13 +9,14 @@ reads files or prints.
 """
 from __future__ import annotations
 
+from collections import OrderedDict
 from dataclasses import dataclass, replace
 
 import numpy as np
 from scipy.special import chdtri
 
 from ..errors import InvalidSettingError
-from .fluctuation import weighted_sums_covariance
+from .fluctuation import covariance_from_transforms, weights_transforms
 
 __all__ = ["LineNoise", "estimate_line_noise", "remove_line_noise", "corrected_weights",
            "line_noise_lines",
@@ -155,37 +156,180 @@ def _basis(samples: np.ndarray, fit: LineNoise) -> np.ndarray:
     return terms
 
 
+#: Bytes the least-squares designs of :func:`_fit` kept for reuse may hold in all (each
+#: process keeps its own): a cell's sweeps share their quiet stretch, sampling rate and
+#: mains frequencies, so the same design, its pseudo-inverse and the Fourier transforms of
+#: its sensitivity rows recur sweep after sweep; a design larger than this is formed anew
+#: each time.
+DESIGN_CACHE_BYTES = 4 * 2 ** 20
+
+
+class _Design:
+    """One least-squares design of :func:`_fit` and what follows from it alone (read-only
+    arrays, shared by every fit with the same samples and terms)."""
+
+    def __init__(self, samples: np.ndarray, rate: float, frequency_hz: float,
+                 harmonics: tuple[int, ...], drift: bool, levels: np.ndarray | None,
+                 bend: bool):
+        terms = _terms(samples, rate, frequency_hz, harmonics, drift)
+        if bend:
+            terms = np.column_stack([terms, _plateau_terms(samples, rate, levels)])
+        constants = (np.ones((samples.size, 1)) if levels is None or not levels.any()
+                     else np.column_stack([1.0 - levels, levels]))
+        self.k = constants.shape[1]
+        self.design = np.column_stack([constants, terms - terms.mean(axis=0)])
+        # the normal equations: a few well-scaled columns (centred, the time in s), where an
+        # SVD of the tall design would cost far more
+        self.pinv = np.linalg.solve(self.design.T @ self.design, self.design.T)
+        self.design.flags.writeable = False
+        self.pinv.flags.writeable = False
+        self.first, self.gaps = int(samples[0]) if samples.size else 0, None
+        if samples.size and samples[-1] - samples[0] + 1 != samples.size:
+            self.gaps = samples - samples[0]
+        self._rows: np.ndarray | None = None
+        self._transforms: np.ndarray | None = None
+        self._white: np.ndarray | None = None
+
+    @property
+    def nbytes(self) -> int:
+        """Bytes of the arrays held (views of them not counted twice)."""
+        held = [self.design, self.pinv, self.gaps, self._rows, self._transforms, self._white]
+        return sum(a.nbytes for a in held if a is not None and a.base is None)
+
+    def rows(self) -> np.ndarray:
+        """The pseudo-inverse's rows of the terms over samples[0] to samples[-1], zero where
+        a sample is not fitted."""
+        if self._rows is None:
+            rows = self.pinv[self.k:]
+            if self.gaps is not None:
+                rows = np.zeros((rows.shape[0], int(self.gaps[-1]) + 1))
+                rows[:, self.gaps] = self.pinv[self.k:]
+                rows.flags.writeable = False
+            self._rows = rows
+        return self._rows
+
+    def covariance_parts(self) -> tuple[np.ndarray, np.ndarray]:
+        """The Fourier transforms of :meth:`rows` and the pseudo-inverse's Gram matrix of
+        the terms (the white-noise covariance per unit variance)."""
+        if self._transforms is None:
+            self._transforms = weights_transforms(self.rows())
+            self._white = self.pinv[self.k:] @ self.pinv[self.k:].T
+            self._transforms.flags.writeable = False
+            self._white.flags.writeable = False
+        return self._transforms, self._white
+
+    def shed(self) -> None:
+        """Drop what :meth:`rows` and :meth:`covariance_parts` formed (formed again when
+        asked for)."""
+        self._rows = self._transforms = self._white = None
+
+
+class _DesignCache:
+    """Designs by what makes them (:func:`_design_key`), the least recently used dropped
+    first once they hold more than `limit` bytes."""
+
+    def __init__(self, limit: int):
+        self.limit = limit
+        self._kept: OrderedDict[tuple, _Design] = OrderedDict()
+        self._sizes: dict[tuple, int] = {}
+
+    @property
+    def nbytes(self) -> int:
+        return sum(self._sizes.values())
+
+    def __len__(self) -> int:
+        return len(self._kept)
+
+    def get(self, key: tuple) -> _Design | None:
+        found = self._kept.get(key)
+        if found is not None:
+            self._kept.move_to_end(key)
+        return found
+
+    def keep(self, key: tuple, design: _Design) -> None:
+        """Keep (or re-measure, after it grew) `design`, within the limit."""
+        self._kept.pop(key, None)
+        self._sizes.pop(key, None)
+        size = design.nbytes
+        if size > self.limit:
+            design.shed()
+            size = design.nbytes
+            if size > self.limit:
+                return
+        while self._kept and self.nbytes + size > self.limit:
+            oldest, _ = self._kept.popitem(last=False)
+            del self._sizes[oldest]
+        self._kept[key] = design
+        self._sizes[key] = size
+
+    def clear(self) -> None:
+        self._kept.clear()
+        self._sizes.clear()
+
+
+_DESIGNS = _DesignCache(DESIGN_CACHE_BYTES)
+
+
+def _runs(x: np.ndarray) -> tuple:
+    """Where `x` starts, steps by other than 1 and ends: with its size, it gives the
+    sample numbers (or the 0/1 levels) back exactly."""
+    if not x.size:
+        return ()
+    step = np.flatnonzero(np.diff(x) != 1)
+    return (x.size, float(x[0]), tuple(step.tolist()), tuple(x[step + 1].tolist()))
+
+
+def _design_key(samples: np.ndarray, rate: float, frequency_hz: float,
+                harmonics: tuple[int, ...], drift: bool, levels: np.ndarray | None,
+                bend: bool) -> tuple:
+    if levels is None or not levels.any():
+        marks = None
+    else:
+        change = np.flatnonzero(np.diff(levels))
+        marks = (levels.size, float(levels[0]), tuple(change.tolist()),
+                 tuple(levels[change + 1].tolist()))
+    return (_runs(samples), float(rate), float(frequency_hz), tuple(harmonics), bool(drift),
+            marks, bool(bend))
+
+
+def _plateau_terms(samples: np.ndarray, rate: float, levels: np.ndarray) -> np.ndarray:
+    """A slope and a bend of the plateau's own (zero off it), for :func:`_plateau_agrees`."""
+    t = samples / rate
+    x = levels * (t - t[levels > 0].mean())
+    bend = levels * (x * x - np.mean(x[levels > 0] ** 2))
+    return np.column_stack([x, bend])
+
+
 def _fit(part: np.ndarray, samples: np.ndarray, rate: float, frequency_hz: float,
          harmonics: tuple[int, ...], drift: bool, levels: np.ndarray | None = None,
-         extra: np.ndarray | None = None, covariance: bool = True
-         ) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
+         bend: bool = False, need: str = "covariance"
+         ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None]:
     """Least squares of `part` on a constant and the terms: (coefficients without the
     constant, their sensitivity rows, their covariance under the residual's spectrum).
 
-    `levels` (0 or 1 per sample) gives the second stretch a constant of its own; `extra`
-    columns follow the terms. The rows cover samples[0] to samples[-1], zero where a
-    sample is not fitted. Without `covariance` (only the coefficients wanted) the rows and
-    the covariance are not formed (None)."""
-    terms = _terms(samples, rate, frequency_hz, harmonics, drift)
-    if extra is not None:
-        terms = np.column_stack([terms, extra])
-    constants = (np.ones((samples.size, 1)) if levels is None or not levels.any()
-                 else np.column_stack([1.0 - levels, levels]))
-    k = constants.shape[1]
-    design = np.column_stack([constants, terms - terms.mean(axis=0)])
-    # the normal equations: a few well-scaled columns (centred, the time in s), where an
-    # SVD of the tall design would cost far more
-    pinv = np.linalg.solve(design.T @ design, design.T)
+    `levels` (0 or 1 per sample) gives the second stretch a constant of its own; with
+    `bend`, a slope and a bend of the plateau's own (:func:`_plateau_terms`) follow the
+    terms. The rows cover samples[0] to samples[-1], zero where a sample is not fitted.
+    `need` says how far to go: ``"coefficients"`` (rows and covariance None), ``"rows"``
+    (covariance None) or ``"covariance"``. The design and what follows from it alone are
+    kept for the next fit with the same samples and terms (:data:`DESIGN_CACHE_BYTES`)."""
+    key = _design_key(samples, rate, frequency_hz, harmonics, drift, levels, bend)
+    fixed = _DESIGNS.get(key)
+    if fixed is None:
+        fixed = _Design(samples, rate, frequency_hz, harmonics, drift, levels, bend)
+        _DESIGNS.keep(key, fixed)
+    k, design, pinv = fixed.k, fixed.design, fixed.pinv
     coef = pinv @ part
-    if not covariance:
+    if need == "coefficients":
         return coef[k:], None, None
+    rows = fixed.rows()
+    if need == "rows":
+        _DESIGNS.keep(key, fixed)  # measured again, with its rows
+        return coef[k:], rows, None
     residual = part - design @ coef
-    rows = pinv[k:]
-    if samples.size and samples[-1] - samples[0] + 1 != samples.size:
-        dense = np.zeros((rows.shape[0], int(samples[-1] - samples[0]) + 1))
-        dense[:, samples - samples[0]] = rows
-        rows = dense
-    spectral = weighted_sums_covariance(rows, residual, rate)
+    transforms, white_gram = fixed.covariance_parts()
+    _DESIGNS.keep(key, fixed)  # measured again, with its transforms
+    spectral = covariance_from_transforms(transforms, rows.shape[1], residual, rate)
     if spectral is None:
         return coef[k:], rows, None
     # white noise of the residual's variance, made larger where the residual's spectrum
@@ -193,7 +337,7 @@ def _fit(part: np.ndarray, samples: np.ndarray, rate: float, frequency_hz: float
     # taken alone would often make the test too lenient
     variance = max(float(np.var(residual)) * samples.size
                    / max(1, samples.size - design.shape[1]), _VARIANCE_FLOOR_MV2)
-    white = variance * (pinv[k:] @ pinv[k:].T)
+    white = variance * white_gram
     inflation = max(1.0, float(np.trace(spectral) / np.trace(white))) if white.size else 1.0
     return coef[k:], rows, white * inflation
 
@@ -311,7 +455,7 @@ def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s
     for f in MAINS_FREQUENCIES_HZ:
         below = tuple(h for h in range(1, harmonics + 1) if h * f < rate / 2)
         # the covariance only for the frequency kept
-        coef, _, _ = _fit(part, samples, rate, f, below, drift, levels, covariance=False)
+        coef, _, _ = _fit(part, samples, rate, f, below, drift, levels, need="coefficients")
         explained = float(np.sum(coef[int(drift):] ** 2))
         if best is None or explained > best[0]:
             best = (explained, f, below)
@@ -335,7 +479,7 @@ def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s
     if not keep_drift and levels is not None:
         # the hum alone is fitted on the quiet stretch alone, as without a plateau
         samples, part, levels, stop = samples[levels == 0], part[levels == 0], None, quiet_stop
-    coef, rows, _ = _fit(part, samples, rate, f, kept, keep_drift, levels)
+    coef, rows, _ = _fit(part, samples, rate, f, kept, keep_drift, levels, need="rows")
     # a drift not kept stays in the voltage; a kept drift that a plateau joined may hold
     # the plateau's own settling, times the plateau's weight in the slope
     untested = _excess(slope, slope_sd ** 2) if not keep_drift else 0.0
@@ -359,17 +503,14 @@ def _plateau_agrees(part: np.ndarray, samples: np.ndarray, rate: float, harmonic
     best = None
     for f in MAINS_FREQUENCIES_HZ:
         below = tuple(h for h in range(1, harmonics + 1) if h * f < rate / 2)
-        t = samples / rate
-        x = levels * (t - t[levels > 0].mean())
-        bend = levels * (x * x - np.mean(x[levels > 0] ** 2))
-        extra = np.column_stack([x, bend])
-        coef, _, _ = _fit(part, samples, rate, f, below, True, levels, extra, covariance=False)
+        coef, _, _ = _fit(part, samples, rate, f, below, True, levels, bend=True,
+                          need="coefficients")
         explained = float(np.sum(coef[1:-2] ** 2))
         if best is None or explained > best[0]:
-            best = (explained, f, below, extra)
+            best = (explained, f, below)
     # the covariance only for the frequency kept
-    _, f, below, extra = best
-    coef, _, cov = _fit(part, samples, rate, f, below, True, levels, extra)
+    _, f, below = best
+    coef, _, cov = _fit(part, samples, rate, f, below, True, levels, bend=True)
     if cov is None:
         return False, float("nan")
     return (_wald(coef[-2:], cov[-2:, -2:]) <= chdtri(2, PLATEAU_AGREEMENT),

@@ -170,3 +170,64 @@ class TestCorrectedWeights:
         fit = estimate_line_noise(trace(hum_mv=0.0, slope=0.0, seed=3), RATE, 0.0, QUIET_S)
         rows, first = corrected_weights(np.ones((1, 5)), 7, fit)
         assert first == 7 and np.array_equal(rows, np.ones((1, 5)))
+
+
+class TestKeptDesigns:
+    """The least-squares designs kept from sweep to sweep (``line_noise._DESIGNS``): a fit
+    through a kept design is the fit through a fresh one, bit for bit, and both are the
+    least-squares solution numpy's SVD solver (``numpy.linalg.lstsq``) gives."""
+
+    @staticmethod
+    def fields(fit):
+        return [getattr(fit, name) for name in fit.__dataclass_fields__]
+
+    @pytest.mark.parametrize("plateau", [None, (0.4, 0.5)])
+    def test_a_kept_design_fits_as_a_fresh_one(self, plateau):
+        from spikemeasure.analysis import line_noise
+
+        first, second = (TestPlateau().stepped(seed=seed, slope=3.0) for seed in (5, 6))
+        line_noise._DESIGNS.clear()
+        estimate_line_noise(first, RATE, 0.1, 0.2, plateau_s=plateau)
+        assert len(line_noise._DESIGNS) > 0
+        kept = estimate_line_noise(second, RATE, 0.1, 0.2, plateau_s=plateau)
+        line_noise._DESIGNS.clear()
+        fresh = estimate_line_noise(second, RATE, 0.1, 0.2, plateau_s=plateau)
+        assert kept.found
+        for a, b in zip(self.fields(kept), self.fields(fresh)):
+            assert np.array_equal(a, b, equal_nan=True)
+
+    def test_the_fit_is_least_squares(self):
+        from spikemeasure.analysis import line_noise
+
+        v = trace(third_mv=0.2)
+        samples = np.arange(0, int(QUIET_S * RATE))
+        t = samples / RATE
+        for _ in range(2):  # a fresh design, then the kept one
+            coef, _, _ = line_noise._fit(v[samples], samples, RATE, 50.0, (1, 2, 3), True)
+            columns = [np.ones_like(t), t] + [f(2 * np.pi * h * 50.0 * t) for h in (1, 2, 3)
+                                              for f in (np.cos, np.sin)]
+            reference = np.linalg.lstsq(np.column_stack(columns), v[samples], rcond=None)[0]
+            assert coef == pytest.approx(reference[1:], abs=1e-9)
+
+    def test_the_byte_limit_holds(self):
+        from spikemeasure.analysis.line_noise import _Design, _DesignCache
+
+        def design(n):
+            return _Design(np.arange(n), RATE, 50.0, (1, 2, 3), True, None, False)
+
+        one = design(1000).nbytes  # 7 columns: design and pseudo-inverse, 112 kB
+        cache = _DesignCache(limit=3 * one)
+        for n in range(1000, 1010):
+            cache.keep(n, design(n))
+            assert cache.nbytes <= cache.limit
+        assert len(cache) == 2  # each a little over `one`
+        assert cache.get(1009) is not None and cache.get(1007) is None
+        cache.keep("large", design(4000))  # over the limit alone: not kept
+        assert cache.get("large") is None and cache.nbytes <= cache.limit
+        # grown past the limit by its rows' transforms, a design is kept without them
+        small = _DesignCache(limit=int(1.5 * one))
+        grown = design(1000)
+        grown.covariance_parts()
+        assert grown.nbytes > small.limit
+        small.keep("grown", grown)
+        assert small.get("grown") is grown and small.nbytes <= small.limit
