@@ -9,6 +9,7 @@ reads files or prints.
 """
 from __future__ import annotations
 
+import threading
 from collections import OrderedDict
 from dataclasses import dataclass, replace
 
@@ -19,7 +20,7 @@ from ..errors import InvalidSettingError
 from .fluctuation import covariance_from_transforms, weights_transforms
 
 __all__ = ["LineNoise", "estimate_line_noise", "remove_line_noise", "corrected_weights",
-           "line_noise_lines",
+           "line_noise_lines", "forget_designs", "DESIGN_CACHE_BYTES",
            "MAINS_FREQUENCIES_HZ", "HUM_HARMONICS", "LINE_NOISE_FALSE_ALARM",
            "MIN_QUIET_PERIODS", "PLATEAU_AGREEMENT"]
 
@@ -199,24 +200,27 @@ class _Design:
     def rows(self) -> np.ndarray:
         """The pseudo-inverse's rows of the terms over samples[0] to samples[-1], zero where
         a sample is not fitted."""
-        if self._rows is None:
+        rows = self._rows
+        if rows is None:
             rows = self.pinv[self.k:]
             if self.gaps is not None:
                 rows = np.zeros((rows.shape[0], int(self.gaps[-1]) + 1))
                 rows[:, self.gaps] = self.pinv[self.k:]
                 rows.flags.writeable = False
             self._rows = rows
-        return self._rows
+        return rows
 
     def covariance_parts(self) -> tuple[np.ndarray, np.ndarray]:
         """The Fourier transforms of :meth:`rows` and the pseudo-inverse's Gram matrix of
         the terms (the white-noise covariance per unit variance)."""
-        if self._transforms is None:
-            self._transforms = weights_transforms(self.rows())
-            self._white = self.pinv[self.k:] @ self.pinv[self.k:].T
-            self._transforms.flags.writeable = False
-            self._white.flags.writeable = False
-        return self._transforms, self._white
+        transforms, white = self._transforms, self._white
+        if transforms is None or white is None:
+            transforms = weights_transforms(self.rows())
+            white = self.pinv[self.k:] @ self.pinv[self.k:].T
+            transforms.flags.writeable = False
+            white.flags.writeable = False
+            self._transforms, self._white = transforms, white
+        return transforms, white
 
     def shed(self) -> None:
         """Drop what :meth:`rows` and :meth:`covariance_parts` formed (formed again when
@@ -226,12 +230,14 @@ class _Design:
 
 class _DesignCache:
     """Designs by what makes them (:func:`_design_key`), the least recently used dropped
-    first once they hold more than `limit` bytes."""
+    first once they hold more than `limit` bytes (one lock: a cluster's worker may measure
+    in several threads)."""
 
     def __init__(self, limit: int):
         self.limit = limit
         self._kept: OrderedDict[tuple, _Design] = OrderedDict()
         self._sizes: dict[tuple, int] = {}
+        self._lock = threading.Lock()
 
     @property
     def nbytes(self) -> int:
@@ -241,33 +247,43 @@ class _DesignCache:
         return len(self._kept)
 
     def get(self, key: tuple) -> _Design | None:
-        found = self._kept.get(key)
-        if found is not None:
-            self._kept.move_to_end(key)
-        return found
+        with self._lock:
+            found = self._kept.get(key)
+            if found is not None:
+                self._kept.move_to_end(key)
+            return found
 
     def keep(self, key: tuple, design: _Design) -> None:
-        """Keep (or re-measure, after it grew) `design`, within the limit."""
-        self._kept.pop(key, None)
-        self._sizes.pop(key, None)
-        size = design.nbytes
-        if size > self.limit:
-            design.shed()
+        """Keep (or measure again, after it grew) `design`, within the limit: past it
+        alone, without what it can form again (:meth:`_Design.shed`), or not at all."""
+        with self._lock:
+            self._kept.pop(key, None)
+            self._sizes.pop(key, None)
             size = design.nbytes
             if size > self.limit:
-                return
-        while self._kept and self.nbytes + size > self.limit:
-            oldest, _ = self._kept.popitem(last=False)
-            del self._sizes[oldest]
-        self._kept[key] = design
-        self._sizes[key] = size
+                design.shed()
+                size = design.nbytes
+                if size > self.limit:
+                    return
+            while self._kept and self.nbytes + size > self.limit:
+                oldest, _ = self._kept.popitem(last=False)
+                del self._sizes[oldest]
+            self._kept[key] = design
+            self._sizes[key] = size
 
     def clear(self) -> None:
-        self._kept.clear()
-        self._sizes.clear()
+        with self._lock:
+            self._kept.clear()
+            self._sizes.clear()
 
 
 _DESIGNS = _DesignCache(DESIGN_CACHE_BYTES)
+
+
+def forget_designs() -> None:
+    """Drop the designs kept for reuse (:data:`DESIGN_CACHE_BYTES`): a run calls it when a
+    file's sweeps are measured, so that they hold no memory while its tables are written."""
+    _DESIGNS.clear()
 
 
 def _runs(x: np.ndarray) -> tuple:
