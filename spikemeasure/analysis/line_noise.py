@@ -162,7 +162,7 @@ def _basis(samples: np.ndarray, fit: LineNoise) -> np.ndarray:
 #: mains frequencies, so the same design, its pseudo-inverse and the Fourier transforms of
 #: its sensitivity rows recur sweep after sweep; a design larger than this is formed anew
 #: each time.
-DESIGN_CACHE_BYTES = 4 * 2 ** 20
+DESIGN_CACHE_BYTES = 2 * 2 ** 20
 
 
 class _Design:
@@ -184,7 +184,8 @@ class _Design:
         self.pinv = np.linalg.solve(self.design.T @ self.design, self.design.T)
         self.design.flags.writeable = False
         self.pinv.flags.writeable = False
-        self.first, self.gaps = int(samples[0]) if samples.size else 0, None
+        # where the fitted samples lie in the rows, when they leave a gap (a plateau)
+        self.gaps = None
         if samples.size and samples[-1] - samples[0] + 1 != samples.size:
             self.gaps = samples - samples[0]
         self._rows: np.ndarray | None = None
@@ -287,8 +288,8 @@ def forget_designs() -> None:
 
 
 def _runs(x: np.ndarray) -> tuple:
-    """Where `x` starts, steps by other than 1 and ends: with its size, it gives the
-    sample numbers (or the 0/1 levels) back exactly."""
+    """Consecutive sample numbers as their runs: the size, the first, and where and to
+    what they jump (they rebuild `x` exactly, so equal keys mean equal samples)."""
     if not x.size:
         return ()
     step = np.flatnonzero(np.diff(x) != 1)
