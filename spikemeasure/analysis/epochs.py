@@ -8,6 +8,8 @@ frozen dataclasses; nothing here reads files or prints.
 """
 from __future__ import annotations
 
+import threading
+from contextlib import contextmanager
 from dataclasses import dataclass
 
 import numpy as np
@@ -17,7 +19,8 @@ from ..errors import InvalidSettingError
 
 __all__ = ["Epoch", "CommandEpochs", "Stimulus", "find_epochs", "main_stimulus",
            "EPOCH_MEDIAN_SAMPLES", "NOISE_MULTIPLE", "MIN_LEVEL_CHANGE_PA",
-           "RESIDUAL_WINDOW_MS", "MAX_EDGE_MS", "MAX_EPOCHS", "STIMULUS_SHAPES", "running_median"]
+           "RESIDUAL_WINDOW_MS", "MAX_EDGE_MS", "MAX_EPOCHS", "STIMULUS_SHAPES", "running_median",
+           "sharing_index_sums"]
 
 #: Width of the running median that removes isolated noise samples before segmenting.
 EPOCH_MEDIAN_SAMPLES = 5
@@ -171,7 +174,8 @@ def running_median(values: np.ndarray) -> np.ndarray:
 
 class _IndexSums:
     """The sums over sample positions x = 0 .. k - 1 that every line fit of a prefix shares
-    (k = 1 .. size): formed once per command, each prefix fit reads their first entries."""
+    (k = 1 .. size): formed once per command (or once for the longest of a recording's
+    commands, :func:`sharing_index_sums`), each prefix fit reads their first entries."""
 
     def __init__(self, size: int):
         self.x = np.arange(size, dtype=float)
@@ -180,6 +184,39 @@ class _IndexSums:
         vx = np.cumsum(self.x * self.x) - self.sx * self.sx / self.n
         self.vx_positive = vx > 0
         self.vx_divisor = np.where(self.vx_positive, vx, 1.0)
+
+
+_shared = threading.local()
+
+
+@contextmanager
+def sharing_index_sums():
+    """Within this context (in this thread), :func:`find_epochs` forms the index sums of its
+    split search once, for the longest command it meets, and every command of that length
+    or shorter reads their first entries, the same numbers as its own (cumulative sums run
+    in order); they are dropped when the context ends. For the commands of one recording,
+    whose sweeps mostly share their length."""
+    outer = getattr(_shared, "sums", None)
+    _shared.sums = outer or _NO_SUMS
+    try:
+        yield
+    finally:
+        _shared.sums = outer
+
+
+_NO_SUMS = object()
+
+
+def _index_sums(size: int) -> _IndexSums:
+    """Index sums for a command of `size` samples: kept ones when they are long enough
+    (within :func:`sharing_index_sums`), else formed (and kept there)."""
+    kept = getattr(_shared, "sums", None)
+    if isinstance(kept, _IndexSums) and kept.x.size >= size:
+        return kept
+    sums = _IndexSums(size)
+    if kept is not None:
+        _shared.sums = sums
+    return sums
 
 
 def _line_sse(y: np.ndarray, sums: _IndexSums) -> np.ndarray:
@@ -271,7 +308,7 @@ def _split_points(y: np.ndarray, tolerance_pa: float, window: int, min_piece: in
         left, right = lefts.pop(a, None), rights.pop(b, None)
         if b - a < 2 * min_piece or _fits_one_line(y[a:b], tolerance_pa, window):
             continue
-        sums = sums or _IndexSums(y.size)
+        sums = sums or _index_sums(y.size)
         if left is None:
             left = _line_sse(y[a:b], sums)  # left[i]: SSE of the line through y[a:a + i + 1]
         if right is None:
@@ -358,9 +395,7 @@ def find_epochs(command_pa, sampling_rate_hz: float, *, tolerance_pa: float | No
     raw = cmd[kept] if kept.size < cmd.size else cmd  # read only: no copy when all are finite
     y = running_median(raw) if raw.size >= EPOCH_MEDIAN_SAMPLES else raw
     if tolerance_pa is None:
-        d = np.diff(raw)
-        noise = 1.4826 * float(np.median(np.abs(d - np.median(d)))) / np.sqrt(2.0)
-        tolerance_pa = max(float(min_level_change_pa), NOISE_MULTIPLE * noise)
+        tolerance_pa = max(float(min_level_change_pa), NOISE_MULTIPLE * _command_noise(raw))
     window = max(1, int(round(RESIDUAL_WINDOW_MS * 1e-3 * rate)))
     max_edge = max(2, int(round(MAX_EDGE_MS * 1e-3 * rate)))
     borders = _merge_edges(_split_points(y, tolerance_pa, window, 2), y, max_edge)
@@ -370,6 +405,20 @@ def find_epochs(command_pa, sampling_rate_hz: float, *, tolerance_pa: float | No
     epochs = _join_equal_levels(epochs, tolerance_pa)
     epochs = _refine_kinks(epochs, raw, y, kept, tolerance_pa, rate)
     return CommandEpochs(tuple(epochs), float(tolerance_pa), cmd.size, rate)
+
+
+def _command_noise(raw: np.ndarray) -> float:
+    """1.4826 x the median absolute deviation of the sample-to-sample differences, over
+    sqrt(2) (:func:`find_epochs`, step 3). When more than half the differences are exactly 0
+    (a command held at levels), both medians are 0 and so is the noise: counted, not
+    sorted."""
+    d = np.diff(raw)
+    zeros = d.size - np.count_nonzero(d)
+    below = np.count_nonzero(d < 0)
+    lo, hi = (d.size - 1) // 2, d.size // 2  # the middle positions of the sorted values
+    if below <= lo and hi < below + zeros and hi < zeros:
+        return 0.0  # median(d) is 0, so is the median of |d - 0|
+    return 1.4826 * float(np.median(np.abs(d - np.median(d)))) / np.sqrt(2.0)
 
 
 def _epoch(raw: np.ndarray, smooth: np.ndarray, kept: np.ndarray, a: int, b: int,

@@ -12,7 +12,8 @@ import numpy as np
 
 from ..errors import InvalidSettingError, UnmeasurableDataError, UnreadableInputError
 from ..io.sweep import LazyTrace, Sweep
-from .epochs import EPOCH_MEDIAN_SAMPLES, Stimulus, find_epochs, main_stimulus
+from .epochs import (EPOCH_MEDIAN_SAMPLES, Stimulus, find_epochs, main_stimulus,
+                     sharing_index_sums)
 
 __all__ = ["CurrentStep", "find_current_step", "step_from_times", "check_sweep",
            "parse_step_sizes", "protocol_steps", "COMMAND_MEDIAN_SAMPLES", "missing_stretches",
@@ -295,19 +296,21 @@ def protocol_steps(sweeps: list[Sweep], step_s: tuple[float, float] | None = Non
     """
     steps: list[CurrentStep | None] = []
     stimuli: list[Stimulus | None] = []
-    for k, sweep in enumerate(sweeps):
-        found = stimulus = None
-        if sweep.command_pa is not None and sweep.command_pa.size >= 3:
-            cmd = _command_of(sweep)
-            if cmd is not None:
-                stimulus = main_stimulus(cmd, sweep.sampling_rate_hz)
-                found = _step_of(stimulus)
-            del cmd  # one command in memory at a time: only its stimulus is kept
-        if found is None and step_s is not None and sweep.command_pa is None:
-            size = step_sizes_pa[0] + k * step_sizes_pa[1] if step_sizes_pa else float("nan")
-            found = step_from_times(step_s[0], step_s[1], sweep.duration_s, size)
-        steps.append(found)
-        stimuli.append(stimulus)
+    with sharing_index_sums():  # the epoch search's sums formed once for the recording
+        for k, sweep in enumerate(sweeps):
+            found = stimulus = None
+            if sweep.command_pa is not None and sweep.command_pa.size >= 3:
+                cmd = _command_of(sweep)
+                if cmd is not None:
+                    stimulus = main_stimulus(cmd, sweep.sampling_rate_hz)
+                    found = _step_of(stimulus)
+                del cmd  # one command in memory at a time: only its stimulus is kept
+            if found is None and step_s is not None and sweep.command_pa is None:
+                size = (step_sizes_pa[0] + k * step_sizes_pa[1] if step_sizes_pa
+                        else float("nan"))
+                found = step_from_times(step_s[0], step_s[1], sweep.duration_s, size)
+            steps.append(found)
+            stimuli.append(stimulus)
     _drop_lone_test_pulses(sweeps, steps, stimuli)
     known = [s for s in steps if s is not None and s.shape == "step"]
     for k, sweep in enumerate(sweeps):

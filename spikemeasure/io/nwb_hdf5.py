@@ -63,9 +63,10 @@ class SeriesLayout:
     """One current-clamp series as the file declares it: its type, name, sweep number,
     electrode, object id, time axis, conversion and the dataset of its samples."""
 
-    def __init__(self, group, group_name: str) -> None:
+    def __init__(self, group, group_name: str, neurodata_type: str | None = None) -> None:
         attrs = group.attrs
-        self.neurodata_type = _text(attrs.get("neurodata_type"))
+        self.neurodata_type = (_text(attrs.get("neurodata_type")) if neurodata_type is None
+                               else neurodata_type)
         self.object_id = _text(attrs.get("object_id"))
         self.group_name = group_name
         self.name = group.name.rsplit("/", 1)[-1]
@@ -171,6 +172,7 @@ def nwb_layout(fh) -> tuple[dict, list | None]:
     if "acquisition" not in fh:
         raise FastPathUnsupported("no acquisition group")
     series: dict[str, SeriesLayout] = {}
+    by_path: dict[bytes, SeriesLayout] = {}  # the series read, by their path in the file
     for group_name, where in (("acquisition", "acquisition"),
                               ("stimulus", "stimulus/presentation")):
         parent = fh.get(where)
@@ -182,16 +184,17 @@ def nwb_layout(fh) -> tuple[dict, list | None]:
             if kind in CC_RESPONSE | CC_STIMULUS:
                 if _text(group.attrs.get("namespace")) != "core":
                     raise FastPathUnsupported("series of another namespace")
-                one = SeriesLayout(group, group_name)
+                one = SeriesLayout(group, group_name, kind)
                 if not one.object_id or one.object_id in series:
                     raise FastPathUnsupported("series without a distinct object id")
                 series[one.object_id] = one
+                by_path[group.name.encode()] = one
     if not any(s.neurodata_type in CC_RESPONSE for s in series.values()):
         raise FastPathUnsupported("no current-clamp response")
-    return series, _table_rows(fh)
+    return series, _table_rows(fh, by_path)
 
 
-def _table_rows(fh) -> list | None:
+def _table_rows(fh, by_path: dict | None = None) -> list | None:
     table = fh.get(f"{_ICEPHYS}/intracellular_recordings")
     if table is None:
         return None
@@ -215,18 +218,24 @@ def _table_rows(fh) -> list | None:
     for row in range(n_rows):
         electrode = fh[electrodes[row]]
         rows.append((safe_name(electrode.name.rsplit("/", 1)[-1], "electrode"),
-                     _reference(fh, responses[row]),
-                     _reference(fh, stimuli[row]) if stimuli is not None else None,
+                     _reference(fh, responses[row], by_path),
+                     _reference(fh, stimuli[row], by_path) if stimuli is not None else None,
                      rank.get(row)))
     return rows
 
 
-def _reference(fh, ref) -> tuple | None:
+def _reference(fh, ref, by_path: dict | None = None) -> tuple | None:
     """A TimeSeriesReference row: (object id, idx_start, count, series length), or None
-    when it refers to nothing (idx_start < 0)."""
+    when it refers to nothing (idx_start < 0). A series already read (`by_path`, by its
+    path in the file) gives its object id and length without opening it again."""
+    import h5py
+
     start, count, target = int(ref["idx_start"]), int(ref["count"]), ref["timeseries"]
     if start < 0 or not target:
         return None
+    known = (by_path or {}).get(h5py.h5r.get_name(target, fh.id))
+    if known is not None:
+        return known.object_id, start, count, known.shape[0]
     group = fh[target]
     data = group.get("data")
     length = int(data.shape[0]) if data is not None and data.ndim >= 1 else -2

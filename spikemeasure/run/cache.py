@@ -41,9 +41,14 @@ def columns_hash() -> str:
     return hashlib.sha256(json.dumps(declared).encode()).hexdigest()[:16]
 
 
-def _content_sha256(data: dict) -> str:
-    return hashlib.sha256(json.dumps(data, sort_keys=True, separators=(",", ":"))
-                          .encode()).hexdigest()
+def _content_sha256(data: dict, piece: int = 1 << 20) -> str:
+    # json.dumps writes ASCII (non-ASCII escaped): its text hashed a piece at a time is the
+    # hash of the whole text's bytes, without a second copy of a long outcome's text
+    text = json.dumps(data, sort_keys=True, separators=(",", ":"))
+    digest = hashlib.sha256()
+    for start in range(0, len(text), piece):
+        digest.update(text[start:start + piece].encode())
+    return digest.hexdigest()
 
 
 class OutcomeCache:

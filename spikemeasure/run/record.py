@@ -31,6 +31,8 @@ __all__ = ["RunSummary", "RunRecord", "TABLE_REFRESH_S"]
 
 #: Tables are rewritten at most this often (s) during a run, so a killed run loses little.
 TABLE_REFRESH_S = 5.0
+#: Rows of a table formatted to CSV text at a time.
+ROWS_PER_BLOCK = 1024
 
 
 @dataclass
@@ -266,8 +268,13 @@ class RunRecord:
             texts = {}
             for name, columns in _tables():
                 rows = ColumnTable.concatenate([getattr(outcome, name)], columns)
-                whole = rows_csv_text(columns, rows.formatted_rows())
-                texts[name] = whole[len(rows_csv_text(columns, [])):]
+                header = len(rows_csv_text(columns, []))
+                # a block of rows at a time: the cells' text of a long recording's spikes,
+                # each a Python string, would otherwise all be held at once
+                texts[name] = "".join(
+                    rows_csv_text(columns, rows.sliced(a, a + ROWS_PER_BLOCK)
+                                  .formatted_rows())[header:]
+                    for a in range(0, len(rows), ROWS_PER_BLOCK))
             kept = self.rows_texts[id(outcome)] = (outcome, texts)
         return kept[1]
 

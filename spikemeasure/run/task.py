@@ -93,42 +93,50 @@ def _measure_file(path: str, shown: str, parameters: dict, figures: dict | None,
         outcome.failures.append(failure(shown, "read", str(exc)))
         return outcome
     with recording:  # open until its figures are drawn: long sweeps are read from it
-        outcome.input_sha256 = recording.sha256
-        outcome.format = recording.format
-        outcome.sweep_count = len(recording.sweeps)
-        for position, problem in enumerate(recording.problems):
-            outcome.failures.append(failure(shown, "read", problem,
-                                            recording.electrode_of_problem(position)))
-        electrodes = recording.electrodes()
-        spikes, sweeps, cells, all_results = [], [], [], []
-        for electrode in electrodes:
-            one_cell = replace(recording, sweeps=recording.sweeps_of(electrode), problems=[],
-                               problem_electrodes=[], release=None)
-            results = measure_recording(one_cell, settings, step_s, step_sizes_pa,
-                                        cancel=cancel)
-            all_results.extend(results)
-            for r in results:
-                if r.error:
-                    outcome.failures.append(failure(shown, f"sweep {r.sweep.index}", r.error,
-                                                    electrode))
-            spikes.append(ColumnTable.from_lists(spike_table(results), SPIKE_COLUMNS))
-            sweeps.append(ColumnTable.from_lists(sweep_table(results), SWEEP_COLUMNS))
-            if not any(r.error is None for r in results):
-                continue
-            cell = cell_summary(results)
-            cells.append(ColumnTable.from_lists(cell_table([(shown, electrode, cell)]),
-                                                CELL_COLUMNS))
-            if figures:
-                named = electrode if len(electrodes) > 1 else ""  # a file of several cells
-                outcome.figures += _cell_figures(one_cell, results, cell, settings, shown,
-                                                 figures, outcome.failures, electrode, named)
-        outcome.sweeps_measured = sum(r.error is None for r in all_results)
-        outcome.spike_count = count_spikes(all_results)
-        outcome.spike_flags = flag_counts(all_results)
-        outcome.spikes = ColumnTable.concatenate(spikes, SPIKE_COLUMNS)
-        outcome.sweeps = ColumnTable.concatenate(sweeps, SWEEP_COLUMNS)
-        outcome.cells = ColumnTable.concatenate(cells, CELL_COLUMNS)
+        _measure_recording(recording, outcome, shown, settings, step_s, step_sizes_pa,
+                           figures, cancel)
     return outcome
+
+
+def _measure_recording(recording, outcome: FileOutcome, shown: str,
+                       settings: DetectionSettings, step_s, step_sizes_pa,
+                       figures: dict | None, cancel: Callable[[], None] | None) -> None:
+    """Fill `outcome` with the tables of `recording`'s cells (and draw their figures)."""
+    outcome.input_sha256 = recording.sha256
+    outcome.format = recording.format
+    outcome.sweep_count = len(recording.sweeps)
+    for position, problem in enumerate(recording.problems):
+        outcome.failures.append(failure(shown, "read", problem,
+                                        recording.electrode_of_problem(position)))
+    electrodes = recording.electrodes()
+    spikes, sweeps, cells, all_results = [], [], [], []
+    for electrode in electrodes:
+        one_cell = replace(recording, sweeps=recording.sweeps_of(electrode), problems=[],
+                           problem_electrodes=[], release=None)
+        results = measure_recording(one_cell, settings, step_s, step_sizes_pa,
+                                    cancel=cancel)
+        all_results.extend(results)
+        for r in results:
+            if r.error:
+                outcome.failures.append(failure(shown, f"sweep {r.sweep.index}", r.error,
+                                                electrode))
+        spikes.append(ColumnTable.from_lists(spike_table(results), SPIKE_COLUMNS))
+        sweeps.append(ColumnTable.from_lists(sweep_table(results), SWEEP_COLUMNS))
+        if not any(r.error is None for r in results):
+            continue
+        cell = cell_summary(results)
+        cells.append(ColumnTable.from_lists(cell_table([(shown, electrode, cell)]),
+                                            CELL_COLUMNS))
+        if figures:
+            named = electrode if len(electrodes) > 1 else ""  # a file of several cells
+            outcome.figures += _cell_figures(one_cell, results, cell, settings, shown,
+                                             figures, outcome.failures, electrode, named)
+    outcome.sweeps_measured = sum(r.error is None for r in all_results)
+    outcome.spike_count = count_spikes(all_results)
+    outcome.spike_flags = flag_counts(all_results)
+    outcome.spikes = ColumnTable.concatenate(spikes, SPIKE_COLUMNS)
+    outcome.sweeps = ColumnTable.concatenate(sweeps, SWEEP_COLUMNS)
+    outcome.cells = ColumnTable.concatenate(cells, CELL_COLUMNS)
 
 
 def _cell_figures(recording, results, cell, settings: DetectionSettings, shown: str,

@@ -104,6 +104,10 @@ class ColumnTable:
     def __len__(self) -> int:
         return len(self.values[self.columns[0].name])
 
+    def sliced(self, start: int, stop: int) -> "ColumnTable":
+        """Rows [start, stop) (views of the number columns)."""
+        return replace(self, values={name: v[start:stop] for name, v in self.values.items()})
+
     def column(self, name: str):
         """One column's values (float64 array or list of str)."""
         return self.values[name]

@@ -251,3 +251,49 @@ def test_prefix_line_fits_equal_numpy_polyfit():
             expected = float(residual[0]) if residual.size else 0.0
             assert sse[k - 1] == pytest.approx(expected, rel=1e-6, abs=1e-9)
         assert sse[0] == 0.0
+
+
+def test_shared_index_sums_find_the_same_epochs():
+    """Within ``sharing_index_sums`` the split search reads the sums formed for the longest
+    command met: commands of several lengths, each with a step whose borders are known by
+    construction, give those borders and the same epochs as with sums of their own."""
+    from spikemeasure.analysis import epochs
+
+    rng = np.random.default_rng(5)
+    commands = []
+    for seconds, size in ((1.2, 30.0), (0.8, -20.0), (1.0, 50.0)):
+        cmd = steps_after_test_pulse([size], sampling_rate_hz=RATE, duration_s=seconds)[0]
+        commands += [cmd, cmd + rng.normal(0.0, 1.0, cmd.size)]
+    alone = [find_epochs(cmd, RATE) for cmd in commands]
+    with epochs.sharing_index_sums():
+        shared = [find_epochs(cmd, RATE) for cmd in commands]
+        kept = epochs._shared.sums
+    assert kept.x.size == max(cmd.size for cmd in commands)
+    assert getattr(epochs._shared, "sums", None) is None  # dropped at the end
+    assert shared == alone
+    # built: the step over 0.3-0.8 s (its end cut by a shorter sweep)
+    for cmd, found in zip(commands[::2], shared[::2]):
+        assert (6000, min(16000, cmd.size)) in [(e.start, e.stop) for e in found.epochs]
+
+
+@pytest.mark.parametrize("kind", ["levels", "noise", "mostly_level", "even", "rises_often"])
+def test_command_noise_is_the_median_formula(kind):
+    """Source: the robust noise of find_epochs' step 3 computed with numpy's median; the
+    count that stands in for it on a command held at levels gives the same number."""
+    from spikemeasure.analysis.epochs import _command_noise
+
+    rng = np.random.default_rng(8)
+    cmd = steps_after_test_pulse([40.0], sampling_rate_hz=RATE)[0]
+    if kind == "noise":
+        cmd = cmd + rng.normal(0.0, 2.0, cmd.size)
+    elif kind == "mostly_level":  # 45 % of the differences not zero: still a level
+        where = rng.choice(cmd.size - 1, int(0.45 * cmd.size), replace=False)
+        cmd = cmd.copy()
+        cmd[where + 1] += rng.normal(0.0, 1.0, where.size)
+    elif kind == "even":
+        cmd = cmd[:1001]  # 1000 differences: the median of the two middle values
+    elif kind == "rises_often":  # 60 % of the differences positive
+        cmd = np.cumsum(np.where(rng.random(cmd.size) < 0.6, 1.0, 0.0))
+    d = np.diff(cmd)
+    expected = 1.4826 * float(np.median(np.abs(d - np.median(d)))) / np.sqrt(2.0)
+    assert _command_noise(cmd) == expected

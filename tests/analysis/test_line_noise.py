@@ -170,3 +170,19 @@ class TestCorrectedWeights:
         fit = estimate_line_noise(trace(hum_mv=0.0, slope=0.0, seed=3), RATE, 0.0, QUIET_S)
         rows, first = corrected_weights(np.ones((1, 5)), 7, fit)
         assert first == 7 and np.array_equal(rows, np.ones((1, 5)))
+
+
+
+def test_the_fit_is_least_squares():
+    """The hum-and-drift fit's coefficients are the least-squares solution numpy's SVD solver
+    (``numpy.linalg.lstsq``) gives for a constant, a drift line and the hum's harmonics."""
+    from spikemeasure.analysis import line_noise
+
+    v = trace(third_mv=0.2)
+    samples = np.arange(0, int(QUIET_S * RATE))
+    t = samples / RATE
+    coef, _, _ = line_noise._fit(v[samples], samples, RATE, 50.0, (1, 2, 3), True)
+    columns = [np.ones_like(t), t] + [f(2 * np.pi * h * 50.0 * t) for h in (1, 2, 3)
+                                      for f in (np.cos, np.sin)]
+    reference = np.linalg.lstsq(np.column_stack(columns), v[samples], rcond=None)[0]
+    assert coef == pytest.approx(reference[1:], abs=1e-9)

@@ -146,3 +146,32 @@ class TestOutcomeCache:
         (tmp_path / "bad.json").write_text('{"content_sha256": "0", "outcome": {}}')
         outcome, note = OutcomeCache.load(tmp_path / "bad.json", "a.nix")
         assert outcome is None and "does not match its checksum" in note
+
+
+class TestRowsText:
+    def test_rows_formatted_in_blocks_are_the_csv_of_the_whole(self, monkeypatch, tmp_path):
+        """A file's rows are made into CSV text a block at a time (``ROWS_PER_BLOCK``): the
+        text is that of the whole table at once, and Python's csv module reads back the
+        formatted cells (with a spreadsheet formula's leading quote, as escaped)."""
+        import csv
+        import io
+
+        from spikemeasure.run import record
+        from spikemeasure.run.record import RunRecord, RunSummary
+        from spikemeasure.tables.write import rows_csv_text
+
+        n = 25
+        rng = np.random.default_rng(2)
+        baseline = rng.normal(-65.0, 5.0, n)
+        baseline[::7] = np.nan
+        table = _sweeps({"file": ["=a.nix"] * n, "sweep": list(range(n)),
+                         "baseline_mv": list(baseline), "flags": ["x;y", ""] * 12 + ["z"]})
+        outcome = FileOutcome("=a.nix", sweeps=table)
+        monkeypatch.setattr(record, "ROWS_PER_BLOCK", 4)
+        run = RunRecord(RunSummary(out_dir=tmp_path), {}, 0.0, None, None, None)
+        text = run._rows_text(outcome)["sweeps"]
+        whole = rows_csv_text(SWEEP_COLUMNS, table.formatted_rows())
+        assert text == whole[len(rows_csv_text(SWEEP_COLUMNS, [])):]
+        back = list(csv.reader(io.StringIO(text)))
+        assert [row[1:] for row in back] == [row[1:] for row in table.formatted_rows()]
+        assert {row[0] for row in back} == {"'=a.nix"}
