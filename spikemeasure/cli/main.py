@@ -15,6 +15,7 @@ matplotlib are imported by the commands that use them, so ``spikemeasure --help`
 """
 from __future__ import annotations
 
+import os
 import sys
 
 import click
@@ -25,7 +26,13 @@ from .columns import columns
 from .common import CliState
 from .measuring import inspect, measure
 
-__all__ = ["main"]
+__all__ = ["main", "SINGLE_THREAD_VARIABLES"]
+
+#: The thread counts of the numerical libraries numpy and scipy may be built with. Their
+#: matrices here are small (a fit's few columns, a spike's weights): spreading one product
+#: over threads costs more processor time than it saves, and with --jobs the workers already
+#: use the cores. Set to 1 when the command starts, unless the environment sets them.
+SINGLE_THREAD_VARIABLES = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
@@ -38,6 +45,8 @@ def main(ctx: click.Context, debug: bool) -> None:
     Reads NWB, NIX, plain text and other formats neo reads; writes CSV tables. Results need
     review by a qualified person; not for clinical decisions.
     """
+    for name in SINGLE_THREAD_VARIABLES:  # before numpy is imported, by the command
+        os.environ.setdefault(name, "1")
     ctx.obj = CliState(debug)
 
 

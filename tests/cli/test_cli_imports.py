@@ -62,3 +62,30 @@ def test_import_log_of_the_module_entry_point(args):
                 for line in done.stderr.splitlines() if line.startswith("import time:")}
     assert "click" in imported  # the log is read right
     assert imported.isdisjoint(HEAVY), sorted(imported & set(HEAVY))
+
+
+def test_numerical_libraries_start_with_one_thread_unless_told():
+    """A command sets the thread counts of numpy's linear-algebra library to 1 before numpy
+    loads (its products here are small; --jobs uses the cores) and keeps a count the
+    environment sets. Checked on the process environment, which OpenBLAS and OpenMP read
+    when they load (their documented variables OPENBLAS_NUM_THREADS and OMP_NUM_THREADS)."""
+    program = (
+        "import os, sys\n"
+        "from spikemeasure.cli import main\n"
+        "try:\n"
+        "    main.main(args=['columns'], prog_name='spikemeasure')\n"
+        "except SystemExit:\n"
+        "    pass\n"
+        "print(os.environ.get('OPENBLAS_NUM_THREADS'), os.environ.get('OMP_NUM_THREADS'),"
+        " file=sys.stderr)\n"
+    )
+    import os
+
+    clean = {k: v for k, v in os.environ.items()
+             if k not in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")}
+    done = subprocess.run([sys.executable, "-c", program], capture_output=True, text=True,
+                          env=clean, check=False)
+    assert done.stderr.strip().splitlines()[-1] == "1 1"
+    told = subprocess.run([sys.executable, "-c", program], capture_output=True, text=True,
+                          env={**clean, "OPENBLAS_NUM_THREADS": "3"}, check=False)
+    assert told.stderr.strip().splitlines()[-1] == "3 1"
