@@ -27,7 +27,11 @@ chooses the version measured. Results print as JSON and go to benchmarks/output/
 With ``--uncertainty``: a file whose spikes lie only inside each sweep's step (a quiet second
 before it, where the noise is measured), measured in this process, and the baseline is the
 same job with the spike SD columns switched off (``tables.build.with_uncertainty`` replaced by
-a pass-through in this process): the ratio is what the SDs cost.
+a pass-through in this process): the ratio is what the SDs cost. The two jobs take turns,
+`--repeats` pairs (the order within a pair alternating), so that a load that comes and goes
+falls on both; reported are the median of the pairs' ratios and the ratio of the best times,
+of wall time and of processor time (``time.process_time``). This process runs numpy's linear
+algebra on one thread, as the command does (``spikemeasure.cli.main.SINGLE_THREAD_VARIABLES``).
 """
 from __future__ import annotations
 
@@ -44,7 +48,10 @@ import time
 import warnings
 from pathlib import Path
 
-import numpy as np
+for _name in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_name, "1")  # as the command sets them, before numpy loads
+
+import numpy as np  # noqa: E402
 
 RATE_HZ = 50_000.0
 SWEEP_SAMPLES = 500_000  # 10 s sweeps
@@ -272,21 +279,34 @@ def uncertainty_cost(samples: int, repeats: int) -> dict:
         out = Path(tmp) / "results"
         spikes = job(path, out)
         job_without_sds(path, out)
-        t_without = best_time(lambda: job_without_sds(path, out), repeats)
-        t_with = best_time(lambda: job(path, out), repeats)
-    return {"samples": n, "spikes": spikes, "without_sds_s": round(t_without, 3),
-            "with_sds_s": round(t_with, 3), "sd_cost_ratio": round(t_with / t_without, 3),
-            "date": datetime.date.today().isoformat()}
+        pairs = []  # ((wall, processor) without SDs, (wall, processor) with SDs)
+        for k in range(max(repeats, 1)):
+            if k % 2 == 0:
+                without = timed(lambda: job_without_sds(path, out))
+                with_sds = timed(lambda: job(path, out))
+            else:
+                with_sds = timed(lambda: job(path, out))
+                without = timed(lambda: job_without_sds(path, out))
+            pairs.append((without, with_sds))
+    result = {"samples": n, "spikes": spikes, "pairs": len(pairs)}
+    for i, clock in enumerate(("wall", "processor")):
+        t_without = [w[i] for w, _ in pairs]
+        t_with = [s[i] for _, s in pairs]
+        result[f"{clock}_without_sds_best_s"] = round(min(t_without), 3)
+        result[f"{clock}_with_sds_best_s"] = round(min(t_with), 3)
+        result[f"{clock}_ratio_of_best"] = round(min(t_with) / min(t_without), 3)
+        result[f"{clock}_median_pair_ratio"] = round(
+            float(np.median([b / a for a, b in zip(t_without, t_with)])), 3)
+    result["date"] = datetime.date.today().isoformat()
+    return result
 
 
-def best_time(fn, repeats: int) -> float:
-    times = []
-    for _ in range(repeats):
-        gc.collect()
-        start = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - start)
-    return min(times)
+def timed(fn) -> tuple[float, float]:
+    """(wall, processor) seconds of one call."""
+    gc.collect()
+    start, start_cpu = time.perf_counter(), time.process_time()
+    fn()
+    return time.perf_counter() - start, time.process_time() - start_cpu
 
 
 def main() -> None:
