@@ -14,7 +14,8 @@ from scipy.ndimage import median_filter, uniform_filter1d
 from ..errors import InvalidSettingError
 
 __all__ = ["slow_fluctuation_mv", "baseline_stretch", "weighted_sums_covariance",
-           "stretches_covariance",
+           "stretches_covariance", "stretch_bounds", "noise_density", "weights_transforms",
+           "covariance_from_transforms",
            "BASELINE_WINDOW_MS"]
 
 #: Length of the window before the step whose mean is the baseline (and its SD the noise).
@@ -152,18 +153,58 @@ def stretches_covariance(rows: np.ndarray, noise_mv: np.ndarray, rate: float
     spectrum of `noise_mv`: noise samples a hundred ms and more apart are taken as
     uncorrelated (what is not is a hum, which the fits of hum and drift hold), so the cost
     follows the stretches' lengths, not the span between them. None as there."""
-    used = np.flatnonzero(np.any(rows != 0, axis=0))
-    breaks = np.flatnonzero(np.diff(used) > 1)
-    if used.size == 0 or breaks.size == 0:
+    bounds = stretch_bounds(rows)
+    if bounds is None:
         return weighted_sums_covariance(rows, noise_mv, rate)
     noise = np.asarray(noise_mv, dtype=float)
     if noise.size < _MIN_NOISE_SAMPLES or not np.isfinite(noise).all():
         return None  # as weighted_sums_covariance
     density = _noise_density(noise, rate)
+    return sum(_covariance_from_density(rows[:, a:b], density, noise.size, rate)
+               for a, b in bounds)
+
+
+def stretch_bounds(rows: np.ndarray, columns: np.ndarray | None = None
+                   ) -> list[tuple[int, int]] | None:
+    """The separate stretches [a, b) of `rows` that :func:`stretches_covariance` sums, or
+    None when it takes the rows whole (no column is weighted, or the weighted columns are
+    one run). `columns`, when given, are the positions of the rows' columns in a span whose
+    other columns are zero (rows kept compact), and the stretches are positions there."""
+    weighted = np.any(rows != 0, axis=0)
+    used = np.flatnonzero(weighted) if columns is None else columns[weighted]
+    breaks = np.flatnonzero(np.diff(used) > 1)
+    if used.size == 0 or breaks.size == 0:
+        return None
     starts = np.concatenate([[used[0]], used[breaks + 1]])
     stops = np.concatenate([used[breaks] + 1, [used[-1] + 1]])
-    return sum(_covariance_from_density(rows[:, a:b], density, noise.size, rate)
-               for a, b in zip(starts, stops))
+    return [(int(a), int(b)) for a, b in zip(starts, stops)]
+
+
+def noise_density(noise_mv: np.ndarray, rate: float) -> np.ndarray | None:
+    """The smoothed noise density that :func:`weighted_sums_covariance` reads, or None where
+    it returns None (too few samples, a missing one)."""
+    noise = np.asarray(noise_mv, dtype=float)
+    if noise.size < _MIN_NOISE_SAMPLES or not np.isfinite(noise).all():
+        return None
+    return _noise_density(noise, rate)
+
+
+def weights_transforms(rows: np.ndarray) -> tuple[int, np.ndarray]:
+    """The FFT length and the rows' transforms that :func:`weighted_sums_covariance` forms
+    (they depend on the weights alone, so that rows used again keep them)."""
+    n_fft = next_fast_len(2 * rows.shape[1])
+    return n_fft, np.fft.rfft(rows, n=n_fft, axis=1)
+
+
+def covariance_from_transforms(n_fft: int, transforms: np.ndarray, density: np.ndarray,
+                               noise_size: int, rate: float) -> np.ndarray:
+    """:func:`weighted_sums_covariance` of rows whose :func:`weights_transforms` are given,
+    from the density of a noise stretch of `noise_size` samples."""
+    spectrum = np.interp(np.fft.rfftfreq(n_fft, 1.0 / rate),
+                         np.fft.rfftfreq(noise_size, 1.0 / rate), density)
+    spectrum[1:(n_fft + 1) // 2] *= 2.0  # the negative frequencies, folded onto these
+    weighted = transforms * spectrum[None, :]
+    return (weighted @ transforms.conj().T).real * rate / n_fft
 
 
 def _covariance_from_density(rows: np.ndarray, density: np.ndarray, noise_size: int,
@@ -171,14 +212,8 @@ def _covariance_from_density(rows: np.ndarray, density: np.ndarray, noise_size: 
     """:func:`weighted_sums_covariance` of `rows` from the density :func:`_noise_density`
     gave for a noise stretch of `noise_size` samples (so that several sets of rows share
     one)."""
-    part_size = noise_size
-    n_fft = next_fast_len(2 * rows.shape[1])
-    spectrum = np.interp(np.fft.rfftfreq(n_fft, 1.0 / rate),
-                         np.fft.rfftfreq(part_size, 1.0 / rate), density)
-    spectrum[1:(n_fft + 1) // 2] *= 2.0  # the negative frequencies, folded onto these
-    transforms = np.fft.rfft(rows, n=n_fft, axis=1)
-    weighted = transforms * spectrum[None, :]
-    return (weighted @ transforms.conj().T).real * rate / n_fft
+    n_fft, transforms = weights_transforms(rows)
+    return covariance_from_transforms(n_fft, transforms, density, noise_size, rate)
 
 
 def _noise_density(part: np.ndarray, rate: float) -> np.ndarray:

@@ -9,20 +9,25 @@ reads files or prints.
 """
 from __future__ import annotations
 
+import hashlib
+import threading
+from collections import OrderedDict
 from dataclasses import dataclass, replace
 
 import numpy as np
 from scipy.special import chdtri
 
 from ..errors import InvalidSettingError
-from .fluctuation import stretches_covariance, weighted_sums_covariance
+from .fluctuation import (covariance_from_transforms, noise_density, stretch_bounds,
+                          stretches_covariance, weighted_sums_covariance, weights_transforms)
 
 __all__ = ["LineNoise", "estimate_line_noise", "remove_line_noise", "corrected_weights",
            "removal_sd_mv",
            "line_noise_lines",
            "MAINS_FREQUENCIES_HZ", "HUM_HARMONICS", "LINE_NOISE_FALSE_ALARM",
            "MIN_QUIET_PERIODS", "PLATEAU_AGREEMENT", "REST_AFTER_STEP_FRACTION",
-           "REST_AFTER_STEP_MS", "REST_AFTER_SPIKE_MS"]
+           "REST_AFTER_STEP_MS", "REST_AFTER_SPIKE_MS", "DESIGN_CACHE_BYTES",
+           "forget_designs"]
 
 #: The mains frequencies tried; the one whose hum stands out more is kept.
 MAINS_FREQUENCIES_HZ = (50.0, 60.0)
@@ -52,6 +57,11 @@ REST_AFTER_STEP_MS = 50.0
 REST_AFTER_SPIKE_MS = 20.0
 #: The quiet stretch must hold at least this many periods of the lowest mains frequency.
 MIN_QUIET_PERIODS = 2.0
+#: Bytes of least-squares designs (terms, pseudo-inverse, its rows' FFTs) kept between fits:
+#: a cell's sweeps fit the same windows, and a design depends only on the samples fitted,
+#: the rate, the frequency and the terms, not on the voltage. The least recently used go
+#: first; a design larger than this is not kept.
+DESIGN_CACHE_BYTES = 32 * 2 ** 20
 #: The residual's variance counts as at least this (mV^2), so that rounding on a noise-free
 #: trace is not taken for hum.
 _VARIANCE_FLOOR_MV2 = 1e-12
@@ -179,6 +189,128 @@ def _basis(samples: np.ndarray, fit: LineNoise) -> np.ndarray:
     return terms
 
 
+class _Design:
+    """A least-squares design and what follows from it alone, formed when first asked for:
+    the centred columns with the constants, the normal matrix, the pseudo-inverse, the
+    white-noise covariance of the terms' rows, and the rows' stretches with their FFTs."""
+
+    __slots__ = ("design", "gram", "k", "samples", "_pinv", "_white", "_stretches",
+                 "nbytes")
+
+    def __init__(self, samples: np.ndarray, rate: float, frequency_hz: float,
+                 harmonics: tuple[int, ...], drift: bool, levels: np.ndarray | None,
+                 extra: np.ndarray | None):
+        terms = _terms(samples, rate, frequency_hz, harmonics, drift)
+        if extra is not None:
+            terms = np.column_stack([terms, extra])
+        constants = (np.ones((samples.size, 1)) if levels is None or not levels.any()
+                     else np.column_stack([1.0 - levels, levels]))
+        self.k = constants.shape[1]
+        self.design = np.column_stack([constants, terms - terms.mean(axis=0)])
+        # the normal equations: a few well-scaled columns (centred, the time in s), where
+        # an SVD of the tall design would cost far more
+        self.gram = self.design.T @ self.design
+        self.samples = samples
+        self._pinv = self._white = self._stretches = None
+        self.nbytes = self.design.nbytes + self.gram.nbytes + samples.nbytes
+
+    def pinv(self) -> np.ndarray:
+        if self._pinv is None:
+            self._pinv = np.linalg.solve(self.gram, self.design.T)
+            self.nbytes += self._pinv.nbytes
+        return self._pinv
+
+    def white(self) -> np.ndarray:
+        """The terms' rows' products, pinv[k:] pinv[k:]^T."""
+        if self._white is None:
+            rows = self.pinv()[self.k:]
+            self._white = rows @ rows.T
+            self.nbytes += self._white.nbytes
+        return self._white
+
+    def stretches(self) -> list[tuple[int, int, int, np.ndarray]] | None:
+        """The stretches of the terms' rows that
+        :func:`~spikemeasure.analysis.fluctuation.stretches_covariance` sums, each as its
+        columns [a, b) in the rows kept compact, FFT length and FFTs; None when all the
+        rows are zero (the covariance is then taken over the span, as there)."""
+        if self._stretches is None:
+            rows = self.pinv()[self.k:]
+            offsets = self.samples - self.samples[0]
+            bounds = stretch_bounds(rows, offsets)
+            if bounds is None:
+                if not np.any(rows != 0):
+                    return None
+                if offsets[-1] + 1 != offsets.size:  # the rows whole over their span
+                    span = np.zeros((rows.shape[0], int(offsets[-1]) + 1))
+                    span[:, offsets] = rows
+                    self._stretches = [(0, span.shape[1]) + weights_transforms(span)]
+                    self.nbytes += self._stretches[0][3].nbytes
+                    return self._stretches
+                bounds = [(0, int(offsets[-1]) + 1)]
+            stretches = []
+            for a, b in bounds:
+                # a stretch holds no gap of the samples, so it is a run of compact columns
+                lo = int(np.searchsorted(offsets, a))
+                stretches.append((lo, lo + b - a) + weights_transforms(rows[:, lo:lo + b - a]))
+            self._stretches = stretches
+            self.nbytes += sum(t.nbytes for *_, t in stretches)
+        return self._stretches
+
+
+_designs: OrderedDict = OrderedDict()
+_designs_lock = threading.Lock()  # sweeps may be measured on several threads
+
+
+def forget_designs() -> None:
+    """Drop the kept least-squares designs (:data:`DESIGN_CACHE_BYTES`)."""
+    with _designs_lock:
+        _designs.clear()
+
+
+def _digest(array: np.ndarray | None) -> bytes | None:
+    if array is None:
+        return None
+    array = np.ascontiguousarray(array, dtype=float)
+    return hashlib.blake2b(array.tobytes(), digest_size=16,
+                           person=repr(array.shape).encode()[:16]).digest()
+
+
+def _design(samples: np.ndarray, rate: float, frequency_hz: float,
+            harmonics: tuple[int, ...], drift: bool, levels: np.ndarray | None,
+            extra: np.ndarray | None) -> _Design:
+    """The design of :func:`_fit`, kept by its exact key (the samples' runs, the rate, the
+    frequency, the terms, and the bytes of the levels and extra columns) within
+    :data:`DESIGN_CACHE_BYTES`."""
+    samples = np.asarray(samples)
+    cuts = np.flatnonzero(np.diff(samples) != 1)
+    runs = (tuple(samples[np.concatenate([[0], cuts + 1])].tolist()),
+            tuple(samples[np.concatenate([cuts, [samples.size - 1]])].tolist())
+            ) if samples.size else ((), ())
+    one_level = levels is None or not levels.any()
+    key = (runs, float(rate), float(frequency_hz), tuple(harmonics), bool(drift),
+           None if one_level else _digest(levels), _digest(extra))
+    with _designs_lock:
+        found = _designs.get(key)
+        if found is not None:
+            _designs.move_to_end(key)
+            return found
+    made = _Design(samples.copy(), rate, frequency_hz, harmonics, drift, levels, extra)
+    with _designs_lock:
+        _designs[key] = made
+    _trim_designs()
+    return made
+
+
+def _trim_designs() -> None:
+    """Drop the least recently used designs until the rest fit in the byte limit (a design
+    grows as its pseudo-inverse and FFTs are formed)."""
+    with _designs_lock:
+        total = sum(d.nbytes for d in _designs.values())
+        while _designs and total > DESIGN_CACHE_BYTES:
+            _, dropped = _designs.popitem(last=False)
+            total -= dropped.nbytes
+
+
 def _fit(part: np.ndarray, samples: np.ndarray, rate: float, frequency_hz: float,
          harmonics: tuple[int, ...], drift: bool, levels: np.ndarray | None = None,
          extra: np.ndarray | None = None, covariance: bool | str = True
@@ -189,40 +321,55 @@ def _fit(part: np.ndarray, samples: np.ndarray, rate: float, frequency_hz: float
     `levels` (0 or 1 per sample) gives the second stretch a constant of its own; `extra`
     columns follow the terms. The rows cover samples[0] to samples[-1], zero where a
     sample is not fitted. Without `covariance` (only the coefficients wanted) the rows and
-    the covariance are not formed (None); with ``covariance="rows"``, the rows alone."""
-    terms = _terms(samples, rate, frequency_hz, harmonics, drift)
-    if extra is not None:
-        terms = np.column_stack([terms, extra])
-    constants = (np.ones((samples.size, 1)) if levels is None or not levels.any()
-                 else np.column_stack([1.0 - levels, levels]))
-    k = constants.shape[1]
-    design = np.column_stack([constants, terms - terms.mean(axis=0)])
-    # the normal equations: a few well-scaled columns (centred, the time in s), where an
-    # SVD of the tall design would cost far more
-    gram = design.T @ design
+    the covariance are not formed (None); with ``covariance="rows"``, the rows alone; with
+    the covariance, the rows are not returned (None). The design is kept between calls
+    (:func:`_design`)."""
+    made = _design(samples, rate, frequency_hz, harmonics, drift, levels, extra)
+    design, k = made.design, made.k
     if not covariance:
-        return np.linalg.solve(gram, design.T @ part)[k:], None, None
-    pinv = np.linalg.solve(gram, design.T)
+        return np.linalg.solve(made.gram, design.T @ part)[k:], None, None
+    pinv = made.pinv()
     coef = pinv @ part
-    residual = part - design @ coef
-    rows = pinv[k:]
-    if samples.size and samples[-1] - samples[0] + 1 != samples.size:
-        dense = np.zeros((rows.shape[0], int(samples[-1] - samples[0]) + 1))
-        dense[:, samples - samples[0]] = rows
-        rows = dense
     if covariance == "rows":
+        rows = pinv[k:].copy()
+        if samples.size and samples[-1] - samples[0] + 1 != samples.size:
+            dense = np.zeros((rows.shape[0], int(samples[-1] - samples[0]) + 1))
+            dense[:, samples - samples[0]] = rows
+            rows = dense
+        _trim_designs()
         return coef[k:], rows, None
-    spectral = stretches_covariance(rows, residual, rate)
+    residual = part - design @ coef
+    spectral = _stretches_covariance(made, residual, rate)
+    _trim_designs()
     if spectral is None:
-        return coef[k:], rows, None
+        return coef[k:], None, None
     # white noise of the residual's variance, made larger where the residual's spectrum
     # says the noise is correlated: a spectrum estimated on a short stretch scatters, and
     # taken alone would often make the test too lenient
     variance = max(float(np.var(residual)) * samples.size
                    / max(1, samples.size - design.shape[1]), _VARIANCE_FLOOR_MV2)
-    white = variance * (pinv[k:] @ pinv[k:].T)
+    white = variance * made.white()
     inflation = max(1.0, float(np.trace(spectral) / np.trace(white))) if white.size else 1.0
-    return coef[k:], rows, white * inflation
+    return coef[k:], None, white * inflation
+
+
+def _stretches_covariance(made: _Design, residual: np.ndarray, rate: float
+                          ) -> np.ndarray | None:
+    """:func:`~spikemeasure.analysis.fluctuation.stretches_covariance` of the design's
+    terms' rows (spread over their span) under `residual`'s noise, from the FFTs the design
+    keeps."""
+    stretches = made.stretches()
+    if stretches is None:  # rows all zero: as stretches_covariance, over the span
+        rows = made.pinv()[made.k:]
+        span = np.zeros((rows.shape[0], int(made.samples[-1] - made.samples[0]) + 1))
+        span[:, made.samples - made.samples[0]] = rows
+        return weighted_sums_covariance(span, residual, rate)
+    density = noise_density(residual, rate)
+    if density is None:
+        return None
+    covariances = [covariance_from_transforms(n_fft, transforms, density, residual.size, rate)
+                   for _, _, n_fft, transforms in stretches]
+    return covariances[0] if len(covariances) == 1 else sum(covariances)
 
 
 def estimate_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start_s: float,

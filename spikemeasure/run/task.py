@@ -13,6 +13,7 @@ from typing import Callable
 
 from ..columns import CELL_COLUMNS, SPIKE_COLUMNS, SWEEP_COLUMNS
 from ..analysis.detection import DetectionSettings
+from ..analysis.line_noise import forget_designs
 from ..errors import InvalidSettingError, SpikemeasureError
 from ..io import read_recording
 from ..tables.build import (cell_summary, cell_table, count_spikes, flag_counts, measure_recording,
@@ -113,8 +114,11 @@ def _measure_recording(recording, outcome: FileOutcome, shown: str,
     for electrode in electrodes:
         one_cell = replace(recording, sweeps=recording.sweeps_of(electrode), problems=[],
                            problem_electrodes=[], release=None)
-        results = measure_recording(one_cell, settings, step_s, step_sizes_pa,
-                                    cancel=cancel)
+        try:
+            results = measure_recording(one_cell, settings, step_s, step_sizes_pa,
+                                        cancel=cancel)
+        finally:
+            forget_designs()  # the cell's hum fits' designs: not kept past its sweeps
         all_results.extend(results)
         for r in results:
             if r.error:

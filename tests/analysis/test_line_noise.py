@@ -186,3 +186,94 @@ def test_the_fit_is_least_squares():
                                       for f in (np.cos, np.sin)]
     reference = np.linalg.lstsq(np.column_stack(columns), v[samples], rcond=None)[0]
     assert coef == pytest.approx(reference[1:], abs=1e-9)
+
+
+class TestKeptDesigns:
+    """The hum fit's designs kept between sweeps (line_noise.DESIGN_CACHE_BYTES): a fit from
+    a kept design is the fresh fit bit for bit, and the kept bytes stay under the limit."""
+
+    RATE = 10_000.0
+
+    def _stretches(self, seed=0):
+        rng = np.random.default_rng(seed)
+        samples = np.concatenate([np.arange(500, 1500), np.arange(4000, 5500)])
+        t = samples / self.RATE
+        part = (0.3 * np.cos(2 * np.pi * 50 * t + 0.4) + 0.2 * t
+                + rng.normal(0.0, 0.5, samples.size))
+        return part, samples
+
+    def _all_fits(self, part, samples):
+        from spikemeasure.analysis.line_noise import _fit
+        out = []
+        for covariance in (False, True, "rows"):
+            coef, rows, cov = _fit(part, samples, self.RATE, 50.0, (1, 2, 3), True,
+                                   covariance=covariance)
+            out.append((coef, rows, cov))
+        return out
+
+    def test_kept_design_fits_as_fresh(self, monkeypatch):
+        import spikemeasure.analysis.line_noise as ln
+        part, samples = self._stretches()
+        ln.forget_designs()
+        monkeypatch.setattr(ln, "DESIGN_CACHE_BYTES", 0)
+        fresh = self._all_fits(part, samples)
+        assert not ln._designs  # nothing kept at a limit of 0
+        monkeypatch.setattr(ln, "DESIGN_CACHE_BYTES", 2 ** 24)
+        self._all_fits(*self._stretches(seed=1))  # keeps the design
+        assert len(ln._designs) == 1
+        kept = self._all_fits(part, samples)  # from the kept design
+        for (c0, r0, v0), (c1, r1, v1) in zip(fresh, kept):
+            assert c0.tobytes() == c1.tobytes()
+            assert (r0 is None) == (r1 is None) and (r0 is None or r0.tobytes() == r1.tobytes())
+            assert (v0 is None) == (v1 is None) and (v0 is None or v0.tobytes() == v1.tobytes())
+        ln.forget_designs()
+
+    def test_coefficients_match_lstsq(self):
+        # numpy.linalg.lstsq (an SVD solver) on the same columns: a constant, the line and
+        # cos and sin of three harmonics of 50 Hz
+        import spikemeasure.analysis.line_noise as ln
+        part, samples = self._stretches()
+        ln.forget_designs()
+        t = samples / self.RATE
+        columns = [np.ones_like(t), t]
+        for h in (1, 2, 3):
+            columns += [np.cos(2 * np.pi * 50 * h * t), np.sin(2 * np.pi * 50 * h * t)]
+        expected = np.linalg.lstsq(np.column_stack(columns), part, rcond=None)[0][1:]
+        for _ in range(2):  # fresh, then from the kept design
+            for covariance in (False, True):
+                coef, _, _ = ln._fit(part, samples, self.RATE, 50.0, (1, 2, 3), True,
+                                     covariance=covariance)
+                np.testing.assert_allclose(coef, expected, rtol=1e-9, atol=1e-12)
+        ln.forget_designs()
+
+    def test_covariance_as_over_the_dense_rows(self):
+        # the kept FFTs give what stretches_covariance gives on the rows spread over their
+        # span (zero between the stretches), bit for bit
+        import spikemeasure.analysis.line_noise as ln
+        from spikemeasure.analysis.fluctuation import stretches_covariance
+        part, samples = self._stretches()
+        ln.forget_designs()
+        made = ln._design(samples, self.RATE, 50.0, (1, 2, 3), True, None, None)
+        rows = made.pinv()[made.k:]
+        dense = np.zeros((rows.shape[0], samples[-1] - samples[0] + 1))
+        dense[:, samples - samples[0]] = rows
+        noise = np.random.default_rng(2).normal(0.0, 1.0, 800)
+        for _ in range(2):
+            got = ln._stretches_covariance(made, noise, self.RATE)
+            assert got.tobytes() == stretches_covariance(dense, noise, self.RATE).tobytes()
+        ln.forget_designs()
+
+    def test_byte_limit_holds(self, monkeypatch):
+        import spikemeasure.analysis.line_noise as ln
+        part, samples = self._stretches()
+        ln.forget_designs()
+        limit = 400_000
+        monkeypatch.setattr(ln, "DESIGN_CACHE_BYTES", limit)
+        for shift in range(8):  # eight different windows, each design ~100-250 kB
+            self._all_fits(part, samples + 100 * shift)
+            assert sum(d.nbytes for d in ln._designs.values()) <= limit
+        assert 0 < len(ln._designs) < 8
+        monkeypatch.setattr(ln, "DESIGN_CACHE_BYTES", 1000)  # smaller than any design
+        self._all_fits(part, samples + 5000)
+        assert not ln._designs
+        ln.forget_designs()
