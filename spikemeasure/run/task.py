@@ -114,11 +114,8 @@ def _measure_recording(recording, outcome: FileOutcome, shown: str,
     for electrode in electrodes:
         one_cell = replace(recording, sweeps=recording.sweeps_of(electrode), problems=[],
                            problem_electrodes=[], release=None)
-        try:
-            results = measure_recording(one_cell, settings, step_s, step_sizes_pa,
-                                        cancel=cancel)
-        finally:
-            forget_designs()  # the cell's hum fits' designs: not kept past its sweeps
+        results = measure_recording(one_cell, settings, step_s, step_sizes_pa,
+                                    cancel=cancel)
         all_results.extend(results)
         for r in results:
             if r.error:
@@ -129,6 +126,7 @@ def _measure_recording(recording, outcome: FileOutcome, shown: str,
         if not any(r.error is None for r in results):
             continue
         cell = cell_summary(results)
+        forget_designs()  # the hum fits' designs of the cell's sweeps: not kept past them
         cells.append(ColumnTable.from_lists(cell_table([(shown, electrode, cell)]),
                                             CELL_COLUMNS))
         if figures:

@@ -57,11 +57,17 @@ def test_samples_wait_in_the_file_until_measured(step_series):
         assert loaded.command_pa.tobytes() == np.asarray(c, dtype=np.float64).tobytes()
 
 
-def test_memory_does_not_grow_with_the_sweeps(step_series):
+def test_memory_does_not_grow_with_the_sweeps(step_series, monkeypatch):
     """Measuring 16 sweeps peaks at most 2 sweeps' float64 bytes (numpy's nbytes of one
     voltage) above measuring 4 of them, besides what each sweep's results and file handles
     take (SMALL_PER_SWEEP_BYTES): only the sweep being measured is in memory. Holding the
-    file's sweeps would add 2 x 12 sweeps' bytes (voltage and command)."""
+    file's sweeps would add 2 x 12 sweeps' bytes (voltage and command). The hum fits' kept
+    designs are left out (a limit of 0): they hold no samples, are bounded by their own
+    limit (tests/analysis/test_line_noise.py, TestKeptDesigns) and dropped after each
+    cell."""
+    import spikemeasure.analysis.line_noise as line_noise
+
+    monkeypatch.setattr(line_noise, "DESIGN_CACHE_BYTES", 0)
     _peak_bytes(step_series["few"])  # imports and caches first, outside the comparison
     few, few_outcome = _peak_bytes(step_series["few"])
     many, many_outcome = _peak_bytes(step_series["many"])
@@ -85,3 +91,11 @@ def test_values_equal_those_of_the_sweeps_in_memory(step_series):
         for a, b in zip(streamed, expected):
             assert a.spikes.threshold_mv.tobytes() == b.spikes.threshold_mv.tobytes()
         assert repr(cell_summary(streamed)) == repr(cell_summary(expected))  # NaN alike
+
+
+def test_kept_designs_dropped_after_the_file(step_series):
+    """The hum fits' designs kept between a cell's sweeps are dropped once it is measured."""
+    import spikemeasure.analysis.line_noise as line_noise
+
+    measure_file(str(step_series["few"]), "few.nix", PARAMETERS)
+    assert not line_noise._designs
