@@ -60,8 +60,11 @@ MIN_QUIET_PERIODS = 2.0
 #: Bytes of least-squares designs (terms, pseudo-inverse, its rows' FFTs) kept between fits:
 #: a cell's sweeps fit the same windows, and a design depends only on the samples fitted,
 #: the rate, the frequency and the terms, not on the voltage. The least recently used go
-#: first; a design larger than this is not kept.
-DESIGN_CACHE_BYTES = 32 * 2 ** 20
+#: first; a design larger than this is not kept. A 5 s sweep at 50 kHz fitted on its quiet
+#: and rest stretches keeps about 35 MiB (six designs: both mains frequencies, with and
+#: without the rest stretch's test columns); below that, least-recently-used order
+#: drops each design just before it is asked for again.
+DESIGN_CACHE_BYTES = 40 * 2 ** 20
 #: The residual's variance counts as at least this (mV^2), so that rounding on a noise-free
 #: trace is not taken for hum.
 _VARIANCE_FLOOR_MV2 = 1e-12
