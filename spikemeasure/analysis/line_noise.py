@@ -65,6 +65,8 @@ MIN_QUIET_PERIODS = 2.0
 #: without the rest stretch's test columns); below that, least-recently-used order
 #: drops each design just before it is asked for again.
 DESIGN_CACHE_BYTES = 40 * 2 ** 20
+#: Samples whose hum and drift :func:`remove_line_noise` forms at a time.
+_REMOVAL_BLOCK = 2 ** 16
 #: The residual's variance counts as at least this (mV^2), so that rounding on a noise-free
 #: trace is not taken for hum.
 _VARIANCE_FLOOR_MV2 = 1e-12
@@ -650,8 +652,14 @@ def remove_line_noise(voltage_mv: np.ndarray, fit: LineNoise) -> np.ndarray:
     v = np.asarray(voltage_mv, dtype=float)
     if not fit.found:
         return v
-    artefact = fit.artefact_mv(0, v.size)
-    return np.subtract(v, artefact, out=artefact)
+    # a block of samples at a time: the kept terms over a whole sweep would take several
+    # times its voltage's size (each block's values are those of the whole, sample by
+    # sample)
+    out = np.empty(v.shape)
+    for lo in range(0, v.size, _REMOVAL_BLOCK):
+        hi = min(v.size, lo + _REMOVAL_BLOCK)
+        np.subtract(v[lo:hi], fit.artefact_mv(lo, hi), out=out[lo:hi])
+    return out
 
 
 def corrected_weights(weights: np.ndarray, first_sample: int, fit: LineNoise

@@ -277,3 +277,15 @@ class TestKeptDesigns:
         self._all_fits(part, samples + 5000)
         assert not ln._designs
         ln.forget_designs()
+
+
+def test_removal_in_blocks_equals_whole_sweep():
+    """remove_line_noise forms the hum and drift a block of samples at a time: bit for bit
+    the voltage less the kept terms over the whole sweep times the coefficients, on a sweep
+    longer than two blocks (a 50 Hz hum of known amplitude and a line, in white noise)."""
+    import spikemeasure.analysis.line_noise as ln
+    v = trace(seconds=7.0, seed=3)
+    fit = estimate_line_noise(v, RATE, 0.0, QUIET_S)
+    assert fit.found and v.size > 2 * ln._REMOVAL_BLOCK
+    whole = v - fit.basis(0, v.size) @ fit.coefficients
+    assert remove_line_noise(v, fit).tobytes() == whole.tobytes()
