@@ -121,12 +121,15 @@ def _measure_recording(recording, outcome: FileOutcome, shown: str,
             if r.error:
                 outcome.failures.append(failure(shown, f"sweep {r.sweep.index}", r.error,
                                                 electrode))
+        measured = any(r.error is None for r in results)
+        cell = cell_summary(results) if measured else None
+        # the hum fits' designs of the cell's sweeps (its summary's fits reuse them): not
+        # kept past them, nor while its tables are made
+        forget_designs()
         spikes.append(ColumnTable.from_lists(spike_table(results), SPIKE_COLUMNS))
         sweeps.append(ColumnTable.from_lists(sweep_table(results), SWEEP_COLUMNS))
-        if not any(r.error is None for r in results):
+        if not measured:
             continue
-        cell = cell_summary(results)
-        forget_designs()  # the hum fits' designs of the cell's sweeps: not kept past them
         cells.append(ColumnTable.from_lists(cell_table([(shown, electrode, cell)]),
                                             CELL_COLUMNS))
         if figures:
