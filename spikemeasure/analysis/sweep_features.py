@@ -427,9 +427,11 @@ def sweep_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curr
     Parameters
     ----------
     voltage_mv : ndarray
-        Raw voltage, mV.
+        The sweep's recorded voltage, mV, before any removal.
     sampling_rate_hz : float
+        Samples per second.
     step : CurrentStep
+        The sweep's main stimulus (its onset ends the baseline window).
     spike_times_s : ndarray or None
         The sweep's spike times (s); None when unknown (the fit then reads the baseline
         alone).
