@@ -140,10 +140,10 @@ def weighted_sums_covariance(weights: np.ndarray, noise_mv: np.ndarray,
     if not rate > 0:
         raise InvalidSettingError("`sampling_rate_hz` must be positive")
     rows = np.atleast_2d(np.asarray(weights, dtype=float))
-    part = np.asarray(noise_mv, dtype=float)
-    if part.size < _MIN_NOISE_SAMPLES or not np.isfinite(part).all():
+    density = noise_density(noise_mv, rate)
+    if density is None:
         return None
-    return _covariance_from_density(rows, _noise_density(part, rate), part.size, rate)
+    return _covariance_from_density(rows, density, np.size(noise_mv), rate)
 
 
 def stretches_covariance(rows: np.ndarray, noise_mv: np.ndarray, rate: float
@@ -156,11 +156,10 @@ def stretches_covariance(rows: np.ndarray, noise_mv: np.ndarray, rate: float
     bounds = stretch_bounds(rows)
     if bounds is None:
         return weighted_sums_covariance(rows, noise_mv, rate)
-    noise = np.asarray(noise_mv, dtype=float)
-    if noise.size < _MIN_NOISE_SAMPLES or not np.isfinite(noise).all():
+    density = noise_density(noise_mv, rate)
+    if density is None:
         return None  # as weighted_sums_covariance
-    density = _noise_density(noise, rate)
-    return sum(_covariance_from_density(rows[:, a:b], density, noise.size, rate)
+    return sum(_covariance_from_density(rows[:, a:b], density, np.size(noise_mv), rate)
                for a, b in bounds)
 
 

@@ -194,6 +194,16 @@ def _basis(samples: np.ndarray, fit: LineNoise) -> np.ndarray:
     return terms
 
 
+def _over_span(rows: np.ndarray, samples: np.ndarray) -> np.ndarray:
+    """A new array of `rows` (a column per fitted sample) laid over samples[0] to
+    samples[-1], zero where a sample is not fitted."""
+    if not samples.size or samples[-1] - samples[0] + 1 == samples.size:
+        return rows.copy()
+    span = np.zeros((rows.shape[0], int(samples[-1] - samples[0]) + 1))
+    span[:, samples - samples[0]] = rows
+    return span
+
+
 class _Design:
     """A least-squares design and what follows from it alone, formed when first asked for:
     the centred columns with the constants, the normal matrix, the pseudo-inverse, the
@@ -246,8 +256,7 @@ class _Design:
                 if not np.any(rows != 0):
                     return None
                 if offsets[-1] + 1 != offsets.size:  # the rows whole over their span
-                    span = np.zeros((rows.shape[0], int(offsets[-1]) + 1))
-                    span[:, offsets] = rows
+                    span = _over_span(rows, self.samples)
                     self._stretches = [(0, span.shape[1]) + weights_transforms(span)]
                     self.nbytes += self._stretches[0][3].nbytes
                     return self._stretches
@@ -336,11 +345,7 @@ def _fit(part: np.ndarray, samples: np.ndarray, rate: float, frequency_hz: float
     pinv = made.pinv()
     coef = pinv @ part
     if covariance == "rows":
-        rows = pinv[k:].copy()
-        if samples.size and samples[-1] - samples[0] + 1 != samples.size:
-            dense = np.zeros((rows.shape[0], int(samples[-1] - samples[0]) + 1))
-            dense[:, samples - samples[0]] = rows
-            rows = dense
+        rows = _over_span(pinv[k:], samples)
         _trim_designs()
         return coef[k:], rows, None
     residual = part - design @ coef
@@ -365,10 +370,8 @@ def _stretches_covariance(made: _Design, residual: np.ndarray, rate: float
     keeps."""
     stretches = made.stretches()
     if stretches is None:  # rows all zero: as stretches_covariance, over the span
-        rows = made.pinv()[made.k:]
-        span = np.zeros((rows.shape[0], int(made.samples[-1] - made.samples[0]) + 1))
-        span[:, made.samples - made.samples[0]] = rows
-        return weighted_sums_covariance(span, residual, rate)
+        return weighted_sums_covariance(_over_span(made.pinv()[made.k:], made.samples),
+                                        residual, rate)
     density = noise_density(residual, rate)
     if density is None:
         return None

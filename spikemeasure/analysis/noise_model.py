@@ -11,6 +11,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from scipy.fft import next_fast_len
 
 from ..errors import InvalidSettingError
 from .line_noise import HUM_HARMONICS, MAINS_FREQUENCIES_HZ
@@ -160,7 +161,7 @@ def measured_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, start: int, 
         return None
     x = _detrended(stretch)
     # zero-padded to at least 2 n - 1 samples, every lag's sum has no wrapped-around term
-    size = _fast_length(2 * n - 1)
+    size = next_fast_len(2 * n - 1, real=True)  # 2**a 3**b 5**c
     spectrum = np.fft.rfft(x, size)
     acov = np.fft.irfft(spectrum.real ** 2 + spectrum.imag ** 2, size)[:n] / n
     rate = float(sampling_rate_hz)
@@ -194,23 +195,6 @@ def _detrended(stretch: np.ndarray) -> np.ndarray:
     mean = stretch.mean()
     slope = np.einsum("i,i->", t, stretch - mean) / np.einsum("i,i->", t, t)
     return stretch - (mean + slope * t)
-
-
-def _fast_length(n: int) -> int:
-    """The smallest 2**a 3**b 5**c at least n: a length the FFT takes quickly (a power of
-    two alone may be almost twice as long)."""
-    best = 1 << max(0, int(n - 1).bit_length())
-    five = 1
-    while five < best:
-        three = five
-        while three < best:
-            two = three
-            while two < n:
-                two *= 2
-            best = min(best, two)
-            three *= 3
-        five *= 5
-    return best
 
 
 def _drift_with_hum(stretch: np.ndarray, rate: float, size: int) -> tuple[float, float]:

@@ -19,8 +19,8 @@ from .sweeps import MIN_SAMPLING_RATE_HZ, CurrentStep, missing_stretches
 # the passive measurements, importable from here as before
 from .sweep_passive import (MIN_WINDOW_MS, SAG_NOISE_FACTOR, SAG_SD_FACTOR,
                             STEADY_STATE_WINDOW_MS,
-                            TROUGH_WINDOW_FRACTION, PassiveResponse, passive_response,
-                            passive_voltage, rest_start)
+                            TROUGH_WINDOW_FRACTION, PassiveResponse, passive_line_noise,
+                            passive_response, passive_voltage, rest_start)
 
 __all__ = ["SweepFeatures", "baseline", "first_spike_current", "baseline_drift", "firing", "adaptation_index",
            "passive_response", "sweep_features", "MIN_WINDOW_MS", "DRIFT_WINDOW_MS",
@@ -442,7 +442,7 @@ def sweep_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curr
     Returns
     -------
     LineNoise
-        From :func:`~spikemeasure.analysis.sweep_passive.passive_voltage`: fitted on the
+        From :func:`~spikemeasure.analysis.sweep_passive.passive_line_noise`: fitted on the
         baseline window; on a step without spikes, also on its steady-state window (a
         plateau); where spikes are known, also on the stretch after the step where the
         membrane is back at rest (:func:`~spikemeasure.analysis.sweep_passive.rest_start`:
@@ -455,8 +455,8 @@ def sweep_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curr
     # a step without spikes settles to a plateau, whose slope tells the drift too
     plateau_ms = steady_window_ms if known and in_step.size == 0 else None
     rest = rest_start(step, voltage_mv.size / rate, times) if known else None
-    return passive_voltage(voltage_mv, rate, step, baseline_window_ms,
-                           steady_window_ms=plateau_ms, rest_start_s=rest)[1]
+    return passive_line_noise(voltage_mv, rate, step, baseline_window_ms,
+                              steady_window_ms=plateau_ms, rest_start_s=rest)
 
 
 def _firing_around_gaps(times: np.ndarray, window: CurrentStep, lo: int, hi: int,

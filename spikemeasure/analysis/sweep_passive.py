@@ -18,7 +18,8 @@ from .line_noise import (REST_AFTER_SPIKE_MS, REST_AFTER_STEP_FRACTION, REST_AFT
                          corrected_weights, estimate_line_noise, remove_line_noise)
 from .sweeps import CurrentStep
 
-__all__ = ["PassiveResponse", "passive_response", "passive_voltage", "rest_start",
+__all__ = ["PassiveResponse", "passive_response", "passive_voltage", "passive_line_noise",
+           "rest_start",
            "REST_AFTER_STEP_FRACTION", "REST_AFTER_STEP_MS", "REST_AFTER_SPIKE_MS", "MIN_WINDOW_MS",
            "TROUGH_WINDOW_FRACTION", "SAG_NOISE_FACTOR", "SAG_SD_FACTOR",
            "STEADY_STATE_WINDOW_MS"]
@@ -379,6 +380,17 @@ def passive_voltage(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curre
     stretch's bend agree with that line
     (:func:`~spikemeasure.analysis.line_noise.estimate_line_noise`, `rest_s`).
     """
+    fit = passive_line_noise(voltage_mv, sampling_rate_hz, step, baseline_window_ms,
+                             steady_window_ms=steady_window_ms, rest_start_s=rest_start_s)
+    return remove_line_noise(voltage_mv, fit), fit
+
+
+def passive_line_noise(voltage_mv: np.ndarray, sampling_rate_hz: float, step: CurrentStep,
+                       baseline_window_ms: float = BASELINE_WINDOW_MS, *,
+                       steady_window_ms: float | None = None,
+                       rest_start_s: float | None = None) -> LineNoise:
+    """The hum and drift estimate of :func:`passive_voltage` (same parameters and windows,
+    see there) without removing it, for a caller that removes it where it needs to."""
     rate = float(sampling_rate_hz)
     onset = int(round(step.onset_s * rate))
     first = max(0, int(round(step.baseline_start_s * rate)),
@@ -388,12 +400,11 @@ def passive_voltage(voltage_mv: np.ndarray, sampling_rate_hz: float, step: Curre
     plateau = None
     if steady_window_ms is not None and step.shape == "step":
         plateau = (max(onset / rate, step.offset_s - steady_window_ms * 1e-3), step.offset_s)
-    fit = estimate_line_noise(voltage_mv, rate, first / rate, onset / rate,
-                              drift=not np.isfinite(step.test_pulse_start_s),
-                              plateau_s=plateau,
-                              rest_s=(None if rest_start_s is None or step.shape != "step"
-                                      else (rest_start_s, voltage_mv.size / rate)))
-    return remove_line_noise(voltage_mv, fit), fit
+    return estimate_line_noise(voltage_mv, rate, first / rate, onset / rate,
+                               drift=not np.isfinite(step.test_pulse_start_s),
+                               plateau_s=plateau,
+                               rest_s=(None if rest_start_s is None or step.shape != "step"
+                                       else (rest_start_s, voltage_mv.size / rate)))
 
 
 def rest_start(step: CurrentStep, duration_s: float, spike_times_s: np.ndarray) -> float:
