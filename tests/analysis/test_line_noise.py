@@ -147,6 +147,54 @@ class TestPlateau:
             estimate_line_noise(trace(), RATE, 0.1, 0.2, plateau_s=(0.0, 0.05))
 
 
+
+class TestRest:
+    """A stretch after the step where the membrane is back at rest, sharing the baseline's
+    level: the slope's standard error against the least-squares formula for white noise with
+    one constant over both stretches, sigma / sqrt(sum over both of (t - their joint mean
+    t)^2) (Kay 1993, chapter 4, from memory); a membrane still returning from the step is
+    refused."""
+
+    BASE_S, REST_S = (0.1, 0.2), (0.75, 1.0)
+
+    def stepped(self, settle_mv=0.0, seed=0, noise_mv=0.5, slope=1.0):
+        """trace() over 1 s with a -10 mV step from 0.2 to 0.5 s, after which the membrane
+        is back at rest (or still returning with a 100 ms exponential of `settle_mv` left
+        at the rest stretch's start)."""
+        v = trace(hum_mv=0.0, slope=slope, noise_mv=noise_mv, seed=seed, seconds=1.0)
+        t = np.arange(v.size) / RATE
+        v[(t >= 0.2) & (t < 0.5)] -= 10.0
+        after = t >= 0.5
+        v[after] -= settle_mv * np.exp(-(t[after] - self.REST_S[0]) / 0.1)
+        return v
+
+    def test_standard_error_falls_as_least_squares_says(self):
+        fit = estimate_line_noise(self.stepped(seed=1), RATE, *self.BASE_S,
+                                  rest_s=self.REST_S)
+        t = np.concatenate([np.arange(2000, 4000), np.arange(15000, 20000)]) / RATE
+        expected = 0.5 / np.sqrt(np.sum((t - t.mean()) ** 2))   # about 0.017 mV/s
+        assert fit.drift_sd_mv_per_s == pytest.approx(expected, rel=0.3)
+        alone = estimate_line_noise(self.stepped(seed=1), RATE, *self.BASE_S)
+        assert fit.drift_sd_mv_per_s < 0.2 * alone.drift_sd_mv_per_s
+
+    def test_a_drift_the_baseline_misses_is_kept_and_removed(self):
+        # 1 mV/s at 0.5 mV: about 2.9 standard errors on the baseline alone, 60 with rest
+        fits = [estimate_line_noise(self.stepped(seed=k), RATE, *self.BASE_S,
+                                    rest_s=self.REST_S) for k in range(10)]
+        assert all(f.drift_mv_per_s == pytest.approx(1.0, abs=0.1) for f in fits)
+        out = remove_line_noise(self.stepped(seed=3, noise_mv=0.1), fits[3])
+        # the rest level back at the baseline's once the drift is out
+        assert np.mean(out[15000:20000]) - np.mean(out[2000:4000]) == pytest.approx(
+            0.0, abs=0.05)
+
+    def test_a_membrane_still_returning_is_not_taken_for_drift(self):
+        # no drift; the membrane is still 1 mV below rest at the stretch's start, returning
+        # with a 100 ms time constant
+        fits = [estimate_line_noise(self.stepped(settle_mv=1.0, seed=k, noise_mv=0.2,
+                                                 slope=0.0), RATE, *self.BASE_S,
+                                    rest_s=self.REST_S) for k in range(10)]
+        assert not any(np.isfinite(f.drift_mv_per_s) for f in fits)
+
 class TestCorrectedWeights:
 
     def test_matches_the_corrected_mean_with_a_plateau(self):
